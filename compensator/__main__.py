@@ -1,0 +1,7 @@
+"""Allow ``python -m compensator``."""
+
+import sys
+
+from compensator.cli import main
+
+sys.exit(main())

@@ -1,0 +1,64 @@
+"""Command line: thin commands over the library.
+
+Each module in this package that defines ``register(subparsers)`` adds one
+top-level command; ``ORDER`` (an int) places it in ``--help``. A command's
+handler returns an exit status. Library errors a user can cause
+(:class:`~compensator.errors.CompensatorError`) become one-line messages on
+stderr and exit status 2; anything else is a bug and keeps its traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import pkgutil
+import sys
+
+from compensator import __version__
+from compensator.errors import CompensatorError
+
+EXIT_OK = 0
+EXIT_FAILURE = 1
+EXIT_USAGE = 2
+
+
+def _command_modules():
+    modules = []
+    for info in pkgutil.iter_modules(__path__):
+        if info.name.startswith("_"):
+            continue
+        module = importlib.import_module(f"{__name__}.{info.name}")
+        if hasattr(module, "register"):
+            modules.append(module)
+    return sorted(modules, key=lambda m: (getattr(m, "ORDER", 100), m.__name__))
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """Return the top-level parser with every command registered."""
+    parser = argparse.ArgumentParser(
+        prog="compensator",
+        description="Hold SiPM gain constant over temperature.",
+    )
+    parser.add_argument("--version", action="version", version=f"compensator {__version__}")
+    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
+    subparsers.required = True
+    for module in _command_modules():
+        module.register(subparsers)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line; return the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.handler(args) or EXIT_OK)
+    except CompensatorError as exc:
+        for line in str(exc).splitlines() or [type(exc).__name__]:
+            print(f"compensator: {line}", file=sys.stderr)
+        return EXIT_USAGE
+    except BrokenPipeError:  # e.g. piped into `head`
+        return EXIT_OK
+    except KeyboardInterrupt:
+        print("compensator: interrupted", file=sys.stderr)
+        return 130

@@ -1,0 +1,60 @@
+"""Safe file writing at the edges: never half-written, never silently overwritten."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+from compensator.errors import InputError, Problem
+
+
+def write_file_atomic(path: str | Path, data: str | bytes, overwrite: bool = False) -> Path:
+    """Write ``data`` to ``path`` through a temporary file and an atomic rename.
+
+    Parameters
+    ----------
+    path : str or path-like
+        Destination; its directory must exist.
+    data : str or bytes
+        Content (text is encoded as UTF-8 with ``\\n`` line ends).
+    overwrite : bool
+        When false, an existing file is an error and is left untouched.
+
+    Returns
+    -------
+    Path
+        The destination.
+
+    Raises
+    ------
+    InputError
+        The file exists (and ``overwrite`` is false) or cannot be written.
+    """
+    path = Path(path)
+    if not overwrite and path.exists():
+        raise InputError(Problem(str(path), 0, "", "already exists; not overwriting (use --force to replace it)"))
+    payload = data.encode("utf-8") if isinstance(data, str) else data
+    directory = path.parent if str(path.parent) else Path(".")
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=directory)
+    except OSError as exc:
+        raise InputError(Problem(str(path), 0, "", f"cannot write: {exc.strerror or exc}")) from None
+    try:
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(payload)
+            handle.flush()
+            os.fsync(handle.fileno())
+        if overwrite:
+            os.replace(tmp, path)
+        else:
+            os.link(tmp, path)  # fails if the destination appeared meanwhile
+            os.unlink(tmp)
+    except FileExistsError:
+        os.unlink(tmp)
+        raise InputError(Problem(str(path), 0, "", "already exists; not overwriting (use --force to replace it)")) from None
+    except OSError as exc:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise InputError(Problem(str(path), 0, "", f"cannot write: {exc.strerror or exc}")) from None
+    return path

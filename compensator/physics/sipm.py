@@ -1,0 +1,334 @@
+"""SiPM device model, vectorised over numpy arrays.
+
+All functions broadcast their array arguments against each other.
+
+Model summary (sources in brackets):
+
+* breakdown  Vbd(T) = Vbd0 + a (T - T0) + b (T - T0)^2  (near-linear from
+  -40 to +50 C; common practice)
+* gain       G = C_cell (V - Vbd) / q, zero at and below breakdown; C_cell may
+  carry a temperature coefficient (common practice)
+* PDE        PDE(Vov) = PDE_max (1 - exp(-Vov / Vsat))  (Otte et al., NIM A 846,
+  106, 2017; form quoted from memory)
+* dark rate  DCR = DCR0 (Vov / Vov0)^n 2^((T - T0) / Td)  (doubling every few
+  kelvin near room temperature; common practice)
+* crosstalk  p = 1 - exp(-k Vov^n) with k from a reference point, so p < 1
+  (grows roughly with the square of overvoltage; common practice)
+* saturation N_fired = N_cells (1 - exp(-N_ph PDE / N_cells))  (Klanner, NIM A
+  926, 36, 2019; pulses much shorter than the recovery time)
+* current    I = q G (DCR + R_ph PDE) / (1 - p)  (mean cells per primary with
+  branching crosstalk, Vinogradov, NIM A 695, 247, 2012)
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from compensator.constants import ELEMENTARY_CHARGE_C
+from compensator.errors import ModelError
+
+
+@dataclass(frozen=True)
+class Breakdown:
+    """Breakdown voltage against temperature.
+
+    Attributes
+    ----------
+    breakdown_v_at_ref : float
+        Breakdown voltage at ``ref_temp_c``, volt.
+    ref_temp_c : float
+        Reference temperature, degree Celsius.
+    tempco_mv_per_k : float
+        Linear temperature coefficient, millivolt per kelvin.
+    curvature_mv_per_k2 : float
+        Quadratic term, millivolt per kelvin squared.
+    breakdown_err_v, tempco_err_mv_per_k : float
+        One-sigma calibration uncertainties (volt, millivolt per kelvin).
+    """
+
+    breakdown_v_at_ref: float
+    ref_temp_c: float = 25.0
+    tempco_mv_per_k: float = 0.0
+    curvature_mv_per_k2: float = 0.0
+    breakdown_err_v: float = 0.0
+    tempco_err_mv_per_k: float = 0.0
+
+    def breakdown_v(self, temp_c):
+        """Breakdown voltage in volt at ``temp_c`` (degree Celsius, array-like)."""
+        dt_k = np.asarray(temp_c, dtype=float) - self.ref_temp_c
+        return self.breakdown_v_at_ref + 1e-3 * dt_k * (self.tempco_mv_per_k + self.curvature_mv_per_k2 * dt_k)
+
+    def slope_v_per_k(self, temp_c):
+        """dVbd/dT in volt per kelvin at ``temp_c``."""
+        dt_k = np.asarray(temp_c, dtype=float) - self.ref_temp_c
+        return 1e-3 * (self.tempco_mv_per_k + 2.0 * self.curvature_mv_per_k2 * dt_k)
+
+
+@dataclass(frozen=True)
+class Sipm:
+    """Parameters of one SiPM type (see the module docstring for the model).
+
+    Attributes
+    ----------
+    breakdown : Breakdown
+    cell_capacitance_f : float
+        Effective microcell capacitance at the breakdown reference temperature, farad.
+    cell_count : int
+    pde_max_fraction, pde_saturation_overvoltage_v : float
+    dark_rate_hz, dark_ref_temp_c, dark_ref_overvoltage_v, dark_doubling_temp_k, dark_overvoltage_exponent : float
+    crosstalk_probability, crosstalk_ref_overvoltage_v, crosstalk_overvoltage_exponent : float
+    max_overvoltage_v, min_overvoltage_v, max_current_a : float
+    capacitance_tempco_ppm_per_k : float
+    recovery_time_s : float
+    """
+
+    breakdown: Breakdown
+    cell_capacitance_f: float
+    cell_count: int
+    pde_max_fraction: float = 0.5
+    pde_saturation_overvoltage_v: float = 2.0
+    dark_rate_hz: float = 0.0
+    dark_ref_temp_c: float = 25.0
+    dark_ref_overvoltage_v: float = 3.0
+    dark_doubling_temp_k: float = 8.0
+    dark_overvoltage_exponent: float = 1.0
+    crosstalk_probability: float = 0.0
+    crosstalk_ref_overvoltage_v: float = 3.0
+    crosstalk_overvoltage_exponent: float = 2.0
+    max_overvoltage_v: float = 10.0
+    min_overvoltage_v: float = 0.5
+    max_current_a: float = 1e-3
+    capacitance_tempco_ppm_per_k: float = 0.0
+    recovery_time_s: float = 50e-9
+
+    def __post_init__(self):
+        if self.cell_capacitance_f <= 0:
+            raise ModelError(f"cell_capacitance_f must be positive, got {self.cell_capacitance_f!r}")
+        if self.cell_count <= 0:
+            raise ModelError(f"cell_count must be positive, got {self.cell_count!r}")
+        if not 0 <= self.crosstalk_probability < 1:
+            raise ModelError(f"crosstalk_probability must be in [0, 1), got {self.crosstalk_probability!r}")
+
+
+def breakdown_v(sipm: Sipm, temp_c):
+    """Breakdown voltage.
+
+    Parameters
+    ----------
+    sipm : Sipm
+    temp_c : array_like
+        Temperature, degree Celsius.
+
+    Returns
+    -------
+    ndarray
+        Breakdown voltage, volt.
+    """
+    return sipm.breakdown.breakdown_v(temp_c)
+
+
+def cell_capacitance_f(sipm: Sipm, temp_c):
+    """Microcell capacitance in farad at ``temp_c`` (degree Celsius)."""
+    dt_k = np.asarray(temp_c, dtype=float) - sipm.breakdown.ref_temp_c
+    return sipm.cell_capacitance_f * (1.0 + 1e-6 * sipm.capacitance_tempco_ppm_per_k * dt_k)
+
+
+def gain(sipm: Sipm, bias_v, temp_c):
+    """Gain (electrons per avalanche) G = C_cell (V - Vbd) / q, zero below breakdown.
+
+    Parameters
+    ----------
+    sipm : Sipm
+    bias_v : array_like
+        Bias across the SiPM, volt.
+    temp_c : array_like
+        Temperature, degree Celsius.
+
+    Returns
+    -------
+    ndarray
+        Gain, dimensionless.
+    """
+    overvoltage_v = np.maximum(np.asarray(bias_v, dtype=float) - breakdown_v(sipm, temp_c), 0.0)
+    return cell_capacitance_f(sipm, temp_c) * overvoltage_v / ELEMENTARY_CHARGE_C
+
+
+def relative_gain_change_per_k(sipm: Sipm, overvoltage_v, temp_c=None):
+    """Relative gain change per kelvin at fixed bias.
+
+    ``(1/G) dG/dT = -(dVbd/dT) / Vov + alpha_C`` where ``alpha_C`` is the
+    capacitance temperature coefficient (common practice).
+
+    Parameters
+    ----------
+    sipm : Sipm
+    overvoltage_v : array_like
+        Overvoltage, volt (must be positive).
+    temp_c : array_like, optional
+        Temperature, degree Celsius (matters only with a quadratic breakdown
+        term); defaults to the breakdown reference temperature.
+
+    Returns
+    -------
+    ndarray
+        Fractional change per kelvin (multiply by 100 for percent per kelvin).
+    """
+    overvoltage_v = np.asarray(overvoltage_v, dtype=float)
+    if np.any(overvoltage_v <= 0):
+        raise ModelError("overvoltage_v must be positive for a relative gain change")
+    temp_c = sipm.breakdown.ref_temp_c if temp_c is None else temp_c
+    return -sipm.breakdown.slope_v_per_k(temp_c) / overvoltage_v + 1e-6 * sipm.capacitance_tempco_ppm_per_k
+
+
+def pde(sipm: Sipm, overvoltage_v):
+    """Photon detection efficiency (fraction) at ``overvoltage_v`` (volt); zero below breakdown."""
+    ov = np.maximum(np.asarray(overvoltage_v, dtype=float), 0.0)
+    return sipm.pde_max_fraction * -np.expm1(-ov / sipm.pde_saturation_overvoltage_v)
+
+
+def dark_rate_hz(sipm: Sipm, temp_c, overvoltage_v):
+    """Dark count rate of the device in hertz; zero below breakdown.
+
+    Parameters
+    ----------
+    sipm : Sipm
+    temp_c : array_like
+        Temperature, degree Celsius.
+    overvoltage_v : array_like
+        Overvoltage, volt.
+    """
+    ov = np.maximum(np.asarray(overvoltage_v, dtype=float), 0.0)
+    dt_k = np.asarray(temp_c, dtype=float) - sipm.dark_ref_temp_c
+    return (sipm.dark_rate_hz * (ov / sipm.dark_ref_overvoltage_v) ** sipm.dark_overvoltage_exponent
+            * np.exp2(dt_k / sipm.dark_doubling_temp_k))
+
+
+def crosstalk_probability(sipm: Sipm, overvoltage_v):
+    """Prompt crosstalk probability (fraction, below 1) at ``overvoltage_v`` (volt)."""
+    ov = np.maximum(np.asarray(overvoltage_v, dtype=float), 0.0)
+    p_ref = sipm.crosstalk_probability
+    if p_ref == 0.0:
+        return np.zeros_like(ov)
+    k = -np.log1p(-p_ref) / sipm.crosstalk_ref_overvoltage_v ** sipm.crosstalk_overvoltage_exponent
+    return -np.expm1(-k * ov ** sipm.crosstalk_overvoltage_exponent)
+
+
+def fired_cells(cell_count, photon_count, pde_fraction):
+    """Mean number of fired microcells for a short light pulse.
+
+    ``N_fired = N_cells (1 - exp(-N_ph PDE / N_cells))`` (Klanner, NIM A 926,
+    36, 2019), valid for pulses much shorter than the recovery time.
+
+    Parameters
+    ----------
+    cell_count : array_like
+        Number of microcells.
+    photon_count : array_like
+        Photons reaching the sensor in the pulse.
+    pde_fraction : array_like
+        Photon detection efficiency, fraction.
+    """
+    n = np.asarray(cell_count, dtype=float)
+    return n * -np.expm1(-np.asarray(photon_count, dtype=float) * np.asarray(pde_fraction, dtype=float) / n)
+
+
+def steady_current_a(sipm: Sipm, bias_v, temp_c, photon_rate_hz=0.0):
+    """Steady current drawn by the SiPM in ampere.
+
+    ``I = q G (DCR + R_ph PDE) / (1 - p_xt)``: each primary avalanche (dark or
+    photon) brings on average ``1/(1 - p)`` avalanches through crosstalk
+    (Vinogradov, NIM A 695, 247, 2012). Afterpulsing is neglected.
+
+    Parameters
+    ----------
+    sipm : Sipm
+    bias_v : array_like
+        Bias across the SiPM, volt.
+    temp_c : array_like
+        Temperature, degree Celsius.
+    photon_rate_hz : array_like
+        Rate of photons reaching the sensor, hertz.
+    """
+    ov = np.asarray(bias_v, dtype=float) - breakdown_v(sipm, temp_c)
+    primaries_hz = dark_rate_hz(sipm, temp_c, ov) + np.asarray(photon_rate_hz, dtype=float) * pde(sipm, ov)
+    return ELEMENTARY_CHARGE_C * gain(sipm, bias_v, temp_c) * primaries_hz / (1.0 - crosstalk_probability(sipm, ov))
+
+
+@dataclass(frozen=True)
+class SipmState:
+    """The model evaluated at a set of operating points (arrays broadcast together).
+
+    Attributes
+    ----------
+    temp_c, bias_v, breakdown_v, overvoltage_v : ndarray
+        Degree Celsius and volt.
+    gain : ndarray
+        Electrons per avalanche.
+    pde_fraction, crosstalk_probability : ndarray
+        Fractions.
+    dark_rate_hz : ndarray
+        Hertz.
+    current_a : ndarray
+        Steady dark current, ampere.
+    gain_change_pct_per_k : ndarray
+        Relative gain change at fixed bias, percent per kelvin (NaN below breakdown).
+    """
+
+    temp_c: np.ndarray
+    bias_v: np.ndarray
+    breakdown_v: np.ndarray
+    overvoltage_v: np.ndarray
+    gain: np.ndarray
+    pde_fraction: np.ndarray
+    dark_rate_hz: np.ndarray
+    crosstalk_probability: np.ndarray
+    current_a: np.ndarray
+    gain_change_pct_per_k: np.ndarray
+
+
+def evaluate(sipm: Sipm, temp_c, bias_v=None, overvoltage_v=None, photon_rate_hz=0.0) -> SipmState:
+    """Evaluate the whole model at fixed bias or at fixed overvoltage.
+
+    Parameters
+    ----------
+    sipm : Sipm
+    temp_c : array_like
+        Temperatures, degree Celsius.
+    bias_v : array_like, optional
+        Bias across the SiPM, volt. Give exactly one of ``bias_v`` and ``overvoltage_v``.
+    overvoltage_v : array_like, optional
+        Overvoltage, volt; the bias then follows the breakdown.
+    photon_rate_hz : array_like
+        Photon rate for the current, hertz.
+
+    Returns
+    -------
+    SipmState
+    """
+    if (bias_v is None) == (overvoltage_v is None):
+        raise ModelError("give exactly one of bias_v and overvoltage_v")
+    temp_c = np.asarray(temp_c, dtype=float)
+    vbd = breakdown_v(sipm, temp_c)
+    if bias_v is None:
+        bias = vbd + np.asarray(overvoltage_v, dtype=float)
+    else:
+        bias = np.asarray(bias_v, dtype=float) + np.zeros_like(vbd)
+    ov = bias - vbd
+    temp_b = np.broadcast_to(temp_c, ov.shape)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        change = np.where(ov > 0, 100.0 * (-sipm.breakdown.slope_v_per_k(temp_b) / np.where(ov > 0, ov, 1.0)
+                                         + 1e-6 * sipm.capacitance_tempco_ppm_per_k), np.nan)
+    return SipmState(
+        temp_c=temp_b,
+        bias_v=bias,
+        breakdown_v=np.broadcast_to(vbd, ov.shape),
+        overvoltage_v=ov,
+        gain=gain(sipm, bias, temp_b),
+        pde_fraction=pde(sipm, ov),
+        dark_rate_hz=dark_rate_hz(sipm, temp_b, ov),
+        crosstalk_probability=crosstalk_probability(sipm, ov),
+        current_a=steady_current_a(sipm, bias, temp_b, photon_rate_hz),
+        gain_change_pct_per_k=change,
+    )

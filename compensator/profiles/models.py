@@ -1,0 +1,211 @@
+"""Profile objects: validated, frozen, ready for the numerical core."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from compensator.errors import ModelError, ProfileError
+from compensator.physics.sensors import FrontEnd, NtcSensor, RtdSensor, SteinhartHart, TemperatureChannel
+from compensator.physics.sipm import Breakdown, Sipm
+from compensator.physics.supply import BiasSupply, Dac
+from compensator.physics.thermal import CoolerParams
+from compensator.profiles.loader import RawProfile, read_raw_profile
+
+
+@dataclass(frozen=True)
+class _Meta:
+    name: str
+    description: str
+    source: str
+    sha256: str
+    values: dict = field(repr=False, compare=False)
+
+
+@dataclass(frozen=True)
+class SipmProfile(_Meta):
+    """A ``sipm`` profile: metadata plus the :class:`~compensator.physics.sipm.Sipm` model."""
+
+    device: Sipm = None
+
+
+@dataclass(frozen=True)
+class BoardProfile(_Meta):
+    """A ``board`` profile.
+
+    Attributes
+    ----------
+    temperature : TemperatureChannel
+        Sensor plus divider and ADC.
+    supply : BiasSupply
+        DAC, output network, limits and series resistor.
+    control_rate_hz, min_temp_c, max_temp_c, max_bias_v : float
+    safe_dac_code : int
+        DAC code applied when the temperature reading is invalid.
+    """
+
+    temperature: TemperatureChannel = None
+    supply: BiasSupply = None
+    control_rate_hz: float = 0.0
+    min_temp_c: float = 0.0
+    max_temp_c: float = 0.0
+    max_bias_v: float = 0.0
+    safe_dac_code: int = 0
+
+
+@dataclass(frozen=True)
+class ThermalProfile(_Meta):
+    """A ``thermal`` profile: metadata plus :class:`~compensator.physics.thermal.CoolerParams`."""
+
+    cooler: CoolerParams = None
+
+
+def _meta(raw: RawProfile) -> dict:
+    v = raw.values
+    return dict(name=v["name"], description=v.get("description", ""), source=raw.path,
+                sha256=raw.sha256, values=v)
+
+
+def _build_sipm(raw: RawProfile) -> SipmProfile:
+    v = raw.values
+    bd, cell, pde, dark, xt, lim = (v[k] for k in ("breakdown", "cell", "pde", "dark", "crosstalk", "limits"))
+    if lim["min_overvoltage_v"] >= lim["max_overvoltage_v"]:
+        raise ProfileError(raw.problem("limits.min_overvoltage_v", "must be below limits.max_overvoltage_v"))
+    device = Sipm(
+        breakdown=Breakdown(bd["breakdown_v_at_ref"], bd["ref_temp_c"], bd["tempco_mv_per_k"],
+                            bd["curvature_mv_per_k2"], bd["breakdown_err_v"], bd["tempco_err_mv_per_k"]),
+        cell_capacitance_f=cell["capacitance_f"], cell_count=cell["count"],
+        capacitance_tempco_ppm_per_k=cell["capacitance_tempco_ppm_per_k"], recovery_time_s=cell["recovery_time_s"],
+        pde_max_fraction=pde["max_fraction"], pde_saturation_overvoltage_v=pde["saturation_overvoltage_v"],
+        dark_rate_hz=dark["rate_hz"], dark_ref_temp_c=dark["ref_temp_c"],
+        dark_ref_overvoltage_v=dark["ref_overvoltage_v"], dark_doubling_temp_k=dark["doubling_temp_k"],
+        dark_overvoltage_exponent=dark["overvoltage_exponent"],
+        crosstalk_probability=xt["probability"], crosstalk_ref_overvoltage_v=xt["ref_overvoltage_v"],
+        crosstalk_overvoltage_exponent=xt["overvoltage_exponent"],
+        max_overvoltage_v=lim["max_overvoltage_v"], min_overvoltage_v=lim["min_overvoltage_v"],
+        max_current_a=lim["max_current_a"],
+    )
+    return SipmProfile(**_meta(raw), device=device)
+
+
+def _build_board(raw: RawProfile) -> BoardProfile:
+    v = raw.values
+    ts, fe, adc, dac, sup, ctl, lim = (v[k] for k in (
+        "temperature_sensor", "front_end", "adc", "dac", "supply", "control", "limits"))
+    problems = []
+    if ts["type"] == "rtd":
+        sensor = RtdSensor(ts["r0_ohm"], ts["tolerance_class"], ts["self_heating_k"], ts["sensor_to_die_k"])
+    else:
+        sh = None
+        if ts["type"] == "ntc_steinhart_hart":
+            sh = SteinhartHart(ts["sh_a_per_k"], ts["sh_b_per_k"], ts["sh_c_per_k"])
+        sensor = NtcSensor(ts["r25_ohm"], ts.get("beta_k"), sh, ts["r25_tolerance_pct"], ts["beta_tolerance_pct"],
+                           ts["self_heating_k"], ts["sensor_to_die_k"])
+    front_end = FrontEnd(fe["sensor_position"], fe["reference_resistor_ohm"], fe["excitation_v"], fe["ratiometric"],
+                         adc["bits"], adc["reference_v"], fe["reference_resistor_tolerance_pct"],
+                         adc["reference_tolerance_pct"])
+    channel = TemperatureChannel(sensor, front_end)
+    if lim["min_temp_c"] >= lim["max_temp_c"]:
+        problems.append(raw.problem("limits.min_temp_c", "must be below limits.max_temp_c"))
+    if sup["min_output_v"] >= sup["max_output_v"]:
+        problems.append(raw.problem("supply.min_output_v", "must be below supply.max_output_v"))
+    try:
+        supply = BiasSupply(
+            Dac(dac["bits"], dac["reference_v"], dac["reference_tolerance_pct"]), sup["topology"],
+            feedback_v=sup.get("feedback_v", 1.25), r1_ohm=sup.get("r1_ohm", 0.0), r2_ohm=sup.get("r2_ohm", 1.0),
+            r3_ohm=sup.get("r3_ohm", 1.0), gain_v_per_v=sup.get("gain_v_per_v", 1.0),
+            offset_v=sup.get("offset_v", 0.0), min_output_v=sup["min_output_v"], max_output_v=sup["max_output_v"],
+            series_resistor_ohm=sup["series_resistor_ohm"], filter_capacitance_f=sup["filter_capacitance_f"],
+            resistor_tolerance_pct=sup["resistor_tolerance_pct"],
+        )
+    except ModelError as exc:
+        raise ProfileError([*problems, raw.problem("supply.topology", str(exc))]) from None
+    if problems:
+        raise ProfileError(problems)
+    # The sensor must read inside the ADC range over the whole operating range.
+    temps_c = np.linspace(lim["min_temp_c"], lim["max_temp_c"], 64)
+    try:
+        codes = channel.adc_code(temps_c)
+    except ModelError as exc:
+        raise ProfileError(raw.problem("limits.min_temp_c", f"operating range outside the sensor model: {exc}")) from None
+    if codes.min() <= 0 or codes.max() >= front_end.full_scale_code:
+        problems.append(raw.problem("front_end.reference_resistor_ohm",
+                                    "the divider drives the ADC to a rail inside the operating temperature range"))
+    if np.any(np.diff(codes) == 0) and len(np.unique(codes)) < 16:
+        problems.append(raw.problem("adc.bits", "fewer than 16 ADC codes span the operating temperature range"))
+    lo_v, hi_v = supply.output_range_v()
+    if lo_v >= hi_v:
+        problems.append(raw.problem("supply.min_output_v", "the network's output range is empty within the limits"))
+    safe = lim["safe_dac_code"]
+    if safe is None:
+        safe = int(np.argmin(supply.output_v([0, supply.dac.full_scale_code]))) * supply.dac.full_scale_code
+    elif safe > supply.dac.full_scale_code:
+        problems.append(raw.problem("limits.safe_dac_code", f"exceeds the DAC's largest code {supply.dac.full_scale_code}"))
+    if problems:
+        raise ProfileError(problems)
+    return BoardProfile(**_meta(raw), temperature=channel, supply=supply, control_rate_hz=ctl["rate_hz"],
+                        min_temp_c=lim["min_temp_c"], max_temp_c=lim["max_temp_c"], max_bias_v=lim["max_bias_v"],
+                        safe_dac_code=int(safe))
+
+
+def _build_thermal(raw: RawProfile) -> ThermalProfile:
+    v = raw.values
+    p, cp, hs, se, amb, ctl, lim = (v[k] for k in (
+        "peltier", "cold_plate", "hot_side", "sensor", "ambient", "control", "limits"))
+    cooler = CoolerParams(
+        seebeck_v_per_k=p["seebeck_v_per_k"], resistance_ohm=p["resistance_ohm"],
+        conductance_w_per_k=p["conductance_w_per_k"], max_current_a=p["max_current_a"],
+        cold_heat_capacity_j_per_k=cp["heat_capacity_j_per_k"], cold_heat_load_w=cp["heat_load_w"],
+        cold_leak_conductance_w_per_k=cp["leak_conductance_w_per_k"],
+        hot_heat_capacity_j_per_k=hs["heat_capacity_j_per_k"], sink_resistance_k_per_w=hs["sink_resistance_k_per_w"],
+        sensor_time_constant_s=se["time_constant_s"], sensor_dead_time_s=se["dead_time_s"],
+        ambient_temp_c=amb["temp_c"], ambient_relative_humidity_pct=amb["relative_humidity_pct"],
+        control_rate_hz=ctl["rate_hz"], setpoint_temp_c=ctl["setpoint_temp_c"],
+        max_hot_temp_c=lim["max_hot_temp_c"], dew_margin_k=lim["dew_margin_k"],
+    )
+    if lim["max_hot_temp_c"] <= amb["temp_c"]:
+        raise ProfileError(raw.problem("limits.max_hot_temp_c", "must be above ambient.temp_c"))
+    return ThermalProfile(**_meta(raw), cooler=cooler)
+
+
+_BUILDERS = {"sipm": _build_sipm, "board": _build_board, "thermal": _build_thermal}
+
+
+def load_profile(path: str | Path, kind: str | None = None):
+    """Load and validate a profile.
+
+    Parameters
+    ----------
+    path : str or path-like
+        YAML file.
+    kind : {"sipm", "board", "thermal"}, optional
+        Expected kind; another kind is an error.
+
+    Returns
+    -------
+    SipmProfile, BoardProfile or ThermalProfile
+
+    Raises
+    ------
+    ProfileError
+        One problem per line: ``FILE:LINE: key.path: reason``.
+    """
+    raw = read_raw_profile(path, kind)
+    return _BUILDERS[raw.kind](raw)
+
+
+def load_sipm(path) -> SipmProfile:
+    """Load a ``sipm`` profile (see :func:`load_profile`)."""
+    return load_profile(path, "sipm")
+
+
+def load_board(path) -> BoardProfile:
+    """Load a ``board`` profile (see :func:`load_profile`)."""
+    return load_profile(path, "board")
+
+
+def load_thermal(path) -> ThermalProfile:
+    """Load a ``thermal`` profile (see :func:`load_profile`)."""
+    return load_profile(path, "thermal")

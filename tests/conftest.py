@@ -1,0 +1,81 @@
+"""Shared fixtures: bundled profiles and an in-process command-line runner."""
+
+from __future__ import annotations
+
+import contextlib
+import io
+from dataclasses import dataclass
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parent.parent
+PROFILES = REPO / "hardware_profiles"
+
+
+@dataclass
+class CliResult:
+    status: int
+    stdout: str
+    stderr: str
+
+
+def run_cli(*argv) -> CliResult:
+    """Run ``compensator ARGV...`` in-process and capture its streams and exit status."""
+    from compensator.cli import main
+
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        try:
+            status = main([str(a) for a in argv])
+        except SystemExit as exc:  # argparse usage errors
+            status = exc.code if isinstance(exc.code, int) else 2
+    return CliResult(status, out.getvalue(), err.getvalue())
+
+
+@pytest.fixture
+def cli():
+    """The in-process command-line runner."""
+    return run_cli
+
+
+@pytest.fixture(scope="session")
+def profiles_dir() -> Path:
+    """The bundled ``hardware_profiles/`` directory."""
+    return PROFILES
+
+
+@pytest.fixture(scope="session")
+def sipm_a():
+    from compensator.profiles import load_sipm
+    return load_sipm(PROFILES / "hut-sipm-a.yaml")
+
+
+@pytest.fixture(scope="session")
+def sipm_b():
+    from compensator.profiles import load_sipm
+    return load_sipm(PROFILES / "hut-sipm-b.yaml")
+
+
+@pytest.fixture(scope="session")
+def sipm_c():
+    from compensator.profiles import load_sipm
+    return load_sipm(PROFILES / "hut-sipm-c.yaml")
+
+
+@pytest.fixture(scope="session")
+def board_ntc():
+    from compensator.profiles import load_board
+    return load_board(PROFILES / "hut-board-ntc.yaml")
+
+
+@pytest.fixture(scope="session")
+def board_pt1000():
+    from compensator.profiles import load_board
+    return load_board(PROFILES / "hut-board-pt1000.yaml")
+
+
+@pytest.fixture(scope="session")
+def cooler():
+    from compensator.profiles import load_thermal
+    return load_thermal(PROFILES / "hut-cooler.yaml")
