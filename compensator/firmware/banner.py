@@ -45,6 +45,21 @@ def banner_lines(what: str, profiles, settings: dict | None = None) -> list[str]
 
 
 def c_banner(what: str, profiles, settings: dict | None = None) -> str:
-    """The banner as a C block comment."""
+    """The banner as a C block comment.
+
+    Parameters
+    ----------
+    what : str
+        What the file is.
+    profiles : sequence of profile objects
+        The inputs (name, source, sha256).
+    settings : dict, optional
+        Options that shaped the output.
+
+    Returns
+    -------
+    str
+        ``/* ... */`` followed by a newline.
+    """
     body = "\n".join(f" * {line}" for line in banner_lines(what, profiles, settings))
     return f"/*\n{body}\n */\n"

@@ -109,13 +109,43 @@ def rtd_tolerance_k(temp_c, tolerance_class="A"):
 
 
 def ntc_beta_resistance_ohm(temp_c, r25_ohm, beta_k):
-    """NTC resistance by the Beta model ``R = R25 exp(B (1/T - 1/298.15 K))``, ohm."""
+    """NTC resistance by the Beta model ``R = R25 exp(B (1/T - 1/298.15 K))``.
+
+    Parameters
+    ----------
+    temp_c : array_like
+        Temperature, degree Celsius.
+    r25_ohm : float
+        Resistance at 25 degree Celsius, ohm.
+    beta_k : float
+        Beta constant, kelvin.
+
+    Returns
+    -------
+    ndarray
+        Resistance, ohm.
+    """
     t_k = np.asarray(temp_c, dtype=float) + ZERO_C_IN_K
     return r25_ohm * np.exp(beta_k * (1.0 / t_k - 1.0 / T25_K))
 
 
 def ntc_beta_temp_c(resistance_ohm, r25_ohm, beta_k):
-    """Inverse Beta model: temperature in degree Celsius of an NTC of ``resistance_ohm``."""
+    """Inverse Beta model: ``1/T = 1/298.15 K + ln(R/R25)/B``.
+
+    Parameters
+    ----------
+    resistance_ohm : array_like
+        Resistance, ohm.
+    r25_ohm : float
+        Resistance at 25 degree Celsius, ohm.
+    beta_k : float
+        Beta constant, kelvin.
+
+    Returns
+    -------
+    ndarray
+        Temperature, degree Celsius.
+    """
     r = np.asarray(resistance_ohm, dtype=float)
     return 1.0 / (1.0 / T25_K + np.log(r / r25_ohm) / beta_k) - ZERO_C_IN_K
 

@@ -1,0 +1,129 @@
+"""The foundation commands: profile check, model, sensor, demo; and the installed entry points."""
+
+import json
+import os
+import subprocess
+import sys
+
+import pytest
+
+
+def test_profile_check_bundled(cli, profiles_dir):
+    files = sorted(profiles_dir.iterdir())  # includes README.md, which is skipped with a note
+    result = cli("profile", "check", *files)
+    assert result.status == 0, result.stderr
+    assert result.stdout.count(": ok (") == len([f for f in files if f.suffix == ".yaml"])
+    assert "README.md: skipped" in result.stderr
+
+
+def test_profile_check_reports_each_problem_and_exits_2(cli, tmp_path, profiles_dir):
+    bad = tmp_path / "bad.yaml"
+    bad.write_text((profiles_dir / "hut-sipm-a.yaml").read_text()
+                   .replace("capacitance_f: 160e-15", "capacitance_f: -1.0")
+                   .replace("count: 18980", "count: 1.5"))
+    empty = tmp_path / "empty.yaml"
+    empty.write_text("")
+    broken = tmp_path / "broken.yaml"
+    broken.write_text("kind: sipm\nname: [x\n")
+    result = cli("profile", "check", profiles_dir / "hut-sipm-b.yaml", bad, empty, broken)
+    assert result.status == 2
+    lines = result.stderr.strip().splitlines()
+    assert any(line.startswith(f"{bad}:") and "cell.capacitance_f: must be greater than 0" in line for line in lines)
+    assert any(line.startswith(f"{bad}:") and "cell.count: expected a whole number" in line for line in lines)
+    assert any(line.startswith(f"{empty}:1: ") and "empty" in line for line in lines)
+    assert any(line.startswith(f"{broken}:") and "YAML syntax error" in line for line in lines)
+    assert "Traceback" not in result.stderr
+    assert "hut-sipm-b.yaml: ok" in result.stdout
+
+
+def test_profile_check_json(cli, profiles_dir, tmp_path):
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("kind: board\n")
+    result = cli("profile", "check", "--json", profiles_dir / "hut-cooler.yaml", bad)
+    data = json.loads(result.stdout)
+    assert result.status == 2 and data["invalid"] == 1 and data["files"][0]["status"] == "ok"
+    assert {p["key"] for p in data["files"][1]["problems"]} >= {"name", "supply", "dac"}
+
+
+def test_profile_check_nothing_to_check(cli, profiles_dir):
+    assert cli("profile", "check", profiles_dir / "README.md").status == 2
+
+
+def test_profile_keys_lists_units(cli):
+    result = cli("profile", "keys", "--kind", "board")
+    assert result.status == 0 and "`supply.series_resistor_ohm`" in result.stdout and "ohm" in result.stdout
+
+
+def test_profile_readme_in_sync():
+    sys.path.insert(0, str(os.path.join(os.path.dirname(__file__), "..", "tools")))
+    try:
+        import update_profile_docs
+    finally:
+        sys.path.pop(0)
+    assert update_profile_docs.main(["--check"]) == 0
+
+
+def test_model_fixed_overvoltage_json(cli, profiles_dir):
+    result = cli("model", "--sipm", profiles_dir / "hut-sipm-a.yaml", "--temp-c", "-25", "25", "45",
+                 "--overvoltage-v", "3", "--json")
+    assert result.status == 0
+    points = json.loads(result.stdout)["points"]
+    assert [p["temp_c"] for p in points] == [-25.0, 25.0, 45.0]
+    assert points[1]["breakdown_v"] == pytest.approx(24.5)
+    assert points[1]["gain"] == pytest.approx(160e-15 * 3 / 1.602176634e-19)
+    assert points[0]["gain_change_pct_per_k"] == pytest.approx(-100 * 0.0215 / 3)
+    assert points[2]["dark_rate_hz"] > points[0]["dark_rate_hz"]
+
+
+def test_model_fixed_bias_table_and_warnings(cli, profiles_dir):
+    result = cli("model", "--sipm", profiles_dir / "hut-sipm-a.yaml", "--temp-c", "0", "25", "--bias-v", "40")
+    assert result.status == 0
+    assert "breakdown_v" in result.stdout and "warning: overvoltage above" in result.stderr
+
+
+def test_model_errors_are_one_line(cli, profiles_dir, tmp_path):
+    result = cli("model", "--sipm", tmp_path / "none.yaml", "--temp-c", "25", "--bias-v", "27")
+    assert result.status == 2 and result.stderr.count("\n") == 1 and "cannot read" in result.stderr
+    result = cli("model", "--sipm", profiles_dir / "hut-board-ntc.yaml", "--temp-c", "25", "--bias-v", "27")
+    assert result.status == 2 and "expected a 'sipm' profile" in result.stderr
+    assert cli("model", "--sipm", profiles_dir / "hut-sipm-a.yaml", "--temp-c", "25").status == 2
+
+
+def test_sensor_both_directions(cli, profiles_dir):
+    board = profiles_dir / "hut-board-pt1000.yaml"
+    forward = json.loads(cli("sensor", "--board", board, "--temp-c", "-25", "20", "45", "--json").stdout)["points"]
+    codes = [p["adc_code"] for p in forward]
+    back = json.loads(cli("sensor", "--board", board, "--adc-code", *codes, "--json").stdout)["points"]
+    for f, b in zip(forward, back):
+        assert b["temp_c"] == pytest.approx(f["temp_c"], abs=b["k_per_code"])
+        assert b["status"] == "ok"
+    rails = json.loads(cli("sensor", "--board", board, "--adc-code", "0", "65535", "--json").stdout)["points"]
+    assert all(p["status"].startswith("invalid") and p["temp_c"] is None for p in rails)
+    bad = cli("sensor", "--board", board, "--adc-code", "70000")
+    assert bad.status == 2 and "outside the 16-bit ADC range" in bad.stderr
+
+
+def test_demo_runs_and_shows_the_drift(cli, profiles_dir):
+    result = cli("demo", "--profiles", profiles_dir, "--json")
+    assert result.status == 0, result.stderr
+    data = json.loads(result.stdout)
+    assert "caution" in result.stderr and "IEC 61010-1" in result.stderr
+    first = data["instruments"][0]
+    assert first["sipm"] == "hut-sipm-a"
+    # Uncompensated, the gain swings by tens of percent over -25..45 C; held overvoltage removes it.
+    assert max(first["fixed_gain_error_pct"]) - min(first["fixed_gain_error_pct"]) > 30
+    assert max(abs(x) for x in first["compensated_gain_error_pct"]) < 0.01
+
+
+def test_demo_missing_profiles(cli, tmp_path):
+    result = cli("demo", "--profiles", tmp_path)
+    assert result.status == 2 and "demo profile not found" in result.stderr
+
+
+def test_entry_points_run_as_real_processes(profiles_dir):
+    env = dict(os.environ)
+    for argv in ([sys.executable, "-m", "compensator", "--version"],
+                 [sys.executable, "-m", "compensator", "profile", "check", str(profiles_dir / "nothing.yaml")]):
+        proc = subprocess.run(argv, capture_output=True, text=True, env=env, timeout=120)
+        assert "Traceback" not in proc.stderr
+    assert proc.returncode == 2 and proc.stderr.strip().endswith("cannot read file: No such file or directory")

@@ -1,0 +1,155 @@
+"""Temperature sensors and front ends against published values."""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from compensator.errors import ModelError
+from compensator.physics import sensors as S
+
+# IEC 60751 Pt100 table (ITS-90 Callendar-Van Dusen), ohm.
+IEC60751_PT100 = {
+    -200: 18.5201, -100: 60.2558, -50: 80.3063, 0: 100.0000, 25: 109.7347, 100: 138.5055,
+    200: 175.8560, 300: 212.0515, 400: 247.0920, 500: 280.9775, 850: 390.4811,
+}
+
+
+def test_pt100_matches_iec60751_table_to_1_milliohm():
+    # Source: IEC 60751 reference table for Pt100.
+    temps = np.array(list(IEC60751_PT100), dtype=float)
+    expected = np.array(list(IEC60751_PT100.values()))
+    np.testing.assert_allclose(S.rtd_resistance_ohm(temps, 100.0), expected, atol=1e-3, rtol=0)
+
+
+def test_pt100_inverse_to_1_millikelvin():
+    # Source: IEC 60751 reference table for Pt100 (table resistances read back to their temperatures).
+    temps = np.array(list(IEC60751_PT100), dtype=float)
+    resistances = np.array(list(IEC60751_PT100.values()))
+    # The table is rounded to 0.1 mohm, which is at most 0.3 mK on a Pt100.
+    np.testing.assert_allclose(S.rtd_temp_c(resistances, 100.0), temps, atol=1e-3, rtol=0)
+
+
+def test_rtd_round_trip_dense_and_scalar():
+    temps = np.linspace(-200, 850, 10001)
+    np.testing.assert_allclose(S.rtd_temp_c(S.rtd_resistance_ohm(temps, 1000.0), 1000.0), temps, atol=1e-9)
+    assert float(S.rtd_temp_c(S.rtd_resistance_ohm(-37.5, 100.0), 100.0)) == pytest.approx(-37.5, abs=1e-9)
+
+
+def test_rtd_range_is_enforced():
+    with pytest.raises(ModelError):
+        S.rtd_resistance_ohm(900.0)
+    with pytest.raises(ModelError):
+        S.rtd_temp_c(10.0, 100.0)
+
+
+def test_rtd_tolerance_classes():
+    # IEC 60751 classes A and B: +-(0.15 + 0.002|t|) and +-(0.3 + 0.005|t|).
+    assert S.rtd_tolerance_k(100.0, "A") == pytest.approx(0.35)
+    assert S.rtd_tolerance_k(-50.0, "B") == pytest.approx(0.55)
+    with pytest.raises(ModelError):
+        S.rtd_tolerance_k(0.0, "Z")
+
+
+def test_steinhart_hart_reference_coefficients_give_10k_at_25c():
+    # A widely used coefficient set for a 10 kohm NTC (Steinhart and Hart, Deep-Sea Research 15, 497, 1968
+    # form) maps 10 kohm to 298.15 K (computed; to about 1 mK).
+    sh = S.SteinhartHart(1.129148e-3, 2.34125e-4, 8.76741e-8)
+    assert S.steinhart_hart_temp_c(10_000.0, sh) == pytest.approx(25.0, abs=2e-3)
+
+
+def test_steinhart_hart_three_point_fit_reproduces_points_exactly():
+    temps = np.array([-20.0, 25.0, 60.0])
+    resistances = np.array([96_000.0, 10_000.0, 2_490.0])
+    sh = S.fit_steinhart_hart(temps, resistances)
+    np.testing.assert_allclose(S.steinhart_hart_temp_c(resistances, sh), temps, atol=1e-9)
+    np.testing.assert_allclose(S.steinhart_hart_resistance_ohm(temps, sh), resistances, rtol=1e-9)
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.floats(min_value=-40, max_value=120))
+def test_steinhart_hart_forward_inverse_round_trip(temp_c):
+    sh = S.SteinhartHart(1.129148e-3, 2.34125e-4, 8.76741e-8)
+    r = S.steinhart_hart_resistance_ohm(temp_c, sh)
+    assert S.steinhart_hart_temp_c(r, sh) == pytest.approx(temp_c, abs=1e-9)
+
+
+def test_steinhart_hart_fit_recovers_beta_curve_closely():
+    temps = np.linspace(-25, 45, 15)
+    r = S.ntc_beta_resistance_ohm(temps, 10_000.0, 3435.0)
+    sh = S.fit_steinhart_hart(temps, r)
+    assert np.max(np.abs(S.steinhart_hart_temp_c(r, sh) - temps)) < 0.05
+
+
+def test_fit_needs_three_points():
+    with pytest.raises(ModelError):
+        S.fit_steinhart_hart([0.0, 25.0], [30_000.0, 10_000.0])
+
+
+def test_beta_model_identities():
+    # Beta model R = R25 exp(B (1/T - 1/298.15 K)): R(25 C) = R25; ln(R1/R2) = B (1/T1 - 1/T2).
+    assert S.ntc_beta_resistance_ohm(25.0, 10_000.0, 3435.0) == pytest.approx(10_000.0, rel=1e-12)
+    r0, r50 = S.ntc_beta_resistance_ohm([0.0, 50.0], 10_000.0, 3435.0)
+    assert np.log(r0 / r50) == pytest.approx(3435.0 * (1 / 273.15 - 1 / 323.15), rel=1e-12)
+    temps = np.linspace(-40, 125, 100)
+    np.testing.assert_allclose(
+        S.ntc_beta_temp_c(S.ntc_beta_resistance_ohm(temps, 10_000.0, 3435.0), 10_000.0, 3435.0), temps, atol=1e-9)
+    # The local Beta of a Beta-model NTC is the Beta constant itself.
+    ntc = S.NtcSensor(10_000.0, beta_k=3435.0)
+    np.testing.assert_allclose(ntc.effective_beta_k([-20.0, 25.0, 40.0]), 3435.0, rtol=1e-5)
+
+
+def test_ntc_tolerance_grows_away_from_25c():
+    ntc = S.NtcSensor(10_000.0, beta_k=3435.0, r25_tolerance_pct=1.0, beta_tolerance_pct=1.0)
+    tol = ntc.tolerance_k([-25.0, 25.0, 45.0])
+    # At 25 C only the R25 term remains: 1 % of R reads as 0.01 T^2 / B kelvin.
+    assert tol[1] == pytest.approx(0.01 * 298.15 ** 2 / 3435.0, rel=1e-4)
+    assert tol[0] > tol[1] and tol[2] > tol[1]
+
+
+def test_ntc_needs_exactly_one_model():
+    with pytest.raises(ModelError):
+        S.NtcSensor(10_000.0)
+
+
+@pytest.mark.parametrize("position", ["low", "high"])
+@pytest.mark.parametrize("ratiometric", [True, False])
+def test_front_end_code_resistance_round_trip(position, ratiometric):
+    fe = S.FrontEnd(position, 10_000.0, 3.3, ratiometric, 12, 3.0)
+    codes = np.arange(1, fe.full_scale_code)
+    r = fe.resistance_ohm(codes)
+    ok = np.isfinite(r)
+    # The centre of each code's interval converts back to the same code.
+    np.testing.assert_array_equal(fe.adc_code(r[ok]), codes[ok])
+
+
+def test_front_end_hand_example():
+    # Low-side sensor of 10 kohm against 10 kohm: half of the excitation -> code 2048 of a ratiometric 12-bit ADC.
+    fe = S.FrontEnd("low", 10_000.0, 3.3, True, 12, 3.3)
+    assert int(fe.adc_code(10_000.0)) == 2048
+    # Absolute 2.5 V reference, 3.3 V excitation: node 1.65 V -> floor(1.65 / 2.5 * 4096) = 2703.
+    fe_abs = S.FrontEnd("low", 10_000.0, 3.3, False, 12, 2.5)
+    assert int(fe_abs.adc_code(10_000.0)) == 2703
+
+
+def test_channel_flags_rail_codes(board_ntc):
+    ch = board_ntc.temperature
+    t = ch.temp_c([0, 2048, ch.front_end.full_scale_code])
+    assert np.isnan(t[0]) and np.isnan(t[2]) and t[1] == pytest.approx(25.0, abs=0.05)
+
+
+def test_channel_quantisation_error_within_half_code(board_pt1000, board_ntc):
+    for board in (board_ntc, board_pt1000):
+        ch = board.temperature
+        temps = np.linspace(board.min_temp_c, board.max_temp_c, 2001)
+        err = ch.temp_c(ch.adc_code(temps)) - temps
+        assert np.all(np.abs(err) <= 0.51 * ch.temp_per_code_k(temps) + 1e-9)
+
+
+def test_dew_point_magnus():
+    # Magnus formula (Alduchov and Eskridge, J. Appl. Meteor. 35, 601, 1996): 25 C at 50 % RH -> about 13.86 C.
+    from compensator.physics.thermal import dew_point_c
+    assert dew_point_c(25.0, 50.0) == pytest.approx(13.86, abs=0.01)
+    assert dew_point_c(10.0, 100.0) == pytest.approx(10.0, abs=1e-9)
+    with pytest.raises(ModelError):
+        dew_point_c(20.0, 0.0)
