@@ -104,3 +104,25 @@ def test_invalid_parameters_raise():
         make(cell_capacitance_f=-1e-15)
     with pytest.raises(ModelError):
         make(crosstalk_probability=1.0)
+
+
+@pytest.mark.parametrize("name", ["sipm_a", "sipm_b", "sipm_c"])
+def test_evaluate_equals_the_individual_functions(name, request):
+    dev = request.getfixturevalue(name).device
+    rng = np.random.default_rng(3)
+    temps = rng.uniform(-30, 50, 40_000)
+    vbd0 = dev.breakdown.breakdown_v_at_ref
+    bias = rng.uniform(vbd0 - 2, vbd0 + 8, 40_000)  # spans below breakdown too, across several blocks
+    photons = rng.uniform(0, 1e7, 40_000)
+    s = M.evaluate(dev, temps, bias_v=bias, photon_rate_hz=photons)
+    ov = bias - M.breakdown_v(dev, temps)
+    np.testing.assert_allclose(s.breakdown_v, M.breakdown_v(dev, temps), rtol=1e-14)
+    np.testing.assert_allclose(s.gain, M.gain(dev, bias, temps), rtol=1e-12)
+    np.testing.assert_allclose(s.pde_fraction, M.pde(dev, ov), rtol=1e-12)
+    np.testing.assert_allclose(s.dark_rate_hz, M.dark_rate_hz(dev, temps, ov), rtol=1e-12)
+    np.testing.assert_allclose(s.crosstalk_probability, M.crosstalk_probability(dev, ov), rtol=1e-12, atol=1e-300)
+    np.testing.assert_allclose(s.current_a, M.steady_current_a(dev, bias, temps, photons), rtol=1e-12, atol=1e-300)
+    above = ov > 0
+    np.testing.assert_allclose(s.gain_change_pct_per_k[above],
+                               100 * M.relative_gain_change_per_k(dev, ov[above], temps[above]), rtol=1e-12)
+    assert np.all(np.isnan(s.gain_change_pct_per_k[~above]))

@@ -288,8 +288,65 @@ class SipmState:
     gain_change_pct_per_k: np.ndarray
 
 
+def _power(x, exponent):
+    """``x ** exponent`` with the common integer exponents done by multiplication."""
+    if exponent == 1.0:
+        return x
+    if exponent == 2.0:
+        return x * x
+    if exponent == 0.0:
+        return np.ones_like(x)
+    return x ** exponent
+
+
+def _evaluate_block(sipm: Sipm, temp_c, bias_v, photon_rate_hz):
+    """The whole model on equally shaped 1-d blocks, each quantity computed once."""
+    bd = sipm.breakdown
+    dt_k = temp_c - bd.ref_temp_c
+    slope_v_per_k = 1e-3 * (bd.tempco_mv_per_k + 2.0 * bd.curvature_mv_per_k2 * dt_k) if bd.curvature_mv_per_k2 \
+        else np.full_like(dt_k, 1e-3 * bd.tempco_mv_per_k)
+    vbd = bd.breakdown_v_at_ref + 1e-3 * dt_k * (bd.tempco_mv_per_k + bd.curvature_mv_per_k2 * dt_k)
+    ov = bias_v - vbd
+    ov_pos = np.maximum(ov, 0.0)
+    per_volt = sipm.cell_capacitance_f / ELEMENTARY_CHARGE_C
+    if sipm.capacitance_tempco_ppm_per_k:
+        g = ov_pos * (per_volt * (1.0 + 1e-6 * sipm.capacitance_tempco_ppm_per_k * dt_k))
+    else:
+        g = ov_pos * per_volt
+    pde_fraction = np.expm1(ov_pos * (-1.0 / sipm.pde_saturation_overvoltage_v))
+    pde_fraction *= -sipm.pde_max_fraction
+    dcr = _power(ov_pos * (1.0 / sipm.dark_ref_overvoltage_v), sipm.dark_overvoltage_exponent)
+    dcr = dcr * np.exp2((temp_c - sipm.dark_ref_temp_c) * (1.0 / sipm.dark_doubling_temp_k))
+    dcr *= sipm.dark_rate_hz
+    if sipm.crosstalk_probability:
+        k = -np.log1p(-sipm.crosstalk_probability) / sipm.crosstalk_ref_overvoltage_v ** sipm.crosstalk_overvoltage_exponent
+        xt = np.expm1(_power(ov_pos, sipm.crosstalk_overvoltage_exponent) * -k)
+        xt *= -1.0
+    else:
+        xt = np.zeros_like(ov_pos)
+    primaries_hz = dcr + photon_rate_hz * pde_fraction if np.any(photon_rate_hz) else dcr
+    current = g * primaries_hz
+    current *= ELEMENTARY_CHARGE_C
+    current /= 1.0 - xt
+    with np.errstate(divide="ignore", invalid="ignore"):
+        change = slope_v_per_k / ov
+        change *= -100.0
+        if sipm.capacitance_tempco_ppm_per_k:
+            change += 1e-4 * sipm.capacitance_tempco_ppm_per_k
+    change[ov <= 0] = np.nan
+    return vbd, ov, g, pde_fraction, dcr, xt, current, change
+
+
+#: Points per block in :func:`evaluate`: small enough that temporaries stay in cache.
+EVALUATE_BLOCK = 1 << 14
+
+
 def evaluate(sipm: Sipm, temp_c, bias_v=None, overvoltage_v=None, photon_rate_hz=0.0) -> SipmState:
     """Evaluate the whole model at fixed bias or at fixed overvoltage.
+
+    Each quantity is computed once per point, block by block so that the
+    temporaries stay in cache; the result equals the individual functions of
+    this module.
 
     Parameters
     ----------
@@ -310,25 +367,22 @@ def evaluate(sipm: Sipm, temp_c, bias_v=None, overvoltage_v=None, photon_rate_hz
     if (bias_v is None) == (overvoltage_v is None):
         raise ModelError("give exactly one of bias_v and overvoltage_v")
     temp_c = np.asarray(temp_c, dtype=float)
-    vbd = breakdown_v(sipm, temp_c)
     if bias_v is None:
-        bias = vbd + np.asarray(overvoltage_v, dtype=float)
+        bias = breakdown_v(sipm, temp_c) + np.asarray(overvoltage_v, dtype=float)
     else:
-        bias = np.asarray(bias_v, dtype=float) + np.zeros_like(vbd)
-    ov = bias - vbd
-    temp_b = np.broadcast_to(temp_c, ov.shape)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        change = np.where(ov > 0, 100.0 * (-sipm.breakdown.slope_v_per_k(temp_b) / np.where(ov > 0, ov, 1.0)
-                                         + 1e-6 * sipm.capacitance_tempco_ppm_per_k), np.nan)
+        bias = np.asarray(bias_v, dtype=float)
+    shape = np.broadcast_shapes(temp_c.shape, bias.shape, np.shape(photon_rate_hz))
+    t = np.broadcast_to(temp_c, shape).ravel()
+    v = np.broadcast_to(bias, shape).ravel()
+    rate = np.broadcast_to(np.asarray(photon_rate_hz, dtype=float), shape).ravel()
+    outputs = [np.empty(t.size) for _ in range(8)]
+    for start in range(0, t.size, EVALUATE_BLOCK):
+        block = slice(start, start + EVALUATE_BLOCK)
+        for out, value in zip(outputs, _evaluate_block(sipm, t[block], v[block], rate[block])):
+            out[block] = value
+    vbd, ov, g, pde_fraction, dcr, xt, current, change = (o.reshape(shape) for o in outputs)
     return SipmState(
-        temp_c=temp_b,
-        bias_v=bias,
-        breakdown_v=np.broadcast_to(vbd, ov.shape),
-        overvoltage_v=ov,
-        gain=gain(sipm, bias, temp_b),
-        pde_fraction=pde(sipm, ov),
-        dark_rate_hz=dark_rate_hz(sipm, temp_b, ov),
-        crosstalk_probability=crosstalk_probability(sipm, ov),
-        current_a=steady_current_a(sipm, bias, temp_b, photon_rate_hz),
+        temp_c=t.reshape(shape), bias_v=v.reshape(shape), breakdown_v=vbd, overvoltage_v=ov, gain=g,
+        pde_fraction=pde_fraction, dark_rate_hz=dcr, crosstalk_probability=xt, current_a=current,
         gain_change_pct_per_k=change,
     )
