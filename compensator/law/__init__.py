@@ -1,0 +1,15 @@
+"""Compensation laws and the gain-error budget they leave (pure numerics, no I/O)."""
+
+from compensator.law.laws import (
+    LAW_KINDS,
+    CompensationLaw,
+    build_law,
+    check_law_in_range,
+    constant_gain_law,
+    constant_overvoltage_law,
+)
+
+__all__ = [
+    "LAW_KINDS", "CompensationLaw", "build_law", "check_law_in_range", "constant_gain_law",
+    "constant_overvoltage_law",
+]
