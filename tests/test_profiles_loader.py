@@ -145,3 +145,35 @@ def test_render_round_trip(tmp_path, profiles_dir):
         assert again.values == original.values
     sipm = load_sipm(write(tmp_path, render_profile("sipm", load_sipm(profiles_dir / "hut-sipm-a.yaml").values), "a.yaml"))
     assert sipm.device == load_sipm(profiles_dir / "hut-sipm-a.yaml").device
+
+
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(cut=st.integers(min_value=0, max_value=len(GOOD_SIPM)), junk=st.text(max_size=12))
+def test_mangled_profiles_fail_only_with_profile_errors(tmp_path, cut, junk):
+    # Whatever the damage, loading either succeeds or raises ProfileError: never another exception.
+    path = tmp_path / "mangled.yaml"
+    path.write_text(GOOD_SIPM[:cut] + junk + GOOD_SIPM[cut + len(junk):], encoding="utf-8")
+    try:
+        load_profile(path)
+    except ProfileError as exc:
+        assert exc.problems and all(p.file == str(path) for p in exc.problems)
+
+
+@settings(max_examples=100, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(value=st.one_of(st.text(max_size=8), st.integers(), st.floats(), st.booleans(), st.none()),
+       key=st.sampled_from(["breakdown_v_at_ref", "capacitance_f", "count", "probability", "max_current_a",
+                            "doubling_temp_k", "ref_temp_c"]))
+def test_any_value_in_any_key_fails_cleanly(tmp_path, value, key):
+    import json
+    lines = [f"  {key}: {json.dumps(value)}" if line.strip().startswith(f"{key}:") else line
+             for line in GOOD_SIPM.splitlines()]
+    path = tmp_path / "value.yaml"
+    path.write_text("\n".join(lines) + "\n")
+    try:
+        load_profile(path)
+    except ProfileError as exc:
+        assert all(p.line > 0 for p in exc.problems)
