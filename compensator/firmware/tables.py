@@ -207,7 +207,8 @@ class LookupTable:
         Parameters
         ----------
         adc_code : array_like of int
-            Raw temperature ADC codes, ``0 .. 2^adc_bits - 1``.
+            Raw temperature ADC codes, ``0 .. 2^code_type_bits - 1`` (codes
+            beyond the ADC's own range are faults, as in the C function).
 
         Returns
         -------
@@ -216,8 +217,8 @@ class LookupTable:
             ``STATUS_OK``, ``STATUS_BELOW_RANGE``, ``STATUS_ABOVE_RANGE`` or ``STATUS_SENSOR_FAULT``.
         """
         n = np.asarray(adc_code, dtype=np.int64)
-        if np.any((n < 0) | (n >= (1 << self.adc_bits))):
-            raise ModelError(f"adc_code outside the {self.adc_bits}-bit range")
+        if np.any((n < 0) | (n >= (1 << self.code_type_bits))):
+            raise ModelError(f"adc_code outside the range of the {self.code_type_bits}-bit argument")
         inside = (n >= self.code_lo) & (n <= self.code_hi)
         y = np.zeros(n.shape, dtype=np.int64)
         if np.any(inside):
@@ -460,6 +461,12 @@ def _segment_ok(target: _Target, start: int, end: int, last: bool, frac_bits: in
         return False, y0, s
     got = y0 + floor_shift(s * d + ((1 << frac_bits) >> 1), frac_bits)
     return bool(np.all(np.abs(got - f) <= target.bound_lsb[start:stop])), y0, s
+    ramp = floor_shift(s * d + ((1 << frac_bits) >> 1), frac_bits)
+    bound = target.bound_lsb[start:stop]
+    for y0 in (first, other):
+        if 0 <= y0 <= target.dac_full and np.all(np.abs(y0 + ramp - f) <= bound):
+            return True, y0, s
+    return False, first, s
 
 
 def _place_optimised(target: _Target, frac_bits: int, slope_max: int):

@@ -1,0 +1,272 @@
+"""C99 rendering of a :class:`~compensator.firmware.tables.LookupTable`, and its ``sweep.csv``.
+
+The generated source implements exactly the integer path documented in
+:mod:`compensator.firmware.tables` (the Python reference is
+:meth:`LookupTable.lookup`): same constants, same operations, same rounding.
+Output is deterministic: the same table, profiles and settings give
+byte-identical text (no timestamps; the banner names the generator version,
+the profiles and their SHA-256).
+"""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+
+from compensator.errors import ModelError
+from compensator.firmware.banner import c_banner
+from compensator.firmware.tables import (
+    STATUS_ABOVE_RANGE,
+    STATUS_BELOW_RANGE,
+    STATUS_OK,
+    STATUS_SENSOR_FAULT,
+    LookupTable,
+    TableSweep,
+)
+
+DEFAULT_FUNCTION_NAME = "bias_dac_from_adc"
+
+SWEEP_COLUMNS = ("adc_code", "temp_c", "ideal_bias_v", "table_dac_code", "table_bias_v", "gain_error_pct")
+
+_C_KEYWORDS = frozenset("""auto break case char const continue default do double else enum extern float for goto
+if inline int long register restrict return short signed sizeof static struct switch typedef union unsigned void
+volatile while _Bool _Complex _Imaginary main""".split())
+_IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]{0,39}\Z")
+
+_SAFETY = (
+    "Safety: this code sets a bias of tens of volts. Outputs above 60 V dc are",
+    "hazardous live (IEC 61010-1). Verify the output limits on the bench before",
+    "connecting a sensor, and follow local codes and licensed practice.",
+)
+
+
+def check_function_name(name: str) -> str:
+    """Return ``name`` if it is a usable C identifier, else raise ``ModelError``.
+
+    Parameters
+    ----------
+    name : str
+        Lookup function name: letters, digits and underscores, at most 40
+        characters, not starting with a digit, not a C keyword.
+    """
+    if not isinstance(name, str) or not _IDENT.match(name) or name in _C_KEYWORDS or name.startswith("__"):
+        raise ModelError(f"function name {name!r} is not a usable C identifier "
+                         "(letters, digits, underscores; at most 40 characters; not a keyword)")
+    return name
+
+
+def c_function_signature(table: LookupTable, name: str) -> str:
+    """The lookup function's C prototype (without the semicolon).
+
+    Parameters
+    ----------
+    table : LookupTable
+    name : str
+        Function name.
+    """
+    return f"uint{table.value_type_bits}_t {name}(uint{table.code_type_bits}_t adc_code)"
+
+
+def _array(ctype: str, name: str, values, per_line: int = 8) -> str:
+    vals = [str(int(v)) for v in np.asarray(values).ravel()]
+    lines = []
+    for k in range(0, len(vals), per_line):
+        lines.append("    " + ", ".join(vals[k:k + per_line]) + ("," if k + per_line < len(vals) else ""))
+    return f"static const {ctype} {name}[{len(vals)}] = {{\n" + "\n".join(lines) + "\n};\n"
+
+
+def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NAME,
+                   settings: dict | None = None) -> dict:
+    """Render the C99 header and source of a lookup table.
+
+    Parameters
+    ----------
+    table : LookupTable
+    profiles : sequence of profile objects
+        The sipm and board profiles the table came from (for the banner).
+    name : str
+        Lookup function name; also the file stem and the prefix of every symbol.
+    settings : dict, optional
+        Options that shaped the table, written into the banner.
+
+    Returns
+    -------
+    dict
+        ``{"NAME.h": text, "NAME.c": text}``.
+    """
+    check_function_name(name)
+    up = name.upper()
+    ct, vt = f"uint{table.code_type_bits}_t", f"uint{table.value_type_bits}_t"
+    acc = f"int{table.acc_type_bits}_t"
+    banner = c_banner(f"SiPM bias lookup table ({table.layout} layout): temperature ADC code -> bias DAC code",
+                      profiles, settings)
+    guard = f"{up}_H"
+    sig = c_function_signature(table, name)
+    h = [banner, f"#ifndef {guard}\n#define {guard}\n\n#include <stdint.h>\n\n/*\n"]
+    h += [f" * {line}\n" for line in _SAFETY]
+    h.append(
+        " *\n"
+        f" * {name}(adc_code) returns the DAC code for a raw temperature ADC code:\n"
+        f" *   codes {table.code_lo}..{table.code_hi} (the operating range) are interpolated;\n"
+        f" *   codes {table.fault_lo}..{table.code_lo - 1} and {table.code_hi + 1}..{table.fault_hi} (just outside it) are\n"
+        " *   clamped to the value at the nearer end of the range;\n"
+        f" *   any other code (open or shorted sensor, rail) gives {up}_SAFE_DAC_CODE.\n"
+        f" * {name}_status(adc_code) tells which case applies.\n"
+        " */\n\n")
+    defines = [
+        ("STATUS_OK", STATUS_OK, "reading inside the operating range"),
+        ("STATUS_BELOW_RANGE", STATUS_BELOW_RANGE, "code below the range: output clamped"),
+        ("STATUS_ABOVE_RANGE", STATUS_ABOVE_RANGE, "code above the range: output clamped"),
+        ("STATUS_SENSOR_FAULT", STATUS_SENSOR_FAULT, "open/short sensor: safe DAC code"),
+        ("ADC_BITS", table.adc_bits, "temperature ADC resolution"),
+        ("DAC_BITS", table.dac_bits, "bias DAC resolution"),
+        ("ADC_CODE_LO", table.code_lo, "first ADC code of the operating range"),
+        ("ADC_CODE_HI", table.code_hi, "last ADC code of the operating range"),
+        ("ADC_FAULT_LO", table.fault_lo, "codes below this are sensor faults"),
+        ("ADC_FAULT_HI", table.fault_hi, "codes above this are sensor faults"),
+        ("SAFE_DAC_CODE", table.safe_dac_code, "DAC code for a sensor fault"),
+        ("DAC_MIN", table.dac_min, "lowest DAC code the function returns in range"),
+        ("DAC_MAX", table.dac_max, "highest DAC code the function returns in range"),
+        ("ENTRIES", table.entries, "table rows"),
+        ("TABLE_BYTES", table.table_bytes, "bytes of const table data"),
+    ]
+    width = max(len(f"{up}_{k}") for k, _, _ in defines)
+    for key, value, comment in defines:
+        h.append(f"#define {f'{up}_{key}':<{width}} {int(value)}u /* {comment} */\n")
+    h.append(f"\n/* Bias DAC code for a raw temperature ADC code (integer only, no division). */\n{sig};\n\n")
+    h.append(f"/* {up}_STATUS_* for a raw temperature ADC code. */\nuint8_t {name}_status({ct} adc_code);\n\n")
+    h.append(f"#endif /* {guard} */\n")
+
+    c = [banner, f'#include "{name}.h"\n\n']
+    c.append(
+        "#if (defined(__STDC_VERSION__) && __STDC_VERSION__ >= 201112L) || defined(__GNUC__)\n"
+        f"#define {up}_STATIC_ASSERT(cond, msg) _Static_assert(cond, msg)\n"
+        "#else\n"
+        f"#define {up}_STATIC_ASSERT(cond, msg) extern char {name}_static_assert[(cond) ? 1 : -1]\n"
+        "#endif\n\n")
+    c.append(f"typedef {acc} {name}_acc_t;\n\n")
+    if table.layout == "uniform":
+        c.append(f"/* Nodes every 2^{table.shift} ADC codes from {up}_ADC_CODE_LO, DAC codes. */\n")
+        c.append(_array(vt, f"{name}_y", table.y))
+        asserts = [
+            (f"sizeof({name}_y) / sizeof({name}_y[0]) == {up}_ENTRIES", "node count"),
+            (f"sizeof({name}_y) == {up}_TABLE_BYTES", "table size"),
+            (f"(({name}_acc_t){up}_ENTRIES - 1) << {table.shift} > ({name}_acc_t)({up}_ADC_CODE_HI - {up}_ADC_CODE_LO)",
+             "nodes cover the operating range"),
+        ]
+    else:
+        c.append(f"/* Breakpoints (ADC codes), values at them (DAC codes) and slopes (DAC codes per ADC code,"
+                 f" times 2^{table.slope_frac_bits}). */\n")
+        c.append(_array(ct, f"{name}_x", table.x))
+        c.append(_array(vt, f"{name}_y", table.y))
+        c.append(_array(f"int{table.slope_type_bits}_t", f"{name}_slope", table.slope))
+        asserts = [
+            (f"sizeof({name}_x) / sizeof({name}_x[0]) == {up}_ENTRIES", "breakpoint count"),
+            (f"sizeof({name}_y) / sizeof({name}_y[0]) == {up}_ENTRIES", "value count"),
+            (f"sizeof({name}_slope) / sizeof({name}_slope[0]) == {up}_ENTRIES", "slope count"),
+            (f"sizeof({name}_x) + sizeof({name}_y) + sizeof({name}_slope) == {up}_TABLE_BYTES", "table size"),
+        ]
+    asserts += [
+        (f"sizeof({name}_acc_t) * 8 == {table.acc_type_bits}", "accumulator width"),
+        (f"{up}_ADC_FAULT_LO <= {up}_ADC_CODE_LO && {up}_ADC_CODE_HI <= {up}_ADC_FAULT_HI", "fault band"),
+        (f"{up}_DAC_MIN <= {up}_DAC_MAX && {up}_DAC_MAX < (1ul << {up}_DAC_BITS)", "output clamp"),
+        (f"{up}_SAFE_DAC_CODE < (1ul << {up}_DAC_BITS)", "safe code"),
+    ]
+    c.append("\n")
+    for cond, msg in asserts:
+        c.append(f'{up}_STATIC_ASSERT({cond}, "{msg}");\n')
+    c.append(
+        f"\n/* floor(p / 2^k), without relying on how >> treats negative values. */\n"
+        f"static {name}_acc_t {name}_floor_shift({name}_acc_t p, unsigned k)\n"
+        "{\n"
+        "    if (p >= 0) {\n"
+        "        return p >> k;\n"
+        "    }\n"
+        f"    return -((-p + ((({name}_acc_t)1 << k) - 1)) >> k);\n"
+        "}\n\n")
+    c.append(
+        f"uint8_t {name}_status({ct} adc_code)\n"
+        "{\n"
+        f"    if (adc_code < {up}_ADC_FAULT_LO || adc_code > {up}_ADC_FAULT_HI) {{\n"
+        f"        return (uint8_t){up}_STATUS_SENSOR_FAULT;\n"
+        "    }\n"
+        f"    if (adc_code < {up}_ADC_CODE_LO) {{\n"
+        f"        return (uint8_t){up}_STATUS_BELOW_RANGE;\n"
+        "    }\n"
+        f"    if (adc_code > {up}_ADC_CODE_HI) {{\n"
+        f"        return (uint8_t){up}_STATUS_ABOVE_RANGE;\n"
+        "    }\n"
+        f"    return (uint8_t){up}_STATUS_OK;\n"
+        "}\n\n")
+    c.append(
+        f"{sig}\n"
+        "{\n"
+        f"    {name}_acc_t y;\n"
+        f"    if (adc_code < {up}_ADC_FAULT_LO || adc_code > {up}_ADC_FAULT_HI) {{\n"
+        f"        return ({vt}){up}_SAFE_DAC_CODE;\n"
+        "    }\n"
+        f"    if (adc_code < {up}_ADC_CODE_LO) {{\n"
+        f"        return ({vt}){table.below_dac_code}u; /* value at the low end of the range */\n"
+        "    }\n"
+        f"    if (adc_code > {up}_ADC_CODE_HI) {{\n"
+        f"        return ({vt}){table.above_dac_code}u; /* value at the high end of the range */\n"
+        "    }\n")
+    if table.layout == "uniform":
+        half = (1 << table.shift) >> 1
+        c.append(
+            "    {\n"
+            f"        const uint32_t d = (uint32_t)adc_code - {up}_ADC_CODE_LO;\n"
+            f"        const uint32_t i = d >> {table.shift};\n"
+            f"        const {name}_acc_t r = ({name}_acc_t)(d & {(1 << table.shift) - 1}u);\n"
+            f"        const {name}_acc_t delta = ({name}_acc_t){name}_y[i + 1u] - ({name}_acc_t){name}_y[i];\n"
+            f"        y = ({name}_acc_t){name}_y[i] + {name}_floor_shift(delta * r + {half}, {table.shift}u);\n"
+            "    }\n")
+    else:
+        half = (1 << table.slope_frac_bits) >> 1
+        c.append(
+            "    {\n"
+            "        /* Largest i with x[i] <= adc_code (x[0] is the first code of the range). */\n"
+            f"        uint32_t lo = 0u, hi = {up}_ENTRIES - 1u;\n"
+            "        while (lo < hi) {\n"
+            "            const uint32_t mid = (lo + hi + 1u) >> 1;\n"
+            f"            if ({name}_x[mid] <= adc_code) {{\n"
+            "                lo = mid;\n"
+            "            } else {\n"
+            "                hi = mid - 1u;\n"
+            "            }\n"
+            "        }\n"
+            f"        y = ({name}_acc_t){name}_y[lo] + {name}_floor_shift(\n"
+            f"            ({name}_acc_t){name}_slope[lo] * ({name}_acc_t)(adc_code - {name}_x[lo]) + {half}, "
+            f"{table.slope_frac_bits}u);\n"
+            "    }\n")
+    c.append(
+        f"    if (y < ({name}_acc_t){up}_DAC_MIN) {{\n"
+        f"        y = ({name}_acc_t){up}_DAC_MIN;\n"
+        "    }\n"
+        f"    if (y > ({name}_acc_t){up}_DAC_MAX) {{\n"
+        f"        y = ({name}_acc_t){up}_DAC_MAX;\n"
+        "    }\n"
+        f"    return ({vt})y;\n"
+        "}\n")
+    return {f"{name}.h": "".join(h), f"{name}.c": "".join(c)}
+
+
+def render_sweep_csv(sweep: TableSweep) -> str:
+    """``sweep.csv``: one row per ADC code of the operating range.
+
+    Parameters
+    ----------
+    sweep : TableSweep
+
+    Returns
+    -------
+    str
+        Columns ``adc_code,temp_c,ideal_bias_v,table_dac_code,table_bias_v,gain_error_pct``.
+    """
+    rows = [",".join(SWEEP_COLUMNS)]
+    for code, t, ideal, dac, out, err in zip(sweep.adc_code.tolist(), sweep.temp_c.tolist(),
+                                             sweep.ideal_bias_v.tolist(), sweep.table_dac_code.tolist(),
+                                             sweep.table_bias_v.tolist(), sweep.gain_error_pct.tolist()):
+        rows.append(f"{code},{t:.4f},{ideal:.6f},{dac},{out:.6f},{err:.6f}")
+    return "\n".join(rows) + "\n"
