@@ -940,7 +940,7 @@ class FixedPid:
 
 
 def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_input_count: float,
-                          max_output_count: float | None = None) -> float:
+                          manual=None, max_output_count: float | None = None) -> float:
     """Worst-case difference between the fixed-point and the float output after ``n_steps``.
 
     The bound is on ``|FixedPid output - FloatPid output / output_per_count|``
@@ -949,38 +949,40 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
 
     Derivation. Let ``eta = 2^-F`` (one state LSB in counts); each rounding
     right shift errs by at most ``eta/2``; a quantised coefficient ``c`` errs
-    by ``dc`` (known exactly from the mantissa). Per step, with ``|r|, |y| <=
-    X`` (``X = max_input_count``), ``|y - y_prev| <= 2X``, ``|r - y| <= 2X``
-    and ``|D| <= Dmax = |bd| 2X / (1 - ad)``:
+    by ``dc`` (known exactly from its mantissa). With ``|r|, |y| <= X``
+    (``X = max_input_count``), ``|y - y_prev| <= 2X``, ``|r - y| <= 2X`` and
+    ``|D| <= Dmax = |bd| 2X / (1 - ad)``, per step:
 
-    * ``eP <= |dkpb| X + |dkp| X + eta/2``;
+    * ``eP <= (|dkpb| + |dkp|) X + eta/2`` (one rounding);
     * ``eD' <= ad eD + |dad| Dmax + |dbd| 2X + eta`` (two roundings); from
-      ``eD = 0`` this never exceeds its fixed point ``eD* = (...)/(1 - ad)``;
-    * ``ev <= eP + eI + eD*``; clipping is 1-Lipschitz and the rate limit
-      clip around ``u_prev`` adds at most ``eu_prev + eta/2`` (its step is
-      rounded), so ``eu <= max(ev, eu_prev + eta/2)``;
-    * back-calculation: ``I' = (1 - ao) I + ao (u - P - D) + bi e``, so
-      ``eI' <= (1 - ao) eI + ao (eu + eP + eD*) + |dao| |u - v|max +
-      |dbi| 2X + eta`` (``|u - v| <= 2 Umax + eP... `` is bounded by
-      ``2^(32-F)`` counts of int32 state); clamping and none:
-      ``eI' <= eI + |dbi| 2X + eta/2``.
+      ``eD = 0`` it never exceeds its fixed point ``eD* = (...) / (1 - ad)``;
+    * ``ev <= eP + eI + eD*``. Clipping to the limits is 1-Lipschitz; the rate
+      limit, a clip to ``u_prev +- du``, adds ``eu_prev + |ddu|``: so
+      ``eu <= max(ev, eu_prev + |ddu|)`` in automatic mode and ``eu <=
+      eu_prev + |ddu|`` (0 without a rate limit: the target is exact) in
+      manual mode;
+    * back-calculation: ``I' = (1 - ao) I + ao (u - P - D) + bi e`` with
+      ``0 <= ao <= 1``, so ``eI' <= (1 - ao) eI + ao (eu + eP + eD*) + |dao|
+      |u - v| + |dbi| 2X + eta`` with ``|u - v| <= 2^(32-F)`` counts (int32
+      state); clamping and none: ``eI' <= eI + |dbi| 2X + eta/2``; manual
+      tracking ``I = u - P - D``: ``eI' <= eu + eP + eD* + eta``. The first
+      step after ``reset(output)`` sets ``I`` the same way, so the recurrence
+      starts from ``eI = eP + eD* + eta``.
 
     The output error is ``eu + 1/2`` (the fixed output is rounded to a whole
-    count) plus the limit difference ``max(|out_min_count -
-    out_min_exact|, |out_max_count - out_max_exact|)`` when the output is
-    clipped. The integrator error can grow linearly with ``n_steps`` (the
-    integrator does not forget), so the bound is stated for a number of
-    steps.
+    count) plus ``max(|out_min_count - out_min_exact|, |out_max_count -
+    out_max_exact|)`` (the integer limits lie inside the exact ones). The
+    integrator does not forget, so in automatic mode the bound grows about
+    linearly with the number of steps; it is therefore stated for a run
+    length.
 
-    Assumptions: ``P + I + D`` stays within the int32 state range
-    (``+-2^(31-F)`` counts, at least sixteen times the largest limit) so that
-    no saturation to int32 happens; inputs within ``+-2^24`` counts; in
-    clamping mode the integrate/hold decisions of both controllers coincide
-    (the decision is discontinuous, so near a limit they can differ by one
-    whole increment; the difference then persists in open loop, while a
-    closed loop corrects it). Manual tracking ``I = u - P - D`` is covered:
-    it resets ``eI`` to at most ``eP + eD* + eu + eta``, not more than the
-    automatic bound.
+    Assumptions: ``P``, ``I``, ``D`` and ``P + I + D`` stay inside the int32
+    state range (``+-2^(31-F)`` counts, at least sixteen times the largest
+    limit), so no int32 saturation happens; the inputs stay within
+    ``X <= 2^24`` counts; in clamping mode the integrate/hold decisions of
+    both controllers coincide (the decision is discontinuous: right at a limit
+    the two may differ by one whole increment, which then persists in open
+    loop and is corrected in closed loop).
 
     Parameters
     ----------
@@ -989,9 +991,12 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
         Number of steps since the last reset.
     max_input_count : float
         Largest magnitude of setpoint and measurement (input counts).
+    manual : array_like of bool, optional
+        Manual mode at each step (length ``n_steps``); default automatic
+        throughout.
     max_output_count : float, optional
-        Largest magnitude of ``u - v`` used for the tracking-gain error
-        (counts); default the whole int32 state range.
+        Largest magnitude of ``u`` and ``v`` (counts) for the tracking-gain
+        error; default the whole int32 state range.
 
     Returns
     -------
@@ -1000,6 +1005,11 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
     """
     if n_steps < 0:
         raise ModelError(f"n_steps: must be non-negative, got {n_steps!r}")
+    n_steps = int(n_steps)
+    if manual is None:
+        modes = [False] * n_steps
+    else:
+        modes = np.broadcast_to(np.asarray(manual, dtype=bool), (n_steps,)).tolist()
     c = coeffs
     eta = 2.0 ** -c.state_frac_bits
     q = c.represented()
@@ -1013,19 +1023,25 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
     d_rate = abs(q["rate_step_count"] - c.rate_step_count)
     uv_max = 2.0 ** (32 - c.state_frac_bits) if max_output_count is None else 2.0 * max_output_count
     e_p = (d_kpb + d_kp) * x + (eta / 2 if c.p_shift else 0.0)
-    d_max = abs(c.bd_count) * 2 * x / (1 - c.ad)
-    e_d = (d_ad * d_max + d_bd * 2 * x + eta) / (1 - c.ad) if c.bd_mant else 0.0
-    e_i = 0.0
-    e_u = 0.0
+    if c.bd_mant:
+        d_max = abs(c.bd_count) * 2 * x / (1 - c.ad)
+        e_d = (d_ad * d_max + d_bd * 2 * x + eta) / (1 - c.ad)
+    else:
+        e_d = 0.0
+    tracking = c.anti_windup == "back_calculation" and c.track_mant != 0
     ao = c.track
-    manual_e_i = e_p + e_d + eta
-    for _ in range(int(n_steps)):
+    e_i = e_p + e_d + eta
+    e_u = 0.0
+    for is_manual in modes:
+        if is_manual:
+            e_u = e_u + d_rate if c.rate_step_q else 0.0
+            e_i = e_u + e_p + e_d + eta
+            continue
         e_v = e_p + e_i + e_d
-        e_u = max(e_v, e_u + d_rate + (eta / 2 if c.rate_step_q else 0.0)) if c.rate_step_q else e_v
-        if c.anti_windup == "back_calculation" and c.track_mant:
+        e_u = max(e_v, e_u + d_rate) if c.rate_step_q else e_v
+        if tracking:
             e_i = (1 - ao) * e_i + ao * (e_u + e_p + e_d) + d_tr * uv_max + d_ki * 2 * x + eta
         else:
             e_i = e_i + d_ki * 2 * x + eta / 2
-        e_i = max(e_i, manual_e_i + e_u)
     lim = max(abs(c.out_min_count - c.out_min_exact_count), abs(c.out_max_count - c.out_max_exact_count))
     return e_u + 0.5 + lim

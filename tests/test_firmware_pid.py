@@ -1,0 +1,412 @@
+"""Float and fixed-point PID references: hand-computed steps, closed loops, agreement bound, formats."""
+
+from __future__ import annotations
+
+import dataclasses
+import inspect
+import math
+from fractions import Fraction
+
+import numpy as np
+import pytest
+
+from compensator.errors import CompensatorError, ModelError
+from compensator.firmware import pid as pid_module
+from compensator.firmware.pid import (
+    ANTI_WINDUP_MODES,
+    INPUT_LIMIT_COUNT,
+    INT32_MAX,
+    INT32_MIN,
+    FixedPid,
+    FloatPid,
+    PidSettings,
+    agreement_bound_count,
+    discretise_pid,
+    quantise_pid,
+    rshift_round,
+)
+
+
+def settings(**overrides) -> PidSettings:
+    base = dict(kp=2.0, ki_per_s=0.5, kd_s=0.4, sample_time_s=0.1, out_min=-10.0, out_max=10.0)
+    base.update(overrides)
+    return PidSettings(**base)
+
+
+# --- float reference against hand-computed steps ---------------------------------
+
+
+def test_float_pid_hand_computed_steps():
+    # kp 2, ki 0.5/s, kd 0.4 s, h 0.1 s, N 10, b 0.5:
+    # Tf = kd/(kp N) = 0.02 s, ad = Tf/(Tf+h) = 1/6, bd = kd/(Tf+h) = 10/3, bi = ki h = 0.05
+    pid = FloatPid(settings(setpoint_weight=0.5))
+    # step 1 (r 1, y 0): P = 2 (0.5 - 0) = 1, D = 0 (no kick on the first step), I = 0
+    assert pid.step(1.0, 0.0) == pytest.approx(1.0)
+    assert pid.integrator == pytest.approx(0.05)  # 0 + 0.05 * 1
+    # step 2 (y 0.2): P = 0.6, D = -(10/3) 0.2 = -2/3, v = 0.6 + 0.05 - 2/3
+    assert pid.step(1.0, 0.2) == pytest.approx(0.6 + 0.05 - 2 / 3)
+    assert pid.integrator == pytest.approx(0.05 + 0.05 * 0.8)
+    # step 3 (y 0.3): P = 0.4, D = (1/6)(-2/3) - (10/3) 0.1 = -4/9, v = 0.4 + 0.09 - 4/9
+    assert pid.step(1.0, 0.3) == pytest.approx(0.4 + 0.09 - 4 / 9)
+    assert pid.derivative == pytest.approx(-4 / 9)
+    assert pid.integrator == pytest.approx(0.09 + 0.05 * 0.7)
+
+
+@pytest.mark.parametrize("mode, integrator", [
+    # PI kp 4, ki 1/s, h 0.1 s, limits +-1; r 1, y 0: v = 4, u = 1, increment ki h e = 0.1
+    ("back_calculation", 0.1 + 0.025 * (1.0 - 4.0)),  # Tt = Ti = kp/ki = 4 s, ao = h/Tt = 0.025
+    ("clamping", 0.0),  # limited high and the error drives higher: hold
+    ("none", 0.1),
+])
+def test_float_pid_anti_windup_first_step(mode, integrator):
+    pid = FloatPid(settings(kp=4.0, ki_per_s=1.0, kd_s=0.0, out_min=-1.0, out_max=1.0, anti_windup=mode))
+    assert pid.step(1.0, 0.0) == 1.0
+    assert pid.integrator == pytest.approx(integrator)
+
+
+def test_float_pid_clamping_integrates_when_error_reverses():
+    pid = FloatPid(settings(kp=4.0, ki_per_s=1.0, kd_s=0.0, out_min=-1.0, out_max=1.0, anti_windup="clamping"))
+    pid.step(1.0, 0.0)
+    pid.step(1.0, 0.0)
+    assert pid.integrator == 0.0
+    # measurement above the setpoint: output limited low; the error is negative and drives lower: hold
+    assert pid.step(0.0, 1.0) == -1.0
+    assert pid.integrator == 0.0
+    # small negative error inside the limits: integrates
+    pid.step(0.0, 0.1)
+    assert pid.integrator == pytest.approx(-0.01)
+
+
+def test_float_pid_rate_limit_and_bumpless_start():
+    pid = FloatPid(settings(kp=1.0, ki_per_s=0.0, kd_s=0.0, rate_limit_per_s=2.0))
+    pid.reset(output=3.0)
+    assert pid.step(0.0, 5.0) == pytest.approx(3.0)  # the first output is the given one
+    # the error jumps: the output may move by at most rate h = 0.2 per step
+    assert pid.step(5.0, 0.0) == pytest.approx(3.2)
+    assert pid.step(5.0, 0.0) == pytest.approx(3.4)
+    pid.reset()
+    assert pid.step(5.0, 0.0) == pytest.approx(5.0)  # no previous output: not rate-limited
+
+
+def test_float_pid_default_times():
+    # PID: Tt = sqrt(Ti Td) = sqrt((2/0.5)(0.4/2)) = sqrt(0.8); Tf = 0.4/(2*10) = 0.02
+    d = discretise_pid(settings())
+    assert d.tracking_time_s == pytest.approx(math.sqrt(0.8))
+    assert d.filter_time_s == pytest.approx(0.02)
+    # PI: Tt = Ti; kp = 0: Tf = Tt = h
+    assert discretise_pid(settings(kd_s=0.0)).tracking_time_s == pytest.approx(4.0)
+    d0 = discretise_pid(settings(kp=0.0))
+    assert d0.filter_time_s == pytest.approx(0.1) and d0.tracking_time_s == pytest.approx(0.1)
+    # Tt never shorter than h; no tracking without integral action or with clamping
+    assert discretise_pid(settings(tracking_time_s=0.01)).ao == pytest.approx(1.0)
+    assert discretise_pid(settings(ki_per_s=0.0)).ao == 0.0
+    assert discretise_pid(settings(anti_windup="clamping")).ao == 0.0
+    # no filter: N = inf gives the plain backward difference kd/h
+    dn = discretise_pid(settings(derivative_filter_n=math.inf))
+    assert dn.ad == 0.0 and dn.bd == pytest.approx(4.0)
+
+
+def test_float_pid_manual_auto_is_bumpless():
+    pid = FloatPid(settings(kd_s=0.0, rate_limit_per_s=1.0, out_min=0.0, out_max=10.0))
+    for _ in range(50):
+        pid.step(2.0, 1.5)
+    held = pid.output
+    pid.set_manual(held)
+    assert pid.step(2.0, 1.5) == pytest.approx(held)  # auto -> manual at the present output
+    pid.set_manual(held + 1.0)
+    outs = [pid.step(2.0, 1.5) for _ in range(20)]
+    assert outs[0] == pytest.approx(held + 0.1)  # the target is approached at 1 per s, h 0.1 s
+    assert outs[-1] == pytest.approx(held + 1.0)
+    pid.set_auto()
+    first_auto = pid.step(2.0, 1.5)
+    # manual -> auto: the integrator tracked u - P - D, so the first automatic output
+    # differs from the manual one only by one integrator increment ki h e
+    assert first_auto == pytest.approx(held + 1.0)
+    assert abs(pid.step(2.0, 1.5) - first_auto) == pytest.approx(0.5 * 0.1 * 0.5)
+
+
+def test_float_pid_manual_target_clipped():
+    pid = FloatPid(settings(out_min=0.0, out_max=5.0))
+    pid.set_manual(99.0)
+    assert pid.step(0.0, 0.0) == 5.0
+    with pytest.raises(ModelError, match="manual output"):
+        pid.set_manual(math.nan)
+
+
+# --- closed loop on a first-order plant -----------------------------------------------
+
+
+def first_order_loop(pid: FloatPid, setpoint: np.ndarray, *, gain=2.0, tau_s=5.0, h=0.1):
+    """y[k+1] = a y[k] + (1 - a) K u[k], a = exp(-h/tau) (zero-order-hold exact)."""
+    a = math.exp(-h / tau_s)
+    y = 0.0
+    ys, us = [], []
+    for r in setpoint:
+        u = pid.step(r, y)
+        ys.append(y)
+        us.append(u)
+        y = a * y + (1 - a) * gain * u
+    return np.array(ys), np.array(us)
+
+
+def test_closed_loop_integral_action_removes_steady_state_error():
+    r = np.full(2000, 1.0)
+    ys_pi, _ = first_order_loop(FloatPid(settings(kp=1.0, ki_per_s=0.4, kd_s=0.0)), r)
+    assert abs(ys_pi[-1] - 1.0) < 1e-6
+    ys_p, _ = first_order_loop(FloatPid(settings(kp=1.0, ki_per_s=0.0, kd_s=0.0)), r)
+    # proportional only: the error settles at 1/(1 + K kp) = 1/3 (final-value theorem)
+    assert ys_p[-1] == pytest.approx(1.0 - 1.0 / 3.0, abs=1e-6)
+
+
+def overshoot(ys, r):
+    return float(np.max(ys) - r)
+
+
+def test_closed_loop_anti_windup_limits_overshoot_after_saturation():
+    # a large setpoint step keeps the output at its limit for a long time
+    r = np.full(1500, 3.0)
+    base = dict(kp=1.0, ki_per_s=0.5, kd_s=0.0, out_min=0.0, out_max=2.0)
+    results = {}
+    for mode in ANTI_WINDUP_MODES:
+        ys, us = first_order_loop(FloatPid(settings(anti_windup=mode, **base)), r)
+        assert np.all((us >= 0.0) & (us <= 2.0))
+        assert abs(ys[-1] - 3.0) < 1e-3
+        results[mode] = overshoot(ys, 3.0)
+    assert results["none"] > 0.3  # wound-up integrator: a big overshoot
+    assert results["back_calculation"] < 0.5 * results["none"]
+    assert results["clamping"] < 0.5 * results["none"]
+
+
+def test_fixed_closed_loop_settles_to_the_setpoint():
+    s = settings(kp=1.0, ki_per_s=0.4, kd_s=0.2, out_min=0.0, out_max=4.0)
+    c = quantise_pid(s, input_per_count=0.001, output_per_count=4.0 / 4095)
+    pid = FixedPid(c)
+    a = math.exp(-0.1 / 5.0)
+    y = 0.0
+    for _ in range(3000):
+        u = pid.step(1500, round(y / 0.001))
+        y = a * y + (1 - a) * 2.0 * u * c.output_per_count
+    # within one output count of the ideal steady state u = r/K
+    assert abs(y - 1.5) <= 2.0 * c.output_per_count + 0.001
+
+
+# --- quantisation and formats -------------------------------------------------------
+
+
+def test_rshift_round_is_round_half_up():
+    rng = np.random.default_rng(7)
+    values = [int(v) for v in rng.integers(-(1 << 40), 1 << 40, 2000)] + [-3, -2, -1, 0, 1, 2, 3, -5, 5]
+    for x in values:
+        for shift in (0, 1, 2, 7, 31):
+            exact = Fraction(x, 1 << shift)
+            assert rshift_round(x, shift) == math.floor(exact + Fraction(1, 2))
+    assert rshift_round(-5, 1) == -2 and rshift_round(5, 1) == 3  # ties toward +infinity
+
+
+def test_quantised_coefficients_represent_the_settings():
+    s = settings(setpoint_weight=0.7, rate_limit_per_s=3.0)
+    c = quantise_pid(s, input_per_count=0.002, output_per_count=0.005)
+    rep = c.represented()
+    for key in ("kp_count", "kpb_count", "ki_count", "bd_count", "ad", "track"):
+        exact = getattr(c, key)
+        assert rep[key] == pytest.approx(exact, rel=2.0 ** -28), key
+    for mant in (c.kp_mant, c.kpb_mant, c.ki_mant, c.ad_mant, c.bd_mant, c.track_mant):
+        assert abs(mant) <= 1 << 30
+    assert c.kp_count == pytest.approx(2.0 * 0.002 / 0.005)
+    assert c.out_min_count == -2000 and c.out_max_count == 2000
+    assert c.state_frac_bits == 27 - (2000).bit_length()
+    assert c.rate_step_count == pytest.approx(3.0 * 0.1 / 0.005)
+
+
+def test_quantise_limits_stay_inside_the_physical_limits():
+    # 2.0 / 0.003 = 666.67 counts: the integer limit rounds inwards
+    c = quantise_pid(settings(out_min=-1.0, out_max=2.0), input_per_count=1.0, output_per_count=0.003)
+    assert c.out_max_count == 666 and c.out_min_count == -333
+    # a reversing actuator (negative volt per code) swaps the limits
+    c = quantise_pid(settings(out_min=25.0, out_max=35.0), input_per_count=0.01, output_per_count=-0.001)
+    assert (c.out_min_count, c.out_max_count) == (-35000, -25000)
+    assert c.kp_count < 0
+
+
+@pytest.mark.parametrize("kwargs, overrides, match", [
+    (dict(input_per_count=0.0, output_per_count=1.0), {}, "input_per_count"),
+    (dict(input_per_count=1.0, output_per_count=math.nan), {}, "output_per_count"),
+    (dict(input_per_count=1.0, output_per_count=1.0), dict(rate_limit_per_s=1e-9), "rate_limit_per_s"),
+    (dict(input_per_count=1.0, output_per_count=1.0), dict(kp=1e9, ki_per_s=0.0, kd_s=0.0), "kp"),
+    (dict(input_per_count=1.0, output_per_count=1.0), dict(out_min=0.2, out_max=0.7), "out_min/out_max"),
+    (dict(input_per_count=1.0, output_per_count=1e-9), {}, "out_min/out_max"),
+])
+def test_quantise_errors_name_the_field(kwargs, overrides, match):
+    with pytest.raises(ModelError, match=match):
+        quantise_pid(settings(**overrides), **kwargs)
+
+
+@pytest.mark.parametrize("overrides, field", [
+    (dict(sample_time_s=0.0), "sample_time_s"),
+    (dict(kp=math.inf), "kp"),
+    (dict(out_min=1.0, out_max=1.0), "out_min"),
+    (dict(derivative_filter_n=0.0), "derivative_filter_n"),
+    (dict(rate_limit_per_s=-1.0), "rate_limit_per_s"),
+    (dict(anti_windup="integrator_freeze"), "anti_windup"),
+    (dict(tracking_time_s=0.0), "tracking_time_s"),
+    (dict(kp=1.0, ki_per_s=-1.0), "share one sign"),
+    (dict(kp=0.0, ki_per_s=0.0, kd_s=0.0), "at least one gain"),
+])
+def test_settings_errors_name_the_field(overrides, field):
+    with pytest.raises(ModelError, match=field) as info:
+        settings(**overrides)
+    assert isinstance(info.value, CompensatorError) and "\n" not in str(info.value)
+
+
+def test_fixed_input_validation():
+    pid = FixedPid(quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01))
+    with pytest.raises(ModelError, match="setpoint_count"):
+        pid.step(1.5, 0)
+    with pytest.raises(ModelError, match="measurement_count"):
+        pid.step(0, 1 << 31)
+    with pytest.raises(ModelError, match="measurement_count"):
+        pid.run(0, np.array([0.5, 1.0]))
+
+
+# --- fixed-point behaviour ---------------------------------------------------------
+
+
+def test_fixed_inputs_saturate_at_the_input_limit():
+    c = quantise_pid(settings(kp=1e-4, ki_per_s=0.0, kd_s=0.0), input_per_count=1.0, output_per_count=1.0)
+    a, b = FixedPid(c), FixedPid(c)
+    assert a.step(INT32_MAX, INT32_MIN) == b.step(INPUT_LIMIT_COUNT, -INPUT_LIMIT_COUNT)
+    assert a.step(INT32_MIN, 0) == b.step(-INPUT_LIMIT_COUNT, 0)
+
+
+def test_fixed_integrator_saturates_without_wrapping():
+    c = quantise_pid(settings(kp=0.0, ki_per_s=1000.0, kd_s=0.0, anti_windup="none", out_min=-8.0, out_max=8.0),
+                     input_per_count=1.0, output_per_count=1.0)
+    pid = FixedPid(c)
+    assert pid.step(INPUT_LIMIT_COUNT, -INPUT_LIMIT_COUNT) == 0  # the integrator acts from the next step
+    for _ in range(200):
+        assert pid.step(INPUT_LIMIT_COUNT, -INPUT_LIMIT_COUNT) == 8
+    assert pid.state.integrator_q == INT32_MAX
+    assert pid.step(-INPUT_LIMIT_COUNT, INPUT_LIMIT_COUNT) == 8  # one increment takes it to the bottom
+    for _ in range(200):
+        assert pid.step(-INPUT_LIMIT_COUNT, INPUT_LIMIT_COUNT) == -8
+    assert pid.state.integrator_q == INT32_MIN
+
+
+def test_fixed_run_equals_step_by_step():
+    c = quantise_pid(settings(rate_limit_per_s=20.0), input_per_count=0.01, output_per_count=0.01)
+    rng = np.random.default_rng(3)
+    y = np.cumsum(rng.integers(-20, 21, 3000))
+    manual = (np.arange(3000) // 250) % 3 == 2
+    target = rng.integers(-1200, 1200, 3000) // 100 * 100
+    run = FixedPid(c).run(400, y, manual=manual, manual_output_count=target)
+    pid = FixedPid(c)
+    for k in range(3000):
+        if manual[k]:
+            if not pid.manual or pid.state.manual_target_q != max(min(int(target[k]), 1000), -1000) << c.state_frac_bits:
+                pid.set_manual(int(target[k]))
+        elif pid.manual:
+            pid.set_auto()
+        assert pid.step(400, int(y[k])) == run.output[k]
+        assert pid.state.integrator_q == run.integrator[k]
+
+
+def test_fixed_manual_auto_is_bumpless():
+    c = quantise_pid(settings(kd_s=0.0, out_min=0.0, out_max=10.0), input_per_count=0.01, output_per_count=0.01)
+    pid = FixedPid(c)
+    for _ in range(100):
+        pid.step(200, 150)
+    held = pid.output_count
+    pid.set_manual(held)
+    assert pid.step(200, 150) == held
+    pid.set_auto()
+    assert pid.step(200, 150) == held
+    pid.reset(output_count=321)
+    assert pid.step(0, 900) == 321  # bumpless start
+
+
+# --- agreement of the fixed-point and float references ---------------------------------
+
+
+CONFIGS = {
+    "cooler_pid_back_calculation": dict(
+        settings=dict(kp=0.8, ki_per_s=0.05, kd_s=2.0, sample_time_s=0.1, out_min=-2.0, out_max=2.0,
+                      setpoint_weight=0.6, rate_limit_per_s=5.0),
+        input_per_count=0.001, output_per_count=0.001),
+    "bias_pi_clamping": dict(
+        settings=dict(kp=0.02, ki_per_s=5.0, kd_s=0.0, sample_time_s=0.001, out_min=-1.5, out_max=1.5,
+                      anti_windup="clamping"),
+        input_per_count=1e-3, output_per_count=-5e-4),
+    "reverse_pid_none": dict(
+        settings=dict(kp=-0.15, ki_per_s=-0.002, kd_s=-0.02, sample_time_s=0.05, out_min=-1.5, out_max=1.5,
+                      derivative_filter_n=math.inf, anti_windup="none", rate_limit_per_s=2.0),
+        input_per_count=0.01, output_per_count=3.0 / 4095),
+}
+
+
+def random_schedule(rng, n, max_count):
+    """Piecewise-constant setpoint, random-walk measurement with jumps, manual spells."""
+    r = np.repeat(rng.integers(-max_count, max_count, n // 200 + 1), 200)[:n]
+    y = np.clip(np.cumsum(rng.integers(-9, 10, n)) + rng.integers(-3, 4, n) * (rng.random(n) < 0.01) * 300,
+                -max_count, max_count)
+    manual = (np.arange(n) // 700) % 4 == 3
+    return r.astype(np.int64), y.astype(np.int64), manual
+
+
+@pytest.mark.parametrize("name", sorted(CONFIGS))
+def test_fixed_agrees_with_float_within_the_derived_bound(name):
+    cfg = CONFIGS[name]
+    s = PidSettings(**cfg["settings"])
+    c = quantise_pid(s, input_per_count=cfg["input_per_count"], output_per_count=cfg["output_per_count"])
+    rng = np.random.default_rng(11)
+    n, max_count = 4000, 1500
+    r, y, manual = random_schedule(rng, n, max_count)
+    mid = (c.out_min_count + c.out_max_count) // 2
+    target = np.full(n, mid, dtype=np.int64)
+    fixed = FixedPid(c).run(r, y, manual=manual, manual_output_count=target)
+    flt = FloatPid(s).run(r * c.input_per_count, y * c.input_per_count, manual=manual,
+                          manual_output=target * c.output_per_count)
+    diff = np.abs(fixed.output - flt.output / c.output_per_count)
+    bound = agreement_bound_count(c, n, max_input_count=max_count, manual=manual)
+    # the schedule reaches both limits, so saturation and anti-windup are exercised
+    assert np.any(fixed.output == c.out_min_count) and np.any(fixed.output == c.out_max_count)
+    # ... while the states stay inside the int32 state range (the bound's assumption)
+    state_range = 2.0 ** (31 - c.state_frac_bits)
+    for values in (flt.integrator, flt.derivative, flt.integrator + flt.derivative):
+        assert np.max(np.abs(values / c.output_per_count)) < 0.5 * state_range
+    assert diff.max() <= bound
+    # the bound is tight enough to catch an error of one count
+    assert bound < 1.5
+
+
+def test_agreement_bound_catches_a_wrong_coefficient():
+    cfg = CONFIGS["cooler_pid_back_calculation"]
+    s = PidSettings(**cfg["settings"])
+    c = quantise_pid(s, input_per_count=cfg["input_per_count"], output_per_count=cfg["output_per_count"])
+    wrong = dataclasses.replace(c, kp_mant=c.kp_mant + c.kp_mant // 100)  # kp off by 1 %
+    r, y, _ = random_schedule(np.random.default_rng(11), 4000, 1500)
+    fixed = FixedPid(wrong).run(r, y)
+    flt = FloatPid(s).run(r * c.input_per_count, y * c.input_per_count)
+    diff = np.abs(fixed.output - flt.output / c.output_per_count)
+    assert diff.max() > agreement_bound_count(c, 4000, max_input_count=1500)
+
+
+def test_agreement_bound_grows_with_steps():
+    c = quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01)
+    b1, b2 = (agreement_bound_count(c, n, max_input_count=1000) for n in (10, 10000))
+    assert 0.5 <= b1 <= b2
+    with pytest.raises(ModelError, match="n_steps"):
+        agreement_bound_count(c, -1, max_input_count=1)
+
+
+# --- documentation ------------------------------------------------------------------
+
+
+def test_public_api_has_numpydoc_docstrings():
+    for name in ("discretise_pid", "quantise_pid", "rshift_round", "agreement_bound_count"):
+        doc = inspect.getdoc(getattr(pid_module, name))
+        assert "Parameters\n----------" in doc, name
+    for name in ("discretise_pid", "quantise_pid", "agreement_bound_count"):
+        assert "Returns\n-------" in inspect.getdoc(getattr(pid_module, name)), name
+    for cls in (FloatPid, FixedPid):
+        for method in ("step", "run", "reset"):
+            assert "Parameters\n----------" in inspect.getdoc(getattr(cls, method)), (cls, method)
