@@ -385,7 +385,10 @@ def gain_error_budget(law: CompensationLaw, board, calibration_temp_c=None, samp
         lim = 1.0 if src.dist == "uniform" else _NORMAL_LIMIT_SIGMAS
         per_term.setdefault(src.term, []).append((signed[:-1], sigma, lim, cal))
     terms = []
+    sensor = board.temperature.sensor
     notes = {
+        "sensor_tolerance": (f"IEC 60751 class {sensor.tolerance_class}" if isinstance(sensor, RtdSensor) else
+                             f"R25 +-{sensor.r25_tolerance_pct:g} %, Beta +-{sensor.beta_tolerance_pct:g} %"),
         "adc_reference": "cancels: the ADC is ratiometric" if board.temperature.front_end.ratiometric else "",
         "series_resistor_drop": f"corrected; modelled current good to +-{current_uncertainty_pct:g} %",
         "sensor_to_die": "constant temperature offset: mostly removed by calibration",

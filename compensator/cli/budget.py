@@ -1,0 +1,110 @@
+"""``compensator budget``: the gain error a compensation law leaves on a board."""
+
+from __future__ import annotations
+
+from compensator.cli._common import add_json_flag, format_table, print_json
+from compensator.law import LAW_KINDS, build_law
+from compensator.law.budget import (
+    DEFAULT_CURRENT_UNCERTAINTY_PCT,
+    DEFAULT_SAMPLES,
+    DEFAULT_SEED,
+    gain_error_budget,
+)
+from compensator.profiles import load_board, load_sipm
+
+ORDER = 40
+
+
+def add_law_arguments(parser) -> None:
+    """Arguments that choose the profiles and the compensation law (shared with ``table``)."""
+    parser.add_argument("--sipm", required=True, metavar="FILE", help="sipm profile")
+    parser.add_argument("--board", required=True, metavar="FILE", help="board profile")
+    parser.add_argument("--overvoltage-v", required=True, type=float, metavar="V",
+                        help="target overvoltage at the breakdown reference temperature, volt")
+    parser.add_argument("--law", choices=LAW_KINDS, default="constant_gain",
+                        help="compensation law (default constant_gain; equal to constant_overvoltage when the "
+                             "cell capacitance has no temperature coefficient)")
+    parser.add_argument("--no-drop-correction", action="store_true",
+                        help="do not add the modelled series-resistor drop to the output")
+    parser.add_argument("--photon-rate-hz", type=float, default=0.0, metavar="R",
+                        help="photon rate assumed for the modelled current, hertz (default 0: dark)")
+
+
+def law_from_args(args):
+    """Load the profiles and build the law; returns ``(sipm_profile, board_profile, law)``."""
+    sipm = load_sipm(args.sipm)
+    board = load_board(args.board)
+    law = build_law(sipm, board, args.overvoltage_v, args.law, not args.no_drop_correction, args.photon_rate_hz)
+    return sipm, board, law
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "budget", help="gain-error budget of a compensation law: each term, RSS, worst case, Monte Carlo",
+        description="Propagate every error source of the board and the sensor calibration to gain error "
+                    "(percent) over the board's operating range, before and after a one-point calibration, "
+                    "and check the figures with a seeded Monte Carlo of the whole chain.")
+    add_law_arguments(parser)
+    parser.add_argument("--calibration-temp-c", type=float, default=None, metavar="T",
+                        help="temperature of the one-point gain calibration, degree Celsius "
+                             "(default: the breakdown reference temperature)")
+    parser.add_argument("--current-uncertainty-pct", type=float, default=DEFAULT_CURRENT_UNCERTAINTY_PCT,
+                        metavar="P", help="accuracy of the modelled current for the drop correction, percent "
+                                          f"(default {DEFAULT_CURRENT_UNCERTAINTY_PCT:g})")
+    parser.add_argument("--samples", type=int, default=DEFAULT_SAMPLES, metavar="N",
+                        help=f"Monte Carlo samples (default {DEFAULT_SAMPLES}; 0 skips it)")
+    parser.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="N",
+                        help=f"Monte Carlo seed (default {DEFAULT_SEED})")
+    add_json_flag(parser)
+    parser.set_defaults(handler=run)
+
+
+def _as_dict(budget, sipm, board, law) -> dict:
+    mc = budget.monte_carlo
+    return {
+        "sipm": sipm.name, "board": board.name, "law": law.kind, "overvoltage_v": law.overvoltage_v,
+        "drop_correction": law.correct_drop, "photon_rate_hz": law.photon_rate_hz,
+        "temp_range_c": [law.min_temp_c, law.max_temp_c], "calibration_temp_c": budget.calibration_temp_c,
+        "current_uncertainty_pct": budget.current_uncertainty_pct,
+        "terms": [{"key": t.key, "name": t.name, "kind": t.kind, "limit_pct": t.limit_pct, "std_pct": t.std_pct,
+                   "calibrated_limit_pct": t.calibrated_limit_pct, "calibrated_std_pct": t.calibrated_std_pct,
+                   "worst_temp_c": t.worst_temp_c, "note": t.note} for t in budget.terms],
+        "rss_pct": budget.rss_pct, "worst_case_pct": budget.worst_case_pct, "systematic_pct": budget.systematic_pct,
+        "calibrated_rss_pct": budget.calibrated_rss_pct,
+        "calibrated_worst_case_pct": budget.calibrated_worst_case_pct,
+        "dominant": budget.dominant, "calibrated_dominant": budget.calibrated_dominant,
+        "monte_carlo": None if mc is None else {
+            "seed": mc.seed, "samples": mc.samples, "std_pct": mc.std_pct, "mean_abs_pct": mc.mean_abs_pct,
+            "p99_abs_pct": mc.p99_abs_pct, "max_abs_pct": mc.max_abs_pct,
+            "calibrated_std_pct": mc.calibrated_std_pct, "calibrated_p99_abs_pct": mc.calibrated_p99_abs_pct,
+            "std_vs_rss": mc.std_pct / budget.rss_pct if budget.rss_pct else None},
+    }
+
+
+def run(args) -> int:
+    sipm, board, law = law_from_args(args)
+    budget = gain_error_budget(law, board, args.calibration_temp_c, args.samples, args.seed,
+                               args.current_uncertainty_pct)
+    if args.json:
+        print_json(_as_dict(budget, sipm, board, law))
+        return 0
+    print(f"{sipm.name} on {board.name}: {law.kind.replace('_', ' ')} law at {law.overvoltage_v:g} V, "
+          f"drop {'corrected' if law.correct_drop else 'not corrected'}, "
+          f"{law.min_temp_c:g} to {law.max_temp_c:g} C")
+    print(f"gain error over the range, percent; 'cal' = after a one-point calibration at "
+          f"{budget.calibration_temp_c:g} C; limits are tolerance bounds, half an LSB, or 3 sigma")
+    rows = [(t.name, t.kind, t.limit_pct, t.std_pct, t.calibrated_limit_pct, t.calibrated_std_pct, t.worst_temp_c,
+             t.note) for t in budget.terms]
+    print(format_table(rows, ["term", "kind", "limit_%", "1sigma_%", "cal_limit_%", "cal_1sigma_%", "worst_at_c",
+                              "note"], ["", "", ".4f", ".4f", ".4f", ".4f", ".1f", ""]))
+    names = {t.key: t.name for t in budget.terms}
+    print(f"root-sum-square (1 sigma): {budget.rss_pct:.4f} %   after calibration: {budget.calibrated_rss_pct:.4f} %")
+    print(f"worst case (limits + systematic): {budget.worst_case_pct:.4f} %   after calibration: "
+          f"{budget.calibrated_worst_case_pct:.4f} %")
+    print(f"dominant term: {names[budget.dominant]}; after calibration: {names[budget.calibrated_dominant]}")
+    mc = budget.monte_carlo
+    if mc is not None:
+        print(f"Monte Carlo (seed {mc.seed}, {mc.samples} samples, full chain with quantisation): "
+              f"std {mc.std_pct:.4f} % (first-order RSS {budget.rss_pct:.4f} %), 99th percentile "
+              f"{mc.p99_abs_pct:.4f} %, after calibration std {mc.calibrated_std_pct:.4f} %")
+    return 0

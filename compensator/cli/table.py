@@ -1,0 +1,127 @@
+"""``compensator table``: the law as an integer lookup table in C99, with its sweep."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from compensator.cli._common import add_json_flag, print_json
+from compensator.cli.budget import add_law_arguments, law_from_args
+from compensator.errors import InputError, Problem
+from compensator.fileio import write_file_atomic
+from compensator.firmware.table_c import (
+    DEFAULT_FUNCTION_NAME,
+    c_function_signature,
+    check_function_name,
+    render_sweep_csv,
+    render_table_c,
+)
+from compensator.firmware.tables import (
+    DEFAULT_FAULT_MARGIN_K,
+    LAYOUTS,
+    adc_quantisation_gain_pct,
+    build_table,
+    sweep_table,
+)
+
+ORDER = 45
+
+CAUTION = (
+    "caution: the generated table sets a SiPM bias of tens of volts; above 60 V dc is hazardous live "
+    "(IEC 61010-1). Check the output limits on the bench before fitting a sensor, and follow local codes "
+    "and licensed practice."
+)
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "table", help="integer lookup table ADC code -> DAC code as C99 source, within a gain-error bound",
+        description="Tabulate the compensation law from the raw temperature ADC code to the bias DAC code, "
+                    "choose the smallest table that meets --max-gain-error-pct at every ADC code of the "
+                    "operating range, and write NAME.h, NAME.c and sweep.csv to --out.")
+    add_law_arguments(parser)
+    parser.add_argument("--max-gain-error-pct", required=True, type=float, metavar="P",
+                        help="bound on the table's gain error at every ADC code of the range, percent")
+    parser.add_argument("--out", required=True, metavar="DIR", help="output directory (created if missing)")
+    parser.add_argument("--layout", choices=LAYOUTS, default="optimised",
+                        help="uniform: power-of-two spacing indexed by shift; optimised: breakpoints placed to "
+                             "equalise error, binary search, stored slopes (default)")
+    parser.add_argument("--fault-margin-k", type=float, default=DEFAULT_FAULT_MARGIN_K, metavar="K",
+                        help="readings this far outside the operating range are sensor faults and get the "
+                             f"board's safe_dac_code, kelvin (default {DEFAULT_FAULT_MARGIN_K:g})")
+    parser.add_argument("--name", default=DEFAULT_FUNCTION_NAME, metavar="NAME",
+                        help=f"C function name and file stem (default {DEFAULT_FUNCTION_NAME})")
+    parser.add_argument("--force", action="store_true", help="replace existing output files")
+    add_json_flag(parser)
+    parser.set_defaults(handler=run)
+
+
+def run(args) -> int:
+    print(CAUTION, file=sys.stderr)
+    name = check_function_name(args.name)
+    sipm, board, law = law_from_args(args)
+    table = build_table(law, board, args.max_gain_error_pct, args.layout, args.fault_margin_k)
+    baseline = table if args.layout == "uniform" else build_table(law, board, args.max_gain_error_pct, "uniform",
+                                                                  args.fault_margin_k)
+    sweep = sweep_table(table, law, board)
+    if not sweep.within_bound:  # build_table verifies every code; this would be a bug
+        raise RuntimeError(f"table misses its bound at ADC code {sweep.worst_adc_code}")
+    settings = {"law": law.kind, "overvoltage_v": f"{law.overvoltage_v:g}", "layout": table.layout,
+                "max_gain_error_pct": f"{args.max_gain_error_pct:g}", "fault_margin_k": f"{args.fault_margin_k:g}",
+                "drop_correction": "yes" if law.correct_drop else "no",
+                "photon_rate_hz": f"{law.photon_rate_hz:g}"}
+    files = render_table_c(table, [sipm, board], name, settings)
+    files["sweep.csv"] = render_sweep_csv(sweep)
+
+    out = Path(args.out)
+    if out.exists() and not out.is_dir():
+        raise InputError(Problem(str(out), 0, "", "--out must be a directory"))
+    paths = [out / fname for fname in files]
+    if not args.force:
+        existing = [p for p in paths if p.exists()]
+        if existing:
+            raise InputError([Problem(str(p), 0, "", "already exists; not overwriting (use --force to replace it)")
+                              for p in existing])
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(Problem(str(out), 0, "", f"cannot create directory: {exc.strerror or exc}")) from None
+    written = []
+    try:
+        for path, fname in zip(paths, files):
+            write_file_atomic(path, files[fname], overwrite=args.force)
+            written.append(path)
+    except InputError:
+        if not args.force:  # leave no partial set of new files behind
+            for path in written:
+                path.unlink(missing_ok=True)
+        raise
+
+    adc_q = float(adc_quantisation_gain_pct(law, board.temperature, sweep.temp_c).max())
+    result = {
+        "sipm": sipm.name, "board": board.name, "law": law.kind, "overvoltage_v": law.overvoltage_v,
+        "layout": table.layout, "bound_pct": args.max_gain_error_pct,
+        "entries": table.entries, "table_bytes": table.table_bytes,
+        "uniform_entries": baseline.entries, "uniform_table_bytes": baseline.table_bytes,
+        "max_gain_error_pct": sweep.max_gain_error_pct, "max_error_dac_lsb": sweep.max_error_dac_lsb,
+        "worst_adc_code": sweep.worst_adc_code, "adc_quantisation_gain_error_pct": adc_q,
+        "adc_code_range": [table.code_lo, table.code_hi], "adc_fault_band": [table.fault_lo, table.fault_hi],
+        "safe_dac_code": table.safe_dac_code, "dac_clamp": [table.dac_min, table.dac_max],
+        "c_function": c_function_signature(table, name),
+        "files": [str(p) for p in paths],
+    }
+    if args.json:
+        print_json(result)
+        return 0
+    print(f"{sipm.name} on {board.name}: {law.kind.replace('_', ' ')} law at {law.overvoltage_v:g} V, "
+          f"{table.layout} layout")
+    print(f"table: {table.entries} entries, {table.table_bytes} bytes "
+          f"(smallest uniform power-of-two table: {baseline.entries} entries, {baseline.table_bytes} bytes)")
+    print(f"gain error at every ADC code {table.code_lo}..{table.code_hi}: at most {sweep.max_gain_error_pct:.4f} % "
+          f"(bound {args.max_gain_error_pct:g} %), {sweep.max_error_dac_lsb:.2f} DAC LSB; half an ADC code adds "
+          f"up to {adc_q:.4f} %")
+    print(f"codes outside {table.fault_lo}..{table.fault_hi} give the safe DAC code {table.safe_dac_code}")
+    print(f"function: {c_function_signature(table, name)}")
+    for p in paths:
+        print(f"wrote {p}")
+    return 0
