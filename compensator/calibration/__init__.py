@@ -1,0 +1,34 @@
+"""Calibration from bench measurements: breakdown from I-V curves, gain from charge
+spectra, gain scans and temperature coefficients, with uncertainties.
+
+The numerical core (:mod:`.iv`, :mod:`.spectrum`, :mod:`.gainscan`,
+:mod:`.tempco`) takes and returns arrays and frozen dataclasses; reading files
+(:mod:`.measurements`), batches (:mod:`.batch`) and plots (:mod:`.plots`) sit
+at the edge.
+"""
+
+from compensator.calibration.gainscan import (
+    GainScanFit,
+    PolyFit,
+    SpectraScan,
+    fit_gain_scan,
+    fit_polynomial,
+    gain_scan_from_spectra,
+)
+from compensator.calibration.iv import DEFAULT_METHOD, METHODS, IvBreakdown, find_breakdown
+from compensator.calibration.spectrum import SpectrumFit, fit_spectrum, naive_gain, simulate_spectrum
+from compensator.calibration.tempco import (
+    ConstantGainSlope,
+    TempcoFit,
+    calibrated_values,
+    constant_gain_slope,
+    fit_tempco,
+    write_calibrated_profile,
+)
+
+__all__ = [
+    "DEFAULT_METHOD", "METHODS", "ConstantGainSlope", "GainScanFit", "IvBreakdown", "PolyFit", "SpectraScan",
+    "SpectrumFit", "TempcoFit", "calibrated_values", "constant_gain_slope", "find_breakdown", "fit_gain_scan",
+    "fit_polynomial", "fit_spectrum", "fit_tempco", "gain_scan_from_spectra", "naive_gain", "simulate_spectrum",
+    "write_calibrated_profile",
+]

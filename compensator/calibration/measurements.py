@@ -1,0 +1,347 @@
+"""Reading bench measurements (CSV and the JSON that ``calibrate`` writes), at the edge.
+
+CSV files have a header row; units are part of the column names (``bias_v``,
+``current_a``, ``temp_c``); names are matched case-insensitively, extra
+columns are ignored and lines starting with ``#`` are comments. A file that
+cannot be used raises :class:`~compensator.errors.InputError` with a single
+:class:`~compensator.errors.Problem` naming the file (as given), the line, the
+column and the reason, so a batch can report it and go on.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from compensator.errors import InputError, Problem
+
+
+@dataclass(frozen=True)
+class Table:
+    """Numeric columns of one CSV file.
+
+    Attributes
+    ----------
+    file : str
+        Path as given.
+    columns : dict of str -> ndarray
+        Requested columns that are present, by their canonical name.
+    names : dict of str -> str
+        Canonical name -> column name as written in the file.
+    lines : ndarray of int
+        1-based line number of each data row.
+    """
+
+    file: str
+    columns: dict
+    names: dict
+    lines: np.ndarray
+
+
+def _fail(file, line, key, reason):
+    raise InputError(Problem(str(file), line, key, reason))
+
+
+def _read_text(path) -> str:
+    try:
+        data = Path(path).read_bytes()
+    except IsADirectoryError:
+        _fail(path, 0, "", "is a directory, not a file")
+    except FileNotFoundError:
+        _fail(path, 0, "", "no such file")
+    except OSError as exc:
+        _fail(path, 0, "", f"cannot read: {exc.strerror or exc}")
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        _fail(path, 0, "", "not a text file (cannot decode as UTF-8)")
+
+
+def read_table(path, required, optional=(), prefixes=()) -> Table:
+    """Read the named numeric columns of a CSV file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        CSV file with a header row.
+    required : sequence of str
+        Canonical column names that must be present.
+    optional : sequence of str
+        Canonical column names read when present.
+    prefixes : sequence of str
+        Canonical names that also match ``NAME_<unit>`` (e.g. ``charge_pc``).
+
+    Returns
+    -------
+    Table
+
+    Raises
+    ------
+    InputError
+        One problem: unreadable file, no header, missing column, a cell that
+        is not a finite number, or no data rows.
+    """
+    text = _read_text(path)
+    rows = []
+    for number, raw in enumerate(io.StringIO(text), start=1):
+        stripped = raw.strip()
+        if not stripped or stripped.startswith("#"):
+            continue
+        rows.append((number, raw))
+    if not rows:
+        _fail(path, 0, "", "empty file (expected a header row and data rows)")
+    parsed = list(csv.reader([r for _, r in rows]))
+    header = [h.strip().lower() for h in parsed[0]]
+    header_line = rows[0][0]
+    where = {}
+    for name in list(required) + list(optional):
+        if name in header:
+            where[name] = header.index(name)
+        elif name in prefixes:
+            matches = [i for i, h in enumerate(header) if h.startswith(name + "_")]
+            if matches:
+                where[name] = matches[0]
+    missing = [n for n in required if n not in where]
+    if missing:
+        present = ", ".join(h for h in header if h) or "none"
+        _fail(path, header_line, missing[0],
+              f"missing column (need {', '.join(required)}; the header has {present})")
+    if len(rows) < 2:
+        _fail(path, header_line, "", "no data rows after the header")
+    values = {n: [] for n in where}
+    lines = []
+    for (number, _), cells in zip(rows[1:], parsed[1:]):
+        for name, col in where.items():
+            if col >= len(cells) or not cells[col].strip():
+                _fail(path, number, parsed[0][col].strip(), "empty cell")
+            text_cell = cells[col].strip()
+            try:
+                value = float(text_cell)
+            except ValueError:
+                _fail(path, number, parsed[0][col].strip(), f"not a number: {text_cell!r}")
+            if not math.isfinite(value):
+                _fail(path, number, parsed[0][col].strip(), f"not a finite number: {text_cell!r}")
+            values[name].append(value)
+        lines.append(number)
+    return Table(str(path), {n: np.asarray(v, dtype=float) for n, v in values.items()},
+                 {n: parsed[0][c].strip() for n, c in where.items()}, np.asarray(lines, dtype=int))
+
+
+def _single_temperature(table: Table, temp_c, what):
+    """The temperature of a measurement: from its ``temp_c`` column (mean) or the given value."""
+    if "temp_c" in table.columns:
+        t = table.columns["temp_c"]
+        if np.ptp(t) > 2.0:
+            _fail(table.file, int(table.lines[int(np.argmax(np.abs(t - t.mean())))]), table.names["temp_c"],
+                  f"temperature varies by {np.ptp(t):.3g} K within one {what}; split the file per temperature")
+        return float(t.mean())
+    return None if temp_c is None else float(temp_c)
+
+
+@dataclass(frozen=True)
+class IvData:
+    """One I-V curve: ``bias_v`` (volt), ``current_a`` (ampere), ``temp_c`` (degree Celsius or None)."""
+
+    file: str
+    bias_v: np.ndarray
+    current_a: np.ndarray
+    temp_c: float | None
+
+
+def read_iv(path, temp_c=None) -> IvData:
+    """Read an I-V curve: columns ``bias_v,current_a[,temp_c]``.
+
+    Parameters
+    ----------
+    path : str or path-like
+    temp_c : float, optional
+        Temperature (degree Celsius) used when the file has no ``temp_c`` column.
+
+    Returns
+    -------
+    IvData
+    """
+    table = read_table(path, ("bias_v", "current_a"), ("temp_c",))
+    return IvData(table.file, table.columns["bias_v"], table.columns["current_a"],
+                  _single_temperature(table, temp_c, "I-V curve"))
+
+
+@dataclass(frozen=True)
+class SpectrumData:
+    """A charge spectrum: bin centres and counts, or an event list (``counts`` is None).
+
+    ``charge_unit`` is the unit suffix of the charge column (``""`` for plain ``charge``).
+    """
+
+    file: str
+    charge: np.ndarray
+    counts: np.ndarray | None
+    charge_unit: str
+
+
+def read_spectrum(path) -> SpectrumData:
+    """Read a charge spectrum: ``charge,counts`` (histogram) or ``charge`` alone (event list).
+
+    The charge column may carry its unit (``charge_pc``, ``charge_adc``); results
+    come back in that unit.
+    """
+    table = read_table(path, ("charge",), ("counts",), prefixes=("charge",))
+    name = table.names["charge"].lower()
+    unit = name[len("charge_"):] if name.startswith("charge_") else ""
+    counts = table.columns.get("counts")
+    if counts is not None:
+        bad = (counts < 0) | (counts != np.round(counts))
+        if bad.any():
+            i = int(np.argmax(bad))
+            _fail(path, int(table.lines[i]), table.names["counts"], f"counts must be whole numbers >= 0, got {counts[i]!r}")
+        if counts.sum() <= 0:
+            _fail(path, 0, table.names["counts"], "the histogram is empty (all counts are zero)")
+    return SpectrumData(table.file, table.columns["charge"], counts, unit)
+
+
+@dataclass(frozen=True)
+class GainScanData:
+    """Gain against bias: ``bias_v`` (volt), ``gain`` (electrons), optional ``gain_err`` and temperature."""
+
+    file: str
+    bias_v: np.ndarray
+    gain: np.ndarray
+    gain_err: np.ndarray | None
+    temp_c: float | None
+
+
+def read_gain_scan(path, temp_c=None) -> GainScanData:
+    """Read a gain scan: columns ``bias_v,gain[,gain_err][,temp_c]`` (gain in electrons per avalanche)."""
+    table = read_table(path, ("bias_v", "gain"), ("gain_err", "temp_c"))
+    err = table.columns.get("gain_err")
+    if err is not None and np.any(err <= 0):
+        i = int(np.argmax(err <= 0))
+        _fail(path, int(table.lines[i]), table.names["gain_err"], "gain errors must be positive")
+    return GainScanData(table.file, table.columns["bias_v"], table.columns["gain"], err,
+                        _single_temperature(table, temp_c, "gain scan"))
+
+
+@dataclass(frozen=True)
+class BreakdownScan:
+    """Breakdown voltage against temperature.
+
+    Attributes
+    ----------
+    file : str
+    temp_c, breakdown_v : ndarray
+        Degree Celsius, volt.
+    breakdown_err_v : ndarray or None
+        One-sigma errors, volt (None when the file gives none).
+    slope_per_v : ndarray or None
+        Gain per volt of overvoltage at each temperature (from gain scans), for
+        the constant-gain bias slope.
+    capacitance_f : ndarray or None
+        Cell capacitance at each temperature, farad (from gain scans).
+    sources : tuple of str
+        Where each point came from (file names from the JSON, or ``FILE:LINE``).
+    """
+
+    file: str
+    temp_c: np.ndarray
+    breakdown_v: np.ndarray
+    breakdown_err_v: np.ndarray | None
+    slope_per_v: np.ndarray | None = None
+    capacitance_f: np.ndarray | None = None
+    sources: tuple = ()
+
+
+def read_breakdown_scan(path) -> BreakdownScan:
+    """Read a breakdown scan: CSV ``temp_c,breakdown_v[,breakdown_err_v]`` or ``calibrate`` JSON.
+
+    The JSON written by ``compensator calibrate iv --json`` (``{"curves": [...]}``)
+    or ``calibrate gain-scan --json`` (``{"scans": [...]}``) is accepted; entries
+    without a breakdown or a temperature are skipped.
+    """
+    text = _read_text(path)
+    if text.lstrip().startswith("{"):
+        try:
+            doc = json.loads(text)
+        except json.JSONDecodeError as exc:
+            _fail(path, exc.lineno, "", f"invalid JSON: {exc.msg}")
+        entries = None
+        for key in ("curves", "scans"):
+            if isinstance(doc, dict) and isinstance(doc.get(key), list):
+                entries = doc[key]
+                break
+        if entries is None:
+            _fail(path, 1, "", 'expected the JSON of "calibrate iv" ({"curves": [...]}) or "calibrate gain-scan" ({"scans": [...]})')
+        usable = [e for e in entries if isinstance(e, dict) and _num(e.get("breakdown_v")) and _num(e.get("temp_c"))]
+        if len(usable) < 2:
+            _fail(path, 0, "", f"only {len(usable)} entries have both breakdown_v and temp_c; need at least 2")
+        errs = [e.get("breakdown_err_v") for e in usable]
+        slopes = [e.get("slope_per_v") for e in usable]
+        caps = [e.get("capacitance_f") for e in usable]
+        return BreakdownScan(
+            str(path), np.array([e["temp_c"] for e in usable], float), np.array([e["breakdown_v"] for e in usable], float),
+            np.array(errs, float) if all(_num(x) and x > 0 for x in errs) else None,
+            np.array(slopes, float) if all(_num(x) and x > 0 for x in slopes) else None,
+            np.array(caps, float) if all(_num(x) and x > 0 for x in caps) else None,
+            tuple(str(e.get("file", "")) for e in usable))
+    table = read_table(path, ("temp_c", "breakdown_v"), ("breakdown_err_v",))
+    err = table.columns.get("breakdown_err_v")
+    if err is not None and np.any(err <= 0):
+        i = int(np.argmax(err <= 0))
+        _fail(path, int(table.lines[i]), table.names["breakdown_err_v"], "breakdown errors must be positive")
+    return BreakdownScan(table.file, table.columns["temp_c"], table.columns["breakdown_v"], err,
+                         sources=tuple(f"{table.file}:{n}" for n in table.lines))
+
+
+def _num(x) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+@dataclass(frozen=True)
+class ManifestEntry:
+    """One spectrum of a gain scan: ``file`` (resolved path), ``bias_v``, ``temp_c`` (or None), ``line``."""
+
+    file: str
+    bias_v: float
+    temp_c: float | None
+    line: int
+
+
+def read_manifest(path) -> list:
+    """Read a spectra manifest: CSV ``file,bias_v[,temp_c]``; relative paths are relative to the manifest.
+
+    Returns
+    -------
+    list of ManifestEntry
+    """
+    text = _read_text(path)
+    reader = [(n, r) for n, r in enumerate(io.StringIO(text), start=1) if r.strip() and not r.strip().startswith("#")]
+    if not reader:
+        _fail(path, 0, "", "empty file (expected a header row file,bias_v[,temp_c])")
+    parsed = list(csv.reader([r for _, r in reader]))
+    header = [h.strip().lower() for h in parsed[0]]
+    for need in ("file", "bias_v"):
+        if need not in header:
+            _fail(path, reader[0][0], need, f"missing column (the header has {', '.join(header)})")
+    fi, bi = header.index("file"), header.index("bias_v")
+    ti = header.index("temp_c") if "temp_c" in header else None
+    base = Path(path).parent
+    entries = []
+    for (number, _), cells in zip(reader[1:], parsed[1:]):
+        try:
+            name = cells[fi].strip()
+            bias = float(cells[bi])
+            temp = float(cells[ti]) if ti is not None and cells[ti].strip() else None
+        except (IndexError, ValueError):
+            _fail(path, number, "", "expected a file name and numbers for bias_v/temp_c")
+        if not name:
+            _fail(path, number, "file", "empty file name")
+        resolved = name if Path(name).is_absolute() else str(base / name)
+        entries.append(ManifestEntry(resolved, bias, temp, number))
+    if not entries:
+        _fail(path, reader[0][0], "", "no spectra listed after the header")
+    return entries

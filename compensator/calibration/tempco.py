@@ -1,0 +1,309 @@
+"""Temperature coefficient of the breakdown voltage, and calibrated ``sipm`` profiles.
+
+Breakdown voltage against temperature is fitted with a line and a parabola
+about a reference temperature, Vbd(T) = Vbd0 + a (T - Tref) + b (T - Tref)^2
+(close to linear from -40 to +50 C; common practice). The quadratic term is
+kept only when it is significant:
+
+* with per-point errors, by the likelihood-ratio test: the drop in chi-square
+  from the line to the parabola follows a chi-square distribution with one
+  degree of freedom (Wilks' theorem; p from ``scipy.stats.chi2``);
+* without errors, by the F-test for nested least-squares models,
+  F = (RSS_line - RSS_parabola) / (RSS_parabola / (n - 3)), with (1, n - 3)
+  degrees of freedom (p from ``scipy.stats.f``).
+
+When gain scans at several temperatures are given, the bias that holds a
+chosen gain G0 is V(T) = Vbd(T) + G0 / s(T), with s the gain per volt; its
+slope against temperature is the constant-gain bias slope, which differs from
+the breakdown tempco when the cell capacitance drifts with temperature.
+"""
+
+from __future__ import annotations
+
+import copy
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path, PurePath
+
+import numpy as np
+from scipy import stats
+
+from compensator.calibration.gainscan import PolyFit, fit_polynomial
+from compensator.errors import InputError, ModelError, Problem, ProfileError
+
+#: Significance level of the test of the quadratic term.
+ALPHA = 0.05
+
+
+@dataclass(frozen=True)
+class TempcoFit:
+    """Temperature dependence of the breakdown voltage.
+
+    Attributes
+    ----------
+    ref_temp_c : float
+        Reference temperature, degree Celsius.
+    breakdown_v_at_ref, breakdown_err_v : float
+        Breakdown at the reference temperature and its one-sigma error, volt (chosen model).
+    tempco_mv_per_k, tempco_err_mv_per_k : float
+        Slope at the reference temperature, millivolt per kelvin (chosen model).
+    curvature_mv_per_k2, curvature_err_mv_per_k2 : float
+        Quadratic term of the chosen model (0 for the line), millivolt per kelvin squared.
+    model : {"linear", "quadratic"}
+        Chosen model: quadratic only when its extra term is significant.
+    quadratic_curvature_mv_per_k2, quadratic_curvature_err_mv_per_k2 : float
+        The quadratic term as fitted (NaN with fewer than 4 points).
+    quadratic_p_value : float
+        p-value of the test of the quadratic term (NaN with fewer than 4 points).
+    quadratic_significant : bool
+    test : str
+        Name of the test used.
+    n_points : int
+    chi2 : float
+        Chi-square (or residual sum of squares in volt^2 when unweighted) of the chosen model.
+    ndf : int
+    linear, quadratic : PolyFit
+        The underlying fits in volt against kelvin from the reference (``quadratic`` may be None).
+    """
+
+    ref_temp_c: float
+    breakdown_v_at_ref: float
+    breakdown_err_v: float
+    tempco_mv_per_k: float
+    tempco_err_mv_per_k: float
+    curvature_mv_per_k2: float
+    curvature_err_mv_per_k2: float
+    model: str
+    quadratic_curvature_mv_per_k2: float
+    quadratic_curvature_err_mv_per_k2: float
+    quadratic_p_value: float
+    quadratic_significant: bool
+    test: str
+    n_points: int
+    chi2: float
+    ndf: int
+    linear: PolyFit = field(repr=False)
+    quadratic: PolyFit | None = field(repr=False, default=None)
+
+    @property
+    def chosen(self) -> PolyFit:
+        """The fit of the chosen model."""
+        return self.quadratic if self.model == "quadratic" else self.linear
+
+
+def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, alpha=ALPHA) -> TempcoFit:
+    """Weighted linear and quadratic fits of breakdown voltage against temperature.
+
+    Parameters
+    ----------
+    temp_c : array_like
+        Temperatures, degree Celsius (at least 2 distinct values; 4 for the quadratic test).
+    breakdown_v : array_like
+        Breakdown voltages, volt.
+    breakdown_err_v : array_like, optional
+        One-sigma errors, volt; without them the scatter sets the errors.
+    ref_temp_c : float
+        Reference temperature, degree Celsius.
+    alpha : float
+        Significance level for keeping the quadratic term.
+
+    Returns
+    -------
+    TempcoFit
+
+    Raises
+    ------
+    ModelError
+        Too few points or temperatures.
+    """
+    temp_c = np.asarray(temp_c, dtype=float)
+    breakdown_v = np.asarray(breakdown_v, dtype=float)
+    if temp_c.shape != breakdown_v.shape or temp_c.ndim != 1:
+        raise ModelError("temp_c and breakdown_v must be 1-D arrays of the same length")
+    if np.unique(temp_c).size < 2:
+        raise ModelError(f"a temperature coefficient needs at least 2 distinct temperatures, got {np.unique(temp_c).size}")
+    lin = fit_polynomial(temp_c, breakdown_v, 1, breakdown_err_v, x0=ref_temp_c)
+    quad = None
+    p_value = float("nan")
+    test = "none (fewer than 4 temperatures)"
+    if np.unique(temp_c).size >= 4:
+        quad = fit_polynomial(temp_c, breakdown_v, 2, breakdown_err_v, x0=ref_temp_c)
+        if breakdown_err_v is not None:
+            test = "likelihood-ratio (delta chi-square, 1 dof)"
+            p_value = float(stats.chi2.sf(max(lin.chi2 - quad.chi2, 0.0), 1))
+        else:
+            test = f"F-test of nested models (1, {quad.ndf} dof)"
+            rss1, rss2 = lin.chi2, quad.chi2
+            if rss2 <= 0:
+                p_value = 0.0 if rss1 > 0 else 1.0
+            else:
+                p_value = float(stats.f.sf((rss1 - rss2) / (rss2 / quad.ndf), 1, quad.ndf))
+    significant = bool(quad is not None and p_value < alpha)
+    chosen = quad if significant else lin
+    err = chosen.err
+    curv = 1e3 * quad.coef[2] if quad is not None else float("nan")
+    curv_err = 1e3 * quad.err[2] if quad is not None else float("nan")
+    return TempcoFit(
+        ref_temp_c=float(ref_temp_c), breakdown_v_at_ref=float(chosen.coef[0]), breakdown_err_v=float(err[0]),
+        tempco_mv_per_k=float(1e3 * chosen.coef[1]), tempco_err_mv_per_k=float(1e3 * err[1]),
+        curvature_mv_per_k2=float(1e3 * chosen.coef[2]) if significant else 0.0,
+        curvature_err_mv_per_k2=float(1e3 * err[2]) if significant else 0.0,
+        model="quadratic" if significant else "linear",
+        quadratic_curvature_mv_per_k2=float(curv), quadratic_curvature_err_mv_per_k2=float(curv_err),
+        quadratic_p_value=p_value, quadratic_significant=significant, test=test, n_points=int(temp_c.size),
+        chi2=float(chosen.chi2), ndf=int(chosen.ndf), linear=lin, quadratic=quad)
+
+
+@dataclass(frozen=True)
+class ConstantGainSlope:
+    """Bias slope that holds a fixed gain over temperature.
+
+    Attributes
+    ----------
+    slope_mv_per_k, slope_err_mv_per_k : float
+        dV/dT at constant gain, millivolt per kelvin.
+    target_gain : float
+        The gain held (unit of the scans' slope times volt).
+    bias_v : ndarray
+        Bias that gives ``target_gain`` at each temperature, volt.
+    capacitance_tempco_ppm_per_k, capacitance_tempco_err_ppm_per_k : float
+        Relative slope of the gain per volt against temperature, ppm per kelvin.
+    """
+
+    slope_mv_per_k: float
+    slope_err_mv_per_k: float
+    target_gain: float
+    bias_v: np.ndarray
+    capacitance_tempco_ppm_per_k: float
+    capacitance_tempco_err_ppm_per_k: float
+
+
+def constant_gain_slope(temp_c, breakdown_v, slope_per_v, *, overvoltage_v=3.0, ref_temp_c=25.0,
+                        breakdown_err_v=None) -> ConstantGainSlope:
+    """Constant-gain bias slope from gain scans at several temperatures.
+
+    Parameters
+    ----------
+    temp_c : array_like
+        Temperature of each scan, degree Celsius (at least 2 distinct).
+    breakdown_v : array_like
+        Breakdown voltage of each scan, volt.
+    slope_per_v : array_like
+        Gain per volt of overvoltage of each scan (positive).
+    overvoltage_v : float
+        The held gain is the mean gain per volt times this overvoltage (volt).
+    ref_temp_c : float
+        Reference temperature for the capacitance coefficient, degree Celsius.
+    breakdown_err_v : array_like, optional
+        One-sigma errors of the breakdown voltages, volt (weights).
+
+    Returns
+    -------
+    ConstantGainSlope
+    """
+    temp_c = np.asarray(temp_c, dtype=float)
+    breakdown_v = np.asarray(breakdown_v, dtype=float)
+    slope_per_v = np.asarray(slope_per_v, dtype=float)
+    if np.any(slope_per_v <= 0):
+        raise ModelError("every gain scan must have a positive gain per volt")
+    if overvoltage_v <= 0:
+        raise ModelError(f"overvoltage_v must be positive, got {overvoltage_v!r}")
+    target = float(np.mean(slope_per_v) * overvoltage_v)
+    bias = breakdown_v + target / slope_per_v
+    fit = fit_polynomial(temp_c, bias, 1, breakdown_err_v, x0=ref_temp_c)
+    cfit = fit_polynomial(temp_c, slope_per_v, 1, x0=ref_temp_c)
+    rel = 1e6 * cfit.coef[1] / cfit.coef[0]
+    rel_err = 1e6 * cfit.err[1] / cfit.coef[0] if np.isfinite(cfit.scale) else float("nan")
+    return ConstantGainSlope(float(1e3 * fit.coef[1]), float(1e3 * fit.err[1]) if np.isfinite(fit.scale) else float("nan"),
+                             target, bias, float(rel), float(rel_err))
+
+
+def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitance_f=None,
+                      capacitance_tempco_ppm_per_k=None) -> dict:
+    """Profile values of a calibrated ``sipm`` profile: the base profile with the fitted breakdown.
+
+    Parameters
+    ----------
+    base_values : dict
+        ``profile.values`` of the base ``sipm`` profile (left untouched).
+    fit : TempcoFit
+    name : str, optional
+        Name of the new profile (default: the base name with ``-calibrated``).
+    capacitance_f : float, optional
+        Fitted cell capacitance, farad (from gain scans).
+    capacitance_tempco_ppm_per_k : float, optional
+        Fitted capacitance temperature coefficient, ppm per kelvin.
+
+    Returns
+    -------
+    dict
+    """
+    values = copy.deepcopy(base_values)
+    values["name"] = name or f"{base_values['name']}-calibrated"
+    values["description"] = f"{base_values['name']} with breakdown calibrated from measurements"
+    bd = values["breakdown"]
+    bd.update(
+        breakdown_v_at_ref=round(fit.breakdown_v_at_ref, 6), ref_temp_c=float(fit.ref_temp_c),
+        tempco_mv_per_k=round(fit.tempco_mv_per_k, 4), curvature_mv_per_k2=round(fit.curvature_mv_per_k2, 6),
+        breakdown_err_v=round(fit.breakdown_err_v, 6), tempco_err_mv_per_k=round(fit.tempco_err_mv_per_k, 4),
+    )
+    if capacitance_f is not None and np.isfinite(capacitance_f):
+        values["cell"]["capacitance_f"] = float(f"{capacitance_f:.6g}")
+    if capacitance_tempco_ppm_per_k is not None and np.isfinite(capacitance_tempco_ppm_per_k):
+        values["cell"]["capacitance_tempco_ppm_per_k"] = round(float(capacitance_tempco_ppm_per_k), 2)
+    return values
+
+
+def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file="", force=False, name=None,
+                             capacitance_f=None, capacitance_tempco_ppm_per_k=None):
+    """Write a calibrated ``sipm`` profile, checked by loading it back, atomically.
+
+    Parameters
+    ----------
+    path : str or path-like
+        Destination YAML file; an existing file is an error unless ``force``.
+    base_profile : SipmProfile
+        The profile whose other sections are kept.
+    fit : TempcoFit
+    data_file : str
+        The breakdown data the fit came from (named in the header).
+    force : bool
+        Replace an existing file.
+    name, capacitance_f, capacitance_tempco_ppm_per_k
+        See :func:`calibrated_values`.
+
+    Returns
+    -------
+    SipmProfile
+        The written profile as loaded back.
+
+    Raises
+    ------
+    InputError
+        The destination exists (without ``force``) or the fitted values fall
+        outside the profile schema (e.g. a negative tempco); nothing is written.
+    """
+    from compensator.fileio import write_file_atomic
+    from compensator.firmware.banner import banner_lines
+    from compensator.profiles import load_sipm, render_profile
+
+    path = Path(path)
+    if path.exists() and not force:
+        raise InputError(Problem(str(path), 0, "", "already exists; not overwriting (use --force to replace it)"))
+    values = calibrated_values(base_profile.values, fit, name=name, capacitance_f=capacitance_f,
+                               capacitance_tempco_ppm_per_k=capacitance_tempco_ppm_per_k)
+    settings = {"breakdown data": PurePath(data_file).name if data_file else "(arrays)",
+                "model": fit.model, "points": fit.n_points, "test": fit.test}
+    header = "\n".join(["calibrated sipm profile"] + banner_lines("", [base_profile], settings)[1:])
+    text = render_profile("sipm", values, header)
+    with tempfile.TemporaryDirectory() as tmp:
+        probe = Path(tmp) / path.name
+        probe.write_text(text, encoding="utf-8")
+        try:
+            load_sipm(probe)
+        except ProfileError as exc:
+            problems = [Problem(str(path), 0, p.key, f"fitted value rejected by the sipm schema: {p.reason}")
+                        for p in exc.problems if isinstance(p, Problem)] or [str(exc)]
+            raise InputError(problems) from None
+    write_file_atomic(path, text, overwrite=force)
+    return load_sipm(path)

@@ -1,0 +1,367 @@
+"""``compensator calibrate``: breakdown, gain, gain scans and temperature coefficients from bench data."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from compensator.cli._common import add_json_flag, format_table, print_json
+
+ORDER = 30
+
+EXIT_NONE_ANALYSED = 2
+
+CAUTION = ("caution: a calibrated profile sets the bias law; check it against a measurement before it drives "
+           "hardware. SiPM bias supplies reach tens of volts (more than 60 V dc is hazardous live under IEC 61010-1); "
+           "follow local codes and licensed practice.")
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "calibrate", help="breakdown, gain and temperature coefficients from bench measurements",
+        description="Turn bench measurements (CSV) into breakdown voltages, gains, temperature coefficients "
+                    "and a calibrated sipm profile, with uncertainties.")
+    sub = parser.add_subparsers(dest="calibrate_command", metavar="WHAT")
+    sub.required = True
+
+    from compensator.calibration.iv import DEFAULT_METHOD, METHODS
+
+    iv = sub.add_parser("iv", help="breakdown voltage from I-V curves (CSV bias_v,current_a[,temp_c])",
+                        description="Breakdown voltage from reverse-bias I-V curves, one result per file.")
+    iv.add_argument("files", nargs="+", metavar="FILE", help="I-V curves: CSV with bias_v,current_a[,temp_c]")
+    iv.add_argument("--method", choices=METHODS, default=DEFAULT_METHOD,
+                    help=f"breakdown method (default {DEFAULT_METHOD})")
+    iv.add_argument("--temp-c", type=float, metavar="T", help="temperature for files without a temp_c column, degree Celsius")
+    _batch_flags(iv)
+    iv.set_defaults(handler=run_iv)
+
+    sp = sub.add_parser("spectrum", help="gain, pedestal, mean photoelectrons and crosstalk from charge spectra",
+                        description="Fit charge spectra: histogram charge,counts or an event list with one charge column "
+                                    "(any charge unit; results come back in the same unit).")
+    sp.add_argument("files", nargs="+", metavar="FILE", help="spectra: CSV with charge[_UNIT],counts or charge[_UNIT]")
+    sp.add_argument("--amplitudes", choices=("gpoisson", "free"), default="gpoisson",
+                    help="peak amplitudes: generalised Poisson with crosstalk (default) or free")
+    _batch_flags(sp)
+    sp.set_defaults(handler=run_spectrum)
+
+    gs = sub.add_parser("gain-scan", help="breakdown voltage and cell capacitance from gain against bias",
+                        description="Weighted line fit of gain against bias: breakdown = zero crossing, "
+                                    "capacitance = slope * q. Input: gain tables (CSV bias_v,gain[,gain_err][,temp_c]), "
+                                    "spectra with --spectra and one --bias-v per file, or a --manifest.")
+    gs.add_argument("files", nargs="*", metavar="FILE", help="gain tables, or spectra with --spectra")
+    gs.add_argument("--spectra", action="store_true", help="FILEs are charge spectra taken at the biases given by --bias-v")
+    gs.add_argument("--bias-v", type=float, nargs="+", metavar="V", help="bias of each spectrum, volt (with --spectra)")
+    gs.add_argument("--manifest", metavar="FILE", help="CSV file,bias_v[,temp_c] listing spectra (one scan per temperature)")
+    gs.add_argument("--charge-per-unit-c", type=float, metavar="C",
+                    help="coulomb per charge unit of the spectra (e.g. 1e-12 for pC), for the capacitance")
+    gs.add_argument("--temp-c", type=float, metavar="T", help="temperature of scans without one, degree Celsius")
+    add_json_flag(gs)
+    gs.add_argument("--jobs", type=int, default=1, metavar="N", help="worker processes for spectrum fits (default 1)")
+    gs.add_argument("--plot", metavar="DIR", help="write spectrum plots into DIR")
+    gs.set_defaults(handler=run_gain_scan)
+
+    tc = sub.add_parser("tempco", help="temperature coefficient of the breakdown; write a calibrated sipm profile",
+                        description="Weighted linear and quadratic fits of breakdown against temperature. FILE is a CSV "
+                                    "temp_c,breakdown_v[,breakdown_err_v] or the JSON of 'calibrate iv' or "
+                                    "'calibrate gain-scan'.",
+                        epilog=CAUTION)
+    tc.add_argument("file", metavar="FILE", help="breakdown scan (CSV or calibrate JSON)")
+    tc.add_argument("--ref-temp-c", type=float, metavar="T",
+                    help="reference temperature, degree Celsius (default: the base profile's, else 25)")
+    tc.add_argument("--overvoltage-v", type=float, default=3.0, metavar="V",
+                    help="overvoltage that sets the gain held for the constant-gain bias slope (default 3)")
+    tc.add_argument("--alpha", type=float, default=0.05, metavar="P",
+                    help="significance level for keeping the quadratic term (default 0.05)")
+    tc.add_argument("--write-profile", metavar="NEW.yaml", help="write a calibrated sipm profile (needs --base)")
+    tc.add_argument("--base", metavar="BASE.yaml", help="sipm profile whose other sections the new profile keeps")
+    tc.add_argument("--name", help="name of the new profile (default: BASE name + '-calibrated')")
+    tc.add_argument("--force", action="store_true", help="replace an existing --write-profile file")
+    add_json_flag(tc)
+    tc.add_argument("--plot", metavar="DIR", help="write the breakdown-vs-temperature plot into DIR")
+    tc.set_defaults(handler=run_tempco)
+
+
+def _batch_flags(parser) -> None:
+    add_json_flag(parser)
+    parser.add_argument("--plot", metavar="DIR", help="write one plot per file into DIR (created if missing)")
+    parser.add_argument("--jobs", type=int, default=1, metavar="N",
+                        help="worker processes (default 1; 0 = one per CPU)")
+    parser.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
+                        help="progress bar on stderr (default: on a terminal, for more than one file)")
+
+
+def _jobs(n: int) -> int:
+    from compensator.calibration.batch import default_jobs
+    from compensator.errors import InputError
+
+    if n < 0:
+        raise InputError("--jobs: must be 0 (one per CPU) or a positive number")
+    return default_jobs() if n == 0 else n
+
+
+def _report_errors(records) -> None:
+    for rec in records:
+        if not rec.ok:
+            print(f"compensator: {rec.error_line}", file=sys.stderr)
+
+
+def _fmt(x, spec):
+    return "-" if x is None or not np.isfinite(x) else format(x, spec)
+
+
+def run_iv(args) -> int:
+    from compensator.calibration.batch import Progress, analyse_iv_files
+
+    jobs = _jobs(args.jobs)
+    plot_dir = None
+    if args.plot:
+        from compensator.calibration.plots import plot_dir as make_dir
+        plot_dir = make_dir(args.plot)
+    with Progress(len(args.files), "calibrate iv", enabled=args.progress) as bar:
+        records = analyse_iv_files(args.files, method=args.method, temp_c=args.temp_c, jobs=jobs,
+                                   keep_arrays=plot_dir is not None, progress=bar)
+    _report_errors(records)
+    if plot_dir is not None:
+        from compensator.calibration.plots import plot_iv, unique_names
+        for rec, name in zip(records, unique_names([r.file for r in records], "-iv.png")):
+            if rec.bias_v is not None:
+                plot_iv(rec, plot_dir / name)
+    ok = [r for r in records if r.ok]
+    if args.json:
+        print_json({"method": args.method, "curves": [r.summary() for r in records]})
+    elif ok:
+        print(format_table(
+            [(r.file, _fmt(r.temp_c, ".2f"), r.breakdown_v, 1e3 * r.breakdown_err_v, _fmt(r.exponent, ".2f"),
+              r.window_points) for r in ok],
+            ["file", "temp_c", "breakdown_v", "err_mv", "exponent", "window"],
+            ["", "", ".4f", ".1f", "", "d"]))
+        print(f"{len(ok)} of {len(records)} curves analysed ({args.method})")
+    return 0 if ok else EXIT_NONE_ANALYSED
+
+
+def run_spectrum(args) -> int:
+    from compensator.calibration.batch import Progress, analyse_spectrum_files
+
+    jobs = _jobs(args.jobs)
+    plot_dir = None
+    if args.plot:
+        from compensator.calibration.plots import plot_dir as make_dir
+        plot_dir = make_dir(args.plot)
+    with Progress(len(args.files), "calibrate spectrum", enabled=args.progress) as bar:
+        records = analyse_spectrum_files(args.files, amplitudes=args.amplitudes, jobs=jobs, progress=bar)
+    _report_errors(records)
+    if plot_dir is not None:
+        _plot_spectra(records, plot_dir)
+    ok = [r for r in records if r.ok]
+    if args.json:
+        print_json({"spectra": [r.summary() for r in records]})
+    elif ok:
+        print(format_table(
+            [(r.file, r.charge_unit or "-", r.fit.gain, r.fit.gain_err, r.fit.pedestal, r.fit.mean_pe,
+              r.fit.crosstalk, f"{r.fit.chi2:.1f}/{r.fit.ndf}") for r in ok],
+            ["file", "unit", "gain", "gain_err", "pedestal", "mean_pe", "crosstalk", "chi2/ndf"],
+            ["", "", ".5g", ".2g", ".4g", ".4f", ".4f", ""]))
+        print(f"{len(ok)} of {len(records)} spectra fitted")
+    return 0 if ok else EXIT_NONE_ANALYSED
+
+
+def _plot_spectra(records, plot_dir):
+    from compensator.calibration.plots import plot_spectrum, unique_names
+
+    for rec, name in zip(records, unique_names([r.file for r in records], "-spectrum.png")):
+        if rec.ok:
+            plot_spectrum(rec.fit, plot_dir / name, title=Path(rec.file).name, charge_unit=rec.charge_unit)
+
+
+def _scan_summary(file, fit, extra=None) -> dict:
+    out = {"file": file, "ok": True, "reason": None, "temp_c": fit.temp_c, "breakdown_v": fit.breakdown_v,
+           "breakdown_err_v": fit.breakdown_err_v, "capacitance_f": fit.capacitance_f,
+           "capacitance_err_f": fit.capacitance_err_f, "slope_per_v": fit.slope_per_v,
+           "slope_err_per_v": fit.slope_err_per_v, "gain_unit": fit.gain_unit, "chi2": fit.chi2, "ndf": fit.ndf,
+           "n_points": fit.n_points}
+    out.update(extra or {})
+    return out
+
+
+def run_gain_scan(args) -> int:
+    from compensator.calibration.gainscan import fit_gain_scan
+    from compensator.calibration.measurements import read_gain_scan
+    from compensator.errors import CompensatorError, InputError
+
+    scans, errors = [], []
+    if args.manifest or args.spectra:
+        if args.manifest and (args.files or args.spectra):
+            raise InputError("--manifest: give either a manifest or spectrum files with --spectra, not both")
+        groups = _spectrum_groups(args)
+        for label, temp_c, entries in groups:
+            try:
+                scans.append(_scan_from_spectra(args, label, temp_c, entries, errors))
+            except CompensatorError as exc:
+                msg = str(exc).splitlines()[0]
+                errors.append(f"{label}: {msg}")
+                scans.append({"file": label, "ok": False, "reason": msg, "temp_c": temp_c})
+    else:
+        if not args.files:
+            raise InputError("gain-scan: give gain tables (FILE...), spectra with --spectra --bias-v, or --manifest")
+        for path in args.files:
+            try:
+                data = read_gain_scan(path, args.temp_c)
+                fit = fit_gain_scan(data.bias_v, data.gain, data.gain_err, temp_c=data.temp_c)
+                scans.append(_scan_summary(path, fit))
+            except CompensatorError as exc:
+                msg = str(exc).splitlines()[0]
+                line = msg if msg.startswith(str(path)) else f"{path}: {msg}"
+                errors.append(line)
+                scans.append({"file": path, "ok": False, "reason": line, "temp_c": None})
+    for line in errors:
+        print(f"compensator: {line}", file=sys.stderr)
+    ok = [s for s in scans if s["ok"]]
+    if args.json:
+        print_json({"scans": scans})
+    elif ok:
+        print(format_table(
+            [(s["file"], _fmt(s["temp_c"], ".2f"), s["breakdown_v"], 1e3 * s["breakdown_err_v"],
+              _fmt(1e15 * s["capacitance_f"], ".2f"), _fmt(1e15 * s["capacitance_err_f"], ".2f"),
+              f"{s['chi2']:.1f}/{s['ndf']}") for s in ok],
+            ["file", "temp_c", "breakdown_v", "err_mv", "capacitance_ff", "err_ff", "chi2/ndf"],
+            ["", "", ".4f", ".1f", "", "", ""]))
+    return 0 if ok else EXIT_NONE_ANALYSED
+
+
+def _spectrum_groups(args):
+    """(label, temp_c, [(file, bias_v)]) per scan."""
+    from compensator.calibration.measurements import read_manifest
+    from compensator.errors import InputError
+
+    if args.manifest:
+        entries = read_manifest(args.manifest)
+        temps = sorted({e.temp_c if e.temp_c is not None else args.temp_c for e in entries},
+                       key=lambda t: (t is None, t if t is not None else 0.0))
+        groups = []
+        for t in temps:
+            members = [(e.file, e.bias_v) for e in entries if (e.temp_c if e.temp_c is not None else args.temp_c) == t]
+            label = args.manifest if len(temps) == 1 else f"{args.manifest}@{t:g}C"
+            groups.append((label, t, members))
+        return groups
+    if not args.files or not args.bias_v or len(args.bias_v) != len(args.files):
+        n_b = len(args.bias_v or [])
+        raise InputError(f"--bias-v: give one bias per spectrum file ({len(args.files)} files, {n_b} biases)")
+    return [(args.files[0] if len(args.files) == 1 else f"{len(args.files)} spectra", args.temp_c,
+             list(zip(args.files, args.bias_v)))]
+
+
+def _scan_from_spectra(args, label, temp_c, entries, errors):
+    from compensator.calibration.batch import Progress, analyse_spectrum_files
+    from compensator.calibration.gainscan import fit_gain_scan
+    from compensator.errors import ModelError
+
+    files = [f for f, _ in entries]
+    with Progress(len(files), "spectra", enabled=None) as bar:
+        records = analyse_spectrum_files(files, jobs=_jobs(args.jobs), progress=bar)
+    for rec in records:
+        if not rec.ok:
+            errors.append(rec.error_line)
+    if args.plot:
+        from compensator.calibration.plots import plot_dir
+        _plot_spectra(records, plot_dir(args.plot))
+    good = [(rec, b) for rec, (_, b) in zip(records, entries) if rec.ok]
+    if len(good) < 3:
+        raise ModelError(f"only {len(good)} of {len(records)} spectra could be fitted; a gain scan needs 3")
+    units = {rec.charge_unit for rec, _ in good}
+    unit = units.pop() if len(units) == 1 else ""
+    gains = np.array([rec.fit.gain for rec, _ in good])
+    errs = np.array([rec.fit.gain_err for rec, _ in good])
+    use_err = errs if np.all(np.isfinite(errs)) and np.all(errs > 0) else None
+    fit = fit_gain_scan([b for _, b in good], gains, use_err, temp_c=temp_c,
+                        charge_per_unit_c=args.charge_per_unit_c, gain_unit=unit or "charge unit")
+    per = [{"file": rec.file, "bias_v": b, "gain": rec.fit.gain if rec.ok else None,
+            "gain_err": rec.fit.gain_err if rec.ok else None, "reason": rec.reason or None}
+           for rec, (_, b) in zip(records, entries)]
+    return _scan_summary(label, fit, {"spectra": per})
+
+
+def run_tempco(args) -> int:
+    from compensator.calibration.measurements import read_breakdown_scan
+    from compensator.calibration.tempco import constant_gain_slope, fit_tempco, write_calibrated_profile
+    from compensator.errors import InputError
+
+    if args.write_profile and not args.base:
+        raise InputError("--write-profile: needs --base BASE.yaml (the sipm profile to calibrate)")
+    base = None
+    if args.base:
+        from compensator.profiles import load_sipm
+        base = load_sipm(args.base)
+    ref = args.ref_temp_c if args.ref_temp_c is not None else (
+        base.device.breakdown.ref_temp_c if base is not None else 25.0)
+    scan = read_breakdown_scan(args.file)
+    try:
+        fit = fit_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, ref_temp_c=ref, alpha=args.alpha)
+    except InputError:
+        raise
+    except Exception as exc:
+        from compensator.errors import CompensatorError
+        if isinstance(exc, CompensatorError):
+            raise InputError(f"{args.file}: {exc}") from None
+        raise
+    cg = None
+    if scan.slope_per_v is not None and np.unique(scan.temp_c).size >= 2:
+        cg = constant_gain_slope(scan.temp_c, scan.breakdown_v, scan.slope_per_v, overvoltage_v=args.overvoltage_v,
+                                 ref_temp_c=ref, breakdown_err_v=scan.breakdown_err_v)
+    cap_at_ref = None
+    if scan.capacitance_f is not None:
+        from compensator.calibration.gainscan import fit_polynomial
+        cap_at_ref = float(fit_polynomial(scan.temp_c, scan.capacitance_f, 1 if np.unique(scan.temp_c).size > 1 else 0,
+                                          x0=ref).coef[0])
+    written = None
+    if args.write_profile:
+        written = write_calibrated_profile(
+            args.write_profile, base, fit, data_file=args.file, force=args.force, name=args.name,
+            capacitance_f=cap_at_ref,
+            capacitance_tempco_ppm_per_k=cg.capacitance_tempco_ppm_per_k if cg is not None else None)
+        print(CAUTION, file=sys.stderr)
+    if args.plot:
+        from compensator.calibration.plots import plot_dir, plot_tempco
+        plot_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, fit,
+                    plot_dir(args.plot) / f"{Path(args.file).stem}-tempco.png", title=Path(args.file).name)
+    resid = scan.breakdown_v - fit.chosen(scan.temp_c)
+    out = {
+        "file": args.file, "ref_temp_c": fit.ref_temp_c, "breakdown_v_at_ref": fit.breakdown_v_at_ref,
+        "breakdown_err_v": fit.breakdown_err_v, "tempco_mv_per_k": fit.tempco_mv_per_k,
+        "tempco_err_mv_per_k": fit.tempco_err_mv_per_k, "curvature_mv_per_k2": fit.curvature_mv_per_k2,
+        "curvature_err_mv_per_k2": fit.curvature_err_mv_per_k2, "model": fit.model,
+        "tempco_relative_per_k": 1e-3 * fit.tempco_mv_per_k / fit.breakdown_v_at_ref,
+        "quadratic": {"curvature_mv_per_k2": fit.quadratic_curvature_mv_per_k2,
+                      "curvature_err_mv_per_k2": fit.quadratic_curvature_err_mv_per_k2,
+                      "p_value": fit.quadratic_p_value, "significant": fit.quadratic_significant,
+                      "alpha": args.alpha, "test": fit.test},
+        "n_points": fit.n_points, "chi2": fit.chi2, "ndf": fit.ndf, "weighted": scan.breakdown_err_v is not None,
+        "points": [{"temp_c": t, "breakdown_v": v, "residual_mv": 1e3 * r}
+                   for t, v, r in zip(scan.temp_c.tolist(), scan.breakdown_v.tolist(), resid.tolist())],
+        "constant_gain": None if cg is None else {
+            "bias_slope_mv_per_k": cg.slope_mv_per_k, "bias_slope_err_mv_per_k": cg.slope_err_mv_per_k,
+            "target_gain": cg.target_gain, "overvoltage_v": args.overvoltage_v,
+            "capacitance_tempco_ppm_per_k": cg.capacitance_tempco_ppm_per_k,
+            "capacitance_tempco_err_ppm_per_k": cg.capacitance_tempco_err_ppm_per_k},
+        "capacitance_f_at_ref": cap_at_ref,
+        "profile": None if written is None else {"file": args.write_profile, "name": written.name},
+    }
+    if args.json:
+        print_json(out)
+        return 0
+    print(f"{args.file}: {fit.n_points} points, {fit.model} model ({'weighted' if out['weighted'] else 'unweighted'})")
+    print(f"  breakdown at {fit.ref_temp_c:g} C: {fit.breakdown_v_at_ref:.4f} +- {fit.breakdown_err_v:.4f} V")
+    print(f"  tempco: {fit.tempco_mv_per_k:.3f} +- {fit.tempco_err_mv_per_k:.3f} mV/K "
+          f"({1e3 * out['tempco_relative_per_k']:.3f} per mille per K)")
+    q = fit.quadratic_curvature_mv_per_k2
+    if np.isfinite(q):
+        print(f"  quadratic term: {q:.4f} +- {fit.quadratic_curvature_err_mv_per_k2:.4f} mV/K^2, "
+              f"p = {fit.quadratic_p_value:.3g} ({fit.test}): {'significant' if fit.quadratic_significant else 'not significant'}")
+    if cg is not None:
+        print(f"  constant-gain bias slope: {cg.slope_mv_per_k:.3f} +- {cg.slope_err_mv_per_k:.3f} mV/K "
+              f"(capacitance {cg.capacitance_tempco_ppm_per_k:+.0f} ppm/K)")
+    if written is not None:
+        print(f"  wrote {args.write_profile} (profile {written.name})")
+    return 0
