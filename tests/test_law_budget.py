@@ -1,0 +1,148 @@
+"""Gain-error budget: hand-worked terms, calibration residuals and the Monte Carlo against first order.
+
+The propagation formula is dG/G = (dV - (dVbd/dT) dT) / Vov (common practice).
+"""
+
+import numpy as np
+import pytest
+
+from compensator.errors import ModelError
+from compensator.law import build_law
+from compensator.law.budget import gain_error_budget
+from compensator.physics.sipm import cell_capacitance_f
+from compensator.physics.supply import sipm_bias_v
+
+
+@pytest.fixture(scope="module")
+def budget_b_flat(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0, "constant_overvoltage", correct_drop=False)
+    return law, gain_error_budget(law, board_pt1000, samples=0)
+
+
+@pytest.fixture(scope="module")
+def budget_b_mc(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0, "constant_gain")
+    return law, gain_error_budget(law, board_pt1000, samples=2000, seed=7)
+
+
+@pytest.fixture(scope="module")
+def budget_a_mc(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, "constant_gain", correct_drop=False)
+    return law, gain_error_budget(law, board_ntc, samples=2000, seed=11)
+
+
+def _at(budget, temp_c):
+    return int(np.flatnonzero(np.isclose(budget.temp_c, temp_c))[0])
+
+
+def test_sensor_to_die_offset_by_hand(budget_b_flat, sipm_b):
+    # Hand-worked (common practice formula): 0.2 K offset, dVbd/dT = 34 mV/K + 2 * 0.02 mV/K^2 (T - 25 C),
+    # Vov = 4 V: dG/G = 0.034 * 0.2 / 4 = 0.17 % at 25 C and 0.0348 * 0.2 / 4 = 0.174 % at 45 C, there
+    # times C(45 C)/C(25 C) = 1.003 because the gain is referred to its value at 25 C. The current's
+    # feedback through the 4.7 kohm resistor (R dI/dV) takes off about 0.1 %.
+    law, budget = budget_b_flat
+    term = budget.term("sensor_to_die")
+    scale = float(cell_capacitance_f(sipm_b.device, 45.0) / cell_capacitance_f(sipm_b.device, 25.0))
+    assert term.limit_pct_by_temp[_at(budget, 25.0)] == pytest.approx(0.17, rel=2e-3)
+    assert term.limit_pct_by_temp[_at(budget, 45.0)] == pytest.approx(0.174 * scale, rel=2e-3)
+    assert term.std_pct_by_temp[_at(budget, 25.0)] == pytest.approx(0.17 / np.sqrt(3), rel=1e-3)  # rectangular
+
+
+def test_dac_reference_by_hand(budget_b_flat):
+    # Direct supply: Vout = 30 V + 14 Vdac. A 0.05 % DAC reference error moves the output by
+    # (Vout - 30 V) * 0.0005; at 25 C Vout = 38.2 + 4 V, so dV = 6.10 mV and dG/G = dV / 4 V = 0.1525 %.
+    law, budget = budget_b_flat
+    v_out = float(law.output_v(25.0))
+    expected = (v_out - 30.0) * 5e-4 / 4.0 * 100.0
+    assert expected == pytest.approx(0.1525, abs=2e-4)
+    assert budget.term("dac_reference").limit_pct_by_temp[_at(budget, 25.0)] == pytest.approx(expected, rel=1e-3)
+
+
+def test_breakdown_and_tempco_calibration(budget_b_mc, sipm_b):
+    law, budget = budget_b_mc
+    bd = budget.term("breakdown_calibration")
+    # A breakdown offset of 0.05 V (1 sigma) is 0.05 / 4 = 1.25 % of gain; the limit is 3 sigma.
+    assert bd.std_pct_by_temp[_at(budget, 25.0)] == pytest.approx(1.25, rel=1e-3)
+    assert bd.limit_pct == pytest.approx(3 * bd.std_pct, rel=1e-12)
+    # A constant voltage offset: a one-point calibration removes it.
+    assert bd.calibrated_std_pct < 1e-2 * bd.std_pct
+    # Tempco error 0.5 mV/K (1 sigma): after calibration at 25 C, 0.5 mV/K * 50 K / 4 V = 0.625 % at -25 C,
+    # scaled by C(T)/C(T0) because a voltage error acts through the cell capacitance (constant-gain law).
+    tc = budget.term("tempco_calibration")
+    dev = sipm_b.device
+    scale = float(cell_capacitance_f(dev, -25.0) / cell_capacitance_f(dev, 25.0))
+    assert tc.calibrated_std_pct_by_temp[_at(budget, -25.0)] == pytest.approx(0.625 * scale, rel=1e-3)
+    assert tc.calibrated_std_pct_by_temp[_at(budget, 25.0)] < 1e-9
+    assert budget.dominant == "breakdown_calibration"
+    assert budget.calibrated_dominant == "tempco_calibration"
+
+
+def test_ratiometric_reference_cancels(budget_a_mc, budget_b_mc):
+    assert budget_a_mc[1].term("adc_reference").limit_pct < 1e-9
+    assert budget_b_mc[1].term("adc_reference").limit_pct > 0.1
+
+
+def test_uncorrected_drop_is_systematic(budget_a_mc, sipm_a, board_ntc):
+    law, budget = budget_a_mc
+    term = budget.term("series_resistor_drop")
+    assert term.kind == "systematic"
+    i = _at(budget, 45.0)
+    v_out = law.output_v(45.0)
+    drop_v = v_out - sipm_bias_v(board_ntc.supply, sipm_a.device, v_out, 45.0)
+    assert float(drop_v) > 0.03  # 10 kohm at a few microampere
+    # dG/G = -R I / Vov with I at the operating point the drop itself lowers.
+    assert term.signed_pct_by_temp[i] == pytest.approx(-100 * float(drop_v) / 3.0, rel=1e-6)
+    assert budget.systematic_pct == pytest.approx(abs(term.signed_pct_by_temp).max(), rel=1e-6)
+
+
+def test_aggregates(budget_b_mc):
+    _, budget = budget_b_mc
+    random_terms = [t for t in budget.terms if t.kind == "random"]
+    rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in random_terms))
+    assert budget.rss_pct == pytest.approx(rss.max(), rel=1e-12)
+    worst = sum(t.limit_pct_by_temp for t in random_terms)
+    assert budget.worst_case_pct >= worst.max() - 1e-12
+    assert budget.worst_case_pct > budget.rss_pct
+    assert budget.calibrated_rss_pct < budget.rss_pct
+
+
+@pytest.mark.parametrize("which", ["budget_a_mc", "budget_b_mc"])
+def test_monte_carlo_agrees_with_first_order(which, request):
+    # The Monte Carlo runs the full non-linear chain with quantisation; its spread must match the
+    # first-order root-sum-square at every temperature, and its mean the systematic terms.
+    _, budget = request.getfixturevalue(which)
+    mc = budget.monte_carlo
+    rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in budget.terms if t.kind == "random"))
+    ratio = mc.std_pct_by_temp / rss
+    assert np.all((ratio > 0.93) & (ratio < 1.07)), ratio
+    systematic = sum((t.signed_pct_by_temp for t in budget.terms if t.kind == "systematic"), np.zeros(rss.size))
+    assert np.all(np.abs(mc.mean_pct_by_temp - systematic) < 0.1 * rss)
+    assert mc.p99_abs_pct <= budget.worst_case_pct
+
+
+def test_monte_carlo_is_seeded(sipm_c, board_pt1000):
+    law = build_law(sipm_c, board_pt1000, 5.0)
+    a = gain_error_budget(law, board_pt1000, samples=300, seed=3).monte_carlo
+    b = gain_error_budget(law, board_pt1000, samples=300, seed=3).monte_carlo
+    c = gain_error_budget(law, board_pt1000, samples=300, seed=4).monte_carlo
+    assert a.seed == 3 and a.samples == 300
+    assert np.array_equal(a.std_pct_by_temp, b.std_pct_by_temp)
+    assert not np.array_equal(a.std_pct_by_temp, c.std_pct_by_temp)
+
+
+def test_constant_overvoltage_law_residual(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0, "constant_overvoltage")
+    budget = gain_error_budget(law, board_pt1000, samples=0)
+    term = budget.term("law_residual")
+    # G = C(T) Vov / q: 150 ppm/K * (-50 K) = -0.75 % at -25 C (common practice).
+    assert term.signed_pct_by_temp[_at(budget, -25.0)] == pytest.approx(-0.75, abs=2e-3)
+
+
+def test_bad_arguments(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    with pytest.raises(ModelError, match="calibration_temp_c"):
+        gain_error_budget(law, board_ntc, calibration_temp_c=80.0, samples=0)
+    with pytest.raises(ModelError, match="samples"):
+        gain_error_budget(law, board_ntc, samples=-1)
+    with pytest.raises(ModelError, match="current_uncertainty_pct"):
+        gain_error_budget(law, board_ntc, samples=0, current_uncertainty_pct=float("nan"))
