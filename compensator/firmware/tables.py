@@ -339,7 +339,8 @@ def _check_feasible(law, board, target: _Target, max_gain_error_pct: float) -> N
     try:
         check_law_in_range(law)
     except ModelError as exc:
-        raise TableError("supply output range", str(exc)) from None
+        names = [n for n in law.limiting(target.temp_c) if n]
+        raise TableError(f"output limit ({names[0] if names else 'supply'})", str(exc)) from None
     per_lsb = _gain_pct_per_lsb(law, target.temp_c)
     dac_pct = 0.5 * float(per_lsb.max())
     if dac_pct > max_gain_error_pct:

@@ -1,0 +1,189 @@
+"""Integer lookup tables: sizing against the bound, the firmware path, faults and the error bound."""
+
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from compensator.errors import ModelError
+from compensator.firmware import tables as T
+from compensator.firmware.tables import (
+    STATUS_ABOVE_RANGE,
+    STATUS_BELOW_RANGE,
+    STATUS_OK,
+    STATUS_SENSOR_FAULT,
+    TableError,
+    build_table,
+    sweep_table,
+)
+from compensator.law import build_law
+from compensator.law.laws import temp_at_continuous_code
+
+PAIRS = [("sipm_a", "board_ntc", 3.0), ("sipm_b", "board_pt1000", 4.0), ("sipm_c", "board_pt1000", 5.0)]
+
+
+@pytest.fixture(scope="module")
+def built(request):
+    cache = {}
+
+    def get(sipm_name, board_name, ov, layout, bound):
+        key = (sipm_name, board_name, ov, layout, bound)
+        if key not in cache:
+            sipm, board = request.getfixturevalue(sipm_name), request.getfixturevalue(board_name)
+            law = build_law(sipm, board, ov)
+            cache[key] = (law, board, build_table(law, board, bound, layout))
+        return cache[key]
+    return get
+
+
+@pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
+@pytest.mark.parametrize("layout", ["uniform", "optimised"])
+@pytest.mark.parametrize("bound", [0.05, 0.02])
+def test_every_code_within_the_bound(built, pair, layout, bound):
+    law, board, table = built(*pair, layout, bound)
+    sweep = sweep_table(table, law, board)
+    assert sweep.within_bound
+    assert np.all(np.abs(sweep.gain_error_pct) <= bound)
+    assert sweep.adc_code.size == table.code_hi - table.code_lo + 1
+    # The sweep's gain error is the supply-output difference over the target overvoltage.
+    expected = 100 * (board.supply.output_v(sweep.table_dac_code) - law.output_v(sweep.temp_c)) / law.overvoltage_v
+    if law.sipm.capacitance_tempco_ppm_per_k == 0:
+        assert np.allclose(sweep.gain_error_pct, expected, atol=1e-12)
+
+
+@pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
+def test_uniform_is_the_widest_spacing_that_meets_the_bound(built, pair):
+    law, board, table = built(*pair, "uniform", 0.05)
+    assert table.entries == ((table.code_hi - table.code_lo) >> table.shift) + 2
+    target = T._target(law, board, 0.05)
+    _, ok, _ = T._uniform_candidate(target, table.shift + 1)
+    assert not ok
+    assert table.table_bytes == 2 * table.entries
+
+
+@pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
+def test_optimised_layout(built, pair):
+    law, board, table = built(*pair, "optimised", 0.05)
+    assert table.x[0] == table.code_lo
+    assert np.all(np.diff(table.x) > 0)
+    assert table.table_bytes == table.entries * (2 + 2 + table.slope_type_bits // 8)
+    tighter = built(*pair, "optimised", 0.02)[2]
+    assert tighter.entries > table.entries
+    # The accumulator never overflows its C type.
+    lengths = np.diff(np.append(table.x, table.code_hi + 1))
+    assert int(np.max(np.abs(table.slope) * lengths)) + (1 << table.slope_frac_bits) < 2 ** (table.acc_type_bits - 1)
+
+
+def test_optimised_beats_uniform_where_curvature_varies(built):
+    # The NTC's code-to-temperature curve bends hard at the cold end: unequal spacing pays there.
+    uniform = built("sipm_a", "board_ntc", 3.0, "uniform", 0.05)[2]
+    optimised = built("sipm_a", "board_ntc", 3.0, "optimised", 0.05)[2]
+    assert optimised.entries * 3 <= uniform.entries
+    assert optimised.table_bytes < uniform.table_bytes
+
+
+@pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
+def test_breakpoints_respect_the_interpolation_error_bound(built, pair):
+    # Standard numerical-analysis result: linear interpolation of f between nodes h apart errs by at most
+    # h^2 max|f''| / 8. f is the law's exact DAC code against the ADC code; f'' from second differences.
+    law, board, table = built(*pair, "optimised", 0.05)
+    codes = np.arange(table.code_lo - 1, table.code_hi + 2)
+    f = (law.output_v(temp_at_continuous_code(board.temperature, codes + 0.5)) - board.supply.intercept_v) \
+        / board.supply.volts_per_code
+    f2 = np.abs(f[2:] - 2 * f[1:-1] + f[:-2])  # at codes code_lo .. code_hi
+    fc = f[1:-1]
+    nodes = np.append(table.x, table.code_hi) - table.code_lo
+    checked = 0
+    for a, b in zip(nodes[:-1], nodes[1:]):
+        if b - a < 2:
+            continue
+        h = b - a
+        d = np.arange(h + 1)
+        line = fc[a] + (fc[b] - fc[a]) * d / h
+        err = np.abs(fc[a:b + 1] - line).max()
+        bound = h * h * f2[a:b + 1].max() / 8
+        assert err <= bound * 1.02 + 1e-9, (a, b, err, bound)
+        checked += 1
+    assert checked >= 2
+
+
+def test_greedy_placement_equalises_error(built):
+    law, board, table = built("sipm_a", "board_ntc", 3.0, "optimised", 0.05)
+    sweep = sweep_table(table, law, board)
+    ends = np.append(table.x, table.code_hi + 1) - table.code_lo
+    per_segment = [np.abs(sweep.gain_error_pct[a:b]).max() for a, b in zip(ends[:-1], ends[1:])]
+    # Every segment but the last is pushed close to the bound.
+    assert min(per_segment[:-1]) > 0.8 * 0.05
+
+
+def test_lookup_statuses_and_safe_code(built, board_ntc):
+    law, board, table = built("sipm_a", "board_ntc", 3.0, "optimised", 0.05)
+    codes = np.arange(1 << 16)
+    dac, status = table.lookup(codes)
+    inside = (codes >= table.code_lo) & (codes <= table.code_hi)
+    assert np.all(status[inside] == STATUS_OK)
+    fault = (codes < table.fault_lo) | (codes > table.fault_hi)
+    assert np.all(status[fault] == STATUS_SENSOR_FAULT)
+    assert np.all(dac[fault] == board_ntc.safe_dac_code)
+    # Rails (open or shorted sensor) and codes beyond a 12-bit ADC are faults.
+    assert status[0] == STATUS_SENSOR_FAULT and status[4095] == STATUS_SENSOR_FAULT and status[4096] == STATUS_SENSOR_FAULT
+    below = (codes >= table.fault_lo) & (codes < table.code_lo)
+    above = (codes > table.code_hi) & (codes <= table.fault_hi)
+    assert below.any() and above.any()
+    assert np.all(status[below] == STATUS_BELOW_RANGE) and np.all(dac[below] == dac[table.code_lo])
+    assert np.all(status[above] == STATUS_ABOVE_RANGE) and np.all(dac[above] == dac[table.code_hi])
+    # The fault band sits the margin (20 K) outside the operating range.
+    t_band = temp_at_continuous_code(board.temperature, np.array([table.fault_lo, table.fault_hi]) + 0.5)
+    assert sorted(t_band) == pytest.approx([-45.0, 65.0], abs=0.1)  # NTC on the low side: code falls as T rises
+
+
+def test_output_clamp_follows_board_limit(sipm_b, board_pt1000):
+    board = replace(board_pt1000, max_bias_v=43.5)  # the law needs up to ~42.9 V
+    law = build_law(sipm_b, board, 4.0)
+    table = build_table(law, board, 0.05, "uniform")
+    assert board.supply.output_v(table.dac_max) <= 43.5 < board.supply.output_v(table.dac_max + 1)
+
+
+def test_dac_too_coarse_names_the_term(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    with pytest.raises(TableError) as exc:
+        build_table(law, board_pt1000, 0.005, "optimised")
+    assert exc.value.term == "DAC quantisation"
+    coarse = replace(board_pt1000, supply=replace(board_pt1000.supply, dac=replace(board_pt1000.supply.dac, bits=10)))
+    law = build_law(sipm_b, coarse, 4.0)
+    with pytest.raises(TableError, match="DAC quantisation"):
+        build_table(law, coarse, 0.05, "uniform")
+
+
+def test_adc_too_coarse_names_the_term(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    with pytest.raises(TableError) as exc:
+        build_table(law, board_ntc, 0.01, "optimised")
+    assert exc.value.term == "ADC quantisation"
+
+
+def test_clamped_law_names_the_supply(sipm_b, board_ntc):
+    law = build_law(sipm_b, board_ntc, 4.0)
+    with pytest.raises(TableError) as exc:
+        build_table(law, board_ntc, 0.05)
+    assert exc.value.term == "output limit (supply maximum output)"
+
+
+def test_bad_arguments(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    with pytest.raises(ModelError, match="layout"):
+        build_table(law, board_ntc, 0.05, "zigzag")
+    with pytest.raises(ModelError, match="max_gain_error_pct"):
+        build_table(law, board_ntc, 0.0)
+    with pytest.raises(ModelError, match="fault_margin_k"):
+        build_table(law, board_ntc, 0.05, fault_margin_k=-1.0)
+    # A very wide clamp band would hold too much overvoltage on a cold die.
+    hot = build_law(sipm_a, board_ntc, 6.5)
+    with pytest.raises(ModelError, match="fault_margin_k"):
+        build_table(hot, board_ntc, 0.05, fault_margin_k=40.0)
+
+
+def test_floor_shift_matches_floor_division():
+    p = np.arange(-70, 71)
+    for k in range(0, 6):
+        assert np.array_equal(T.floor_shift(p, k), np.floor_divide(p, 2 ** k))
