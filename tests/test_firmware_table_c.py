@@ -1,0 +1,185 @@
+"""Generated C: compiled with the real compiler, run over every input, bit-exact with the Python reference.
+
+Set COMPENSATOR_UPDATE_GOLDEN=1 to rewrite the golden files after an intended change.
+"""
+
+import os
+import shutil
+import subprocess
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from compensator.errors import ModelError
+from compensator.firmware.table_c import check_function_name, render_sweep_csv, render_table_c
+from compensator.firmware.tables import build_table, sweep_table
+from compensator.law import build_law
+from compensator.profiles import load_board, load_sipm
+
+GOLDEN = Path(__file__).parent / "golden" / "tables"
+CC = shutil.which("cc")
+needs_cc = pytest.mark.skipif(CC is None, reason="no C compiler (cc) on PATH")
+STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror"]
+PEDANTIC = STRICT + ["-pedantic", "-Wconversion", "-Wsign-conversion", "-Wshadow"]
+
+HARNESS = r"""
+#include <stdio.h>
+#include "{name}.h"
+int main(void)
+{{
+    unsigned long n;
+    for (n = 0; n < {count}ul; n++) {{
+        uint32_t v = (uint32_t){name}(({code_t})n);
+        uint8_t s = {name}_status(({code_t})n);
+        fwrite(&v, sizeof v, 1, stdout);
+        fwrite(&s, 1, 1, stdout);
+    }}
+    return 0;
+}}
+"""
+
+
+def run_c(tmp_path, table, files, name="bias_dac_from_adc", flags=STRICT):
+    """Compile the generated files with a harness; return (dac, status) for every code of the argument type."""
+    for fname, text in files.items():
+        (tmp_path / fname).write_text(text)
+    count = 1 << table.code_type_bits
+    (tmp_path / "harness.c").write_text(HARNESS.format(name=name, count=count, code_t=f"uint{table.code_type_bits}_t"))
+    exe = tmp_path / "harness"
+    proc = subprocess.run([CC, *flags, "-O2", "-o", str(exe), str(tmp_path / "harness.c"), str(tmp_path / f"{name}.c")],
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    out = subprocess.run([str(exe)], capture_output=True, check=True).stdout
+    rec = np.frombuffer(out, dtype=np.dtype([("v", "<u4"), ("s", "u1")]))
+    assert rec.size == count
+    return rec["v"].astype(np.int64), rec["s"].astype(np.int64)
+
+
+def reversed_board(board):
+    """The same board with the sensor on the high side: codes run the other way, slopes turn negative."""
+    channel = board.temperature
+    return replace(board, temperature=replace(channel, front_end=replace(channel.front_end, sensor_position="high")))
+
+
+CASES = [
+    ("sipm_a", "board_ntc", 3.0, "uniform", 0.05, False),
+    ("sipm_a", "board_ntc", 3.0, "optimised", 0.02, False),
+    ("sipm_b", "board_pt1000", 4.0, "uniform", 0.02, False),
+    ("sipm_c", "board_pt1000", 5.0, "optimised", 0.05, False),
+    ("sipm_a", "board_ntc", 3.0, "uniform", 0.05, True),
+    ("sipm_b", "board_pt1000", 4.0, "optimised", 0.05, True),
+]
+
+
+@needs_cc
+@pytest.mark.parametrize("case", CASES, ids=lambda c: f"{c[0]}-{c[3]}-{c[4]}{'-reversed' if c[5] else ''}")
+def test_c_is_bit_exact_with_the_reference(case, request, tmp_path):
+    sipm_name, board_name, ov, layout, bound, flip = case
+    sipm, board = request.getfixturevalue(sipm_name), request.getfixturevalue(board_name)
+    if flip:
+        board = reversed_board(board)
+    law = build_law(sipm, board, ov)
+    table = build_table(law, board, bound, layout)
+    if flip and layout == "optimised":
+        assert np.all(table.slope < 0)  # the negative branch of the floor shift is exercised
+    files = render_table_c(table, [sipm, board], settings={"case": case})
+    dac, status = run_c(tmp_path, table, files, flags=PEDANTIC if layout == "optimised" else STRICT)
+    ref_dac, ref_status = table.lookup(np.arange(1 << table.code_type_bits))
+    assert np.array_equal(dac, ref_dac)
+    assert np.array_equal(status, ref_status)
+    # And the C output meets the bound at every code of the range.
+    sweep = sweep_table(table, law, board)
+    assert np.array_equal(dac[table.code_lo:table.code_hi + 1], sweep.table_dac_code)
+    assert sweep.within_bound
+
+
+@needs_cc
+def test_wide_accumulator_path(sipm_b, board_pt1000, tmp_path):
+    # A uniform table whose products need 64 bits: nodes far apart with big steps (synthetic values).
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    table = build_table(law, board_pt1000, 0.05, "uniform")
+    y = np.linspace(0, 65535, table.entries).round().astype(np.int64)[::-1].copy()
+    wide = replace(table, shift=12, y=np.resize(y, ((table.code_hi - table.code_lo) >> 12) + 2), acc_type_bits=64,
+                   below_dac_code=0, above_dac_code=0)
+    wide = replace(wide, below_dac_code=int(wide.interpolate([wide.code_lo])[0]),
+                   above_dac_code=int(wide.interpolate([wide.code_hi])[0]))
+    files = render_table_c(wide, [sipm_b, board_pt1000])
+    assert "typedef int64_t" in files["bias_dac_from_adc.c"]
+    dac, status = run_c(tmp_path, wide, files)
+    ref_dac, ref_status = wide.lookup(np.arange(1 << 16))
+    assert np.array_equal(dac, ref_dac) and np.array_equal(status, ref_status)
+
+
+@needs_cc
+def test_static_asserts_catch_a_tampered_table(sipm_a, board_ntc, tmp_path):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    table = build_table(law, board_ntc, 0.05, "optimised")
+    files = render_table_c(table, [sipm_a, board_ntc])
+    header = files["bias_dac_from_adc.h"]
+    files["bias_dac_from_adc.h"] = header.replace(f"ENTRIES             {table.entries}u",
+                                                  f"ENTRIES             {table.entries + 1}u")
+    assert files["bias_dac_from_adc.h"] != header
+    (tmp_path / "bias_dac_from_adc.h").write_text(files["bias_dac_from_adc.h"])
+    (tmp_path / "bias_dac_from_adc.c").write_text(files["bias_dac_from_adc.c"])
+    proc = subprocess.run([CC, *STRICT, "-c", "-o", str(tmp_path / "t.o"), str(tmp_path / "bias_dac_from_adc.c")],
+                          capture_output=True, text=True)
+    assert proc.returncode != 0 and "count" in proc.stderr
+
+
+def golden_inputs():
+    inputs = GOLDEN / "inputs"
+    return load_sipm(inputs / "hut-sipm-a.yaml"), load_board(inputs / "hut-board-ntc.yaml")
+
+
+@pytest.mark.parametrize("layout", ["uniform", "optimised"])
+def test_golden_files(layout):
+    sipm, board = golden_inputs()
+    law = build_law(sipm, board, 3.0)
+    table = build_table(law, board, 0.05, layout)
+    settings = {"layout": layout, "max_gain_error_pct": "0.05", "overvoltage_v": "3"}
+    files = render_table_c(table, [sipm, board], settings=settings)
+    again = render_table_c(build_table(law, board, 0.05, layout), [sipm, board], settings=settings)
+    assert files == again
+    sweep = sweep_table(table, law, board)
+    assert render_sweep_csv(sweep) == render_sweep_csv(sweep_table(table, law, board))
+    directory = GOLDEN / layout
+    if os.environ.get("COMPENSATOR_UPDATE_GOLDEN"):
+        directory.mkdir(parents=True, exist_ok=True)
+        for fname, text in files.items():
+            (directory / fname).write_bytes(text.encode())
+    for fname, text in files.items():
+        assert (directory / fname).read_bytes() == text.encode(), f"{fname} differs from the golden file"
+
+
+def test_banner_and_contents(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    table = build_table(law, board_ntc, 0.05, "optimised")
+    files = render_table_c(table, [sipm_a, board_ntc], name="hut_bias", settings={"layout": "optimised"})
+    assert set(files) == {"hut_bias.h", "hut_bias.c"}
+    for text in files.values():
+        assert "generated by compensator" in text
+        assert f"sha256 {sipm_a.sha256[:16]}" in text and f"sha256 {board_ntc.sha256[:16]}" in text
+        assert "hut-sipm-a" in text and "hut-board-ntc" in text
+        assert "_Static_assert" in files["hut_bias.c"]
+    assert "uint16_t hut_bias(uint16_t adc_code);" in files["hut_bias.h"]
+    assert "IEC 61010-1" in files["hut_bias.h"]
+    assert "/" not in files["hut_bias.c"].split("floor_shift")[-1].replace("/*", "").replace("*/", "")  # no division
+
+
+@pytest.mark.parametrize("bad", ["", "1abc", "int", "a-b", "x" * 41, "__reserved"])
+def test_function_name_must_be_a_c_identifier(bad):
+    with pytest.raises(ModelError, match="C identifier"):
+        check_function_name(bad)
+
+
+def test_sweep_csv_columns(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    table = build_table(law, board_pt1000, 0.05, "optimised")
+    text = render_sweep_csv(sweep_table(table, law, board_pt1000))
+    lines = text.splitlines()
+    assert lines[0] == "adc_code,temp_c,ideal_bias_v,table_dac_code,table_bias_v,gain_error_pct"
+    assert len(lines) == table.code_hi - table.code_lo + 2
+    first = lines[1].split(",")
+    assert int(first[0]) == table.code_lo and len(first) == 6
