@@ -205,12 +205,14 @@ def _weighted_poly(x, y, weights, mask, degree):
 
 
 def _uniform(bias_v, ln_i):
-    """Return a uniform grid and ln I interpolated onto it when the steps vary by more than 1 %."""
+    """Return a uniform grid and ln I (rows) on it, interpolating when the steps vary by more than 1 %."""
     steps = np.diff(bias_v)
     if np.ptp(steps) <= 0.01 * abs(steps.mean()):
         return bias_v, ln_i
     grid = np.linspace(bias_v[0], bias_v[-1], bias_v.size)
-    return grid, np.interp(grid, bias_v, ln_i)
+    if ln_i.ndim == 1:
+        return grid, np.interp(grid, bias_v, ln_i)
+    return grid, np.array([np.interp(grid, bias_v, row) for row in ln_i])
 
 
 def check_curve(bias_v, current_a) -> str:
@@ -307,8 +309,6 @@ def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdo
             for i in np.flatnonzero(bad):
                 reasons[i] = check_curve(b, c[i])
             g, logs_u = _uniform(b, logs)
-            if g is not b:
-                logs_u = np.array([np.interp(g, b, row) for row in logs])
             grid[:] = g
             ln_i[:] = logs_u
     else:
