@@ -1,0 +1,418 @@
+"""PID tuning: published rules on a low-order model, and a robust optimiser on the real loop.
+
+All gains are in parallel form, ``u = kp e + ki integral(e) + kd de/dt``, and
+carry the sign of the plant gain (a cooler, whose temperature falls as the
+current rises, gets negative gains).
+
+Rules (FOPDT ``K, tau, theta``; SOPDT ``K, tau1, tau2, theta``):
+
+* ``simc`` -- Skogestad, J. Process Control 13, 291, 2003:
+  ``Kc = tau1 / (K (tau_c + theta))``, ``Ti = min(tau1, 4 (tau_c + theta))``,
+  PID (SOPDT only) adds ``Td = tau2`` in series form; ``tau_c = theta`` by
+  default. A SOPDT used for PI is reduced by the half rule.
+* ``amigo`` -- Astrom and Hagglund, J. Process Control 14, 635, 2004:
+  PI ``K = 0.15/Kp + (0.35 - L T / (L + T)^2) T / (Kp L)``,
+  ``Ti = 0.35 L + 13 L T^2 / (T^2 + 12 L T + 7 L^2)``;
+  PID ``K = (0.2 + 0.45 T / L) / Kp``, ``Ti = L (0.4 L + 0.8 T) / (L + 0.1 T)``,
+  ``Td = 0.5 L T / (0.3 L + T)`` (PID formulas from memory).
+* ``imc`` -- Rivera, Morari and Skogestad, Ind. Eng. Chem. Process Des. Dev.
+  25, 252, 1986 (from memory): PI ``Kc = (2 tau + theta) / (2 K lambda)``,
+  ``Ti = tau + theta / 2``; PID ``Kc = (2 tau + theta) / (K (2 lambda + theta))``,
+  ``Ti = tau + theta / 2``, ``Td = tau theta / (2 tau + theta)``; default
+  ``lambda = 1.7 theta`` (PI) or ``0.8 theta`` (PID), at least ``0.1 tau``.
+* ``zn`` -- Ziegler and Nichols, Trans. ASME 64, 759, 1942, step-response
+  rule with ``a = K theta / tau``: PI ``0.9 / a, Ti = 3 theta``; PID
+  ``1.2 / a, Ti = 2 theta, Td = theta / 2`` (table as in Astrom and
+  Hagglund's PID books, from memory).
+* ``zn-cycle`` -- Ziegler and Nichols 1942, ultimate-cycle rule from the
+  model's exact ultimate gain and period: PI ``0.45 Ku, Ti = Pu / 1.2``;
+  PID ``0.6 Ku, Ti = Pu / 2, Td = Pu / 8``.
+* ``robust`` -- maximise the integral gain subject to ``Ms <= Ms_max``
+  (default 1.4), Ms evaluated on the discretised loop (the MIGO idea of
+  Astrom, Panagopoulos and Hagglund, Automatica 34, 585, 1998, from memory).
+
+Sampling: the rules are continuous-time; a loop sampled every ``T`` with a
+zero-order hold and one sample of computation delay behaves like one with
+``T / 2 + T`` more dead time (common practice; Skogestad 2003 adds ``T / 2``
+for the hold). The rules use that *effective* dead time unless told not to.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from compensator.errors import ModelError
+from compensator.loops.plants import FopdtModel, Plant, SopdtModel, discrete_frequency_response
+from compensator.loops.verify import (
+    PidGains,
+    controller_frequency_response,
+    _closed_loop,
+    frequency_grid,
+    max_sensitivity,
+    ultimate_point,
+)
+
+METHODS = ("simc", "amigo", "imc", "zn", "zn-cycle", "robust")
+DEFAULT_MS = 1.4
+
+
+@dataclass(frozen=True)
+class TuningResult:
+    """Gains and how they were obtained.
+
+    Attributes
+    ----------
+    gains : PidGains
+    method : str
+    pid : bool
+    model : FopdtModel or SopdtModel or None
+        The low-order model the rule used (continuous, before sampling delay).
+    rule_dead_time_s : float
+        Dead time the rule saw (the model's plus the sampling delay), second.
+    closed_loop_time_constant_s : float or None
+        tau_c (SIMC) or lambda (IMC), second.
+    ultimate_gain, ultimate_period_s : float or None
+        Ku and Pu (``zn-cycle``).
+    ms_target : float or None
+        Ms bound (``robust``).
+    """
+
+    gains: PidGains
+    method: str
+    pid: bool
+    model: object = None
+    rule_dead_time_s: float = 0.0
+    closed_loop_time_constant_s: float | None = None
+    ultimate_gain: float | None = None
+    ultimate_period_s: float | None = None
+    ms_target: float | None = None
+
+
+def sampling_dead_time_s(sample_time_s: float, computation_delay_samples: int = 1) -> float:
+    """Dead time a ZOH plus computation delay add: ``T / 2 + n T`` (common practice), second."""
+    return sample_time_s * (0.5 + computation_delay_samples)
+
+
+def _as_fopdt(model) -> FopdtModel:
+    return model.half_rule_fopdt() if isinstance(model, SopdtModel) else model
+
+
+def _with_dead_time(model, extra_s):
+    return replace(model, dead_time_s=model.dead_time_s + extra_s)
+
+
+def _check_model(model):
+    if model.gain == 0 or not np.isfinite(model.gain):
+        raise ModelError("the model gain must be finite and nonzero")
+    if not model.time_constant_s > 0:
+        raise ModelError("the model time constant must be positive")
+
+
+def simc(model, pid: bool = False, tau_c_s: float | None = None) -> tuple[PidGains, float]:
+    """SIMC gains (Skogestad, J. Process Control 13, 291, 2003).
+
+    Parameters
+    ----------
+    model : FopdtModel or SopdtModel
+        Dead time already including any sampling delay.
+    pid : bool
+        PID needs a SOPDT (``Td = tau2``, series form converted to parallel).
+    tau_c_s : float, optional
+        Desired closed-loop time constant (default: the dead time), second.
+
+    Returns
+    -------
+    gains : PidGains
+    tau_c_s : float
+    """
+    _check_model(model)
+    if pid:
+        if not isinstance(model, SopdtModel) or model.time_constant2_s <= 0:
+            raise ModelError("SIMC PID needs a second-order model (tau2 > 0): give --sopdt, or tune a PI")
+        k, t1, t2, theta = model.gain, model.time_constant_s, model.time_constant2_s, model.dead_time_s
+    else:
+        f = _as_fopdt(model)
+        k, t1, t2, theta = f.gain, f.time_constant_s, 0.0, f.dead_time_s
+    tc = theta if tau_c_s is None else float(tau_c_s)
+    if tc + theta <= 0:
+        raise ModelError("SIMC needs tau_c + theta > 0: the model has no dead time, give --tau-c")
+    kc = t1 / (k * (tc + theta))
+    ti = min(t1, 4.0 * (tc + theta))
+    if t2 > 0:  # series -> parallel
+        return PidGains(kc * (1.0 + t2 / ti), kc / ti, kc * t2), tc
+    return PidGains(kc, kc / ti), tc
+
+
+def amigo(model, pid: bool = False) -> PidGains:
+    """AMIGO gains (Astrom and Hagglund, J. Process Control 14, 635, 2004).
+
+    Parameters
+    ----------
+    model : FopdtModel or SopdtModel
+        A SOPDT is reduced by the half rule.
+    pid : bool
+
+    Returns
+    -------
+    PidGains
+    """
+    _check_model(model)
+    f = _as_fopdt(model)
+    kp_, T, L = f.gain, f.time_constant_s, f.dead_time_s
+    if L <= 0:
+        raise ModelError("AMIGO needs a positive dead time")
+    if pid:
+        k = (0.2 + 0.45 * T / L) / kp_
+        ti = L * (0.4 * L + 0.8 * T) / (L + 0.1 * T)
+        td = 0.5 * L * T / (0.3 * L + T)
+        return PidGains(k, k / ti, k * td)
+    k = 0.15 / kp_ + (0.35 - L * T / (L + T) ** 2) * T / (kp_ * L)
+    ti = 0.35 * L + 13.0 * L * T ** 2 / (T ** 2 + 12.0 * L * T + 7.0 * L ** 2)
+    return PidGains(k, k / ti)
+
+
+def imc(model, pid: bool = False, lambda_s: float | None = None) -> tuple[PidGains, float]:
+    """IMC gains for a FOPDT (Rivera, Morari and Skogestad 1986, from memory).
+
+    Parameters
+    ----------
+    model : FopdtModel or SopdtModel
+        A SOPDT is reduced by the half rule.
+    pid : bool
+    lambda_s : float, optional
+        Closed-loop time constant lambda, second.
+
+    Returns
+    -------
+    gains : PidGains
+    lambda_s : float
+    """
+    _check_model(model)
+    f = _as_fopdt(model)
+    k, tau, theta = f.gain, f.time_constant_s, f.dead_time_s
+    lam = lambda_s if lambda_s is not None else max((0.8 if pid else 1.7) * theta, 0.1 * tau)
+    if lam <= 0:
+        raise ModelError("IMC lambda must be positive")
+    ti = tau + theta / 2.0
+    if pid:
+        kc = (2.0 * tau + theta) / (k * (2.0 * lam + theta))
+        td = tau * theta / (2.0 * tau + theta)
+        return PidGains(kc, kc / ti, kc * td), lam
+    kc = (2.0 * tau + theta) / (2.0 * k * lam)
+    return PidGains(kc, kc / ti), lam
+
+
+def ziegler_nichols_step(model, pid: bool = False) -> PidGains:
+    """Ziegler-Nichols step-response rule (Trans. ASME 64, 759, 1942) with ``a = K theta / tau``."""
+    _check_model(model)
+    f = _as_fopdt(model)
+    if f.dead_time_s <= 0:
+        raise ModelError("the Ziegler-Nichols step rule needs a positive dead time")
+    a = f.gain * f.dead_time_s / f.time_constant_s
+    L = f.dead_time_s
+    if pid:
+        k = 1.2 / a
+        return PidGains(k, k / (2.0 * L), k * L / 2.0)
+    k = 0.9 / a
+    return PidGains(k, k / (3.0 * L))
+
+
+def ziegler_nichols_ultimate(ultimate_gain: float, ultimate_period_s: float, pid: bool = False) -> PidGains:
+    """Ziegler-Nichols ultimate-cycle rule (1942): PI 0.45 Ku, Pu/1.2; PID 0.6 Ku, Pu/2, Pu/8."""
+    if ultimate_gain == 0 or not ultimate_period_s > 0:
+        raise ModelError("the ultimate gain must be nonzero and the ultimate period positive")
+    if pid:
+        k = 0.6 * ultimate_gain
+        return PidGains(k, k / (ultimate_period_s / 2.0), k * ultimate_period_s / 8.0)
+    k = 0.45 * ultimate_gain
+    return PidGains(k, k / (ultimate_period_s / 1.2))
+
+
+# ---------------------------------------------------------------- robust optimiser
+def _feasible_batch(p_resp, w, T, kp, ki, kd, n, ms_max):
+    """Whether each controller (arrays kp, ki, kd of one shape) keeps Ms <= ms_max on grid ``w``.
+
+    The Ms bound alone admits some unstable loops (a Nyquist curve can pass
+    far outside -1 on the wrong side), so a controller is also rejected when
+    its loop crosses the negative real axis left of -1.
+    """
+    gains = PidGains(kp, ki, kd, n)
+    loop = controller_frequency_response(gains, T, w) * p_resp
+    ms_ok = np.min(np.abs(1.0 + loop), axis=-1) >= 1.0 / ms_max
+    im, re = loop.imag, loop.real
+    cross = (im[..., :-1] * im[..., 1:] <= 0) & (im[..., :-1] != im[..., 1:])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        frac = np.where(cross, im[..., :-1] / (im[..., :-1] - im[..., 1:]), 0.0)
+    re_cross = re[..., :-1] + frac * (re[..., 1:] - re[..., :-1])
+    outside = np.any(cross & (re_cross < -1.0), axis=-1)
+    return ms_ok & ~outside
+
+
+def _max_ki(p_resp, w, T, kp, kd, n, sign, ms_max, ki_hi):
+    """Largest |ki| (bisection in log space, vectorised) with Ms <= ms_max for each (kp, kd); 0 if none."""
+    kp = np.asarray(kp, float)
+    kd = np.asarray(kd, float)
+    lo = np.full(kp.shape, math.log(ki_hi) - 30.0)
+    hi = np.full(kp.shape, math.log(ki_hi))
+    ok_lo = _feasible_batch(p_resp, w, T, kp, sign * np.exp(lo), kd, n, ms_max)
+    for _ in range(26):
+        mid = 0.5 * (lo + hi)
+        ok = _feasible_batch(p_resp, w, T, kp, sign * np.exp(mid), kd, n, ms_max)
+        lo = np.where(ok, mid, lo)
+        hi = np.where(ok, hi, mid)
+    return np.where(ok_lo, np.exp(lo), 0.0)
+
+
+def _stable(plant, gains, T, delay):
+    a_cl = _closed_loop(plant, gains, T, delay)[0]
+    return float(np.max(np.abs(np.linalg.eigvals(a_cl)))) < 1.0
+
+
+def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: bool = False,
+           computation_delay_samples: int = 1, derivative_filter_n: float = 10.0,
+           reference: PidGains | None = None) -> PidGains:
+    """Gains that maximise the integral gain subject to ``Ms <= ms_max`` on the discretised loop.
+
+    For every proportional (and derivative) gain on a grid the largest
+    integral gain meeting the bound is found by bisection; the best point is
+    refined on a finer grid, checked for closed-loop stability, and its Ms
+    confirmed on a dense grid.
+
+    Parameters
+    ----------
+    plant : Plant
+    sample_time_s : float
+        Firmware period, second.
+    ms_max : float
+        Bound on the maximum sensitivity (> 1).
+    pid : bool
+        Optimise a derivative gain too.
+    computation_delay_samples : int
+    derivative_filter_n : float
+    reference : PidGains, optional
+        A rule's gains that set the search scale (default: SIMC on a fitted FOPDT).
+
+    Returns
+    -------
+    PidGains
+    """
+    if not ms_max > 1.0:
+        raise ModelError(f"the Ms bound must exceed 1, got {ms_max}")
+    T = float(sample_time_s)
+    sign = 1.0 if plant.dc_gain >= 0 else -1.0
+    w = frequency_grid(T, 700, 6.0)
+    p_resp = discrete_frequency_response(plant, T, w, computation_delay_samples)
+    # Proportional-only limit: the largest |kp| with Ms <= ms_max (and below the ultimate gain).
+    ku, _ = ultimate_point(plant, T, computation_delay_samples)
+    kp_grid_max = abs(ku)
+    if reference is None:
+        from compensator.loops.identify import approximate_plant
+
+        ref_model = _with_dead_time(approximate_plant(plant), sampling_dead_time_s(T, computation_delay_samples))
+        reference = simc(ref_model)[0]
+        ref_kd = abs(amigo(ref_model, pid=True).kd_s) if pid else 0.0
+    else:
+        ref_kd = abs(reference.kd_s)
+    ki_hi = 1e3 * max(abs(reference.ki_per_s), abs(kp_grid_max) / T)
+    if pid:
+        kd_max = 4.0 * max(ref_kd, abs(reference.kp) * T)
+        kp_axis = np.linspace(0.0, 1.5 * kp_grid_max, 26)[1:]
+        kd_axis = np.linspace(0.0, kd_max, 17)
+        KP, KD = np.meshgrid(kp_axis, kd_axis, indexing="ij")
+    else:
+        KP = np.linspace(0.0, kp_grid_max, 121)[1:]
+        KD = np.zeros_like(KP)
+    KP, KD = sign * KP, sign * KD
+    ki = _max_ki(p_resp, w, T, KP, KD, derivative_filter_n, sign, ms_max, ki_hi)
+    # Refine around the best few points on a finer grid, then take the best that is closed-loop stable.
+    order = np.argsort(ki, axis=None)[::-1]
+    for flat in order[:6]:
+        if ki.flat[flat] <= 0:
+            break
+        kp0, kd0 = KP.flat[flat], KD.flat[flat]
+        dkp = (1.5 * kp_grid_max / 25.0 if pid else kp_grid_max / 120.0)
+        kps = sign * np.linspace(max(abs(kp0) - dkp, 1e-12 * kp_grid_max), abs(kp0) + dkp, 15 if pid else 21)
+        if pid:
+            dkd = kd_max / 16.0
+            kds = sign * np.linspace(max(abs(kd0) - dkd, 0.0), abs(kd0) + dkd, 9)
+            kpf, kdf = np.meshgrid(kps, kds, indexing="ij")
+        else:
+            kpf, kdf = kps, np.zeros_like(kps)
+        kif = _max_ki(p_resp, w, T, kpf, kdf, derivative_filter_n, sign, ms_max, ki_hi)
+        j = int(np.argmax(kif))
+        cand = PidGains(float(kpf.flat[j]), float(sign * kif.flat[j]), float(kdf.flat[j]), derivative_filter_n)
+        if kif.flat[j] <= 0 or not _stable(plant, cand, T, computation_delay_samples):
+            continue
+        # Confirm on the dense grid; shrink ki until the bound holds there too.
+        dense = frequency_grid(T, 20000, 7.0)
+        for _ in range(60):
+            ms, _ = max_sensitivity(plant, cand, T, computation_delay_samples, dense)
+            if ms <= ms_max * (1 + 1e-6):
+                return cand
+            cand = replace(cand, ki_per_s=cand.ki_per_s * 0.995)
+        continue
+    raise ModelError(f"no PI{'D' if pid else ''} gains reach Ms <= {ms_max:g} on this loop (the sampling and "
+                     "dead time may leave too little phase; raise --ms or the rate)")
+
+
+# ---------------------------------------------------------------- one entry point
+def tune(plant: Plant, method: str, sample_time_s: float, pid: bool = False, ms_max: float = DEFAULT_MS,
+         tau_c_s: float | None = None, model=None, include_sampling_delay: bool = True,
+         computation_delay_samples: int = 1) -> TuningResult:
+    """Tune a PI or PID controller for ``plant`` with one method.
+
+    Parameters
+    ----------
+    plant : Plant
+        The full plant (used by ``zn-cycle`` and ``robust``, and to fit a
+        low-order model when ``model`` is not given).
+    method : {"simc", "amigo", "imc", "zn", "zn-cycle", "robust"}
+    sample_time_s : float
+        Firmware period, second.
+    pid : bool
+        PID instead of PI.
+    ms_max : float
+        Ms bound for ``robust``.
+    tau_c_s : float, optional
+        tau_c for SIMC, lambda for IMC, second.
+    model : FopdtModel or SopdtModel, optional
+        Low-order model for the rules (default: fitted to ``plant``'s step response).
+    include_sampling_delay : bool
+        Add the hold and computation delay to the rules' dead time.
+    computation_delay_samples : int
+
+    Returns
+    -------
+    TuningResult
+    """
+    if method not in METHODS:
+        raise ModelError(f"method must be one of {', '.join(METHODS)}, got {method!r}")
+    T = float(sample_time_s)
+    if not T > 0:
+        raise ModelError("the sample time must be positive")
+    extra = sampling_dead_time_s(T, computation_delay_samples) if include_sampling_delay else 0.0
+    if method == "robust":
+        return TuningResult(robust(plant, T, ms_max, pid, computation_delay_samples), method, pid, model, extra,
+                            ms_target=ms_max)
+    if method == "zn-cycle":
+        ku, pu = ultimate_point(plant, T if include_sampling_delay else None, computation_delay_samples)
+        return TuningResult(ziegler_nichols_ultimate(ku, pu, pid), method, pid, model, extra,
+                            ultimate_gain=ku, ultimate_period_s=pu)
+    if model is None:
+        from compensator.loops.identify import approximate_plant
+
+        model = approximate_plant(plant, "sopdt" if (pid and method == "simc") else "fopdt")
+    rule_model = _with_dead_time(model, extra)
+    tc = None
+    if method == "simc":
+        gains, tc = simc(rule_model, pid, tau_c_s)
+    elif method == "amigo":
+        gains = amigo(rule_model, pid)
+    elif method == "imc":
+        gains, tc = imc(rule_model, pid, tau_c_s)
+    else:
+        gains = ziegler_nichols_step(rule_model, pid)
+    return TuningResult(gains, method, pid, model, rule_model.dead_time_s, tc)

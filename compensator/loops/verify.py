@@ -1,0 +1,465 @@
+"""Loop verification with python-control, on the loop as the firmware runs it.
+
+The plant is discretised at the firmware rate with a zero-order hold, its dead
+time exact, plus one sample of computation delay
+(:func:`compensator.loops.plants.discretise`). The controller is the discrete
+PID in parallel form with the integral by backward rectangles and the
+derivative on the measurement through a first-order filter (time constant
+``Td / N``), backward differences::
+
+    C(z)  = kp + ki T / (1 - z^-1) + kd (1 - z^-1) / (T + Tf (1 - z^-1))
+    Cr(z) = b kp + ki T / (1 - z^-1)       (setpoint path: weight b, no derivative)
+
+Margins come from python-control ``stability_margins`` on ``L = C P``; Ms
+is ``1 / min |1 + L|`` on a dense frequency grid up to the Nyquist
+frequency; the closed-loop step (setpoint to output, and to the actuator)
+from ``forced_response`` and ``step_info``.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings as warnings_module
+from dataclasses import dataclass, field
+
+import control
+import numpy as np
+
+from compensator.errors import ModelError
+from compensator.loops.plants import (
+    CoolerOperatingPoint,
+    Plant,
+    discrete_frequency_response,
+    discrete_response_function,
+    discretise,
+)
+
+# Common practice: Ms 1.4 is robust, 2.0 aggressive; GM >= 2 and PM >= 30 degrees are the usual minimums.
+POOR_GAIN_MARGIN = 2.0
+POOR_PHASE_MARGIN_DEG = 30.0
+POOR_MS = 2.0
+
+
+@dataclass(frozen=True)
+class PidGains:
+    """PID gains in parallel form: ``u = kp e + ki integral(e) + kd de/dt``.
+
+    Attributes
+    ----------
+    kp : float
+        Proportional gain, actuator units per output unit.
+    ki_per_s : float
+        Integral gain, actuator units per output unit per second.
+    kd_s : float
+        Derivative gain, actuator units per output unit times second.
+    derivative_filter_n : float
+        N: the derivative filter time constant is ``kd / (kp N)``.
+    setpoint_weight : float
+        b: the proportional term acts on ``b r - y``.
+    """
+
+    kp: float
+    ki_per_s: float
+    kd_s: float = 0.0
+    derivative_filter_n: float = 10.0
+    setpoint_weight: float = 1.0
+
+    @property
+    def derivative_filter_s(self) -> float:
+        """Derivative filter time constant Tf = Td / N, second (0 without derivative)."""
+        if self.kd_s == 0:
+            return 0.0
+        if self.kp == 0:
+            raise ModelError("a derivative term needs a nonzero kp for its filter (Tf = kd / (kp N))")
+        return abs(self.kd_s / self.kp) / self.derivative_filter_n
+
+
+@dataclass(frozen=True)
+class Margins:
+    """Robustness of the discretised loop.
+
+    Attributes
+    ----------
+    gain_margin : float
+        Factor by which the loop gain may grow (inf when unlimited).
+    phase_margin_deg : float
+        Degree.
+    ms : float
+        Maximum sensitivity ``1 / min |1 + L|``.
+    crossover_rad_s : float
+        Gain crossover, rad/s.
+    phase_crossover_rad_s : float
+        Frequency of the gain margin, rad/s (nan when none).
+    ms_frequency_rad_s : float
+        Where ``|S|`` peaks, rad/s.
+    delay_margin_s : float
+        Extra dead time the loop tolerates, second (phase margin / crossover).
+    """
+
+    gain_margin: float
+    phase_margin_deg: float
+    ms: float
+    crossover_rad_s: float
+    phase_crossover_rad_s: float
+    ms_frequency_rad_s: float
+    delay_margin_s: float
+
+
+@dataclass(frozen=True)
+class StepData:
+    """Closed-loop response to a unit setpoint step.
+
+    Attributes
+    ----------
+    rise_time_s, settling_time_s, peak_time_s : float
+        10-90 % rise, 2 % settling, time of the peak, second.
+    overshoot_pct : float
+        Percent of the final value.
+    peak_actuator : float
+        Largest actuator excursion per unit setpoint step.
+    load_iae : float
+        Integrated absolute error after a unit step load at the plant input
+        (output units times second).
+    """
+
+    rise_time_s: float
+    settling_time_s: float
+    overshoot_pct: float
+    peak_time_s: float
+    peak_actuator: float
+    load_iae: float
+
+
+@dataclass(frozen=True)
+class LoopReport:
+    """Everything :func:`verify_loop` found.
+
+    Attributes
+    ----------
+    margins : Margins
+    step : StepData
+    stable : bool
+        All closed-loop poles inside the unit circle.
+    spectral_radius : float
+        Largest closed-loop pole magnitude.
+    sample_time_s : float
+    warnings : tuple of str
+    time_s, output, actuator : ndarray
+        The setpoint step response (for plots).
+    """
+
+    margins: Margins
+    step: StepData
+    stable: bool
+    spectral_radius: float
+    sample_time_s: float
+    warnings: tuple = field(default_factory=tuple)
+    time_s: np.ndarray = field(default=None, repr=False, compare=False)
+    output: np.ndarray = field(default=None, repr=False, compare=False)
+    actuator: np.ndarray = field(default=None, repr=False, compare=False)
+
+
+# ---------------------------------------------------------------- controller
+def _controller_parts(gains: PidGains, T: float):
+    """Numerator and denominator of C(z) and Cr(z) in powers of z^-1 (lowest first)."""
+    kp, ki, kd = gains.kp, gains.ki_per_s, gains.kd_s
+    tf_ = gains.derivative_filter_s
+    # C = kp + ki T/(1 - q) + kd (1 - q)/((T + Tf) - Tf q), q = z^-1; common denominator (1 - q)((T+Tf) - Tf q).
+    one_minus_q = np.array([1.0, -1.0])
+    b = gains.setpoint_weight
+    if kd != 0:
+        dden = np.array([T + tf_, -tf_])
+        den = np.convolve(one_minus_q, dden)
+        num = kp * den + np.pad(ki * T * dden, (0, 1)) + kd * np.convolve(one_minus_q, one_minus_q)
+        rnum = b * kp * den + np.pad(ki * T * dden, (0, 1))
+    else:
+        den = one_minus_q
+        num = kp * den + np.array([ki * T, 0.0])
+        rnum = b * kp * den + np.array([ki * T, 0.0])
+    return num, den, rnum
+
+
+def _q_to_tf(num_q, den_q, T):
+    """Polynomials in z^-1 (lowest power first) -> python-control transfer function in z."""
+    n = max(len(num_q), len(den_q))
+    num = np.pad(np.asarray(num_q, float), (0, n - len(num_q)))
+    den = np.pad(np.asarray(den_q, float), (0, n - len(den_q)))
+    return control.tf(num, den, T)
+
+
+def controller_tf(gains: PidGains, sample_time_s: float, setpoint_path: bool = False) -> control.TransferFunction:
+    """The discrete PID as a transfer function (see the module docstring).
+
+    Parameters
+    ----------
+    gains : PidGains
+    sample_time_s : float
+        Firmware period, second.
+    setpoint_path : bool
+        Return ``Cr`` (setpoint to actuator) instead of ``C`` (measurement to actuator).
+
+    Returns
+    -------
+    control.TransferFunction
+        Discrete, ``dt = sample_time_s``.
+    """
+    num, den, rnum = _controller_parts(gains, sample_time_s)
+    return _q_to_tf(rnum if setpoint_path else num, den, sample_time_s)
+
+
+def controller_frequency_response(gains: PidGains, sample_time_s: float, omega_rad_s):
+    """``C(exp(j omega T))`` for one or many controllers (gains may be arrays; broadcasts)."""
+    T = sample_time_s
+    q = np.exp(-1j * np.asarray(omega_rad_s, dtype=float) * T)
+    kp = np.asarray(gains.kp, dtype=float)
+    ki = np.asarray(gains.ki_per_s, dtype=float)
+    kd = np.asarray(gains.kd_s, dtype=float)
+    c = kp[..., None] + (ki[..., None] * T) / (1.0 - q)
+    if np.any(kd != 0):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            tf_ = np.where(kd != 0, np.abs(kd / np.where(kp == 0, np.inf, kp)) / gains.derivative_filter_n, 0.0)
+        c = c + kd[..., None] * (1.0 - q) / (T + tf_[..., None] * (1.0 - q))
+    return c
+
+
+def frequency_grid(sample_time_s: float, points: int = 4000, decades: float = 6.0):
+    """Log-spaced angular frequencies from ``10^-decades`` of Nyquist up to just below it, rad/s."""
+    nyq = math.pi / sample_time_s
+    return np.logspace(math.log10(nyq) - decades, math.log10(nyq * 0.9999), points)
+
+
+def max_sensitivity(plant: Plant, gains: PidGains, sample_time_s: float, computation_delay_samples: int = 1,
+                    omega_rad_s=None):
+    """Ms = 1 / min |1 + L| over a dense grid, and the frequency of the peak.
+
+    Parameters
+    ----------
+    plant : Plant
+    gains : PidGains
+    sample_time_s : float
+    computation_delay_samples : int
+    omega_rad_s : array_like, optional
+        Grid (default: :func:`frequency_grid` with 4000 points).
+
+    Returns
+    -------
+    ms : float
+    omega_peak_rad_s : float
+    """
+    w = frequency_grid(sample_time_s) if omega_rad_s is None else np.asarray(omega_rad_s, dtype=float)
+    p = discrete_frequency_response(plant, sample_time_s, w, computation_delay_samples)
+    dist = np.abs(1.0 + controller_frequency_response(gains, sample_time_s, w) * p)
+    k = int(np.argmin(dist))
+    return float(1.0 / dist[k]), float(w[k])
+
+
+# ---------------------------------------------------------------- ultimate point
+def ultimate_point(plant: Plant, sample_time_s: float | None = None, computation_delay_samples: int = 1):
+    """Ultimate gain and period: where the plant's phase reaches -180 degrees.
+
+    Parameters
+    ----------
+    plant : Plant
+    sample_time_s : float or None
+        With a period, the discretised plant (ZOH, exact delay, computation
+        delay); with None, the continuous plant with its exact dead time.
+    computation_delay_samples : int
+
+    Returns
+    -------
+    ultimate_gain : float
+        Ku, signed like the plant gain (proportional gain that puts the loop
+        at the stability limit).
+    ultimate_period_s : float
+        Pu, second.
+    """
+    sign = 1.0 if plant.dc_gain >= 0 else -1.0
+    if sample_time_s is None:
+        def resp(w):
+            w = np.asarray(w, dtype=float)
+            return sign * np.asarray(plant.system(1j * w)).reshape(w.shape) * np.exp(-1j * w * plant.dead_time_s)
+        poles = np.linalg.eigvals(np.atleast_2d(np.asarray(plant.system.A, float)))
+        fast = float(np.max(np.abs(poles))) if poles.size else 1.0
+        hi = max(100.0 * fast, 100.0 / max(plant.dead_time_s, 1e-12) if plant.dead_time_s else 100.0 * fast)
+        w = np.logspace(math.log10(hi) - 8, math.log10(hi), 20000)
+    else:
+        w = frequency_grid(sample_time_s, 20000, 8.0)
+        raw = discrete_response_function(plant, sample_time_s, computation_delay_samples)
+
+        def resp(w):
+            return sign * raw(w)
+    ph = np.unwrap(np.angle(resp(w)))
+    below = np.flatnonzero(ph <= -math.pi)
+    if below.size == 0:
+        raise ModelError("the plant's phase never reaches -180 degrees: no ultimate gain (any proportional gain is "
+                         "stable)")
+    k = below[0]
+    lo, hi_ = w[max(k - 1, 0)], w[k]
+    for _ in range(80):  # bisection on the unwrapped phase between two grid points
+        mid = math.sqrt(lo * hi_)
+        base = ph[max(k - 1, 0)]
+        p_mid = np.angle(resp(np.array([mid]))[0] / resp(np.array([lo]))[0]) + base
+        if p_mid <= -math.pi:
+            hi_ = mid
+        else:
+            lo = mid
+    wu = math.sqrt(lo * hi_)
+    ku = 1.0 / abs(resp(np.array([wu]))[0])
+    return sign * ku, 2.0 * math.pi / wu
+
+
+# ---------------------------------------------------------------- verification
+def _settle_horizon(poles, T):
+    mags = np.abs(poles)
+    mags = mags[(mags > 1e-12) & (mags < 1.0)]
+    if mags.size == 0:
+        return 200
+    slow = -T / math.log(float(np.max(mags)))
+    return int(np.clip(10.0 * slow / T, 200, 30000))
+
+
+def _controller_realisation(gains: PidGains, T: float):
+    """One observable-canonical realisation of ``u = Cr r - C y`` (shared states, two inputs)."""
+    num, den, rnum = _controller_parts(gains, T)
+    m = len(den) - 1
+    d0 = den[0]
+    a = np.asarray(den, float) / d0
+    br = np.pad(np.asarray(rnum, float), (0, m + 1 - len(rnum))) / d0
+    by = -np.pad(np.asarray(num, float), (0, m + 1 - len(num))) / d0
+    ak = np.zeros((m, m))
+    ak[:, 0] = -a[1:]
+    ak[: m - 1, 1:] = np.eye(m - 1)
+    bkr = (br[1:] - a[1:] * br[0]).reshape(m, 1)
+    bky = (by[1:] - a[1:] * by[0]).reshape(m, 1)
+    ck = np.zeros((1, m))
+    ck[0, 0] = 1.0
+    return ak, bkr, bky, ck, float(br[0]), float(by[0])
+
+
+def _closed_loop(plant: Plant, gains: PidGains, T: float, delay: int):
+    """State space of the sampled loop: inputs (setpoint, load at the plant input), outputs (output, actuator).
+
+    ``u = Cr r - C y``, ``y = P (u + load)``; the plant part must be strictly
+    proper (it is with one sample of computation delay).
+    """
+    P = discretise(plant, T, delay)
+    ap, bp, cp, dp = (np.atleast_2d(np.asarray(m, float)) for m in (P.A, P.B, P.C, P.D))
+    if np.any(dp != 0):
+        raise ModelError("the sampled plant has direct feedthrough: use at least one sample of computation delay")
+    ak, bkr, bky, ck, dkr, dky = _controller_realisation(gains, T)
+    n_p, n_k = ap.shape[0], ak.shape[0]
+    a = np.zeros((n_p + n_k, n_p + n_k))
+    a[:n_p, :n_p] = ap + bp @ (dky * cp)
+    a[:n_p, n_p:] = bp @ ck
+    a[n_p:, :n_p] = bky @ cp
+    a[n_p:, n_p:] = ak
+    b = np.zeros((n_p + n_k, 2))
+    b[:n_p, 0:1] = bp * dkr
+    b[:n_p, 1:2] = bp
+    b[n_p:, 0:1] = bkr
+    c = np.zeros((2, n_p + n_k))
+    c[0, :n_p] = cp[0]
+    c[1, :n_p] = dky * cp[0]
+    c[1, n_p:] = ck[0]
+    d = np.array([[0.0, 0.0], [dkr, 0.0]])
+    return a, b, c, d
+
+
+def verify_loop(plant: Plant, gains: PidGains, sample_time_s: float, computation_delay_samples: int = 1,
+                ms_limit: float | None = None, horizon_s: float | None = None) -> LoopReport:
+    """Margins, Ms and closed-loop step data of the discretised loop.
+
+    Parameters
+    ----------
+    plant : Plant
+    gains : PidGains
+        Signed like the plant gain (a cooler's negative gain gives negative gains).
+    sample_time_s : float
+        Firmware period, second.
+    computation_delay_samples : int
+        Samples between reading the input and applying the output (1).
+    ms_limit : float, optional
+        Requested Ms bound: exceeding it is warned about.
+    horizon_s : float, optional
+        Length of the simulated step (default: 12 slowest closed-loop time constants).
+
+    Returns
+    -------
+    LoopReport
+    """
+    T = float(sample_time_s)
+    if computation_delay_samples < 1 and np.any(np.asarray(plant.system.D) != 0):
+        raise ModelError("a plant with direct feedthrough needs at least one sample of computation delay")
+    warnings = []
+    a_cl, b_cl, c_cl, d_cl = _closed_loop(plant, gains, T, computation_delay_samples)
+    poles = np.linalg.eigvals(a_cl)
+    radius = float(np.max(np.abs(poles)))
+    stable = radius < 1.0
+
+    w = frequency_grid(T, 6000, 7.0)
+    loop = controller_frequency_response(gains, T, w) * discrete_frequency_response(
+        plant, T, w, computation_delay_samples)
+    dist = np.abs(1.0 + loop)
+    k = int(np.argmin(dist))
+    ms, w_ms = float(1.0 / dist[k]), float(w[k])
+    # python-control computes the margins from our exact frequency response of the sampled loop (its
+    # polynomial method loses accuracy on high-order or stiff sampled loops).
+    coarse = slice(None, None, 3)
+    phase_deg = np.degrees(np.unwrap(np.angle(loop[coarse])))
+    with warnings_module.catch_warnings():
+        warnings_module.simplefilter("ignore")
+        gm, pm, _sm, wpc, wgc, _wms = control.stability_margins((np.abs(loop[coarse]), phase_deg, w[coarse]))
+    gm = float(gm) if gm is not None and np.isfinite(gm) else float("inf")
+    pm = float(pm) if pm is not None and np.isfinite(pm) else float("inf")
+    wgc = float(wgc) if wgc is not None and np.isfinite(wgc) else float("nan")
+    wpc = float(wpc) if wpc is not None and np.isfinite(wpc) else float("nan")
+    delay_margin = math.radians(pm) / wgc if np.isfinite(pm) and np.isfinite(wgc) and wgc > 0 else float("inf")
+    margins = Margins(gm, pm, ms, wgc, wpc, w_ms, delay_margin)
+
+    n = int(round(horizon_s / T)) + 1 if horizon_s else _settle_horizon(poles, T)
+    if not stable:
+        n = min(n, 400)
+    t = np.arange(n) * T
+    # Two copies of the closed loop: one driven by the setpoint, one by a load at the plant input.
+    sys_r = control.ss(a_cl, b_cl[:, [0]], c_cl, d_cl[:, [0]], T)
+    sys_d = control.ss(a_cl, b_cl[:, [1]], c_cl, d_cl[:, [1]], T)
+    resp = control.forced_response(control.append(sys_r, sys_d), t, np.ones((2, n))).outputs
+    y, u, y_load = resp[0], resp[1], resp[2]
+    if stable:
+        dc = plant.dc_gain
+        b = gains.setpoint_weight
+        yfinal = 1.0 if gains.ki_per_s != 0 else dc * b * gains.kp / (1.0 + dc * gains.kp)
+        info = control.step_info(y, T=t, yfinal=yfinal)
+        step = StepData(float(info["RiseTime"]), float(info["SettlingTime"]), float(info["Overshoot"]),
+                        float(info["PeakTime"]), float(np.max(np.abs(u))), float(np.sum(np.abs(y_load)) * T))
+        if gm < POOR_GAIN_MARGIN:
+            warnings.append(f"poor gain margin {gm:.2f} (below {POOR_GAIN_MARGIN:g}, i.e. 6 dB)")
+        if pm < POOR_PHASE_MARGIN_DEG:
+            warnings.append(f"poor phase margin {pm:.1f} deg (below {POOR_PHASE_MARGIN_DEG:g} deg)")
+        if ms > POOR_MS:
+            warnings.append(f"Ms {ms:.2f} above {POOR_MS:g}: an aggressive, fragile loop")
+        if ms_limit is not None and ms > ms_limit * 1.005:
+            warnings.append(f"Ms {ms:.3f} exceeds the requested {ms_limit:g}")
+    else:
+        nan = float("nan")
+        step = StepData(nan, nan, nan, nan, float(np.max(np.abs(u))), float("inf"))
+        warnings.append(f"the closed loop is UNSTABLE (largest pole magnitude {radius:.4f} >= 1); do not use "
+                        "these gains")
+    warnings.extend(cooler_warnings(plant))
+    return LoopReport(margins, step, bool(stable), radius, T, tuple(warnings), t, y, u)
+
+
+def cooler_warnings(plant: Plant) -> list[str]:
+    """Warnings about the cooler's operating point (gain reversal, little headroom)."""
+    op = plant.operating_point
+    if not isinstance(op, CoolerOperatingPoint):
+        return []
+    out = []
+    if op.beyond_optimum or op.gain_k_per_a > 0:
+        out.append(f"the cooler loop gain REVERSES SIGN: {op.current_a:.3f} A is above the current of maximum "
+                   f"cooling {op.optimum_current_a:.3f} A, where more current warms the plate; a loop tuned here "
+                   "runs away once it crosses the optimum; clamp the current below the optimum")
+    elif op.current_a > 0.85 * op.optimum_current_a and op.current_a > 0:
+        out.append(f"the operating current {op.current_a:.3f} A is within 15 % of the current of maximum cooling "
+                   f"{op.optimum_current_a:.3f} A: little headroom and a loop gain that collapses near the optimum")
+    return out
