@@ -345,8 +345,10 @@ class FloatPid:
         if not isinstance(settings, PidSettings):
             raise ModelError(f"settings: need a PidSettings, got {type(settings).__name__}")
         self.settings = settings
-        self.discrete = discretise_pid(settings)
+        self.discrete = c = discretise_pid(settings)
         self._mode = ANTI_WINDUP_MODES.index(settings.anti_windup)
+        self._k = (c.kpb, c.kp, c.ad, c.bd, c.bi, c.ao, c.rate_step, self._mode,
+                   float(settings.out_min), float(settings.out_max))
         self.reset()
 
     def reset(self, output: float | None = None) -> None:
@@ -425,30 +427,42 @@ class FloatPid:
         float
             The output ``u`` (output unit), within the limits.
         """
-        c = self.discrete
-        lo, hi = self.settings.out_min, self.settings.out_max
         r, y = float(setpoint), float(measurement)
-        if not self._primed:
-            self._y_prev = y
-        p = c.kpb * r - c.kp * y
-        d = c.ad * self._d - c.bd * (y - self._y_prev)
-        if not self._primed and self._have_output and not self._manual:
-            self._i = self._u - p - d
-        v = p + self._i + d
-        u = self._target if self._manual else min(max(v, lo), hi)
-        if c.rate_step is not None and self._have_output:
-            u = min(max(u, self._u - c.rate_step), self._u + c.rate_step)
-        if self._manual:
-            self._i = u - p - d
+        if not (math.isfinite(r) and math.isfinite(y)):
+            raise ModelError(f"setpoint/measurement: must be finite, got {setpoint!r}, {measurement!r}")
+        return self._step(r, y)
+
+    def _step(self, r: float, y: float) -> float:
+        # the same algorithm as FixedPid._step, in floating point
+        kpb, kp, ad, bd, bi, ao, rate, mode, lo, hi = self._k
+        primed, manual, have_output = self._primed, self._manual, self._have_output
+        y_prev = self._y_prev if primed else y
+        p = kpb * r - kp * y
+        d = ad * self._d - bd * (y - y_prev)
+        u_prev = self._u
+        i = self._i
+        if not primed and have_output and not manual:
+            i = u_prev - p - d  # bumpless start from reset(output)
+        v = p + i + d
+        if manual:
+            u = self._target
         else:
-            inc = c.bi * (r - y)
-            if self._mode == 0:
-                self._i += inc + c.ao * (u - v)
-            elif self._mode == 1:
+            u = lo if v < lo else hi if v > hi else v
+        if rate is not None and have_output:
+            lo_r, hi_r = u_prev - rate, u_prev + rate
+            u = lo_r if u < lo_r else hi_r if u > hi_r else u
+        if manual:
+            i = u - p - d  # tracking for a bumpless return to automatic
+        else:
+            inc = bi * (r - y)
+            if mode == 0:  # back-calculation
+                i += inc + ao * (u - v)
+            elif mode == 1:  # clamping: hold while limited and the error drives further
                 if not ((v > u and inc > 0) or (v < u and inc < 0)):
-                    self._i += inc
+                    i += inc
             else:
-                self._i += inc
+                i += inc
+        self._i = i
         self._d = d
         self._u = u
         self._y_prev = y
@@ -477,8 +491,10 @@ class FloatPid:
             Output, integrator and derivative after each step.
         """
         r, y, m, mo = _schedule(setpoint, measurement, manual, manual_output, float)
+        if not (np.all(np.isfinite(r)) and np.all(np.isfinite(y))):
+            raise ModelError("setpoint/measurement: must be finite")
         out, integ, deriv = [], [], []
-        step = self.step
+        step = self._step
         for k in range(len(y)):
             if m is not None:
                 if m[k]:
@@ -782,9 +798,21 @@ class FixedPid:
         if not isinstance(coeffs, FixedPidCoefficients):
             raise ModelError(f"coeffs: need FixedPidCoefficients, got {type(coeffs).__name__}")
         self.coeffs = coeffs
-        f = coeffs.state_frac_bits
-        self._lo_q = coeffs.out_min_count << f
-        self._hi_q = coeffs.out_max_count << f
+        c = coeffs
+
+        def half(shift):  # rshift_round(x, s) == (x + half(s)) >> s, also for s == 0
+            return (1 << (shift - 1)) if shift else 0
+
+        f = c.state_frac_bits
+        self._k = (
+            c.kpb_mant, c.kp_mant, c.p_shift, half(c.p_shift),
+            c.ad_mant, c.ad_shift, half(c.ad_shift),
+            c.bd_mant, c.bd_shift, half(c.bd_shift),
+            c.ki_mant, c.ki_shift, half(c.ki_shift),
+            c.track_mant, c.track_shift, half(c.track_shift),
+            c.rate_step_q, c.anti_windup_code, f, half(f),
+            c.out_min_count << f, c.out_max_count << f,
+        )
         self.reset()
 
     def reset(self, output_count: int | None = None) -> None:
@@ -857,43 +885,49 @@ class FixedPid:
         return self._step(r, y)
 
     def _step(self, r: int, y: int) -> int:
-        c = self.coeffs
+        # One implementation for step() and run(); the shifts are written out as
+        # (x + half) >> s, which is rshift_round(x, s) (Python's >> floors).
+        (kpb, kp, ps, ph, ad, ads, adh, bd, bds, bdh, ki, kis, kih, tr, trs, trh,
+         rate, mode, f, fh, lo_q, hi_q) = self._k
         lim = INPUT_LIMIT_COUNT
         r = -lim if r < -lim else lim if r > lim else r
         y = -lim if y < -lim else lim if y > lim else y
-        if not self._primed:
-            self._y_prev = y
-        p = rshift_round(c.kpb_mant * r - c.kp_mant * y, c.p_shift)
-        d = _sat32(rshift_round(c.ad_mant * self._d, c.ad_shift)
-                   - rshift_round(c.bd_mant * (y - self._y_prev), c.bd_shift))
-        if not self._primed and self._have_output and not self._manual:
-            self._i = _sat32(self._u - p - d)
-        v = _sat32(p + self._i + d)
-        if self._manual:
+        primed, manual, have_output = self._primed, self._manual, self._have_output
+        y_prev = self._y_prev if primed else y
+        p = (kpb * r - kp * y + ph) >> ps
+        d = ((ad * self._d + adh) >> ads) - ((bd * (y - y_prev) + bdh) >> bds)
+        d = INT32_MIN if d < INT32_MIN else INT32_MAX if d > INT32_MAX else d
+        u_prev = self._u
+        i = self._i
+        if not primed and have_output and not manual:
+            i = _sat32(u_prev - p - d)  # bumpless start from reset(output_count)
+        v = p + i + d
+        v = INT32_MIN if v < INT32_MIN else INT32_MAX if v > INT32_MAX else v
+        if manual:
             u = self._target
         else:
-            u = self._lo_q if v < self._lo_q else self._hi_q if v > self._hi_q else v
-        if c.rate_step_q and self._have_output:
-            lo, hi = self._u - c.rate_step_q, self._u + c.rate_step_q
+            u = lo_q if v < lo_q else hi_q if v > hi_q else v
+        if rate and have_output:
+            lo, hi = u_prev - rate, u_prev + rate
             u = lo if u < lo else hi if u > hi else u
-        if self._manual:
-            self._i = _sat32(u - p - d)
+        if manual:
+            i = _sat32(u - p - d)  # tracking for a bumpless return to automatic
         else:
-            inc = rshift_round(c.ki_mant * (r - y), c.ki_shift)
-            mode = c.anti_windup
-            if mode == "back_calculation":
-                self._i = _sat32(self._i + inc + rshift_round(c.track_mant * (u - v), c.track_shift))
-            elif mode == "clamping":
+            inc = (ki * (r - y) + kih) >> kis
+            if mode == 0:  # back-calculation
+                i = _sat32(i + inc + ((tr * (u - v) + trh) >> trs))
+            elif mode == 1:  # clamping: hold while limited and the error drives further
                 if not ((v > u and inc > 0) or (v < u and inc < 0)):
-                    self._i = _sat32(self._i + inc)
+                    i = _sat32(i + inc)
             else:
-                self._i = _sat32(self._i + inc)
+                i = _sat32(i + inc)
+        self._i = i
         self._d = d
         self._u = u
         self._y_prev = y
         self._primed = True
         self._have_output = True
-        return rshift_round(u, c.state_frac_bits)
+        return (u + fh) >> f
 
     def run(self, setpoint_count, measurement_count, *, manual=None, manual_output_count=None) -> PidRun:
         """Run over whole sequences of counts, continuing from the present state.
