@@ -67,6 +67,7 @@ CASES = [
     ("sipm_a", "board_ntc", 3.0, "uniform", 0.05, False),
     ("sipm_a", "board_ntc", 3.0, "optimised", 0.02, False),
     ("sipm_b", "board_pt1000", 4.0, "uniform", 0.02, False),
+    ("sipm_b", "board_pt1000", 4.0, "uniform", 0.01, False),  # 32-bit nodes with fractional bits
     ("sipm_c", "board_pt1000", 5.0, "optimised", 0.05, False),
     ("sipm_a", "board_ntc", 3.0, "uniform", 0.05, True),
     ("sipm_b", "board_pt1000", 4.0, "optimised", 0.05, True),

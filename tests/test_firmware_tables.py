@@ -61,6 +61,15 @@ def test_uniform_is_the_widest_spacing_that_meets_the_bound(built, pair):
     assert table.table_bytes == 2 * table.entries
 
 
+def test_uniform_fractional_nodes_near_one_lsb(built):
+    # At 0.01 % the bound is 0.75 DAC LSB: whole-code nodes would need one node per ADC code, so the
+    # sizing switches to 32-bit nodes with 8 fractional bits, which is far smaller.
+    law, board, table = built("sipm_b", "board_pt1000", 4.0, "uniform", 0.01)
+    assert table.node_frac_bits == 8 and table.node_type_bits == 32
+    assert table.table_bytes == 4 * table.entries < 2 * (table.code_hi - table.code_lo + 2)
+    assert sweep_table(table, law, board).within_bound
+
+
 @pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
 def test_optimised_layout(built, pair):
     law, board, table = built(*pair, "optimised", 0.05)

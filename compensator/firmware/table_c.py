@@ -147,8 +147,9 @@ def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NA
         "#endif\n\n")
     c.append(f"typedef {acc} {name}_acc_t;\n\n")
     if table.layout == "uniform":
-        c.append(f"/* Nodes every 2^{table.shift} ADC codes from {up}_ADC_CODE_LO, DAC codes. */\n")
-        c.append(_array(vt, f"{name}_y", table.y))
+        unit = "DAC codes" if not table.node_frac_bits else f"DAC codes times 2^{table.node_frac_bits}"
+        c.append(f"/* Nodes every 2^{table.shift} ADC codes from {up}_ADC_CODE_LO, {unit}. */\n")
+        c.append(_array(f"uint{table.node_type_bits}_t", f"{name}_y", table.y))
         asserts = [
             (f"sizeof({name}_y) / sizeof({name}_y[0]) == {up}_ENTRIES", "node count"),
             (f"sizeof({name}_y) == {up}_TABLE_BYTES", "table size"),
@@ -220,8 +221,11 @@ def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NA
             f"        const uint32_t i = d >> {table.shift};\n"
             f"        const {name}_acc_t r = ({name}_acc_t)(d & {(1 << table.shift) - 1}u);\n"
             f"        const {name}_acc_t delta = ({name}_acc_t){name}_y[i + 1u] - ({name}_acc_t){name}_y[i];\n"
-            f"        y = ({name}_acc_t){name}_y[i] + {name}_floor_shift(delta * r + {half}, {table.shift}u);\n"
-            "    }\n")
+            f"        y = ({name}_acc_t){name}_y[i] + {name}_floor_shift(delta * r + {half}, {table.shift}u);\n")
+        if table.node_frac_bits:
+            c.append(f"        y = {name}_floor_shift(y + {1 << (table.node_frac_bits - 1)}, {table.node_frac_bits}u);"
+                     " /* to whole DAC codes */\n")
+        c.append("    }\n")
     else:
         half = (1 << table.slope_frac_bits) >> 1
         c.append(

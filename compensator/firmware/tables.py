@@ -17,10 +17,11 @@ The integer path, for an ADC code ``n``:
    code above the range is a temperature *below* it).
 3. Otherwise interpolate (status ``STATUS_OK``):
 
-   * ``uniform``: nodes every ``2^shift`` codes from ``code_lo``;
+   * ``uniform``: nodes every ``2^shift`` codes from ``code_lo``, stored
+     with ``G`` fractional bits (``G`` = 0: plain DAC codes);
      ``d = n - code_lo``, ``i = d >> shift``, ``r = d & (2^shift - 1)``,
-     ``y = Y[i] + floor(((Y[i+1] - Y[i]) r + 2^(shift-1)) / 2^shift)``
-     (no half-term when ``shift`` is 0).
+     ``v = Y[i] + floor(((Y[i+1] - Y[i]) r + 2^(shift-1)) / 2^shift)``,
+     ``y = floor((v + 2^(G-1)) / 2^G)`` (no half-terms when the shift is 0).
    * ``optimised``: breakpoints ``X[0] = code_lo < X[1] < ...``; a binary
      search finds the largest ``i`` with ``X[i] <= n``; ``d = n - X[i]``,
      ``y = Y[i] + floor((S[i] d + 2^(F-1)) / 2^F)`` with the stored slope
@@ -123,6 +124,8 @@ class LookupTable:
         DAC codes for faults and for readings just outside the range.
     shift : int
         Uniform: log2 of the node spacing in ADC codes (0 for optimised).
+    node_frac_bits : int
+        Uniform: fractional bits ``G`` of the stored nodes (0 for optimised).
     slope_frac_bits : int
         Optimised: fractional bits ``F`` of the stored slopes (0 for uniform).
     x : ndarray of int64
@@ -133,6 +136,8 @@ class LookupTable:
         Optimised: slopes scaled by ``2^F``; uniform: empty.
     code_type_bits, value_type_bits, slope_type_bits, acc_type_bits : int
         Widths of the C types (unsigned code and value, signed slope and accumulator).
+    node_type_bits : int
+        Width of the stored uniform nodes (unsigned).
     max_gain_error_pct : float
         The bound the table was sized for, percent.
     """
@@ -159,6 +164,8 @@ class LookupTable:
     slope_type_bits: int = 32
     acc_type_bits: int = 32
     max_gain_error_pct: float = 0.0
+    node_frac_bits: int = 0
+    node_type_bits: int = 16
 
     @property
     def entries(self) -> int:
@@ -169,7 +176,7 @@ class LookupTable:
     def entry_bytes(self) -> int:
         """Bytes per row in the generated const arrays."""
         if self.layout == "uniform":
-            return self.value_type_bits // 8
+            return self.node_type_bits // 8
         return (self.code_type_bits + self.value_type_bits + self.slope_type_bits) // 8
 
     @property
@@ -194,8 +201,7 @@ class LookupTable:
             d = n - self.code_lo
             i = d >> self.shift
             r = d & ((1 << self.shift) - 1)
-            half = (1 << self.shift) >> 1
-            return self.y[i] + floor_shift((self.y[i + 1] - self.y[i]) * r + half, self.shift)
+            return _uniform_value(self.y, i, r, self.shift, self.node_frac_bits)
         i = np.searchsorted(self.x, n, side="right") - 1
         d = n - self.x[i]
         half = (1 << self.slope_frac_bits) >> 1
@@ -419,27 +425,48 @@ def _round_nodes(values, dac_full):
     return np.clip(np.rint(values), 0, dac_full).astype(np.int64)
 
 
-def _uniform_candidate(target: _Target, shift: int) -> tuple[np.ndarray, bool, float]:
+def _uniform_value(y, i, r, shift: int, node_frac_bits: int):
+    """The uniform interpolation: nodes ``y`` (with ``node_frac_bits``), index ``i``, remainder ``r``."""
+    v = y[i] + floor_shift((y[i + 1] - y[i]) * r + ((1 << shift) >> 1), shift)
+    return floor_shift(v + ((1 << node_frac_bits) >> 1), node_frac_bits)
+
+
+def _uniform_candidate(target: _Target, shift: int, node_frac_bits: int = 0) -> tuple[np.ndarray, bool, float]:
     code_lo, code_hi = int(target.codes[0]), int(target.codes[-1])
     span = code_hi - code_lo
     nodes = code_lo + (np.arange((span >> shift) + 2, dtype=np.int64) << shift)
-    y = _round_nodes(target.at(nodes), target.dac_full)
+    scale = 1 << node_frac_bits
+    y = np.clip(np.rint(target.at(nodes) * scale), 0, target.dac_full * scale).astype(np.int64)
     d = target.codes - code_lo
-    i = d >> shift
-    r = d & ((1 << shift) - 1)
-    got = y[i] + floor_shift((y[i + 1] - y[i]) * r + ((1 << shift) >> 1), shift)
+    got = _uniform_value(y, d >> shift, d & ((1 << shift) - 1), shift, node_frac_bits)
     err = np.abs(got - target.exact)
     return y, bool(np.all(err <= target.bound_lsb)), float(err.max())
 
 
-def _size_uniform(target: _Target) -> tuple[int, np.ndarray]:
+#: Fractional node bits tried for uniform tables: plain DAC codes, or 32-bit nodes with 8 extra bits.
+UNIFORM_NODE_FRAC_BITS = (0, 8)
+
+
+def _size_uniform(target: _Target, value_bits: int) -> tuple[int, int, int, np.ndarray]:
+    """Widest power-of-two spacing for each node format; keep the one with fewer bytes.
+
+    Returns (shift, node_frac_bits, node_type_bits, nodes).
+    """
     span = int(target.codes[-1] - target.codes[0])
     top = max(1, int(span).bit_length())
-    for shift in range(top, -1, -1):
-        y, ok, _ = _uniform_candidate(target, shift)
-        if ok:
-            return shift, y
-    raise TableError("DAC quantisation", "no uniform table meets the bound even with one node per ADC code")
+    best = None
+    for frac in UNIFORM_NODE_FRAC_BITS:
+        node_bits = max(value_bits, _uint_bits(((target.dac_full + 1) << frac) - 1))
+        for shift in range(top, -1, -1):
+            y, ok, _ = _uniform_candidate(target, shift, frac)
+            if ok:
+                nbytes = y.size * node_bits // 8
+                if best is None or nbytes < best[0]:
+                    best = (nbytes, shift, frac, node_bits, y)
+                break
+    if best is None:
+        raise TableError("DAC quantisation", "no uniform table meets the bound even with one node per ADC code")
+    return best[1:]
 
 
 def _segment_ok(target: _Target, start: int, end: int, last: bool, frac_bits: int, slope_max: int):
@@ -462,12 +489,6 @@ def _segment_ok(target: _Target, start: int, end: int, last: bool, frac_bits: in
         return False, y0, s
     got = y0 + floor_shift(s * d + ((1 << frac_bits) >> 1), frac_bits)
     return bool(np.all(np.abs(got - f) <= target.bound_lsb[start:stop])), y0, s
-    ramp = floor_shift(s * d + ((1 << frac_bits) >> 1), frac_bits)
-    bound = target.bound_lsb[start:stop]
-    for y0 in (first, other):
-        if 0 <= y0 <= target.dac_full and np.all(np.abs(y0 + ramp - f) <= bound):
-            return True, y0, s
-    return False, first, s
 
 
 def _place_optimised(target: _Target, frac_bits: int, slope_max: int):
@@ -584,13 +605,13 @@ def build_table(law: CompensationLaw, board, max_gain_error_pct: float, layout: 
     value_bits = max(16, _uint_bits((1 << dac_bits) - 1))
     code_lo, code_hi = int(target.codes[0]), int(target.codes[-1])
     if layout == "uniform":
-        shift, y = _size_uniform(target)
+        shift, node_frac, node_bits, y = _size_uniform(target, value_bits)
         x = slope = np.zeros(0, dtype=np.int64)
         frac_bits, slope_bits = 0, 0
         max_delta = int(np.max(np.abs(np.diff(y)))) if y.size > 1 else 0
-        acc_max = max_delta * ((1 << shift) - 1) + (1 << shift)
+        acc_max = max(max_delta * ((1 << shift) - 1) + (1 << shift), int(y.max()) + (1 << node_frac))
     else:
-        shift = 0
+        shift, node_frac, node_bits = 0, 0, value_bits
         slope_bits, frac_bits, x, y, slope = _optimised(target, code_bits, value_bits)
         lengths = np.diff(np.append(x, code_hi + 1))
         acc_max = int(np.max(np.abs(slope) * lengths)) + (1 << frac_bits)
@@ -598,7 +619,7 @@ def build_table(law: CompensationLaw, board, max_gain_error_pct: float, layout: 
     # Values just outside the range: the table's own end values.
     table = LookupTable(layout, adc_bits, dac_bits, code_lo, code_hi, fault_lo, fault_hi, dac_min, dac_max,
                         int(board.safe_dac_code), 0, 0, shift, frac_bits, x, y, slope, code_bits, value_bits,
-                        slope_bits, acc_bits, max_gain_error_pct)
+                        slope_bits, acc_bits, max_gain_error_pct, node_frac, node_bits)
     ends = np.clip(table.interpolate([code_lo, code_hi]), dac_min, dac_max)
     from dataclasses import replace
     return replace(table, below_dac_code=int(ends[0]), above_dac_code=int(ends[1]))
