@@ -147,7 +147,26 @@ def simulate_gain_scan(rng, bias_v, breakdown_v, capacitance_f, *, relative_nois
 
 
 def breakdown_at(temp_c, breakdown_v_at_ref, tempco_mv_per_k, *, ref_temp_c=25.0, curvature_mv_per_k2=0.0):
-    """Breakdown voltage Vbd(T) = Vbd0 + a dT + b dT^2 (volt; a in mV/K, b in mV/K^2)."""
+    """Breakdown voltage Vbd(T) = Vbd0 + a (T - Tref) + b (T - Tref)^2.
+
+    Parameters
+    ----------
+    temp_c : array_like
+        Temperature, degree Celsius.
+    breakdown_v_at_ref : float
+        Vbd0, volt.
+    tempco_mv_per_k : float
+        a, millivolt per kelvin.
+    ref_temp_c : float
+        Tref, degree Celsius.
+    curvature_mv_per_k2 : float
+        b, millivolt per kelvin squared.
+
+    Returns
+    -------
+    ndarray
+        Breakdown voltage, volt.
+    """
     dt_k = np.asarray(temp_c, dtype=float) - ref_temp_c
     return breakdown_v_at_ref + 1e-3 * dt_k * (tempco_mv_per_k + curvature_mv_per_k2 * dt_k)
 

@@ -286,7 +286,7 @@ def _scan_from_spectra(args, label, temp_c, entries, errors):
 def run_tempco(args) -> int:
     from compensator.calibration.measurements import read_breakdown_scan
     from compensator.calibration.tempco import constant_gain_slope, fit_tempco, write_calibrated_profile
-    from compensator.errors import InputError
+    from compensator.errors import InputError, ModelError, Problem
 
     if args.write_profile and not args.base:
         raise InputError("--write-profile: needs --base BASE.yaml (the sipm profile to calibrate)")
@@ -296,20 +296,20 @@ def run_tempco(args) -> int:
         base = load_sipm(args.base)
     ref = args.ref_temp_c if args.ref_temp_c is not None else (
         base.device.breakdown.ref_temp_c if base is not None else 25.0)
+    if not 0.0 < args.alpha < 1.0:
+        raise InputError(f"--alpha: must lie between 0 and 1, got {args.alpha:g}")
+    if args.overvoltage_v <= 0:
+        raise InputError(f"--overvoltage-v: must be positive, got {args.overvoltage_v:g}")
     scan = read_breakdown_scan(args.file)
     try:
         fit = fit_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, ref_temp_c=ref, alpha=args.alpha)
-    except InputError:
-        raise
-    except Exception as exc:
-        from compensator.errors import CompensatorError
-        if isinstance(exc, CompensatorError):
-            raise InputError(f"{args.file}: {exc}") from None
-        raise
-    cg = None
-    if scan.slope_per_v is not None and np.unique(scan.temp_c).size >= 2:
-        cg = constant_gain_slope(scan.temp_c, scan.breakdown_v, scan.slope_per_v, overvoltage_v=args.overvoltage_v,
-                                 ref_temp_c=ref, breakdown_err_v=scan.breakdown_err_v)
+        cg = None
+        if scan.slope_per_v is not None and np.unique(scan.temp_c).size >= 2:
+            cg = constant_gain_slope(scan.temp_c, scan.breakdown_v, scan.slope_per_v,
+                                     overvoltage_v=args.overvoltage_v, ref_temp_c=ref,
+                                     breakdown_err_v=scan.breakdown_err_v)
+    except ModelError as exc:
+        raise InputError(Problem(args.file, 0, "", str(exc))) from None
     cap_at_ref = None
     if scan.capacitance_f is not None:
         from compensator.calibration.gainscan import fit_polynomial

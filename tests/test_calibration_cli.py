@@ -1,0 +1,210 @@
+"""``compensator calibrate`` end to end on the seeded demo data set (known truth in truth.json)."""
+
+from __future__ import annotations
+
+import io
+import json
+import sys
+from pathlib import Path
+
+import pytest
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tools"))
+import make_demo_data  # noqa: E402
+
+from compensator.calibration.batch import Progress  # noqa: E402
+from compensator.profiles import load_sipm  # noqa: E402
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo")
+    make_demo_data.write_demo_data(out)
+    return out
+
+
+@pytest.fixture(scope="module")
+def truth(demo):
+    return json.loads((demo / "truth.json").read_text())
+
+
+def test_iv_json_contract_and_truth(cli, demo, truth):
+    files = sorted(str(p) for p in (demo / "iv").glob("ch01_*.csv"))
+    r = cli("calibrate", "iv", *files, "--json")
+    assert r.status == 0, r.stderr
+    doc = json.loads(r.stdout)
+    assert [c["file"] for c in doc["curves"]] == files  # the path as given
+    by_file = {c["file"]: c["breakdown_v"] for c in truth["iv_curves"]}
+    for c in doc["curves"]:
+        assert {"file", "temp_c", "breakdown_v", "breakdown_err_v", "method"} <= set(c)
+        assert c["method"] == "inverse-log-derivative" and c["ok"]
+        rel = str(Path(c["file"]).relative_to(demo))
+        assert c["breakdown_v"] == pytest.approx(by_file[rel], abs=0.03)
+        assert c["breakdown_err_v"] > 0
+
+
+@pytest.mark.parametrize("method", ["log-derivative-peak", "second-derivative"])
+def test_iv_other_methods(cli, demo, method):
+    r = cli("calibrate", "iv", demo / "iv" / "ch02_p20C.csv", "--method", method, "--json")
+    assert r.status == 0
+    assert json.loads(r.stdout)["curves"][0]["method"] == method
+
+
+def test_iv_bad_files_one_line_each_and_batch_goes_on(cli, demo, tmp_path):
+    good = demo / "iv" / "ch03_p10C.csv"
+    missing = tmp_path / "nope.csv"
+    no_column = tmp_path / "cols.csv"
+    no_column.write_text("voltage,current_a\n1,2\n")
+    bad_cell = tmp_path / "cell.csv"
+    bad_cell.write_text("bias_v,current_a\n20.0,1e-10\n20.1,oops\n")
+    negative = tmp_path / "neg.csv"
+    text = good.read_text().splitlines()
+    text[5] = text[5].replace(text[5].split(",")[1], "-1e-12", 1)
+    negative.write_text("\n".join(text) + "\n")
+    r = cli("calibrate", "iv", missing, no_column, good, bad_cell, negative, "--json")
+    assert r.status == 0
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 4
+    assert lines[0] == f"compensator: {missing}: no such file"
+    assert lines[1].startswith(f"compensator: {no_column}:1: bias_v: missing column")
+    assert lines[2].startswith(f"compensator: {bad_cell}:3: current_a: not a number")
+    assert lines[3].startswith(f"compensator: {negative}: ") and "negative" in lines[3]
+    doc = json.loads(r.stdout)
+    assert [c["ok"] for c in doc["curves"]] == [False, False, True, False, False]
+    assert doc["curves"][2]["breakdown_v"] is not None
+    assert "Traceback" not in r.stderr
+    none = cli("calibrate", "iv", missing, no_column)
+    assert none.status == 2 and len(none.stderr.strip().splitlines()) == 2
+
+
+def test_iv_temperature_from_option_and_plot(cli, demo, tmp_path):
+    src = tmp_path / "plain.csv"
+    rows = (demo / "iv" / "ch01_p20C.csv").read_text().splitlines()
+    src.write_text("\n".join(",".join(r.split(",")[:2]) for r in rows) + "\n")
+    r = cli("calibrate", "iv", src, "--temp-c", "21.5", "--json", "--plot", tmp_path / "plots")
+    assert r.status == 0
+    assert json.loads(r.stdout)["curves"][0]["temp_c"] == 21.5
+    png = tmp_path / "plots" / "plain-iv.png"
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_iv_process_pool_gives_identical_results(cli, demo):
+    files = sorted(str(p) for p in (demo / "iv").glob("*.csv"))[:8]
+    one = json.loads(cli("calibrate", "iv", *files, "--json").stdout)
+    two = json.loads(cli("calibrate", "iv", *files, "--json", "--jobs", "2").stdout)
+    assert one == two
+
+
+def test_spectrum_json_contract_and_plot(cli, demo, truth, tmp_path):
+    spec = truth["spectra_files"][2]
+    r = cli("calibrate", "spectrum", demo / spec["file"], "--json", "--plot", tmp_path)
+    assert r.status == 0, r.stderr
+    s = json.loads(r.stdout)["spectra"][0]
+    assert {"file", "gain", "gain_err", "pedestal", "mean_pe", "crosstalk"} <= set(s)
+    assert s["file"] == str(demo / spec["file"]) and s["charge_unit"] == "pc"
+    assert s["gain"] == pytest.approx(spec["gain_pc"], rel=0.005)
+    assert (tmp_path / f"{Path(spec['file']).stem}-spectrum.png").exists()
+    bad = tmp_path / "empty.csv"
+    bad.write_text("charge,counts\n0.1,0\n0.2,0\n")
+    r = cli("calibrate", "spectrum", bad)
+    assert r.status == 2 and r.stderr.count("\n") == 1 and str(bad) in r.stderr
+
+
+def test_gain_scan_tables_and_manifest(cli, demo, truth):
+    files = sorted(str(p) for p in (demo / "gain").glob("*.csv"))
+    r = cli("calibrate", "gain-scan", *files, "--json")
+    assert r.status == 0, r.stderr
+    scans = json.loads(r.stdout)["scans"]
+    by_file = {s["file"]: s for s in truth["gain_scans"]}
+    for s in scans:
+        t = by_file[str(Path(s["file"]).relative_to(demo))]
+        assert s["breakdown_v"] == pytest.approx(t["breakdown_v"], abs=0.02)
+        assert s["capacitance_f"] == pytest.approx(t["capacitance_f"], rel=0.01)
+        assert s["breakdown_err_v"] > 0 and s["capacitance_err_f"] > 0
+    r = cli("calibrate", "gain-scan", "--manifest", demo / "spectra" / "manifest.csv", "--charge-per-unit-c", "1e-12",
+            "--json")
+    assert r.status == 0, r.stderr
+    scan = json.loads(r.stdout)["scans"][0]
+    assert scan["temp_c"] == 25.0 and len(scan["spectra"]) == 5
+    assert scan["breakdown_v"] == pytest.approx(truth["breakdown_v_at_ref"], abs=0.02)
+    assert scan["capacitance_f"] == pytest.approx(truth["capacitance_f"], rel=0.01)
+
+
+def test_gain_scan_spectra_need_one_bias_each(cli, demo):
+    files = sorted(str(p) for p in (demo / "spectra").glob("ch01_*.csv"))
+    r = cli("calibrate", "gain-scan", "--spectra", *files, "--bias-v", "26.0", "27.0")
+    assert r.status == 2 and "--bias-v" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_tempco_contract_from_iv_json_and_profile(cli, demo, truth, tmp_path, profiles_dir):
+    files = sorted(str(p) for p in (demo / "iv").glob("ch01_*.csv"))
+    iv_json = tmp_path / "iv.json"
+    iv_json.write_text(cli("calibrate", "iv", *files, "--json").stdout)
+    new = tmp_path / "cal.yaml"
+    base = profiles_dir / "hut-sipm-a.yaml"
+    r = cli("calibrate", "tempco", iv_json, "--json", "--write-profile", new, "--base", base, "--plot", tmp_path)
+    assert r.status == 0, r.stderr
+    doc = json.loads(r.stdout)
+    for key in ("tempco_mv_per_k", "tempco_err_mv_per_k", "breakdown_v_at_ref", "ref_temp_c", "curvature_mv_per_k2"):
+        assert key in doc
+    assert doc["tempco_mv_per_k"] == pytest.approx(truth["tempco_mv_per_k"], rel=0.01)
+    assert "caution" in r.stderr and "IEC 61010-1" in r.stderr
+    prof = load_sipm(new)
+    assert prof.device.breakdown.tempco_mv_per_k == pytest.approx(doc["tempco_mv_per_k"], abs=1e-4)
+    assert prof.device.breakdown.breakdown_v_at_ref == pytest.approx(doc["breakdown_v_at_ref"], abs=1e-6)
+    assert prof.device.breakdown.tempco_err_mv_per_k == pytest.approx(doc["tempco_err_mv_per_k"], abs=1e-4)
+    assert (tmp_path / "iv-tempco.png").exists()
+    before = new.read_bytes()
+    again = cli("calibrate", "tempco", iv_json, "--write-profile", new, "--base", base)
+    assert again.status == 2 and "already exists" in again.stderr and new.read_bytes() == before
+    forced = cli("calibrate", "tempco", iv_json, "--write-profile", new, "--base", base, "--force", "--name", "ch01")
+    assert forced.status == 0 and load_sipm(new).name == "ch01"
+    nobase = cli("calibrate", "tempco", iv_json, "--write-profile", tmp_path / "x.yaml")
+    assert nobase.status == 2 and "--base" in nobase.stderr and not (tmp_path / "x.yaml").exists()
+
+
+def test_tempco_from_gain_scans_gives_constant_gain_slope(cli, demo, truth, tmp_path):
+    files = sorted(str(p) for p in (demo / "gain").glob("*.csv"))
+    gs = tmp_path / "gs.json"
+    gs.write_text(cli("calibrate", "gain-scan", *files, "--json").stdout)
+    doc = json.loads(cli("calibrate", "tempco", gs, "--json").stdout)
+    assert doc["tempco_mv_per_k"] == pytest.approx(truth["tempco_mv_per_k"], rel=0.01)
+    cg = doc["constant_gain"]
+    # dV/dT at constant gain = tempco - Vov * alpha_C (first order, derived in test_calibration_tempco).
+    expected = truth["tempco_mv_per_k"] - 1e3 * 3.0 * 1e-6 * truth["capacitance_tempco_ppm_per_k"]
+    assert cg["bias_slope_mv_per_k"] == pytest.approx(expected, abs=3 * cg["bias_slope_err_mv_per_k"] + 0.05)
+
+
+def test_tempco_csv_and_bad_input(cli, demo, tmp_path):
+    r = cli("calibrate", "tempco", demo / "breakdown_scan.csv")
+    assert r.status == 0 and "mV/K" in r.stdout
+    one = tmp_path / "one.csv"
+    one.write_text("temp_c,breakdown_v\n25,24.5\n25,24.51\n")
+    r = cli("calibrate", "tempco", one)
+    assert r.status == 2 and r.stderr.startswith(f"compensator: {one}: ") and r.stderr.count("\n") == 1
+    junk = tmp_path / "junk.json"
+    junk.write_text("{not json")
+    r = cli("calibrate", "tempco", junk)
+    assert r.status == 2 and "invalid JSON" in r.stderr
+
+
+def test_progress_bar_draws_on_request():
+    stream = io.StringIO()
+    with Progress(4, "work", stream=stream, enabled=True) as bar:
+        bar.update(2)
+        bar.update(2)
+    assert "4/4" in stream.getvalue() and stream.getvalue().endswith("\n")
+    quiet = io.StringIO()
+    with Progress(4, "work", stream=quiet) as bar:  # not a terminal: silent
+        bar.update(4)
+    assert quiet.getvalue() == ""
+
+
+def test_demo_data_is_deterministic_and_never_overwritten(demo, tmp_path):
+    again = tmp_path / "again"
+    make_demo_data.main([str(again)])
+    for path in sorted(demo.rglob("*")):
+        if path.is_file():
+            assert (again / path.relative_to(demo)).read_bytes() == path.read_bytes()
+    assert make_demo_data.main([str(again)]) == 2
+    assert make_demo_data.main([str(again), "--force"]) == 0
