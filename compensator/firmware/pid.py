@@ -80,6 +80,12 @@ import numpy as np
 
 from compensator.errors import ModelError
 
+__all__ = [
+    "ANTI_WINDUP_MODES", "INPUT_LIMIT_COUNT", "PidSettings", "DiscretePid", "discretise_pid", "PidRun",
+    "FloatPid", "FixedPidCoefficients", "quantise_pid", "rshift_round", "FixedPidState", "FixedPid",
+    "agreement_bound_count",
+]
+
 ANTI_WINDUP_MODES = ("back_calculation", "clamping", "none")
 """Anti-windup choices: back-calculation (tracking), clamping (conditional integration), none."""
 

@@ -29,6 +29,8 @@ from compensator.firmware.pid import (
     FixedPidCoefficients,
 )
 
+__all__ = ["render_pid_c", "write_pid_c"]
+
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 
 
@@ -52,6 +54,8 @@ def _header(c: FixedPidCoefficients, name: str, banner: str) -> str:
     up = name.upper()
     f = c.state_frac_bits
     rep = c.represented()
+    period_us = round(c.sample_time_s * 1e6)
+    exact = abs(period_us - c.sample_time_s * 1e6) < 1e-6
     mode_text = {"back_calculation": "back-calculation (tracking)", "clamping": "clamping (conditional integration)",
                  "none": "none"}[c.anti_windup]
     lines = [
@@ -66,18 +70,22 @@ def _header(c: FixedPidCoefficients, name: str, banner: str) -> str:
         " *   P = kp (b r - y); D = ad D - bd (y - y_prev); v = P + I + D;",
         " *   u = clip(v, limits) (manual: the target); u = clip(u, u_prev +- rate step);",
         f" *   anti-windup: {mode_text}; manual mode: I = u - P - D (bumpless return).",
+        " * Call it exactly once every SAMPLE_PERIOD_US: the coefficients hold the period.",
         " * Inputs: int32 counts saturated to +-INPUT_LIMIT_COUNT.",
         f" * State: int32 in Q{31 - f}.{f} output counts (STATE_FRAC_BITS fraction bits).",
         " * Products: int64 mantissa * value, then a right shift rounding half up",
         " * (ties toward +infinity); shifts never apply to negative values.",
         f" * Sample period {_g(c.sample_time_s)} s; input {_g(c.input_per_count)} unit/count;"
         f" output {_g(c.output_per_count)} unit/count.",
+        (f" * Integrator dead band: errors below {_g(c.integrator_deadband_count)} input counts do not integrate."
+         if c.ki_mant else " * No integral action: the integrator holds the reset value set by bumpless transfer."),
         " *",
         " * Caution: this code drives a bias supply or a cooler. Keep independent",
         " * hardware limits (current, voltage, temperature, dew point) that do not",
         " * rely on it, and follow local codes and licensed practice for bias",
         " * voltages of tens of volts.",
         " */",
+        f"#define {up}_SAMPLE_PERIOD_US {period_us}u /* {_g(c.sample_time_s)} s{'' if exact else ', rounded'} */",
         f"#define {up}_STATE_FRAC_BITS {f}u",
         f"#define {up}_INPUT_LIMIT_COUNT {_i32(INPUT_LIMIT_COUNT)}",
         f"#define {up}_OUT_MIN_COUNT {_i32(c.out_min_count)}",
@@ -96,7 +104,8 @@ def _header(c: FixedPidCoefficients, name: str, banner: str) -> str:
         f"#define {up}_BD_SHIFT {c.bd_shift}u",
         f"#define {up}_TRACK_MANT {_i32(c.track_mant)} /* ao = h/Tt = {_g(rep['track'])} */",
         f"#define {up}_TRACK_SHIFT {c.track_shift}u",
-        f"#define {up}_RATE_STEP_Q {_i32(c.rate_step_q)} /* {_g(rep['rate_step_count'])} count per step; 0 = none */",
+        f"#define {up}_RATE_STEP_Q {_i32(c.rate_step_q)} /* "
+        + (f"{_g(rep['rate_step_count'])} count per step */" if c.rate_step_q else "0: no rate limit */"),
         "",
         "/* Controller state; initialise with " + f"{name}_init() or {name}_init_at(). */",
         "typedef struct {",
