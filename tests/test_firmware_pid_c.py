@@ -300,3 +300,102 @@ def test_write_pid_c_refuses_to_overwrite_and_writes_nothing(tmp_path):
     assert (tmp_path / "cooler_pid.c").read_text() == render_pid_c(coeffs, name="cooler_pid")["cooler_pid.c"]
     with pytest.raises(InputError, match="not an existing directory"):
         write_pid_c(coeffs, tmp_path / "missing", name="cooler_pid")
+
+
+def random_settings(rng: np.random.Generator):
+    """Seeded PID settings and scales spread over many decades, signs and options."""
+    sign = -1.0 if rng.random() < 0.3 else 1.0
+    kind = rng.choice(["p", "pi", "pid", "i", "id", "pd"])
+    h = float(10 ** rng.uniform(-4, 0))
+    kp = 0.0 if "p" not in kind else float(10 ** rng.uniform(-3, 1))
+    ki = 0.0 if "i" not in kind else float(10 ** rng.uniform(-3, 1)) / max(h, 1e-2) * 0.01
+    kd = 0.0 if "d" not in kind else float(10 ** rng.uniform(-3, 0))
+    out_max = float(10 ** rng.uniform(-1, 1.5))
+    out_min = -out_max if rng.random() < 0.5 else float(rng.uniform(0, 0.5)) * out_max
+    settings = PidSettings(
+        kp=sign * kp, ki_per_s=sign * ki, kd_s=sign * kd, sample_time_s=h, out_min=out_min, out_max=out_max,
+        derivative_filter_n=float(rng.choice([3.0, 10.0, 20.0, math.inf])),
+        setpoint_weight=float(rng.choice([0.0, 0.5, 1.0, 1.2])),
+        rate_limit_per_s=None if rng.random() < 0.4 else out_max / h / float(10 ** rng.uniform(0.5, 2.5)),
+        anti_windup=str(rng.choice(["back_calculation", "clamping", "none"])),
+        tracking_time_s=None if rng.random() < 0.7 else float(10 ** rng.uniform(-3, 1)),
+    )
+    input_per_count = float(10 ** rng.uniform(-4, -1)) * (-1.0 if rng.random() < 0.15 else 1.0)
+    output_per_count = out_max / float(rng.choice([2047, 4095, 32767, 65535])) * (-1 if rng.random() < 0.2 else 1)
+    return settings, input_per_count, output_per_count
+
+
+def multi_harness(names) -> str:
+    """One program holding several controllers; argv[1] picks one; commands as in harness_source."""
+    parts = ["#include <stdio.h>", "#include <stdint.h>", "#include <stdlib.h>"]
+    parts += [f'#include "{n}.h"' for n in names]
+    parts.append("typedef struct { int32_t (*step)(int32_t, int32_t, int32_t *, int32_t *); "
+                 "void (*manual)(int32_t); void (*automatic)(void); void (*init)(void); "
+                 "void (*init_at)(int32_t); } ops_t;")
+    for n in names:
+        parts.append(f"""static {n}_state_t st_{n};
+static int32_t step_{n}(int32_t r, int32_t y, int32_t *i, int32_t *d)
+{{ int32_t o = {n}_step(&st_{n}, r, y); *i = st_{n}.integrator_q; *d = st_{n}.derivative_q; return o; }}
+static void manual_{n}(int32_t o) {{ {n}_set_manual(&st_{n}, o); }}
+static void automatic_{n}(void) {{ {n}_set_auto(&st_{n}); }}
+static void init_{n}(void) {{ {n}_init(&st_{n}); }}
+static void init_at_{n}(int32_t o) {{ {n}_init_at(&st_{n}, o); }}""")
+    table = ", ".join(f"{{step_{n}, manual_{n}, automatic_{n}, init_{n}, init_at_{n}}}" for n in names)
+    parts.append(f"static const ops_t table[] = {{{table}}};")
+    parts.append("""int main(int argc, char **argv)
+{
+    char line[128];
+    long long a = 0, b = 0;
+    int32_t i = 0, d = 0, o = 0;
+    const ops_t *ops;
+    if (argc < 2) { return 2; }
+    ops = &table[atoi(argv[1])];
+    ops->init();
+    while (fgets(line, (int)sizeof line, stdin) != NULL) {
+        switch (line[0]) {
+        case 's':
+            if (sscanf(line + 1, "%lld %lld", &a, &b) != 2) { return 3; }
+            o = ops->step((int32_t)a, (int32_t)b, &i, &d);
+            printf("%ld %ld %ld %ld\\n", (long)o, (long)i, (long)d, (long)o);
+            break;
+        case 'm': if (sscanf(line + 1, "%lld", &a) != 1) { return 3; } ops->manual((int32_t)a); break;
+        case 'a': ops->automatic(); break;
+        case 'i': ops->init(); break;
+        case 'j': if (sscanf(line + 1, "%lld", &a) != 1) { return 3; } ops->init_at((int32_t)a); break;
+        default: return 4;
+        }
+    }
+    return 0;
+}
+""")
+    return "\n".join(parts)
+
+
+@needs_cc
+def test_random_configurations_are_bit_exact(tmp_path):
+    rng = np.random.default_rng(515)
+    configs = {}
+    refused = 0
+    while len(configs) < 24:
+        s, ipc, opc = random_settings(rng)
+        try:
+            configs[f"pid{len(configs):02d}"] = quantise_pid(s, input_per_count=ipc, output_per_count=opc)
+        except ModelError:
+            refused += 1  # e.g. a coefficient beyond the format: refused with a clear error, not emitted
+    assert refused < 24
+    files = {}
+    for name, coeffs in configs.items():
+        files.update(render_pid_c(coeffs, name=name))
+    exe = compile_c(tmp_path, files, {"multi.c": multi_harness(list(configs))},
+                    STRICT + ["-O1"] + sanitizer_flags(tmp_path))
+    shifts = set()
+    for index, (name, coeffs) in enumerate(configs.items()):
+        sched = random_schedule(np.random.default_rng(index), 3000, coeffs)
+        result = subprocess.run([str(exe), str(index)], input=c_commands(sched), capture_output=True, text=True)
+        assert result.returncode == 0 and result.stderr == "", (name, result.stderr)
+        got = [tuple(int(v) for v in line.split()) for line in result.stdout.splitlines()]
+        expected = run_python(coeffs, sched)
+        first_bad = next((k for k, (a, b) in enumerate(zip(got, expected)) if a != b), None)
+        assert len(got) == len(expected) and first_bad is None, (name, coeffs, first_bad)
+        shifts |= {coeffs.p_shift, coeffs.ki_shift, coeffs.bd_shift, coeffs.track_shift, coeffs.ad_shift}
+    assert len(shifts) > 15  # the coefficients cover a wide range of formats

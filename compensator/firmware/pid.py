@@ -378,7 +378,10 @@ class FloatPid:
             self._u = 0.0
             self._have_output = False
         else:
-            self._u = self._clip(float(output))
+            output = float(output)
+            if not math.isfinite(output):
+                raise ModelError(f"reset output: must be finite, got {output!r}")
+            self._u = self._clip(output)
             self._have_output = True
 
     def _clip(self, value: float) -> float:
