@@ -258,6 +258,16 @@ def test_settings_errors_name_the_field(overrides, field):
     assert isinstance(info.value, CompensatorError) and "\n" not in str(info.value)
 
 
+@pytest.mark.parametrize("field, value", [
+    ("kp_mant", (1 << 30) + 1), ("ad_shift", 63), ("state_frac_bits", 25), ("out_min_count", 5000),
+    ("out_max_count", 1 << 20), ("rate_step_q", -1), ("anti_windup", "freeze"),
+])
+def test_coefficients_keep_their_invariants(field, value):
+    c = quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01)
+    with pytest.raises(ModelError, match=field.split("_")[0]):
+        dataclasses.replace(c, **{field: value})
+
+
 def test_fixed_input_validation():
     pid = FixedPid(quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01))
     with pytest.raises(ModelError, match="setpoint_count"):

@@ -593,6 +593,28 @@ class FixedPidCoefficients:
     out_min_exact_count: float
     out_max_exact_count: float
 
+    def __post_init__(self):
+        # the invariants the overflow-free arithmetic relies on (the C code asserts them too)
+        f = self.state_frac_bits
+        if not 0 <= f <= MAX_STATE_FRAC_BITS:
+            raise ModelError(f"state_frac_bits: {f} is outside 0..{MAX_STATE_FRAC_BITS}")
+        for key in ("kp", "kpb", "ki", "ad", "bd", "track"):
+            mant = getattr(self, f"{key}_mant")
+            if abs(mant) > MANTISSA_LIMIT:
+                raise ModelError(f"{key}_mant: {mant} exceeds 2^30 in magnitude")
+        for key in ("p", "ki", "ad", "bd", "track"):
+            shift = getattr(self, f"{key}_shift")
+            if not 0 <= shift <= MAX_SHIFT:
+                raise ModelError(f"{key}_shift: {shift} is outside 0..{MAX_SHIFT}")
+        if not self.out_min_count <= self.out_max_count:
+            raise ModelError(f"out_min_count/out_max_count: {self.out_min_count} is above {self.out_max_count}")
+        if max(abs(self.out_min_count), abs(self.out_max_count)) > INT32_MAX >> f:
+            raise ModelError(f"out_min_count/out_max_count: the limits do not fit Q{31 - f}.{f}")
+        if not 0 <= self.rate_step_q <= INT32_MAX:
+            raise ModelError(f"rate_step_q: {self.rate_step_q} is outside 0..2^31-1")
+        if self.anti_windup not in ANTI_WINDUP_MODES:
+            raise ModelError(f"anti_windup: must be one of {', '.join(ANTI_WINDUP_MODES)}, got {self.anti_windup!r}")
+
     @property
     def anti_windup_code(self) -> int:
         """0 back-calculation, 1 clamping, 2 none (the value used in C)."""
