@@ -1,5 +1,6 @@
 """Compensation laws and the gain-error budget they leave (pure numerics, no I/O)."""
 
+from compensator.law.budget import BudgetTerm, GainBudget, MonteCarloSummary, gain_error_budget
 from compensator.law.laws import (
     LAW_KINDS,
     CompensationLaw,
@@ -10,6 +11,6 @@ from compensator.law.laws import (
 )
 
 __all__ = [
-    "LAW_KINDS", "CompensationLaw", "build_law", "check_law_in_range", "constant_gain_law",
+    "BudgetTerm", "GainBudget", "MonteCarloSummary", "gain_error_budget", "LAW_KINDS", "CompensationLaw", "build_law", "check_law_in_range", "constant_gain_law",
     "constant_overvoltage_law",
 ]
