@@ -399,3 +399,20 @@ def test_random_configurations_are_bit_exact(tmp_path):
         assert len(got) == len(expected) and first_bad is None, (name, coeffs, first_bad)
         shifts |= {coeffs.p_shift, coeffs.ki_shift, coeffs.bd_shift, coeffs.track_shift, coeffs.ad_shift}
     assert len(shifts) > 15  # the coefficients cover a wide range of formats
+
+
+@needs_cc
+@pytest.mark.skipif(shutil.which("c++") is None, reason="no C++ compiler (c++) on PATH")
+def test_header_links_from_cpp(tmp_path):
+    files = render_pid_c(coefficients("cooler_pid"), name="cooler_pid")
+    for file_name, text in files.items():
+        (tmp_path / file_name).write_text(text)
+    (tmp_path / "main.cpp").write_text(
+        '#include "cooler_pid.h"\n'
+        "int main() { cooler_pid_state_t s; cooler_pid_init(&s); return cooler_pid_step(&s, 100, 0) > 0 ? 0 : 1; }\n")
+    obj = tmp_path / "cooler_pid.o"
+    subprocess.run([CC, *STRICT, "-c", "-o", str(obj), str(tmp_path / "cooler_pid.c")], check=True)
+    result = subprocess.run(["c++", "-Wall", "-Wextra", "-Werror", "-o", str(tmp_path / "app"),
+                             str(tmp_path / "main.cpp"), str(obj)], capture_output=True, text=True)
+    assert result.returncode == 0, result.stderr
+    assert subprocess.run([str(tmp_path / "app")]).returncode == 0
