@@ -26,6 +26,12 @@ limit taken as three sigma. The root-sum-square is the combined standard
 uncertainty; the worst case adds every limit (and the systematic terms) at
 each temperature.
 
+Self-heating (always warming, by an amount that depends on excitation and
+air flow) and the sensor-to-die offset (either sign, set by the mounting)
+are both taken as unknown constant temperature offsets within +- the profile
+value (rectangular): their typical part is what a one-point calibration
+removes.
+
 **Systematic terms** are not random: the law's own residual (the
 constant-overvoltage law leaves the cell-capacitance coefficient
 uncompensated) and the series-resistor drop when it is not corrected.
