@@ -133,6 +133,33 @@ def test_float_pid_manual_target_clipped():
         pid.set_manual(math.nan)
 
 
+@pytest.mark.parametrize("overrides", [
+    dict(),
+    dict(setpoint_weight=0.3, derivative_filter_n=4.0),
+    dict(kp=0.0, kd_s=0.05),
+    dict(kd_s=0.0, derivative_filter_n=math.inf),
+])
+def test_float_pid_equals_its_transfer_functions_in_python_control(overrides):
+    """Away from the limits the controller is linear: u = Cr(z) r - Cy(z) y with
+    Cr = b kp + bi/(z - 1) and Cy = kp + bi/(z - 1) + bd (z - 1)/(z - ad); reference: python-control
+    ``forced_response`` on those discrete transfer functions."""
+    control = pytest.importorskip("control")
+    s = settings(out_min=-1e6, out_max=1e6, **overrides)
+    d = discretise_pid(s)
+    h = s.sample_time_s
+    integ = control.tf([d.bi], [1.0, -1.0], h)
+    c_r = d.kpb + integ
+    c_y = d.kp + integ + control.tf([d.bd, -d.bd], [1.0, -d.ad], h)
+    rng = np.random.default_rng(5)
+    n = 400
+    r = np.concatenate([[0.0], np.repeat(rng.normal(0, 2, n // 50), 50)[: n - 1]])
+    y = np.concatenate([[0.0], np.cumsum(rng.normal(0, 0.1, n - 1))])
+    t = np.arange(n) * h
+    expected = control.forced_response(c_r, t, r).outputs - control.forced_response(c_y, t, y).outputs
+    got = FloatPid(s).run(r, y).output
+    np.testing.assert_allclose(got, expected, rtol=1e-9, atol=1e-9)
+
+
 # --- closed loop on a first-order plant -----------------------------------------------
 
 
