@@ -184,3 +184,23 @@ def test_sweep_csv_columns(sipm_b, board_pt1000):
     assert len(lines) == table.code_hi - table.code_lo + 2
     first = lines[1].split(",")
     assert int(first[0]) == table.code_lo and len(first) == 6
+
+
+@needs_cc
+@pytest.mark.skipif(shutil.which("c++") is None, reason="no C++ compiler (c++) on PATH")
+def test_header_links_from_cpp(sipm_a, board_ntc, tmp_path):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    table = build_table(law, board_ntc, 0.05, "optimised")
+    for fname, text in render_table_c(table, [sipm_a, board_ntc]).items():
+        (tmp_path / fname).write_text(text)
+    (tmp_path / "main.cpp").write_text(
+        '#include "bias_dac_from_adc.h"\n#include <cstdio>\n'
+        f'int main() {{ std::printf("%u", (unsigned)bias_dac_from_adc({table.code_lo})); return 0; }}\n')
+    obj = tmp_path / "table.o"
+    subprocess.run([CC, *STRICT, "-c", "-o", str(obj), str(tmp_path / "bias_dac_from_adc.c")], check=True)
+    exe = tmp_path / "cpp"
+    proc = subprocess.run([shutil.which("c++"), "-Wall", "-Wextra", "-Werror", "-o", str(exe), str(tmp_path / "main.cpp"),
+                           str(obj)], capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    out = subprocess.run([str(exe)], capture_output=True, text=True, check=True).stdout
+    assert int(out) == int(table.lookup([table.code_lo])[0][0])

@@ -134,8 +134,10 @@ def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NA
     width = max(len(f"{up}_{k}") for k, _, _ in defines)
     for key, value, comment in defines:
         h.append(f"#define {f'{up}_{key}':<{width}} {int(value)}u /* {comment} */\n")
+    h.append("\n#ifdef __cplusplus\nextern \"C\" {\n#endif\n")
     h.append(f"\n/* Bias DAC code for a raw temperature ADC code (integer only, no division). */\n{sig};\n\n")
     h.append(f"/* {up}_STATUS_* for a raw temperature ADC code. */\nuint8_t {name}_status({ct} adc_code);\n\n")
+    h.append("#ifdef __cplusplus\n}\n#endif\n\n")
     h.append(f"#endif /* {guard} */\n")
 
     c = [banner, f'#include "{name}.h"\n\n']

@@ -42,10 +42,18 @@
 #define BIAS_DAC_FROM_ADC_ENTRIES             39u /* table rows */
 #define BIAS_DAC_FROM_ADC_TABLE_BYTES         78u /* bytes of const table data */
 
+#ifdef __cplusplus
+extern "C" {
+#endif
+
 /* Bias DAC code for a raw temperature ADC code (integer only, no division). */
 uint16_t bias_dac_from_adc(uint16_t adc_code);
 
 /* BIAS_DAC_FROM_ADC_STATUS_* for a raw temperature ADC code. */
 uint8_t bias_dac_from_adc_status(uint16_t adc_code);
+
+#ifdef __cplusplus
+}
+#endif
 
 #endif /* BIAS_DAC_FROM_ADC_H */
