@@ -208,3 +208,18 @@ def test_demo_data_is_deterministic_and_never_overwritten(demo, tmp_path):
             assert (again / path.relative_to(demo)).read_bytes() == path.read_bytes()
     assert make_demo_data.main([str(again)]) == 2
     assert make_demo_data.main([str(again), "--force"]) == 0
+
+
+def test_spectrum_event_list_in_adc_counts(cli, tmp_path):
+    from compensator.calibration.spectrum import simulate_events
+
+    rng = __import__("numpy").random.default_rng(5)
+    q = simulate_events(rng, gain=42.0, pedestal=200.0, sigma0=4.0, sigma1=1.5, mean_pe=1.8, crosstalk=0.06,
+                        n_events=20000)
+    path = tmp_path / "events.csv"
+    path.write_text("event,charge_adc\n" + "".join(f"{i},{v:.2f}\n" for i, v in enumerate(q)))
+    r = cli("calibrate", "spectrum", path, "--json")
+    assert r.status == 0, r.stderr
+    s = json.loads(r.stdout)["spectra"][0]
+    assert s["charge_unit"] == "adc"
+    assert s["gain"] == pytest.approx(42.0, rel=0.01)

@@ -143,3 +143,11 @@ def test_noise_estimate_and_window_choice_follow_the_data():
     windows = choose_window([0.0005, 0.005, 0.05, 0.5], [10.0] * 4, 0.05, 221)
     assert np.all(np.diff(windows) >= 0) and windows[0] == 5 and windows[-1] > 5
     assert np.all(windows % 2 == 1)
+
+
+def test_non_finite_values_are_a_reason_not_a_crash():
+    current = iv_current_a(GRID_V, 24.5) * np.ones((2, 1))
+    current[1, 40] = np.nan
+    r = find_breakdown(GRID_V, current)
+    assert r.ok.tolist() == [True, False]
+    assert "non-finite" in r.reason[1]

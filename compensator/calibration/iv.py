@@ -45,6 +45,7 @@ other curves of the batch are unaffected.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -123,6 +124,7 @@ def _odd(n: int) -> int:
     return n if n % 2 else n - 1
 
 
+@functools.lru_cache(maxsize=None)
 def _noise_gain(window: int, deriv: int) -> float:
     """Factor from the noise of ln I (per point) to the noise of its SG derivative (per unit step)."""
     return float(np.linalg.norm(savgol_coeffs(window, POLYORDER, deriv=deriv, use="dot")))
@@ -178,12 +180,18 @@ def choose_window(noise, peak_height, step_v, n_points, deriv=1):
     return windows[first]
 
 
+def _gains(windows, deriv):
+    """Noise gain of each curve's window (computed once per distinct window)."""
+    table = {int(w): _noise_gain(int(w), deriv) for w in np.unique(windows)}
+    return np.array([table[int(w)] for w in windows]) if len(windows) else np.zeros(0)
+
+
 def _savgol_grouped(y, windows, step_v, deriv):
     """Savitzky-Golay derivative of each row with its own window (grouped by window)."""
     out = np.empty_like(y)
     for w in np.unique(windows):
         rows = windows == w
-        out[rows] = savgol_filter(y[rows], int(w), POLYORDER, deriv=deriv, delta=step_v, axis=-1, mode="interp")
+        out[rows] = savgol_filter(y[rows], int(w), POLYORDER, deriv=deriv, delta=step_v, axis=-1, mode="nearest")
     return out
 
 
@@ -296,18 +304,18 @@ def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdo
     grid = np.full((m, n), np.nan)
     ln_i = np.full((m, n), np.nan)
     if bias_rows is None:
-        reason = check_curve(bias_v, current_a[0]) if m else ""
-        if reason.startswith(("bias", "too few")):
-            reasons = [reason] * m
+        grid_reason = check_curve(bias_v, np.ones_like(bias_v))  # the shared grid alone
+        if grid_reason:
+            reasons = [grid_reason] * m
         else:
-            flip = n > 1 and bias_v[-1] < bias_v[0]
+            flip = bias_v[-1] < bias_v[0]
             b = bias_v[::-1] if flip else bias_v
             c = current_a[:, ::-1] if flip else current_a
-            with np.errstate(divide="ignore", invalid="ignore"):
-                logs = np.log(c)
             bad = ~np.all(np.isfinite(c), axis=1) | np.any(c <= 0, axis=1)
             for i in np.flatnonzero(bad):
                 reasons[i] = check_curve(b, c[i])
+            with np.errstate(divide="ignore", invalid="ignore"):
+                logs = np.log(np.where(bad[:, None], 1.0, c))
             g, logs_u = _uniform(b, logs)
             grid[:] = g
             ln_i[:] = logs_u
@@ -351,7 +359,7 @@ def _analyse_uniform(grid, ln_i, step_v, method):
     reasons = [""] * m
     noise = estimate_log_noise(ln_i)
     w_max = max(5, _odd(n // 4))
-    pilot = savgol_filter(ln_i, w_max, POLYORDER, deriv=1, delta=step_v, axis=-1, mode="interp")
+    pilot = savgol_filter(ln_i, w_max, POLYORDER, deriv=1, delta=step_v, axis=-1, mode="nearest")
     h_max = w_max // 2
     pilot_peak = np.max(pilot[:, h_max:n - h_max], axis=1) if n > 2 * h_max else np.max(pilot, axis=1)
     windows = choose_window(noise, pilot_peak, step_v, n, deriv=1)
@@ -359,11 +367,12 @@ def _analyse_uniform(grid, ln_i, step_v, method):
     half = windows // 2
     cols = np.arange(n)[None, :]
     interior = (cols >= half[:, None]) & (cols < n - half[:, None])
+    deriv[~interior] = np.nan  # within half a window of the ends the filter has no full support
     masked = np.where(interior, deriv, -np.inf)
     p = np.argmax(masked, axis=1)
     rows = np.arange(m)
     peak = deriv[rows, p]
-    sigma_d = noise * np.array([_noise_gain(int(w), 1) for w in windows]) / step_v
+    sigma_d = noise * _gains(windows, 1) / step_v
 
     # No breakdown in the range: too little rise, or the derivative still climbing at the end.
     rise = np.max(ln_i, axis=1) - np.min(ln_i, axis=1)
@@ -388,7 +397,7 @@ def _analyse_uniform(grid, ln_i, step_v, method):
         _fit_peak(grid, deriv, p, half, sigma_d, corr, out)
     else:
         noise2 = noise
-        pilot2 = savgol_filter(ln_i, w_max, POLYORDER, deriv=2, delta=step_v, axis=-1, mode="interp")
+        pilot2 = savgol_filter(ln_i, w_max, POLYORDER, deriv=2, delta=step_v, axis=-1, mode="nearest")
         region_hi = np.minimum(p + half, n - 1)
         in_region = interior & (cols <= region_hi[:, None])
         peak2 = np.max(np.where(in_region, pilot2, -np.inf), axis=1)
@@ -397,7 +406,7 @@ def _analyse_uniform(grid, ln_i, step_v, method):
         half2 = windows2 // 2
         in_region = (cols >= half2[:, None]) & (cols <= region_hi[:, None]) & (cols < n - half2[:, None])
         p2 = np.argmax(np.where(in_region, d2, -np.inf), axis=1)
-        sigma_d2 = noise2 * np.array([_noise_gain(int(w), 2) for w in windows2]) / step_v ** 2
+        sigma_d2 = noise2 * _gains(windows2, 2) / step_v ** 2
         _fit_peak(grid, d2, p2, half2, sigma_d2, np.sqrt(np.maximum(windows2 / 2.0, 1.0)), out)
         for i in range(m):
             if not reasons[i] and (p2[i] <= half2[i] or d2[i, p2[i]] <= 0):
