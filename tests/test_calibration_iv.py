@@ -93,6 +93,7 @@ def test_vectorised_batch_equals_one_by_one_and_sweep_direction_does_not_matter(
         down = find_breakdown(GRID_V[::-1], current[i, ::-1], method)
         assert down.breakdown_v[0] == pytest.approx(batch.breakdown_v[i], abs=1e-9)
     assert np.all(np.abs(batch.breakdown_v - truth) < 0.3)
+    assert np.all(np.isfinite(batch.breakdown_err_v)) and np.all(batch.breakdown_err_v > 0)
 
 
 def test_non_uniform_grid_is_resampled():

@@ -96,7 +96,8 @@ class IvBreakdown:
     bias_v : ndarray, shape (n_curves, n_points)
         Uniform bias grid each curve was analysed on, volt (for plots).
     log_derivative_per_v : ndarray, shape (n_curves, n_points)
-        Smoothed d ln I / dV, 1/volt (NaN rows where the curve failed early).
+        Smoothed d ln I / dV, 1/volt (NaN within half a window of the ends, and
+        NaN rows where the curve failed early).
     """
 
     breakdown_v: np.ndarray
@@ -198,9 +199,10 @@ def _savgol_grouped(y, windows, step_v, deriv):
 def _weighted_poly(x, y, weights, mask, degree):
     """Weighted polynomial fit of every row over its masked points; returns coeffs (low->high), cov, chi2, n."""
     wm = np.where(mask, weights, 0.0)
+    y = np.where(mask, y, 0.0)  # points outside the mask (possibly NaN) must not reach the sums
     powers = np.stack([x ** d for d in range(degree + 1)], axis=-1)  # (m, n, p)
     a = np.einsum("mn,mni,mnj->mij", wm, powers, powers)
-    b = np.einsum("mn,mni,mn->mi", wm, powers, np.where(mask, y, 0.0))
+    b = np.einsum("mn,mni,mn->mi", wm, powers, y)
     n_used = mask.sum(axis=1)
     good = n_used > degree
     a_safe = np.where(good[:, None, None], a, np.eye(degree + 1)[None])

@@ -249,8 +249,8 @@ def _spectrum_groups(args):
     if not args.files or not args.bias_v or len(args.bias_v) != len(args.files):
         n_b = len(args.bias_v or [])
         raise InputError(f"--bias-v: give one bias per spectrum file ({len(args.files)} files, {n_b} biases)")
-    return [(args.files[0] if len(args.files) == 1 else f"{len(args.files)} spectra", args.temp_c,
-             list(zip(args.files, args.bias_v)))]
+    # A scan from loose spectra is named by its first file (every file is listed under "spectra").
+    return [(args.files[0], args.temp_c, list(zip(args.files, args.bias_v)))]
 
 
 def _scan_from_spectra(args, label, temp_c, entries, errors):
