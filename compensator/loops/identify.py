@@ -25,8 +25,10 @@ from compensator.errors import ModelError
 from compensator.loops.measurements import LoopRecord
 from compensator.loops.plants import FopdtModel, Plant, SopdtModel, step_response
 
-SMITH_LOW = 0.283
-SMITH_HIGH = 0.632
+#: The two levels: 1 - exp(-1/3) and 1 - exp(-1) (published rounded as 28.3 % and 63.2 %); with the exact
+#: levels the method is exact on a true FOPDT: t28 = theta + tau/3, t63 = theta + tau.
+SMITH_LOW = float(-np.expm1(-1.0 / 3.0))
+SMITH_HIGH = float(-np.expm1(-1.0))
 
 
 @dataclass(frozen=True)

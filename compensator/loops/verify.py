@@ -3,12 +3,14 @@
 The plant is discretised at the firmware rate with a zero-order hold, its dead
 time exact, plus one sample of computation delay
 (:func:`compensator.loops.plants.discretise`). The controller is the discrete
-PID in parallel form with the integral by backward rectangles and the
-derivative on the measurement through a first-order filter (time constant
-``Td / N``), backward differences::
+PID of the firmware reference (:mod:`compensator.firmware.pid`): parallel
+form, forward-Euler integrator (the integral used at sample k holds the errors
+up to k-1), derivative on the measurement through a first-order filter
+(``Tf = kd / (kp N)``, backward difference), setpoint weight ``b`` on the
+proportional term. With ``q = z^-1``, and away from the output limits::
 
-    C(z)  = kp + ki T / (1 - z^-1) + kd (1 - z^-1) / (T + Tf (1 - z^-1))
-    Cr(z) = b kp + ki T / (1 - z^-1)       (setpoint path: weight b, no derivative)
+    C(z)  = kp + ki T q / (1 - q) + kd (1 - q) / (T + Tf (1 - q))    (measurement to actuator)
+    Cr(z) = b kp + ki T q / (1 - q)                                  (setpoint to actuator)
 
 Margins come from python-control ``stability_margins`` on ``L = C P``; Ms
 is ``1 / min |1 + L|`` on a dense frequency grid up to the Nyquist
@@ -53,7 +55,7 @@ class PidGains:
     kd_s : float
         Derivative gain, actuator units per output unit times second.
     derivative_filter_n : float
-        N: the derivative filter time constant is ``kd / (kp N)``.
+        N: the derivative filter time constant is ``kd / (kp N)`` (one sample when kp is 0).
     setpoint_weight : float
         b: the proportional term acts on ``b r - y``.
     """
@@ -67,10 +69,8 @@ class PidGains:
     @property
     def derivative_filter_s(self) -> float:
         """Derivative filter time constant Tf = Td / N, second (0 without derivative)."""
-        if self.kd_s == 0:
+        if self.kd_s == 0 or self.kp == 0:
             return 0.0
-        if self.kp == 0:
-            raise ModelError("a derivative term needs a nonzero kp for its filter (Tf = kd / (kp N))")
         return abs(self.kd_s / self.kp) / self.derivative_filter_n
 
 
@@ -163,19 +163,20 @@ class LoopReport:
 def _controller_parts(gains: PidGains, T: float):
     """Numerator and denominator of C(z) and Cr(z) in powers of z^-1 (lowest first)."""
     kp, ki, kd = gains.kp, gains.ki_per_s, gains.kd_s
-    tf_ = gains.derivative_filter_s
-    # C = kp + ki T/(1 - q) + kd (1 - q)/((T + Tf) - Tf q), q = z^-1; common denominator (1 - q)((T+Tf) - Tf q).
+    tf_ = gains.derivative_filter_s if kp != 0 else T
     one_minus_q = np.array([1.0, -1.0])
     b = gains.setpoint_weight
+    i_num = np.array([0.0, ki * T])  # ki T q over (1 - q)
     if kd != 0:
         dden = np.array([T + tf_, -tf_])
         den = np.convolve(one_minus_q, dden)
-        num = kp * den + np.pad(ki * T * dden, (0, 1)) + kd * np.convolve(one_minus_q, one_minus_q)
-        rnum = b * kp * den + np.pad(ki * T * dden, (0, 1))
+        integral = np.convolve(i_num, dden)[:3]
+        num = kp * den + integral + kd * np.convolve(one_minus_q, one_minus_q)
+        rnum = b * kp * den + integral
     else:
         den = one_minus_q
-        num = kp * den + np.array([ki * T, 0.0])
-        rnum = b * kp * den + np.array([ki * T, 0.0])
+        num = kp * den + i_num
+        rnum = b * kp * den + i_num
     return num, den, rnum
 
 
@@ -214,10 +215,11 @@ def controller_frequency_response(gains: PidGains, sample_time_s: float, omega_r
     kp = np.asarray(gains.kp, dtype=float)
     ki = np.asarray(gains.ki_per_s, dtype=float)
     kd = np.asarray(gains.kd_s, dtype=float)
-    c = kp[..., None] + (ki[..., None] * T) / (1.0 - q)
+    c = kp[..., None] + (ki[..., None] * T) * q / (1.0 - q)
     if np.any(kd != 0):
         with np.errstate(divide="ignore", invalid="ignore"):
-            tf_ = np.where(kd != 0, np.abs(kd / np.where(kp == 0, np.inf, kp)) / gains.derivative_filter_n, 0.0)
+            tf_ = np.where(kp == 0, T, np.abs(kd / np.where(kp == 0, 1.0, kp)) / gains.derivative_filter_n)
+            tf_ = np.where(kd != 0, tf_, 0.0)
         c = c + kd[..., None] * (1.0 - q) / (T + tf_[..., None] * (1.0 - q))
     return c
 
