@@ -1022,10 +1022,14 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
     * ``eD' <= ad eD + |dad| Dmax + |dbd| 2X + eta`` (two roundings); from
       ``eD = 0`` it never exceeds its fixed point ``eD* = (...) / (1 - ad)``;
     * ``ev <= eP + eI + eD*``. Clipping to the limits is 1-Lipschitz; the rate
-      limit, a clip to ``u_prev +- du``, adds ``eu_prev + |ddu|``: so
-      ``eu <= max(ev, eu_prev + |ddu|)`` in automatic mode and ``eu <=
-      eu_prev + |ddu|`` (0 without a rate limit: the target is exact) in
-      manual mode;
+      limit, a clip to ``u_prev +- du``, adds ``eu_prev + |ddu|``; the
+      integer limits differ from the exact ones by at most ``L =
+      max(|out_min_count - out_min_exact|, |out_max_count - out_max_exact|)``
+      (they lie inside them), and a clip is 1-Lipschitz in the value and its
+      bounds together: so ``eu <= max(ev, L, eu_prev + |ddu|)`` in automatic
+      mode and ``eu <= max(L, eu_prev + |ddu|)`` in manual mode (the target
+      is the same number for both; without a rate limit drop the
+      ``eu_prev`` terms);
     * back-calculation: ``I' = (1 - ao) I + ao (u - P - D) + bi e`` with
       ``0 <= ao <= 1``, so ``eI' <= (1 - ao) eI + ao (eu + eP + eD*) + |dao|
       |u - v| + |dbi| 2X + eta`` with ``|u - v| <= 2^(32-F)`` counts (int32
@@ -1035,9 +1039,7 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
       starts from ``eI = eP + eD* + eta``.
 
     The output error is ``eu + 1/2`` (the fixed output is rounded to a whole
-    count) plus ``max(|out_min_count - out_min_exact|, |out_max_count -
-    out_max_exact|)`` (the integer limits lie inside the exact ones). The
-    integrator does not forget, so in automatic mode the bound grows about
+    count). The integrator does not forget, so in automatic mode the bound grows about
     linearly with the number of steps; it is therefore stated for a run
     length.
 
@@ -1095,18 +1097,20 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
         e_d = 0.0
     tracking = c.anti_windup == "back_calculation" and c.track_mant != 0
     ao = c.track
+    lim = max(abs(c.out_min_count - c.out_min_exact_count), abs(c.out_max_count - c.out_max_exact_count))
     e_i = e_p + e_d + eta
     e_u = 0.0
     for is_manual in modes:
         if is_manual:
-            e_u = e_u + d_rate if c.rate_step_q else 0.0
+            # the target is the same number for both, clipped to limits that differ by up to lim
+            e_u = max(lim, e_u + d_rate) if c.rate_step_q else lim
             e_i = e_u + e_p + e_d + eta
             continue
         e_v = e_p + e_i + e_d
-        e_u = max(e_v, e_u + d_rate) if c.rate_step_q else e_v
+        e_clip = max(e_v, lim)  # clip(v, lo, hi) is 1-Lipschitz in v, lo and hi together
+        e_u = max(e_clip, e_u + d_rate) if c.rate_step_q else e_clip
         if tracking:
             e_i = (1 - ao) * e_i + ao * (e_u + e_p + e_d) + d_tr * uv_max + d_ki * 2 * x + eta
         else:
             e_i = e_i + d_ki * 2 * x + eta / 2
-    lim = max(abs(c.out_min_count - c.out_min_exact_count), abs(c.out_max_count - c.out_max_exact_count))
-    return e_u + 0.5 + lim
+    return e_u + 0.5
