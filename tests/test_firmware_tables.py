@@ -17,7 +17,6 @@ from compensator.firmware.tables import (
     sweep_table,
 )
 from compensator.law import build_law
-from compensator.law.laws import temp_at_continuous_code
 
 PAIRS = [("sipm_a", "board_ntc", 3.0), ("sipm_b", "board_pt1000", 4.0), ("sipm_c", "board_pt1000", 5.0)]
 
@@ -97,7 +96,7 @@ def test_breakpoints_respect_the_interpolation_error_bound(built, pair):
     # h^2 max|f''| / 8. f is the law's exact DAC code against the ADC code; f'' from second differences.
     law, board, table = built(*pair, "optimised", 0.05)
     codes = np.arange(table.code_lo - 1, table.code_hi + 2)
-    f = (law.output_v(temp_at_continuous_code(board.temperature, codes + 0.5)) - board.supply.intercept_v) \
+    f = (law.output_v(board.temperature.temp_at(codes + 0.5)) - board.supply.intercept_v) \
         / board.supply.volts_per_code
     f2 = np.abs(f[2:] - 2 * f[1:-1] + f[:-2])  # at codes code_lo .. code_hi
     fc = f[1:-1]
@@ -142,7 +141,7 @@ def test_lookup_statuses_and_safe_code(built, board_ntc):
     assert np.all(status[below] == STATUS_BELOW_RANGE) and np.all(dac[below] == dac[table.code_lo])
     assert np.all(status[above] == STATUS_ABOVE_RANGE) and np.all(dac[above] == dac[table.code_hi])
     # The fault band sits the margin (20 K) outside the operating range.
-    t_band = temp_at_continuous_code(board.temperature, np.array([table.fault_lo, table.fault_hi]) + 0.5)
+    t_band = board.temperature.temp_at(np.array([table.fault_lo, table.fault_hi]) + 0.5)
     assert sorted(t_band) == pytest.approx([-45.0, 65.0], abs=0.1)  # NTC on the low side: code falls as T rises
 
 

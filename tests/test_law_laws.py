@@ -7,7 +7,6 @@ import pytest
 
 from compensator.errors import ModelError
 from compensator.law import build_law, check_law_in_range, constant_gain_law, constant_overvoltage_law
-from compensator.law.laws import continuous_adc_code, temp_at_continuous_code
 from compensator.physics.sipm import breakdown_v, gain
 from compensator.physics.supply import sipm_bias_v
 
@@ -86,8 +85,8 @@ def test_bad_targets(sipm_a, board_ntc):
 @pytest.mark.parametrize("board_name", ["board_ntc", "board_pt1000"])
 def test_continuous_codes_round_trip(board_name, request):
     channel = request.getfixturevalue(board_name).temperature
-    x = continuous_adc_code(channel, TEMPS_C)
-    assert np.allclose(temp_at_continuous_code(channel, x), TEMPS_C, atol=1e-7)
+    x = channel.continuous_code(TEMPS_C)
+    assert np.allclose(channel.temp_at(x), TEMPS_C, atol=1e-7)
     codes = np.floor(x).astype(np.int64)
     assert np.array_equal(codes, channel.adc_code(TEMPS_C))
-    assert np.allclose(temp_at_continuous_code(channel, codes + 0.5), channel.temp_c(codes), atol=1e-9)
+    assert np.allclose(channel.temp_at(codes + 0.5), channel.temp_c(codes), atol=1e-9)

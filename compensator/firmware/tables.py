@@ -52,7 +52,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from compensator.errors import ModelError
-from compensator.law.laws import CompensationLaw, check_law_in_range, continuous_adc_code, temp_at_continuous_code
+from compensator.law.laws import CompensationLaw, check_law_in_range
 from compensator.physics.sipm import breakdown_v
 
 LAYOUTS = ("uniform", "optimised")
@@ -326,14 +326,14 @@ def _target(law, board, max_gain_error_pct) -> _Target:
     channel = board.temperature
     code_lo, code_hi = channel.code_range(law.min_temp_c, law.max_temp_c)
     codes = np.arange(code_lo, code_hi + 1, dtype=np.int64)
-    temps = temp_at_continuous_code(channel, codes + 0.5)
+    temps = channel.temp_at(codes + 0.5)
     if not np.all(np.isfinite(temps)):
         raise ModelError(f"{board.name}: some ADC codes of the operating range do not map to a temperature")
     exact = ideal_dac_code(law, temps)
     bound = max_gain_error_pct / _gain_pct_per_lsb(law, temps)
     ext = []
     for end in (code_lo, code_hi):
-        t2 = temp_at_continuous_code(channel, np.array([end - 0.5, end + 1.5]))
+        t2 = channel.temp_at(np.array([end - 0.5, end + 1.5]))
         e2 = (law.unclamped_output_v(t2) - law.supply.intercept_v) / law.supply.volts_per_code
         ext.append(float((e2[1] - e2[0]) / 2.0))
     return _Target(codes, temps, exact, bound, ext[0], ext[1], law.supply.dac.full_scale_code)
@@ -389,7 +389,7 @@ def _fault_band(law, board, fault_margin_k: float) -> tuple[int, int]:
     temps = np.array([law.min_temp_c - fault_margin_k, law.max_temp_c + fault_margin_k])
     with np.errstate(all="ignore"):
         try:
-            x = continuous_adc_code(channel, temps)
+            x = channel.continuous_code(temps)
         except ModelError as exc:
             raise ModelError(f"fault_margin_k: {fault_margin_k:g} K takes the range outside the sensor model: {exc}") from None
     x = np.where(np.isfinite(x), x, np.where(np.arange(2) == 0, 1.0, float(full)))
@@ -639,7 +639,7 @@ def sweep_table(table: LookupTable, law: CompensationLaw, board) -> TableSweep:
     TableSweep
     """
     codes = np.arange(table.code_lo, table.code_hi + 1, dtype=np.int64)
-    temps = temp_at_continuous_code(board.temperature, codes + 0.5)
+    temps = board.temperature.temp_at(codes + 0.5)
     ideal_v = law.output_v(temps)
     exact = (ideal_v - law.supply.intercept_v) / law.supply.volts_per_code
     dac, _ = table.lookup(codes)

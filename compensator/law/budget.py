@@ -68,7 +68,7 @@ import numpy as np
 
 from compensator.constants import ZERO_C_IN_K
 from compensator.errors import ModelError
-from compensator.law.laws import CompensationLaw, adc_span_fraction, temp_at_continuous_code
+from compensator.law.laws import CompensationLaw
 from compensator.physics.sensors import RTD_TOLERANCE_CLASSES, T25_K, NtcSensor, RtdSensor
 from compensator.physics.sipm import Sipm, cell_capacitance_f, gain, steady_current_a
 
@@ -277,13 +277,13 @@ def _chain_gain_error_pct(law: CompensationLaw, board, dev: dict, temp_c, quanti
         r = r * (1.0 + g("ntc_r25")) * np.exp(g("ntc_beta") * beta * (1.0 / (t_s + ZERO_C_IN_K) - 1.0 / T25_K))
     r_ref = fe.reference_resistor_ohm * (1.0 + g("reference_resistor"))
     frac = r / (r + r_ref) if fe.sensor_position == "low" else r_ref / (r + r_ref)
-    span = 1.0 if fe.ratiometric else adc_span_fraction(channel) * (1.0 + g("adc_reference"))
+    span = 1.0 if fe.ratiometric else fe.span_fraction * (1.0 + g("adc_reference"))
     x = frac / span * (1 << fe.adc_bits)
     if quantise:
         code = np.clip(np.floor(x), 0, fe.full_scale_code)
-        t_read = temp_at_continuous_code(channel, code + 0.5)
+        t_read = channel.temp_at(code + 0.5)
     else:
-        t_read = temp_at_continuous_code(channel, x)
+        t_read = channel.temp_at(x)
     supply = law.supply
     v_law = law.output_v(t_read)
     dac = (v_law - supply.intercept_v) / supply.volts_per_code

@@ -18,10 +18,6 @@ reachable output range, the board's ``max_bias_v`` and ``Vbd(T) +
 max_overvoltage_v``. The last limit is applied to the supply output itself, not
 to the SiPM bias after the drop: with no current the two are equal, so the
 SiPM never sees more than its maximum overvoltage whatever the light level.
-
-Also here: the temperature channel evaluated on *continuous* ADC codes (no
-floor, no clipping), which the lookup tables and the budget need to place
-breakpoints and propagate errors.
 """
 
 from __future__ import annotations
@@ -31,7 +27,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from compensator.errors import ModelError
-from compensator.physics.sensors import RTD_MAX_TEMP_C, RTD_MIN_TEMP_C, RtdSensor, TemperatureChannel
 from compensator.physics.sipm import Sipm, breakdown_v, cell_capacitance_f, steady_current_a
 from compensator.physics.supply import BiasSupply
 
@@ -39,75 +34,6 @@ LAW_KINDS = ("constant_overvoltage", "constant_gain")
 
 #: Names of the limits that can clamp a law, in the order they are tested.
 LIMIT_NAMES = ("supply minimum output", "supply maximum output", "board max_bias_v", "sipm max_overvoltage_v")
-
-
-def adc_span_fraction(channel: TemperatureChannel) -> float:
-    """Divider output, as a fraction of the excitation, that equals ADC full scale.
-
-    Parameters
-    ----------
-    channel : TemperatureChannel
-
-    Returns
-    -------
-    float
-        1 for a ratiometric ADC, ``adc_reference_v / excitation_v`` otherwise.
-    """
-    fe = channel.front_end
-    return 1.0 if fe.ratiometric else fe.adc_reference_v / fe.excitation_v
-
-
-def continuous_adc_code(channel: TemperatureChannel, temp_c):
-    """ADC reading of ``temp_c`` before the floor: ``fraction / span * 2^bits``.
-
-    Parameters
-    ----------
-    channel : TemperatureChannel
-    temp_c : array_like
-        Temperature, degree Celsius.
-
-    Returns
-    -------
-    ndarray
-        Continuous code; the integer code is its floor.
-    """
-    fe = channel.front_end
-    return fe.fraction(channel.sensor.resistance_ohm(temp_c)) / adc_span_fraction(channel) * (1 << fe.adc_bits)
-
-
-def temp_at_continuous_code(channel: TemperatureChannel, code):
-    """Temperature read at a continuous ADC position ``code`` (degree Celsius).
-
-    The integer code ``n`` reads as ``temp_at_continuous_code(n + 0.5)``, the
-    centre of its interval, exactly as :meth:`TemperatureChannel.temp_c`.
-
-    Parameters
-    ----------
-    channel : TemperatureChannel
-    code : array_like
-        Continuous ADC position, strictly between 0 and ``2^bits``.
-
-    Returns
-    -------
-    ndarray
-        Degree Celsius (NaN where the divider or the sensor model has no solution).
-    """
-    fe = channel.front_end
-    x = np.asarray(code, dtype=float) / (1 << fe.adc_bits) * adc_span_fraction(channel)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        if fe.sensor_position == "low":
-            r = fe.reference_resistor_ohm * x / (1.0 - x)
-        else:
-            r = fe.reference_resistor_ohm * (1.0 - x) / x
-        ok = (x > 0) & (x < 1) & (r > 0)
-        if isinstance(channel.sensor, RtdSensor):
-            lo, hi = channel.sensor.resistance_ohm([RTD_MIN_TEMP_C, RTD_MAX_TEMP_C])
-            ok = ok & (r >= lo) & (r <= hi)
-            out = np.full(np.shape(r), np.nan)
-            if np.any(ok):
-                out[ok] = channel.sensor.temp_c(np.asarray(r)[ok])
-            return out
-        return np.where(ok, channel.sensor.temp_c(np.where(ok, r, 1.0)), np.nan)
 
 
 @dataclass(frozen=True)

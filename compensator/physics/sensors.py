@@ -317,8 +317,11 @@ class FrontEnd:
         return (1 << self.adc_bits) - 1
 
     @property
-    def _span(self) -> float:
-        # Node voltage, as a fraction of the excitation, that equals ADC full scale.
+    def span_fraction(self) -> float:
+        """Divider output, as a fraction of the excitation, that equals ADC full scale.
+
+        1 for a ratiometric ADC, ``adc_reference_v / excitation_v`` otherwise.
+        """
         return 1.0 if self.ratiometric else self.adc_reference_v / self.excitation_v
 
     def fraction(self, resistance_ohm):
@@ -328,20 +331,33 @@ class FrontEnd:
             return r / (r + self.reference_resistor_ohm)
         return self.reference_resistor_ohm / (r + self.reference_resistor_ohm)
 
+    def continuous_code(self, resistance_ohm):
+        """ADC position before the floor and the clipping: ``fraction / span * 2^bits``."""
+        return self.fraction(resistance_ohm) / self.span_fraction * (1 << self.adc_bits)
+
     def adc_code(self, resistance_ohm):
         """Ideal ADC code ``floor(fraction / span * 2^bits)``, clipped to the code range."""
-        x = self.fraction(resistance_ohm) / self._span * (1 << self.adc_bits)
-        return np.clip(np.floor(x), 0, self.full_scale_code).astype(np.int64)
+        return np.clip(np.floor(self.continuous_code(resistance_ohm)), 0, self.full_scale_code).astype(np.int64)
 
-    def resistance_ohm(self, adc_code):
-        """Sensor resistance at the centre of ``adc_code``'s interval, ohm (NaN when it would not be positive)."""
-        x = (np.asarray(adc_code, dtype=float) + 0.5) / (1 << self.adc_bits) * self._span
+    def resistance_at(self, position):
+        """Sensor resistance at a continuous ADC position, ohm (NaN where the divider has no positive solution).
+
+        Parameters
+        ----------
+        position : array_like
+            Continuous ADC position; the integer code ``n`` covers ``[n, n + 1)``.
+        """
+        x = np.asarray(position, dtype=float) / (1 << self.adc_bits) * self.span_fraction
         with np.errstate(divide="ignore", invalid="ignore"):
             if self.sensor_position == "low":
                 r = self.reference_resistor_ohm * x / (1.0 - x)
             else:
                 r = self.reference_resistor_ohm * (1.0 - x) / x
         return np.where((x > 0) & (x < 1), r, np.nan)
+
+    def resistance_ohm(self, adc_code):
+        """Sensor resistance at the centre of ``adc_code``'s interval, ohm (NaN when it would not be positive)."""
+        return self.resistance_at(np.asarray(adc_code, dtype=float) + 0.5)
 
 
 @dataclass(frozen=True)
@@ -355,21 +371,39 @@ class TemperatureChannel:
         """ADC code that reads ``temp_c`` (degree Celsius), int64 array."""
         return self.front_end.adc_code(self.sensor.resistance_ohm(temp_c))
 
-    def temp_c(self, adc_code):
-        """Temperature in degree Celsius read from ``adc_code`` (NaN for rail or out-of-model codes)."""
-        code = np.asarray(adc_code)
-        r = self.front_end.resistance_ohm(code)
-        rail = (code <= 0) | (code >= self.front_end.full_scale_code)
+    def continuous_code(self, temp_c):
+        """ADC position of ``temp_c`` before the floor and the clipping (its floor is :meth:`adc_code`)."""
+        return self.front_end.continuous_code(self.sensor.resistance_ohm(temp_c))
+
+    def temp_at(self, position):
+        """Temperature in degree Celsius at a continuous ADC position.
+
+        The integer code ``n`` reads as ``temp_at(n + 0.5)``, the centre of its
+        interval. NaN where the divider or the sensor model has no solution.
+
+        Parameters
+        ----------
+        position : array_like
+            Continuous ADC position.
+        """
+        r = self.front_end.resistance_at(position)
         if isinstance(self.sensor, RtdSensor):
             lo, hi = rtd_resistance_ohm([RTD_MIN_TEMP_C, RTD_MAX_TEMP_C], self.sensor.r0_ohm)
-            ok = ~rail & (r >= lo) & (r <= hi)
+            with np.errstate(invalid="ignore"):
+                ok = (r >= lo) & (r <= hi)
             out = np.full(np.shape(r), np.nan)
             if np.any(ok):
                 out[ok] = self.sensor.temp_c(np.asarray(r)[ok])
             return out if np.ndim(r) else out[()]
+        ok = np.isfinite(r) & (r > 0)
         with np.errstate(invalid="ignore", divide="ignore"):
-            t = self.sensor.temp_c(r)
-        return np.where(rail, np.nan, t)
+            return np.where(ok, self.sensor.temp_c(np.where(ok, r, 1.0)), np.nan)
+
+    def temp_c(self, adc_code):
+        """Temperature in degree Celsius read from ``adc_code`` (NaN for rail or out-of-model codes)."""
+        code = np.asarray(adc_code)
+        rail = (code <= 0) | (code >= self.front_end.full_scale_code)
+        return np.where(rail, np.nan, self.temp_at(code + 0.5))
 
     def code_range(self, min_temp_c, max_temp_c):
         """Lowest and highest ADC codes met over a temperature range (either direction of slope)."""
@@ -382,5 +416,5 @@ class TemperatureChannel:
         h = 0.05
         fe = self.front_end
         dfrac = (fe.fraction(self.sensor.resistance_ohm(t + h)) - fe.fraction(self.sensor.resistance_ohm(t - h))) / (2 * h)
-        lsb_fraction = fe._span / (1 << fe.adc_bits)
+        lsb_fraction = fe.span_fraction / (1 << fe.adc_bits)
         return lsb_fraction / np.abs(dfrac)
