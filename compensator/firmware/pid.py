@@ -166,9 +166,14 @@ class PidSettings:
     tracking_time_s: float | None = None
 
     def __post_init__(self):
-        for key in ("kp", "ki_per_s", "kd_s", "sample_time_s", "out_min", "out_max", "setpoint_weight"):
+        for key in ("kp", "ki_per_s", "kd_s", "sample_time_s", "out_min", "out_max", "setpoint_weight",
+                    "derivative_filter_n", "rate_limit_per_s", "tracking_time_s"):
             value = getattr(self, key)
-            if not isinstance(value, (int, float, np.integer, np.floating)) or not math.isfinite(value):
+            if value is None and key in ("rate_limit_per_s", "tracking_time_s"):
+                continue
+            if not isinstance(value, (int, float, np.integer, np.floating)) or isinstance(value, bool):
+                raise ModelError(f"PID setting {key}: must be a number, got {value!r}")
+            if not math.isfinite(value) and key != "derivative_filter_n":
                 raise ModelError(f"PID setting {key}: must be a finite number, got {value!r}")
         if self.sample_time_s <= 0:
             raise ModelError(f"PID setting sample_time_s: must be positive, got {self.sample_time_s!r}")
@@ -176,17 +181,15 @@ class PidSettings:
             raise ModelError(
                 f"PID setting out_min/out_max: out_min ({self.out_min!r}) must be below out_max ({self.out_max!r})")
         n = self.derivative_filter_n
-        if not isinstance(n, (int, float, np.integer, np.floating)) or math.isnan(n) or n <= 0:
+        if math.isnan(n) or n <= 0:
             raise ModelError(f"PID setting derivative_filter_n: must be positive (inf for no filter), got {n!r}")
-        if self.rate_limit_per_s is not None and (
-                not math.isfinite(self.rate_limit_per_s) or self.rate_limit_per_s <= 0):
+        if self.rate_limit_per_s is not None and self.rate_limit_per_s <= 0:
             raise ModelError(
                 f"PID setting rate_limit_per_s: must be positive and finite or None, got {self.rate_limit_per_s!r}")
         if self.anti_windup not in ANTI_WINDUP_MODES:
             raise ModelError(
                 f"PID setting anti_windup: must be one of {', '.join(ANTI_WINDUP_MODES)}, got {self.anti_windup!r}")
-        if self.tracking_time_s is not None and (
-                not math.isfinite(self.tracking_time_s) or self.tracking_time_s <= 0):
+        if self.tracking_time_s is not None and self.tracking_time_s <= 0:
             raise ModelError(
                 f"PID setting tracking_time_s: must be positive and finite or None, got {self.tracking_time_s!r}")
         signs = {math.copysign(1.0, g) for g in (self.kp, self.ki_per_s, self.kd_s) if g != 0}
