@@ -376,7 +376,7 @@ def _check_events(charge):
 
 def _histogram(q, width):
     lo, hi = float(q.min()), float(q.max())
-    n_bins = max(int(np.floor((hi - lo) / width)) + 1, 5)
+    n_bins = max(int(np.floor((hi - lo) / width + 0.5)) + 1, 5)
     edges = lo - 0.5 * width + width * np.arange(n_bins + 1)
     j = np.clip(((q - edges[0]) / width).astype(np.int64), 0, n_bins - 1)
     counts = np.bincount(j, minlength=n_bins).astype(float)
@@ -446,11 +446,12 @@ def _comb_from_fft(x, c):
     zero frequency (the envelope) and a line at ``1/G`` (the comb of peaks),
     with harmonics. Candidates are the local maxima of ``|f Y(f)|`` (the
     transform of the first difference, which turns the line into a maximum even
-    on the flank of the lobe) beyond the lobe's first minimum; a candidate must
-    stand out of the noise of ``|Y|`` (``Var sqrt(n) <= 0.42`` per occupied bin
-    for Poisson counts), and the strongest one wins. A sub-harmonic almost as
-    strong means the true spacing is a multiple. The phase of ``Y`` at the line
-    gives the comb offset.
+    on the flank of the lobe) beyond the lobe; a candidate must rise above the
+    lowest point between the lobe and itself by five times the noise
+    (``Var sqrt(n) <= 0.42`` per occupied bin for Poisson counts), and the
+    strongest one wins. The phase of ``Y`` at the line
+    gives the comb offset. Octave errors (a harmonic or sub-harmonic picked
+    instead of the fundamental) are caught later in the charge domain.
 
     Returns (spacing, offset, significance): peaks sit at
     ``offset + n spacing``; significance is the line over the noise rms.
@@ -460,31 +461,38 @@ def _comb_from_fft(x, c):
     n = y.size
     if n < 8:
         raise ModelError("spectrum: too few bins to find a peak structure")
+    # take out the straight line between the mean end values, so a histogram
+    # cut off with counts at its ends does not ring like a box
+    k_end = max(2, n // 50)
+    y_lo, y_hi = float(y[:k_end].mean()), float(y[-k_end:].mean())
+    y_flat = y - (y_lo + (y_hi - y_lo) * np.arange(n) / (n - 1))
     m = 1 << int(np.ceil(np.log2(8 * n)))
-    spec_y = np.fft.rfft(y, m)
+    spec_y = np.fft.rfft(y_flat, m)
     freq = np.fft.rfftfreq(m, step)
     amp_y = np.abs(spec_y)
     amp = amp_y * np.abs(2.0 * np.sin(np.pi * freq * step))  # transform of the difference
     noise = np.sqrt(0.42 * max(int(np.count_nonzero(dens > 0)), 1))
-    # skip the lobe around zero frequency: walk down to its first minimum
-    i = max(int(np.ceil(m / n)), 1)
+    # skip the lobe around zero frequency: the envelope of the sqrt spectrum
+    # has an rms width s, its transform a width 1/(2 pi s); start one width
+    # out, then walk down to the first minimum
+    w = np.clip(y, 0.0, None)
+    centre = np.sum(w * grid) / np.sum(w)
+    s_env = np.sqrt(np.sum(w * (grid - centre) ** 2) / np.sum(w))
+    i = max(int(np.ceil(1.0 / (2.0 * np.pi * s_env) * m * step)), int(np.ceil(m / n)), 1)
     while i + 1 < amp.size and amp[i + 1] <= amp[i]:
         i += 1
     inner = amp[i:-1]
     is_max = np.r_[False, (inner[1:-1] > inner[:-2]) & (inner[1:-1] >= inner[2:]), False]
     cand = i + np.flatnonzero(is_max)
-    cand = cand[amp_y[cand] > 4.0 * noise]
-    if cand.size == 0:
+    # significance: height of the line above the lowest point between the
+    # lobe and the line, in units of the noise rms at that frequency
+    noise_d = noise * np.abs(2.0 * np.sin(np.pi * freq * step))
+    floor = np.minimum.accumulate(amp[i:])[cand - i]
+    signif = (amp[cand] - floor) / noise_d[cand]
+    keep = signif > 5.0
+    if not keep.any():
         raise ModelError("spectrum: no peak structure found (no comb line above the noise in the Fourier transform)")
-    j = int(cand[np.argmax(amp[cand])])
-    # prefer a sub-harmonic that is almost as strong
-    for div in (3, 2):
-        sub = cand[np.abs(cand * div - j) <= 0.1 * j]
-        if sub.size:
-            k = int(sub[np.argmax(amp[sub])])
-            if amp[k] >= 0.6 * amp[j]:
-                j = k
-                break
+    j = int(cand[keep][np.argmax(amp[cand[keep]])])
     # parabolic interpolation of the line position
     a, b, cc = np.log(amp[j - 1:j + 2] + 1e-300)
     den = a - 2 * b + cc
@@ -494,7 +502,7 @@ def _comb_from_fft(x, c):
     # phase: the transform of y at f0 exactly
     phase = np.angle(np.sum(y * np.exp(-2j * np.pi * f0 * (grid - grid[0]))))
     offset = grid[0] - phase / (2 * np.pi * f0)
-    return spacing, offset, float(amp_y[j] / noise)
+    return spacing, offset, float(signif[cand == j][0])
 
 
 def _local_peak(x, c, centre, half):
@@ -510,41 +518,85 @@ def _local_peak(x, c, centre, half):
     return mean, var, tot
 
 
+def _peak_at(x, c, position, half, min_half=0.0):
+    """True when the counts show a significant peak at ``position``.
+
+    The content within ``half`` of the position must exceed the content of
+    the two flanking bands of the same total width by four standard
+    deviations (and hold at least 8 events). ``half`` is raised to
+    ``min_half`` (a bin width) so the test never looks at a fraction of a bin.
+    """
+    half = max(half, min_half)
+    d = np.abs(x - position)
+    inner = float(c[d < half].sum())
+    outer = float(c[(d >= half) & (d < 2 * half)].sum())
+    return inner >= 8.0 and inner - outer > 4.0 * np.sqrt(inner + outer)
+
+
+def _first_peak(x, c, sm, spacing, offset):
+    """Index n of the first comb position offset + n spacing with a real peak."""
+    n_first = int(np.floor((x[0] - offset) / spacing))
+    n_last = int(np.ceil((x[-1] - offset) / spacing))
+    for n in range(n_first, n_last + 1):
+        centre = offset + n * spacing
+        win = (x >= centre - 0.5 * spacing) & (x < centre + 0.5 * spacing)
+        if not win.any() or float(c[win].sum()) < 3.0:
+            continue
+        idx = np.flatnonzero(win)
+        k = idx[int(np.argmax(sm[idx]))]
+        # a real peak: the maximum lies inside the inner part of the window
+        # and stands above both window edges
+        if abs(x[k] - centre) <= 0.3 * spacing and k not in (idx[0], idx[-1]):
+            return n
+    raise ModelError("spectrum: no peak structure found (no peak in the comb positions)")
+
+
 def _start_values(x, c, edges):
     total = float(c.sum())
     spacing, offset, contrast = _comb_from_fft(x, c)
     widths = np.diff(edges)
     bw = float(np.median(widths))
-    if spacing < 2.5 * bw:
-        raise ModelError("spectrum: no peak structure found (peak spacing below 2.5 bins)")
     # pad with empty bins so a peak at the edge of the histogram still counts
     # as a local maximum
-    pad = int(np.ceil(spacing / bw)) + 3
+    pad = int(np.ceil(2 * spacing / bw)) + 3
     x = np.concatenate((x[0] - bw * np.arange(pad, 0, -1), x, x[-1] + bw * np.arange(1, pad + 1)))
     c = np.concatenate((np.zeros(pad), c, np.zeros(pad)))
     # light smoothing for the local-maximum test
     kern = np.array([1.0, 2.0, 3.0, 2.0, 1.0])
     sm = np.convolve(c, kern / kern.sum(), mode="same")
-    n_first = int(np.floor((x[0] - offset) / spacing))
-    n_last = int(np.ceil((x[-1] - offset) / spacing))
-    ped_index = None
-    for n in range(n_first, n_last + 1):
-        centre = offset + n * spacing
-        win = (x >= centre - 0.5 * spacing) & (x < centre + 0.5 * spacing)
-        if not win.any():
-            continue
-        content = float(c[win].sum())
-        if content < 3.0:
-            continue
-        idx = np.flatnonzero(win)
-        k = idx[int(np.argmax(sm[idx]))]
-        # a real peak: the maximum lies inside the inner half of the window
-        # and stands above both window edges
-        if abs(x[k] - centre) <= 0.3 * spacing and k not in (idx[0], idx[-1]):
-            ped_index = n
+    ped_index = _first_peak(x, c, sm, spacing, offset)
+    # octave errors, tested around the strongest comb position: peaks half-way
+    # (or a third of the way) to the neighbouring positions mean the spacing
+    # is a multiple of the true one; no peaks at the neighbouring positions
+    # but peaks one further out mean it is a fraction of it
+    for _ in range(3):
+        n_all = np.arange(ped_index, int(np.ceil((x[-1] - offset) / spacing)) + 1)
+        content = [float(c[np.abs(x - offset - k * spacing) < spacing / 2].sum()) for k in n_all]
+        pk = offset + n_all[int(np.argmax(content))] * spacing
+        pk = _local_peak(x, c, pk, spacing / 4)[0]
+
+        def peak(p, h):
+            return _peak_at(x, c, p, h, min(bw, spacing / 4))
+
+        def both(d, h, pk=pk):
+            return peak(pk + d, h) and (pk - d < x[0] + 2 * h or peak(pk - d, h))
+
+        def neither(d, h, pk=pk):
+            return not peak(pk + d, h) and not peak(pk - d, h)
+
+        if both(spacing / 2, spacing / 8):
+            spacing /= 2
+        elif both(spacing / 3, spacing / 12) and both(2 * spacing / 3, spacing / 12):
+            spacing /= 3
+        elif neither(spacing, spacing / 4) and (peak(pk + 2 * spacing, spacing / 4) or peak(pk - 2 * spacing, spacing / 4)):
+            spacing *= 2
+        else:
             break
-    if ped_index is None:
-        raise ModelError("spectrum: no peak structure found (no peak in the comb positions)")
+        offset = pk
+        ped_index = _first_peak(x, c, sm, spacing, offset)
+    if spacing < 2.5 * bw:
+        raise ModelError("spectrum: no peak structure found (peak spacing below 2.5 bins)")
+    n_last = int(np.ceil((x[-1] - offset) / spacing))
     # refine the positions with centroids of the resolved peaks
     ns, pos, var, cont = [], [], [], []
     for n in range(ped_index, n_last + 1):
@@ -852,8 +904,15 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson") -> SpectrumFit:
     else:
         mu, lam, mu_err, lam_err = _free_amplitude_moments(amp, cov[4:, 4:])
         names = ("pedestal", "gain", "sigma0", "sigma1") + tuple(f"amplitude_{k}" for k in range(amp.size))
-    if not np.sum(amp[1:]) >= 1.0:
+    if not np.sum(amp[1:]) >= 5.0:
         raise ModelError("spectrum: no photoelectron peak beyond the pedestal; the gain cannot be measured")
+    width_1 = np.hypot(s0, s1)
+    if g < 2.0 * width_1:
+        raise ModelError(
+            f"spectrum: no peak structure found (fitted spacing {g / width_1:.2f} times the "
+            "one-photoelectron peak width; need at least 2)")
+    if not err[1] < 0.25 * g:
+        raise ModelError(f"spectrum: the gain is not determined (relative uncertainty {err[1] / g:.0%})")
     ndf = int(c.size - p.size)
     chi2 = float(np.sum(_deviance_terms(m, c)))
     # back to the caller's unit (the covariance too)
