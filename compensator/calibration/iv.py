@@ -27,7 +27,8 @@ cubic local polynomials). The window is chosen per curve from the data:
 3. the window is the narrowest odd width (at least 5 points) whose
    noise gain, ``sigma * ||savgol_coeffs|| / dV``, is at most
    :data:`NOISE_FRACTION` of D (for the second derivative the same rule is
-   applied to the height of the d^2 ln I / dV^2 peak).
+   applied to the height of the d^2 ln I / dV^2 peak, with
+   :data:`NOISE_FRACTION_SECOND`).
 
 Narrow windows keep the knee sharp on clean data; noisy data get wider ones.
 
@@ -59,8 +60,12 @@ DEFAULT_METHOD = "inverse-log-derivative"
 
 #: Fewest points a curve needs.
 MIN_POINTS = 15
-#: Allowed noise of the smoothed derivative, as a fraction of its peak height.
+#: Allowed noise of the smoothed d ln I/dV, as a fraction of its peak height.
 NOISE_FRACTION = 0.1
+#: The same for d^2 ln I/dV^2: its peak is narrower, and wide windows drag it
+#: below breakdown, so more noise is accepted (both values were tuned on the
+#: seeded synthetic curves of ``tools/bench/bench_calibration.py``).
+NOISE_FRACTION_SECOND = 0.5
 #: Savitzky-Golay polynomial order.
 POLYORDER = 3
 #: The current must rise at least this many times over the sweep to show a breakdown.
@@ -149,7 +154,7 @@ def estimate_log_noise(ln_current):
     return np.maximum(1.4826 * mad / np.sqrt(6.0), 1e-7)
 
 
-def choose_window(noise, peak_height, step_v, n_points, deriv=1):
+def choose_window(noise, peak_height, step_v, n_points, deriv=1, fraction=None):
     """Narrowest odd Savitzky-Golay window whose derivative noise is a small fraction of the peak.
 
     Parameters
@@ -164,6 +169,9 @@ def choose_window(noise, peak_height, step_v, n_points, deriv=1):
         Points per curve.
     deriv : {1, 2}
         Order of the derivative.
+    fraction : float, optional
+        Allowed noise as a fraction of the peak height (default
+        :data:`NOISE_FRACTION` for ``deriv=1``, :data:`NOISE_FRACTION_SECOND` for ``deriv=2``).
 
     Returns
     -------
@@ -175,7 +183,9 @@ def choose_window(noise, peak_height, step_v, n_points, deriv=1):
     gains = np.array([_noise_gain(int(w), deriv) for w in windows]) / step_v ** deriv
     noise = np.atleast_1d(np.asarray(noise, dtype=float))
     height = np.atleast_1d(np.abs(np.asarray(peak_height, dtype=float)))
-    allowed = NOISE_FRACTION * height
+    if fraction is None:
+        fraction = NOISE_FRACTION if deriv == 1 else NOISE_FRACTION_SECOND
+    allowed = fraction * height
     ok = gains[None, :] * noise[:, None] <= allowed[:, None]
     first = np.where(ok.any(axis=1), ok.argmax(axis=1), len(windows) - 1)
     return windows[first]
