@@ -330,6 +330,22 @@ class PidRun:
         return iter((self.output, self.integrator, self.derivative))
 
 
+def _run_steps(pid, r, y, m, mo, dtype) -> PidRun:
+    """The run loop shared by both controllers: switch modes as scheduled, step, record the state."""
+    out, integ, deriv = [], [], []
+    step = pid._step
+    for k in range(len(y)):
+        if m is not None:
+            if m[k]:
+                pid.set_manual(mo[k])  # idempotent for an unchanged target
+            elif pid._manual:
+                pid.set_auto()
+        out.append(step(r[k], y[k]))
+        integ.append(pid._i)
+        deriv.append(pid._d)
+    return PidRun(np.array(out, dtype=dtype), np.array(integ, dtype=dtype), np.array(deriv, dtype=dtype))
+
+
 # ---------------------------------------------------------------------------
 # Floating-point reference
 # ---------------------------------------------------------------------------
@@ -492,8 +508,10 @@ class FloatPid:
         measurement : array_like
             Measured value at each step (input unit), shape ``(n,)``.
         manual : array_like of bool, optional
-            Manual mode at each step; a change of target or mode switches
-            with :meth:`set_manual` / :meth:`set_auto` before that step.
+            Manual mode at each step: before a manual step the controller
+            is put in manual mode with that step's target
+            (:meth:`set_manual`), before an automatic step back in
+            automatic mode (:meth:`set_auto`).
         manual_output : array_like, optional
             Manual output target at each step (output unit).
 
@@ -505,19 +523,7 @@ class FloatPid:
         r, y, m, mo = _schedule(setpoint, measurement, manual, manual_output, float)
         if not (np.all(np.isfinite(r)) and np.all(np.isfinite(y))):
             raise ModelError("setpoint/measurement: must be finite")
-        out, integ, deriv = [], [], []
-        step = self._step
-        for k in range(len(y)):
-            if m is not None:
-                if m[k]:
-                    if not self._manual or self._target != self._clip(mo[k]):
-                        self.set_manual(mo[k])
-                elif self._manual:
-                    self.set_auto()
-            out.append(step(r[k], y[k]))
-            integ.append(self._i)
-            deriv.append(self._d)
-        return PidRun(np.array(out, dtype=float), np.array(integ, dtype=float), np.array(deriv, dtype=float))
+        return _run_steps(self, r, y, m, mo, float)
 
 
 # ---------------------------------------------------------------------------
@@ -986,20 +992,7 @@ class FixedPid:
         for name, seq in (("setpoint_count", r), ("measurement_count", y), ("manual_output_count", mo)):
             if seq and (min(seq) < INT32_MIN or max(seq) > INT32_MAX):
                 raise ModelError(f"{name}: values outside the int32 range")
-        out, integ, deriv = [], [], []
-        step = self._step
-        for k in range(len(y)):
-            if m is not None:
-                if m[k]:
-                    if not self._manual or self._target != self._clip_count(mo[k]):
-                        self.set_manual(mo[k])
-                elif self._manual:
-                    self.set_auto()
-            out.append(step(r[k], y[k]))
-            integ.append(self._i)
-            deriv.append(self._d)
-        return PidRun(np.array(out, dtype=np.int64), np.array(integ, dtype=np.int64),
-                      np.array(deriv, dtype=np.int64))
+        return _run_steps(self, r, y, m, mo, np.int64)
 
 
 # ---------------------------------------------------------------------------
