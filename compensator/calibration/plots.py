@@ -48,7 +48,10 @@ def _save(fig, path) -> Path:
 
 
 def plot_iv(record, path) -> Path:
-    """I-V curve (log current) with d ln I/dV and the breakdown marked.
+    """I-V curve (log current), d ln I/dV and its inverse, with the breakdown marked.
+
+    The bottom panel shows (d ln I/dV)^-1 with the fitted line (V - Vbd)/k for
+    the inverse-log-derivative method.
 
     Parameters
     ----------
@@ -57,26 +60,38 @@ def plot_iv(record, path) -> Path:
     path : path-like
         PNG file to write.
     """
-    fig, (ax1, ax2) = plt.subplots(2, 1, sharex=True, figsize=(7, 6))
+    fig, (ax1, ax2, ax3) = plt.subplots(3, 1, sharex=True, figsize=(7, 8))
     ax1.semilogy(record.bias_v, record.current_a, ".", ms=3, label="measured")
     ax1.set_ylabel("current (A)")
     title = PurePath(record.file).name + (f" at {record.temp_c:.1f} C" if record.temp_c is not None else "")
     ax1.set_title(title)
-    ax2.plot(record.grid_v, record.log_derivative_per_v, "-", lw=1.2, label="d ln I/dV (smoothed)")
+    deriv = record.log_derivative_per_v
+    ax2.plot(record.grid_v, deriv, "-", lw=1.2, label="d ln I/dV (smoothed)")
     ax2.set_ylabel("d ln I/dV (1/V)")
-    ax2.set_xlabel("bias (V)")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inverse = np.where(deriv > 0, 1.0 / deriv, np.nan)
+    ax3.plot(record.grid_v, inverse, ".", ms=3, label="(d ln I/dV)^-1")
+    ax3.set_ylabel("(d ln I/dV)^-1 (V)")
+    ax3.set_xlabel("bias (V)")
     if record.ok:
-        for ax in (ax1, ax2):
-            ax.axvline(record.breakdown_v, color="C3", lw=1)
-            ax.axvspan(record.breakdown_v - record.breakdown_err_v, record.breakdown_v + record.breakdown_err_v,
-                       color="C3", alpha=0.2)
+        vbd, err = record.breakdown_v, record.breakdown_err_v
+        for ax in (ax1, ax2, ax3):
+            ax.axvline(vbd, color="C3", lw=1)
+            ax.axvspan(vbd - err, vbd + err, color="C3", alpha=0.2)
         if np.isfinite(record.fit_lo_v):
             ax2.axvspan(record.fit_lo_v, record.fit_hi_v, color="C2", alpha=0.15, label="fit range")
-        ax1.plot([], [], color="C3", label=f"breakdown {record.breakdown_v:.3f} +- {record.breakdown_err_v:.3f} V ({record.method})")
+        if np.isfinite(record.exponent):
+            line_v = np.linspace(vbd, record.fit_hi_v + 0.5 * (record.fit_hi_v - vbd), 50)
+            ax3.plot(line_v, (line_v - vbd) / record.exponent, color="C3", lw=1.2,
+                     label=f"line fit: k = {record.exponent:.2f}")
+            top = 2.0 * (record.fit_hi_v - vbd) / record.exponent
+            ax3.set_ylim(0, top if np.isfinite(top) and top > 0 else None)
+        ax1.plot([], [], color="C3", label=f"breakdown {vbd:.3f} +- {err:.3f} V ({record.method})")
     else:
         ax1.text(0.02, 0.9, record.reason, transform=ax1.transAxes, fontsize=8, color="C3")
     ax1.legend(fontsize=8, loc="lower right")
     ax2.legend(fontsize=8, loc="upper right")
+    ax3.legend(fontsize=8, loc="upper left")
     fig.tight_layout()
     return _save(fig, path)
 
