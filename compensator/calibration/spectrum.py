@@ -646,7 +646,7 @@ def _start_values(x, c, edges):
     mean_n = (mean_charge - pedestal) / gain
     crosstalk = 1.0 - mean_pe / mean_n if mean_n > 0 else 0.0
     crosstalk = float(np.clip(crosstalk, 0.02, 0.6))
-    n_peaks = int(np.clip(np.ceil((x[-1] - pedestal) / gain) + 2, 2, MAX_PEAKS))
+    n_peaks = _peaks_needed(edges, pedestal, gain)
     return {
         "gain": gain,
         "pedestal": pedestal,
@@ -828,6 +828,64 @@ def _fit(edges, c, start, method):
     return p, cov, m, res.nfev, model
 
 
+def _peaks_needed(edges, pedestal, gain):
+    """Peaks needed to cover the histogram: n = 0 .. up to two past the last bin."""
+    return int(np.clip(np.ceil((edges[-1] - pedestal) / gain) + 2, 2, MAX_PEAKS))
+
+
+def _best_fit(xs, edges, c, start, amplitudes):
+    """Fit from the start values, then from the alternatives that can beat it.
+
+    * A weak pedestal (large mean_pe, few events) can be missed, making the
+      one-photoelectron peak look like the pedestal: if more events sit one
+      spacing below the pedestal than the fit explains, the labelling shifted
+      by one peak is fitted too.
+    * If the fit is poor (deviance above ndf by more than five standard
+      deviations), starts at twice and half the spacing are fitted too.
+    * If the fitted spacing needs more peaks to cover the histogram than the
+      start gave, the fit is repeated with enough peaks.
+
+    The fit with the smallest deviance (the largest likelihood; the
+    alternatives have the same number of parameters) wins.
+    """
+    total = float(c.sum())
+
+    def run(sv):
+        out = _fit(edges, c, sv, amplitudes)
+        return float(np.sum(_deviance_terms(out[2], c))), out
+
+    best_dev, best = run(start)
+    alternatives = []
+    g, q0 = start["gain"], start["pedestal"]
+    m = best[2]
+    win = (xs >= q0 - 1.5 * g) & (xs < q0 - 0.5 * g)
+    below, expected = float(c[win].sum()), float(m[win].sum())
+    if below >= 2.0 and below > expected + 3.0 * np.sqrt(expected):
+        alternatives.append(dict(start, pedestal=q0 - g, n_peaks=_peaks_needed(edges, q0 - g, g),
+                                 mean_pe=float(-np.log(below / total))))
+    ndf = c.size - best[0].size
+    if best_dev > ndf + 5.0 * np.sqrt(2.0 * max(ndf, 1)):
+        for factor in (2.0, 0.5):
+            alternatives.append(dict(start, gain=g * factor, n_peaks=_peaks_needed(edges, q0, g * factor),
+                                     sigma0=min(start["sigma0"], 0.3 * g * factor),
+                                     sigma1=min(start["sigma1"], 0.2 * g * factor)))
+    for sv in alternatives:
+        dev, out = run(sv)
+        if dev < best_dev:
+            best_dev, best = dev, out
+    p, model = best[0], best[4]
+    need = _peaks_needed(edges, p[0], p[1])
+    if need > model.n.size:
+        sv = dict(start, pedestal=float(p[0]), gain=float(p[1]), sigma0=float(abs(p[2])),
+                  sigma1=float(max(abs(p[3]), 1e-3 * p[1])), n_peaks=need)
+        if amplitudes == "gpoisson":
+            sv.update(mean_pe=float(p[5]), crosstalk=float(min(max(p[6], 0.01), 0.9)))
+        dev, out = run(sv)
+        if dev < best_dev:
+            best_dev, best = dev, out
+    return best
+
+
 def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson") -> SpectrumFit:
     """Fit a SiPM charge spectrum: gain, pedestal, widths, mean photoelectrons, crosstalk.
 
@@ -879,20 +937,7 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson") -> SpectrumFit:
     xs = (x - origin) / unit
     edges = _edges_from_centres(xs)
     start = _start_values(xs, c, edges)
-    p, cov, m, nfev, model = _fit(edges, c, start, amplitudes)
-    # A weak pedestal (large mean_pe, few events) can be missed, making the
-    # one-photoelectron peak look like the pedestal. If more events sit one
-    # spacing below than the fit explains, fit that labelling too and keep the
-    # likelier one.
-    g, q0 = start["gain"], start["pedestal"]
-    win = (xs >= q0 - 1.5 * g) & (xs < q0 - 0.5 * g)
-    below, expected = float(c[win].sum()), float(m[win].sum())
-    if below >= 2.0 and below > expected + 3.0 * np.sqrt(expected):
-        alt = dict(start, pedestal=q0 - g, n_peaks=min(start["n_peaks"] + 1, MAX_PEAKS),
-                   mean_pe=float(-np.log(below / c.sum())))
-        fit_alt = _fit(edges, c, alt, amplitudes)
-        if np.sum(_deviance_terms(fit_alt[2], c)) < np.sum(_deviance_terms(m, c)):
-            p, cov, m, nfev, model = fit_alt
+    p, cov, m, nfev, model = _best_fit(xs, edges, c, start, amplitudes)
     err = np.sqrt(np.clip(np.diag(cov), 0.0, None))
     q0, g, s0, s1 = p[:4]
     amp = model.amplitudes(p)[0]
