@@ -553,7 +553,7 @@ def _first_peak(x, c, sm, spacing, offset):
 
 def _start_values(x, c, edges):
     total = float(c.sum())
-    spacing, offset, contrast = _comb_from_fft(x, c)
+    spacing, offset, significance = _comb_from_fft(x, c)
     widths = np.diff(edges)
     bw = float(np.median(widths))
     # pad with empty bins so a peak at the edge of the histogram still counts
@@ -656,7 +656,7 @@ def _start_values(x, c, edges):
         "crosstalk": crosstalk,
         "n_peaks": n_peaks,
         "fourier_spacing": float(spacing),
-        "comb_contrast": float(contrast),
+        "comb_significance": float(significance),
         "n_resolved_peaks": int(ns.size),
     }
 
@@ -675,9 +675,11 @@ def spectrum_start_values(charge, counts) -> dict:
     -------
     dict
         ``gain``, ``pedestal``, ``sigma0``, ``sigma1`` (charge unit),
-        ``mean_pe``, ``crosstalk``, ``n_peaks`` (peaks the model will carry),
-        ``fourier_spacing`` (raw spacing of the Fourier comb line),
-        ``comb_contrast`` (comb line over the noise floor) and
+        ``mean_pe``, ``crosstalk``, ``n_peaks`` (peaks a generalised-Poisson
+        model will carry), ``fourier_spacing`` (spacing of the Fourier comb
+        line after the octave check),
+        ``comb_significance`` (Fourier comb line over the noise, in noise
+        standard deviations) and
         ``n_resolved_peaks`` (peaks used for the position fit).
 
     Raises
@@ -759,10 +761,7 @@ def _deviance_terms(m, c):
 
 def _fit(edges, c, start, method):
     """Maximum-likelihood fit on the rescaled axis; returns (p, cov, m, nfev)."""
-    K = start["n_peaks"]
-    if method == "free":
-        # a free amplitude needs its peak centre inside the histogram
-        K = int(np.clip(np.floor((edges[-1] - start["pedestal"]) / start["gain"]) + 1, 2, MAX_PEAKS))
+    K = _peaks_needed(edges, start["pedestal"], start["gain"], method)
     model = _Model(edges, K, method)
     total = float(c.sum())
     g0 = start["gain"]
@@ -828,8 +827,15 @@ def _fit(edges, c, start, method):
     return p, cov, m, res.nfev, model
 
 
-def _peaks_needed(edges, pedestal, gain):
-    """Peaks needed to cover the histogram: n = 0 .. up to two past the last bin."""
+def _peaks_needed(edges, pedestal, gain, method="gpoisson"):
+    """Number of peaks (n = 0 .. K-1) the model carries.
+
+    With generalised-Poisson amplitudes, peaks up to two spacings past the last
+    bin (their tails reach into the histogram). A free amplitude needs its peak
+    centre inside the histogram, else nothing constrains it.
+    """
+    if method == "free":
+        return int(np.clip(np.floor((edges[-1] - pedestal) / gain) + 1, 2, MAX_PEAKS))
     return int(np.clip(np.ceil((edges[-1] - pedestal) / gain) + 2, 2, MAX_PEAKS))
 
 
@@ -843,7 +849,7 @@ def _best_fit(xs, edges, c, start, amplitudes):
     * If the fit is poor (deviance above ndf by more than five standard
       deviations), starts at twice and half the spacing are fitted too.
     * If the fitted spacing needs more peaks to cover the histogram than the
-      start gave, the fit is repeated with enough peaks.
+      start gave, the fit is repeated from the fitted values with enough peaks.
 
     The fit with the smallest deviance (the largest likelihood; the
     alternatives have the same number of parameters) wins.
@@ -861,23 +867,20 @@ def _best_fit(xs, edges, c, start, amplitudes):
     win = (xs >= q0 - 1.5 * g) & (xs < q0 - 0.5 * g)
     below, expected = float(c[win].sum()), float(m[win].sum())
     if below >= 2.0 and below > expected + 3.0 * np.sqrt(expected):
-        alternatives.append(dict(start, pedestal=q0 - g, n_peaks=_peaks_needed(edges, q0 - g, g),
-                                 mean_pe=float(-np.log(below / total))))
+        alternatives.append(dict(start, pedestal=q0 - g, mean_pe=float(-np.log(below / total))))
     ndf = c.size - best[0].size
     if best_dev > ndf + 5.0 * np.sqrt(2.0 * max(ndf, 1)):
         for factor in (2.0, 0.5):
-            alternatives.append(dict(start, gain=g * factor, n_peaks=_peaks_needed(edges, q0, g * factor),
-                                     sigma0=min(start["sigma0"], 0.3 * g * factor),
+            alternatives.append(dict(start, gain=g * factor, sigma0=min(start["sigma0"], 0.3 * g * factor),
                                      sigma1=min(start["sigma1"], 0.2 * g * factor)))
     for sv in alternatives:
         dev, out = run(sv)
         if dev < best_dev:
             best_dev, best = dev, out
     p, model = best[0], best[4]
-    need = _peaks_needed(edges, p[0], p[1])
-    if need > model.n.size:
+    if _peaks_needed(edges, p[0], p[1], amplitudes) > model.n.size:
         sv = dict(start, pedestal=float(p[0]), gain=float(p[1]), sigma0=float(abs(p[2])),
-                  sigma1=float(max(abs(p[3]), 1e-3 * p[1])), n_peaks=need)
+                  sigma1=float(max(abs(p[3]), 1e-3 * p[1])))
         if amplitudes == "gpoisson":
             sv.update(mean_pe=float(p[5]), crosstalk=float(min(max(p[6], 0.01), 0.9)))
         dev, out = run(sv)
