@@ -108,6 +108,16 @@ def test_pade_continuous_model_agrees_with_exact_delay_at_low_frequency():
     np.testing.assert_allclose(tf(1j * w), exact, rtol=1e-6)
 
 
+def test_strong_heating_current_runs_away_and_is_excluded(params):
+    p = dataclasses.replace(params, max_current_a=12.0)
+    lo, hi = plants.stable_current_range_a(p)
+    assert -12.0 < lo < 0 and hi == 12.0
+    with pytest.raises(ModelError, match="thermal runaway"):
+        plants.cooler_steady_state(p, lo - 0.1)
+    plants.cooler_steady_state(p, lo)  # the edge itself is still stable
+    assert plants.cooler_operating_point(p, setpoint_temp_c=40.0).current_a < 0  # heating below the edge
+
+
 def test_bias_supply_model(board_ntc, board_pt1000):
     p = plants.bias_supply_plant(board_ntc.supply)
     assert p.dc_gain == pytest.approx(board_ntc.supply.volts_per_code) and p.dc_gain < 0

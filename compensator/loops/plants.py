@@ -356,6 +356,31 @@ def discrete_response_function(plant: Plant, sample_time_s: float, computation_d
     return response
 
 
+def continuous_frequency_response(plant: Plant, omega_rad_s):
+    """``P(j omega)`` of the continuous plant with its exact dead time (vectorised).
+
+    Parameters
+    ----------
+    plant : Plant
+    omega_rad_s : array_like
+        Angular frequencies, rad/s.
+
+    Returns
+    -------
+    ndarray of complex
+    """
+    omega = np.asarray(omega_rad_s, dtype=float)
+    a, b, c, dmat = (np.atleast_2d(np.asarray(m, dtype=float)) for m in (
+        plant.system.A, plant.system.B, plant.system.C, plant.system.D))
+    s = 1j * omega.ravel()
+    resp = np.full(s.shape, complex(dmat[0, 0]) if dmat.size else 0j)
+    n = a.shape[0] if a.size else 0
+    if n:
+        x = np.linalg.solve(s.reshape(-1, 1, 1) * np.eye(n)[None] - a[None], np.broadcast_to(b, (s.size, n, 1)))
+        resp = resp + (c[None] @ x)[:, 0, 0]
+    return (resp * np.exp(-s * plant.dead_time_s)).reshape(omega.shape)
+
+
 def step_response(plant: Plant, time_s):
     """Continuous unit-step response (input steps at t = 0), dead time exact.
 
@@ -434,6 +459,39 @@ def _ambient(params, ambient_temp_c):
     return params.ambient_temp_c if ambient_temp_c is None else float(ambient_temp_c)
 
 
+def _thermally_stable(p, current_a):
+    """Whether the two-node thermal system at a fixed current has both eigenvalues in the left half plane."""
+    i = np.asarray(current_a, dtype=float)
+    s, k, g, rs = p.seebeck_v_per_k, p.conductance_w_per_k, p.cold_leak_conductance_w_per_k, p.sink_resistance_k_per_w
+    a11 = -(g + s * i + k) / p.cold_heat_capacity_j_per_k
+    a22 = (s * i - k - 1.0 / rs) / p.hot_heat_capacity_j_per_k
+    a12 = k / p.cold_heat_capacity_j_per_k
+    a21 = k / p.hot_heat_capacity_j_per_k
+    return (a11 + a22 < 0) & (a11 * a22 - a12 * a21 > 0)
+
+
+def stable_current_range_a(params) -> tuple[float, float]:
+    """Currents within ``[-max_current_a, max_current_a]`` where the module has a stable steady state, ampere.
+
+    Strong heating (negative) currents can run away: the Peltier heat ``S |I| Tc``
+    grows with the plate temperature faster than the leak removes it.
+    """
+    lo, hi = -params.max_current_a, params.max_current_a
+    ends = []
+    for edge in (lo, hi):
+        if _thermally_stable(params, edge):
+            ends.append(edge)
+            continue
+        if not _thermally_stable(params, 0.0):
+            raise ModelError("the module has no stable steady state even at zero current")
+        a, b = 0.0, edge  # a stable, b unstable
+        for _ in range(80):
+            m = 0.5 * (a + b)
+            a, b = (m, b) if _thermally_stable(params, m) else (a, m)
+        ends.append(a * (1 - 1e-9))
+    return ends[0], ends[1]
+
+
 def cooler_steady_state(params, current_a, ambient_temp_c=None):
     """Steady cold-plate and hot-side temperatures at a constant current.
 
@@ -473,11 +531,11 @@ def cooler_steady_state(params, current_a, ambient_temp_c=None):
     b1 = -(p.cold_heat_load_w + g * ta_k + i ** 2 * r / 2.0)
     b2 = -(i ** 2 * r / 2.0 + ta_k / rs)
     det = a11 * a22 - a12 * a21
-    # Stability of the two-state thermal system: trace < 0 and det > 0 (both eigenvalues in the left half plane).
-    trace = a11 / p.cold_heat_capacity_j_per_k + a22 / p.hot_heat_capacity_j_per_k
-    if np.any(det <= 0) or np.any(trace >= 0):
-        raise ModelError("the hot side has no stable steady state at this current: the heat sink cannot carry the "
-                         "heat (thermal runaway); lower the current or improve the heat sink")
+    if not np.all(_thermally_stable(p, i)):
+        bad = float(np.atleast_1d(i)[~np.atleast_1d(_thermally_stable(p, i))][0])
+        raise ModelError(f"the module has no stable steady state at {bad:g} A: the Peltier and Joule heat outgrow "
+                         "what the heat sink and leaks carry away (thermal runaway); lower the current or improve "
+                         "the heat sink")
     tc = (b1 * a22 - a12 * b2) / det
     th = (a11 * b2 - a21 * b1) / det
     return tc - KELVIN_OFFSET, th - KELVIN_OFFSET
@@ -499,7 +557,7 @@ def cooler_optimum_current_a(params, ambient_temp_c=None) -> float:
     float
         Ampere.
     """
-    hi = params.max_current_a
+    hi = stable_current_range_a(params)[1]
     # The slope dTc/dI is the quantity that changes sign; a bounded scalar search on Tc is robust.
     grid = np.linspace(0.0, hi, 257)
     tc, _ = cooler_steady_state(params, grid, ambient_temp_c)
@@ -541,18 +599,18 @@ def cooler_operating_point(params, setpoint_temp_c=None, current_a=None, ambient
     t_cold = float(cooler_steady_state(p, i_opt, ta)[0])
     if current_a is None:
         sp = p.setpoint_temp_c if setpoint_temp_c is None else float(setpoint_temp_c)
-        t_warm = float(cooler_steady_state(p, -p.max_current_a, ta)[0])
+        i_warm = stable_current_range_a(p)[0]
+        t_warm = float(cooler_steady_state(p, i_warm, ta)[0])
         if sp < t_cold:
             raise ModelError(f"setpoint {sp:g} C is below the coldest reachable {t_cold:.2f} C at ambient {ta:g} C "
                              f"(current of maximum cooling {i_opt:.3f} A)")
         if sp > t_warm:
             raise ModelError(f"setpoint {sp:g} C is above the warmest reachable {t_warm:.2f} C at ambient {ta:g} C "
-                             f"(heating at -{p.max_current_a:g} A)")
+                             f"(heating at {i_warm:.3g} A)")
         if sp == t_cold:
             current = i_opt
         else:
-            current = brentq(lambda x: float(cooler_steady_state(p, x, ta)[0]) - sp, -p.max_current_a, i_opt,
-                             xtol=1e-12)
+            current = brentq(lambda x: float(cooler_steady_state(p, x, ta)[0]) - sp, i_warm, i_opt, xtol=1e-12)
     else:
         current = float(current_a)
         if abs(current) > p.max_current_a:

@@ -31,6 +31,7 @@ from compensator.errors import ModelError
 from compensator.loops.plants import (
     CoolerOperatingPoint,
     Plant,
+    continuous_frequency_response,
     discrete_frequency_response,
     discrete_response_function,
     discretise,
@@ -278,11 +279,10 @@ def ultimate_point(plant: Plant, sample_time_s: float | None = None, computation
     sign = 1.0 if plant.dc_gain >= 0 else -1.0
     if sample_time_s is None:
         def resp(w):
-            w = np.asarray(w, dtype=float)
-            return sign * np.asarray(plant.system(1j * w)).reshape(w.shape) * np.exp(-1j * w * plant.dead_time_s)
+            return sign * continuous_frequency_response(plant, w)
         poles = np.linalg.eigvals(np.atleast_2d(np.asarray(plant.system.A, float)))
         fast = float(np.max(np.abs(poles))) if poles.size else 1.0
-        hi = max(100.0 * fast, 100.0 / max(plant.dead_time_s, 1e-12) if plant.dead_time_s else 100.0 * fast)
+        hi = max(100.0 * fast, 100.0 / plant.dead_time_s if plant.dead_time_s else 100.0 * fast)
         w = np.logspace(math.log10(hi) - 8, math.log10(hi), 20000)
     else:
         w = frequency_grid(sample_time_s, 20000, 8.0)
@@ -296,15 +296,17 @@ def ultimate_point(plant: Plant, sample_time_s: float | None = None, computation
         raise ModelError("the plant's phase never reaches -180 degrees: no ultimate gain (any proportional gain is "
                          "stable)")
     k = below[0]
-    lo, hi_ = w[max(k - 1, 0)], w[k]
-    for _ in range(80):  # bisection on the unwrapped phase between two grid points
+    if k == 0:
+        raise ModelError("the plant's phase is below -180 degrees at the lowest frequency: no ultimate gain")
+    lo, hi_ = w[k - 1], w[k]
+    ph_lo = ph[k - 1]
+    for _ in range(60):  # bisection on the unwrapped phase between two grid points
         mid = math.sqrt(lo * hi_)
-        base = ph[max(k - 1, 0)]
-        p_mid = np.angle(resp(np.array([mid]))[0] / resp(np.array([lo]))[0]) + base
+        p_mid = ph_lo + np.angle(resp(np.array([mid]))[0] / resp(np.array([lo]))[0])
         if p_mid <= -math.pi:
             hi_ = mid
         else:
-            lo = mid
+            lo, ph_lo = mid, p_mid
     wu = math.sqrt(lo * hi_)
     ku = 1.0 / abs(resp(np.array([wu]))[0])
     return sign * ku, 2.0 * math.pi / wu

@@ -1,0 +1,136 @@
+"""Tuning rules against their published formulas, and the robust Ms optimiser."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from compensator.errors import ModelError
+from compensator.loops import plants, tuning, verify
+from compensator.loops.plants import FopdtModel, SopdtModel
+
+K, TAU, THETA = 2.0, 30.0, 5.0
+T = 0.1
+
+
+def test_simc_pi_matches_skogestad_2003():
+    # Skogestad, J. Process Control 13, 291, 2003: Kc = tau / (K (tau_c + theta)), Ti = min(tau, 4 (tau_c + theta)).
+    g, tc = tuning.simc(FopdtModel(K, TAU, THETA))
+    assert tc == THETA
+    assert g.kp == pytest.approx(TAU / (K * 2 * THETA))
+    assert g.ki_per_s == pytest.approx(g.kp / min(TAU, 8 * THETA))
+    g2, _ = tuning.simc(FopdtModel(K, 100.0, THETA), tau_c_s=2.0)
+    assert g2.ki_per_s == pytest.approx(100.0 / (K * 7.0) / 28.0)  # Ti = 4 (tau_c + theta) < tau
+
+
+def test_simc_pid_converts_series_to_parallel():
+    t1, t2 = 20.0, 4.0
+    g, _ = tuning.simc(SopdtModel(K, t1, t2, THETA), pid=True)
+    kc, ti, td = t1 / (K * 2 * THETA), min(t1, 8 * THETA), t2
+    # Series Kc (1 + 1/(Ti s)) (1 + Td s) = Kc (1 + Td/Ti) + Kc/(Ti s) + Kc Td s.
+    assert (g.kp, g.ki_per_s, g.kd_s) == pytest.approx((kc * (1 + td / ti), kc / ti, kc * td))
+    with pytest.raises(ModelError, match="second-order"):
+        tuning.simc(FopdtModel(K, TAU, THETA), pid=True)
+
+
+def test_amigo_matches_astrom_hagglund_2004():
+    # Astrom and Hagglund, J. Process Control 14, 635, 2004 (PI formulas).
+    L, Tt = THETA, TAU
+    k = 0.15 / K + (0.35 - L * Tt / (L + Tt) ** 2) * Tt / (K * L)
+    ti = 0.35 * L + 13 * L * Tt ** 2 / (Tt ** 2 + 12 * L * Tt + 7 * L ** 2)
+    g = tuning.amigo(FopdtModel(K, TAU, THETA))
+    assert (g.kp, g.ki_per_s) == pytest.approx((k, k / ti))
+    gd = tuning.amigo(FopdtModel(K, TAU, THETA), pid=True)  # AMIGO PID (from memory)
+    kd_ = (0.2 + 0.45 * Tt / L) / K
+    assert gd.kp == pytest.approx(kd_)
+    assert gd.kd_s == pytest.approx(kd_ * 0.5 * L * Tt / (0.3 * L + Tt))
+
+
+def test_imc_and_zn_step_rules():
+    # Rivera, Morari and Skogestad 1986 (from memory): PI Kc = (2 tau + theta) / (2 K lambda), Ti = tau + theta/2.
+    g, lam = tuning.imc(FopdtModel(K, TAU, THETA), lambda_s=8.0)
+    assert lam == 8.0
+    assert g.kp == pytest.approx((2 * TAU + THETA) / (2 * K * 8.0))
+    assert g.ki_per_s == pytest.approx(g.kp / (TAU + THETA / 2))
+    # Ziegler and Nichols 1942 step-response rule on a = K theta / tau = 1/3.
+    z = tuning.ziegler_nichols_step(FopdtModel(K, TAU, THETA))
+    assert (z.kp, z.ki_per_s) == pytest.approx((0.9 * 3, 0.9 * 3 / (3 * THETA)))
+    zd = tuning.ziegler_nichols_step(FopdtModel(K, TAU, THETA), pid=True)
+    assert (zd.kp, zd.ki_per_s, zd.kd_s) == pytest.approx((3.6, 3.6 / 10.0, 3.6 * 2.5))
+
+
+def test_ziegler_nichols_ultimate_on_the_textbook_third_order_plant():
+    # 1/(s+1)^3: phase -180 deg at w = sqrt(3), |G| = 1/8, so Ku = 8 and Pu = 2 pi / sqrt(3) (classical result).
+    import control
+
+    plant = plants.Plant(control.ss(control.tf([1], [1, 3, 3, 1])), 0.0)
+    ku, pu = tuning.ultimate_point(plant, None)
+    assert ku == pytest.approx(8.0, rel=1e-6)
+    assert pu == pytest.approx(2 * math.pi / math.sqrt(3), rel=1e-6)
+    g = tuning.ziegler_nichols_ultimate(ku, pu, pid=True)
+    assert (g.kp, g.ki_per_s, g.kd_s) == pytest.approx((4.8, 4.8 / (pu / 2), 4.8 * pu / 8), rel=1e-6)
+    r = tuning.tune(plant, "zn-cycle", 0.01, include_sampling_delay=False)
+    assert r.gains.kp == pytest.approx(0.45 * 8.0, rel=1e-6)
+
+
+def test_sampling_delay_enters_the_rules():
+    plant = plants.fopdt_plant(K, TAU, THETA)
+    r = tuning.tune(plant, "simc", T, model=FopdtModel(K, TAU, THETA))
+    assert r.rule_dead_time_s == pytest.approx(THETA + 1.5 * T)
+    assert r.gains.kp == pytest.approx(TAU / (K * 2 * (THETA + 1.5 * T)))
+    r0 = tuning.tune(plant, "simc", T, model=FopdtModel(K, TAU, THETA), include_sampling_delay=False)
+    assert r0.gains.kp == pytest.approx(1.5)
+
+
+def _brute_force_best_ki(plant, ms_max, sign):
+    """Largest |ki| on a plain (kp, ki) grid with Ms <= ms_max and a stable closed loop (independent search)."""
+    w = verify.frequency_grid(T, 2000, 6.0)
+    p = plants.discrete_frequency_response(plant, T, w)
+    q = np.exp(-1j * w * T)
+    kis = np.geomspace(1e-3, 0.3, 300)
+    candidates = []
+    for kp in np.linspace(0.01, 1.2, 80):
+        c = sign * (kp + kis[:, None] * T * q / (1 - q))  # the firmware's forward-Euler PI
+        ms = 1 / np.min(np.abs(1 + c * p), axis=1)
+        candidates += [(ki, kp) for ki in kis[ms <= ms_max]]
+    for ki, kp in sorted(candidates, reverse=True):
+        a_cl = verify._closed_loop(plant, verify.PidGains(sign * kp, sign * ki), T, 1)[0]
+        if np.max(np.abs(np.linalg.eigvals(a_cl))) < 1:
+            return ki
+    return 0.0
+
+
+def test_robust_pi_meets_ms_and_beats_a_brute_force_grid():
+    plant = plants.fopdt_plant(4.0, 20.0, 2.0)
+    g = tuning.robust(plant, T, 1.4)
+    assert g.kp > 0 and g.ki_per_s > 0
+    ms, _ = verify.max_sensitivity(plant, g, T, 1, verify.frequency_grid(T, 40000, 7.0))
+    assert 1.37 < ms <= 1.4 * (1 + 1e-6)
+    assert g.ki_per_s >= 0.99 * _brute_force_best_ki(plant, 1.4, 1.0)
+    # A reverse-acting plant gets the mirrored gains.
+    m = tuning.robust(plants.fopdt_plant(-4.0, 20.0, 2.0), T, 1.4)
+    assert (m.kp, m.ki_per_s) == pytest.approx((-g.kp, -g.ki_per_s), rel=1e-9)
+
+
+def test_robust_pid_on_the_cooler_is_stable_and_meets_ms(cooler):
+    c = cooler.cooler
+    plant = plants.linearise_cooler(c, plants.cooler_operating_point(c))
+    pi = tuning.robust(plant, T, 1.4)
+    pid = tuning.robust(plant, T, 1.4, pid=True)
+    for g in (pi, pid):
+        rep = verify.verify_loop(plant, g, T, ms_limit=1.4)
+        assert rep.stable and rep.margins.ms <= 1.4 * 1.001 and not rep.warnings
+        assert g.kp < 0  # more current cools: reverse acting
+    assert abs(pid.ki_per_s) > abs(pi.ki_per_s)  # the extra freedom buys integral gain
+
+
+def test_robust_reports_infeasible_bounds():
+    with pytest.raises(ModelError, match="exceed 1"):
+        tuning.robust(plants.fopdt_plant(1.0, 1.0, 0.1), T, 0.9)
+
+
+def test_unknown_method():
+    with pytest.raises(ModelError, match="method"):
+        tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "magic", T)
