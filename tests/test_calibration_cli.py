@@ -223,3 +223,36 @@ def test_spectrum_event_list_in_adc_counts(cli, tmp_path):
     s = json.loads(r.stdout)["spectra"][0]
     assert s["charge_unit"] == "adc"
     assert s["gain"] == pytest.approx(42.0, rel=0.01)
+
+
+@pytest.mark.parametrize("text, fragment", [
+    ("", "empty file"),
+    ("bias_v,current_a\n", "no data rows"),
+    ("bias_v,current_a,temp_c\n20,1e-10,10\n20.1,1e-10,15\n", "temperature varies"),
+    ("bias_v,current_a\n20,inf\n", "not a finite number"),
+    ("bias_v,current_a\n20\n", "empty cell"),
+])
+def test_csv_reader_names_file_line_column_and_reason(cli, tmp_path, text, fragment):
+    path = tmp_path / "bad.csv"
+    path.write_text(text)
+    r = cli("calibrate", "iv", path)
+    assert r.status == 2
+    assert r.stderr.startswith(f"compensator: {path}") and fragment in r.stderr
+    assert r.stderr.count("\n") == 1
+
+
+def test_gain_table_checks_and_manifest_paths(cli, demo, tmp_path):
+    bad = tmp_path / "g.csv"
+    bad.write_text("bias_v,gain,gain_err\n26,1e6,0\n27,2e6,1e4\n28,3e6,1e4\n")
+    r = cli("calibrate", "gain-scan", bad)
+    assert r.status == 2 and f"{bad}:2: gain_err: gain errors must be positive" in r.stderr
+    manifest = tmp_path / "m.csv"
+    lines = (demo / "spectra" / "manifest.csv").read_text().splitlines()
+    rows = [lines[0]] + [f"{demo / 'spectra' / ln.split(',')[0]},{ln.split(',', 1)[1]}" for ln in lines[1:4]]
+    rows.append("missing.csv,29.0,25.0")
+    manifest.write_text("\n".join(rows) + "\n")
+    r = cli("calibrate", "gain-scan", "--manifest", manifest, "--json")
+    assert r.status == 0
+    assert r.stderr.strip() == f"compensator: {tmp_path / 'missing.csv'}: no such file"
+    scan = json.loads(r.stdout)["scans"][0]
+    assert scan["n_points"] == 3 and scan["capacitance_f"] is None and scan["gain_unit"] == "pc"
