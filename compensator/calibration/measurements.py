@@ -63,6 +63,15 @@ def _read_text(path) -> str:
         _fail(path, 0, "", "not a text file (cannot decode as UTF-8)")
 
 
+def _csv_rows(path, expected):
+    """Non-blank, non-comment lines of a CSV file: ``[(line number, text)]`` and their parsed cells."""
+    rows = [(n, r) for n, r in enumerate(io.StringIO(_read_text(path)), start=1)
+            if r.strip() and not r.strip().startswith("#")]
+    if not rows:
+        _fail(path, 0, "", f"empty file (expected {expected})")
+    return rows, list(csv.reader([r for _, r in rows]))
+
+
 def read_table(path, required, optional=(), prefixes=()) -> Table:
     """Read the named numeric columns of a CSV file.
 
@@ -87,16 +96,7 @@ def read_table(path, required, optional=(), prefixes=()) -> Table:
         One problem: unreadable file, no header, missing column, a cell that
         is not a finite number, or no data rows.
     """
-    text = _read_text(path)
-    rows = []
-    for number, raw in enumerate(io.StringIO(text), start=1):
-        stripped = raw.strip()
-        if not stripped or stripped.startswith("#"):
-            continue
-        rows.append((number, raw))
-    if not rows:
-        _fail(path, 0, "", "empty file (expected a header row and data rows)")
-    parsed = list(csv.reader([r for _, r in rows]))
+    rows, parsed = _csv_rows(path, "a header row and data rows")
     header = [h.strip().lower() for h in parsed[0]]
     header_line = rows[0][0]
     where = {}
@@ -318,11 +318,7 @@ def read_manifest(path) -> list:
     -------
     list of ManifestEntry
     """
-    text = _read_text(path)
-    reader = [(n, r) for n, r in enumerate(io.StringIO(text), start=1) if r.strip() and not r.strip().startswith("#")]
-    if not reader:
-        _fail(path, 0, "", "empty file (expected a header row file,bias_v[,temp_c])")
-    parsed = list(csv.reader([r for _, r in reader]))
+    reader, parsed = _csv_rows(path, "a header row file,bias_v[,temp_c]")
     header = [h.strip().lower() for h in parsed[0]]
     for need in ("file", "bias_v"):
         if need not in header:
