@@ -303,3 +303,38 @@ def test_bad_event_lists_and_options():
         fit_spectrum([1.0], [1.0], amplitudes="poisson")
     # every error is a CompensatorError and a ValueError
     assert issubclass(InputError, CompensatorError) and issubclass(ModelError, ValueError)
+
+
+# ---------------------------------------------------------------------------
+# the model itself
+
+
+@pytest.mark.parametrize("method", ["gpoisson", "free"])
+def test_banded_model_matches_dense_bin_integrals_and_its_jacobian(method):
+    # Reference: the normal distribution function scipy.special.ndtr over
+    # every bin edge (no band), and central differences for the Jacobian.
+    from scipy import special
+
+    from compensator.calibration.spectrum import _Model
+
+    edges = np.linspace(-3.0, 40.0, 700)
+    K = 20
+    model = _Model(edges, K, method)
+    if method == "gpoisson":
+        p = np.array([0.3, 1.7, 0.2, 0.08, 1e4, 2.0, 0.2])
+    else:
+        p = np.r_[0.3, 1.7, 0.2, 0.08, np.linspace(100.0, 10.0, K)]
+    m, J = model(p)
+    n = np.arange(K)
+    sig = np.hypot(p[2], np.sqrt(n) * p[3])
+    shape = np.diff(special.ndtr((edges[None, :] - (p[0] + n * p[1])[:, None]) / sig[:, None]), axis=1)
+    amp = p[4] * generalized_poisson_pmf(n, p[5], p[6]) if method == "gpoisson" else p[4:]
+    np.testing.assert_allclose(m, amp @ shape, rtol=1e-9, atol=1e-9 * m.max())
+    numeric = np.empty_like(J)
+    for j in range(p.size):
+        h = 1e-6 * max(abs(p[j]), 1.0)
+        up, down = p.copy(), p.copy()
+        up[j] += h
+        down[j] -= h
+        numeric[:, j] = (model(up, jac=False)[0] - model(down, jac=False)[0]) / (2 * h)
+    np.testing.assert_allclose(J, numeric, rtol=0, atol=1e-6 * np.abs(J).max())

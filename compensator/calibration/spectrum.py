@@ -505,50 +505,71 @@ def _comb_from_fft(x, c):
     return spacing, offset, float(signif[cand == j][0])
 
 
-def _local_peak(x, c, centre, half):
-    """Centroid, variance and content of the counts within centre +- half."""
-    sel = (x >= centre - half) & (x < centre + half)
-    w = c[sel]
-    tot = float(w.sum())
-    if tot <= 0:
-        return np.nan, np.nan, 0.0
-    xs = x[sel]
-    mean = float(np.sum(w * xs) / tot)
-    var = float(np.sum(w * (xs - mean) ** 2) / tot)
-    return mean, var, tot
+class _Counts:
+    """A histogram with prefix sums: O(log n) window sums and moments.
 
-
-def _peak_at(x, c, position, half, min_half=0.0):
-    """True when the counts show a significant peak at ``position``.
-
-    The content within ``half`` of the position must exceed the content of
-    the two flanking bands of the same total width by four standard
-    deviations (and hold at least 8 events). ``half`` is raised to
-    ``min_half`` (a bin width) so the test never looks at a fraction of a bin.
+    ``x`` must increase; a window ``[lo, hi)`` is the contiguous run of bins
+    whose centres fall inside it.
     """
-    half = max(half, min_half)
-    d = np.abs(x - position)
-    inner = float(c[d < half].sum())
-    outer = float(c[(d >= half) & (d < 2 * half)].sum())
-    return inner >= 8.0 and inner - outer > 4.0 * np.sqrt(inner + outer)
 
+    def __init__(self, x, c):
+        self.x, self.c = x, c
+        self.s0 = np.concatenate(([0.0], np.cumsum(c)))
+        self.s1 = np.concatenate(([0.0], np.cumsum(c * x)))
+        self.s2 = np.concatenate(([0.0], np.cumsum(c * x * x)))
+        kern = np.array([1.0, 2.0, 3.0, 2.0, 1.0])
+        self.smooth = np.convolve(c, kern / kern.sum(), mode="same")
 
-def _first_peak(x, c, sm, spacing, offset):
-    """Index n of the first comb position offset + n spacing with a real peak."""
-    n_first = int(np.floor((x[0] - offset) / spacing))
-    n_last = int(np.ceil((x[-1] - offset) / spacing))
-    for n in range(n_first, n_last + 1):
-        centre = offset + n * spacing
-        win = (x >= centre - 0.5 * spacing) & (x < centre + 0.5 * spacing)
-        if not win.any() or float(c[win].sum()) < 3.0:
-            continue
-        idx = np.flatnonzero(win)
-        k = idx[int(np.argmax(sm[idx]))]
-        # a real peak: the maximum lies inside the inner part of the window
-        # and stands above both window edges
-        if abs(x[k] - centre) <= 0.3 * spacing and k not in (idx[0], idx[-1]):
-            return n
-    raise ModelError("spectrum: no peak structure found (no peak in the comb positions)")
+    def index(self, lo, hi):
+        return int(np.searchsorted(self.x, lo)), int(np.searchsorted(self.x, hi))
+
+    def content(self, lo, hi):
+        i, j = self.index(lo, hi)
+        return float(self.s0[j] - self.s0[i])
+
+    def moments(self, centre, half):
+        """Centroid, variance and content of the counts within centre +- half."""
+        i, j = self.index(centre - half, centre + half)
+        tot = float(self.s0[j] - self.s0[i])
+        if tot <= 0:
+            return np.nan, np.nan, 0.0
+        mean = float(self.s1[j] - self.s1[i]) / tot
+        var = max(float(self.s2[j] - self.s2[i]) / tot - mean * mean, 0.0)
+        return mean, var, tot
+
+    def peak_at(self, position, half, min_half=0.0):
+        """True when the counts show a significant peak at ``position``.
+
+        The content within ``half`` of the position must exceed the content
+        of the two flanking bands of the same total width by four standard
+        deviations (and hold at least 8 events). ``half`` is raised to
+        ``min_half`` (a bin width) so the test never looks at a fraction of a
+        bin.
+        """
+        half = max(half, min_half)
+        inner = self.content(position - half, position + half)
+        outer = self.content(position - 2 * half, position + 2 * half) - inner
+        return inner >= 8.0 and inner - outer > 4.0 * np.sqrt(inner + outer)
+
+    def first_peak(self, spacing, offset):
+        """Index n of the first comb position ``offset + n spacing`` with a real peak.
+
+        A real peak: the window of one spacing around the position holds at
+        least 3 events, and the maximum of the lightly smoothed counts in it
+        lies within 0.3 spacings of the position, not on the window's edge.
+        """
+        x = self.x
+        n_first = int(np.floor((x[0] - offset) / spacing))
+        n_last = int(np.ceil((x[-1] - offset) / spacing))
+        for n in range(n_first, n_last + 1):
+            centre = offset + n * spacing
+            i, j = self.index(centre - 0.5 * spacing, centre + 0.5 * spacing)
+            if j - i < 3 or self.s0[j] - self.s0[i] < 3.0:
+                continue
+            k = i + int(np.argmax(self.smooth[i:j]))
+            if abs(x[k] - centre) <= 0.3 * spacing and i < k < j - 1:
+                return n
+        raise ModelError("spectrum: no peak structure found (no peak in the comb positions)")
 
 
 def _start_values(x, c, edges):
@@ -561,28 +582,27 @@ def _start_values(x, c, edges):
     pad = int(np.ceil(2 * spacing / bw)) + 3
     x = np.concatenate((x[0] - bw * np.arange(pad, 0, -1), x, x[-1] + bw * np.arange(1, pad + 1)))
     c = np.concatenate((np.zeros(pad), c, np.zeros(pad)))
-    # light smoothing for the local-maximum test
-    kern = np.array([1.0, 2.0, 3.0, 2.0, 1.0])
-    sm = np.convolve(c, kern / kern.sum(), mode="same")
-    ped_index = _first_peak(x, c, sm, spacing, offset)
+    h = _Counts(x, c)
+    ped_index = h.first_peak(spacing, offset)
     # octave errors, tested around the strongest comb position: peaks half-way
     # (or a third of the way) to the neighbouring positions mean the spacing
     # is a multiple of the true one; no peaks at the neighbouring positions
     # but peaks one further out mean it is a fraction of it
     for _ in range(3):
         n_all = np.arange(ped_index, int(np.ceil((x[-1] - offset) / spacing)) + 1)
-        content = [float(c[np.abs(x - offset - k * spacing) < spacing / 2].sum()) for k in n_all]
-        pk = offset + n_all[int(np.argmax(content))] * spacing
-        pk = _local_peak(x, c, pk, spacing / 4)[0]
+        centres = offset + n_all * spacing
+        bounds = np.searchsorted(x, np.concatenate((centres - spacing / 2, centres + spacing / 2)))
+        content = h.s0[bounds[n_all.size:]] - h.s0[bounds[:n_all.size]]
+        pk = h.moments(centres[int(np.argmax(content))], spacing / 4)[0]
 
-        def peak(p, h):
-            return _peak_at(x, c, p, h, min(bw, spacing / 4))
+        def peak(position, half):
+            return h.peak_at(position, half, min(bw, spacing / 4))
 
-        def both(d, h, pk=pk):
-            return peak(pk + d, h) and (pk - d < x[0] + 2 * h or peak(pk - d, h))
+        def both(d, half, pk=pk):
+            return peak(pk + d, half) and (pk - d < x[0] + 2 * half or peak(pk - d, half))
 
-        def neither(d, h, pk=pk):
-            return not peak(pk + d, h) and not peak(pk - d, h)
+        def neither(d, half, pk=pk):
+            return not peak(pk + d, half) and not peak(pk - d, half)
 
         if both(spacing / 2, spacing / 8):
             spacing /= 2
@@ -593,7 +613,7 @@ def _start_values(x, c, edges):
         else:
             break
         offset = pk
-        ped_index = _first_peak(x, c, sm, spacing, offset)
+        ped_index = h.first_peak(spacing, offset)
     if spacing < 2.5 * bw:
         raise ModelError("spectrum: no peak structure found (peak spacing below 2.5 bins)")
     n_last = int(np.ceil((x[-1] - offset) / spacing))
@@ -603,10 +623,10 @@ def _start_values(x, c, edges):
         centre = offset + n * spacing
         if centre > x[-1]:
             break
-        mean, v, tot = _local_peak(x, c, centre, 0.5 * spacing)
+        mean, v, tot = h.moments(centre, 0.5 * spacing)
         if tot < 10.0:
             continue
-        mean2, v2, tot2 = _local_peak(x, c, mean, 0.5 * spacing)
+        mean2, v2, tot2 = h.moments(mean, 0.5 * spacing)
         if tot2 >= 10.0:
             mean, v, tot = mean2, v2, tot2
         ns.append(n - ped_index)
@@ -703,16 +723,36 @@ def spectrum_start_values(charge, counts) -> dict:
 # the binned model
 
 
-def _shapes(edges, means, sigmas):
-    """Bin integrals of unit Gaussians and their derivatives (peaks x bins)."""
-    u = (edges[None, :] - means[:, None]) / sigmas[:, None]
+#: Peaks are evaluated within this many standard deviations of their centre
+#: (the bin integral beyond is below 1e-17 of the peak).
+_BAND_SIGMAS = 8.5
+
+
+def _banded_shapes(edges, means, sigmas):
+    """Bin integrals of unit Gaussians and their derivatives, near each peak only.
+
+    Returns flat arrays over the (peak, bin) pairs within ``_BAND_SIGMAS`` of
+    each peak: peak index, bin index, the bin integral and its derivatives
+    with respect to the peak mean and width.
+    """
+    n_edges = edges.size
+    lo = np.maximum(np.searchsorted(edges, means - _BAND_SIGMAS * sigmas) - 1, 0)
+    hi = np.minimum(np.searchsorted(edges, means + _BAND_SIGMAS * sigmas) + 1, n_edges)
+    lengths = np.maximum(hi - lo, 0)
+    total = int(lengths.sum())
+    peak = np.repeat(np.arange(means.size), lengths)
+    starts = np.cumsum(lengths) - lengths
+    edge = np.arange(total) - np.repeat(starts - lo, lengths)
+    inv = 1.0 / sigmas[peak]
+    u = (edges[edge] - means[peak]) * inv
     cdf = special.ndtr(u)
     pdf = np.exp(-0.5 * u * u) / _SQRT_2PI
-    shape = cdf[:, 1:] - cdf[:, :-1]
-    d_mean = -(pdf[:, 1:] - pdf[:, :-1]) / sigmas[:, None]
     upd = u * pdf
-    d_sigma = -(upd[:, 1:] - upd[:, :-1]) / sigmas[:, None]
-    return shape, d_mean, d_sigma
+    same = peak[1:] == peak[:-1]  # consecutive edges of one peak bound a bin
+    shape = (cdf[1:] - cdf[:-1])[same]
+    d_mean = -((pdf[1:] - pdf[:-1]) * inv[1:])[same]
+    d_sigma = -((upd[1:] - upd[:-1]) * inv[1:])[same]
+    return peak[:-1][same], edge[:-1][same], shape, d_mean, d_sigma
 
 
 class _Model:
@@ -720,6 +760,7 @@ class _Model:
 
     def __init__(self, edges, n_peaks, method):
         self.edges = edges
+        self.n_bins = edges.size - 1
         self.n = np.arange(n_peaks, dtype=float)
         self.method = method
 
@@ -733,22 +774,28 @@ class _Model:
     def __call__(self, p, jac=True):
         q0, g, s0, s1 = p[:4]
         sig = np.sqrt(s0 * s0 + self.n * s1 * s1)
-        shape, d_mean, d_sigma = _shapes(self.edges, q0 + self.n * g, sig)
+        k, i, shape, d_mean, d_sigma = _banded_shapes(self.edges, q0 + self.n * g, sig)
         amp, prob, dmu, dlam = self.amplitudes(p)
-        m = amp @ shape
+        B = self.n_bins
+
+        def column(weights, values):
+            return np.bincount(i, weights=weights[k] * values, minlength=B)
+
+        m = column(amp, shape)
         if not jac:
             return m, None
         cols = [
-            amp @ d_mean,
-            (amp * self.n) @ d_mean,
-            (amp * s0 / sig) @ d_sigma,
-            (amp * self.n * s1 / sig) @ d_sigma,
+            column(amp, d_mean),
+            column(amp * self.n, d_mean),
+            column(amp * s0 / sig, d_sigma),
+            column(amp * self.n * s1 / sig, d_sigma),
         ]
         if self.method == "gpoisson":
-            cols += [prob @ shape, (amp * dmu) @ shape, (amp * dlam) @ shape]
-            J = np.column_stack(cols)
-        else:
-            J = np.concatenate([np.column_stack(cols), shape.T], axis=1)
+            cols += [column(prob, shape), column(amp * dmu, shape), column(amp * dlam, shape)]
+            return m, np.column_stack(cols)
+        J = np.zeros((B, 4 + self.n.size))
+        J[:, :4] = np.column_stack(cols)
+        J[i, 4 + k] = shape
         return m, J
 
 
