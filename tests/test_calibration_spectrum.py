@@ -154,13 +154,14 @@ def test_truth_recovery_over_seeds(over):
         assert f.ndf == f.charge.size - 7
 
 
-def test_uncertainties_match_the_spread_over_seeds():
+@pytest.mark.parametrize("amplitudes", ["gpoisson", "free"])
+def test_uncertainties_match_the_spread_over_seeds(amplitudes):
     # pulls (fit - truth)/error over 60 seeds must have a width near 1
     pulls = {k: [] for k in ("gain", "pedestal", "mean_pe", "crosstalk", "sigma0")}
     chi2_per_ndf = []
     for seed in range(60):
         truth, x, c = _spectrum(1000 + seed, n_events=10000)
-        f = fit_spectrum(x, c)
+        f = fit_spectrum(x, c, amplitudes=amplitudes)
         for k in pulls:
             pulls[k].append((getattr(f, k) - truth[k]) / getattr(f, k + "_err"))
         chi2_per_ndf.append(f.chi2_per_ndf)
@@ -338,3 +339,24 @@ def test_banded_model_matches_dense_bin_integrals_and_its_jacobian(method):
         down[j] -= h
         numeric[:, j] = (model(up, jac=False)[0] - model(down, jac=False)[0]) / (2 * h)
     np.testing.assert_allclose(J, numeric, rtol=0, atol=1e-6 * np.abs(J).max())
+
+
+def test_fit_range_drops_an_overflow_bin_and_a_threshold_region():
+    truth, x, c = _spectrum(81, n_events=30000)
+    c = c.copy()
+    c[-1] += 5000.0  # an ADC overflow bin piles up at the end
+    ref = fit_spectrum(x, c, fit_range=(x[0] - 1.0, x[-2]))
+    assert ref.charge[-1] == x[-2]
+    assert ref.gain == pytest.approx(truth["gain"], abs=4 * ref.gain_err)
+    assert ref.mean_pe == pytest.approx(truth["mean_pe"], abs=4 * ref.mean_pe_err)
+    # the same cut on the event list
+    q = simulate_events(np.random.default_rng(82), n_events=30000, **TRUTH)
+    f = fit_spectrum(np.r_[q, np.full(3000, 50.0)], fit_range=(-5.0, 20.0))
+    assert f.n_events == q.size
+    assert f.gain == pytest.approx(truth["gain"], abs=4 * f.gain_err)
+    with pytest.raises(InputError, match="fit_range"):
+        fit_spectrum(x, c, fit_range=(3.0, 1.0))
+    with pytest.raises(InputError, match="fit_range"):
+        fit_spectrum(x, c, fit_range=(1.0,))
+    with pytest.raises(InputError, match="inside fit_range"):
+        fit_spectrum(x, c, fit_range=(100.0, 200.0))

@@ -326,7 +326,20 @@ def simulate_events(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, 
 # input checking and binning
 
 
-def _check_histogram(charge, counts):
+def _check_range(fit_range):
+    if fit_range is None:
+        return -np.inf, np.inf
+    try:
+        lo, hi = (float(v) for v in fit_range)
+    except (TypeError, ValueError):
+        raise InputError("fit_range: give two charges, (lowest, highest)") from None
+    if np.isnan(lo) or np.isnan(hi) or not lo < hi:
+        raise InputError(f"fit_range: the lowest charge must be below the highest (got {lo:g}, {hi:g})")
+    return lo, hi
+
+
+def _check_histogram(charge, counts, where=""):
+    where = f" {where}" if where else ""
     x = np.asarray(charge, dtype=float)
     c = np.asarray(counts, dtype=float)
     if x.ndim != 1 or c.ndim != 1:
@@ -334,9 +347,9 @@ def _check_histogram(charge, counts):
     if x.size != c.size:
         raise InputError(f"charge/counts: lengths differ ({x.size} charges, {c.size} counts)")
     if x.size == 0:
-        raise InputError("charge: the spectrum is empty")
+        raise InputError(f"charge: the spectrum is empty{where}")
     if x.size < 5:
-        raise InputError(f"charge: {x.size} bins are too few for a spectrum (need at least 5)")
+        raise InputError(f"charge: {x.size} bins{where} are too few for a spectrum (need at least 5)")
     if not np.all(np.isfinite(x)):
         raise InputError(f"charge: non-finite value at bin {int(np.flatnonzero(~np.isfinite(x))[0])}")
     if not np.all(np.isfinite(c)):
@@ -350,9 +363,9 @@ def _check_histogram(charge, counts):
         raise InputError(f"charge: bin centres must increase strictly (bin {int(bad[0]) + 1} does not)")
     total = float(c.sum())
     if total <= 0:
-        raise InputError("counts: the spectrum is empty (all counts are zero)")
+        raise InputError(f"counts: the spectrum is empty{where} (all counts are zero)")
     if total < MIN_EVENTS:
-        raise ModelError(f"counts: {total:g} events are too few for a spectrum fit (need at least {MIN_EVENTS})")
+        raise ModelError(f"counts: {total:g} events{where} are too few for a spectrum fit (need at least {MIN_EVENTS})")
     return x, c
 
 
@@ -936,7 +949,7 @@ def _best_fit(xs, edges, c, start, amplitudes):
     return best
 
 
-def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson") -> SpectrumFit:
+def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) -> SpectrumFit:
     """Fit a SiPM charge spectrum: gain, pedestal, widths, mean photoelectrons, crosstalk.
 
     Parameters
@@ -955,6 +968,13 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson") -> SpectrumFit:
         ``"free"``: one free amplitude per peak; ``mean_pe`` is then
         ``-ln(A_0 / sum A)`` and ``crosstalk`` is ``1 - mean_pe / <n>`` from
         the peak areas, with uncertainties propagated from the covariance.
+        The areas cover the peaks inside the histogram only, so a spectrum
+        cut off while its peaks are still large biases these two numbers
+        (the gain and widths are unaffected).
+    fit_range : (float, float), optional
+        Lowest and highest charge to fit (bins whose centres, or events whose
+        charges, lie outside are left out), e.g. to drop an overflow bin or
+        a region below a trigger threshold. Default: everything.
 
     Returns
     -------
@@ -974,14 +994,26 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson") -> SpectrumFit:
     Notes
     -----
     The peak at the lowest charge that carries a real local maximum is taken
-    as the pedestal (zero fired cells): the spectrum must include it.
+    as the pedestal (zero fired cells): the spectrum must include it, and
+    charge must grow with the number of fired cells (negate the axis for
+    negative-going pulses). Counts must be raw numbers of events, not
+    normalised or weighted, or the uncertainties are wrong. ``chi2`` is the
+    likelihood-ratio chi-square: for bins with few counts its expectation
+    per bin is below 1, so ``chi2 / ndf`` well below 1 is normal for sparse
+    spectra; well above 1 means the model misses something (for example
+    delayed crosstalk or afterpulses between the peaks).
     """
     if amplitudes not in AMPLITUDE_MODELS:
         raise InputError(f"amplitudes: unknown model {amplitudes!r} (choose from {', '.join(AMPLITUDE_MODELS)})")
+    lo, hi = _check_range(fit_range)
     if counts is None:
-        x, c = bin_events(charge)
+        q = _check_events(charge)
+        x, c = bin_events(q[(q >= lo) & (q <= hi)])
     else:
         x, c = _check_histogram(charge, counts)
+        if fit_range is not None:
+            keep = (x >= lo) & (x <= hi)
+            x, c = _check_histogram(x[keep], c[keep], "inside fit_range")
     # work on a rescaled axis: origin at the first bin, unit = median bin width
     origin, unit = float(x[0]), float(np.median(np.diff(x)))
     xs = (x - origin) / unit
