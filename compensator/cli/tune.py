@@ -252,7 +252,7 @@ def _summary(args, plant, profile, kind, result, report, rate, warnings, files):
         "kp": g.kp, "ki": g.ki_per_s, "kd": g.kd_s,
         "derivative_filter_n": g.derivative_filter_n, "setpoint_weight": g.setpoint_weight,
         "rate_hz": rate, "sample_time_s": 1.0 / rate,
-        "rule_dead_time_s": result.rule_dead_time_s if result.method not in ("robust",) else None,
+        "rule_dead_time_s": result.rule_dead_time_s if result.method not in ("robust", "zn-cycle") else None,
         "tau_c_s": result.closed_loop_time_constant_s,
         "ultimate_gain": result.ultimate_gain, "ultimate_period_s": result.ultimate_period_s,
         "ms_target": result.ms_target,

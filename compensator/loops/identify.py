@@ -315,7 +315,21 @@ def fit_step(record: LoopRecord, model: str = "fopdt", min_dead_time_s: float = 
 
 
 def model_response(model, record: LoopRecord, baseline: float):
-    """The fitted model's response to the recorded input (output units)."""
+    """The fitted model's response to the recorded input.
+
+    Parameters
+    ----------
+    model : FopdtModel or SopdtModel
+    record : LoopRecord
+        Supplies the time grid and the (piecewise-constant) input.
+    baseline : float
+        Output before the first input change (output units).
+
+    Returns
+    -------
+    ndarray
+        Model output at ``record.time_s`` (output units).
+    """
     sup = _Superposer(record.time_s, record.input)
     if isinstance(model, SopdtModel):
         shape = lambda s: _unit_step_sopdt(s, model.time_constant_s, model.time_constant2_s,  # noqa: E731

@@ -324,7 +324,17 @@ def discrete_frequency_response(plant: Plant, sample_time_s: float, omega_rad_s,
 def discrete_response_function(plant: Plant, sample_time_s: float, computation_delay_samples: int = 1):
     """A function ``omega_rad_s -> P(exp(j omega T))`` with the discretisation done once.
 
-    See :func:`discrete_frequency_response`; use this when evaluating many times.
+    Parameters
+    ----------
+    plant : Plant
+    sample_time_s : float
+        Firmware period, second.
+    computation_delay_samples : int
+
+    Returns
+    -------
+    callable
+        Same values as :func:`discrete_frequency_response`; use it when evaluating many times.
     """
     a, b, c, dmat = (np.atleast_2d(np.asarray(m, dtype=float)) for m in (
         plant.system.A, plant.system.B, plant.system.C, plant.system.D))

@@ -102,10 +102,12 @@ def plot_loop(directory, stem: str, plant, gains, report, overwrite: bool = Fals
     written.append(_save(fig, names[1], overwrite))
 
     fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(7, 6), sharex=True)
+    s = report.step
+    if np.isfinite(s.settling_time_s) and s.settling_time_s > 0:  # show the transient, not the long flat tail
+        ax1.set_xlim(0.0, min(float(report.time_s[-1]), 3.0 * s.settling_time_s + 10 * T))
     ax1.step(report.time_s, report.output, where="post", color="C0")
     ax1.axhline(1.0, color="grey", lw=0.8)
     ax1.set_ylabel(f"output per unit step\n({plant.output_label})", fontsize=8)
-    s = report.step
     ax1.set_title(f"setpoint step: rise {s.rise_time_s:.3g} s, settling {s.settling_time_s:.3g} s, "
                   f"overshoot {s.overshoot_pct:.1f} %", fontsize=9)
     ax2.step(report.time_s, report.actuator, where="post", color="C1")
@@ -117,7 +119,23 @@ def plot_loop(directory, stem: str, plant, gains, report, overwrite: bool = Fals
 
 
 def plot_step_fit(directory, stem: str, record, fitted_output, title: str, overwrite: bool = False) -> list[Path]:
-    """Recorded step test with the fitted model's response, and the residuals."""
+    """Recorded step test with the fitted model's response, and the residuals.
+
+    Parameters
+    ----------
+    directory : str or path-like
+        Existing directory; writes ``<stem>-fit.png``.
+    stem : str
+    record : LoopRecord
+    fitted_output : ndarray
+        Model output at ``record.time_s``.
+    title : str
+    overwrite : bool
+
+    Returns
+    -------
+    list of Path
+    """
     d = _check_dir(directory)
     fig, (ax1, ax2, ax3) = plt.subplots(3, 1, figsize=(7, 7), sharex=True,
                                         gridspec_kw={"height_ratios": [1, 3, 1]})
@@ -136,7 +154,21 @@ def plot_step_fit(directory, stem: str, record, fitted_output, title: str, overw
 
 
 def plot_relay(directory, stem: str, record, result, overwrite: bool = False) -> list[Path]:
-    """Relay experiment: relay output and the process limit cycle with its amplitude and period."""
+    """Relay experiment: relay output and the process limit cycle with its amplitude and period.
+
+    Parameters
+    ----------
+    directory : str or path-like
+        Existing directory; writes ``<stem>-relay.png``.
+    stem : str
+    record : LoopRecord
+    result : RelayResult
+    overwrite : bool
+
+    Returns
+    -------
+    list of Path
+    """
     d = _check_dir(directory)
     fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(7, 6), sharex=True)
     ax1.step(record.time_s, record.input, where="post", color="C2")

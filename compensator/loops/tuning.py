@@ -221,7 +221,20 @@ def ziegler_nichols_step(model, pid: bool = False) -> PidGains:
 
 
 def ziegler_nichols_ultimate(ultimate_gain: float, ultimate_period_s: float, pid: bool = False) -> PidGains:
-    """Ziegler-Nichols ultimate-cycle rule (1942): PI 0.45 Ku, Pu/1.2; PID 0.6 Ku, Pu/2, Pu/8."""
+    """Ziegler-Nichols ultimate-cycle rule (1942): PI 0.45 Ku, Pu/1.2; PID 0.6 Ku, Pu/2, Pu/8.
+
+    Parameters
+    ----------
+    ultimate_gain : float
+        Ku (signed like the plant gain).
+    ultimate_period_s : float
+        Pu, second.
+    pid : bool
+
+    Returns
+    -------
+    PidGains
+    """
     if ultimate_gain == 0 or not ultimate_period_s > 0:
         raise ModelError("the ultimate gain must be nonzero and the ultimate period positive")
     if pid:

@@ -210,7 +210,22 @@ def controller_tf(gains: PidGains, sample_time_s: float, setpoint_path: bool = F
 
 
 def controller_frequency_response(gains: PidGains, sample_time_s: float, omega_rad_s):
-    """``C(exp(j omega T))`` for one or many controllers (gains may be arrays; broadcasts)."""
+    """``C(exp(j omega T))`` for one or many controllers.
+
+    Parameters
+    ----------
+    gains : PidGains
+        Fields may be arrays of one shape (many controllers at once).
+    sample_time_s : float
+        Firmware period, second.
+    omega_rad_s : array_like
+        Angular frequencies, rad/s (last axis of the result).
+
+    Returns
+    -------
+    ndarray of complex
+        Shape ``gains.kp.shape + omega.shape``.
+    """
     T = sample_time_s
     q = np.exp(-1j * np.asarray(omega_rad_s, dtype=float) * T)
     kp = np.asarray(gains.kp, dtype=float)
@@ -226,7 +241,21 @@ def controller_frequency_response(gains: PidGains, sample_time_s: float, omega_r
 
 
 def frequency_grid(sample_time_s: float, points: int = 4000, decades: float = 6.0):
-    """Log-spaced angular frequencies from ``10^-decades`` of Nyquist up to just below it, rad/s."""
+    """Log-spaced angular frequencies up to just below the Nyquist frequency.
+
+    Parameters
+    ----------
+    sample_time_s : float
+        Period T, second (Nyquist frequency pi/T).
+    points : int
+    decades : float
+        Span below the Nyquist frequency.
+
+    Returns
+    -------
+    ndarray
+        Angular frequencies, rad/s.
+    """
     nyq = math.pi / sample_time_s
     return np.logspace(math.log10(nyq) - decades, math.log10(nyq * 0.9999), points)
 
