@@ -469,15 +469,23 @@ def _ambient(params, ambient_temp_c):
     return params.ambient_temp_c if ambient_temp_c is None else float(ambient_temp_c)
 
 
-def _thermally_stable(p, current_a):
-    """Whether the two-node thermal system at a fixed current has both eigenvalues in the left half plane."""
+def _conductance_matrix(p, current_a):
+    """Entries of the fixed-current heat-balance matrix (watt per kelvin): d(heat flow into node)/d(temperature).
+
+    Rows and columns are (cold plate, hot side); the same matrix gives the
+    steady state, its stability, and (divided by the heat capacities) the
+    linearised dynamics.
+    """
     i = np.asarray(current_a, dtype=float)
     s, k, g, rs = p.seebeck_v_per_k, p.conductance_w_per_k, p.cold_leak_conductance_w_per_k, p.sink_resistance_k_per_w
-    a11 = -(g + s * i + k) / p.cold_heat_capacity_j_per_k
-    a22 = (s * i - k - 1.0 / rs) / p.hot_heat_capacity_j_per_k
-    a12 = k / p.cold_heat_capacity_j_per_k
-    a21 = k / p.hot_heat_capacity_j_per_k
-    return (a11 + a22 < 0) & (a11 * a22 - a12 * a21 > 0)
+    return -(g + s * i + k), np.full_like(i, k), np.full_like(i, k), s * i - k - 1.0 / rs
+
+
+def _thermally_stable(p, current_a):
+    """Whether the two-node thermal system at a fixed current has both eigenvalues in the left half plane."""
+    m11, m12, m21, m22 = _conductance_matrix(p, current_a)
+    cc, ch = p.cold_heat_capacity_j_per_k, p.hot_heat_capacity_j_per_k
+    return (m11 / cc + m22 / ch < 0) & (m11 * m22 - m12 * m21 > 0)
 
 
 def stable_current_range_a(params) -> tuple[float, float]:
@@ -533,10 +541,7 @@ def cooler_steady_state(params, current_a, ambient_temp_c=None):
     s, r, k, g, rs = p.seebeck_v_per_k, p.resistance_ohm, p.conductance_w_per_k, \
         p.cold_leak_conductance_w_per_k, p.sink_resistance_k_per_w
     # Unknowns in kelvin.  Row 1: cold balance, row 2: hot balance.
-    a11 = -(g + s * i + k)
-    a12 = np.full_like(i, k)
-    a21 = np.full_like(i, k)
-    a22 = s * i - k - 1.0 / rs
+    a11, a12, a21, a22 = _conductance_matrix(p, i)
     ta_k = ta + KELVIN_OFFSET
     b1 = -(p.cold_heat_load_w + g * ta_k + i ** 2 * r / 2.0)
     b2 = -(i ** 2 * r / 2.0 + ta_k / rs)
@@ -683,12 +688,11 @@ def linearise_cooler(params, point: CoolerOperatingPoint) -> Plant:
     """
     p = params
     i, tc, th = point.current_a, point.cold_temp_c + KELVIN_OFFSET, point.hot_temp_c + KELVIN_OFFSET
-    s, r, k, g = p.seebeck_v_per_k, p.resistance_ohm, p.conductance_w_per_k, p.cold_leak_conductance_w_per_k
-    cc, ch, rs = p.cold_heat_capacity_j_per_k, p.hot_heat_capacity_j_per_k, p.sink_resistance_k_per_w
-    a = [[-(g + s * i + k) / cc, k / cc], [k / ch, (s * i - k - 1.0 / rs) / ch]]
-    b = [[(-s * tc + i * r) / cc], [(s * th + i * r) / ch]]
-    a = np.array(a)
-    b = np.array(b)
+    s, r = p.seebeck_v_per_k, p.resistance_ohm
+    cc, ch = p.cold_heat_capacity_j_per_k, p.hot_heat_capacity_j_per_k
+    m11, m12, m21, m22 = (float(v) for v in _conductance_matrix(p, i))
+    a = np.array([[m11 / cc, m12 / cc], [m21 / ch, m22 / ch]])
+    b = np.array([[(-s * tc + i * r) / cc], [(s * th + i * r) / ch]])
     if p.sensor_time_constant_s > 0:
         tau = p.sensor_time_constant_s
         a = np.block([[a, np.zeros((2, 1))], [np.array([[1.0 / tau, 0.0, -1.0 / tau]])]])
