@@ -95,3 +95,11 @@ def test_cooler_gain_reversal_is_warned(cooler):
     assert any("REVERSES SIGN" in w for w in rep.warnings)
     normal = plants.linearise_cooler(p, plants.cooler_operating_point(p))
     assert not verify.cooler_warnings(normal)
+
+
+def test_unsettled_step_is_reported_not_invented():
+    plant = plants.fopdt_plant(1.0, 10.0, 1.0)
+    short = verify.verify_loop(plant, PidGains(0.5, 0.05), T, horizon_s=5.0)
+    assert np.isnan(short.step.settling_time_s) and "not settled" in short.warnings[-1]
+    full = verify.verify_loop(plant, PidGains(0.5, 0.05), T)
+    assert np.isfinite(full.step.settling_time_s) and not full.warnings

@@ -462,8 +462,16 @@ def verify_loop(plant: Plant, gains: PidGains, sample_time_s: float, computation
         dc = plant.dc_gain
         b = gains.setpoint_weight
         yfinal = 1.0 if gains.ki_per_s != 0 else dc * b * gains.kp / (1.0 + dc * gains.kp)
-        info = control.step_info(y, T=t, yfinal=yfinal)
-        step = StepData(float(info["RiseTime"]), float(info["SettlingTime"]), float(info["Overshoot"]),
+        nan = float("nan")
+        try:
+            info = control.step_info(y, T=t, yfinal=yfinal)
+        except IndexError:  # python-control cannot find the 90 % crossing: the response never gets there
+            info = {"RiseTime": nan, "SettlingTime": nan, "Overshoot": nan, "PeakTime": nan}
+        settling = float(info["SettlingTime"])
+        if abs(y[-1] - yfinal) > 0.02 * abs(yfinal):
+            settling = nan
+            warnings.append(f"the step has not settled within the simulated {t[-1]:.4g} s; settling time unknown")
+        step = StepData(float(info["RiseTime"]), settling, float(info["Overshoot"]),
                         float(info["PeakTime"]), float(np.max(np.abs(u))), float(np.sum(np.abs(y_load)) * T))
         if gm < POOR_GAIN_MARGIN:
             warnings.append(f"poor gain margin {gm:.2f} (below {POOR_GAIN_MARGIN:g}, i.e. 6 dB)")
