@@ -170,3 +170,17 @@ def test_identify_bad_files(cli, tmp_path, demo_csv):
     flat.write_text("time_s,input,output\n" + "".join(f"{i},1,{i}\n" for i in range(20)))
     r = cli("identify", flat)
     assert r.status == 2 and "not a step test" in r.stderr
+
+
+def test_tune_robust_over_the_field_ambient_range(cli, profiles_dir):
+    r = cli("tune", "--plant", profiles_dir / "hut-cooler.yaml", "--method", "robust", "--ambient-range", -25, 45,
+            "--json")
+    assert r.status == 0, r.stderr
+    out = json.loads(r.stdout)
+    checks = out["ambient_check"]
+    assert [c["ambient_temp_c"] for c in checks] == [-25, -7.5, 10, 25, 27.5, 45]
+    assert all(c["reachable"] and c["stable"] and c["ms"] <= 1.4 * 1.001 for c in checks)
+    assert checks[0]["current_a"] < 0 < checks[-1]["current_a"]  # heats in winter, cools in summer
+    assert max(c["ms"] for c in checks) == pytest.approx(1.4, abs=0.01)  # the worst ambient is on the bound
+    r = cli("tune", "--plant", profiles_dir / "hut-board-ntc.yaml", "--method", "simc", "--ambient-range", 0, 10)
+    assert r.status == 2 and "--ambient-range: applies to a thermal profile only" in r.stderr

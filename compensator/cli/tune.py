@@ -51,6 +51,9 @@ def register(subparsers) -> None:
     op.add_argument("--ambient-temp-c", type=float, help="ambient, degree C (default: the profile's)")
     op.add_argument("--current-a", type=float,
                     help="linearise at this current instead of the setpoint's (to study other operating points)")
+    op.add_argument("--ambient-range", nargs=2, type=float, metavar=("MIN_C", "MAX_C"),
+                    help="re-verify the gains with the cooler linearised at ambients across this range (field "
+                         "enclosures: -25 45); with --method robust the Ms bound must hold at every one")
     p.add_argument("--regulator-tau-s", type=float,
                    help="bias regulator time constant, s (board profiles; default 1e-4, common practice)")
     em = p.add_argument_group("C emission (--emit-c)")
@@ -174,6 +177,8 @@ def run(args) -> int:
             continue
         _positive(f"--{name.replace('_', '-')}", getattr(args, name))
     plant, profile, kind, model, emit, extra_warnings, caution = _load_plant(args)
+    if args.ambient_range is not None and kind != "thermal":
+        raise InputError(Problem("<command line>", 0, "--ambient-range", "applies to a thermal profile only"))
     rate = args.rate_hz or emit.get("rate_hz")
     if rate is None:
         raise InputError(Problem("<command line>", 0, "--rate-hz", "required with --fopdt or --sopdt"))
@@ -194,10 +199,21 @@ def run(args) -> int:
             if target.exists():
                 raise InputError(Problem(str(target), 0, "", "already exists; not overwriting (use --force to "
                                                              "replace it)"))
+    ambients, others = _ambient_plants(args, profile, extra_warnings) if args.ambient_range else ([], [])
     result = tuning.tune(plant, args.method, T, pid=args.pid, ms_max=args.ms, tau_c_s=args.tau_c, model=model,
-                         include_sampling_delay=not args.ignore_sampling_delay)
+                         include_sampling_delay=not args.ignore_sampling_delay, also_plants=others)
     report = verify.verify_loop(plant, result.gains, T, ms_limit=args.ms if args.method == "robust" else None)
     warnings = list(extra_warnings) + list(report.warnings)
+    checks = []
+    if ambients:
+        checks = verify.check_cooler_ambient_range(profile.cooler, result.gains, T, ambients, args.setpoint_temp_c)
+        for c in checks:
+            if not c.reachable:
+                continue
+            if not c.stable:
+                warnings.append(f"at ambient {c.ambient_temp_c:g} C the loop is UNSTABLE with these gains")
+            elif c.ms > verify.POOR_MS:
+                warnings.append(f"at ambient {c.ambient_temp_c:g} C Ms is {c.ms:.2f}: fragile")
     files = []
     if args.emit_c:
         files += _emit(args, result, T, emit, emit_name, profile)
@@ -206,13 +222,39 @@ def run(args) -> int:
 
         files += [str(f) for f in plot_loop(args.plot, stem, plant, result.gains, report, overwrite=args.force)]
     out = _summary(args, plant, profile, kind, result, report, rate, warnings, files)
+    if checks:
+        from dataclasses import asdict
+
+        out["ambient_check"] = [asdict(c) for c in checks]
     for w in warnings:
         print(f"compensator: warning: {w}", file=sys.stderr)
     if args.json:
         print_json(out)
     else:
         _print_human(out)
-    return 0 if report.stable else 1
+    return 0 if report.stable and all(c.stable for c in checks if c.reachable) else 1
+
+
+def _ambient_plants(args, profile, warnings):
+    """Ambient temperatures to check (the range in 5 steps plus the nominal) and the reachable plants there."""
+    import numpy as np
+
+    from compensator.loops import plants
+
+    lo, hi = sorted(args.ambient_range)
+    c = profile.cooler
+    nominal = c.ambient_temp_c if args.ambient_temp_c is None else args.ambient_temp_c
+    ambients = sorted({*(float(v) for v in np.linspace(lo, hi, 5)), float(nominal)})
+    others = []
+    for ta in ambients:
+        try:
+            op = plants.cooler_operating_point(c, args.setpoint_temp_c, None, ta)
+        except ModelError as exc:
+            warnings.append(f"at ambient {ta:g} C the setpoint cannot be held: {exc}")
+            continue
+        if ta != nominal:
+            others.append(plants.linearise_cooler(c, op))
+    return ambients, others
 
 
 def _emit(args, result, T, emit, name, profile):
@@ -288,5 +330,10 @@ def _print_human(out):
               "per unit step")
     else:
         print("closed loop UNSTABLE: do not use these gains")
+    if out.get("ambient_check"):
+        rows = [(f"{c['ambient_temp_c']:g}", "yes" if c["reachable"] else "no", _fmt(c["current_a"], ".3f"),
+                 _fmt(c["ms"], ".3f"), _fmt(c["gain_margin"], ".3g"), _fmt(c["phase_margin_deg"], ".1f"),
+                 "yes" if c["stable"] else "NO") for c in out["ambient_check"]]
+        print(format_table(rows, ["ambient C", "reachable", "current A", "Ms", "GM", "PM deg", "stable"]))
     for f in out["files"]:
         print(f"wrote {f}")

@@ -248,12 +248,13 @@ def ziegler_nichols_ultimate(ultimate_gain: float, ultimate_period_s: float, pid
 def _feasible_batch(p_resp, w, T, kp, ki, kd, n, ms_max):
     """Whether each controller (arrays kp, ki, kd of one shape) keeps Ms <= ms_max on grid ``w``.
 
-    The Ms bound alone admits some unstable loops (a Nyquist curve can pass
-    far outside -1 on the wrong side), so a controller is also rejected when
-    its loop crosses the negative real axis left of -1.
+    ``p_resp`` has shape ``(plants, len(w))``: a controller must meet the
+    bound on every plant. The Ms bound alone admits some unstable loops (a
+    Nyquist curve can pass far outside -1 on the wrong side), so a controller
+    is also rejected when its loop crosses the negative real axis left of -1.
     """
     gains = PidGains(kp, ki, kd, n)
-    loop = controller_frequency_response(gains, T, w) * p_resp
+    loop = controller_frequency_response(gains, T, w)[..., None, :] * p_resp
     ms_ok = np.min(np.abs(1.0 + loop), axis=-1) >= 1.0 / ms_max
     im, re = loop.imag, loop.real
     cross = (im[..., :-1] * im[..., 1:] <= 0) & (im[..., :-1] != im[..., 1:])
@@ -261,7 +262,7 @@ def _feasible_batch(p_resp, w, T, kp, ki, kd, n, ms_max):
         frac = np.where(cross, im[..., :-1] / (im[..., :-1] - im[..., 1:]), 0.0)
     re_cross = re[..., :-1] + frac * (re[..., 1:] - re[..., :-1])
     outside = np.any(cross & (re_cross < -1.0), axis=-1)
-    return ms_ok & ~outside
+    return np.all(ms_ok & ~outside, axis=-1)
 
 
 def _max_ki(p_resp, w, T, kp, kd, n, sign, ms_max, ki_hi):
@@ -286,7 +287,7 @@ def _stable(plant, gains, T, delay):
 
 def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: bool = False,
            computation_delay_samples: int = 1, derivative_filter_n: float = 10.0,
-           reference: PidGains | None = None) -> PidGains:
+           reference: PidGains | None = None, also_plants=()) -> PidGains:
     """Gains that maximise the integral gain subject to ``Ms <= ms_max`` on the discretised loop.
 
     For every proportional (and derivative) gain on a grid the largest
@@ -307,6 +308,9 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
     derivative_filter_n : float
     reference : PidGains, optional
         A rule's gains that set the search scale (default: SIMC on a fitted FOPDT).
+    also_plants : sequence of Plant
+        More plants the same gains must satisfy (e.g. the cooler linearised
+        over the field's ambient range): the bound holds on every one.
 
     Returns
     -------
@@ -316,11 +320,13 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
         raise ModelError(f"the Ms bound must exceed 1, got {ms_max}")
     T = float(sample_time_s)
     sign = 1.0 if plant.dc_gain >= 0 else -1.0
+    every = (plant, *also_plants)
+    if any((p.dc_gain >= 0) != (sign > 0) for p in every):
+        raise ModelError("the plants disagree in the sign of their gain: no single controller suits them all")
     w = frequency_grid(T, 700, 6.0)
-    p_resp = discrete_frequency_response(plant, T, w, computation_delay_samples)
-    # Proportional-only limit: the largest |kp| with Ms <= ms_max (and below the ultimate gain).
-    ku, _ = ultimate_point(plant, T, computation_delay_samples)
-    kp_grid_max = abs(ku)
+    p_resp = np.array([discrete_frequency_response(p, T, w, computation_delay_samples) for p in every])
+    # The grid of proportional gains spans up to the smallest ultimate gain.
+    kp_grid_max = min(abs(ultimate_point(p, T, computation_delay_samples)[0]) for p in every)
     if reference is None:
         from compensator.loops.identify import approximate_plant
 
@@ -357,12 +363,12 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
         kif = _max_ki(p_resp, w, T, kpf, kdf, derivative_filter_n, sign, ms_max, ki_hi)
         j = int(np.argmax(kif))
         cand = PidGains(float(kpf.flat[j]), float(sign * kif.flat[j]), float(kdf.flat[j]), derivative_filter_n)
-        if kif.flat[j] <= 0 or not _stable(plant, cand, T, computation_delay_samples):
+        if kif.flat[j] <= 0 or not all(_stable(p, cand, T, computation_delay_samples) for p in every):
             continue
         # Confirm on the dense grid; shrink ki until the bound holds there too.
         dense = frequency_grid(T, 20000, 7.0)
         for _ in range(60):
-            ms, _ = max_sensitivity(plant, cand, T, computation_delay_samples, dense)
+            ms = max(max_sensitivity(p, cand, T, computation_delay_samples, dense)[0] for p in every)
             if ms <= ms_max * (1 + 1e-6):
                 return cand
             cand = replace(cand, ki_per_s=cand.ki_per_s * 0.995)
@@ -374,7 +380,7 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
 # ---------------------------------------------------------------- one entry point
 def tune(plant: Plant, method: str, sample_time_s: float, pid: bool = False, ms_max: float = DEFAULT_MS,
          tau_c_s: float | None = None, model=None, include_sampling_delay: bool = True,
-         computation_delay_samples: int = 1) -> TuningResult:
+         computation_delay_samples: int = 1, also_plants=()) -> TuningResult:
     """Tune a PI or PID controller for ``plant`` with one method.
 
     Parameters
@@ -396,6 +402,8 @@ def tune(plant: Plant, method: str, sample_time_s: float, pid: bool = False, ms_
     include_sampling_delay : bool
         Add the hold and computation delay to the rules' dead time.
     computation_delay_samples : int
+    also_plants : sequence of Plant
+        ``robust`` only: more plants the gains must also satisfy.
 
     Returns
     -------
@@ -408,8 +416,8 @@ def tune(plant: Plant, method: str, sample_time_s: float, pid: bool = False, ms_
         raise ModelError("the sample time must be positive")
     extra = sampling_dead_time_s(T, computation_delay_samples) if include_sampling_delay else 0.0
     if method == "robust":
-        return TuningResult(robust(plant, T, ms_max, pid, computation_delay_samples), method, pid, model, extra,
-                            ms_target=ms_max)
+        gains = robust(plant, T, ms_max, pid, computation_delay_samples, also_plants=also_plants)
+        return TuningResult(gains, method, pid, model, extra, ms_target=ms_max)
     if method == "zn-cycle":
         ku, pu = ultimate_point(plant, T if include_sampling_delay else None, computation_delay_samples)
         return TuningResult(ziegler_nichols_ultimate(ku, pu, pid), method, pid, model, extra,

@@ -504,3 +504,82 @@ def cooler_warnings(plant: Plant) -> list[str]:
         out.append(f"the operating current {op.current_a:.3f} A is within 15 % of the current of maximum cooling "
                    f"{op.optimum_current_a:.3f} A: little headroom and a loop gain that collapses near the optimum")
     return out
+
+
+@dataclass(frozen=True)
+class AmbientCheck:
+    """The same gains re-verified with the cooler linearised at another ambient temperature.
+
+    Attributes
+    ----------
+    ambient_temp_c : float
+        Degree Celsius.
+    reachable : bool
+        Whether the setpoint can be held at this ambient (else the other fields are nan).
+    current_a : float
+        Operating current (negative: heating), ampere.
+    gain_k_per_a : float
+        Steady-state plant gain there, kelvin per ampere.
+    stable : bool
+    ms, gain_margin, phase_margin_deg : float
+    """
+
+    ambient_temp_c: float
+    reachable: bool
+    current_a: float
+    gain_k_per_a: float
+    stable: bool
+    ms: float
+    gain_margin: float
+    phase_margin_deg: float
+
+
+def check_cooler_ambient_range(params, gains: PidGains, sample_time_s: float, ambient_temps_c,
+                               setpoint_temp_c: float | None = None,
+                               computation_delay_samples: int = 1) -> tuple[AmbientCheck, ...]:
+    """Re-verify fixed gains with the cooler linearised at each ambient temperature.
+
+    The plant gain and time constants move with the operating current (and
+    the loop changes from cooling to heating below the setpoint), so gains
+    tuned at one ambient must be checked over the field range.
+
+    Parameters
+    ----------
+    params : CoolerParams
+    gains : PidGains
+    sample_time_s : float
+        Firmware period, second.
+    ambient_temps_c : array_like
+        Ambient temperatures to check, degree Celsius.
+    setpoint_temp_c : float, optional
+        Cold-plate setpoint (default: the profile's).
+    computation_delay_samples : int
+
+    Returns
+    -------
+    tuple of AmbientCheck
+    """
+    from compensator.loops.plants import cooler_operating_point, linearise_cooler
+
+    out = []
+    nan = float("nan")
+    for ta in np.atleast_1d(np.asarray(ambient_temps_c, dtype=float)):
+        try:
+            op = cooler_operating_point(params, setpoint_temp_c, None, float(ta))
+        except ModelError:
+            out.append(AmbientCheck(float(ta), False, nan, nan, False, nan, nan, nan))
+            continue
+        plant = linearise_cooler(params, op)
+        a_cl = _closed_loop(plant, gains, sample_time_s, computation_delay_samples)[0]
+        stable = bool(np.max(np.abs(np.linalg.eigvals(a_cl))) < 1.0)
+        ms, _ = max_sensitivity(plant, gains, sample_time_s, computation_delay_samples)
+        w = frequency_grid(sample_time_s, 4000, 7.0)
+        loop = controller_frequency_response(gains, sample_time_s, w) * discrete_frequency_response(
+            plant, sample_time_s, w, computation_delay_samples)
+        with warnings_module.catch_warnings():
+            warnings_module.simplefilter("ignore")
+            gm, pm, *_ = control.stability_margins((np.abs(loop), np.degrees(np.unwrap(np.angle(loop))), w))
+        out.append(AmbientCheck(float(ta), True, op.current_a, op.gain_k_per_a, stable, ms,
+                                float(gm) if gm is not None and np.isfinite(gm) else float("inf"),
+                                float(pm) if pm is not None and np.isfinite(pm) else float("inf")))
+    return tuple(out)
