@@ -134,3 +134,15 @@ def test_robust_reports_infeasible_bounds():
 def test_unknown_method():
     with pytest.raises(ModelError, match="method"):
         tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "magic", T)
+
+
+def test_robust_over_several_plants_and_sign_disagreement(cooler):
+    c = cooler.cooler
+    nominal = plants.linearise_cooler(c, plants.cooler_operating_point(c))
+    cold = plants.linearise_cooler(c, plants.cooler_operating_point(c, ambient_temp_c=-25.0))
+    g = tuning.robust(nominal, T, 1.4, also_plants=[cold])
+    checks = verify.check_cooler_ambient_range(c, g, T, [-25.0, 25.0, 60.0], setpoint_temp_c=15.0)
+    assert all(x.stable and x.ms <= 1.4 * 1.001 for x in checks[:2])
+    assert not checks[2].reachable  # at 60 C ambient the plate cannot be held at 15 C
+    with pytest.raises(ModelError, match="disagree in the sign"):
+        tuning.robust(nominal, T, 1.4, also_plants=[plants.fopdt_plant(1.0, 10.0, 1.0)])
