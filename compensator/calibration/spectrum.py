@@ -14,26 +14,32 @@ avalanche (Vinogradov, NIM A 695, 247, 2012)::
     P(k) = mu (mu + k lambda)**(k - 1) exp(-mu - k lambda) / k!
 
 with mean ``mu / (1 - lambda)`` and variance ``mu / (1 - lambda)**3``. The
-crosstalk probability reported here is ``lambda`` itself: with a Poisson number
-of secondaries per avalanche, the probability that an avalanche fires at least
-one neighbour is ``1 - exp(-lambda)``; ``lambda`` is the branching ratio.
+reported ``crosstalk`` is the branching ratio ``lambda`` (mean number of
+secondary avalanches per avalanche); in this model the probability that an
+avalanche triggers at least one neighbour is ``1 - exp(-lambda)``.
 
 The fit
 -------
 1. Start values (:func:`spectrum_start_values`): the peak spacing and the comb
    phase come from the Fourier transform of the variance-stabilised spectrum
-   (square root of the counts, first difference to suppress the envelope); the
-   pedestal is the first peak of the comb that carries a real local maximum;
-   positions of the resolved peaks are refined by centroids and a straight-line
-   fit ``position = Q0 + n G``; peak widths from windowed second moments;
-   ``mu = -ln P0`` from the pedestal fraction and ``lambda = 1 - mu / <n>`` from
-   the mean charge.
+   (square root of the counts, first difference to suppress the envelope); a
+   test in the charge domain catches octave errors (a harmonic or a
+   sub-harmonic taken for the spacing); the pedestal is the first peak of the
+   comb that carries a real local maximum; positions of the resolved peaks are
+   refined by centroids and a straight-line fit ``position = Q0 + n G``; peak
+   widths from windowed second moments; ``mu = -ln P0`` from the pedestal
+   fraction and ``lambda = 1 - mu / <n>`` from the mean charge.
 2. A binned Poisson maximum-likelihood fit of the model integrated over each
    bin (normal-distribution differences at the bin edges, so any bin width is
-   exact). The likelihood is maximised as a bounded Gauss-Newton problem on the
-   deviance residuals (``scipy.optimize.least_squares``, method ``"trf"``) with
-   an analytic Jacobian; minimising the deviance is maximising the Poisson
-   likelihood, which stays correct for bins with few or zero counts.
+   exact; each peak is evaluated within 8.5 widths of its centre). The
+   likelihood is maximised as a bounded Gauss-Newton problem on the deviance
+   residuals (``scipy.optimize.least_squares``, method ``"trf"``) with an
+   analytic Jacobian; minimising the deviance is maximising the Poisson
+   likelihood, which stays correct for bins with few or zero counts. A missed
+   weak pedestal and a poor fit trigger refits from alternative starts (the
+   likelier result wins). With free amplitudes the generalised-Poisson fit
+   fixes the peak labelling first, then a Fisher-scoring Levenberg-Marquardt
+   iteration fits one amplitude per peak.
 3. Uncertainties are the square roots of the diagonal of the inverse Fisher
    information ``J^T diag(1/m) J`` at the optimum (``m``: expected counts,
    ``J = dm/dtheta``), i.e. the inverse of the expected Hessian of the negative
@@ -64,6 +70,7 @@ __all__ = [
     "SpectrumFit",
     "fit_spectrum",
     "simulate_spectrum",
+    "simulate_events",
     "generalized_poisson_pmf",
     "naive_gain",
     "spectrum_start_values",
@@ -283,13 +290,18 @@ def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk
         Bin centres, contiguous from the lowest to the highest event.
     counts : numpy.ndarray
         Events per bin (float array of integers).
+
+    Raises
+    ------
+    ModelError
+        Parameters outside their domain.
     """
+    if not (np.isfinite(bin_width) and bin_width > 0):
+        raise ModelError("simulate_spectrum: bin_width must be > 0")
     charges = simulate_events(
         rng, gain=gain, pedestal=pedestal, sigma0=sigma0, sigma1=sigma1,
         mean_pe=mean_pe, crosstalk=crosstalk, n_events=n_events,
     )
-    if not (np.isfinite(bin_width) and bin_width > 0):
-        raise ModelError("simulate_spectrum: bin_width must be > 0")
     j = np.floor((charges - pedestal) / bin_width).astype(np.int64)
     j_lo, j_hi = int(j.min()), int(j.max())
     counts = np.bincount(j - j_lo, minlength=j_hi - j_lo + 1).astype(float)
@@ -298,12 +310,32 @@ def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk
 
 
 def simulate_events(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events):
-    """Seeded synthetic event list (one charge per event); see :func:`simulate_spectrum`.
+    """Seeded synthetic event list (one charge per event).
+
+    Same model as :func:`simulate_spectrum`, without the binning.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator or int
+        Random generator (or a seed for one).
+    gain, pedestal, sigma0, sigma1 : float
+        Charge per fired cell, pedestal position, widths (any charge unit).
+    mean_pe : float
+        Mean number of primary photoelectrons, >= 0.
+    crosstalk : float
+        Branching ratio, 0 <= crosstalk < 1.
+    n_events : int
+        Number of events.
 
     Returns
     -------
     numpy.ndarray
         Charges, one per event, in the unit of ``gain``.
+
+    Raises
+    ------
+    ModelError
+        Parameters outside their domain.
     """
     rng = np.random.default_rng(rng)
     n_events = int(n_events)
