@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -146,3 +147,17 @@ def test_robust_over_several_plants_and_sign_disagreement(cooler):
     assert not checks[2].reachable  # at 60 C ambient the plate cannot be held at 15 C
     with pytest.raises(ModelError, match="disagree in the sign"):
         tuning.robust(nominal, T, 1.4, also_plants=[plants.fopdt_plant(1.0, 10.0, 1.0)])
+
+
+def test_static_plant_behind_the_sample_delay(board_ntc):
+    # No filter and an instant regulator: the sampled plant is K z^-1, ultimate gain 1/|K| at the Nyquist frequency.
+    sup = dataclasses.replace(board_ntc.supply, filter_capacitance_f=0.0)
+    plant = plants.bias_supply_plant(sup, regulator_time_constant_s=0.0)
+    ku, pu = verify.ultimate_point(plant, T)
+    assert ku == pytest.approx(1.0 / sup.volts_per_code) and pu == pytest.approx(2 * T)
+    for pid in (False, True):
+        g = tuning.robust(plant, T, 1.4, pid=pid)
+        rep = verify.verify_loop(plant, g, T)
+        assert rep.stable and rep.margins.ms <= 1.4 * 1.001
+    with pytest.raises(ModelError, match="static gain"):
+        tuning.tune(plant, "simc", T)

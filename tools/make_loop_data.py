@@ -134,7 +134,8 @@ def make_step(path=None, step_a=0.3, step_time_s=20.0, duration_s=900.0, noise_k
     u = np.where(t >= step_time_s, i0 + step_a, i0)
     # The input is constant after the step, so one adaptive integration covers the record exactly.
     sol = solve_ivp(lambda _t, x: cooler_derivatives(params, x[0], x[1], x[2], i0 + step_a), (step_time_s, t[-1]),
-                    [op.cold_temp_c, op.hot_temp_c, op.cold_temp_c], rtol=1e-8, atol=1e-9, method="DOP853", dense_output=True)
+                    [op.cold_temp_c, op.hot_temp_c, op.cold_temp_c], rtol=1e-8, atol=1e-9, method="DOP853",
+                    dense_output=True)
     seen = t - params.sensor_dead_time_s
     y = np.full(t.size, op.cold_temp_c)
     after = seen > step_time_s

@@ -271,7 +271,8 @@ def _emit(args, result, T, emit, name, profile):
                           output_per_count=pick["output_per_count"])
     banner = {"method": result.method, "controller": "PID" if result.pid else "PI", "rate_hz": f"{1.0 / T:g}",
               "kp": f"{g.kp:.6g}", "ki_per_s": f"{g.ki_per_s:.6g}", "kd_s": f"{g.kd_s:.6g}",
-              "input_per_count": f"{pick['input_per_count']:.6g}", "output_per_count": f"{pick['output_per_count']:.6g}",
+              "input_per_count": f"{pick['input_per_count']:.6g}",
+              "output_per_count": f"{pick['output_per_count']:.6g}",
               "out_min": f"{pick['out_min']:.6g}", "out_max": f"{pick['out_max']:.6g}"}
     written = write_pid_c(coeffs, args.emit_c, name=name, profiles=(profile,) if profile else (), settings=banner,
                           overwrite=args.force)

@@ -422,7 +422,8 @@ def approximate_plant(plant: Plant, model: str = "fopdt", points: int = 3000):
     poles = np.linalg.eigvals(np.atleast_2d(np.asarray(plant.system.A, dtype=float))) \
         if np.asarray(plant.system.A).size else np.array([])
     if poles.size == 0:
-        raise ModelError("the plant has no dynamics to approximate")
+        raise ModelError("the plant is a static gain (no time constant) and the tuning rules need one; use the "
+                         "robust or zn-cycle method")
     if np.any(np.real(poles) >= 0):
         raise ModelError("the plant is not open-loop stable; a step test model does not apply")
     slow = float(np.max(-1.0 / np.real(poles)))

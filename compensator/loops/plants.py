@@ -260,7 +260,10 @@ def discretise(plant: Plant, sample_time_s: float, computation_delay_samples: in
     n = a.shape[0]
     T = float(sample_time_s)
     d, rem = _delay_split(plant.dead_time_s, T)
-    phi, gamma_full = _zoh_integrals(a, b, T)
+    # The zero-order-hold sampling of the delay-free part is python-control's sample_system; only the
+    # fractional part of the dead time needs the split integrals below.
+    sampled = control.sample_system(control.ss(a, b, c, dmat), T, method="zoh")
+    phi, gamma_full = np.atleast_2d(np.asarray(sampled.A, float)), np.atleast_2d(np.asarray(sampled.B, float))
     total = d + computation_delay_samples  # length of the input delay line
     if d == 0:
         g0, g1 = gamma_full, np.zeros_like(gamma_full)

@@ -251,7 +251,8 @@ def _feasible_batch(p_resp, w, T, kp, ki, kd, n, ms_max):
     ``p_resp`` has shape ``(plants, len(w))``: a controller must meet the
     bound on every plant. The Ms bound alone admits some unstable loops (a
     Nyquist curve can pass far outside -1 on the wrong side), so a controller
-    is also rejected when its loop crosses the negative real axis left of -1.
+    is also rejected when its loop crosses the negative real axis left of -1
+    (the grid must end at the Nyquist frequency).
     """
     gains = PidGains(kp, ki, kd, n)
     loop = controller_frequency_response(gains, T, w)[..., None, :] * p_resp
@@ -262,6 +263,8 @@ def _feasible_batch(p_resp, w, T, kp, ki, kd, n, ms_max):
         frac = np.where(cross, im[..., :-1] / (im[..., :-1] - im[..., 1:]), 0.0)
     re_cross = re[..., :-1] + frac * (re[..., 1:] - re[..., :-1])
     outside = np.any(cross & (re_cross < -1.0), axis=-1)
+    # The Nyquist curve of a sampled loop meets the real axis again at the Nyquist frequency (the last point).
+    outside |= re[..., -1] < -1.0
     return np.all(ms_ok & ~outside, axis=-1)
 
 
@@ -323,16 +326,21 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
     every = (plant, *also_plants)
     if any((p.dc_gain >= 0) != (sign > 0) for p in every):
         raise ModelError("the plants disagree in the sign of their gain: no single controller suits them all")
-    w = frequency_grid(T, 700, 6.0)
+    w = np.append(frequency_grid(T, 700, 6.0), math.pi / T)  # include Nyquist, where sampled loops often cross
     p_resp = np.array([discrete_frequency_response(p, T, w, computation_delay_samples) for p in every])
     # The grid of proportional gains spans up to the smallest ultimate gain.
     kp_grid_max = min(abs(ultimate_point(p, T, computation_delay_samples)[0]) for p in every)
     if reference is None:
         from compensator.loops.identify import approximate_plant
 
-        ref_model = _with_dead_time(approximate_plant(plant), sampling_dead_time_s(T, computation_delay_samples))
-        reference = simc(ref_model)[0]
-        ref_kd = abs(amigo(ref_model, pid=True).kd_s) if pid else 0.0
+        try:
+            ref_model = _with_dead_time(approximate_plant(plant), sampling_dead_time_s(T, computation_delay_samples))
+        except ModelError:  # a static plant: scale the search by its ultimate gain alone
+            reference = PidGains(0.2 * sign * kp_grid_max, 0.05 * sign * kp_grid_max / T)
+            ref_kd = 0.0
+        else:
+            reference = simc(ref_model)[0]
+            ref_kd = abs(amigo(ref_model, pid=True).kd_s) if pid else 0.0
     else:
         ref_kd = abs(reference.kd_s)
     ki_hi = 1e3 * max(abs(reference.ki_per_s), abs(kp_grid_max) / T)
@@ -348,7 +356,7 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
     ki = _max_ki(p_resp, w, T, KP, KD, derivative_filter_n, sign, ms_max, ki_hi)
     # Refine around the best few points on a finer grid, then take the best that is closed-loop stable.
     order = np.argsort(ki, axis=None)[::-1]
-    for flat in order[:6]:
+    for flat in order[:12]:
         if ki.flat[flat] <= 0:
             break
         kp0, kd0 = KP.flat[flat], KD.flat[flat]
@@ -361,9 +369,13 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
         else:
             kpf, kdf = kps, np.zeros_like(kps)
         kif = _max_ki(p_resp, w, T, kpf, kdf, derivative_filter_n, sign, ms_max, ki_hi)
-        j = int(np.argmax(kif))
-        cand = PidGains(float(kpf.flat[j]), float(sign * kif.flat[j]), float(kdf.flat[j]), derivative_filter_n)
-        if kif.flat[j] <= 0 or not all(_stable(p, cand, T, computation_delay_samples) for p in every):
+        cand = None
+        for j in np.argsort(kif, axis=None)[::-1][:5]:
+            trial = PidGains(float(kpf.flat[j]), float(sign * kif.flat[j]), float(kdf.flat[j]), derivative_filter_n)
+            if kif.flat[j] > 0 and all(_stable(p, trial, T, computation_delay_samples) for p in every):
+                cand = trial
+                break
+        if cand is None:
             continue
         # Confirm on the dense grid; shrink ki until the bound holds there too.
         dense = frequency_grid(T, 20000, 7.0)

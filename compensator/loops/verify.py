@@ -321,6 +321,12 @@ def ultimate_point(plant: Plant, sample_time_s: float | None = None, computation
             return sign * raw(w)
     ph = np.unwrap(np.angle(resp(w)))
     below = np.flatnonzero(ph <= -math.pi)
+    if below.size == 0 and sample_time_s is not None:
+        # A sampled loop may reach -180 degrees exactly at the Nyquist frequency (e.g. a static gain behind
+        # one sample of delay), where the response is real.
+        at_nyquist = resp(np.array([math.pi / sample_time_s]))[0]
+        if at_nyquist.real < 0 and abs(at_nyquist.imag) <= 1e-9 * abs(at_nyquist):
+            return sign / abs(at_nyquist), 2.0 * sample_time_s
     if below.size == 0:
         raise ModelError("the plant's phase never reaches -180 degrees: no ultimate gain (any proportional gain is "
                          "stable)")
