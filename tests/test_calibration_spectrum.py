@@ -3,7 +3,10 @@
 Outside references used here:
 - generalised-Poisson moments, mean mu/(1-lambda) and variance
   mu/(1-lambda)**3 (Vinogradov, NIM A 695, 247, 2012);
-- scipy.stats.poisson (lambda = 0 limit) and scipy.stats.chisquare.
+- scipy.stats.poisson (lambda = 0 limit) and scipy.stats.chisquare;
+- Borel distribution moments, mean 1/(1-lambda) and variance
+  lambda/(1-lambda)**3 (quoted from memory), and its identity with the
+  mu -> 0 limit of the generalised Poisson given at least one cell fired.
 Truth recovery uses seeded synthetic spectra from :func:`simulate_spectrum`.
 """
 
@@ -16,6 +19,7 @@ from scipy import stats
 from compensator.calibration.spectrum import (
     SpectrumFit,
     bin_events,
+    borel_pmf,
     fit_spectrum,
     generalized_poisson_pmf,
     naive_gain,
@@ -360,3 +364,63 @@ def test_fit_range_drops_an_overflow_bin_and_a_threshold_region():
         fit_spectrum(x, c, fit_range=(1.0,))
     with pytest.raises(InputError, match="inside fit_range"):
         fit_spectrum(x, c, fit_range=(100.0, 200.0))
+
+
+# ---------------------------------------------------------------------------
+# dark-count spectra (no pedestal): Borel amplitudes
+
+
+@pytest.mark.parametrize("lam", [0.02, 0.2, 0.45])
+def test_borel_normalised_with_its_moments_and_the_generalised_poisson_limit(lam):
+    k = np.arange(1, 600)
+    p = borel_pmf(k, lam)
+    assert p.sum() == pytest.approx(1.0, abs=1e-9)
+    mean = np.sum(k * p)
+    assert mean == pytest.approx(1 / (1 - lam), rel=1e-9)  # from memory
+    assert np.sum((k - mean) ** 2 * p) == pytest.approx(lam / (1 - lam) ** 3, rel=1e-7)  # from memory
+    # mu -> 0 limit of Vinogradov's generalised Poisson, given k >= 1
+    mu = 1e-9
+    limit = generalized_poisson_pmf(k[:30], mu, lam) / -np.expm1(-mu)
+    np.testing.assert_allclose(p[:30], limit, rtol=1e-6)
+    assert borel_pmf(0, lam) == 0.0
+    with pytest.raises(ModelError):
+        borel_pmf(1, 1.0)
+
+
+def test_dark_simulation_follows_the_borel_distribution():
+    lam, n = 0.3, 100000
+    q = simulate_events(np.random.default_rng(91), gain=1.0, pedestal=0.0, sigma0=1e-6, sigma1=0.0,
+                        mean_pe=5.0, crosstalk=lam, n_events=n, dark=True)
+    k = np.rint(q).astype(int)
+    assert k.min() == 1
+    kmax = 10
+    observed = np.bincount(np.minimum(k, kmax), minlength=kmax + 1)[1:]
+    p = borel_pmf(np.arange(1, kmax), lam)
+    assert stats.chisquare(observed, n * np.append(p, 1.0 - p.sum())).pvalue > 1e-3
+
+
+def test_dark_count_spectra_recover_gain_crosstalk_and_the_zero_cell_charge():
+    pulls_g, pulls_l, gains = [], [], []
+    for seed in range(30):
+        truth, x, c = _spectrum(300 + seed, n_events=20000, crosstalk=0.15, dark=True)
+        f = fit_spectrum(x, c, amplitudes="borel")
+        assert f.method == "borel" and np.isnan(f.mean_pe)
+        assert f.peak_amplitudes.size == f.n_peaks and f.ndf == f.charge.size - 6
+        gains.append(f.gain)
+        pulls_g.append((f.gain - truth["gain"]) / f.gain_err)
+        pulls_l.append((f.crosstalk - truth["crosstalk"]) / f.crosstalk_err)
+        assert f.pedestal == pytest.approx(truth["pedestal"], abs=5 * f.pedestal_err)
+        assert f.mean_fired == pytest.approx(1 / (1 - f.crosstalk))
+    assert abs(np.median(gains) / truth["gain"] - 1) < 0.003
+    for v in (pulls_g, pulls_l):
+        assert 0.7 < np.std(v) < 1.35
+        assert abs(np.mean(v)) < 0.6
+    # the generalised-Poisson fit takes the first peak for the pedestal here
+    wrong = fit_spectrum(x, c)
+    assert wrong.pedestal == pytest.approx(truth["pedestal"] + truth["gain"], abs=0.02)
+
+
+def test_dark_count_spectrum_with_a_single_peak_is_rejected():
+    _, x, c = _spectrum(95, crosstalk=0.0, dark=True)
+    with pytest.raises(ModelError):
+        fit_spectrum(x, c, amplitudes="borel")

@@ -72,6 +72,7 @@ __all__ = [
     "simulate_spectrum",
     "simulate_events",
     "generalized_poisson_pmf",
+    "borel_pmf",
     "naive_gain",
     "spectrum_start_values",
     "bin_events",
@@ -79,7 +80,7 @@ __all__ = [
 ]
 
 #: The amplitude models :func:`fit_spectrum` accepts.
-AMPLITUDE_MODELS = ("gpoisson", "free")
+AMPLITUDE_MODELS = ("gpoisson", "free", "borel")
 
 #: Most peaks a model carries (pedestal included); keeps the fit bounded in time.
 MAX_PEAKS = 64
@@ -114,7 +115,8 @@ class SpectrumFit:
     sigma1, sigma1_err : float
         Extra width per fired cell (cell-to-cell gain spread).
     mean_pe, mean_pe_err : float
-        Mean number of primary photoelectrons ``mu`` (before crosstalk).
+        Mean number of primary photoelectrons ``mu`` (before crosstalk); nan
+        for a dark-count (``"borel"``) fit.
     crosstalk, crosstalk_err : float
         Prompt-crosstalk branching ratio ``lambda`` (mean secondaries per
         avalanche).
@@ -123,9 +125,10 @@ class SpectrumFit:
     ndf : int
         Number of bins minus number of free parameters.
     n_peaks : int
-        Number of peaks in the model (n = 0 .. n_peaks - 1).
+        Number of peaks in the model (n = 0 .. n_peaks - 1; n = 1 .. n_peaks
+        for ``"borel"``).
     method : str
-        ``"gpoisson"`` or ``"free"``.
+        ``"gpoisson"``, ``"free"`` or ``"borel"``.
     charge, counts, model_counts : numpy.ndarray
         Bin centres, observed counts and fitted expected counts (for plots and
         residuals).
@@ -176,8 +179,10 @@ class SpectrumFit:
 
     @property
     def mean_fired(self) -> float:
-        """Mean number of fired cells per event, ``mu / (1 - lambda)``."""
-        return self.mean_pe / (1.0 - self.crosstalk)
+        """Mean number of fired cells per event: ``mu / (1 - lambda)``, or
+        ``1 / (1 - lambda)`` for a dark-count (``"borel"``) fit."""
+        primaries = 1.0 if self.method == "borel" else self.mean_pe
+        return primaries / (1.0 - self.crosstalk)
 
     def summary(self) -> dict:
         """The scalar results as a plain dict (for JSON and tables)."""
@@ -245,6 +250,53 @@ def generalized_poisson_pmf(k, mu, lam) -> np.ndarray:
     return out
 
 
+def borel_pmf(k, lam) -> np.ndarray:
+    """Borel probabilities: cells fired by one primary avalanche with crosstalk.
+
+    ``P(k) = exp(-lam k) (lam k)**(k-1) / k!`` for ``k >= 1``: the total size
+    of a branching Poisson chain started by a single avalanche, each avalanche
+    triggering on average ``lam`` more. It is the ``mu -> 0`` limit of the
+    generalised Poisson distribution (Vinogradov, NIM A 695, 247, 2012) given
+    that at least one cell fired, and describes self-triggered dark-count
+    spectra (no pedestal). Mean ``1/(1 - lam)``, variance ``lam/(1 - lam)**3``.
+
+    Parameters
+    ----------
+    k : array_like of int
+        Numbers of fired cells, >= 1 (``P(0) = 0``; 0 is accepted).
+    lam : array_like
+        Crosstalk branching ratio, 0 <= lam < 1.
+
+    Returns
+    -------
+    numpy.ndarray
+        Probabilities, broadcast over ``k`` and ``lam``.
+
+    Raises
+    ------
+    ModelError
+        For negative or non-integer ``k`` or ``lam`` outside [0, 1).
+    """
+    k = np.asarray(k)
+    lam = np.asarray(lam, dtype=float)
+    kf = k.astype(float)
+    if not np.all(np.isfinite(kf)) or np.any(kf < 0) or np.any(kf != np.round(kf)):
+        raise ModelError("borel_pmf: k must be non-negative integers")
+    if not np.all(np.isfinite(lam)) or np.any(lam < 0) or np.any(lam >= 1):
+        raise ModelError("borel_pmf: lam must lie in [0, 1)")
+    kf, lam = np.broadcast_arrays(kf, lam)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logp = -lam * kf + special.xlogy(kf - 1.0, lam * kf) - special.gammaln(kf + 1.0)
+    out = np.where(kf >= 1, np.exp(logp), 0.0)
+    return np.where((kf == 1) & (lam == 0), 1.0, out)
+
+
+def _borel_log_terms(n, lam):
+    """log P(n) and d log P/d lam for n >= 1 (lam > 0 assumed)."""
+    logp = -lam * n + (n - 1.0) * np.log(lam * n) - special.gammaln(n + 1.0)
+    return logp, (n - 1.0) / lam - n
+
+
 def _gp_log_terms(n, mu, lam):
     """log P(n), d log P/d mu, d log P/d lam for the fit (mu > 0 assumed)."""
     s = mu + n * lam
@@ -258,7 +310,7 @@ def _gp_log_terms(n, mu, lam):
 # simulation
 
 
-def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events, bin_width):
+def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events, bin_width, dark=False):
     """Seeded synthetic charge histogram with known truth.
 
     The number of fired cells per event is drawn as a branching process: a
@@ -283,6 +335,10 @@ def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk
     bin_width : float
         Histogram bin width (same unit); bins are aligned on
         ``pedestal + bin_width * (j + 1/2)``.
+    dark : bool
+        A self-triggered dark-count spectrum: every event starts from exactly
+        one primary avalanche (``mean_pe`` is ignored), so there is no
+        pedestal and the cells fired follow the Borel distribution.
 
     Returns
     -------
@@ -300,7 +356,7 @@ def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk
         raise ModelError("simulate_spectrum: bin_width must be > 0")
     charges = simulate_events(
         rng, gain=gain, pedestal=pedestal, sigma0=sigma0, sigma1=sigma1,
-        mean_pe=mean_pe, crosstalk=crosstalk, n_events=n_events,
+        mean_pe=mean_pe, crosstalk=crosstalk, n_events=n_events, dark=dark,
     )
     j = np.floor((charges - pedestal) / bin_width).astype(np.int64)
     j_lo, j_hi = int(j.min()), int(j.max())
@@ -309,7 +365,7 @@ def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk
     return centres, counts
 
 
-def simulate_events(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events):
+def simulate_events(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events, dark=False):
     """Seeded synthetic event list (one charge per event).
 
     Same model as :func:`simulate_spectrum`, without the binning.
@@ -326,6 +382,8 @@ def simulate_events(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, 
         Branching ratio, 0 <= crosstalk < 1.
     n_events : int
         Number of events.
+    dark : bool
+        Exactly one primary per event (dark counts); ``mean_pe`` is ignored.
 
     Returns
     -------
@@ -345,7 +403,7 @@ def simulate_events(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, 
         raise ModelError("simulate_spectrum: need gain > 0, sigma0 > 0, sigma1 >= 0")
     if not (mean_pe >= 0 and 0 <= crosstalk < 1):
         raise ModelError("simulate_spectrum: need mean_pe >= 0 and 0 <= crosstalk < 1")
-    fired = rng.poisson(mean_pe, n_events)
+    fired = np.ones(n_events, dtype=np.int64) if dark else rng.poisson(mean_pe, n_events)
     generation = fired.copy()
     while crosstalk > 0 and generation.any():
         generation = rng.poisson(crosstalk * generation)
@@ -806,7 +864,8 @@ class _Model:
     def __init__(self, edges, n_peaks, method):
         self.edges = edges
         self.n_bins = edges.size - 1
-        self.n = np.arange(n_peaks, dtype=float)
+        first = 1 if method == "borel" else 0  # no pedestal peak in a dark-count spectrum
+        self.n = np.arange(first, first + n_peaks, dtype=float)
         self.method = method
 
     def amplitudes(self, p):
@@ -814,6 +873,10 @@ class _Model:
             logp, dmu, dlam = _gp_log_terms(self.n, p[5], p[6])
             prob = np.exp(logp)
             return p[4] * prob, prob, dmu, dlam
+        if self.method == "borel":
+            logp, dlam = _borel_log_terms(self.n, p[5])
+            prob = np.exp(logp)
+            return p[4] * prob, prob, None, dlam
         return p[4:], None, None, None
 
     def __call__(self, p, jac=True):
@@ -837,6 +900,9 @@ class _Model:
         ]
         if self.method == "gpoisson":
             cols += [column(prob, shape), column(amp * dmu, shape), column(amp * dlam, shape)]
+            return m, np.column_stack(cols)
+        if self.method == "borel":
+            cols += [column(prob, shape), column(amp * dlam, shape)]
             return m, np.column_stack(cols)
         J = np.zeros((B, 4 + self.n.size))
         J[:, :4] = np.column_stack(cols)
@@ -878,6 +944,12 @@ def _fit(edges, c, start, method):
         p0 += [total / max(frac, 1e-3), mu0, lam0]
         lo += [0.0, 1e-4, 0.0]
         hi += [np.inf, 200.0, _LAMBDA_MAX]
+    elif method == "borel":
+        lam0 = start["crosstalk"]
+        frac = model([*p0, 1.0, lam0], jac=False)[0].sum()
+        p0 += [total / max(frac, 1e-3), lam0]
+        lo += [0.0, 1e-6]
+        hi += [np.inf, _LAMBDA_MAX]
     else:
         prob = generalized_poisson_pmf(np.arange(K), start["mean_pe"], start["crosstalk"])
         amp = np.maximum(prob * start.get("n_total", total), 0.5)
@@ -1024,7 +1096,7 @@ def _best_fit(xs, edges, c, start, amplitudes):
     m = best[2]
     win = (xs >= q0 - 1.5 * g) & (xs < q0 - 0.5 * g)
     below, expected = float(c[win].sum()), float(m[win].sum())
-    if below >= 2.0 and below > expected + 3.0 * np.sqrt(expected):
+    if amplitudes == "gpoisson" and below >= 2.0 and below > expected + 3.0 * np.sqrt(expected):
         alternatives.append(dict(start, pedestal=q0 - g, mean_pe=float(-np.log(below / total))))
     ndf = c.size - best[0].size
     if best_dev > ndf + 5.0 * np.sqrt(2.0 * max(ndf, 1)):
@@ -1041,6 +1113,8 @@ def _best_fit(xs, edges, c, start, amplitudes):
                   sigma1=float(max(abs(p[3]), 1e-3 * p[1])))
         if amplitudes == "gpoisson":
             sv.update(mean_pe=float(p[5]), crosstalk=float(min(max(p[6], 0.01), 0.9)))
+        elif amplitudes == "borel":
+            sv.update(crosstalk=float(min(max(p[5], 0.01), 0.9)))
         dev, out = run(sv)
         if dev < best_dev:
             best_dev, best = dev, out
@@ -1060,7 +1134,7 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) 
     counts : array_like, optional
         Events per bin (>= 0). None means ``charge`` is an event list, binned
         by :func:`bin_events` (documented data-driven bin width).
-    amplitudes : {"gpoisson", "free"}
+    amplitudes : {"gpoisson", "free", "borel"}
         ``"gpoisson"``: peak amplitudes from the generalised Poisson
         distribution with prompt crosstalk (parameters ``mu``, ``lambda``).
         ``"free"``: one free amplitude per peak; ``mean_pe`` is then
@@ -1069,6 +1143,11 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) 
         The areas cover the peaks inside the histogram only, so a spectrum
         cut off while its peaks are still large biases these two numbers
         (the gain and widths are unaffected).
+        ``"borel"``: a self-triggered dark-count spectrum without a pedestal:
+        the first peak is one fired cell and the amplitudes follow the Borel
+        distribution (:func:`borel_pmf`) with branching ratio ``crosstalk``;
+        ``pedestal`` is then the extrapolated zero-cell charge and
+        ``mean_pe`` is not defined (nan).
     fit_range : (float, float), optional
         Lowest and highest charge to fit (bins whose centres, or events whose
         charges, lie outside are left out), e.g. to drop an overflow bin or
@@ -1117,7 +1196,15 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) 
     xs = (x - origin) / unit
     edges = _edges_from_centres(xs)
     start = _start_values(xs, c, edges)
-    p, cov, m, nfev, model = _best_fit(xs, edges, c, start, "gpoisson")
+    if amplitudes == "borel":
+        # the first peak is one fired cell; the zero-cell position lies one
+        # spacing below it; P(1) = exp(-lambda)
+        g0, s0, s1 = start["gain"], start["sigma0"], start["sigma1"]
+        start = dict(start, pedestal=start["pedestal"] - g0, sigma0=float(np.sqrt(max(s0**2 - s1**2, (0.03 * g0) ** 2))),
+                     crosstalk=float(np.clip(start["mean_pe"], 0.01, 0.9)))
+        p, cov, m, nfev, model = _best_fit(xs, edges, c, start, "borel")
+    else:
+        p, cov, m, nfev, model = _best_fit(xs, edges, c, start, "gpoisson")
     if amplitudes == "free":
         # Free amplitudes cannot tell the spacing from half of it (the odd
         # peaks may simply be empty), so the peak labelling and the start come
@@ -1134,10 +1221,16 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) 
         mu, lam = float(p[5]), float(p[6])
         mu_err, lam_err = float(err[5]), float(err[6])
         names = ("pedestal", "gain", "sigma0", "sigma1", "n_total", "mean_pe", "crosstalk")
+    elif amplitudes == "borel":
+        mu, mu_err = float("nan"), float("nan")
+        lam, lam_err = float(p[5]), float(err[5])
+        names = ("pedestal", "gain", "sigma0", "sigma1", "n_total", "crosstalk")
     else:
         mu, lam, mu_err, lam_err = _free_amplitude_moments(amp, cov[4:, 4:])
         names = ("pedestal", "gain", "sigma0", "sigma1") + tuple(f"amplitude_{k}" for k in range(amp.size))
     if not np.sum(amp[1:]) >= 5.0:
+        if amplitudes == "borel":
+            raise ModelError("spectrum: only one peak (no crosstalk peak beyond it); the gain cannot be measured")
         raise ModelError("spectrum: no photoelectron peak beyond the pedestal; the gain cannot be measured")
     width_1 = np.hypot(s0, s1)
     if g < 2.0 * width_1:
