@@ -424,3 +424,14 @@ def test_dark_count_spectrum_with_a_single_peak_is_rejected():
     _, x, c = _spectrum(95, crosstalk=0.0, dark=True)
     with pytest.raises(ModelError):
         fit_spectrum(x, c, amplitudes="borel")
+
+
+def test_empty_bins_left_out_of_an_export_are_put_back():
+    truth, x, c = _spectrum(97, n_events=20000)
+    full = fit_spectrum(x, c)
+    kept = c > 0
+    assert (~kept).sum() > 20  # the comb has empty valleys at this resolution
+    sparse_export = fit_spectrum(x[kept], c[kept])
+    assert sparse_export.charge.size == x.size
+    assert sparse_export.gain == pytest.approx(full.gain, rel=1e-9)
+    assert sparse_export.chi2 == pytest.approx(full.chi2, rel=1e-9)

@@ -459,6 +459,30 @@ def _check_histogram(charge, counts, where=""):
     return x, c
 
 
+def _fill_gaps(x, c):
+    """Put back empty bins that a histogram export left out.
+
+    When every step between bin centres is a whole multiple of the smallest
+    step (within 0.1 %), the missing bins were empty: they are inserted with
+    zero counts so the bins keep one width. Otherwise the bins are taken as
+    genuinely non-uniform.
+    """
+    steps = np.diff(x)
+    width = float(steps.min())
+    ratio = steps / width
+    whole = np.rint(ratio)
+    if np.all(whole == 1.0) or not np.all(np.abs(ratio - whole) <= 1e-3 * whole):
+        return x, c
+    if whole.sum() + 1 > 64 * x.size:  # sparse exports of huge ranges: leave them as they are
+        return x, c
+    index = np.concatenate(([0], np.cumsum(whole).astype(np.int64)))
+    full_x = x[0] + width * np.arange(index[-1] + 1)
+    full_x[index] = x
+    full_c = np.zeros(full_x.size)
+    full_c[index] = c
+    return full_x, full_c
+
+
 def _edges_from_centres(x):
     mid = 0.5 * (x[1:] + x[:-1])
     return np.concatenate(([x[0] - (mid[0] - x[0])], mid, [x[-1] + (x[-1] - mid[-1])]))
@@ -812,7 +836,7 @@ def spectrum_start_values(charge, counts) -> dict:
     ModelError
         No peak structure.
     """
-    x, c = _check_histogram(charge, counts)
+    x, c = _fill_gaps(*_check_histogram(charge, counts))
     origin, unit = float(x[0]), float(np.median(np.diff(x)))
     xs = (x - origin) / unit
     sv = _start_values(xs, c, _edges_from_centres(xs))
@@ -1128,7 +1152,9 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) 
     ----------
     charge : array_like
         Bin centres of a histogram (strictly increasing; bins may be
-        non-uniform, edges are taken half-way between centres), or, when
+        non-uniform, edges are taken half-way between centres; when all
+        steps are whole multiples of the smallest one, the missing bins are
+        taken as empty bins left out of the export), or, when
         ``counts`` is None, one charge per event. Any charge unit; results come
         back in the same unit.
     counts : array_like, optional
@@ -1191,6 +1217,7 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) 
         if fit_range is not None:
             keep = (x >= lo) & (x <= hi)
             x, c = _check_histogram(x[keep], c[keep], "inside fit_range")
+        x, c = _fill_gaps(x, c)
     # work on a rescaled axis: origin at the first bin, unit = median bin width
     origin, unit = float(x[0]), float(np.median(np.diff(x)))
     xs = (x - origin) / unit
