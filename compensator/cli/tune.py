@@ -74,9 +74,19 @@ def register(subparsers) -> None:
     p.set_defaults(handler=run)
 
 
-def _positive(name, value):
-    if value is not None and not value > 0:
-        raise InputError(Problem("<command line>", 0, name, f"must be positive, got {value:g}"))
+def _check_arguments(args):
+    def bad(flag, reason):
+        raise InputError(Problem("<command line>", 0, flag, reason))
+
+    if not args.ms > 1:
+        bad("--ms", f"must exceed 1, got {args.ms:g}")
+    for name in ("rate_hz", "tau_c", "regulator_tau_s"):
+        value = getattr(args, name)
+        if value is not None and not value > 0:
+            bad(f"--{name.replace('_', '-')}", f"must be positive, got {value:g}")
+    for name in ("input_per_count", "output_per_count"):
+        if getattr(args, name) == 0:
+            bad(f"--{name.replace('_', '-')}", "must be nonzero")
 
 
 def _caution_thermal(cooler, point) -> str:
@@ -117,7 +127,7 @@ def _load_plant(args):
 
     profile = load_profile(args.plant)
     if isinstance(profile, ThermalProfile):
-        from compensator.physics.thermal import dew_point_c
+        from compensator.loops.verify import cooler_operating_warnings
 
         c = profile.cooler
         try:
@@ -126,23 +136,11 @@ def _load_plant(args):
             key = "--current-a" if args.current_a is not None else "control.setpoint_temp_c"
             raise InputError(Problem(args.plant, 0, key, str(exc))) from None
         plant = plants.linearise_cooler(c, point)
-        warnings = []
-        dew = float(dew_point_c(point.ambient_temp_c, c.ambient_relative_humidity_pct))
-        if point.cold_temp_c < dew + c.dew_margin_k:
-            warnings.append(f"CONDENSATION RISK: the cold plate at {point.cold_temp_c:.1f} C is below the dew point "
-                            f"{dew:.1f} C plus the {c.dew_margin_k:g} K margin")
-        out_max = min(c.max_current_a, point.optimum_current_a)
-        hot_at_max = float(plants.cooler_steady_state(c, out_max, point.ambient_temp_c)[1])
-        if hot_at_max > c.max_hot_temp_c:
-            warnings.append(f"at the output limit {out_max:.3g} A the hot side settles at {hot_at_max:.1f} C, above "
-                            f"limits.max_hot_temp_c {c.max_hot_temp_c:g} C: lower the limit or improve the heat sink")
-        if point.hot_temp_c > c.max_hot_temp_c:
-            warnings.append(f"the hot side at the operating point ({point.hot_temp_c:.1f} C) exceeds "
-                            f"limits.max_hot_temp_c {c.max_hot_temp_c:g} C")
+        out_min, out_max = plants.cooler_current_limits_a(c, point.ambient_temp_c)
         emit = dict(name="cooler_pid", input_per_count=COOLER_INPUT_PER_COUNT_K,
-                    output_per_count=COOLER_OUTPUT_PER_COUNT_A, out_min=-c.max_current_a, out_max=out_max,
+                    output_per_count=COOLER_OUTPUT_PER_COUNT_A, out_min=out_min, out_max=out_max,
                     rate_hz=c.control_rate_hz)
-        return plant, profile, "thermal", None, emit, warnings, _caution_thermal(c, point)
+        return plant, profile, "thermal", None, emit, cooler_operating_warnings(c, point), _caution_thermal(c, point)
     if isinstance(profile, BoardProfile):
         sup = profile.supply
         tau = plants.DEFAULT_REGULATOR_TIME_CONSTANT_S if args.regulator_tau_s is None else args.regulator_tau_s
@@ -165,17 +163,7 @@ def _targets(args, emit_name, stem):
 def run(args) -> int:
     from compensator.loops import tuning, verify
 
-    for name in ("ms", "rate_hz", "tau_c", "regulator_tau_s", "input_per_count", "output_per_count"):
-        if name == "ms":
-            if not args.ms > 1:
-                raise InputError(Problem("<command line>", 0, "--ms", f"must exceed 1, got {args.ms:g}"))
-            continue
-        if name in ("input_per_count", "output_per_count"):
-            value = getattr(args, name)
-            if value is not None and value == 0:
-                raise InputError(Problem("<command line>", 0, f"--{name.replace('_', '-')}", "must be nonzero"))
-            continue
-        _positive(f"--{name.replace('_', '-')}", getattr(args, name))
+    _check_arguments(args)
     plant, profile, kind, model, emit, extra_warnings, caution = _load_plant(args)
     if args.ambient_range is not None and kind != "thermal":
         raise InputError(Problem("<command line>", 0, "--ambient-range", "applies to a thermal profile only"))
@@ -239,21 +227,14 @@ def _ambient_plants(args, profile, warnings):
     """Ambient temperatures to check (the range in 5 steps plus the nominal) and the reachable plants there."""
     import numpy as np
 
-    from compensator.loops import plants
+    from compensator.loops.plants import linearise_cooler_over_ambient
 
     lo, hi = sorted(args.ambient_range)
     c = profile.cooler
     nominal = c.ambient_temp_c if args.ambient_temp_c is None else args.ambient_temp_c
     ambients = sorted({*(float(v) for v in np.linspace(lo, hi, 5)), float(nominal)})
-    others = []
-    for ta in ambients:
-        try:
-            op = plants.cooler_operating_point(c, args.setpoint_temp_c, None, ta)
-        except ModelError as exc:
-            warnings.append(f"at ambient {ta:g} C the setpoint cannot be held: {exc}")
-            continue
-        if ta != nominal:
-            others.append(plants.linearise_cooler(c, op))
+    others, unreachable = linearise_cooler_over_ambient(c, [t for t in ambients if t != nominal], args.setpoint_temp_c)
+    warnings.extend(unreachable)
     return ambients, others
 
 

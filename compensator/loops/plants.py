@@ -642,6 +642,55 @@ def cooler_operating_point(params, setpoint_temp_c=None, current_a=None, ambient
     return CoolerOperatingPoint(current, tc, th, ta, i_opt, t_cold, qc, power, (hi - lo) / (2 * h))
 
 
+def cooler_current_limits_a(params, ambient_temp_c=None) -> tuple[float, float]:
+    """Safe actuator limits for a cooler loop, ampere.
+
+    The upper limit is the current of maximum cooling (beyond it the loop
+    gain reverses and a controller would run away), the lower limit the
+    strongest heating current that still has a stable steady state, both
+    within ``+-max_current_a``.
+
+    Parameters
+    ----------
+    params : CoolerParams
+    ambient_temp_c : float, optional
+        Ambient, degree Celsius (default: the profile's).
+
+    Returns
+    -------
+    out_min_a, out_max_a : float
+    """
+    lo, _ = stable_current_range_a(params)
+    return float(lo), float(min(params.max_current_a, cooler_optimum_current_a(params, ambient_temp_c)))
+
+
+def linearise_cooler_over_ambient(params, ambient_temps_c, setpoint_temp_c=None):
+    """The cooler linearised at the setpoint for each ambient temperature.
+
+    Parameters
+    ----------
+    params : CoolerParams
+    ambient_temps_c : array_like
+        Degree Celsius.
+    setpoint_temp_c : float, optional
+        Cold-plate setpoint (default: the profile's).
+
+    Returns
+    -------
+    plants : list of Plant
+        One per ambient at which the setpoint can be held.
+    unreachable : list of str
+        One message per ambient at which it cannot.
+    """
+    out, problems = [], []
+    for ta in np.atleast_1d(np.asarray(ambient_temps_c, dtype=float)):
+        try:
+            out.append(linearise_cooler(params, cooler_operating_point(params, setpoint_temp_c, None, float(ta))))
+        except ModelError as exc:
+            problems.append(f"at ambient {ta:g} C the setpoint cannot be held: {exc}")
+    return out, problems
+
+
 def cooler_derivatives(params, cold_temp_c, hot_temp_c, sensor_temp_c, current_a, ambient_temp_c=None):
     """Time derivatives of the nonlinear cooler model (for simulation).
 

@@ -496,6 +496,40 @@ def verify_loop(plant: Plant, gains: PidGains, sample_time_s: float, computation
     return LoopReport(margins, step, bool(stable), radius, T, tuple(warnings), t, y, u)
 
 
+def cooler_operating_warnings(params, point: CoolerOperatingPoint) -> list[str]:
+    """Safety warnings about a cooler operating point: condensation and hot-side temperature.
+
+    Parameters
+    ----------
+    params : CoolerParams
+    point : CoolerOperatingPoint
+
+    Returns
+    -------
+    list of str
+        Condensation risk (cold plate below the dew point plus the margin;
+        Magnus formula, Alduchov and Eskridge 1996), hot side above its limit
+        at the operating point or at the upper current limit.
+    """
+    from compensator.loops.plants import cooler_current_limits_a, cooler_steady_state
+    from compensator.physics.thermal import dew_point_c
+
+    out = []
+    dew = float(dew_point_c(point.ambient_temp_c, params.ambient_relative_humidity_pct))
+    if point.cold_temp_c < dew + params.dew_margin_k:
+        out.append(f"CONDENSATION RISK: the cold plate at {point.cold_temp_c:.1f} C is below the dew point "
+                   f"{dew:.1f} C plus the {params.dew_margin_k:g} K margin")
+    if point.hot_temp_c > params.max_hot_temp_c:
+        out.append(f"the hot side at the operating point ({point.hot_temp_c:.1f} C) exceeds limits.max_hot_temp_c "
+                   f"{params.max_hot_temp_c:g} C")
+    out_max = cooler_current_limits_a(params, point.ambient_temp_c)[1]
+    hot_at_max = float(cooler_steady_state(params, out_max, point.ambient_temp_c)[1])
+    if hot_at_max > params.max_hot_temp_c:
+        out.append(f"at the output limit {out_max:.3g} A the hot side settles at {hot_at_max:.1f} C, above "
+                   f"limits.max_hot_temp_c {params.max_hot_temp_c:g} C: lower the limit or improve the heat sink")
+    return out
+
+
 def cooler_warnings(plant: Plant) -> list[str]:
     """Warnings about the cooler's operating point (gain reversal, little headroom)."""
     op = plant.operating_point
