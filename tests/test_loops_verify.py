@@ -103,3 +103,23 @@ def test_unsettled_step_is_reported_not_invented():
     assert np.isnan(short.step.settling_time_s) and "not settled" in short.warnings[-1]
     full = verify.verify_loop(plant, PidGains(0.5, 0.05), T)
     assert np.isfinite(full.step.settling_time_s) and not full.warnings
+
+
+def test_cooler_operating_warnings_and_limits(cooler):
+    from compensator.physics.thermal import dew_point_c
+
+    c = cooler.cooler
+    op = plants.cooler_operating_point(c)
+    # The demo setpoint (15 C) is below the dew point at 25 C / 60 % RH plus 3 K (Magnus formula).
+    assert float(dew_point_c(25.0, 60.0)) + 3.0 > 15.0
+    assert any("CONDENSATION" in w for w in verify.cooler_operating_warnings(c, op))
+    dry = dataclasses.replace(c, ambient_relative_humidity_pct=20.0)
+    assert verify.cooler_operating_warnings(dry, plants.cooler_operating_point(dry)) == []
+    low_limit = dataclasses.replace(dry, max_hot_temp_c=30.0)
+    hot = verify.cooler_operating_warnings(low_limit, plants.cooler_operating_point(low_limit))
+    assert len(hot) == 1 and "hot side settles" in hot[0]
+    lo, hi = plants.cooler_current_limits_a(c)
+    assert (lo, hi) == (-3.0, 3.0)
+    big = dataclasses.replace(c, max_current_a=12.0)
+    lo, hi = plants.cooler_current_limits_a(big)
+    assert hi == pytest.approx(plants.cooler_optimum_current_a(big)) and -12.0 < lo < 0
