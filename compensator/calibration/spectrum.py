@@ -198,6 +198,17 @@ class SpectrumFit:
 # generalised Poisson
 
 
+def _check_counts_and_branching(name, k, lam):
+    """k as non-negative whole floats and lam in [0, 1), or a ModelError."""
+    kf = np.asarray(k).astype(float)
+    lam = np.asarray(lam, dtype=float)
+    if not np.all(np.isfinite(kf)) or np.any(kf < 0) or np.any(kf != np.round(kf)):
+        raise ModelError(f"{name}: k must be non-negative integers")
+    if not np.all(np.isfinite(lam)) or np.any(lam < 0) or np.any(lam >= 1):
+        raise ModelError(f"{name}: lam must lie in [0, 1)")
+    return kf, lam
+
+
 def generalized_poisson_pmf(k, mu, lam) -> np.ndarray:
     """Generalised Poisson probabilities for prompt optical crosstalk.
 
@@ -226,16 +237,10 @@ def generalized_poisson_pmf(k, mu, lam) -> np.ndarray:
         For negative or non-integer ``k``, negative ``mu`` or ``lam`` outside
         [0, 1).
     """
-    k = np.asarray(k)
+    kf, lam = _check_counts_and_branching("generalized_poisson_pmf", k, lam)
     mu = np.asarray(mu, dtype=float)
-    lam = np.asarray(lam, dtype=float)
-    kf = k.astype(float)
-    if not np.all(np.isfinite(kf)) or np.any(kf < 0) or np.any(kf != np.round(kf)):
-        raise ModelError("generalized_poisson_pmf: k must be non-negative integers")
     if not np.all(np.isfinite(mu)) or np.any(mu < 0):
         raise ModelError("generalized_poisson_pmf: mu must be finite and >= 0")
-    if not np.all(np.isfinite(lam)) or np.any(lam < 0) or np.any(lam >= 1):
-        raise ModelError("generalized_poisson_pmf: lam must lie in [0, 1)")
     kf, mu, lam = np.broadcast_arrays(kf, mu, lam)
     out = np.zeros(kf.shape)
     pos = mu > 0
@@ -277,14 +282,7 @@ def borel_pmf(k, lam) -> np.ndarray:
     ModelError
         For negative or non-integer ``k`` or ``lam`` outside [0, 1).
     """
-    k = np.asarray(k)
-    lam = np.asarray(lam, dtype=float)
-    kf = k.astype(float)
-    if not np.all(np.isfinite(kf)) or np.any(kf < 0) or np.any(kf != np.round(kf)):
-        raise ModelError("borel_pmf: k must be non-negative integers")
-    if not np.all(np.isfinite(lam)) or np.any(lam < 0) or np.any(lam >= 1):
-        raise ModelError("borel_pmf: lam must lie in [0, 1)")
-    kf, lam = np.broadcast_arrays(kf, lam)
+    kf, lam = np.broadcast_arrays(*_check_counts_and_branching("borel_pmf", k, lam))
     with np.errstate(divide="ignore", invalid="ignore"):
         logp = -lam * kf + special.xlogy(kf - 1.0, lam * kf) - special.gammaln(kf + 1.0)
     out = np.where(kf >= 1, np.exp(logp), 0.0)
