@@ -103,16 +103,28 @@ def test_sensor_both_directions(cli, profiles_dir):
     assert bad.status == 2 and "outside the 16-bit ADC range" in bad.stderr
 
 
-def test_demo_runs_and_shows_the_drift(cli, profiles_dir):
-    result = cli("demo", "--profiles", profiles_dir, "--json")
+def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
+    result = cli("demo", "--profiles", profiles_dir, "--json", "--out", tmp_path / "fw")
     assert result.status == 0, result.stderr
     data = json.loads(result.stdout)
     assert "caution" in result.stderr and "IEC 61010-1" in result.stderr
-    first = data["instruments"][0]
-    assert first["sipm"] == "hut-sipm-a"
-    # Uncompensated, the gain swings by tens of percent over -25..45 C; held overvoltage removes it.
-    assert max(first["fixed_gain_error_pct"]) - min(first["fixed_gain_error_pct"]) > 30
-    assert max(abs(x) for x in first["compensated_gain_error_pct"]) < 0.01
+    char = data["characterisation"]
+    # The synthetic bench curves come from the profile's breakdown model: the fit must recover it.
+    assert abs(char["breakdown_v_at_ref"] - char["true_breakdown_v_at_ref"]) < 0.02
+    assert abs(char["tempco_mv_per_k"] / char["true_tempco_mv_per_k"] - 1) < 0.02
+    assert [i["sipm"] for i in data["instruments"]] == ["hut-sipm-a", "hut-sipm-b", "hut-sipm-c"]
+    for inst in data["instruments"]:
+        # Uncompensated, the gain swings by tens of percent over -25..45 C; the law removes it, and the
+        # firmware's integer path stays within the table's bound plus half an ADC code.
+        assert max(inst["fixed_gain_error_pct"]) - min(inst["fixed_gain_error_pct"]) > 30
+        assert max(abs(x) for x in inst["law_gain_error_pct"]) < 0.01
+        assert max(abs(x) for x in inst["firmware_gain_error_pct"]) < 0.1
+        assert inst["table"]["max_gain_error_pct"] <= inst["table"]["bound_pct"]
+        assert inst["budget"]["calibrated_rss_pct"] < inst["budget"]["rss_pct"]
+        assert len(inst["table"]["files"]) == 3
+    # A second run never overwrites what the first wrote.
+    again = cli("demo", "--profiles", profiles_dir, "--json", "--out", tmp_path / "fw")
+    assert again.status == 2 and "already exists" in again.stderr
 
 
 def test_demo_missing_profiles(cli, tmp_path):

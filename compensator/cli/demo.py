@@ -1,7 +1,16 @@
-"""``compensator demo``: the main job on the bundled demo profiles.
+"""``compensator demo``: the main job, end to end, on the bundled demo profiles.
 
 The scenario: outdoor radiation monitors in mountain huts, enclosure
-temperature -25 to +45 C; three invented SiPM types on two invented boards.
+temperature -25 to +45 C; three invented SiPM types on two invented boards and
+an invented cooler. The demo
+
+1. characterises a sensor from seeded synthetic bench I-V curves (breakdown
+   per curve, then the temperature coefficient) and compares with the profile;
+2. for each instrument, shows the gain drift at fixed bias and what a
+   compensation law leaves, with its gain-error budget;
+3. sizes the microcontroller lookup table for a gain-error bound (and writes
+   the C code with ``--out DIR``);
+4. tunes and verifies the cooler loop and the bias-supply loop.
 """
 
 from __future__ import annotations
@@ -14,8 +23,7 @@ import numpy as np
 from compensator.cli._common import add_json_flag, format_table, print_json
 from compensator.errors import InputError, Problem
 from compensator.physics.sipm import evaluate, gain
-from compensator.physics.supply import sipm_bias_v
-from compensator.profiles import load_board, load_sipm
+from compensator.profiles import load_board, load_sipm, load_thermal
 
 ORDER = 1
 
@@ -25,6 +33,9 @@ DEMO_INSTRUMENTS = (
     ("hut-sipm-b.yaml", "hut-board-pt1000.yaml", 4.0),
     ("hut-sipm-c.yaml", "hut-board-pt1000.yaml", 5.0),
 )
+DEMO_COOLER = "hut-cooler.yaml"
+DEMO_TABLE_BOUND_PCT = 0.05
+DEMO_SEED = 2026
 
 SAFETY = (
     "caution: SiPM bias supplies deliver tens of volts (above 60 V dc is hazardous live under IEC 61010-1 in dry "
@@ -34,77 +45,179 @@ SAFETY = (
 
 
 def register(subparsers) -> None:
-    parser = subparsers.add_parser("demo", help="run the main job on the bundled demo profiles")
+    parser = subparsers.add_parser("demo", help="run the main job end to end on the bundled demo profiles")
     parser.add_argument("--profiles", default="hardware_profiles", metavar="DIR",
                         help="directory holding the demo profiles (default: hardware_profiles)")
     parser.add_argument("--step-c", type=float, default=10.0, metavar="K",
                         help="temperature step of the printed tables, kelvin (default 10)")
+    parser.add_argument("--out", metavar="DIR",
+                        help="also write each instrument's lookup table as C99 (DIR/<sipm>/) ; never overwrites")
     add_json_flag(parser)
     parser.set_defaults(handler=run)
 
 
-def instrument_model(sipm_profile, board_profile, overvoltage_v: float, temps_c) -> dict:
-    """The demo instrument's model over temperature: uncompensated drift and the constant-overvoltage bias.
+def instrument_model(law, sipm_profile, board_profile, table, temps_c) -> dict:
+    """Gain drift at fixed bias against the law and against the firmware's integer path, over temperature.
 
-    The uncompensated bias is the one giving ``overvoltage_v`` at 25 C and held
-    fixed; the compensated bias follows the breakdown voltage and adds back the
-    series-resistor drop at the modelled dark current.
+    The fixed bias is the one giving the law's overvoltage at 25 C. The law's
+    supply output has the series-resistor drop added back. The firmware path
+    is the whole chain: temperature -> ADC code -> lookup table -> DAC code ->
+    supply output -> bias at the sensor after the filter resistor. Gains are
+    evaluated at the bias that really reaches the sensor.
     """
-    device = sipm_profile.device
-    supply = board_profile.supply
+    from compensator.physics.supply import sipm_bias_v
+
+    device, supply = sipm_profile.device, board_profile.supply
     temps_c = np.asarray(temps_c, dtype=float)
-    fixed_bias_v = float(device.breakdown.breakdown_v(25.0)) + overvoltage_v
-    fixed = evaluate(device, temps_c, bias_v=fixed_bias_v)
+    fixed_bias_v = float(device.breakdown.breakdown_v(25.0)) + law.overvoltage_v
     nominal_gain = float(gain(device, fixed_bias_v, 25.0))
-    held = evaluate(device, temps_c, overvoltage_v=overvoltage_v)
-    # Supply output that puts the wanted bias on the sensor despite the filter resistor.
-    supply_v = held.bias_v + supply.drop_v(held.current_a)
+    fixed = evaluate(device, temps_c, bias_v=fixed_bias_v)
+    supply_v = law.output_v(temps_c)
     at_sensor_v = sipm_bias_v(supply, device, supply_v, temps_c)
-    held_gain = gain(device, at_sensor_v, temps_c)
+    adc_code = board_profile.temperature.adc_code(temps_c)
+    dac_code, _ = table.lookup(adc_code)
+    firmware_v = sipm_bias_v(supply, device, supply.output_v(dac_code), temps_c)
     return {
         "temp_c": temps_c,
-        "breakdown_v": held.breakdown_v,
-        "adc_code": board_profile.temperature.adc_code(temps_c),
+        "breakdown_v": device.breakdown.breakdown_v(temps_c),
+        "adc_code": adc_code,
         "fixed_bias_v": fixed_bias_v,
         "fixed_gain_error_pct": 100.0 * (fixed.gain / nominal_gain - 1.0),
-        "compensated_supply_v": supply_v,
-        "compensated_dac_code": supply.dac_code(supply_v),
-        "series_drop_mv": 1e3 * supply.drop_v(held.current_a),
-        "compensated_gain_error_pct": 100.0 * (held_gain / nominal_gain - 1.0),
-        "dark_rate_khz": held.dark_rate_hz / 1e3,
+        "law_supply_v": supply_v,
+        "series_drop_mv": 1e3 * (supply_v - at_sensor_v),
+        "law_gain_error_pct": 100.0 * (gain(device, at_sensor_v, temps_c) / nominal_gain - 1.0),
+        "firmware_dac_code": dac_code,
+        "firmware_gain_error_pct": 100.0 * (gain(device, firmware_v, temps_c) / nominal_gain - 1.0),
+        "dark_rate_khz": evaluate(device, temps_c, bias_v=at_sensor_v).dark_rate_hz / 1e3,
     }
 
 
+def characterise(sipm_profile, seed: int = DEMO_SEED) -> dict:
+    """Recover breakdown and tempco from seeded synthetic I-V curves of the sensor type.
+
+    The profile's breakdown model is the truth; curves at -20..40 C carry 1 %
+    noise and a Geiger-probability bend, as a bench would give.
+    """
+    from compensator.calibration.iv import find_breakdown
+    from compensator.calibration.synthetic import simulate_iv
+    from compensator.calibration.tempco import fit_tempco
+
+    truth = sipm_profile.device.breakdown
+    rng = np.random.default_rng(seed)
+    temps_c = np.arange(-20.0, 40.1, 10.0)
+    true_v = truth.breakdown_v(temps_c)
+    bias_v = np.arange(true_v.min() - 1.5, true_v.max() + 3.0, 0.01)
+    current_a = simulate_iv(rng, bias_v, true_v, geiger_scale_v=0.8, relative_noise=0.01)
+    found = find_breakdown(bias_v, current_a)
+    fit = fit_tempco(temps_c, found.breakdown_v, found.breakdown_err_v, ref_temp_c=truth.ref_temp_c)
+    return {
+        "sipm": sipm_profile.name, "curves": int(temps_c.size), "temp_c": temps_c,
+        "breakdown_v": found.breakdown_v, "breakdown_err_v": found.breakdown_err_v, "true_breakdown_v": true_v,
+        "tempco_mv_per_k": fit.tempco_mv_per_k, "tempco_err_mv_per_k": fit.tempco_err_mv_per_k,
+        "true_tempco_mv_per_k": truth.tempco_mv_per_k,
+        "breakdown_v_at_ref": fit.breakdown_v_at_ref, "breakdown_err_v_at_ref": fit.breakdown_err_v,
+        "true_breakdown_v_at_ref": truth.breakdown_v_at_ref, "ref_temp_c": truth.ref_temp_c,
+    }
+
+
+def build_tables(law, board_profile):
+    """The optimised table at the demo bound and the smallest uniform one, as a baseline."""
+    from compensator.firmware.tables import build_table
+
+    return (build_table(law, board_profile, DEMO_TABLE_BOUND_PCT, layout="optimised"),
+            build_table(law, board_profile, DEMO_TABLE_BOUND_PCT, layout="uniform"))
+
+
+def table_summary(law, table, uniform, sipm_profile, board_profile, out_dir: Path | None) -> dict:
+    """Verify the table at every ADC code of the range; optionally write its C99 and sweep."""
+    from compensator.fileio import write_file_atomic
+    from compensator.firmware.table_c import render_sweep_csv, render_table_c
+    from compensator.firmware.tables import sweep_table
+
+    sweep = sweep_table(table, law, board_profile)
+    files = []
+    if out_dir is not None:
+        target = out_dir / sipm_profile.name
+        target.mkdir(parents=True, exist_ok=True)
+        rendered = render_table_c(table, [sipm_profile, board_profile])
+        for name, text in {**rendered, "sweep.csv": render_sweep_csv(sweep)}.items():
+            files.append(str(write_file_atomic(target / name, text)))
+    return {
+        "bound_pct": DEMO_TABLE_BOUND_PCT,
+        "optimised_entries": table.entries, "optimised_bytes": table.table_bytes,
+        "uniform_entries": uniform.entries, "uniform_bytes": uniform.table_bytes,
+        "codes_verified": int(sweep.adc_code.size), "max_gain_error_pct": sweep.max_gain_error_pct,
+        "files": files,
+    }
+
+
+def _require(root: Path, name: str) -> Path:
+    path = root / name
+    if not path.is_file():
+        raise InputError(Problem(str(path), 0, "", "demo profile not found (run from the project's top folder "
+                                                  "or pass --profiles DIR)"))
+    return path
+
+
 def run(args) -> int:
+    from compensator.law import build_law, gain_error_budget
+
     root = Path(args.profiles)
+    out_dir = Path(args.out) if args.out else None
+    say = (lambda *a: None) if args.json else print
     print(SAFETY, file=sys.stderr)
     lo_c, hi_c = -25.0, 45.0
     temps_c = np.arange(lo_c, hi_c + 1e-9, args.step_c)
-    report = []
-    for sipm_name, board_name, ov in DEMO_INSTRUMENTS:
-        paths = [root / sipm_name, root / board_name]
-        for p in paths:
-            if not p.is_file():
-                raise InputError(Problem(str(p), 0, "", "demo profile not found (run from the project's top folder "
-                                                         "or pass --profiles DIR)"))
-        sipm_profile, board_profile = load_sipm(paths[0]), load_board(paths[1])
-        model = instrument_model(sipm_profile, board_profile, ov, temps_c)
-        report.append({"sipm": sipm_profile.name, "board": board_profile.name, "overvoltage_v": ov, **model})
-        if args.json:
-            continue
+    loaded = [(load_sipm(_require(root, s)), load_board(_require(root, b)), ov) for s, b, ov in DEMO_INSTRUMENTS]
+
+    # 1. Characterise
+    char = characterise(loaded[0][0])
+    say(f"== 1. characterise {char['sipm']} from {char['curves']} synthetic bench I-V curves (-20..40 C, seed "
+        f"{DEMO_SEED})")
+    say(f"breakdown at {char['ref_temp_c']:g} C: {char['breakdown_v_at_ref']:.4f} +- {char['breakdown_err_v_at_ref']:.4f} V "
+        f"(truth {char['true_breakdown_v_at_ref']:g}); tempco {char['tempco_mv_per_k']:.2f} +- "
+        f"{char['tempco_err_mv_per_k']:.2f} mV/K (truth {char['true_tempco_mv_per_k']:g})")
+
+    report = {"scenario": "mountain-hut radiation monitors, enclosure -25 to +45 C", "characterisation": char,
+              "instruments": []}
+    for sipm_profile, board_profile, ov in loaded:
         device = sipm_profile.device
-        print(f"\n== {sipm_profile.name} on {board_profile.name}: Vbd {device.breakdown.breakdown_v_at_ref:g} V at "
-              f"{device.breakdown.ref_temp_c:g} C, {device.breakdown.tempco_mv_per_k:g} mV/K, overvoltage {ov:g} V")
-        print(format_table(
-            list(zip(model["temp_c"], model["breakdown_v"], model["adc_code"].tolist(), model["fixed_gain_error_pct"],
-                     model["compensated_supply_v"], model["compensated_dac_code"].tolist(), model["series_drop_mv"],
-                     model["compensated_gain_error_pct"], model["dark_rate_khz"])),
-            ["temp_c", "breakdown_v", "temp_adc_code", "fixed_bias_gain_%", "comp_supply_v", "comp_dac_code",
-             "series_drop_mv", "comp_gain_%", "dark_khz"],
-            [".1f", ".3f", "d", "+.2f", ".4f", "d", ".2f", "+.3f", ".1f"]))
-        swing = np.ptp(model["fixed_gain_error_pct"])
-        print(f"gain swing at fixed bias {model['fixed_bias_v']:.3f} V: {swing:.1f} % over {lo_c:g}..{hi_c:g} C; "
-              f"with constant-overvoltage bias: {np.ptp(model['compensated_gain_error_pct']):.3f} %")
+        law = build_law(sipm_profile, board_profile, ov, kind="constant_gain")
+        table, uniform = build_tables(law, board_profile)
+        model = instrument_model(law, sipm_profile, board_profile, table, temps_c)
+        budget = gain_error_budget(law, board_profile, samples=2000)
+        tables = table_summary(law, table, uniform, sipm_profile, board_profile, out_dir)
+        report["instruments"].append({
+            "sipm": sipm_profile.name, "board": board_profile.name, "overvoltage_v": ov, **model,
+            "budget": {"rss_pct": budget.rss_pct, "worst_case_pct": budget.worst_case_pct,
+                       "calibrated_rss_pct": budget.calibrated_rss_pct,
+                       "calibrated_worst_case_pct": budget.calibrated_worst_case_pct,
+                       "dominant": budget.dominant, "calibrated_dominant": budget.calibrated_dominant,
+                       "monte_carlo_std_pct": budget.monte_carlo.std_pct if budget.monte_carlo else None},
+            "table": tables,
+        })
+        say(f"\n== 2. {sipm_profile.name} on {board_profile.name}: Vbd {device.breakdown.breakdown_v_at_ref:g} V at "
+            f"{device.breakdown.ref_temp_c:g} C, {device.breakdown.tempco_mv_per_k:g} mV/K, overvoltage {ov:g} V, "
+            f"constant-gain law")
+        say(format_table(
+            list(zip(model["temp_c"], model["breakdown_v"], model["fixed_gain_error_pct"], model["law_supply_v"],
+                     model["series_drop_mv"], model["law_gain_error_pct"], model["adc_code"].tolist(),
+                     model["firmware_dac_code"].tolist(), model["firmware_gain_error_pct"], model["dark_rate_khz"])),
+            ["temp_c", "breakdown_v", "fixed_bias_gain_%", "law_supply_v", "series_drop_mv", "law_gain_%",
+             "adc_code", "table_dac_code", "firmware_gain_%", "dark_khz"],
+            [".1f", ".3f", "+.2f", ".4f", ".2f", "+.3f", "d", "d", "+.3f", ".1f"]))
+        say(f"gain swing at fixed bias {model['fixed_bias_v']:.3f} V: {np.ptp(model['fixed_gain_error_pct']):.1f} % "
+            f"over {lo_c:g}..{hi_c:g} C; with the law: {np.ptp(model['law_gain_error_pct']):.3f} %; through the "
+            f"firmware's integer path: {np.ptp(model['firmware_gain_error_pct']):.3f} %")
+        say(f"budget of what the hardware adds: {budget.rss_pct:.2f} % (1 sigma) as built, dominated by "
+            f"{budget.dominant}; {budget.calibrated_rss_pct:.2f} % after a one-point calibration, dominated by "
+            f"{budget.calibrated_dominant}")
+        say(f"== 3. lookup table at {tables['bound_pct']:g} %: optimised {tables['optimised_entries']} entries "
+            f"({tables['optimised_bytes']} B), smallest uniform {tables['uniform_entries']} entries "
+            f"({tables['uniform_bytes']} B); {tables['codes_verified']} ADC codes verified, worst "
+            f"{tables['max_gain_error_pct']:.4f} %")
+        for f in tables["files"]:
+            say(f"wrote {f}")
     if args.json:
-        print_json({"scenario": "mountain-hut radiation monitors, enclosure -25 to +45 C", "instruments": report})
+        print_json(report)
     return 0
