@@ -110,6 +110,19 @@ def test_spectrum_json_contract_and_plot(cli, demo, truth, tmp_path):
     assert r.status == 2 and r.stderr.count("\n") == 1 and str(bad) in r.stderr
 
 
+def test_spectrum_fit_range_and_amplitude_models(cli, demo, truth):
+    spec = truth["spectra_files"][2]
+    path = demo / spec["file"]
+    whole = json.loads(cli("calibrate", "spectrum", path, "--json").stdout)["spectra"][0]
+    wide = json.loads(cli("calibrate", "spectrum", path, "--json", "--fit-range", "-100", "100").stdout)["spectra"][0]
+    assert wide["gain"] == pytest.approx(whole["gain"], rel=1e-9)
+    # A window holding only the pedestal cannot give a gain: a one-line failure, exit 2.
+    narrow = cli("calibrate", "spectrum", path, "--fit-range", "-100", str(whole["pedestal"] + 0.2 * whole["gain"]))
+    assert narrow.status == 2 and narrow.stderr.count("\n") == 1 and "fit failed" in narrow.stderr
+    free = json.loads(cli("calibrate", "spectrum", path, "--json", "--amplitudes", "free").stdout)["spectra"][0]
+    assert free["gain"] == pytest.approx(spec["gain_pc"], rel=0.005)
+
+
 def test_gain_scan_tables_and_manifest(cli, demo, truth):
     files = sorted(str(p) for p in (demo / "gain").glob("*.csv"))
     r = cli("calibrate", "gain-scan", *files, "--json")

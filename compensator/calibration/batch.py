@@ -220,7 +220,7 @@ class SpectrumRecord:
         return out
 
 
-def _spectrum_one(path, amplitudes):
+def _spectrum_one(path, amplitudes, fit_range=None):
     from compensator.calibration.spectrum import fit_spectrum
 
     try:
@@ -229,21 +229,23 @@ def _spectrum_one(path, amplitudes):
         msg = str(exc).splitlines()[0]
         return SpectrumRecord(path, "", None, msg, msg)
     try:
-        fit = fit_spectrum(data.charge, data.counts, amplitudes=amplitudes)
+        fit = fit_spectrum(data.charge, data.counts, amplitudes=amplitudes, fit_range=fit_range)
     except CompensatorError as exc:
         reason = "; ".join(str(exc).splitlines()) or type(exc).__name__
         return SpectrumRecord(path, data.charge_unit, None, f"fit failed: {reason}", f"{path}: fit failed: {reason}")
     return SpectrumRecord(path, data.charge_unit, fit)
 
 
-def analyse_spectrum_files(paths, *, amplitudes="gpoisson", jobs=1, progress=None):
+def analyse_spectrum_files(paths, *, amplitudes="gpoisson", fit_range=None, jobs=1, progress=None):
     """Fit every charge-spectrum file (a process pool for ``jobs > 1``).
 
     Parameters
     ----------
     paths : sequence of str
-    amplitudes : {"gpoisson", "free"}
+    amplitudes : {"gpoisson", "free", "borel"}
         Peak-amplitude model passed to ``fit_spectrum``.
+    fit_range : (float, float), optional
+        Charge window of the fit, in each file's charge unit.
     jobs : int
         Worker processes.
     progress : Progress, optional
@@ -257,12 +259,12 @@ def analyse_spectrum_files(paths, *, amplitudes="gpoisson", jobs=1, progress=Non
     records = []
     if jobs <= 1 or len(paths) < 2:
         for p in paths:
-            records.append(_spectrum_one(p, amplitudes))
+            records.append(_spectrum_one(p, amplitudes, fit_range))
             if progress:
                 progress.update()
         return records
     with ProcessPoolExecutor(max_workers=jobs) as pool:
-        for rec in pool.map(_spectrum_one, paths, [amplitudes] * len(paths), chunksize=max(1, len(paths) // (8 * jobs))):
+        for rec in pool.map(_spectrum_one, paths, [amplitudes] * len(paths), [fit_range] * len(paths), chunksize=max(1, len(paths) // (8 * jobs))):
             records.append(rec)
             if progress:
                 progress.update()

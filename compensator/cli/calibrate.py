@@ -28,6 +28,7 @@ def register(subparsers) -> None:
     sub.required = True
 
     from compensator.calibration.iv import DEFAULT_METHOD, METHODS
+    from compensator.calibration.spectrum import AMPLITUDE_MODELS
 
     iv = sub.add_parser("iv", help="breakdown voltage from I-V curves (CSV bias_v,current_a[,temp_c])",
                         description="Breakdown voltage from reverse-bias I-V curves, one result per file.")
@@ -42,8 +43,11 @@ def register(subparsers) -> None:
                         description="Fit charge spectra: histogram charge,counts or an event list with one charge column "
                                     "(any charge unit; results come back in the same unit).")
     sp.add_argument("files", nargs="+", metavar="FILE", help="spectra: CSV with charge[_UNIT],counts or charge[_UNIT]")
-    sp.add_argument("--amplitudes", choices=("gpoisson", "free"), default="gpoisson",
-                    help="peak amplitudes: generalised Poisson with crosstalk (default) or free")
+    sp.add_argument("--amplitudes", choices=AMPLITUDE_MODELS, default="gpoisson",
+                    help="peak amplitudes: generalised Poisson with crosstalk (default), free, or borel for "
+                         "self-triggered dark-count spectra without a pedestal")
+    sp.add_argument("--fit-range", type=float, nargs=2, metavar=("LO", "HI"),
+                    help="fit only charges in [LO, HI] (in the file's charge unit), e.g. to leave out an overflow bin")
     _batch_flags(sp)
     sp.set_defaults(handler=run_spectrum)
 
@@ -151,7 +155,8 @@ def run_spectrum(args) -> int:
         from compensator.calibration.plots import plot_dir as make_dir
         plot_dir = make_dir(args.plot)
     with Progress(len(args.files), "calibrate spectrum", enabled=args.progress) as bar:
-        records = analyse_spectrum_files(args.files, amplitudes=args.amplitudes, jobs=jobs, progress=bar)
+        records = analyse_spectrum_files(args.files, amplitudes=args.amplitudes, fit_range=args.fit_range,
+                                         jobs=jobs, progress=bar)
     _report_errors(records)
     if plot_dir is not None:
         _plot_spectra(records, plot_dir)
