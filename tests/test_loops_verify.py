@@ -110,9 +110,13 @@ def test_cooler_operating_warnings_and_limits(cooler):
 
     c = cooler.cooler
     op = plants.cooler_operating_point(c)
-    # The demo setpoint (15 C) is below the dew point at 25 C / 60 % RH plus 3 K (Magnus formula).
+    # The demo setpoint (20 C) clears the dew point at 25 C / 50 % RH plus 3 K (Magnus formula) ...
+    assert float(dew_point_c(25.0, 50.0)) + 3.0 < 20.0
+    assert verify.cooler_operating_warnings(c, op) == []
+    # ... but a setpoint of 15 C at 60 % RH does not (dew point 16.7 C).
+    humid = dataclasses.replace(c, ambient_relative_humidity_pct=60.0, setpoint_temp_c=15.0)
     assert float(dew_point_c(25.0, 60.0)) + 3.0 > 15.0
-    assert any("CONDENSATION" in w for w in verify.cooler_operating_warnings(c, op))
+    assert any("CONDENSATION" in w for w in verify.cooler_operating_warnings(humid, plants.cooler_operating_point(humid)))
     dry = dataclasses.replace(c, ambient_relative_humidity_pct=20.0)
     assert verify.cooler_operating_warnings(dry, plants.cooler_operating_point(dry)) == []
     low_limit = dataclasses.replace(dry, max_hot_temp_c=30.0)
