@@ -122,6 +122,12 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
         assert inst["table"]["max_gain_error_pct"] <= inst["table"]["bound_pct"]
         assert inst["budget"]["calibrated_rss_pct"] < inst["budget"]["rss_pct"]
         assert len(inst["table"]["files"]) == 3
+    loops = {lp["loop"]: lp for lp in data["loops"]}
+    assert set(loops) == {"cooler", "bias supply"}
+    for lp in loops.values():
+        # Robust tuning holds Ms at 1.4 (Astrom and Hagglund's robustness measure, evaluated with python-control).
+        assert lp["stable"] and lp["ms"] <= 1.4 * 1.001 and lp["gain_margin"] > 2
+    assert loops["cooler"]["kp"] < 0  # more current cools
     # A second run never overwrites what the first wrote.
     again = cli("demo", "--profiles", profiles_dir, "--json", "--out", tmp_path / "fw")
     assert again.status == 2 and "already exists" in again.stderr
