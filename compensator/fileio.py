@@ -58,3 +58,32 @@ def write_file_atomic(path: str | Path, data: str | bytes, overwrite: bool = Fal
             os.unlink(tmp)
         raise InputError(Problem(str(path), 0, "", f"cannot write: {exc.strerror or exc}")) from None
     return path
+
+
+def output_dir(path: str | Path, what: str = "output") -> Path:
+    """Create (with parents, if needed) and return an output directory.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The directory.
+    what : str
+        What goes there, for the error message ("plot", "C output" ...).
+
+    Returns
+    -------
+    Path
+
+    Raises
+    ------
+    InputError
+        The path exists and is not a directory, or cannot be created.
+    """
+    path = Path(path)
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except FileExistsError:
+        raise InputError(Problem(str(path), 0, "", f"is not a directory (wanted for the {what})")) from None
+    except OSError as exc:
+        raise InputError(Problem(str(path), 0, "", f"cannot create the {what} directory: {exc.strerror or exc}")) from None
+    return path

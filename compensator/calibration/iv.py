@@ -443,7 +443,7 @@ def _fit_peak(grid, values, p, half, sigma, corr, out):
     x = grid - x0[:, None]
     weights = np.broadcast_to((1.0 / sigma ** 2)[:, None], values.shape)
     coef, cov, chi2, n_used = _weighted_poly(x, values, weights, mask, 2)
-    c0, c1, c2 = coef[:, 0], coef[:, 1], coef[:, 2]
+    c1, c2 = coef[:, 1], coef[:, 2]
     with np.errstate(divide="ignore", invalid="ignore"):
         vertex = -c1 / (2.0 * c2)
         # d vertex / d c1 = -1/(2 c2); d vertex / d c2 = c1/(2 c2^2)

@@ -14,20 +14,12 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from compensator.errors import InputError, Problem  # noqa: E402
-from compensator.fileio import write_file_atomic  # noqa: E402
+from compensator.fileio import output_dir, write_file_atomic  # noqa: E402
 
 
 def plot_dir(path) -> Path:
     """Create (if needed) and return the plot directory."""
-    path = Path(path)
-    try:
-        path.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise InputError(Problem(str(path), 0, "", f"cannot create the plot directory: {exc.strerror or exc}")) from None
-    if not path.is_dir():
-        raise InputError(Problem(str(path), 0, "", "is not a directory"))
-    return path
+    return output_dir(path, "plot")
 
 
 def unique_names(files, suffix):

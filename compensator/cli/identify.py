@@ -40,8 +40,6 @@ def run(args) -> int:
 
     if args.hysteresis < 0:
         raise InputError(Problem("<command line>", 0, "--hysteresis", f"must be >= 0, got {args.hysteresis:g}"))
-    if args.plot and not Path(args.plot).is_dir():
-        raise InputError(Problem(args.plot, 0, "", "plot directory does not exist"))
     record = read_loop_csv(args.file)
     stem = Path(args.file).stem
     try:

@@ -7,6 +7,7 @@ from pathlib import Path
 
 from compensator.cli._common import add_json_flag, format_table, print_json
 from compensator.errors import InputError, ModelError, Problem
+from compensator.fileio import output_dir
 
 ORDER = 50
 
@@ -176,8 +177,7 @@ def run(args) -> int:
     emit_name = args.name or emit.get("name", "loop_pid")
     stem = f"{plant.name.replace(' ', '-')}-{args.method}{'-pid' if args.pid else ''}"
     if args.emit_c:
-        if not Path(args.emit_c).is_dir():
-            raise InputError(Problem(args.emit_c, 0, "", "C output directory does not exist"))
+        output_dir(args.emit_c, "C output")
         for key in ("input_per_count", "output_per_count", "out_min", "out_max"):
             if getattr(args, key) is None and key not in emit:
                 raise InputError(Problem("<command line>", 0, f"--{key.replace('_', '-')}",

@@ -188,7 +188,7 @@ def _source(c: FixedPidCoefficients, name: str, banner: str) -> str:
     if c.rate_step_q:
         rate = [
             "    if (state->have_output) {",
-            f"        int64_t prev = (int64_t)state->output_q;",
+            "        int64_t prev = (int64_t)state->output_q;",
             f"        u = {n}_clamp64(u, prev - (int64_t){up}_RATE_STEP_Q, prev + (int64_t){up}_RATE_STEP_Q);",
             "    }",
         ]

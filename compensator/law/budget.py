@@ -69,7 +69,7 @@ import numpy as np
 from compensator.constants import ZERO_C_IN_K
 from compensator.errors import ModelError
 from compensator.law.laws import CompensationLaw
-from compensator.physics.sensors import RTD_TOLERANCE_CLASSES, T25_K, NtcSensor, RtdSensor
+from compensator.physics.sensors import RTD_TOLERANCE_CLASSES, T25_K, RtdSensor
 from compensator.physics.sipm import Sipm, cell_capacitance_f, gain, steady_current_a
 
 DEFAULT_SEED = 20260401

@@ -541,8 +541,7 @@ def cooler_steady_state(params, current_a, ambient_temp_c=None):
     p = params
     ta = _ambient(p, ambient_temp_c)
     i = np.asarray(current_a, dtype=float)
-    s, r, k, g, rs = p.seebeck_v_per_k, p.resistance_ohm, p.conductance_w_per_k, \
-        p.cold_leak_conductance_w_per_k, p.sink_resistance_k_per_w
+    r, g, rs = p.resistance_ohm, p.cold_leak_conductance_w_per_k, p.sink_resistance_k_per_w
     # Unknowns in kelvin.  Row 1: cold balance, row 2: hot balance.
     a11, a12, a21, a22 = _conductance_matrix(p, i)
     ta_k = ta + KELVIN_OFFSET

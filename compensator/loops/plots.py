@@ -17,7 +17,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
 from compensator.errors import InputError, Problem  # noqa: E402
-from compensator.fileio import write_file_atomic  # noqa: E402
+from compensator.fileio import output_dir, write_file_atomic  # noqa: E402
 from compensator.loops.plants import discrete_frequency_response  # noqa: E402
 from compensator.loops.verify import controller_frequency_response, frequency_grid  # noqa: E402
 
@@ -30,9 +30,7 @@ def _save(fig, path: Path, overwrite: bool) -> Path:
 
 
 def _check_dir(directory) -> Path:
-    d = Path(directory)
-    if not d.is_dir():
-        raise InputError(Problem(str(d), 0, "", "plot directory does not exist"))
+    d = output_dir(directory, "plot")
     return d
 
 
