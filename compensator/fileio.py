@@ -87,3 +87,54 @@ def output_dir(path: str | Path, what: str = "output") -> Path:
     except OSError as exc:
         raise InputError(Problem(str(path), 0, "", f"cannot create the {what} directory: {exc.strerror or exc}")) from None
     return path
+
+
+def write_files_atomic(directory: str | Path, files: dict, overwrite: bool = False, what: str = "output") -> list[Path]:
+    """Write a set of files into a directory: all of them or none.
+
+    Every existing file is refused (unless ``overwrite``) before the first
+    write; each file is written atomically; if a write fails, the files this
+    call created are removed again so no partial set is left behind.
+
+    Parameters
+    ----------
+    directory : str or path-like
+        Created with its parents when missing.
+    files : dict
+        File name -> content (str or bytes), in writing order.
+    overwrite : bool
+        Replace existing files.
+    what : str
+        What the directory is for, in error messages.
+
+    Returns
+    -------
+    list of Path
+        The files written, in order.
+
+    Raises
+    ------
+    InputError
+        Listing every file that exists already, or the write that failed.
+    """
+    directory = Path(directory)
+    if directory.exists() and not directory.is_dir():
+        raise InputError(Problem(str(directory), 0, "", f"is not a directory (wanted for the {what})"))
+    targets = [directory / name for name in files]
+    if not overwrite:
+        existing = [t for t in targets if t.exists()]
+        if existing:
+            raise InputError([Problem(str(t), 0, "", "already exists; not overwriting (use --force to replace it)")
+                              for t in existing])
+    output_dir(directory, what)
+    written = []
+    try:
+        for target, content in zip(targets, files.values()):
+            write_file_atomic(target, content, overwrite=overwrite)
+            written.append(target)
+    except InputError:
+        if not overwrite:
+            for target in written:
+                target.unlink(missing_ok=True)
+        raise
+    return written

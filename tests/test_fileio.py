@@ -40,3 +40,17 @@ def test_commands_create_their_output_folders(cli, profiles_dir, tmp_path):
     (tmp_path / "taken").write_text("")
     r = cli("tune", "--plant", profiles_dir / "hut-cooler.yaml", "--method", "simc", "--emit-c", tmp_path / "taken")
     assert r.status == 2 and "not a directory" in r.stderr and r.stderr.count("compensator: ") >= 1
+
+
+def test_file_sets_are_all_or_nothing(tmp_path):
+    from compensator.fileio import write_files_atomic
+
+    (tmp_path / "b.c").write_text("keep")
+    with pytest.raises(InputError, match="b.c: already exists"):
+        write_files_atomic(tmp_path, {"a.h": "1", "b.c": "2"})
+    assert not (tmp_path / "a.h").exists() and (tmp_path / "b.c").read_text() == "keep"
+    # A write that fails half-way removes what this call created.
+    with pytest.raises(InputError, match="cannot write"):
+        write_files_atomic(tmp_path / "sub", {"a.txt": "1", "missing/c.txt": "2"})  # no folder for the second
+    assert not (tmp_path / "sub" / "a.txt").exists()
+    assert [p.name for p in write_files_atomic(tmp_path / "new", {"x": "1", "y": b"2"})] == ["x", "y"]

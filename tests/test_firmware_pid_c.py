@@ -298,8 +298,12 @@ def test_write_pid_c_refuses_to_overwrite_and_writes_nothing(tmp_path):
     written = write_pid_c(coeffs, tmp_path, name="cooler_pid", overwrite=True)
     assert [p.name for p in written] == ["cooler_pid.h", "cooler_pid.c"]
     assert (tmp_path / "cooler_pid.c").read_text() == render_pid_c(coeffs, name="cooler_pid")["cooler_pid.c"]
-    with pytest.raises(InputError, match="not an existing directory"):
-        write_pid_c(coeffs, tmp_path / "missing", name="cooler_pid")
+    # A missing folder is made; a file in its place is refused with nothing written.
+    assert [p.name for p in write_pid_c(coeffs, tmp_path / "new" / "fw", name="cooler_pid")] == \
+        ["cooler_pid.h", "cooler_pid.c"]
+    (tmp_path / "taken").write_text("")
+    with pytest.raises(InputError, match="not a directory"):
+        write_pid_c(coeffs, tmp_path / "taken", name="cooler_pid")
 
 
 def random_settings(rng: np.random.Generator):

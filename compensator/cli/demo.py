@@ -130,18 +130,17 @@ def build_tables(law, board_profile):
 
 def table_summary(law, table, uniform, sipm_profile, board_profile, out_dir: Path | None) -> dict:
     """Verify the table at every ADC code of the range; optionally write its C99 and sweep."""
-    from compensator.fileio import write_file_atomic
+    from compensator.fileio import write_files_atomic
     from compensator.firmware.table_c import render_sweep_csv, render_table_c
     from compensator.firmware.tables import sweep_table
 
     sweep = sweep_table(table, law, board_profile)
     files = []
     if out_dir is not None:
-        target = out_dir / sipm_profile.name
-        target.mkdir(parents=True, exist_ok=True)
         rendered = render_table_c(table, [sipm_profile, board_profile])
-        for name, text in {**rendered, "sweep.csv": render_sweep_csv(sweep)}.items():
-            files.append(str(write_file_atomic(target / name, text)))
+        files = [str(p) for p in write_files_atomic(out_dir / sipm_profile.name,
+                                                    {**rendered, "sweep.csv": render_sweep_csv(sweep)},
+                                                    what="table output")]
     return {
         "bound_pct": DEMO_TABLE_BOUND_PCT,
         "optimised_entries": table.entries, "optimised_bytes": table.table_bytes,

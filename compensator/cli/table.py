@@ -3,12 +3,10 @@
 from __future__ import annotations
 
 import sys
-from pathlib import Path
 
 from compensator.cli._common import add_json_flag, print_json
 from compensator.cli.budget import add_law_arguments, law_from_args
-from compensator.errors import InputError, Problem
-from compensator.fileio import write_file_atomic
+from compensator.fileio import write_files_atomic
 from compensator.firmware.table_c import (
     DEFAULT_FUNCTION_NAME,
     c_function_signature,
@@ -73,29 +71,7 @@ def run(args) -> int:
     files = render_table_c(table, [sipm, board], name, settings)
     files["sweep.csv"] = render_sweep_csv(sweep)
 
-    out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise InputError(Problem(str(out), 0, "", "--out must be a directory"))
-    paths = [out / fname for fname in files]
-    if not args.force:
-        existing = [p for p in paths if p.exists()]
-        if existing:
-            raise InputError([Problem(str(p), 0, "", "already exists; not overwriting (use --force to replace it)")
-                              for p in existing])
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise InputError(Problem(str(out), 0, "", f"cannot create directory: {exc.strerror or exc}")) from None
-    written = []
-    try:
-        for path, fname in zip(paths, files):
-            write_file_atomic(path, files[fname], overwrite=args.force)
-            written.append(path)
-    except InputError:
-        if not args.force:  # leave no partial set of new files behind
-            for path in written:
-                path.unlink(missing_ok=True)
-        raise
+    paths = write_files_atomic(args.out, files, overwrite=args.force, what="table output")
 
     adc_q = float(adc_quantisation_gain_pct(law, board.temperature, sweep.temp_c).max())
     result = {

@@ -18,8 +18,8 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-from compensator.errors import InputError, ModelError, Problem
-from compensator.fileio import write_file_atomic
+from compensator.errors import ModelError
+from compensator.fileio import write_files_atomic
 from compensator.firmware.banner import c_banner
 from compensator.firmware.pid import (
     INPUT_LIMIT_COUNT,
@@ -366,16 +366,16 @@ def write_pid_c(coeffs: FixedPidCoefficients, directory, *, name: str, profiles=
                 overwrite: bool = False) -> list[Path]:
     """Render the C files and write them into ``directory``.
 
-    Nothing is written unless every file can be: existing files are refused
-    (unless ``overwrite``) before the first write, and each file is written
-    atomically.
+    All or nothing (:func:`compensator.fileio.write_files_atomic`): existing
+    files are refused (unless ``overwrite``) before the first write, each file
+    is written atomically, and a failed write leaves no partial set.
 
     Parameters
     ----------
     coeffs, name, profiles, settings
         As for :func:`render_pid_c`.
     directory : str or path-like
-        An existing directory.
+        Created when missing.
     overwrite : bool
         Replace existing files.
 
@@ -387,16 +387,7 @@ def write_pid_c(coeffs: FixedPidCoefficients, directory, *, name: str, profiles=
     Raises
     ------
     InputError
-        The directory does not exist or a file exists already.
+        A file exists already, or the directory cannot be made or written.
     """
     files = render_pid_c(coeffs, name=name, profiles=profiles, settings=settings)
-    directory = Path(directory)
-    if not directory.is_dir():
-        raise InputError(Problem(str(directory), 0, "", "is not an existing directory"))
-    targets = [directory / file_name for file_name in files]
-    if not overwrite:
-        for target in targets:
-            if target.exists():
-                raise InputError(Problem(str(target), 0, "",
-                                         "already exists; not overwriting (use --force to replace it)"))
-    return [write_file_atomic(t, files[t.name], overwrite=overwrite) for t in targets]
+    return write_files_atomic(directory, files, overwrite=overwrite, what="C output")
