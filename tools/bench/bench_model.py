@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import argparse
 import math
-import time
 from pathlib import Path
 
 import numpy as np
@@ -20,6 +19,8 @@ import numpy as np
 from compensator.constants import ELEMENTARY_CHARGE_C
 from compensator.physics.sipm import evaluate
 from compensator.profiles import load_sipm
+
+from timing import best_of  # tools/bench/timing.py, beside this script
 
 PROFILE = Path(__file__).resolve().parents[2] / "hardware_profiles" / "hut-sipm-a.yaml"
 
@@ -44,13 +45,6 @@ def python_loop(dev, temps_c, biases_v):
     return out
 
 
-def best_of(fn, repeats):
-    best = math.inf
-    for _ in range(repeats):
-        start = time.perf_counter()
-        result = fn()
-        best = min(best, time.perf_counter() - start)
-    return best, result
 
 
 def main(argv=None) -> int:

@@ -23,13 +23,14 @@ import shutil
 import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
 
 from compensator.firmware.pid import FixedPid, FloatPid, PidSettings, quantise_pid
 from compensator.firmware.pid_c import render_pid_c
+
+from timing import best_of  # tools/bench/timing.py, beside this script
 
 SETTINGS = PidSettings(kp=0.8, ki_per_s=0.05, kd_s=2.0, sample_time_s=0.1, out_min=-2.0, out_max=2.0,
                        setpoint_weight=0.6, rate_limit_per_s=5.0)
@@ -122,14 +123,6 @@ def checksum(outputs) -> int:
     return total - (1 << 64) if total >= 1 << 63 else total
 
 
-def best_of(fn, repeats):
-    best = math.inf
-    result = None
-    for _ in range(repeats):
-        start = time.perf_counter()
-        result = fn()
-        best = min(best, time.perf_counter() - start)
-    return best, result
 
 
 def main(argv=None) -> int:

@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import argparse
 import math
-import time
 from pathlib import Path
 
 import numpy as np
@@ -26,6 +25,8 @@ from compensator.errors import CompensatorError
 from compensator.firmware.tables import build_table, sweep_table
 from compensator.law import build_law
 from compensator.profiles import load_board, load_sipm
+
+from timing import best_of  # tools/bench/timing.py, beside this script
 
 PROFILES = Path(__file__).resolve().parents[2] / "hardware_profiles"
 PAIRS = [("hut-sipm-a", "hut-board-ntc", 3.0), ("hut-sipm-b", "hut-board-pt1000", 4.0),
@@ -61,13 +62,6 @@ def loop_lookup(table, codes):
     return out
 
 
-def best_of(fn, repeats):
-    best, result = math.inf, None
-    for _ in range(repeats):
-        start = time.perf_counter()
-        result = fn()
-        best = min(best, time.perf_counter() - start)
-    return best, result
 
 
 def main(argv=None) -> int:

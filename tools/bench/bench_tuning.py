@@ -22,25 +22,17 @@ Usage::
 from __future__ import annotations
 
 import argparse
-import statistics
 import sys
-import time
 import warnings
 from pathlib import Path
 
 import numpy as np
+from timing import median_of  # tools/bench/timing.py, beside this script
 
 REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
 
-def _timed(fn, repeat):
-    times, out = [], None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        out = fn()
-        times.append(time.perf_counter() - t0)
-    return out, statistics.median(times)
 
 
 def _brute_force_pi(plant, T, ms_max):
@@ -105,11 +97,11 @@ def main(argv=None) -> int:
     for method in tuning.METHODS:
         for pid in (False, True):
             try:
-                result, t_tune = _timed(lambda: tuning.tune(plant, method, T, pid=pid), args.repeat)
+                t_tune, result = median_of(lambda: tuning.tune(plant, method, T, pid=pid), args.repeat)
             except Exception as exc:  # a rule that does not apply is reported, not fatal
                 print(f"{method:>9} {'PID' if pid else 'PI':>3}  not applicable: {exc}")
                 continue
-            rep, t_ver = _timed(lambda: verify.verify_loop(plant, result.gains, T), args.repeat)
+            t_ver, rep = median_of(lambda: verify.verify_loop(plant, result.gains, T), args.repeat)
             g, m, s = result.gains, rep.margins, rep.step
             if method == "robust":
                 robust_time[pid] = t_tune
@@ -117,7 +109,7 @@ def main(argv=None) -> int:
                   f"{s.overshoot_pct:11.1f} {m.ms:6.3f} {m.gain_margin:6.2f} {m.phase_margin_deg:6.1f}  "
                   f"{g.kp:.4g}, {g.ki_per_s:.4g}, {g.kd_s:.4g}{'' if rep.stable else '  UNSTABLE'}")
     print()
-    (kp_b, ki_b), t_brute = _timed(lambda: _brute_force_pi(plant, T, 1.4), 1)
+    t_brute, (kp_b, ki_b) = median_of(lambda: _brute_force_pi(plant, T, 1.4), 1)
     robust_pi = tuning.robust(plant, T, 1.4)
     print("robust PI against a brute-force (kp, ki) grid, Ms <= 1.4:")
     print(f"  ours:        {robust_time[False]:7.3f} s  ki = {abs(robust_pi.ki_per_s):.5g}")
@@ -127,8 +119,8 @@ def main(argv=None) -> int:
     print(f"  robust tuning target <= {target:g} s: {'met' if worst <= target else 'MISSED'} (worst {worst:.3f} s)")
     print()
     g = tuning.tune(plant, "simc", T).gains
-    (ours, t_ours) = _timed(lambda: verify.verify_loop(plant, g, T), args.repeat)
-    (theirs, t_theirs) = _timed(lambda: _python_control_verify(plant, g, T), args.repeat)
+    t_ours, ours = median_of(lambda: verify.verify_loop(plant, g, T), args.repeat)
+    t_theirs, theirs = median_of(lambda: _python_control_verify(plant, g, T), args.repeat)
     print("verification of the SIMC PI loop:")
     print(f"  ours:                  {t_ours:7.3f} s  GM {ours.margins.gain_margin:.3f}  "
           f"PM {ours.margins.phase_margin_deg:.2f} deg  settling {ours.step.settling_time_s:.1f} s")
