@@ -2,7 +2,7 @@
 
 Characterise the sensor, choose a compensation law and know the gain error it
 leaves, put it on a microcontroller as integer tables and fixed-point PID code,
-verify the loops offline, and talk to the controller board.
+and verify the loops offline.
 """
 
 __version__ = "0.1.0"
