@@ -153,3 +153,11 @@ def test_dew_point_magnus():
     assert dew_point_c(10.0, 100.0) == pytest.approx(10.0, abs=1e-9)
     with pytest.raises(ModelError):
         dew_point_c(20.0, 0.0)
+
+
+def test_ntc_models_refuse_absolute_zero():
+    sh = S.SteinhartHart(1.129148e-3, 2.34125e-4, 8.76741e-8)
+    with pytest.raises(ModelError, match="absolute zero"):
+        S.ntc_beta_resistance_ohm(-280.0, 10_000.0, 3435.0)
+    with pytest.raises(ModelError, match="absolute zero"):
+        S.steinhart_hart_resistance_ohm(-273.15, sh)

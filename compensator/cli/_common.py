@@ -65,3 +65,46 @@ def format_table(rows: Sequence[Sequence], headers: Sequence[str], formats: Sequ
 def add_json_flag(parser) -> None:
     """Add the standard ``--json`` flag."""
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON on stdout")
+
+
+def finite_float(text: str) -> float:
+    """argparse type: a finite number (no nan or inf)."""
+    import argparse
+
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"must be finite, got {text!r}")
+    return value
+
+
+def temperature_c(text: str) -> float:
+    """argparse type: a finite temperature above absolute zero, degree Celsius."""
+    import argparse
+
+    value = finite_float(text)
+    if value <= -273.15:
+        raise argparse.ArgumentTypeError(f"must be above absolute zero (-273.15 C), got {text!r}")
+    return value
+
+
+def positive_float(text: str) -> float:
+    """argparse type: a finite number greater than zero."""
+    import argparse
+
+    value = finite_float(text)
+    if value <= 0:
+        raise argparse.ArgumentTypeError(f"must be greater than 0, got {text!r}")
+    return value
+
+
+def non_negative_float(text: str) -> float:
+    """argparse type: a finite number at least zero."""
+    import argparse
+
+    value = finite_float(text)
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"must be at least 0, got {text!r}")
+    return value

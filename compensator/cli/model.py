@@ -6,7 +6,7 @@ import sys
 
 import numpy as np
 
-from compensator.cli._common import add_json_flag, format_table, print_json
+from compensator.cli._common import add_json_flag, finite_float, format_table, non_negative_float, print_json, temperature_c
 from compensator.physics.sipm import evaluate
 from compensator.profiles import load_sipm
 
@@ -16,12 +16,12 @@ ORDER = 20
 def register(subparsers) -> None:
     parser = subparsers.add_parser("model", help="evaluate the SiPM model over temperature")
     parser.add_argument("--sipm", required=True, metavar="FILE", help="sipm profile")
-    parser.add_argument("--temp-c", required=True, nargs="+", type=float, metavar="T",
+    parser.add_argument("--temp-c", required=True, nargs="+", type=temperature_c, metavar="T",
                         help="temperatures, degree Celsius")
     group = parser.add_mutually_exclusive_group(required=True)
-    group.add_argument("--bias-v", type=float, metavar="V", help="fixed bias across the SiPM, volt")
-    group.add_argument("--overvoltage-v", type=float, metavar="V", help="fixed overvoltage, volt (bias follows breakdown)")
-    parser.add_argument("--photon-rate-hz", type=float, default=0.0, metavar="R",
+    group.add_argument("--bias-v", type=finite_float, metavar="V", help="fixed bias across the SiPM, volt")
+    group.add_argument("--overvoltage-v", type=finite_float, metavar="V", help="fixed overvoltage, volt (bias follows breakdown)")
+    parser.add_argument("--photon-rate-hz", type=non_negative_float, default=0.0, metavar="R",
                         help="steady photon rate on the sensor for the current, hertz (default 0)")
     add_json_flag(parser)
     parser.set_defaults(handler=run)

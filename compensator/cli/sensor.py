@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from compensator.cli._common import add_json_flag, format_table, print_json
+from compensator.cli._common import add_json_flag, format_table, print_json, temperature_c
 from compensator.errors import InputError
 from compensator.profiles import load_board
 
@@ -16,7 +16,7 @@ def register(subparsers) -> None:
     parser.add_argument("--board", required=True, metavar="FILE", help="board profile")
     group = parser.add_mutually_exclusive_group(required=True)
     group.add_argument("--adc-code", nargs="+", type=int, metavar="N", help="raw temperature ADC codes")
-    group.add_argument("--temp-c", nargs="+", type=float, metavar="T", help="temperatures, degree Celsius")
+    group.add_argument("--temp-c", nargs="+", type=temperature_c, metavar="T", help="temperatures, degree Celsius")
     add_json_flag(parser)
     parser.set_defaults(handler=run)
 

@@ -108,6 +108,14 @@ def rtd_tolerance_k(temp_c, tolerance_class="A"):
     return offset + slope * np.abs(np.asarray(temp_c, dtype=float))
 
 
+def _kelvin(temp_c):
+    """Absolute temperature of ``temp_c``; an error at or below absolute zero."""
+    t_k = np.asarray(temp_c, dtype=float) + ZERO_C_IN_K
+    if np.any(t_k <= 0):
+        raise ModelError("temp_c must be above absolute zero (-273.15 C)")
+    return t_k
+
+
 def ntc_beta_resistance_ohm(temp_c, r25_ohm, beta_k):
     """NTC resistance by the Beta model ``R = R25 exp(B (1/T - 1/298.15 K))``.
 
@@ -125,7 +133,7 @@ def ntc_beta_resistance_ohm(temp_c, r25_ohm, beta_k):
     ndarray
         Resistance, ohm.
     """
-    t_k = np.asarray(temp_c, dtype=float) + ZERO_C_IN_K
+    t_k = _kelvin(temp_c)
     return r25_ohm * np.exp(beta_k * (1.0 / t_k - 1.0 / T25_K))
 
 
@@ -175,7 +183,7 @@ def steinhart_hart_temp_c(resistance_ohm, coeffs: SteinhartHart):
 def steinhart_hart_resistance_ohm(temp_c, coeffs: SteinhartHart):
     """Resistance in ohm at ``temp_c``: closed-form root of the depressed cubic in ln R."""
     a, b, c = coeffs
-    y = a - 1.0 / (np.asarray(temp_c, dtype=float) + ZERO_C_IN_K)
+    y = a - 1.0 / _kelvin(temp_c)
     if c == 0.0:
         return np.exp(-y / b)
     # c x^3 + b x + y = 0  ->  x^3 + p x + q = 0 (Cardano; one real root for p > 0)
