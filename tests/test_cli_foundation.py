@@ -145,3 +145,24 @@ def test_entry_points_run_as_real_processes(profiles_dir):
         proc = subprocess.run(argv, capture_output=True, text=True, env=env, timeout=120)
         assert "Traceback" not in proc.stderr
     assert proc.returncode == 2 and proc.stderr.strip().endswith("cannot read file: No such file or directory")
+
+
+def test_light_commands_do_not_import_the_heavy_libraries(profiles_dir):
+    # Commands are registered in full only when they run, so `profile check` never pays for
+    # python-control or scipy.signal at start-up.
+    code = ("import sys; from compensator.cli import main; "
+            f"status = main(['profile', 'check', {str(profiles_dir / 'hut-sipm-a.yaml')!r}]); "
+            "print(status, 'control' in sys.modules, 'scipy.signal' in sys.modules)")
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.stdout.split()[-3:] == ["0", "False", "False"], proc.stderr
+
+
+def test_placeholders_list_every_command_with_its_full_help():
+    from compensator.cli import build_parser
+
+    def helps(parser):
+        action = next(a for a in parser._actions if a.__class__.__name__ == "_SubParsersAction")
+        return {c.dest: c.help for c in action._choices_actions}
+
+    full, lazy = helps(build_parser()), helps(build_parser(only=""))
+    assert full == lazy and {"demo", "profile", "calibrate", "budget", "table", "tune", "identify"} <= set(full)

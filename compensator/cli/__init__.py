@@ -1,7 +1,10 @@
 """Command line: thin commands over the library.
 
 Each module in this package that defines ``register(subparsers)`` adds one
-top-level command; ``ORDER`` (an int) places it in ``--help``. A command's
+top-level command; ``ORDER`` (an int) places it in ``--help``. A module whose
+``register`` needs heavy imports (python-control, scipy.signal) also defines
+``COMMAND`` (its name) and ``HELP`` (its one-line help): it is then registered
+in full only when that command runs, so every other command starts fast. A command's
 handler returns an exit status. Library errors a user can cause
 (:class:`~compensator.errors.CompensatorError`) become one-line messages on
 stderr and exit status 2; anything else is a bug and keeps its traceback.
@@ -33,8 +36,16 @@ def _command_modules():
     return sorted(modules, key=lambda m: (getattr(m, "ORDER", 100), m.__name__))
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """Return the top-level parser with every command registered."""
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """Return the top-level parser.
+
+    Parameters
+    ----------
+    only : str, optional
+        The command about to run. Commands that declare ``COMMAND`` and are
+        not this one get a placeholder (listed in ``--help``, never parsed).
+        ``None`` registers every command in full.
+    """
     parser = argparse.ArgumentParser(
         prog="compensator",
         description="Hold SiPM gain constant over temperature.",
@@ -43,13 +54,18 @@ def build_parser() -> argparse.ArgumentParser:
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
     subparsers.required = True
     for module in _command_modules():
-        module.register(subparsers)
+        name = getattr(module, "COMMAND", None)
+        if only is not None and name is not None and name != only:
+            subparsers.add_parser(name, help=module.HELP)
+        else:
+            module.register(subparsers)
     return parser
 
 
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit status."""
-    parser = build_parser()
+    words = sys.argv[1:] if argv is None else argv
+    parser = build_parser(only=next((w for w in words if not w.startswith("-")), ""))
     args = parser.parse_args(argv)
     try:
         return int(args.handler(args) or EXIT_OK)

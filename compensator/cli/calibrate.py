@@ -11,6 +11,8 @@ import numpy as np
 from compensator.cli._common import add_json_flag, format_table, print_json
 
 ORDER = 30
+COMMAND = "calibrate"
+HELP = "breakdown, gain and temperature coefficients from bench measurements"
 
 EXIT_NONE_ANALYSED = 2
 
@@ -21,7 +23,7 @@ CAUTION = ("caution: a calibrated profile sets the bias law; check it against a 
 
 def register(subparsers) -> None:
     parser = subparsers.add_parser(
-        "calibrate", help="breakdown, gain and temperature coefficients from bench measurements",
+        COMMAND, help=HELP,
         description="Turn bench measurements (CSV) into breakdown voltages, gains, temperature coefficients "
                     "and a calibrated sipm profile, with uncertainties.")
     sub = parser.add_subparsers(dest="calibrate_command", metavar="WHAT")

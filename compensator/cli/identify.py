@@ -10,12 +10,14 @@ from compensator.cli._common import add_json_flag, format_table, print_json
 from compensator.errors import InputError, Problem
 
 ORDER = 55
+COMMAND = "identify"
+HELP = "fit FOPDT/SOPDT to a step test, or read Ku and Pu from a relay experiment"
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "identify",
-        help="fit FOPDT/SOPDT to a step test, or read Ku and Pu from a relay experiment",
+        COMMAND,
+        help=HELP,
         description=(
             "Read a CSV with columns time_s,input,output ('#' lines are comments). For a step test (fopdt, "
             "sopdt) the two-point method of Smith (1972) gives the start and least squares over the whole record "

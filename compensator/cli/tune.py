@@ -10,6 +10,8 @@ from compensator.errors import InputError, ModelError, Problem
 from compensator.fileio import output_dir
 
 ORDER = 50
+COMMAND = "tune"
+HELP = "tune a PI/PID loop (cooler or bias supply) and verify it on the sampled loop"
 
 #: Default fixed-point scales for --emit-c (documented in --help).
 COOLER_INPUT_PER_COUNT_K = 0.01
@@ -20,8 +22,8 @@ def register(subparsers) -> None:
     from compensator.loops.tuning import DEFAULT_MS, METHODS
 
     p = subparsers.add_parser(
-        "tune",
-        help="tune a PI/PID loop (cooler or bias supply) and verify it on the sampled loop",
+        COMMAND,
+        help=HELP,
         description=(
             "Tune PI (or PID with --pid) gains in parallel form u = kp e + ki integral(e) + kd de/dt for the "
             "thermoelectric-cooler loop (--plant THERMAL_PROFILE, linearised at its setpoint), the bias supply "
