@@ -142,3 +142,72 @@ def test_table_custom_name(cli, profiles_dir, tmp_path):
     data = json.loads(result.stdout)
     assert data["c_function"] == "uint16_t hut_c_bias(uint16_t adc_code)"
     assert (tmp_path / "hut_c_bias.h").exists() and (tmp_path / "hut_c_bias.c").exists()
+
+
+def test_table_measured_drop_correction(cli, profiles_dir, tmp_path):
+    out = tmp_path / "out"
+    result = cli(*table_args(profiles_dir, out, "hut-sipm-a.yaml", "hut-board-ntc.yaml", "3", "0.05",
+                             "--drop-correction", "measured", "--json"))
+    assert result.status == 0, result.stderr
+    data = json.loads(result.stdout)
+    assert data["drop_correction"] == "measured"
+    cur = data["current_correction"]
+    assert cur["c_function"] == ("uint16_t bias_dac_from_adc_with_current(uint16_t adc_code, "
+                                 "uint16_t current_code)")
+    # 10 kOhm x 3.3 V / 2^12 / 20 kOhm over -(2.5 V / 2^16) x 4 per DAC code (supply formula).
+    assert cur["dac_codes_per_current_code"] == pytest.approx(-2.64)
+    assert cur["current_code_max"] == 4095 and cur["max_correction_v"] == pytest.approx(1.6496, abs=1e-4)
+    source = (out / "bias_dac_from_adc.c").read_text()
+    assert "bias_dac_from_adc_with_current(uint16_t adc_code, uint16_t current_code)" in source
+    assert "drop_correction = measured" in source
+    # The table itself is the zero-current law: the same as with no correction.
+    plain = tmp_path / "plain"
+    assert cli(*table_args(profiles_dir, plain, "hut-sipm-a.yaml", "hut-board-ntc.yaml", "3", "0.05",
+                           "--no-drop-correction")).status == 0
+    assert (plain / "sweep.csv").read_bytes() == (out / "sweep.csv").read_bytes()
+    text = cli(*table_args(profiles_dir, tmp_path / "text", "hut-sipm-a.yaml", "hut-board-ntc.yaml", "3", "0.05",
+                           "--drop-correction", "measured"))
+    assert text.status == 0 and "measured drop correction" in text.stdout and "-2.64 DAC codes" in text.stdout
+
+
+@pytest.mark.parametrize("command", ["table", "budget"])
+def test_measured_without_current_sense_is_one_line(cli, profiles_dir, tmp_path, command):
+    out = tmp_path / "out"
+    if command == "table":
+        argv = table_args(profiles_dir, out, "hut-sipm-b.yaml", "hut-board-pt1000.yaml", "4", "0.05",
+                          "--drop-correction", "measured")
+    else:
+        argv = ("budget", "--sipm", profiles_dir / "hut-sipm-b.yaml", "--board", profiles_dir / "hut-board-pt1000.yaml",
+                "--overvoltage-v", "4", "--drop-correction", "measured")
+    result = cli(*argv)
+    assert result.status == 2 and "Traceback" not in result.stderr
+    errors = [line for line in result.stderr.splitlines() if line.startswith("compensator:")]
+    assert len(errors) == 1
+    assert "hut-board-pt1000.yaml" in errors[0] and "current_sense" in errors[0] and "missing section" in errors[0]
+    assert result.stdout == "" and not out.exists()
+
+
+def test_budget_drop_correction_modes(cli, profiles_dir):
+    def run(*extra):
+        result = cli("budget", "--sipm", profiles_dir / "hut-sipm-a.yaml", "--board", profiles_dir / "hut-board-ntc.yaml",
+                     "--overvoltage-v", "3", "--photon-rate-hz", "1e7", "--samples", "0", "--json", *extra)
+        assert result.status == 0, result.stderr
+        data = json.loads(result.stdout)
+        return data, {t["key"]: t for t in data["terms"]}
+
+    modelled, t_mod = run()
+    measured, t_meas = run("--drop-correction", "measured")
+    none, t_none = run("--no-drop-correction")
+    assert (modelled["drop_correction"], measured["drop_correction"], none["drop_correction"]) == (
+        "modelled", "measured", "none")
+    assert run("--drop-correction", "none")[0] == none
+    assert t_none["series_resistor_drop"]["kind"] == "systematic"
+    assert t_meas["series_resistor_drop"]["kind"] == t_mod["series_resistor_drop"]["kind"] == "random"
+    assert t_meas["series_resistor_drop"]["limit_pct"] < t_mod["series_resistor_drop"]["limit_pct"] / 10
+    assert "measured" in t_meas["series_resistor_drop"]["note"]
+    both = cli("budget", "--sipm", profiles_dir / "hut-sipm-a.yaml", "--board", profiles_dir / "hut-board-ntc.yaml",
+               "--overvoltage-v", "3", "--drop-correction", "measured", "--no-drop-correction")
+    assert both.status == 2 and "not allowed" in both.stderr
+    text = cli("budget", "--sipm", profiles_dir / "hut-sipm-a.yaml", "--board", profiles_dir / "hut-board-ntc.yaml",
+               "--overvoltage-v", "3", "--drop-correction", "measured", "--samples", "0")
+    assert text.status == 0 and "drop corrected from the measured current" in text.stdout

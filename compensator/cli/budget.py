@@ -13,6 +13,7 @@ from compensator.law.budget import (
     DEFAULT_SEED,
     gain_error_budget,
 )
+from compensator.law.laws import DROP_CORRECTIONS
 from compensator.profiles import load_board, load_sipm
 
 ORDER = 40
@@ -27,17 +28,31 @@ def add_law_arguments(parser) -> None:
     parser.add_argument("--law", choices=LAW_KINDS, default="constant_gain",
                         help="compensation law (default constant_gain; equal to constant_overvoltage when the "
                              "cell capacitance has no temperature coefficient)")
-    parser.add_argument("--no-drop-correction", action="store_true",
-                        help="do not add the modelled series-resistor drop to the output")
+    drop = parser.add_mutually_exclusive_group()
+    drop.add_argument("--drop-correction", choices=DROP_CORRECTIONS, default=None,
+                      help="series-resistor drop: none; modelled (the law adds the drop of the modelled current at "
+                           "--photon-rate-hz; the default); measured (the table holds the zero-current law and the "
+                           "firmware adds the drop of the current read through the board's current_sense channel)")
+    drop.add_argument("--no-drop-correction", action="store_true",
+                      help="the same as --drop-correction none")
     parser.add_argument("--photon-rate-hz", type=float, default=0.0, metavar="R",
-                        help="photon rate assumed for the modelled current, hertz (default 0: dark)")
+                        help="photon rate assumed for the modelled current (with measured: the light level the "
+                             "budget assumes), hertz (default 0: dark)")
+
+
+def drop_correction_from_args(args) -> str:
+    """The drop-correction mode chosen on the command line (``--no-drop-correction`` means "none")."""
+    if args.drop_correction is not None:
+        return args.drop_correction
+    return "none" if args.no_drop_correction else "modelled"
 
 
 def law_from_args(args):
     """Load the profiles and build the law; returns ``(sipm_profile, board_profile, law)``."""
     sipm = load_sipm(args.sipm)
     board = load_board(args.board)
-    law = build_law(sipm, board, args.overvoltage_v, args.law, not args.no_drop_correction, args.photon_rate_hz)
+    law = build_law(sipm, board, args.overvoltage_v, args.law, photon_rate_hz=args.photon_rate_hz,
+                    drop_correction=drop_correction_from_args(args))
     return sipm, board, law
 
 
@@ -66,7 +81,7 @@ def _as_dict(budget, sipm, board, law) -> dict:
     mc = budget.monte_carlo
     return {
         "sipm": sipm.name, "board": board.name, "law": law.kind, "overvoltage_v": law.overvoltage_v,
-        "drop_correction": law.correct_drop, "photon_rate_hz": law.photon_rate_hz,
+        "drop_correction": law.drop_correction, "photon_rate_hz": law.photon_rate_hz,
         "temp_range_c": [law.min_temp_c, law.max_temp_c], "calibration_temp_c": budget.calibration_temp_c,
         "current_uncertainty_pct": budget.current_uncertainty_pct,
         "terms": [{"key": t.key, "name": t.name, "kind": t.kind, "limit_pct": t.limit_pct, "std_pct": t.std_pct,
@@ -95,8 +110,9 @@ def run(args) -> int:
     if args.json:
         print_json(_as_dict(budget, sipm, board, law))
         return 0
-    print(f"{sipm.name} on {board.name}: {law.kind.replace('_', ' ')} law at {law.overvoltage_v:g} V, "
-          f"drop {'corrected' if law.correct_drop else 'not corrected'}, "
+    drop = {"none": "not corrected", "modelled": "corrected from the modelled current",
+            "measured": "corrected from the measured current"}[law.drop_correction]
+    print(f"{sipm.name} on {board.name}: {law.kind.replace('_', ' ')} law at {law.overvoltage_v:g} V, drop {drop}, "
           f"{law.min_temp_c:g} to {law.max_temp_c:g} C")
     print(f"gain error over the range, percent; 'cal' = after a one-point calibration at "
           f"{budget.calibration_temp_c:g} C; limits are tolerance bounds, half an LSB, or 3 sigma")

@@ -9,6 +9,7 @@ from compensator.cli.budget import add_law_arguments, law_from_args
 from compensator.fileio import write_files_atomic
 from compensator.firmware.table_c import (
     DEFAULT_FUNCTION_NAME,
+    c_current_function_signature,
     c_function_signature,
     check_function_name,
     render_sweep_csv,
@@ -36,7 +37,9 @@ def register(subparsers) -> None:
         "table", help="integer lookup table ADC code -> DAC code as C99 source, within a gain-error bound",
         description="Tabulate the compensation law from the raw temperature ADC code to the bias DAC code, "
                     "choose the smallest table that meets --max-gain-error-pct at every ADC code of the "
-                    "operating range, and write NAME.h, NAME.c and sweep.csv to --out.")
+                    "operating range, and write NAME.h, NAME.c and sweep.csv to --out. With --drop-correction "
+                    "measured the table holds the law for zero current and NAME_with_current() also adds the "
+                    "series-resistor drop of the SiPM current read by the board's current_sense ADC.")
     add_law_arguments(parser)
     parser.add_argument("--max-gain-error-pct", required=True, type=float, metavar="P",
                         help="bound on the table's gain error at every ADC code of the range, percent")
@@ -66,7 +69,7 @@ def run(args) -> int:
         raise RuntimeError(f"table misses its bound at ADC code {sweep.worst_adc_code}")
     settings = {"law": law.kind, "overvoltage_v": f"{law.overvoltage_v:g}", "layout": table.layout,
                 "max_gain_error_pct": f"{args.max_gain_error_pct:g}", "fault_margin_k": f"{args.fault_margin_k:g}",
-                "drop_correction": "yes" if law.correct_drop else "no",
+                "drop_correction": law.drop_correction,
                 "photon_rate_hz": f"{law.photon_rate_hz:g}"}
     files = render_table_c(table, [sipm, board], name, settings)
     files["sweep.csv"] = render_sweep_csv(sweep)
@@ -84,8 +87,18 @@ def run(args) -> int:
         "adc_code_range": [table.code_lo, table.code_hi], "adc_fault_band": [table.fault_lo, table.fault_hi],
         "safe_dac_code": table.safe_dac_code, "dac_clamp": [table.dac_min, table.dac_max],
         "c_function": c_function_signature(table, name),
+        "drop_correction": law.drop_correction,
+        "current_correction": None,
         "files": [str(p) for p in paths],
     }
+    cur = table.current
+    if cur is not None:
+        result["current_correction"] = {
+            "c_function": c_current_function_signature(table, name),
+            "dac_codes_per_current_code": cur.dac_codes_per_current_code, "factor": cur.factor, "shift": cur.shift,
+            "current_code_max": cur.current_code_max, "limited_by": cur.limit_reason,
+            "current_lsb_a": cur.lsb_a, "max_correction_v": cur.max_correction_v,
+        }
     if args.json:
         print_json(result)
         return 0
@@ -98,6 +111,11 @@ def run(args) -> int:
           f"up to {adc_q:.4f} %")
     print(f"codes outside {table.fault_lo}..{table.fault_hi} give the safe DAC code {table.safe_dac_code}")
     print(f"function: {c_function_signature(table, name)}")
+    if cur is not None:
+        print(f"measured drop correction: {c_current_function_signature(table, name)} adds "
+              f"{cur.dac_codes_per_current_code:.6g} DAC codes per current code ({1e9 * cur.lsb_a:.4g} nA), "
+              f"as {cur.factor} / 2^{cur.shift}; current codes above {cur.current_code_max} ({cur.limit_reason}) "
+              f"are limited, so it adds at most {cur.max_correction_v:.3f} V")
     for p in paths:
         print(f"wrote {p}")
     return 0

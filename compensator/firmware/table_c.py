@@ -27,6 +27,9 @@ from compensator.firmware.tables import (
 
 DEFAULT_FUNCTION_NAME = "bias_dac_from_adc"
 
+#: Suffix of the entry point that also takes the measured SiPM current.
+CURRENT_FUNCTION_SUFFIX = "_with_current"
+
 SWEEP_COLUMNS = ("adc_code", "temp_c", "ideal_bias_v", "table_dac_code", "table_bias_v", "gain_error_pct")
 
 _C_KEYWORDS = frozenset("""auto break case char const continue default do double else enum extern float for goto
@@ -66,6 +69,22 @@ def c_function_signature(table: LookupTable, name: str) -> str:
         Function name.
     """
     return f"uint{table.value_type_bits}_t {name}(uint{table.code_type_bits}_t adc_code)"
+
+
+def c_current_function_signature(table: LookupTable, name: str) -> str:
+    """The prototype of the entry point with the measured drop correction (without the semicolon).
+
+    Parameters
+    ----------
+    table : LookupTable
+        A table with a :class:`~compensator.firmware.tables.CurrentCorrection`.
+    name : str
+        Function name of the plain lookup; the suffix ``_with_current`` is added.
+    """
+    if table.current is None:
+        raise ModelError("the table has no measured drop correction")
+    return (f"uint{table.value_type_bits}_t {name}{CURRENT_FUNCTION_SUFFIX}(uint{table.code_type_bits}_t adc_code, "
+            f"uint{table.current.current_type_bits}_t current_code)")
 
 
 def _array(ctype: str, name: str, values, per_line: int = 8) -> str:
@@ -112,8 +131,19 @@ def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NA
         f" *   codes {table.fault_lo}..{table.code_lo - 1} and {table.code_hi + 1}..{table.fault_hi} (just outside it) are\n"
         " *   clamped to the value at the nearer end of the range;\n"
         f" *   any other code (open or shorted sensor, rail) gives {up}_SAFE_DAC_CODE.\n"
-        f" * {name}_status(adc_code) tells which case applies.\n"
-        " */\n\n")
+        f" * {name}_status(adc_code) tells which case applies.\n")
+    cur = table.current
+    if cur is not None:
+        h.append(
+            " *\n"
+            f" * {name}{CURRENT_FUNCTION_SUFFIX}(adc_code, current_code) also corrects the drop across the\n"
+            f" *   {cur.series_resistor_ohm:g} ohm series resistor from the raw code of the SiPM current ADC: the\n"
+            f" *   table holds the bias for zero current; the function adds {up}_CURRENT_FACTOR * current_code\n"
+            f" *   / 2^{up}_CURRENT_SHIFT DAC codes (rounded half up; about {cur.dac_codes_per_current_code:.6g} per\n"
+            f" *   current code), with current_code limited to {up}_CURRENT_CODE_MAX ({cur.limit_reason}),\n"
+            f" *   then clamps to {up}_DAC_MIN..{up}_DAC_MAX. A sensor fault still gives\n"
+            f" *   {up}_SAFE_DAC_CODE, never a corrected code.\n")
+    h.append(" */\n\n")
     defines = [
         ("STATUS_OK", STATUS_OK, "reading inside the operating range"),
         ("STATUS_BELOW_RANGE", STATUS_BELOW_RANGE, "code below the range: output clamped"),
@@ -131,12 +161,27 @@ def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NA
         ("ENTRIES", table.entries, "table rows"),
         ("TABLE_BYTES", table.table_bytes, "bytes of const table data"),
     ]
+    if cur is not None:
+        defines += [
+            ("CURRENT_BITS", cur.current_bits, "SiPM current ADC resolution"),
+            ("CURRENT_CODE_MAX", cur.current_code_max, "larger current codes are limited to this"),
+            ("CURRENT_SHIFT", cur.shift, "fractional bits of the correction factor"),
+        ]
     width = max(len(f"{up}_{k}") for k, _, _ in defines)
+    if cur is not None:
+        width = max(width, len(f"{up}_CURRENT_FACTOR"))
     for key, value, comment in defines:
         h.append(f"#define {f'{up}_{key}':<{width}} {int(value)}u /* {comment} */\n")
+    if cur is not None:
+        lit = f"INT{cur.acc_type_bits}_C({abs(cur.factor)})"
+        h.append(f"#define {f'{up}_CURRENT_FACTOR':<{width}} ({'-' if cur.factor < 0 else ''}{lit}) "
+                 f"/* DAC codes per current code, times 2^{up}_CURRENT_SHIFT */\n")
     h.append("\n#ifdef __cplusplus\nextern \"C\" {\n#endif\n")
     h.append(f"\n/* Bias DAC code for a raw temperature ADC code (integer only, no division). */\n{sig};\n\n")
     h.append(f"/* {up}_STATUS_* for a raw temperature ADC code. */\nuint8_t {name}_status({ct} adc_code);\n\n")
+    if cur is not None:
+        h.append(f"/* Bias DAC code with the series-resistor drop of the measured SiPM current added. */\n"
+                 f"{c_current_function_signature(table, name)};\n\n")
     h.append("#ifdef __cplusplus\n}\n#endif\n\n")
     h.append(f"#endif /* {guard} */\n")
 
@@ -169,6 +214,12 @@ def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NA
             (f"sizeof({name}_y) / sizeof({name}_y[0]) == {up}_ENTRIES", "value count"),
             (f"sizeof({name}_slope) / sizeof({name}_slope[0]) == {up}_ENTRIES", "slope count"),
             (f"sizeof({name}_x) + sizeof({name}_y) + sizeof({name}_slope) == {up}_TABLE_BYTES", "table size"),
+        ]
+    if cur is not None:
+        c.insert(c.index(f"typedef {acc} {name}_acc_t;\n\n") + 1, f"typedef int{cur.acc_type_bits}_t {name}_corr_t;\n\n")
+        asserts += [
+            (f"{up}_CURRENT_CODE_MAX < (1ul << {up}_CURRENT_BITS)", "current code limit"),
+            (f"{up}_CURRENT_SHIFT < {cur.acc_type_bits - 1}u", "correction shift"),
         ]
     asserts += [
         (f"sizeof({name}_acc_t) * 8 == {table.acc_type_bits}", "accumulator width"),
@@ -255,7 +306,44 @@ def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NA
         "    }\n"
         f"    return ({vt})y;\n"
         "}\n")
+    if cur is not None:
+        c.append(_render_current_c(table, name, up, vt))
     return {f"{name}.h": "".join(h), f"{name}.c": "".join(c)}
+
+
+def _render_current_c(table: LookupTable, name: str, up: str, vt: str) -> str:
+    """The correction and the entry point with the measured current (step 5-7 of the integer path)."""
+    cur = table.current
+    it = f"uint{cur.current_type_bits}_t"
+    corr = f"{name}_corr_t"
+    half = (1 << cur.shift) >> 1
+    return (
+        f"\n/* Drop correction in DAC codes: floor((K c + 2^(Q-1)) / 2^Q), c limited to {up}_CURRENT_CODE_MAX. */\n"
+        f"static {corr} {name}_current_delta({it} current_code)\n"
+        "{\n"
+        f"    const {corr} c = (current_code > {up}_CURRENT_CODE_MAX)\n"
+        f"        ? ({corr}){up}_CURRENT_CODE_MAX : ({corr})current_code;\n"
+        f"    const {corr} p = ({corr}){up}_CURRENT_FACTOR * c + ({corr}){half};\n"
+        "    if (p >= 0) {\n"
+        f"        return p >> {up}_CURRENT_SHIFT;\n"
+        "    }\n"
+        f"    return -((-p + ((({corr})1 << {up}_CURRENT_SHIFT) - 1)) >> {up}_CURRENT_SHIFT);\n"
+        "}\n\n"
+        f"{c_current_function_signature(table, name)}\n"
+        "{\n"
+        f"    {corr} y;\n"
+        f"    if (adc_code < {up}_ADC_FAULT_LO || adc_code > {up}_ADC_FAULT_HI) {{\n"
+        f"        return ({vt}){up}_SAFE_DAC_CODE; /* never corrected */\n"
+        "    }\n"
+        f"    y = ({corr}){name}(adc_code) + {name}_current_delta(current_code);\n"
+        f"    if (y < ({corr}){up}_DAC_MIN) {{\n"
+        f"        y = ({corr}){up}_DAC_MIN;\n"
+        "    }\n"
+        f"    if (y > ({corr}){up}_DAC_MAX) {{\n"
+        f"        y = ({corr}){up}_DAC_MAX;\n"
+        "    }\n"
+        f"    return ({vt})y;\n"
+        "}\n")
 
 
 def render_sweep_csv(sweep: TableSweep) -> str:

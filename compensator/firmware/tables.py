@@ -34,6 +34,23 @@ The integer path, for an ADC code ``n``:
 4. Clamp ``y`` to ``[dac_min, dac_max]``: the DAC codes whose output lies
    within the supply's limits and the board's ``max_bias_v``.
 
+With the *measured* series-resistor drop correction the table holds the law
+for zero current and a second entry point also takes the raw code ``c`` of
+the SiPM current ADC (:meth:`LookupTable.lookup_with_current`):
+
+5. A sensor fault (step 1) returns ``safe_dac_code``, uncorrected.
+6. ``c`` is limited to ``current_code_max`` (the smallest of the ADC's full
+   scale, the code of the SiPM's ``max_current_a`` and the code whose drop
+   would take the SiPM past ``max_overvoltage_v`` if the current were not
+   really flowing), then
+   ``delta = floor((K c + 2^(Q-1)) / 2^Q)``: ``K`` is the exact
+   correction ``R (Vref_I / 2^bits_I) / sense_gain / (volts per DAC code)``
+   in DAC codes per current code, scaled by ``2^Q`` and rounded, signed (it is
+   negative for the feedback-injection supply, whose output falls as the code
+   rises). ``Q`` is chosen so the rounding of ``K`` moves ``delta`` by at most
+   1/64 LSB over the whole current range; no division at run time.
+7. The result of steps 2-4 plus ``delta``, clamped again to ``[dac_min, dac_max]``.
+
 Node values are the law's exact DAC codes rounded to nearest; uniform sizing
 tries every power-of-two spacing and keeps the widest that meets the bound,
 verified at every code; optimised placement is greedy: each segment is made
@@ -66,6 +83,120 @@ STATUS_NAMES = {STATUS_OK: "ok", STATUS_BELOW_RANGE: "below_range", STATUS_ABOVE
 
 #: Default distance beyond the operating range at which a reading counts as a sensor fault, kelvin.
 DEFAULT_FAULT_MARGIN_K = 20.0
+
+
+#: The rounding of the correction factor may move the correction by at most 1/2^CURRENT_FACTOR_SLACK_BITS DAC LSB.
+CURRENT_FACTOR_SLACK_BITS = 6
+
+
+@dataclass(frozen=True)
+class CurrentCorrection:
+    """The run-time series-resistor drop correction from the measured SiPM current.
+
+    Attributes
+    ----------
+    current_bits : int
+        Resolution of the current ADC, bits.
+    current_type_bits : int
+        Width of the unsigned C argument that carries the current code.
+    current_code_max : int
+        Larger current codes are limited to this.
+    factor : int
+        ``K``: DAC codes per current code, times ``2^shift`` (signed).
+    shift : int
+        ``Q``, bits.
+    acc_type_bits : int
+        Width of the signed accumulator of ``K c``.
+    dac_codes_per_current_code : float
+        The exact (unrounded) factor, DAC codes per current code.
+    lsb_a : float
+        SiPM current per current code, ampere.
+    series_resistor_ohm : float
+    limit_reason : str
+        What sets ``current_code_max``.
+    """
+
+    current_bits: int
+    current_type_bits: int
+    current_code_max: int
+    factor: int
+    shift: int
+    acc_type_bits: int
+    dac_codes_per_current_code: float
+    lsb_a: float
+    series_resistor_ohm: float
+    limit_reason: str = ""
+
+    @property
+    def max_correction_v(self) -> float:
+        """Largest drop the correction adds, volt."""
+        return self.series_resistor_ohm * self.current_code_max * self.lsb_a
+
+    def delta(self, current_code):
+        """Correction in DAC codes for raw current codes (the integer path, bit-exact reference).
+
+        Parameters
+        ----------
+        current_code : array_like of int
+            Raw current ADC codes, ``0 .. 2^current_type_bits - 1``.
+
+        Returns
+        -------
+        ndarray of int64
+            Signed DAC codes to add to the table's value.
+        """
+        c = np.minimum(np.asarray(current_code, dtype=np.int64), self.current_code_max)
+        return floor_shift(self.factor * c + ((1 << self.shift) >> 1), self.shift)
+
+
+def build_current_correction(law: CompensationLaw, fault_margin_k: float = 0.0) -> CurrentCorrection:
+    """The integer drop correction of a law with ``drop_correction="measured"``.
+
+    Parameters
+    ----------
+    law : CompensationLaw
+        Must carry a ``current_sense`` channel.
+    fault_margin_k : float
+        The table's fault margin, kelvin: readings just below the range keep
+        the end value while the die may be this much colder, which uses up
+        overvoltage headroom.
+
+    Returns
+    -------
+    CurrentCorrection
+
+    Raises
+    ------
+    ModelError
+        The law has no current channel, or no headroom is left for any correction.
+    """
+    sense = law.current_sense
+    if sense is None:
+        raise ModelError("the measured drop correction needs the board's current_sense channel")
+    supply = law.supply
+    r_ohm = float(supply.series_resistor_ohm)
+    exact = r_ohm * sense.lsb_a / supply.volts_per_code
+    limits = [(sense.full_scale_code, "current ADC full scale"),
+              (int(sense.adc_code(law.sipm.max_current_a)), "sipm max_current_a")]
+    if r_ohm > 0:
+        temps = np.linspace(law.min_temp_c, law.max_temp_c, 141)
+        ov0 = float(np.max(law.output_v(temps) - breakdown_v(law.sipm, temps)))
+        t_lo = law.min_temp_c
+        ov_margin = float(law.output_v(t_lo) - breakdown_v(law.sipm, t_lo - fault_margin_k))
+        headroom_v = law.sipm.max_overvoltage_v - max(ov0, ov_margin)
+        if headroom_v <= 0:
+            raise ModelError(f"the law already reaches max_overvoltage_v {law.sipm.max_overvoltage_v:g} V: no "
+                             "headroom is left for the measured drop correction; lower the overvoltage")
+        limits.append((int(np.floor(headroom_v / (r_ohm * sense.lsb_a))), "sipm max_overvoltage_v headroom"))
+    code_max, reason = min(limits, key=lambda p: p[0])
+    code_max = max(int(code_max), 0)
+    shift = max(0, int(np.ceil(np.log2(max(code_max, 1) * (1 << (CURRENT_FACTOR_SLACK_BITS - 1))))))
+    factor = int(np.rint(exact * (1 << shift)))
+    acc_max = abs(factor) * code_max + (1 << shift)
+    current_type_bits = max(16, _uint_bits(sense.full_scale_code))
+    return CurrentCorrection(sense.adc_bits, current_type_bits, code_max, factor, shift,
+                             32 if _int_bits(acc_max) <= 32 else 64, float(exact), float(sense.lsb_a), r_ohm,
+                             reason)
 
 
 class TableError(ModelError):
@@ -140,6 +271,8 @@ class LookupTable:
         Width of the stored uniform nodes (unsigned).
     max_gain_error_pct : float
         The bound the table was sized for, percent.
+    current : CurrentCorrection or None
+        The run-time drop correction from the measured current, if any.
     """
 
     layout: str
@@ -166,6 +299,7 @@ class LookupTable:
     max_gain_error_pct: float = 0.0
     node_frac_bits: int = 0
     node_type_bits: int = 16
+    current: CurrentCorrection | None = None
 
     @property
     def entries(self) -> int:
@@ -236,6 +370,40 @@ class LookupTable:
         y[above], status[above] = self.above_dac_code, STATUS_ABOVE_RANGE
         y[fault], status[fault] = self.safe_dac_code, STATUS_SENSOR_FAULT
         return y, status
+
+    def lookup_with_current(self, adc_code, current_code):
+        """The firmware path with the measured drop correction (bit-exact reference).
+
+        Parameters
+        ----------
+        adc_code : array_like of int
+            Raw temperature ADC codes (as in :meth:`lookup`).
+        current_code : array_like of int
+            Raw SiPM current ADC codes, ``0 .. 2^current_type_bits - 1``;
+            broadcast against ``adc_code``.
+
+        Returns
+        -------
+        dac_code : ndarray of int64
+            The table's value plus the correction, clamped to ``[dac_min,
+            dac_max]``; ``safe_dac_code`` (uncorrected) for a sensor fault.
+        status : ndarray of int64
+            The temperature status, as in :meth:`lookup`.
+
+        Raises
+        ------
+        ModelError
+            The table has no current correction, or a code is out of its argument's range.
+        """
+        if self.current is None:
+            raise ModelError("this table has no measured drop correction (build it from a law with "
+                             "drop_correction='measured')")
+        n, c = np.broadcast_arrays(np.asarray(adc_code, dtype=np.int64), np.asarray(current_code, dtype=np.int64))
+        if np.any((c < 0) | (c >= (1 << self.current.current_type_bits))):
+            raise ModelError(f"current_code outside the range of the {self.current.current_type_bits}-bit argument")
+        y, status = self.lookup(n)
+        out = np.clip(y + self.current.delta(c), self.dac_min, self.dac_max)
+        return np.where(status == STATUS_SENSOR_FAULT, self.safe_dac_code, out), status
 
 
 @dataclass(frozen=True, eq=False)
@@ -568,6 +736,8 @@ def build_table(law: CompensationLaw, board, max_gain_error_pct: float, layout: 
     ----------
     law : CompensationLaw
         The law to tabulate; it must not be clamped inside the operating range.
+        With ``drop_correction="measured"`` the table holds the law for zero
+        current and carries the run-time :class:`CurrentCorrection`.
     board : BoardProfile
         Temperature channel, supply and ``safe_dac_code``.
     max_gain_error_pct : float
@@ -616,10 +786,11 @@ def build_table(law: CompensationLaw, board, max_gain_error_pct: float, layout: 
         lengths = np.diff(np.append(x, code_hi + 1))
         acc_max = int(np.max(np.abs(slope) * lengths)) + (1 << frac_bits)
     acc_bits = 32 if _int_bits(acc_max) <= 32 else 64
+    current = build_current_correction(law, fault_margin_k) if law.drop_correction == "measured" else None
     # Values just outside the range: the table's own end values.
     table = LookupTable(layout, adc_bits, dac_bits, code_lo, code_hi, fault_lo, fault_hi, dac_min, dac_max,
                         int(board.safe_dac_code), 0, 0, shift, frac_bits, x, y, slope, code_bits, value_bits,
-                        slope_bits, acc_bits, max_gain_error_pct, node_frac, node_bits)
+                        slope_bits, acc_bits, max_gain_error_pct, node_frac, node_bits, current)
     ends = np.clip(table.interpolate([code_lo, code_hi]), dac_min, dac_max)
     from dataclasses import replace
     return replace(table, below_dac_code=int(ends[0]), above_dac_code=int(ends[1]))

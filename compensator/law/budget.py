@@ -47,11 +47,17 @@ calibration itself sees one quantisation error, which adds to the one at
 every other temperature. Both "as built" and "after calibration" figures are
 reported.
 
-**Series-resistor drop.** With correction, what is left is the error of the
-modelled current; the model is assumed good to ``+-current_uncertainty_pct``
-(rectangular; an assumption: dark rates of one device type commonly spread
-by tens of percent, common practice). Without correction the whole drop is
-a systematic term.
+**Series-resistor drop.** With the modelled correction, what is left is the
+error of the modelled current; the model is assumed good to
+``+-current_uncertainty_pct`` (rectangular; an assumption: dark rates of one
+device type commonly spread by tens of percent, common practice). With the
+measured correction (``drop_correction="measured"``) the firmware adds
+``R I_measured`` at run time; what is left is the error of the current
+channel at the law's ``photon_rate_hz``: its sense-gain and ADC-reference
+tolerances (relative, rectangular), its input offset (rectangular, either
+sign), half a code of the current ADC and half a DAC LSB for rounding the
+correction (analytic, like the other quantisation terms). Without correction
+the whole drop is a systematic term.
 
 **Monte Carlo** (seeded, vectorised over samples): every source drawn from
 its distribution at once, through the full non-linear chain *with*
@@ -251,16 +257,39 @@ def _sources(law: CompensationLaw, board, current_uncertainty_pct: float) -> lis
         out += [_Source("amp_gain", "supply_network", "uniform", tol)]
     out += [_Source("breakdown_v", "breakdown_calibration", "normal", bd.breakdown_err_v),
             _Source("tempco_mv_per_k", "tempco_calibration", "normal", bd.tempco_err_mv_per_k)]
-    if law.correct_drop and supply.series_resistor_ohm > 0:
+    if law.drop_correction == "modelled" and supply.series_resistor_ohm > 0:
         out.append(_Source("current", "series_resistor_drop", "uniform", 1e-2 * current_uncertainty_pct))
+    elif law.drop_correction == "measured" and supply.series_resistor_ohm > 0:
+        sense = law.current_sense
+        out += [_Source("isense_gain", "series_resistor_drop", "uniform", 1e-2 * sense.gain_tolerance_pct),
+                _Source("isense_reference", "series_resistor_drop", "uniform", 1e-2 * sense.reference_tolerance_pct),
+                _Source("isense_offset_a", "series_resistor_drop", "uniform", sense.offset_a)]
     return out
 
 
-def _chain_gain_error_pct(law: CompensationLaw, board, dev: dict, temp_c, quantise: bool, series_ohm=None):
+def _operating_point_v(v_out_of, v_start, r_series, real, t_die, photon_rate_hz, scale=1.0):
+    """Solve ``v = v_out_of(I) - R scale I(v)``: the bias at the SiPM (fixed-point iteration from ``v_start``).
+
+    ``v_out_of`` maps the true current (ampere) to the supply output (volt);
+    ``scale`` multiplies the modelled current (the modelled-current error).
+    """
+    v = v_start
+    for _ in range(60):
+        current = scale * steady_current_a(real, v, t_die, photon_rate_hz)
+        new = v_out_of(current) - r_series * current
+        if np.all(np.abs(new - v) < 1e-10):
+            return new
+        v = new
+    raise ModelError("series-resistor operating point did not converge")
+
+
+def _chain_gain_error_pct(law: CompensationLaw, board, dev: dict, temp_c, quantise: bool, series_ohm=None,
+                          photon_rate_hz=None):
     """Gain error (percent) of the real device through the whole chain.
 
     ``dev`` maps source keys to deviations in the parameter's own unit
-    (arrays broadcasting against ``temp_c``).
+    (arrays broadcasting against ``temp_c``); ``photon_rate_hz`` is the real
+    light level (default: the one the law assumes).
     """
     g = lambda k: dev.get(k, 0.0)  # noqa: E731
     channel = board.temperature
@@ -289,34 +318,94 @@ def _chain_gain_error_pct(law: CompensationLaw, board, dev: dict, temp_c, quanti
     dac = (v_law - supply.intercept_v) / supply.volts_per_code
     if quantise:
         dac = np.clip(np.rint(dac), 0, supply.dac.full_scale_code)
-    v_dac = dac * supply.dac.lsb_v * (1.0 + g("dac_reference"))
-    if supply.topology == "feedback_injection":
-        r1 = supply.r1_ohm * (1.0 + g("r1"))
-        r2 = supply.r2_ohm * (1.0 + g("r2"))
-        r3 = supply.r3_ohm * (1.0 + g("r3"))
-        v_out = supply.feedback_v * (1.0 + r1 / r2 + r1 / r3) - v_dac * r1 / r3
-    else:
-        v_out = supply.offset_v + supply.gain_v_per_v * (1.0 + g("amp_gain")) * v_dac
-    v_out = np.clip(v_out, supply.min_output_v, supply.max_output_v)
+
+    def network_v(code):
+        v_dac = code * supply.dac.lsb_v * (1.0 + g("dac_reference"))
+        if supply.topology == "feedback_injection":
+            r1 = supply.r1_ohm * (1.0 + g("r1"))
+            r2 = supply.r2_ohm * (1.0 + g("r2"))
+            r3 = supply.r3_ohm * (1.0 + g("r3"))
+            out = supply.feedback_v * (1.0 + r1 / r2 + r1 / r3) - v_dac * r1 / r3
+        else:
+            out = supply.offset_v + supply.gain_v_per_v * (1.0 + g("amp_gain")) * v_dac
+        return np.clip(out, supply.min_output_v, supply.max_output_v)
+
     # The real device.
     sipm = law.sipm
     bd = sipm.breakdown
     real = replace(sipm, breakdown=replace(bd, breakdown_v_at_ref=bd.breakdown_v_at_ref + g("breakdown_v"),
                                            tempco_mv_per_k=bd.tempco_mv_per_k + g("tempco_mv_per_k")))
     r_series = supply.series_resistor_ohm if series_ohm is None else series_ohm
+    rate = law.photon_rate_hz if photon_rate_hz is None else photon_rate_hz
+    v_out = network_v(dac)
     v = v_out
-    if r_series > 0:
-        scale = 1.0 + g("current")
-        for _ in range(60):
-            new = v_out - r_series * scale * steady_current_a(real, v, t_die, law.photon_rate_hz)
-            if np.all(np.abs(new - v) < 1e-10):
-                v = new
-                break
-            v = new
-        else:
-            raise ModelError("series-resistor operating point did not converge")
+    if r_series > 0 and law.drop_correction == "measured":
+        sense = law.current_sense
+        per_code = supply.series_resistor_ohm * sense.lsb_a / supply.volts_per_code  # DAC codes per current code
+        errs = (g("isense_gain"), g("isense_reference"), g("isense_offset_a"))
+
+        def corrected_v(current):
+            code = np.clip(sense.continuous_code(current, *errs), 0, sense.full_scale_code)
+            return network_v(dac + per_code * code)
+
+        # The firmware reads the current at the operating point; first without quantisation ...
+        v = _operating_point_v(corrected_v, v_out, r_series, real, t_die, rate)
+        if quantise:
+            # ... then one reading there, quantised, and one integer correction (rounded half up).
+            code = sense.adc_code(steady_current_a(real, v, t_die, rate), *errs)
+            fixed = network_v(np.clip(dac + np.floor(per_code * code + 0.5), 0, supply.dac.full_scale_code))
+            v = _operating_point_v(lambda i: fixed, v, r_series, real, t_die, rate)
+    elif r_series > 0:
+        v = _operating_point_v(lambda i: v_out, v_out, r_series, real, t_die, rate, 1.0 + g("current"))
     g0 = gain(sipm, bd.breakdown_v(bd.ref_temp_c) + law.overvoltage_v, bd.ref_temp_c)
     return 100.0 * (gain(real, v, t_die) / g0 - 1.0)
+
+
+def gain_error_at_light_pct(law: CompensationLaw, board, photon_rate_hz, temp_c, deviations=None,
+                            quantise=True):
+    """Gain error of the board's whole chain when the real light level differs from the law's.
+
+    With ``drop_correction="modelled"`` the output carries the drop of the
+    current modelled at the law's ``photon_rate_hz``; with ``"measured"`` the
+    firmware corrects the drop of the current it reads at the real light level.
+
+    Parameters
+    ----------
+    law : CompensationLaw
+    board : BoardProfile
+    photon_rate_hz : float
+        Real photon rate on the SiPM, hertz.
+    temp_c : array_like
+        Die temperatures, degree Celsius.
+    deviations : dict, optional
+        Component errors by source key (e.g. ``{"isense_gain": 0.005}``),
+        each in its parameter's unit; default none.
+    quantise : bool
+        Include ADC and DAC quantisation (the firmware's integer path).
+
+    Returns
+    -------
+    ndarray
+        Gain error, percent.
+
+    Raises
+    ------
+    ModelError
+        A negative or non-finite photon rate.
+    """
+    if not np.isfinite(photon_rate_hz) or photon_rate_hz < 0:
+        raise ModelError(f"photon_rate_hz must be a non-negative number, got {photon_rate_hz!r}")
+    return _chain_gain_error_pct(law, board, dict(deviations or {}), np.asarray(temp_c, dtype=float),
+                                 bool(quantise), photon_rate_hz=float(photon_rate_hz))
+
+
+def _drop_note(law: CompensationLaw, current_uncertainty_pct: float) -> str:
+    if law.drop_correction != "measured":
+        return f"corrected; modelled current good to +-{current_uncertainty_pct:g} %"
+    sense = law.current_sense
+    return (f"measured at {law.photon_rate_hz:g} Hz: gain +-{sense.gain_tolerance_pct:g} %, ref "
+            f"+-{sense.reference_tolerance_pct:g} %, offset +-{1e9 * sense.offset_a:g} nA, "
+            f"{1e9 * sense.lsb_a:.4g} nA/code")
 
 
 def _cap_ratio(sipm: Sipm, temp_c, calibration_temp_c):
@@ -396,7 +485,7 @@ def gain_error_budget(law: CompensationLaw, board, calibration_temp_c=None, samp
         "sensor_tolerance": (f"IEC 60751 class {sensor.tolerance_class}" if isinstance(sensor, RtdSensor) else
                              f"R25 +-{sensor.r25_tolerance_pct:g} %, Beta +-{sensor.beta_tolerance_pct:g} %"),
         "adc_reference": "cancels: the ADC is ratiometric" if board.temperature.front_end.ratiometric else "",
-        "series_resistor_drop": f"corrected; modelled current good to +-{current_uncertainty_pct:g} %",
+        "series_resistor_drop": _drop_note(law, current_uncertainty_pct),
         "sensor_to_die": "constant temperature offset: mostly removed by calibration",
         "breakdown_calibration": "constant voltage offset: removed by calibration",
     }
@@ -420,6 +509,16 @@ def gain_error_budget(law: CompensationLaw, board, calibration_temp_c=None, samp
         std = np.sqrt(sum((s * sig) ** 2 for s, sig, _, _ in parts))
         cal_limit = sum(np.abs(c) * lim for _, _, lim, c in parts)
         cal_std = np.sqrt(sum((c * sig) ** 2 for _, sig, _, c in parts))
+        if key == "series_resistor_drop" and law.drop_correction == "measured":
+            # Half a code of the current ADC and half a DAC LSB for rounding the correction: rectangular,
+            # not removed by calibration (the calibration sees its own rounding), like the other quantisation.
+            per_lsb = 100.0 / law.target_overvoltage_v(grid)
+            for half_v in (0.5 * law.supply.series_resistor_ohm * law.current_sense.lsb_a, 0.5 * law.supply.lsb_v):
+                half = half_v * per_lsb
+                limit = limit + half[:-1]
+                std = np.hypot(std, half[:-1] / _SQRT3)
+                cal_limit = cal_limit + half[:-1] + k_cal * half[-1]
+                cal_std = np.sqrt(cal_std ** 2 + (half[:-1] / _SQRT3) ** 2 + (k_cal * half[-1] / _SQRT3) ** 2)
         signed = sum(s for s, _, _, _ in parts)
         cal_signed = sum(c for _, _, _, c in parts)
         terms.append(_term(key, "random", limit, std, cal_limit, cal_std, temps, signed, cal_signed,

@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from compensator.errors import ModelError, ProfileError
+from compensator.physics.current_sense import CurrentSense
 from compensator.physics.sensors import FrontEnd, NtcSensor, RtdSensor, SteinhartHart, TemperatureChannel
 from compensator.physics.sipm import Breakdown, Sipm
 from compensator.physics.supply import BiasSupply, Dac
@@ -44,6 +45,8 @@ class BoardProfile(_Meta):
     control_rate_hz, min_temp_c, max_temp_c, max_bias_v : float
     safe_dac_code : int
         DAC code applied when the temperature reading is invalid.
+    current_sense : CurrentSense or None
+        The SiPM current channel, when the board has one.
     """
 
     temperature: TemperatureChannel = None
@@ -53,6 +56,7 @@ class BoardProfile(_Meta):
     max_temp_c: float = 0.0
     max_bias_v: float = 0.0
     safe_dac_code: int = 0
+    current_sense: CurrentSense | None = None
 
 
 @dataclass(frozen=True)
@@ -143,11 +147,16 @@ def _build_board(raw: RawProfile) -> BoardProfile:
         safe = int(np.argmin(supply.output_v([0, supply.dac.full_scale_code]))) * supply.dac.full_scale_code
     elif safe > supply.dac.full_scale_code:
         problems.append(raw.problem("limits.safe_dac_code", f"exceeds the DAC's largest code {supply.dac.full_scale_code}"))
+    current_sense = None
+    if "current_sense" in v:
+        cs = v["current_sense"]
+        current_sense = CurrentSense(cs["adc_bits"], cs["reference_v"], cs["sense_gain_v_per_a"],
+                                     cs["reference_tolerance_pct"], cs["gain_tolerance_pct"], cs["offset_a"])
     if problems:
         raise ProfileError(problems)
     return BoardProfile(**_meta(raw), temperature=channel, supply=supply, control_rate_hz=ctl["rate_hz"],
                         min_temp_c=lim["min_temp_c"], max_temp_c=lim["max_temp_c"], max_bias_v=lim["max_bias_v"],
-                        safe_dac_code=int(safe))
+                        safe_dac_code=int(safe), current_sense=current_sense)
 
 
 def _build_thermal(raw: RawProfile) -> ThermalProfile:

@@ -188,6 +188,15 @@ BOARD = KindSchema(
             Key("safe_dac_code", INT, "DAC code applied when the temperature reading is invalid "
                 "(default: the code giving the lowest output)", required=False, default=None, ge=0),
         )),
+        Section("current_sense", "Optional: the SiPM current read by an ADC through a transimpedance or shunt stage "
+                "(needed for the measured series-resistor drop correction).", (
+            Key("adc_bits", INT, "resolution of the current ADC, bits", ge=6, le=24),
+            _f("reference_v", "full-scale reference voltage of the current ADC, volt", gt=0, le=50),
+            _opt("reference_tolerance_pct", "reference voltage tolerance, percent", 0.1, ge=0),
+            _f("sense_gain_v_per_a", "volts at the ADC input per ampere of SiPM current, volt per ampere", gt=0),
+            _opt("gain_tolerance_pct", "tolerance of the sense gain (resistor and amplifier), percent", 0.5, ge=0),
+            _opt("offset_a", "largest input offset referred to the SiPM current (either sign), ampere", 0.0, ge=0),
+        ), required=False),
     ),
 )
 

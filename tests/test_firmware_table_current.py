@@ -1,0 +1,238 @@
+"""The measured series-resistor drop correction in the firmware path: integer arithmetic, C, faults, clamps."""
+
+import shutil
+import subprocess
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from compensator.errors import ModelError
+from compensator.firmware.table_c import c_current_function_signature, render_table_c
+from compensator.firmware.tables import (
+    STATUS_OK,
+    STATUS_SENSOR_FAULT,
+    build_current_correction,
+    build_table,
+)
+from compensator.law import build_law
+from compensator.physics.sipm import breakdown_v
+from compensator.profiles import load_board
+
+CC = shutil.which("cc")
+needs_cc = pytest.mark.skipif(CC is None, reason="no C compiler (cc) on PATH")
+STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror"]
+PEDANTIC = STRICT + ["-pedantic", "-Wconversion", "-Wsign-conversion", "-Wshadow"]
+
+#: A current channel for the direct-supply demo board (invented values): 14-bit ADC, 2.5 V, 10 kohm transimpedance.
+DIRECT_SENSE = """
+current_sense:
+  adc_bits: 14
+  reference_v: 2.5
+  reference_tolerance_pct: 0.1
+  sense_gain_v_per_a: 10000.0
+  gain_tolerance_pct: 0.2
+  offset_a: 5.0e-9
+"""
+
+
+@pytest.fixture(scope="module")
+def board_direct(tmp_path_factory, profiles_dir):
+    """The Pt1000 board (direct supply) with a current channel added."""
+    path = tmp_path_factory.mktemp("boards") / "hut-board-pt1000-isense.yaml"
+    path.write_text((profiles_dir / "hut-board-pt1000.yaml").read_text() + DIRECT_SENSE)
+    return load_board(path)
+
+
+def measured_table(sipm, board, ov, layout="optimised", bound=0.05):
+    law = build_law(sipm, board, ov, "constant_gain", drop_correction="measured")
+    return law, build_table(law, board, bound, layout)
+
+
+def test_feedback_injection_correction_by_hand(sipm_a, board_ntc):
+    # Supply formula (compensator.physics.supply): Vout = Vfb (1 + R1/R2 + R1/R3) - Vdac R1/R3, so one DAC code is
+    # -(2.5 V / 2^16) (1 MOhm / 250 kOhm) = -152.587890625 uV. One current code is 3.3 V / 2^12 / 20 kOhm
+    # = 40.283203125 nA, i.e. 10 kOhm x 40.283203125 nA = 402.83203125 uV of drop: -2.64 DAC codes exactly.
+    _, table = measured_table(sipm_a, board_ntc, 3.0)
+    cur = table.current
+    assert cur.dac_codes_per_current_code == pytest.approx(-2.64, rel=1e-12)
+    assert (cur.shift, cur.factor) == (17, -346030)  # 2^17 >= 32 x 4095; round(-2.64 x 131072) = round(-346030.08)
+    # floor((K c + 2^16) / 2^17): c = 1 -> floor(-2.14) = -3; 100 -> -264; 1000 -> -2640; 4095 -> round(-10810.8).
+    assert cur.delta([0, 1, 100, 1000, 4095]).tolist() == [0, -3, -264, -2640, -10811]
+    assert cur.current_code_max == 4095 and cur.limit_reason == "current ADC full scale"
+    assert cur.delta(65535) == cur.delta(4095)  # codes beyond the ADC are limited
+    # More current -> lower DAC code -> higher output on this topology: the drop is added, not subtracted.
+    s = board_ntc.supply
+    n = np.full(3, (table.code_lo + table.code_hi) // 2)
+    dac, status = table.lookup_with_current(n, [0, 100, 1000])
+    assert np.all(status == STATUS_OK)
+    assert np.diff(dac).tolist() == [-264, -2376]
+    assert s.output_v(dac[1]) - s.output_v(dac[0]) == pytest.approx(100 * 10e3 * 3.3 / 4096 / 20e3, abs=0.5 * s.lsb_v)
+
+
+def test_direct_correction_by_hand(sipm_b, board_direct):
+    # Vout = offset + 14 Vdac: one DAC code is 14 x 2.5 V / 2^16 = 534.0576171875 uV; one current code is
+    # 2.5 V / 2^14 / 10 kOhm = 15.2587890625 nA, 4.7 kOhm x that = 71.71630859375 uV: 4700 x 4 / 140000 codes.
+    _, table = measured_table(sipm_b, board_direct, 4.0)
+    cur = table.current
+    assert cur.dac_codes_per_current_code == pytest.approx(4700 * 4 / 140000, rel=1e-12)
+    # max_current_a 100 uA is code round(100e-6 / 15.2587890625e-9) = round(6553.6) = 6554.
+    assert cur.current_code_max == 6554 and cur.limit_reason == "sipm max_current_a"
+    assert cur.shift == 18  # 2^18 >= 32 x 6554
+    assert cur.factor == round(4700 * 4 / 140000 * 2**18) == 35202
+    # Positive factor: floor(0.13428571 c + 1/2): c = 3 -> 0; 4 -> 1; 1000 -> 134; 6554 -> round(880.11) = 880.
+    assert cur.delta([0, 3, 4, 1000, 6554, 6555, 16383]).tolist() == [0, 0, 1, 134, 880, 880, 880]
+    n = (table.code_lo + table.code_hi) // 2
+    dac, _ = table.lookup_with_current([n, n], [0, 1000])
+    assert dac[1] - dac[0] == 134
+
+
+@pytest.mark.parametrize("case", ["ntc", "direct"])
+def test_correction_rounds_to_nearest_over_every_current_code(case, request, sipm_a, sipm_b):
+    board = request.getfixturevalue("board_ntc" if case == "ntc" else "board_direct")
+    _, table = measured_table(sipm_a if case == "ntc" else sipm_b, board, 3.0 if case == "ntc" else 4.0)
+    cur = table.current
+    c = np.arange(cur.current_code_max + 1)
+    exact = cur.dac_codes_per_current_code * c
+    # Rounding half up plus at most 1/64 LSB from the rounded factor (CURRENT_FACTOR_SLACK_BITS).
+    assert np.max(np.abs(cur.delta(c) - exact)) <= 0.5 + 1 / 64
+
+
+def test_fault_gives_the_safe_code_never_a_corrected_one(sipm_a, board_ntc):
+    _, table = measured_table(sipm_a, board_ntc, 3.0)
+    n = np.array([0, 1, table.fault_lo - 1, table.fault_hi + 1, 4095])
+    for current in (0, 1, 2000, 4095, 65535):
+        dac, status = table.lookup_with_current(n, current)
+        assert np.all(status == STATUS_SENSOR_FAULT)
+        assert np.all(dac == table.safe_dac_code)
+
+
+def test_without_current_the_plain_path_is_unchanged(sipm_a, board_ntc):
+    _, table = measured_table(sipm_a, board_ntc, 3.0)
+    plain = build_table(build_law(sipm_a, board_ntc, 3.0, "constant_gain", drop_correction="none"), board_ntc, 0.05)
+    codes = np.arange(4096)
+    assert np.array_equal(table.lookup(codes)[0], plain.lookup(codes)[0])
+    assert np.array_equal(table.lookup_with_current(codes, 0)[0], plain.lookup(codes)[0])
+    assert plain.current is None
+    with pytest.raises(ModelError, match="no measured drop correction"):
+        plain.lookup_with_current(codes, 0)
+    with pytest.raises(ModelError, match="current_code"):
+        table.lookup_with_current([2000], [65536])
+    assert "_with_current" not in render_table_c(plain, [])["bias_dac_from_adc.c"]
+
+
+def test_headroom_limits_the_current_code(sipm_a, board_ntc):
+    # At 6 V overvoltage (max 7 V) a false full-scale reading must not push the SiPM past 7 V.
+    _, table = measured_table(sipm_a, board_ntc, 6.0, bound=0.1)
+    cur = table.current
+    assert cur.limit_reason == "sipm max_overvoltage_v headroom" and 0 < cur.current_code_max < 4095
+    codes = np.arange(table.code_lo, table.code_hi + 1)
+    dac, _ = table.lookup_with_current(codes, 4095)
+    temps = board_ntc.temperature.temp_at(codes + 0.5)
+    ov = board_ntc.supply.output_v(dac) - breakdown_v(sipm_a.device, temps)  # no current flowing: no drop
+    assert ov.max() <= sipm_a.device.max_overvoltage_v + board_ntc.supply.lsb_v
+
+
+def test_no_headroom_is_an_error(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 7.0, "constant_gain", drop_correction="measured")
+    with pytest.raises(ModelError, match="no headroom"):
+        build_current_correction(law)
+
+
+def harness(name, table, temp_codes, current_codes):
+    """A C program that prints the corrected DAC code (uint32) for every pair of the two code lists."""
+    cur = table.current
+    tt, it = f"uint{table.code_type_bits}_t", f"uint{cur.current_type_bits}_t"
+    temps = ", ".join(str(int(v)) for v in temp_codes)
+    currents = ", ".join(str(int(v)) for v in current_codes)
+    return f"""
+#include <stdio.h>
+#include "{name}.h"
+static const {tt} temps[] = {{{temps}}};
+static const {it} currents[] = {{{currents}}};
+int main(void)
+{{
+    unsigned long i, j;
+    for (i = 0; i < sizeof temps / sizeof temps[0]; i++) {{
+        for (j = 0; j < sizeof currents / sizeof currents[0]; j++) {{
+            uint32_t v = (uint32_t){name}_with_current(temps[i], currents[j]);
+            fwrite(&v, sizeof v, 1, stdout);
+        }}
+    }}
+    return 0;
+}}
+"""
+
+
+def run_c(tmp_path, table, files, temp_codes, current_codes, name="bias_dac_from_adc"):
+    for fname, text in files.items():
+        (tmp_path / fname).write_text(text)
+    (tmp_path / "harness.c").write_text(harness(name, table, temp_codes, current_codes))
+    exe = tmp_path / "harness"
+    proc = subprocess.run([CC, *PEDANTIC, "-O2", "-o", str(exe), str(tmp_path / "harness.c"),
+                           str(tmp_path / f"{name}.c")], capture_output=True, text=True, check=False)
+    assert proc.returncode == 0, proc.stderr
+    out = subprocess.run([str(exe)], capture_output=True, check=True).stdout
+    return np.frombuffer(out, dtype="<u4").astype(np.int64).reshape(len(temp_codes), len(current_codes))
+
+
+def code_sets(table, temp_points=600):
+    """A dense set of temperature codes (faults, the bands just outside, ends) and every current code and beyond."""
+    full = (1 << table.adc_bits) - 1
+    special = [0, 1, table.fault_lo - 1, table.fault_lo, table.code_lo - 1, table.code_lo, table.code_lo + 1,
+               table.code_hi - 1, table.code_hi, table.code_hi + 1, table.fault_hi, table.fault_hi + 1, full]
+    dense = np.linspace(0, full, temp_points).round().astype(np.int64)
+    temps = np.unique(np.clip(np.concatenate([special, dense]), 0, full))
+    cur_full = (1 << table.current.current_bits) - 1
+    currents = np.concatenate([np.arange(cur_full + 1), [cur_full + 1, (1 << table.current.current_type_bits) - 1]])
+    return temps, currents
+
+
+def check_bit_exact(tmp_path, table, profiles, temp_points=600):
+    files = render_table_c(table, profiles, settings={"drop_correction": "measured"})
+    assert files == render_table_c(table, profiles, settings={"drop_correction": "measured"})  # deterministic
+    assert c_current_function_signature(table, "bias_dac_from_adc") + ";" in files["bias_dac_from_adc.h"]
+    temps, currents = code_sets(table, temp_points)
+    got = run_c(tmp_path, table, files, temps, currents)
+    ref, status = table.lookup_with_current(temps[:, None], currents[None, :])
+    assert np.array_equal(got, ref)
+    return temps, currents, ref, status
+
+
+@needs_cc
+@pytest.mark.parametrize("layout", ["uniform", "optimised"])
+def test_c_is_bit_exact_feedback_injection(layout, sipm_a, board_ntc, tmp_path):
+    _, table = measured_table(sipm_a, board_ntc, 3.0, layout)
+    _, _, ref, status = check_bit_exact(tmp_path, table, [sipm_a, board_ntc])
+    fault = status[:, 0] == STATUS_SENSOR_FAULT
+    assert fault.sum() >= 5 and np.all(ref[fault] == table.safe_dac_code)
+    assert np.all(np.diff(ref[~fault], axis=1) <= 0)  # negative volts per code: more current, lower code
+
+
+@needs_cc
+@pytest.mark.parametrize("layout", ["uniform", "optimised"])
+def test_c_is_bit_exact_direct(layout, sipm_b, board_direct, tmp_path):
+    _, table = measured_table(sipm_b, board_direct, 4.0, layout)
+    assert table.current.current_bits == 14
+    _, _, ref, status = check_bit_exact(tmp_path, table, [sipm_b, board_direct], temp_points=200)
+    inside = status[:, 0] != STATUS_SENSOR_FAULT
+    assert np.all(np.diff(ref[inside], axis=1) >= 0)
+
+
+@needs_cc
+def test_c_clamps_and_wide_accumulator(sipm_a, board_ntc, tmp_path):
+    # A synthetic correction so large that it hits both DAC limits, with products that need 64 bits.
+    _, table = measured_table(sipm_a, board_ntc, 3.0)
+    cur = table.current
+    big = replace(cur, factor=-40 * (1 << 27), shift=27, acc_type_bits=64)
+    table = replace(table, current=big)
+    files = render_table_c(table, [sipm_a, board_ntc])
+    assert "typedef int64_t bias_dac_from_adc_corr_t" in files["bias_dac_from_adc.c"]
+    _, _, ref, status = check_bit_exact(tmp_path, table, [sipm_a, board_ntc], temp_points=150)
+    ok = status[:, 0] != STATUS_SENSOR_FAULT
+    assert np.any(ref[ok] == table.dac_min) and np.all(ref[ok] >= table.dac_min)
+    # And the other way (positive factor): the upper clamp.
+    table = replace(table, current=replace(big, factor=40 * (1 << 27)))
+    _, _, ref, status = check_bit_exact(tmp_path / ".." / tmp_path.name, table, [sipm_a, board_ntc], temp_points=150)
+    ok = status[:, 0] != STATUS_SENSOR_FAULT
+    assert np.any(ref[ok] == table.dac_max) and np.all(ref[ok] <= table.dac_max)
