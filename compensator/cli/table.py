@@ -115,7 +115,8 @@ def run(args) -> int:
         print(f"measured drop correction: {c_current_function_signature(table, name)} adds "
               f"{cur.dac_codes_per_current_code:.6g} DAC codes per current code ({1e9 * cur.lsb_a:.4g} nA), "
               f"as {cur.factor} / 2^{cur.shift}; current codes above {cur.current_code_max} ({cur.limit_reason}) "
-              f"are limited, so it adds at most {cur.max_correction_v:.3f} V")
+              f"are limited, so it adds at most {cur.max_correction_v:.3f} V: a wrong current reading cannot take "
+              f"the SiPM past its max_overvoltage_v")
     for p in paths:
         print(f"wrote {p}")
     return 0

@@ -142,7 +142,9 @@ def render_table_c(table: LookupTable, profiles, name: str = DEFAULT_FUNCTION_NA
             f" *   / 2^{up}_CURRENT_SHIFT DAC codes (rounded half up; about {cur.dac_codes_per_current_code:.6g} per\n"
             f" *   current code), with current_code limited to {up}_CURRENT_CODE_MAX ({cur.limit_reason}),\n"
             f" *   then clamps to {up}_DAC_MIN..{up}_DAC_MAX. A sensor fault still gives\n"
-            f" *   {up}_SAFE_DAC_CODE, never a corrected code.\n")
+            f" *   {up}_SAFE_DAC_CODE, never a corrected code. A wrong current reading (open or\n"
+            f" *   saturated sense stage) raises the output by at most {cur.max_correction_v:.3f} V, which keeps\n"
+            " *   the SiPM within its max_overvoltage_v at the temperature read, even with no current flowing.\n")
     h.append(" */\n\n")
     defines = [
         ("STATUS_OK", STATUS_OK, "reading inside the operating range"),

@@ -26,6 +26,10 @@ reachable output range, the board's ``max_bias_v`` and ``Vbd(T) +
 max_overvoltage_v``. The last limit is applied to the supply output itself, not
 to the SiPM bias after the drop: with no current the two are equal, so the
 SiPM never sees more than its maximum overvoltage whatever the light level.
+The measured correction adds ``R I_measured`` on top of the zero-current law;
+the firmware limits it so that even a wrong current reading, with no current
+flowing, keeps the SiPM within that maximum
+(:func:`compensator.firmware.tables.build_current_correction`).
 """
 
 from __future__ import annotations
@@ -248,8 +252,6 @@ def build_law(sipm_profile, board_profile, overvoltage_v, kind="constant_overvol
         raise ModelError(f"photon_rate_hz must be a non-negative number, got {photon_rate_hz!r}")
     if drop_correction is None:
         drop_correction = "modelled" if correct_drop else "none"
-    if drop_correction not in DROP_CORRECTIONS:
-        raise ModelError(f"drop_correction must be one of {', '.join(DROP_CORRECTIONS)}, got {drop_correction!r}")
     current_sense = getattr(board_profile, "current_sense", None)
     if drop_correction == "measured" and current_sense is None:
         raise ProfileError(Problem(str(board_profile.source), 0, "current_sense",
