@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 
 from compensator.cli._common import add_json_flag, format_table, print_json
-from compensator.errors import ModelError
+from compensator.errors import InputError, ModelError, Problem
 from compensator.law import LAW_KINDS, build_law, check_law_in_range
 from compensator.law.budget import (
     DEFAULT_CURRENT_UNCERTAINTY_PCT,
@@ -66,8 +66,8 @@ def register(subparsers) -> None:
     parser.add_argument("--calibration-temp-c", type=float, default=None, metavar="T",
                         help="temperature of the one-point gain calibration, degree Celsius "
                              "(default: the breakdown reference temperature)")
-    parser.add_argument("--current-uncertainty-pct", type=float, default=DEFAULT_CURRENT_UNCERTAINTY_PCT,
-                        metavar="P", help="accuracy of the modelled current for the drop correction, percent "
+    parser.add_argument("--current-uncertainty-pct", type=float, default=None,
+                        metavar="P", help="accuracy of the modelled current for --drop-correction modelled, percent "
                                           f"(default {DEFAULT_CURRENT_UNCERTAINTY_PCT:g})")
     parser.add_argument("--samples", type=int, default=DEFAULT_SAMPLES, metavar="N",
                         help=f"Monte Carlo samples (default {DEFAULT_SAMPLES}; 0 skips it)")
@@ -101,12 +101,17 @@ def _as_dict(budget, sipm, board, law) -> dict:
 
 def run(args) -> int:
     sipm, board, law = law_from_args(args)
+    if args.current_uncertainty_pct is not None and law.drop_correction != "modelled":
+        raise InputError(Problem("<command line>", 0, "--current-uncertainty-pct",
+                                 f"applies only to --drop-correction modelled, not {law.drop_correction}"))
+    current_uncertainty_pct = (DEFAULT_CURRENT_UNCERTAINTY_PCT if args.current_uncertainty_pct is None
+                               else args.current_uncertainty_pct)
     try:
         check_law_in_range(law)
     except ModelError as exc:  # the budget still shows it, as the systematic 'law residual'
         print(f"warning: {exc}", file=sys.stderr)
     budget = gain_error_budget(law, board, args.calibration_temp_c, args.samples, args.seed,
-                               args.current_uncertainty_pct)
+                               current_uncertainty_pct)
     if args.json:
         print_json(_as_dict(budget, sipm, board, law))
         return 0

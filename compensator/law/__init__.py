@@ -1,7 +1,8 @@
 """Compensation laws and the gain-error budget they leave (pure numerics, no I/O)."""
 
-from compensator.law.budget import BudgetTerm, GainBudget, MonteCarloSummary, gain_error_budget
+from compensator.law.budget import BudgetTerm, GainBudget, MonteCarloSummary, gain_error_at_light_pct, gain_error_budget
 from compensator.law.laws import (
+    DROP_CORRECTIONS,
     LAW_KINDS,
     CompensationLaw,
     build_law,
@@ -11,6 +12,7 @@ from compensator.law.laws import (
 )
 
 __all__ = [
-    "BudgetTerm", "GainBudget", "MonteCarloSummary", "gain_error_budget", "LAW_KINDS", "CompensationLaw", "build_law", "check_law_in_range", "constant_gain_law",
+    "BudgetTerm", "GainBudget", "MonteCarloSummary", "gain_error_at_light_pct", "gain_error_budget",
+    "DROP_CORRECTIONS", "LAW_KINDS", "CompensationLaw", "build_law", "check_law_in_range", "constant_gain_law",
     "constant_overvoltage_law",
 ]
