@@ -122,6 +122,11 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
         assert inst["table"]["max_gain_error_pct"] <= inst["table"]["bound_pct"]
         assert inst["budget"]["calibrated_rss_pct"] < inst["budget"]["rss_pct"]
         assert len(inst["table"]["files"]) == 3
+    # Under light, the drop corrected from the measured current holds the gain; from the dark model it does not.
+    light = data["instruments"][0]["light"]
+    assert [r["photon_rate_hz"] for r in light] == [0, 1e6, 1e7, 1e8]
+    assert light[-1]["modelled_max_gain_error_pct"] > 1 and light[-1]["measured_max_gain_error_pct"] < 0.1
+    assert data["instruments"][1]["light"] is None  # that board has no current sense
     loops = {lp["loop"]: lp for lp in data["loops"]}
     assert set(loops) == {"cooler", "bias supply"}
     for lp in loops.values():

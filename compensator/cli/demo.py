@@ -174,6 +174,24 @@ def loop_summaries(cooler_profile, board_profile) -> list[dict]:
     return out
 
 
+DEMO_LIGHT_HZ = (0.0, 1e6, 1e7, 1e8)
+
+
+def light_summary(sipm_profile, board_profile, overvoltage_v, temps_c) -> list[dict] | None:
+    """Largest gain error over temperature at several light levels, drop corrected from the modelled
+    (dark) current against the measured current; ``None`` when the board has no current sense."""
+    from compensator.law import build_law, gain_error_at_light_pct
+
+    if board_profile.current_sense is None:
+        return None
+    laws = {mode: build_law(sipm_profile, board_profile, overvoltage_v, kind="constant_gain", drop_correction=mode)
+            for mode in ("modelled", "measured")}
+    return [{"photon_rate_hz": rate,
+             **{f"{mode}_max_gain_error_pct": float(np.max(np.abs(
+                 gain_error_at_light_pct(law, board_profile, rate, temps_c)))) for mode, law in laws.items()}}
+            for rate in DEMO_LIGHT_HZ]
+
+
 def _require(root: Path, name: str) -> Path:
     path = root / name
     if not path.is_file():
@@ -242,6 +260,13 @@ def run(args) -> int:
             f"{tables['max_gain_error_pct']:.4f} %")
         for f in tables["files"]:
             say(f"wrote {f}")
+        light = light_summary(sipm_profile, board_profile, ov, temps_c)
+        report["instruments"][-1]["light"] = light
+        if light:
+            say("under light, largest gain error over the range through the integer path, drop corrected from the "
+                "modelled dark current vs from the measured current:")
+            say(format_table([(r["photon_rate_hz"], r["modelled_max_gain_error_pct"], r["measured_max_gain_error_pct"])
+                              for r in light], ["photon_rate_hz", "modelled_%", "measured_%"], [".0e", ".3f", ".3f"]))
     cooler = load_thermal(_require(root, DEMO_COOLER))
     report["loops"] = loop_summaries(cooler, loaded[0][1])
     say("\n== 4. loops tuned for Ms <= 1.4 (robust PI) and verified with python-control at the firmware rate, "
