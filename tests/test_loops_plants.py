@@ -135,3 +135,18 @@ def test_half_rule_and_model_validation():
         plants.fopdt_plant(1.0, 0.0, 1.0)
     with pytest.raises(ModelError, match="gain"):
         plants.fopdt_plant(0.0, 1.0, 1.0)
+
+
+def test_bias_plant_takes_the_regulator_lag_from_the_profile(tmp_path, profiles_dir):
+    from compensator.profiles import load_board
+
+    text = (profiles_dir / "hut-board-ntc.yaml").read_text()
+    slow = tmp_path / "slow.yaml"
+    slow.write_text(text.replace("  filter_capacitance_f: 100e-9", "  filter_capacitance_f: 100e-9\n"
+                                 "  regulator_time_constant_s: 0.002"))
+    board = load_board(slow)
+    assert board.supply.regulator_time_constant_s == 0.002
+    assert plants.bias_supply_plant(board.supply).operating_point.regulator_time_constant_s == 0.002
+    assert plants.bias_supply_plant(board.supply, 1e-5).operating_point.regulator_time_constant_s == 1e-5
+    default = load_board(profiles_dir / "hut-board-ntc.yaml")
+    assert plants.bias_supply_plant(default.supply).operating_point.regulator_time_constant_s == 1e-4

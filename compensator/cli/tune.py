@@ -58,7 +58,8 @@ def register(subparsers) -> None:
                     help="re-verify the gains with the cooler linearised at ambients across this range (field "
                          "enclosures: -25 45); with --method robust the Ms bound must hold at every one")
     p.add_argument("--regulator-tau-s", type=float,
-                   help="bias regulator time constant, s (board profiles; default 1e-4, common practice)")
+                   help="bias regulator time constant, s (board profiles; default: the profile's "
+                        "supply.regulator_time_constant_s)")
     em = p.add_argument_group("C emission (--emit-c)")
     em.add_argument("--emit-c", metavar="DIR", help="write the fixed-point PID as C99 header and source into DIR")
     em.add_argument("--name", help="C symbol prefix and file stem (default: cooler_pid, bias_pid or loop_pid)")
@@ -146,8 +147,7 @@ def _load_plant(args):
         return plant, profile, "thermal", None, emit, cooler_operating_warnings(c, point), _caution_thermal(c, point)
     if isinstance(profile, BoardProfile):
         sup = profile.supply
-        tau = plants.DEFAULT_REGULATOR_TIME_CONSTANT_S if args.regulator_tau_s is None else args.regulator_tau_s
-        plant = plants.bias_supply_plant(sup, tau)
+        plant = plants.bias_supply_plant(sup, args.regulator_tau_s)  # None: the profile's own
         emit = dict(name="bias_pid", input_per_count=sup.lsb_v, output_per_count=1.0, out_min=0.0,
                     out_max=float(sup.dac.full_scale_code), rate_hz=profile.control_rate_hz)
         return plant, profile, "board", None, emit, [], CAUTION_BIAS

@@ -757,9 +757,6 @@ def linearise_cooler(params, point: CoolerOperatingPoint) -> Plant:
 
 
 # ---------------------------------------------------------------- the bias supply
-#: Closed-loop time constant assumed for a switching bias regulator when the
-#: profile gives none (common practice: such regulators settle in about 0.1 ms).
-DEFAULT_REGULATOR_TIME_CONSTANT_S = 1e-4
 
 
 @dataclass(frozen=True)
@@ -784,7 +781,7 @@ class SupplyOperatingPoint:
     load_resistance_ohm: float
 
 
-def bias_supply_plant(supply, regulator_time_constant_s: float = DEFAULT_REGULATOR_TIME_CONSTANT_S,
+def bias_supply_plant(supply, regulator_time_constant_s: float | None = None,
                       load_resistance_ohm: float = float("inf")) -> Plant:
     """Small-signal model from DAC code to the bias at the SiPM, volt per code.
 
@@ -795,8 +792,9 @@ def bias_supply_plant(supply, regulator_time_constant_s: float = DEFAULT_REGULAT
     Parameters
     ----------
     supply : compensator.physics.supply.BiasSupply
-    regulator_time_constant_s : float
-        The regulator's closed-loop lag, second (default 0.1 ms, common practice).
+    regulator_time_constant_s : float, optional
+        The regulator's closed-loop lag, second (default: the supply's
+        ``regulator_time_constant_s``, from the board profile).
     load_resistance_ohm : float
         Small-signal resistance of the SiPM, ohm (``dV/dI``; inf neglects the
         load, right when the dark current is microamperes).
@@ -805,6 +803,8 @@ def bias_supply_plant(supply, regulator_time_constant_s: float = DEFAULT_REGULAT
     -------
     Plant
     """
+    if regulator_time_constant_s is None:
+        regulator_time_constant_s = supply.regulator_time_constant_s
     if regulator_time_constant_s < 0:
         raise ModelError("regulator_time_constant_s must be >= 0")
     if not load_resistance_ohm > 0:

@@ -22,6 +22,10 @@ from compensator.errors import ModelError
 
 ROUNDING_MODES = ("nearest", "floor", "ceil")
 
+#: Closed-loop time constant assumed for a switching bias regulator when the
+#: profile gives none (common practice: such regulators settle in about 0.1 ms).
+DEFAULT_REGULATOR_TIME_CONSTANT_S = 1e-4
+
 
 @dataclass(frozen=True)
 class Dac:
@@ -66,6 +70,8 @@ class BiasSupply:
         Capacitor at the SiPM side of the resistor, farad.
     resistor_tolerance_pct : float
         Tolerance of the network resistors (or amplifier gain), percent.
+    regulator_time_constant_s : float
+        First-order closed-loop lag of the regulator, second.
     """
 
     dac: Dac
@@ -81,6 +87,7 @@ class BiasSupply:
     series_resistor_ohm: float = 0.0
     filter_capacitance_f: float = 0.0
     resistor_tolerance_pct: float = 0.1
+    regulator_time_constant_s: float = DEFAULT_REGULATOR_TIME_CONSTANT_S
 
     def __post_init__(self):
         if self.topology not in ("feedback_injection", "direct"):

@@ -122,6 +122,7 @@ def _build_board(raw: RawProfile) -> BoardProfile:
             r3_ohm=sup.get("r3_ohm", 1.0), gain_v_per_v=sup.get("gain_v_per_v", 1.0),
             offset_v=sup.get("offset_v", 0.0), min_output_v=sup["min_output_v"], max_output_v=sup["max_output_v"],
             series_resistor_ohm=sup["series_resistor_ohm"], filter_capacitance_f=sup["filter_capacitance_f"],
+            regulator_time_constant_s=sup["regulator_time_constant_s"],
             resistor_tolerance_pct=sup["resistor_tolerance_pct"],
         )
     except ModelError as exc:

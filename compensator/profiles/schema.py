@@ -177,6 +177,8 @@ BOARD = KindSchema(
             _f("max_output_v", "highest output the regulator can deliver, volt", gt=0, le=200),
             _f("series_resistor_ohm", "series filter resistor between supply and SiPM, ohm", ge=0),
             _opt("filter_capacitance_f", "filter capacitor at the SiPM side of the series resistor, farad", 100e-9, ge=0),
+            _opt("regulator_time_constant_s", "closed-loop time constant of the regulator's output, second", 1e-4,
+                 ge=0, le=10),
         ), switch="topology"),
         Section("control", "Firmware timing.", (
             _f("rate_hz", "bias update (control loop) rate, hertz", gt=0, le=1e6),
