@@ -82,6 +82,17 @@ def test_ratiometric_reference_cancels(budget_a_mc, budget_b_mc):
     assert budget_b_mc[1].term("adc_reference").limit_pct > 0.1
 
 
+def test_excitation_counts_only_without_a_ratiometric_adc(budget_a_mc, budget_b_mc, board_pt1000):
+    # The absolute-reference ADC reads V_exc * fraction / V_ref: to first order a relative excitation error
+    # weighs exactly like a relative reference error (same tolerance here, 0.1 %), with the opposite sign.
+    fe = board_pt1000.temperature.front_end
+    assert not fe.ratiometric and fe.excitation_tolerance_pct == fe.adc_reference_tolerance_pct
+    budget_b, budget_a = budget_b_mc[1], budget_a_mc[1]
+    assert budget_b.term("excitation").limit_pct == pytest.approx(budget_b.term("adc_reference").limit_pct, rel=0.02)
+    with pytest.raises(KeyError):
+        budget_a.term("excitation")  # ratiometric: the excitation cancels
+
+
 def test_uncorrected_drop_is_systematic(budget_a_mc, sipm_a, board_ntc):
     law, budget = budget_a_mc
     term = budget.term("series_resistor_drop")

@@ -101,6 +101,7 @@ TERM_NAMES = {
     "sensor_to_die": "sensor-to-die offset",
     "adc_quantisation": "ADC quantisation",
     "adc_reference": "ADC reference",
+    "excitation": "divider excitation",
     "divider_resistor": "divider reference resistor",
     "dac_quantisation": "DAC quantisation",
     "dac_reference": "DAC reference",
@@ -248,6 +249,8 @@ def _sources(law: CompensationLaw, board, current_uncertainty_pct: float) -> lis
     out += [_Source("self_heating_k", "self_heating", "uniform", sensor.self_heating_k),
             _Source("sensor_to_die_k", "sensor_to_die", "uniform", sensor.sensor_to_die_k),
             _Source("adc_reference", "adc_reference", "uniform", 1e-2 * fe.adc_reference_tolerance_pct),
+            *([] if fe.ratiometric else
+              [_Source("excitation", "excitation", "uniform", 1e-2 * fe.excitation_tolerance_pct)]),
             _Source("reference_resistor", "divider_resistor", "uniform", 1e-2 * fe.reference_resistor_tolerance_pct),
             _Source("dac_reference", "dac_reference", "uniform", 1e-2 * supply.dac.reference_tolerance_pct)]
     tol = 1e-2 * supply.resistor_tolerance_pct
@@ -306,7 +309,8 @@ def _chain_gain_error_pct(law: CompensationLaw, board, dev: dict, temp_c, quanti
         r = r * (1.0 + g("ntc_r25")) * np.exp(g("ntc_beta") * beta * (1.0 / (t_s + ZERO_C_IN_K) - 1.0 / T25_K))
     r_ref = fe.reference_resistor_ohm * (1.0 + g("reference_resistor"))
     frac = r / (r + r_ref) if fe.sensor_position == "low" else r_ref / (r + r_ref)
-    span = 1.0 if fe.ratiometric else fe.span_fraction * (1.0 + g("adc_reference"))
+    # The ADC reads (excitation x divider fraction) against its reference: both errors count unless ratiometric.
+    span = 1.0 if fe.ratiometric else fe.span_fraction * (1.0 + g("adc_reference")) / (1.0 + g("excitation"))
     x = frac / span * (1 << fe.adc_bits)
     if quantise:
         code = np.clip(np.floor(x), 0, fe.full_scale_code)

@@ -307,7 +307,8 @@ class FrontEnd:
     adc_bits : int
     adc_reference_v : float
         Used only when not ratiometric.
-    reference_resistor_tolerance_pct, adc_reference_tolerance_pct : float
+    reference_resistor_tolerance_pct, adc_reference_tolerance_pct, excitation_tolerance_pct : float
+        Tolerances, percent (the last two cancel in a ratiometric front end).
     """
 
     sensor_position: str
@@ -318,6 +319,7 @@ class FrontEnd:
     adc_reference_v: float
     reference_resistor_tolerance_pct: float = 0.1
     adc_reference_tolerance_pct: float = 0.1
+    excitation_tolerance_pct: float = 0.1
 
     @property
     def full_scale_code(self) -> int:

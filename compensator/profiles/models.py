@@ -109,7 +109,7 @@ def _build_board(raw: RawProfile) -> BoardProfile:
                            ts["self_heating_k"], ts["sensor_to_die_k"])
     front_end = FrontEnd(fe["sensor_position"], fe["reference_resistor_ohm"], fe["excitation_v"], fe["ratiometric"],
                          adc["bits"], adc["reference_v"], fe["reference_resistor_tolerance_pct"],
-                         adc["reference_tolerance_pct"])
+                         adc["reference_tolerance_pct"], fe["excitation_tolerance_pct"])
     channel = TemperatureChannel(sensor, front_end)
     if lim["min_temp_c"] >= lim["max_temp_c"]:
         problems.append(raw.problem("limits.min_temp_c", "must be below limits.max_temp_c"))

@@ -152,6 +152,8 @@ BOARD = KindSchema(
             _f("reference_resistor_ohm", "fixed divider resistor, ohm", gt=0),
             _opt("reference_resistor_tolerance_pct", "tolerance of the fixed resistor, percent", 0.1, ge=0),
             _f("excitation_v", "divider excitation voltage, volt", gt=0, le=50),
+            _opt("excitation_tolerance_pct", "tolerance of the excitation voltage, percent (matters only when the "
+                 "ADC is not ratiometric)", 0.1, ge=0),
             Key("ratiometric", BOOL, "true when the ADC reference is the excitation itself (reference errors cancel)"),
         )),
         Section("adc", "The ADC that reads the temperature divider.", (
