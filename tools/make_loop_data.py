@@ -199,17 +199,21 @@ def make_fopdt_step(path=None, gain=-2.5, time_constant_s=40.0, dead_time_s=3.0,
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description="write the demo loop experiments (invented data)")
-    parser.add_argument("directory", help="existing output directory")
+    parser.add_argument("directory", help="output directory (created when missing)")
     parser.add_argument("--force", action="store_true", help="replace existing files")
     args = parser.parse_args(argv)
-    out = Path(args.directory)
-    if not out.is_dir():
-        print(f"make_loop_data: {out}: not an existing directory", file=sys.stderr)
+    from compensator.errors import CompensatorError
+    from compensator.fileio import output_dir
+
+    try:
+        out = output_dir(args.directory, "demo loop data")
+        for name, maker in (("hut-cooler-step.csv", make_step), ("hut-cooler-relay.csv", make_relay),
+                            ("fopdt-step.csv", make_fopdt_step)):
+            *_, truth = maker(out / name, overwrite=args.force)
+            print(f"wrote {out / name}: truth {truth}")
+    except CompensatorError as exc:
+        print(f"make_loop_data: {exc}", file=sys.stderr)
         return 2
-    for name, maker in (("hut-cooler-step.csv", make_step), ("hut-cooler-relay.csv", make_relay),
-                        ("fopdt-step.csv", make_fopdt_step)):
-        *_, truth = maker(out / name, overwrite=args.force)
-        print(f"wrote {out / name}: truth {truth}")
     return 0
 
 
