@@ -14,10 +14,17 @@ TOOLS = Path(__file__).resolve().parent.parent / "tools" / "make_loop_data.py"
 
 
 @pytest.fixture(scope="module")
-def demo_csv(tmp_path_factory):
+def loopdata():
+    """tools/make_loop_data.py as a module."""
     spec = importlib.util.spec_from_file_location("make_loop_data", TOOLS)
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
+    return module
+
+
+@pytest.fixture(scope="module")
+def demo_csv(tmp_path_factory, loopdata):
+    module = loopdata
     d = tmp_path_factory.mktemp("loopdata")
     truths = {}
     for name, maker in (("step", module.make_step), ("relay", module.make_relay), ("fopdt", module.make_fopdt_step)):
@@ -184,3 +191,14 @@ def test_tune_robust_over_the_field_ambient_range(cli, profiles_dir):
     assert max(c["ms"] for c in checks) == pytest.approx(1.4, abs=0.01)  # the worst ambient is on the bound
     r = cli("tune", "--plant", profiles_dir / "hut-board-ntc.yaml", "--method", "simc", "--ambient-range", 0, 10)
     assert r.status == 2 and "--ambient-range: applies to a thermal profile only" in r.stderr
+
+
+def test_make_loop_data_creates_its_folder_and_never_overwrites(loopdata, tmp_path, capsys):
+    target = tmp_path / "new" / "loops"
+    assert loopdata.main([str(target)]) == 0
+    assert sorted(p.name for p in target.iterdir()) == ["fopdt-step.csv", "hut-cooler-relay.csv", "hut-cooler-step.csv"]
+    before = (target / "hut-cooler-step.csv").read_bytes()
+    assert loopdata.main([str(target)]) == 2
+    assert "already exists" in capsys.readouterr().err
+    assert loopdata.main([str(target), "--force"]) == 0
+    assert (target / "hut-cooler-step.csv").read_bytes() == before  # seeded: the same bytes again
