@@ -13,6 +13,7 @@ from compensator.calibration.gainscan import (
     SpectraScan,
     fit_gain_scan,
     fit_polynomial,
+    gain_scan_from_fits,
     gain_scan_from_spectra,
 )
 from compensator.calibration.iv import DEFAULT_METHOD, METHODS, IvBreakdown, find_breakdown
@@ -29,6 +30,6 @@ from compensator.calibration.tempco import (
 __all__ = [
     "DEFAULT_METHOD", "METHODS", "ConstantGainSlope", "GainScanFit", "IvBreakdown", "PolyFit", "SpectraScan",
     "SpectrumFit", "TempcoFit", "calibrated_values", "constant_gain_slope", "find_breakdown", "fit_gain_scan",
-    "fit_polynomial", "fit_spectrum", "fit_tempco", "gain_scan_from_spectra", "naive_gain", "simulate_spectrum",
+    "fit_polynomial", "fit_spectrum", "fit_tempco", "gain_scan_from_fits", "gain_scan_from_spectra", "naive_gain", "simulate_spectrum",
     "write_calibrated_profile",
 ]

@@ -255,7 +255,6 @@ def gain_scan_from_spectra(bias_v, spectra, *, temp_c=None, charge_per_unit_c=No
     """
     from compensator.calibration.spectrum import fit_spectrum
 
-    bias_v = np.asarray(bias_v, dtype=float)
     fits, failures = [], []
     for charge, counts in spectra:
         try:
@@ -264,6 +263,39 @@ def gain_scan_from_spectra(bias_v, spectra, *, temp_c=None, charge_per_unit_c=No
         except CompensatorError as exc:
             fits.append(None)
             failures.append(str(exc).splitlines()[0] if str(exc) else type(exc).__name__)
+    return gain_scan_from_fits(bias_v, fits, failures, temp_c=temp_c, charge_per_unit_c=charge_per_unit_c,
+                               charge_unit=charge_unit)
+
+
+def gain_scan_from_fits(bias_v, fits, failures=None, *, temp_c=None, charge_per_unit_c=None,
+                        charge_unit="") -> SpectraScan:
+    """The gain scan from spectra already fitted (e.g. on a process pool).
+
+    Parameters
+    ----------
+    bias_v : array_like
+        Bias of each spectrum, volt.
+    fits : sequence of SpectrumFit or None
+        Each spectrum's fit, None where it failed.
+    failures : sequence of str, optional
+        Why each failed fit failed (``""`` for the good ones).
+    temp_c, charge_per_unit_c, charge_unit
+        As for :func:`gain_scan_from_spectra`.
+
+    Returns
+    -------
+    SpectraScan
+
+    Raises
+    ------
+    ModelError
+        Fewer than 3 spectra were fitted, or ``bias_v`` and ``fits`` differ in length.
+    """
+    bias_v = np.asarray(bias_v, dtype=float)
+    fits = list(fits)
+    if bias_v.shape != (len(fits),):
+        raise ModelError(f"one bias per spectrum: {bias_v.size} biases for {len(fits)} spectra")
+    failures = tuple(failures) if failures is not None else tuple("" if f is not None else "fit failed" for f in fits)
     ok = [i for i, f in enumerate(fits) if f is not None]
     if len(ok) < 3:
         raise ModelError(f"only {len(ok)} of {len(fits)} spectra could be fitted; a gain scan needs 3")
@@ -272,4 +304,4 @@ def gain_scan_from_spectra(bias_v, spectra, *, temp_c=None, charge_per_unit_c=No
     use_err = errs if np.all(np.isfinite(errs)) and np.all(errs > 0) else None
     unit = charge_unit or "charge unit"
     scan = fit_gain_scan(bias_v[ok], gains, use_err, temp_c=temp_c, charge_per_unit_c=charge_per_unit_c, gain_unit=unit)
-    return SpectraScan(scan, tuple(fits), tuple(failures))
+    return SpectraScan(scan, tuple(fits), failures)

@@ -262,32 +262,24 @@ def _spectrum_groups(args):
 
 def _scan_from_spectra(args, label, temp_c, entries, errors):
     from compensator.calibration.batch import Progress, analyse_spectrum_files
-    from compensator.calibration.gainscan import fit_gain_scan
-    from compensator.errors import ModelError
+    from compensator.calibration.gainscan import gain_scan_from_fits
 
     files = [f for f, _ in entries]
     with Progress(len(files), "spectra", enabled=None) as bar:
         records = analyse_spectrum_files(files, jobs=_jobs(args.jobs), progress=bar)
-    for rec in records:
-        if not rec.ok:
-            errors.append(rec.error_line)
+    errors.extend(rec.error_line for rec in records if not rec.ok)
     if args.plot:
         from compensator.calibration.plots import plot_dir
         _plot_spectra(records, plot_dir(args.plot))
-    good = [(rec, b) for rec, (_, b) in zip(records, entries) if rec.ok]
-    if len(good) < 3:
-        raise ModelError(f"only {len(good)} of {len(records)} spectra could be fitted; a gain scan needs 3")
-    units = {rec.charge_unit for rec, _ in good}
-    unit = units.pop() if len(units) == 1 else ""
-    gains = np.array([rec.fit.gain for rec, _ in good])
-    errs = np.array([rec.fit.gain_err for rec, _ in good])
-    use_err = errs if np.all(np.isfinite(errs)) and np.all(errs > 0) else None
-    fit = fit_gain_scan([b for _, b in good], gains, use_err, temp_c=temp_c,
-                        charge_per_unit_c=args.charge_per_unit_c, gain_unit=unit or "charge unit")
+    units = {rec.charge_unit for rec in records if rec.ok}
+    result = gain_scan_from_fits([b for _, b in entries], [rec.fit if rec.ok else None for rec in records],
+                                 [rec.reason or "" for rec in records], temp_c=temp_c,
+                                 charge_per_unit_c=args.charge_per_unit_c,
+                                 charge_unit=units.pop() if len(units) == 1 else "")
     per = [{"file": rec.file, "bias_v": b, "gain": rec.fit.gain if rec.ok else None,
             "gain_err": rec.fit.gain_err if rec.ok else None, "reason": rec.reason or None}
            for rec, (_, b) in zip(records, entries)]
-    return _scan_summary(label, fit, {"spectra": per})
+    return _scan_summary(label, result.scan, {"spectra": per})
 
 
 def run_tempco(args) -> int:
