@@ -5,16 +5,12 @@ Plots are derived output: a plot of the same name from an earlier run is replace
 
 from __future__ import annotations
 
-import io
 from pathlib import Path, PurePath
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from compensator.fileio import output_dir, write_file_atomic  # noqa: E402
+from compensator.fileio import output_dir
+from compensator.plotting import plt, save_figure
 
 
 def plot_dir(path) -> Path:
@@ -33,10 +29,7 @@ def unique_names(files, suffix):
 
 
 def _save(fig, path) -> Path:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110)
-    plt.close(fig)
-    return write_file_atomic(path, buf.getvalue(), overwrite=True)
+    return save_figure(fig, path, overwrite=True)  # plots are derived output: replaced on a rerun
 
 
 def plot_iv(record, path) -> Path:

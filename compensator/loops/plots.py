@@ -1,37 +1,26 @@
 """Figures for ``tune --plot`` and ``identify --plot`` (matplotlib, Agg backend, PNG files).
 
 Each function renders into memory and writes through
-:func:`compensator.fileio.write_file_atomic`, so a figure is never half
+:func:`compensator.plotting.save_figure`, so a figure is never half
 written and an existing file is never replaced unless asked.
 """
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from compensator.errors import InputError, Problem  # noqa: E402
-from compensator.fileio import output_dir, write_file_atomic  # noqa: E402
-from compensator.loops.plants import discrete_frequency_response  # noqa: E402
-from compensator.loops.verify import controller_frequency_response, frequency_grid  # noqa: E402
-
-
-def _save(fig, path: Path, overwrite: bool) -> Path:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110)
-    plt.close(fig)
-    return write_file_atomic(path, buf.getvalue(), overwrite=overwrite)
+from compensator.errors import InputError, Problem
+from compensator.fileio import output_dir
+from compensator.loops.plants import discrete_frequency_response
+from compensator.loops.verify import controller_frequency_response, frequency_grid
+from compensator.plotting import plt
+from compensator.plotting import save_figure as _save
 
 
 def _check_dir(directory) -> Path:
-    d = output_dir(directory, "plot")
-    return d
+    return output_dir(directory, "plot")
 
 
 def plot_loop(directory, stem: str, plant, gains, report, overwrite: bool = False,
