@@ -8,6 +8,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
+
+# Property tests draw the same examples on every run: the suite stays deterministic.
+settings.register_profile("deterministic", derandomize=True, database=None, deadline=None)
+settings.load_profile("deterministic")
 
 REPO = Path(__file__).resolve().parent.parent
 PROFILES = REPO / "hardware_profiles"
