@@ -21,9 +21,7 @@ from compensator.firmware.pid import (
     quantise_pid,
 )
 from compensator.firmware.pid_c import render_pid_c, write_pid_c
-
-CC = shutil.which("cc")
-needs_cc = pytest.mark.skipif(CC is None, reason="no C compiler (cc) on PATH")
+from cbuild import CC, build, needs_cc
 
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion",
           "-Wshadow", "-Wstrict-prototypes", "-Wmissing-prototypes"]
@@ -52,14 +50,7 @@ def coefficients(name):
 
 
 def compile_c(tmp_path: Path, files: dict, extra_sources: dict, flags, output="harness") -> Path:
-    for file_name, text in {**files, **extra_sources}.items():
-        (tmp_path / file_name).write_text(text)
-    sources = [str(tmp_path / n) for n in list(files) + list(extra_sources) if n.endswith(".c")]
-    exe = tmp_path / output
-    result = subprocess.run([CC, *flags, "-o", str(exe), *sources], capture_output=True, text=True)
-    assert result.returncode == 0, result.stderr
-    assert result.stderr == "", result.stderr  # warning-free
-    return exe
+    return build(tmp_path, {**files, **extra_sources}, flags, output)
 
 
 def harness_source(name: str) -> str:

@@ -18,11 +18,9 @@ from compensator.firmware.tables import build_table, sweep_table
 from compensator.law import build_law
 from compensator.profiles import load_board, load_sipm
 
+from cbuild import CC, PEDANTIC, STRICT, build, needs_cc  # noqa: E402
+
 GOLDEN = Path(__file__).parent / "golden" / "tables"
-CC = shutil.which("cc")
-needs_cc = pytest.mark.skipif(CC is None, reason="no C compiler (cc) on PATH")
-STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror"]
-PEDANTIC = STRICT + ["-pedantic", "-Wconversion", "-Wsign-conversion", "-Wshadow"]
 
 HARNESS = r"""
 #include <stdio.h>
@@ -43,14 +41,9 @@ int main(void)
 
 def run_c(tmp_path, table, files, name="bias_dac_from_adc", flags=STRICT):
     """Compile the generated files with a harness; return (dac, status) for every code of the argument type."""
-    for fname, text in files.items():
-        (tmp_path / fname).write_text(text)
     count = 1 << table.code_type_bits
-    (tmp_path / "harness.c").write_text(HARNESS.format(name=name, count=count, code_t=f"uint{table.code_type_bits}_t"))
-    exe = tmp_path / "harness"
-    proc = subprocess.run([CC, *flags, "-O2", "-o", str(exe), str(tmp_path / "harness.c"), str(tmp_path / f"{name}.c")],
-                          capture_output=True, text=True)
-    assert proc.returncode == 0, proc.stderr
+    harness = HARNESS.format(name=name, count=count, code_t=f"uint{table.code_type_bits}_t")
+    exe = build(tmp_path, {**files, "harness.c": harness}, [*flags, "-O2"])
     out = subprocess.run([str(exe)], capture_output=True, check=True).stdout
     rec = np.frombuffer(out, dtype=np.dtype([("v", "<u4"), ("s", "u1")]))
     assert rec.size == count

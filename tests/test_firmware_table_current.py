@@ -1,6 +1,5 @@
 """The measured series-resistor drop correction in the firmware path: integer arithmetic, C, faults, clamps."""
 
-import shutil
 import subprocess
 from dataclasses import replace
 
@@ -20,10 +19,7 @@ from compensator.physics.sipm import breakdown_v, steady_current_a
 from compensator.physics.supply import sipm_bias_v
 from compensator.profiles import load_board
 
-CC = shutil.which("cc")
-needs_cc = pytest.mark.skipif(CC is None, reason="no C compiler (cc) on PATH")
-STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror"]
-PEDANTIC = STRICT + ["-pedantic", "-Wconversion", "-Wsign-conversion", "-Wshadow"]
+from cbuild import PEDANTIC, build, needs_cc  # noqa: E402
 
 #: A current channel for the direct-supply demo board (invented values): 14-bit ADC, 2.5 V, 10 kohm transimpedance.
 DIRECT_SENSE = """
@@ -166,13 +162,7 @@ int main(void)
 
 
 def run_c(tmp_path, table, files, temp_codes, current_codes, name="bias_dac_from_adc"):
-    for fname, text in files.items():
-        (tmp_path / fname).write_text(text)
-    (tmp_path / "harness.c").write_text(harness(name, table, temp_codes, current_codes))
-    exe = tmp_path / "harness"
-    proc = subprocess.run([CC, *PEDANTIC, "-O2", "-o", str(exe), str(tmp_path / "harness.c"),
-                           str(tmp_path / f"{name}.c")], capture_output=True, text=True, check=False)
-    assert proc.returncode == 0, proc.stderr
+    exe = build(tmp_path, {**files, "harness.c": harness(name, table, temp_codes, current_codes)}, [*PEDANTIC, "-O2"])
     out = subprocess.run([str(exe)], capture_output=True, check=True).stdout
     return np.frombuffer(out, dtype="<u4").astype(np.int64).reshape(len(temp_codes), len(current_codes))
 
