@@ -77,6 +77,7 @@ from compensator.errors import ModelError
 from compensator.law.laws import CompensationLaw
 from compensator.physics.sensors import RTD_TOLERANCE_CLASSES, T25_K, RtdSensor
 from compensator.physics.sipm import Sipm, cell_capacitance_f, gain, steady_current_a
+from compensator.physics.supply import solve_operating_point_v
 
 DEFAULT_SEED = 20260401
 DEFAULT_SAMPLES = 4000
@@ -271,19 +272,9 @@ def _sources(law: CompensationLaw, board, current_uncertainty_pct: float) -> lis
 
 
 def _operating_point_v(v_out_of, v_start, r_series, real, t_die, photon_rate_hz, scale=1.0):
-    """Solve ``v = v_out_of(I) - R scale I(v)``: the bias at the SiPM (fixed-point iteration from ``v_start``).
-
-    ``v_out_of`` maps the true current (ampere) to the supply output (volt);
-    ``scale`` multiplies the modelled current (the modelled-current error).
-    """
-    v = v_start
-    for _ in range(60):
-        current = scale * steady_current_a(real, v, t_die, photon_rate_hz)
-        new = v_out_of(current) - r_series * current
-        if np.all(np.abs(new - v) < 1e-10):
-            return new
-        v = new
-    raise ModelError("series-resistor operating point did not converge")
+    """The bias at the SiPM: ``v = v_out_of(I) - R I`` with ``I = scale * I_model(v)`` (tolerance 1e-10 V)."""
+    return solve_operating_point_v(v_out_of, v_start, r_series, real, t_die, photon_rate_hz, current_scale=scale,
+                                   tol_v=1e-10, max_iter=60)
 
 
 def _chain_gain_error_pct(law: CompensationLaw, board, dev: dict, temp_c, quantise: bool, series_ohm=None,

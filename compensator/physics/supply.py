@@ -156,8 +156,7 @@ class BiasSupply:
 def sipm_bias_v(supply: BiasSupply, sipm, supply_v, temp_c, photon_rate_hz=0.0, tol_v=1e-9, max_iter=100):
     """Bias across the SiPM after the series-resistor drop.
 
-    Solves ``V = Vsupply - R I(V, T)`` by fixed-point iteration (a contraction
-    whenever ``R dI/dV < 1``, which holds for any sane filter).
+    Solves ``V = Vsupply - R I(V, T)`` (see :func:`solve_operating_point_v`).
 
     Parameters
     ----------
@@ -165,18 +164,64 @@ def sipm_bias_v(supply: BiasSupply, sipm, supply_v, temp_c, photon_rate_hz=0.0, 
     sipm : compensator.physics.sipm.Sipm
     supply_v, temp_c, photon_rate_hz : array_like
         Supply output (volt), temperature (degree Celsius), photon rate (hertz).
+    tol_v : float
+        Convergence tolerance, volt.
+    max_iter : int
+        Iteration limit.
 
     Returns
     -------
     ndarray
         Bias at the SiPM, volt.
     """
+    supply_v = np.asarray(supply_v, dtype=float)
+    return solve_operating_point_v(lambda current_a: supply_v, supply_v, supply.series_resistor_ohm, sipm, temp_c,
+                                   photon_rate_hz, tol_v=tol_v, max_iter=max_iter)
+
+
+def solve_operating_point_v(output_v_of_current, start_v, series_resistor_ohm, sipm, temp_c, photon_rate_hz=0.0,
+                            current_scale=1.0, tol_v=1e-9, max_iter=100):
+    """Bias at the SiPM when the supply output may itself depend on the SiPM current.
+
+    Solves ``V = Vout(I) - R I`` with ``I = current_scale * I_model(V, T)`` by
+    fixed-point iteration from ``start_v`` (a contraction whenever
+    ``R dI/dV < 1``, which holds for any sane filter). ``Vout(I)`` covers a
+    firmware that corrects the drop from the current it measures.
+
+    Parameters
+    ----------
+    output_v_of_current : callable
+        Maps the SiPM current (ampere, array) to the supply output (volt).
+    start_v : array_like
+        First guess of the bias, volt.
+    series_resistor_ohm : float
+        Filter resistor, ohm.
+    sipm : compensator.physics.sipm.Sipm
+    temp_c, photon_rate_hz : array_like
+        Die temperature (degree Celsius) and photon rate (hertz).
+    current_scale : float or array_like
+        Factor on the modelled current (to propagate a current-model error).
+    tol_v : float
+        Convergence tolerance, volt.
+    max_iter : int
+        Iteration limit.
+
+    Returns
+    -------
+    ndarray
+        Bias at the SiPM, volt.
+
+    Raises
+    ------
+    ModelError
+        No convergence within ``max_iter`` iterations.
+    """
     from compensator.physics.sipm import steady_current_a
 
-    supply_v = np.asarray(supply_v, dtype=float)
-    v = supply_v.copy() if supply_v.ndim else supply_v
+    v = np.array(start_v, dtype=float)
     for _ in range(max_iter):
-        new = supply_v - supply.drop_v(steady_current_a(sipm, v, temp_c, photon_rate_hz))
+        current_a = current_scale * steady_current_a(sipm, v, temp_c, photon_rate_hz)
+        new = output_v_of_current(current_a) - series_resistor_ohm * current_a
         if np.all(np.abs(new - v) < tol_v):
             return new
         v = new
