@@ -62,7 +62,47 @@ class ProfileError(InputError):
 
 
 class ModelError(CompensatorError, ValueError):
-    """A numerical routine got arguments outside its physical domain."""
+    """A numerical routine got arguments outside its physical domain.
+
+    Parameters
+    ----------
+    reason : str
+        What is wrong, in plain words (no file or line: the core does not
+        know them).
+    key : str, optional
+        The argument, profile key path or column at fault ("" when none).
+
+    Notes
+    -----
+    The edge that knows where the value came from calls :meth:`at` to turn
+    the error into a located :class:`InputError`; nobody parses the text.
+    """
+
+    def __init__(self, reason: str, *, key: str = ""):
+        self.reason = str(reason)
+        self.key = key
+        super().__init__(f"{key}: {self.reason}" if key else self.reason)
+
+    def at(self, file: str, line: int = 0, key: str | None = None) -> "InputError":
+        """Return this error located in ``file`` (and ``line``) as an :class:`InputError`.
+
+        Parameters
+        ----------
+        file : str
+            Where the offending value came from (a path, or ``"<command line>"``).
+        line : int, optional
+            1-based line number, 0 when unknown.
+        key : str, optional
+            Overrides the error's own key (e.g. the command-line flag that
+            carried the value).
+        """
+        located = InputError(Problem(file, line, self.key if key is None else key, self.reason))
+        located.__cause__ = self
+        return located
+
+
+class ModelTypeError(CompensatorError, TypeError):
+    """An argument of a numerical routine has the wrong type (not only a bad value)."""
 
 
 class LinkError(CompensatorError, OSError):

@@ -284,7 +284,7 @@ def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file=""
         outside the profile schema (e.g. a negative tempco); nothing is written.
     """
     from compensator.fileio import write_file_atomic
-    from compensator.firmware.banner import banner_lines
+    from compensator.provenance import banner_lines
     from compensator.profiles import load_sipm, render_profile
 
     path = Path(path)

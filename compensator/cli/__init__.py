@@ -18,11 +18,8 @@ import pkgutil
 import sys
 
 from compensator import __version__
+from compensator.cli._common import EXIT_INTERRUPTED, EXIT_OK, EXIT_USAGE
 from compensator.errors import CompensatorError
-
-EXIT_OK = 0
-EXIT_FAILURE = 1
-EXIT_USAGE = 2
 
 
 def _command_modules():
@@ -77,4 +74,4 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_OK
     except KeyboardInterrupt:
         print("compensator: interrupted", file=sys.stderr)
-        return 130
+        return EXIT_INTERRUPTED

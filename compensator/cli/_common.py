@@ -10,6 +10,34 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from compensator.errors import InputError, Problem
+
+#: Exit statuses, used by every command (and by ``compensator.cli.main``).
+EXIT_OK = 0
+#: A check the command ran failed (e.g. an unstable loop, a bound not met).
+EXIT_FAILURE = 1
+#: The user's input is wrong (bad option, bad file): one line per problem on stderr.
+EXIT_USAGE = 2
+#: The input was well-formed but nothing in it could be analysed (every fit failed).
+EXIT_NOTHING_ANALYSED = 3
+#: Interrupted by Ctrl-C (128 + SIGINT).
+EXIT_INTERRUPTED = 130
+
+COMMAND_LINE = "<command line>"
+
+
+def usage_error(flag: str, reason: str) -> InputError:
+    """The one way to build a command-line usage error (raise what it returns).
+
+    Parameters
+    ----------
+    flag : str
+        The option at fault, e.g. ``"--rate-hz"`` ("" for the command as a whole).
+    reason : str
+        What is wrong, in plain words, with the value given.
+    """
+    return InputError(Problem(COMMAND_LINE, 0, flag, reason))
+
 
 def jsonable(value):
     """Convert dataclasses, numpy scalars and arrays into JSON-ready values.

@@ -20,7 +20,7 @@ from pathlib import Path
 
 from compensator.errors import ModelError
 from compensator.fileio import write_files_atomic
-from compensator.firmware.banner import c_banner
+from compensator.provenance import c_banner
 from compensator.firmware.pid import (
     INPUT_LIMIT_COUNT,
     MANTISSA_LIMIT,

@@ -15,7 +15,7 @@ import re
 import numpy as np
 
 from compensator.errors import ModelError
-from compensator.firmware.banner import c_banner
+from compensator.provenance import c_banner
 from compensator.firmware.tables import (
     STATUS_ABOVE_RANGE,
     STATUS_BELOW_RANGE,

@@ -1,0 +1,47 @@
+"""Fault flags shared by the firmware interlocks, the link protocol, the simulated board and the logbook.
+
+One bit per cause. The board keeps two words: the *live* flags (the condition
+holds now) and the *latched* flags (it held at some time since the last
+clear). Any latched flag except ``REQUEST_REFUSED`` holds the outputs in the
+safe state until it is cleared and its cause is gone.
+"""
+
+from __future__ import annotations
+
+from enum import IntFlag
+
+__all__ = ["FaultFlag", "fault_names"]
+
+
+class FaultFlag(IntFlag):
+    """Fault causes, one bit each (values are part of the wire protocol: never renumber)."""
+
+    NONE = 0
+    SENSOR_OPEN = 1 << 0
+    SENSOR_SHORT = 1 << 1
+    SENSOR_RATE = 1 << 2          # implausible rate of change of the temperature reading
+    OVER_CURRENT = 1 << 3         # SiPM current above the trip level
+    BIAS_LIMIT = 1 << 4           # bias or overvoltage would exceed a limit; clamped
+    HOT_SIDE_OVER_TEMP = 1 << 5   # cooler hot side above its maximum
+    DEW_POINT = 1 << 6            # cold side would go below dew point plus margin
+    HEARTBEAT_LOST = 1 << 7       # host silent longer than the heartbeat timeout
+    REQUEST_REFUSED = 1 << 8      # a host request was refused (informational)
+    SUPPLY_FAULT = 1 << 9         # bias read-back disagrees with the set value
+
+
+def fault_names(flags: int) -> list[str]:
+    """Names of the bits set in ``flags``, lowest bit first, lower case.
+
+    Parameters
+    ----------
+    flags : int
+        A fault word; bits without a name are reported as ``bit_N``.
+    """
+    names = []
+    for bit in range(32):
+        if flags >> bit & 1:
+            try:
+                names.append(FaultFlag(1 << bit).name.lower())
+            except ValueError:
+                names.append(f"bit_{bit}")
+    return names
