@@ -40,8 +40,6 @@ def fault_names(flags: int) -> list[str]:
     names = []
     for bit in range(32):
         if flags >> bit & 1:
-            try:
-                names.append(FaultFlag(1 << bit).name.lower())
-            except ValueError:
-                names.append(f"bit_{bit}")
+            known = FaultFlag._value2member_map_.get(1 << bit)
+            names.append(known.name.lower() if known is not None else f"bit_{bit}")
     return names
