@@ -46,6 +46,11 @@ class Breakdown:
         Quadratic term, millivolt per kelvin squared.
     breakdown_err_v, tempco_err_mv_per_k : float
         One-sigma calibration uncertainties (volt, millivolt per kelvin).
+    definition : str
+        Which breakdown voltage this is: ``"gain_intercept"`` (gain against
+        bias extrapolated to zero; what a gain law needs) or an I-V method
+        (``"iv_inverse_log_derivative"``, ``"iv_second_derivative"``,
+        ``"iv_log_derivative_peak"``).
     """
 
     breakdown_v_at_ref: float
@@ -54,6 +59,7 @@ class Breakdown:
     curvature_mv_per_k2: float = 0.0
     breakdown_err_v: float = 0.0
     tempco_err_mv_per_k: float = 0.0
+    definition: str = "gain_intercept"
 
     def breakdown_v(self, temp_c):
         """Breakdown voltage in volt at ``temp_c`` (degree Celsius, array-like)."""

@@ -79,7 +79,8 @@ def _build_sipm(raw: RawProfile) -> SipmProfile:
         raise ProfileError(raw.problem("limits.min_overvoltage_v", "must be below limits.max_overvoltage_v"))
     device = Sipm(
         breakdown=Breakdown(bd["breakdown_v_at_ref"], bd["ref_temp_c"], bd["tempco_mv_per_k"],
-                            bd["curvature_mv_per_k2"], bd["breakdown_err_v"], bd["tempco_err_mv_per_k"]),
+                            bd["curvature_mv_per_k2"], bd["breakdown_err_v"], bd["tempco_err_mv_per_k"],
+                            definition=bd["definition"]),
         cell_capacitance_f=cell["capacitance_f"], cell_count=cell["count"],
         capacitance_tempco_ppm_per_k=cell["capacitance_tempco_ppm_per_k"], recovery_time_s=cell["recovery_time_s"],
         pde_max_fraction=pde["max_fraction"], pde_saturation_overvoltage_v=pde["saturation_overvoltage_v"],

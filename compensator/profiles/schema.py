@@ -12,6 +12,14 @@ from typing import Any
 
 FLOAT, INT, BOOL, STR, CHOICE = "float", "int", "bool", "str", "choice"
 
+#: The definitions a breakdown voltage can carry, from bench to firmware.
+BREAKDOWN_DEFINITIONS = (
+    "gain_intercept",
+    "iv_inverse_log_derivative",
+    "iv_second_derivative",
+    "iv_log_derivative_peak",
+)
+
 
 @dataclass(frozen=True)
 class Key:
@@ -94,6 +102,10 @@ SIPM = KindSchema(
             _opt("curvature_mv_per_k2", "quadratic term b, millivolt per kelvin squared", 0.0, ge=-10, le=10),
             _opt("breakdown_err_v", "calibration uncertainty (1 sigma) of the breakdown voltage, volt", 0.0, ge=0),
             _opt("tempco_err_mv_per_k", "calibration uncertainty (1 sigma) of the tempco, millivolt per kelvin", 0.0, ge=0),
+            Key("definition", CHOICE, "which breakdown voltage these values are: the intercept of gain against bias "
+                "(gain_intercept, what a gain law needs) or an I-V turn-on method (iv_inverse_log_derivative, "
+                "iv_second_derivative, iv_log_derivative_peak); they differ by tens to hundreds of millivolts",
+                required=False, default="gain_intercept", choices=BREAKDOWN_DEFINITIONS),
         )),
         Section("cell", "Microcells.", (
             _f("capacitance_f", "effective microcell capacitance (gain = C (V - Vbd) / q), farad", gt=0, le=1e-9),
