@@ -20,7 +20,8 @@ from compensator.firmware.pid import (
     PidSettings,
     quantise_pid,
 )
-from compensator.firmware.pid_c import render_pid_c, write_pid_c
+from compensator.fileio import write_files_atomic
+from compensator.firmware.pid_c import render_pid_c
 from cbuild import CC, build, needs_cc
 
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion",
@@ -273,13 +274,18 @@ def test_rendering_is_deterministic_and_carries_the_banner(sipm_a, board_ntc):
     assert "conditional integration" in clamped and "TRACK_MANT * (u - v)" not in clamped
 
 
-@pytest.mark.parametrize("name", ["", "1pid", "Cooler", "cooler-pid", "a" * 32, "x y"])
+@pytest.mark.parametrize("name", ["", "1pid", "Cooler", "cooler-pid", "a" * 32, "x y", "abs", "exit", "int"])
 def test_bad_names_are_refused(name):
     with pytest.raises(ModelError, match="name"):
         render_pid_c(coefficients("cooler_pid"), name=name)
 
 
-def test_write_pid_c_refuses_to_overwrite_and_writes_nothing(tmp_path):
+def write_pid_c(coeffs, directory, *, name, overwrite=False):
+    """The PID renderer's text through the one file-set writer (the command line's edge does this)."""
+    return write_files_atomic(directory, render_pid_c(coeffs, name=name), overwrite=overwrite, what="C output")
+
+
+def test_written_pid_c_refuses_to_overwrite_and_writes_nothing(tmp_path):
     coeffs = coefficients("cooler_pid")
     (tmp_path / "cooler_pid.c").write_text("keep me")
     with pytest.raises(InputError, match="cooler_pid.c: already exists"):

@@ -241,15 +241,14 @@ def _ambient_plants(args, profile, warnings):
 
 
 def _emit(args, result, T, emit, name, profile):
+    from compensator.fileio import write_files_atomic
     from compensator.firmware.pid import PidSettings, quantise_pid
-    from compensator.firmware.pid_c import write_pid_c
+    from compensator.firmware.pid_c import render_pid_c
 
     g = result.gains
     pick = {k: (getattr(args, k) if getattr(args, k) is not None else emit.get(k))
             for k in ("input_per_count", "output_per_count", "out_min", "out_max")}
-    settings = PidSettings(kp=g.kp, ki_per_s=g.ki_per_s, kd_s=g.kd_s, sample_time_s=T, out_min=pick["out_min"],
-                           out_max=pick["out_max"], derivative_filter_n=g.derivative_filter_n,
-                           setpoint_weight=g.setpoint_weight)
+    settings = PidSettings.from_gains(g, sample_time_s=T, out_min=pick["out_min"], out_max=pick["out_max"])
     coeffs = quantise_pid(settings, input_per_count=pick["input_per_count"],
                           output_per_count=pick["output_per_count"])
     banner = {"method": result.method, "controller": "PID" if result.pid else "PI", "rate_hz": f"{1.0 / T:g}",
@@ -257,8 +256,8 @@ def _emit(args, result, T, emit, name, profile):
               "input_per_count": f"{pick['input_per_count']:.6g}",
               "output_per_count": f"{pick['output_per_count']:.6g}",
               "out_min": f"{pick['out_min']:.6g}", "out_max": f"{pick['out_max']:.6g}"}
-    written = write_pid_c(coeffs, args.emit_c, name=name, profiles=(profile,) if profile else (), settings=banner,
-                          overwrite=args.force)
+    files = render_pid_c(coeffs, name=name, profiles=(profile,) if profile else (), settings=banner)
+    written = write_files_atomic(args.emit_c, files, overwrite=args.force, what="C output")
     return [str(p) for p in written]
 
 

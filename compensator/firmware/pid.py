@@ -9,13 +9,13 @@ Both controllers run the same algorithm, once per sample period ``h``:
     v = P + I + D                                 unlimited output
     u = clip(v, out_min, out_max)                 (manual mode: u = manual target)
     u = clip(u, u_prev - du, u_prev + du)         rate limit, du = rate_limit_per_s h
-    I = I + bi (r - y) + ao (u - v)               back-calculation anti-windup
+    I = I + bi (r - y) + track (u - v)            back-calculation anti-windup
       | I + bi (r - y) unless it drives further into the limit   (clamping)
       | I + bi (r - y)                                            (none)
       | u - P - D                                                 (manual: tracking)
 
 with ``ad = Tf / (Tf + h)``, ``bd = kd / (Tf + h)`` (backward difference, stable for
-every ``Tf >= 0``), ``bi = ki h`` (forward Euler) and ``ao = h / Tt``. This is the
+every ``Tf >= 0``), ``bi = ki h`` (forward Euler) and ``track = h / Tt``. This is the
 textbook discretisation of the two-degree-of-freedom PID with derivative filter
 and tracking anti-windup (Astrom and Hagglund, "PID Controllers: Theory, Design,
 and Tuning", ISA 1995, section 3.7; from memory).
@@ -28,8 +28,8 @@ Choices stated once
 * Tracking time (back-calculation) default: ``Tt = sqrt(Ti Td)`` for a PID and
   ``Tt = Ti`` for a PI, where ``Ti = kp / ki`` and ``Td = kd / kp`` (a rule of
   thumb from the same book, from memory); ``Tt = h`` when ``kp == 0``. ``Tt``
-  is never shorter than ``h`` so that ``ao <= 1`` and tracking cannot overshoot.
-  Without integral action (``ki == 0``) there is no tracking (``ao = 0``): the
+  is never shorter than ``h`` so that ``track <= 1`` and tracking cannot overshoot.
+  Without integral action (``ki == 0``) there is no tracking (``track = 0``): the
   integrator then holds the manual reset value set by bumpless transfer.
 * Manual mode: the output goes to the operator's target, clipped to the output
   limits and approached at the rate limit (the rate limit protects hardware in
@@ -53,7 +53,7 @@ Fixed-point formats (:class:`FixedPid`, and the C code rendered from it)
   right shift ``s`` (0..62): a product ``m x`` is formed in 64 bits and shifted
   by ``s`` with rounding into Q.F. For count coefficients (kp, kp b, ki h,
   kd/(Tf+h)) ``m 2^-s`` approximates ``c 2^F``; for the state coefficients
-  (``ad``, ``ao``) it approximates ``c``. All products stay below 2^63 by the
+  (``ad``, ``track``) it approximates ``c``. All products stay below 2^63 by the
   bounds above, so no 64-bit overflow can happen.
 * Rounding is defined once: ``rshift_round(x, s) = floor((x + 2^(s-1)) / 2^s)``,
   i.e. round half up (ties toward +infinity). Python's ``>>`` is a floor
@@ -75,10 +75,12 @@ from __future__ import annotations
 import math
 import operator
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
 from compensator.errors import ModelError
+from compensator.firmware.fixed_point import INT32_MAX, INT32_MIN, half, rshift_round, saturate
 
 __all__ = [
     "ANTI_WINDUP_MODES", "INPUT_LIMIT_COUNT", "PidSettings", "DiscretePid", "discretise_pid", "PidRun",
@@ -100,9 +102,6 @@ MAX_SHIFT = 62
 
 MAX_STATE_FRAC_BITS = 24
 """Upper cap on the number of fraction bits of the state format."""
-
-INT32_MIN = -(1 << 31)
-INT32_MAX = (1 << 31) - 1
 
 
 # ---------------------------------------------------------------------------
@@ -199,8 +198,42 @@ class PidSettings:
         if self.kp == 0 and self.ki_per_s == 0 and self.kd_s == 0:
             raise ModelError("PID settings kp, ki_per_s, kd_s: at least one gain must be non-zero")
 
+    @classmethod
+    def from_gains(cls, gains, *, sample_time_s: float, out_min: float, out_max: float,
+                   rate_limit_per_s: float | None = None, anti_windup: str = "back_calculation",
+                   tracking_time_s: float | None = None) -> "PidSettings":
+        """The settings of a tuned controller (:class:`compensator.loops.verify.PidGains`) run by the firmware.
 
-@dataclass(frozen=True)
+        The gains (``kp``, ``ki_per_s``, ``kd_s``, ``derivative_filter_n``,
+        ``setpoint_weight``) are the tuning; everything else says how the
+        firmware runs it.
+
+        Parameters
+        ----------
+        gains : PidGains
+            Any object with the five gain fields.
+        sample_time_s : float
+            Controller sample period, second.
+        out_min, out_max : float
+            Output limits (output unit).
+        rate_limit_per_s : float or None
+            Largest output change per second.
+        anti_windup : {"back_calculation", "clamping", "none"}
+            Anti-windup mode.
+        tracking_time_s : float or None
+            Back-calculation time constant, second.
+
+        Returns
+        -------
+        PidSettings
+        """
+        return cls(kp=gains.kp, ki_per_s=gains.ki_per_s, kd_s=gains.kd_s, sample_time_s=sample_time_s,
+                   out_min=out_min, out_max=out_max, derivative_filter_n=gains.derivative_filter_n,
+                   setpoint_weight=gains.setpoint_weight, rate_limit_per_s=rate_limit_per_s,
+                   anti_windup=anti_windup, tracking_time_s=tracking_time_s)
+
+
+@dataclass(frozen=True, kw_only=True)
 class DiscretePid:
     """The per-sample coefficients of :class:`PidSettings` (physical units).
 
@@ -214,10 +247,12 @@ class DiscretePid:
         Derivative filter pole, ``Tf / (Tf + h)`` (dimensionless, in [0, 1)).
     bd : float
         Derivative gain per unit measurement step, ``kd / (Tf + h)``.
-    ao : float
-        Tracking gain per sample, ``h / Tt`` (0 without back-calculation).
-    filter_time_s, tracking_time_s : float
-        ``Tf`` and ``Tt`` in seconds (``Tt`` is ``inf`` when not tracking).
+    track : float
+        Tracking (back-calculation) gain per sample, ``h / Tt`` (0 without
+        back-calculation); the same name as the fixed-point ``track_mant``.
+    derivative_filter_s, tracking_time_s : float
+        ``Tf`` and ``Tt`` in seconds (``Tt`` is ``inf`` when not tracking);
+        ``derivative_filter_s`` is the name the loop tools use for ``Tf`` too.
     rate_step : float or None
         Largest output change per sample (output unit), ``rate_limit_per_s h``.
     """
@@ -227,10 +262,20 @@ class DiscretePid:
     bi: float
     ad: float
     bd: float
-    ao: float
-    filter_time_s: float
+    track: float
+    derivative_filter_s: float
     tracking_time_s: float
     rate_step: float | None
+
+    @property
+    def ao(self) -> float:
+        """Old name of :attr:`track`."""
+        return self.track
+
+    @property
+    def filter_time_s(self) -> float:
+        """Old name of :attr:`derivative_filter_s`."""
+        return self.derivative_filter_s
 
 
 def discretise_pid(settings: PidSettings) -> DiscretePid:
@@ -273,8 +318,8 @@ def discretise_pid(settings: PidSettings) -> DiscretePid:
         bi=ki * h,
         ad=tf / (tf + h),
         bd=kd / (tf + h),
-        ao=0.0 if math.isinf(tt) else h / tt,
-        filter_time_s=tf,
+        track=0.0 if math.isinf(tt) else h / tt,
+        derivative_filter_s=tf,
         tracking_time_s=tt,
         rate_step=None if s.rate_limit_per_s is None else float(s.rate_limit_per_s) * h,
     )
@@ -308,7 +353,7 @@ def _schedule(setpoint, measurement, manual, manual_output, dtype):
     return r.astype(dtype).tolist(), y.astype(dtype).tolist(), m.tolist(), mo.astype(dtype).tolist()
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class PidRun:
     """The record of a run over a sequence.
 
@@ -343,12 +388,28 @@ def _run_steps(pid, r, y, m, mo, dtype) -> PidRun:
         out.append(step(r[k], y[k]))
         integ.append(pid._i)
         deriv.append(pid._d)
-    return PidRun(np.array(out, dtype=dtype), np.array(integ, dtype=dtype), np.array(deriv, dtype=dtype))
+    return PidRun(output=np.array(out, dtype=dtype), integrator=np.array(integ, dtype=dtype),
+                  derivative=np.array(deriv, dtype=dtype))
 
 
 # ---------------------------------------------------------------------------
 # Floating-point reference
 # ---------------------------------------------------------------------------
+
+
+class _FloatConstants(NamedTuple):
+    """The per-step constants of :class:`FloatPid`, in the order its step unpacks them."""
+
+    kpb: float
+    kp: float
+    ad: float
+    bd: float
+    bi: float
+    track: float
+    rate_step: float | None
+    anti_windup_code: int
+    out_min: float
+    out_max: float
 
 
 class FloatPid:
@@ -372,8 +433,8 @@ class FloatPid:
         self.settings = settings
         self.discrete = c = discretise_pid(settings)
         self._mode = ANTI_WINDUP_MODES.index(settings.anti_windup)
-        self._k = (c.kpb, c.kp, c.ad, c.bd, c.bi, c.ao, c.rate_step, self._mode,
-                   float(settings.out_min), float(settings.out_max))
+        self._constants = _FloatConstants(c.kpb, c.kp, c.ad, c.bd, c.bi, c.track, c.rate_step, self._mode,
+                                          float(settings.out_min), float(settings.out_max))
         self.reset()
 
     def reset(self, output: float | None = None) -> None:
@@ -462,7 +523,7 @@ class FloatPid:
 
     def _step(self, r: float, y: float) -> float:
         # the same algorithm as FixedPid._step, in floating point
-        kpb, kp, ad, bd, bi, ao, rate, mode, lo, hi = self._k
+        kpb, kp, ad, bd, bi, track, rate, mode, lo, hi = self._constants
         primed, manual, have_output = self._primed, self._manual, self._have_output
         y_prev = self._y_prev if primed else y
         p = kpb * r - kp * y
@@ -484,7 +545,7 @@ class FloatPid:
         else:
             inc = bi * (r - y)
             if mode == 0:  # back-calculation
-                i += inc + ao * (u - v)
+                i += inc + track * (u - v)
             elif mode == 1:  # clamping: hold while limited and the error drives further
                 if not ((v > u and inc > 0) or (v < u and inc < 0)):
                     i += inc
@@ -531,7 +592,7 @@ class FloatPid:
 # ---------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class FixedPidCoefficients:
     """Pre-multiplied integer coefficients and limits of the fixed-point PID.
 
@@ -735,7 +796,7 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
     ki_m, ki_s = _quantise(ki_c * two_f, "ki_per_s")
     bd_m, bd_s = _quantise(bd_c * two_f, "kd_s")
     ad_m, ad_s = _quantise(disc.ad, "derivative filter") if disc.ad else (0, 0)
-    tr_m, tr_s = _quantise(disc.ao, "tracking_time_s") if disc.ao else (0, 0)
+    tr_m, tr_s = _quantise(disc.track, "tracking_time_s") if disc.track else (0, 0)
     if disc.rate_step is None:
         rate_q, rate_c = 0, 0.0
     else:
@@ -756,7 +817,7 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
         anti_windup=settings.anti_windup,
         input_per_count=ipc, output_per_count=opc, sample_time_s=float(settings.sample_time_s),
         kp_count=kp_c, kpb_count=kpb_c, ki_count=ki_c, bd_count=bd_c,
-        ad=disc.ad, track=disc.ao, rate_step_count=rate_c,
+        ad=disc.ad, track=disc.track, rate_step_count=rate_c,
         out_min_exact_count=lo_exact, out_max_exact_count=hi_exact,
     )
 
@@ -766,23 +827,8 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
 # ---------------------------------------------------------------------------
 
 
-def rshift_round(x: int, shift: int) -> int:
-    """``floor((x + 2^(shift-1)) / 2^shift)``: a right shift rounding half up (toward +infinity).
-
-    Parameters
-    ----------
-    x : int
-        Signed value.
-    shift : int
-        Non-negative shift; 0 returns ``x``.
-    """
-    if shift == 0:
-        return x
-    return (x + (1 << (shift - 1))) >> shift
-
-
 def _sat32(x: int) -> int:
-    return INT32_MIN if x < INT32_MIN else INT32_MAX if x > INT32_MAX else x
+    return saturate(x, 32)
 
 
 def _as_int32(value, name: str) -> int:
@@ -795,7 +841,7 @@ def _as_int32(value, name: str) -> int:
     return v
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class FixedPidState:
     """A snapshot of the fixed-point controller state (the fields of the C state struct).
 
@@ -819,6 +865,49 @@ class FixedPidState:
     have_output: bool
 
 
+class _FixedConstants(NamedTuple):
+    """The per-step constants of :class:`FixedPid`, in the order its step unpacks them.
+
+    Each product ``m x`` rounded by ``rshift_round(m x, s)`` is written in the
+    step as ``(m x + half) >> s`` with ``half = 2^(s-1)`` (0 for ``s == 0``).
+    """
+
+    kpb_mant: int
+    kp_mant: int
+    p_shift: int
+    p_half: int
+    ad_mant: int
+    ad_shift: int
+    ad_half: int
+    bd_mant: int
+    bd_shift: int
+    bd_half: int
+    ki_mant: int
+    ki_shift: int
+    ki_half: int
+    track_mant: int
+    track_shift: int
+    track_half: int
+    rate_step_q: int
+    anti_windup_code: int
+    state_frac_bits: int
+    state_half: int
+    out_min_q: int
+    out_max_q: int
+
+
+def _fixed_constants(c: "FixedPidCoefficients") -> _FixedConstants:
+    f = c.state_frac_bits
+    return _FixedConstants(
+        c.kpb_mant, c.kp_mant, c.p_shift, half(c.p_shift),
+        c.ad_mant, c.ad_shift, half(c.ad_shift),
+        c.bd_mant, c.bd_shift, half(c.bd_shift),
+        c.ki_mant, c.ki_shift, half(c.ki_shift),
+        c.track_mant, c.track_shift, half(c.track_shift),
+        c.rate_step_q, c.anti_windup_code, f, half(f),
+        c.out_min_count << f, c.out_max_count << f)
+
+
 class FixedPid:
     """Bit-exact fixed-point PID reference (the generated C does exactly this).
 
@@ -838,21 +927,7 @@ class FixedPid:
         if not isinstance(coeffs, FixedPidCoefficients):
             raise ModelError(f"coeffs: need FixedPidCoefficients, got {type(coeffs).__name__}")
         self.coeffs = coeffs
-        c = coeffs
-
-        def half(shift):  # rshift_round(x, s) == (x + half(s)) >> s, also for s == 0
-            return (1 << (shift - 1)) if shift else 0
-
-        f = c.state_frac_bits
-        self._k = (
-            c.kpb_mant, c.kp_mant, c.p_shift, half(c.p_shift),
-            c.ad_mant, c.ad_shift, half(c.ad_shift),
-            c.bd_mant, c.bd_shift, half(c.bd_shift),
-            c.ki_mant, c.ki_shift, half(c.ki_shift),
-            c.track_mant, c.track_shift, half(c.track_shift),
-            c.rate_step_q, c.anti_windup_code, f, half(f),
-            c.out_min_count << f, c.out_max_count << f,
-        )
+        self._constants = _fixed_constants(coeffs)
         self.reset()
 
     def reset(self, output_count: int | None = None) -> None:
@@ -903,8 +978,9 @@ class FixedPid:
     @property
     def state(self) -> FixedPidState:
         """A snapshot of the state."""
-        return FixedPidState(self._i, self._d, self._u, self._target, self._y_prev,
-                             self._manual, self._primed, self._have_output)
+        return FixedPidState(integrator_q=self._i, derivative_q=self._d, output_q=self._u,
+                             manual_target_q=self._target, last_measurement_count=self._y_prev, manual=self._manual,
+                             primed=self._primed, have_output=self._have_output)
 
     def step(self, setpoint_count: int, measurement_count: int) -> int:
         """Advance one sample period.
@@ -928,7 +1004,7 @@ class FixedPid:
         # One implementation for step() and run(); the shifts are written out as
         # (x + half) >> s, which is rshift_round(x, s) (Python's >> floors).
         (kpb, kp, ps, ph, ad, ads, adh, bd, bds, bdh, ki, kis, kih, tr, trs, trh,
-         rate, mode, f, fh, lo_q, hi_q) = self._k
+         rate, mode, f, fh, lo_q, hi_q) = self._constants
         lim = INPUT_LIMIT_COUNT
         r = -lim if r < -lim else lim if r > lim else r
         y = -lim if y < -lim else lim if y > lim else y
@@ -1026,8 +1102,8 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
       mode and ``eu <= max(L, eu_prev + |ddu|)`` in manual mode (the target
       is the same number for both; without a rate limit drop the
       ``eu_prev`` terms);
-    * back-calculation: ``I' = (1 - ao) I + ao (u - P - D) + bi e`` with
-      ``0 <= ao <= 1``, so ``eI' <= (1 - ao) eI + ao (eu + eP + eD*) + |dao|
+    * back-calculation: ``I' = (1 - t) I + t (u - P - D) + bi e`` with the
+      tracking gain ``0 <= t <= 1``, so ``eI' <= (1 - t) eI + t (eu + eP + eD*) + |dt|
       |u - v| + |dbi| 2X + eta`` with ``|u - v| <= 2^(32-F)`` counts (int32
       state); clamping and none: ``eI' <= eI + |dbi| 2X + eta/2``; manual
       tracking ``I = u - P - D``: ``eI' <= eu + eP + eD* + eta``. The first
@@ -1092,7 +1168,7 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
     else:
         e_d = 0.0
     tracking = c.anti_windup == "back_calculation" and c.track_mant != 0
-    ao = c.track
+    t_gain = c.track
     lim = max(abs(c.out_min_count - c.out_min_exact_count), abs(c.out_max_count - c.out_max_exact_count))
     e_i = e_p + e_d + eta
     e_u = 0.0
@@ -1106,7 +1182,7 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
         e_clip = max(e_v, lim)  # clip(v, lo, hi) is 1-Lipschitz in v, lo and hi together
         e_u = max(e_clip, e_u + d_rate) if c.rate_step_q else e_clip
         if tracking:
-            e_i = (1 - ao) * e_i + ao * (e_u + e_p + e_d) + d_tr * uv_max + d_ki * 2 * x + eta
+            e_i = (1 - t_gain) * e_i + t_gain * (e_u + e_p + e_d) + d_tr * uv_max + d_ki * 2 * x + eta
         else:
             e_i = e_i + d_ki * 2 * x + eta / 2
     return e_u + 0.5

@@ -16,10 +16,10 @@ the same coefficients, name, profiles and settings give the same text.
 from __future__ import annotations
 
 import re
-from pathlib import Path
 
 from compensator.errors import ModelError
-from compensator.fileio import write_files_atomic
+from compensator.firmware.c_names import check_function_name
+from compensator.firmware.fixed_point import c_floor_shift_function, c_int_literal
 from compensator.provenance import c_banner
 from compensator.firmware.pid import (
     INPUT_LIMIT_COUNT,
@@ -29,7 +29,7 @@ from compensator.firmware.pid import (
     FixedPidCoefficients,
 )
 
-__all__ = ["render_pid_c", "write_pid_c"]
+__all__ = ["render_pid_c"]
 
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 
@@ -37,13 +37,12 @@ _NAME_RE = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 def _check_name(name: str) -> None:
     if not isinstance(name, str) or not _NAME_RE.match(name):
         raise ModelError(f"name {name!r}: must be a C identifier of at most 31 lower-case letters, "
-                         f"digits and underscores, starting with a letter")
+                         f"digits and underscores, starting with a letter", key="name")
+    check_function_name(name)
 
 
 def _i32(value: int) -> str:
-    if value == -(1 << 31):
-        return "INT32_MIN"
-    return f"INT32_C({value})"
+    return c_int_literal(value, 32)
 
 
 def _g(value: float) -> str:
@@ -201,18 +200,15 @@ def _source(c: FixedPidCoefficients, name: str, banner: str) -> str:
         "",
         *assert_lines,
         "",
+        *c_floor_shift_function(f"{n}_floor_shift", "int64_t").rstrip("\n").split("\n"),
+        "",
         "/* floor((x + 2^(shift-1)) / 2^shift): round half up; |x| < 2^62 by construction. */",
         f"static int64_t {n}_rshift_round(int64_t x, unsigned int shift)",
         "{",
         "    if (shift == 0u) {",
         "        return x;",
         "    }",
-        "    x += (int64_t)1 << (shift - 1u);",
-        "    if (x >= 0) {",
-        "        return x >> shift;",
-        "    }",
-        "    /* floor for a negative x without shifting a negative value */",
-        "    return -((-(x + 1)) >> shift) - 1;",
+        f"    return {n}_floor_shift(x + ((int64_t)1 << (shift - 1u)), shift);",
         "}",
         "",
         f"static int32_t {n}_sat32(int64_t x)",
@@ -360,34 +356,3 @@ def render_pid_c(coeffs: FixedPidCoefficients, *, name: str, profiles=(), settin
         f"{name}.h": _header(coeffs, name, h_banner),
         f"{name}.c": _source(coeffs, name, c_banner_text),
     }
-
-
-def write_pid_c(coeffs: FixedPidCoefficients, directory, *, name: str, profiles=(), settings: dict | None = None,
-                overwrite: bool = False) -> list[Path]:
-    """Render the C files and write them into ``directory``.
-
-    All or nothing (:func:`compensator.fileio.write_files_atomic`): existing
-    files are refused (unless ``overwrite``) before the first write, each file
-    is written atomically, and a failed write leaves no partial set.
-
-    Parameters
-    ----------
-    coeffs, name, profiles, settings
-        As for :func:`render_pid_c`.
-    directory : str or path-like
-        Created when missing.
-    overwrite : bool
-        Replace existing files.
-
-    Returns
-    -------
-    list of Path
-        The files written (header first).
-
-    Raises
-    ------
-    InputError
-        A file exists already, or the directory cannot be made or written.
-    """
-    files = render_pid_c(coeffs, name=name, profiles=profiles, settings=settings)
-    return write_files_atomic(directory, files, overwrite=overwrite, what="C output")
