@@ -29,7 +29,24 @@ from compensator.firmware.pid import (
     discretise_pid,
 )
 
-__all__ = ["FixedPidCoefficients", "quantise_pid", "FixedPidState", "FixedPid", "agreement_bound_count"]
+__all__ = ["WORD_BITS", "MANTISSA_LIMIT_32", "MAX_SHIFT_32", "STATE_LIMIT_32", "DEFAULT_INPUT_LIMIT_32",
+           "FixedPidCoefficients", "quantise_pid", "FixedPidState", "FixedPid", "agreement_bound_count"]
+
+#: Word widths of the generated arithmetic: 64-bit intermediates, or 32-bit operations only.
+WORD_BITS = (64, 32)
+
+#: 32-bit variant: largest mantissa magnitude (15 bits, so a mantissa times a 16-bit part fits 32 bits).
+MANTISSA_LIMIT_32 = (1 << 15) - 1
+
+#: 32-bit variant: largest product shift (the rounding term 2^(s-17) of the split product fits 32 bits).
+MAX_SHIFT_32 = 46
+
+#: 32-bit variant: P, D, the integrator increment and the integrator stay within +-2^28 (Q.F), so that
+#: every sum of them fits 32 bits.
+STATE_LIMIT_32 = 1 << 28
+
+#: 32-bit variant: inputs are saturated to +-2^16 counts unless told otherwise (a 16-bit ADC).
+DEFAULT_INPUT_LIMIT_32 = 1 << 16
 
 
 # ---------------------------------------------------------------------------
@@ -77,6 +94,14 @@ class FixedPidCoefficients:
         The exact rate step in output counts (0 for none).
     out_min_exact_count, out_max_exact_count : float
         The exact physical limits divided by ``output_per_count``.
+    word_bits : {64, 32}
+        64: products formed in 64 bits; 32: the 32-bit-only variant (15-bit
+        mantissas, products split into 16-bit halves, no 64-bit operation).
+    input_limit_count : int
+        Inputs are saturated to ``+-input_limit_count`` counts.
+    integrator_limit_q : int
+        The integrator saturates at ``+-integrator_limit_q`` (Q.F): the int32
+        range for 64 bits, :data:`STATE_LIMIT_32` for 32.
     """
 
     state_frac_bits: int
@@ -107,20 +132,31 @@ class FixedPidCoefficients:
     rate_step_count: float
     out_min_exact_count: float
     out_max_exact_count: float
+    word_bits: int = 64
+    input_limit_count: int = INPUT_LIMIT_COUNT
+    integrator_limit_q: int = INT32_MAX
 
     def __post_init__(self):
         # the invariants the overflow-free arithmetic relies on (the C code asserts them too)
         f = self.state_frac_bits
         if not 0 <= f <= MAX_STATE_FRAC_BITS:
             raise ModelError(f"state_frac_bits: {f} is outside 0..{MAX_STATE_FRAC_BITS}")
+        if self.word_bits not in WORD_BITS:
+            raise ModelError(f"word_bits: must be 64 or 32, got {self.word_bits!r}")
+        mant_limit, shift_limit = (MANTISSA_LIMIT, MAX_SHIFT) if self.word_bits == 64 else (MANTISSA_LIMIT_32,
+                                                                                              MAX_SHIFT_32)
         for key in ("kp", "kpb", "ki", "ad", "bd", "track"):
             mant = getattr(self, f"{key}_mant")
-            if abs(mant) > MANTISSA_LIMIT:
-                raise ModelError(f"{key}_mant: {mant} exceeds 2^30 in magnitude")
+            if abs(mant) > mant_limit:
+                raise ModelError(f"{key}_mant: {mant} exceeds {mant_limit} in magnitude")
         for key in ("p", "ki", "ad", "bd", "track"):
             shift = getattr(self, f"{key}_shift")
-            if not 0 <= shift <= MAX_SHIFT:
-                raise ModelError(f"{key}_shift: {shift} is outside 0..{MAX_SHIFT}")
+            if not 0 <= shift <= shift_limit:
+                raise ModelError(f"{key}_shift: {shift} is outside 0..{shift_limit}")
+        if not 1 <= self.input_limit_count <= INPUT_LIMIT_COUNT:
+            raise ModelError(f"input_limit_count: {self.input_limit_count} is outside 1..2^24")
+        if not 0 < self.integrator_limit_q <= INT32_MAX:
+            raise ModelError(f"integrator_limit_q: {self.integrator_limit_q} is outside 1..2^31-1")
         if not self.out_min_count <= self.out_max_count:
             raise ModelError(f"out_min_count/out_max_count: {self.out_min_count} is above {self.out_max_count}")
         if max(abs(self.out_min_count), abs(self.out_max_count)) > INT32_MAX >> f:
@@ -159,17 +195,18 @@ class FixedPidCoefficients:
         return 0.5 * 2.0 ** self.ki_shift / abs(self.ki_mant)
 
 
-def _quantise(value: float, name: str) -> tuple[int, int]:
-    """Mantissa and right shift with ``mantissa 2^-shift ~= value`` and ``|mantissa| <= 2^30``."""
+def _quantise(value: float, name: str, mant_limit: int = MANTISSA_LIMIT, max_shift: int = MAX_SHIFT
+              ) -> tuple[int, int]:
+    """Mantissa and right shift with ``mantissa 2^-shift ~= value`` and ``|mantissa| <= mant_limit``."""
     if value == 0:
         return 0, 0
-    if abs(value) > MANTISSA_LIMIT:
+    if abs(value) > mant_limit:
         raise ModelError(f"{name}: {value:.6g} is too large for the fixed-point format "
-                         f"(more than 2^30 state units); scale the inputs or outputs differently")
-    shift = max(0, min(MAX_SHIFT, 29 - math.frexp(abs(value))[1] + 1))
-    while shift < MAX_SHIFT and abs(math.floor(abs(value) * 2.0 ** (shift + 1) + 0.5)) <= MANTISSA_LIMIT:
+                         f"(more than {mant_limit} state units); scale the inputs or outputs differently")
+    shift = max(0, min(max_shift, mant_limit.bit_length() - math.frexp(abs(value))[1]))
+    while shift < max_shift and abs(math.floor(abs(value) * 2.0 ** (shift + 1) + 0.5)) <= mant_limit:
         shift += 1
-    while shift > 0 and math.floor(abs(value) * 2.0 ** shift + 0.5) > MANTISSA_LIMIT:
+    while shift > 0 and math.floor(abs(value) * 2.0 ** shift + 0.5) > mant_limit:
         shift -= 1
     mant = int(math.copysign(math.floor(abs(value) * 2.0 ** shift + 0.5), value))
     if abs(mant) < (1 << 10):
@@ -186,7 +223,8 @@ def _limit_counts(lo: float, hi: float) -> tuple[int, int]:
     return int(lo_c), int(hi_c)
 
 
-def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_count: float) -> FixedPidCoefficients:
+def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_count: float, word_bits: int = 64,
+                 input_limit_count: int | None = None) -> FixedPidCoefficients:
     """Convert PID settings into fixed-point coefficients.
 
     Parameters
@@ -199,6 +237,15 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
     output_per_count : float
         Physical output unit per output count (e.g. volt per DAC code); may be
         negative for a reversing actuator (the limits are then swapped).
+    word_bits : {64, 32}
+        64 (default): products formed in 64 bits (library calls on cores
+        without a 64-bit multiply). 32: the variant with 32-bit operations only
+        (15-bit mantissas, products split into 16-bit halves), offered when the
+        Q formats allow it: P, D and the integrator increment must stay within
+        +-2^28 for every input within ``input_limit_count``.
+    input_limit_count : int, optional
+        Inputs are saturated to this many counts; default 2^24 (64 bits) or
+        2^16 (32 bits).
 
     Returns
     -------
@@ -208,9 +255,30 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
     ------
     ModelError
         A scale is zero or not finite, the integer limits are empty or too
-        large, a coefficient does not fit the format, or the rate limit is
-        below one state LSB per step.
+        large, a coefficient does not fit the format, the rate limit is
+        below one state LSB per step, or (32 bits) the Q formats do not allow
+        the 32-bit variant (the message gives the figure that does not fit).
+
+    Examples
+    --------
+    >>> s = PidSettings(kp=0.5, ki_per_s=0.05, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=4095.0)
+    >>> c = quantise_pid(s, input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=4096)
+    >>> c.word_bits, c.state_frac_bits, c.kp_mant, c.p_shift
+    (32, 15, 16384, 0)
     """
+    if word_bits not in WORD_BITS:
+        raise ModelError(f"word_bits: must be 64 or 32, got {word_bits!r}", key="word_bits")
+    narrow = word_bits == 32
+    limit_in = (DEFAULT_INPUT_LIMIT_32 if narrow else INPUT_LIMIT_COUNT) if input_limit_count is None \
+        else int(input_limit_count)
+    if not 1 <= limit_in <= INPUT_LIMIT_COUNT:
+        raise ModelError(f"input_limit_count: must be within 1..2^24, got {input_limit_count!r}",
+                         key="input_limit_count")
+    mant_limit, max_shift = (MANTISSA_LIMIT_32, MAX_SHIFT_32) if narrow else (MANTISSA_LIMIT, MAX_SHIFT)
+
+    def quant(value, name):
+        return _quantise(value, name, mant_limit, max_shift)
+
     if not isinstance(settings, PidSettings):
         raise ModelError(f"settings: need a PidSettings, got {type(settings).__name__}")
     for key, value in (("input_per_count", input_per_count), ("output_per_count", output_per_count)):
@@ -235,22 +303,22 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
     if big == 0:
         kp_m = kpb_m = p_s = 0
     else:
-        _, p_s = _quantise(big * two_f, "kp")
+        _, p_s = quant(big * two_f, "kp")
         kp_m = int(math.copysign(math.floor(abs(kp_c) * two_f * 2.0 ** p_s + 0.5), kp_c))
         kpb_m = int(math.copysign(math.floor(abs(kpb_c) * two_f * 2.0 ** p_s + 0.5), kpb_c))
-    ki_m, ki_s = _quantise(ki_c * two_f, "ki_per_s")
-    bd_m, bd_s = _quantise(bd_c * two_f, "kd_s")
-    ad_m, ad_s = _quantise(disc.ad, "derivative filter") if disc.ad else (0, 0)
-    tr_m, tr_s = _quantise(disc.track, "tracking_time_s") if disc.track else (0, 0)
+    ki_m, ki_s = quant(ki_c * two_f, "ki_per_s")
+    bd_m, bd_s = quant(bd_c * two_f, "kd_s")
+    ad_m, ad_s = quant(disc.ad, "derivative filter") if disc.ad else (0, 0)
+    tr_m, tr_s = quant(disc.track, "tracking_time_s") if disc.track else (0, 0)
     if disc.rate_step is None:
         rate_q, rate_c = 0, 0.0
     else:
         rate_c = disc.rate_step / abs(opc)
-        rate_q = min(INT32_MAX, math.floor(rate_c * two_f + 0.5))
+        rate_q = min(STATE_LIMIT_32 if narrow else INT32_MAX, math.floor(rate_c * two_f + 0.5))
         if rate_q < 1:
             raise ModelError(f"rate_limit_per_s: {settings.rate_limit_per_s!r} per second is below the "
                              f"fixed-point resolution (2^-{frac} count per step)")
-    return FixedPidCoefficients(
+    coeffs = FixedPidCoefficients(
         state_frac_bits=frac,
         kp_mant=kp_m, kpb_mant=kpb_m, p_shift=p_s,
         ki_mant=ki_m, ki_shift=ki_s,
@@ -264,16 +332,38 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
         kp_count=kp_c, kpb_count=kpb_c, ki_count=ki_c, bd_count=bd_c,
         ad=disc.ad, track=disc.track, rate_step_count=rate_c,
         out_min_exact_count=lo_exact, out_max_exact_count=hi_exact,
+        word_bits=word_bits, input_limit_count=limit_in,
+        integrator_limit_q=STATE_LIMIT_32 if narrow else INT32_MAX,
     )
+    if narrow:
+        _check_32_bit_ranges(coeffs)
+    return coeffs
+
+
+def _check_32_bit_ranges(c: FixedPidCoefficients) -> None:
+    """Refuse the 32-bit variant when P, D or the integrator increment could leave +-2^28 (Q.F)."""
+    if c.kp_mant * c.kpb_mant < 0:
+        raise ModelError("word_bits 32: the setpoint weight must not be negative (kp and kp b of one sign)",
+                         key="word_bits")
+    x = c.input_limit_count
+    p_max = ((abs(c.kp_mant) + abs(c.kpb_mant)) * x >> c.p_shift) + 1
+    inc_max = (abs(c.ki_mant) * 2 * x >> c.ki_shift) + 1
+    ad = c.ad_mant * 2.0 ** -c.ad_shift
+    d_max = (((abs(c.bd_mant) * 2 * x) >> c.bd_shift) + 2) / (1.0 - ad) if c.bd_mant else 0.0
+    for what, value in (("P (kp times the input range)", p_max), ("the integrator increment", inc_max),
+                        ("D (the derivative term)", d_max)):
+        if value >= STATE_LIMIT_32:
+            raise ModelError(
+                f"word_bits 32: {what} can reach {value:.4g} state units (Q{31 - c.state_frac_bits}."
+                f"{c.state_frac_bits}) for inputs within +-{x} counts, beyond 2^28; the 32-bit variant needs "
+                f"a smaller input range (input_limit_count) or gain, otherwise use the 64-bit code",
+                key="word_bits")
 
 
 # ---------------------------------------------------------------------------
 # Fixed-point reference
 # ---------------------------------------------------------------------------
 
-
-def _sat32(x: int) -> int:
-    return saturate(x, 32)
 
 
 def _as_int32(value, name: str) -> int:
@@ -339,10 +429,14 @@ class _FixedConstants(NamedTuple):
     state_half: int
     out_min_q: int
     out_max_q: int
+    input_limit: int
+    integrator_min_q: int
+    integrator_max_q: int
 
 
 def _fixed_constants(c: "FixedPidCoefficients") -> _FixedConstants:
     f = c.state_frac_bits
+    i_min = INT32_MIN if c.word_bits == 64 else -c.integrator_limit_q
     return _FixedConstants(
         c.kpb_mant, c.kp_mant, c.p_shift, half(c.p_shift),
         c.ad_mant, c.ad_shift, half(c.ad_shift),
@@ -350,7 +444,8 @@ def _fixed_constants(c: "FixedPidCoefficients") -> _FixedConstants:
         c.ki_mant, c.ki_shift, half(c.ki_shift),
         c.track_mant, c.track_shift, half(c.track_shift),
         c.rate_step_q, c.anti_windup_code, f, half(f),
-        c.out_min_count << f, c.out_max_count << f)
+        c.out_min_count << f, c.out_max_count << f,
+        c.input_limit_count, i_min, c.integrator_limit_q)
 
 
 class FixedPid:
@@ -449,8 +544,9 @@ class FixedPid:
         # One implementation for step() and run(); the shifts are written out as
         # (x + half) >> s, which is rshift_round(x, s) (Python's >> floors).
         (kpb, kp, ps, ph, ad, ads, adh, bd, bds, bdh, ki, kis, kih, tr, trs, trh,
-         rate, mode, f, fh, lo_q, hi_q) = self._constants
-        lim = INPUT_LIMIT_COUNT
+         rate, mode, f, fh, lo_q, hi_q, lim, i_lo, i_hi) = self._constants
+        # The integrator saturates at [i_lo, i_hi]: the int32 range, or +-2^28 in the 32-bit variant.
+
         r = -lim if r < -lim else lim if r > lim else r
         y = -lim if y < -lim else lim if y > lim else y
         primed, manual, have_output = self._primed, self._manual, self._have_output
@@ -461,7 +557,8 @@ class FixedPid:
         u_prev = self._u
         i = self._i
         if not primed and have_output and not manual:
-            i = _sat32(u_prev - p - d)  # bumpless start from reset(output_count)
+            x = u_prev - p - d  # bumpless start from reset(output_count)
+            i = i_lo if x < i_lo else i_hi if x > i_hi else x
         v = p + i + d
         v = INT32_MIN if v < INT32_MIN else INT32_MAX if v > INT32_MAX else v
         if manual:
@@ -472,16 +569,20 @@ class FixedPid:
             lo, hi = u_prev - rate, u_prev + rate
             u = lo if u < lo else hi if u > hi else u
         if manual:
-            i = _sat32(u - p - d)  # tracking for a bumpless return to automatic
+            x = u - p - d  # tracking for a bumpless return to automatic
+            i = i_lo if x < i_lo else i_hi if x > i_hi else x
         else:
             inc = (ki * (r - y) + kih) >> kis
             if mode == 0:  # back-calculation
-                i = _sat32(i + inc + ((tr * (u - v) + trh) >> trs))
+                x = i + inc + ((tr * (u - v) + trh) >> trs)
+                i = i_lo if x < i_lo else i_hi if x > i_hi else x
             elif mode == 1:  # clamping: hold while limited and the error drives further
                 if not ((v > u and inc > 0) or (v < u and inc < 0)):
-                    i = _sat32(i + inc)
+                    x = i + inc
+                    i = i_lo if x < i_lo else i_hi if x > i_hi else x
             else:
-                i = _sat32(i + inc)
+                x = i + inc
+                i = i_lo if x < i_lo else i_hi if x > i_hi else x
         self._i = i
         self._d = d
         self._u = u
@@ -597,7 +698,7 @@ def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_inp
     c = coeffs
     eta = 2.0 ** -c.state_frac_bits
     q = c.represented()
-    x = float(min(max_input_count, INPUT_LIMIT_COUNT))
+    x = float(min(max_input_count, c.input_limit_count))
     d_kp = abs(q["kp_count"] - c.kp_count)
     d_kpb = abs(q["kpb_count"] - c.kpb_count)
     d_ki = abs(q["ki_count"] - c.ki_count)
