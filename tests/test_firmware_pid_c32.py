@@ -46,7 +46,7 @@ def test_quantised_for_32_bits():
 
 def test_refused_when_the_q_formats_do_not_allow_it():
     # kp = 0.8 over +-2^16 input counts at F = 15: P can reach 0.8 2^16 2^15 / ... = about 2^30.7 state units
-    with pytest.raises(ModelError, match=r"word_bits 32: P .* beyond 2\^28"):
+    with pytest.raises(ModelError, match=r"32-bit variant: P .* beyond 2\^28"):
         quantise_pid(bias_loop(), input_per_count=1.0, output_per_count=1.0, word_bits=32)
     with pytest.raises(ModelError, match="setpoint weight"):
         quantise_pid(bias_loop(setpoint_weight=-0.5), input_per_count=1.0, output_per_count=1.0, word_bits=32,
@@ -93,7 +93,7 @@ def test_random_configurations_are_bit_exact_with_32_bit_operations_only(tmp_pat
             configs[f"p32_{len(configs):02d}"] = quantise_pid(s, input_per_count=ipc, output_per_count=opc,
                                                                word_bits=32, input_limit_count=limit)
         except ModelError as exc:
-            assert "word_bits 32" in str(exc) or "fixed-point" in str(exc) or "rate_limit" in str(exc) \
+            assert "32-bit variant" in str(exc) or "fixed-point" in str(exc) or "rate_limit" in str(exc) \
                 or "out_min" in str(exc), str(exc)
             refused += 1
     assert refused < 200
@@ -117,3 +117,17 @@ def test_random_configurations_are_bit_exact_with_32_bit_operations_only(tmp_pat
         assert len(got) == len(expected) and first_bad is None, (name, coeffs, first_bad)
         shifts |= {coeffs.p_shift, coeffs.ki_shift, coeffs.bd_shift, coeffs.track_shift, coeffs.ad_shift}
     assert any(s > 16 for s in shifts) and any(0 < s <= 16 for s in shifts), sorted(shifts)  # both branches
+
+
+def test_tune_emits_the_32_bit_variant_or_says_why_not(cli, tmp_path):
+    base = ("tune", "--fopdt", "2", "30", "5", "--method", "simc", "--rate-hz", "10", "--input-per-count", "0.01",
+            "--output-per-count", "0.001", "--out-min", "0", "--out-max", "4.095", "--c-word-bits", "32")
+    ok = cli(*base, "--emit-c", tmp_path / "a", "--c-input-limit-count", "4096")
+    assert ok.status == 0, ok.stderr
+    header, source = (tmp_path / "a" / "loop_pid.h").read_text(), (tmp_path / "a" / "loop_pid.c").read_text()
+    assert "LOOP_PID_WORD_BITS 32u" in header and "LOOP_PID_INPUT_LIMIT_COUNT INT32_C(4096)" in header
+    assert "int64" not in source
+    # over the default +-2^16 input counts P could reach about 3.9e9 state units: refused, nothing written
+    bad = cli(*base, "--emit-c", tmp_path / "b")
+    assert bad.status == 2 and "3.909e+09" in bad.stderr and "Traceback" not in bad.stderr
+    assert not (tmp_path / "b" / "loop_pid.c").exists()

@@ -72,6 +72,12 @@ def register(subparsers) -> None:
     em.add_argument("--out-min", type=float, help="lowest actuator value (default: -max current, or DAC code 0)")
     em.add_argument("--out-max", type=float,
                     help="highest actuator value (default: the current of maximum cooling, or the full-scale code)")
+    em.add_argument("--c-word-bits", type=int, choices=(64, 32), default=64,
+                    help="64 (default): 64-bit products (library calls on cores without a 64-bit multiply); "
+                         "32: 32-bit operations only, when the Q formats allow it (else exit 2 with the figure "
+                         "that does not fit); inputs then saturate at --c-input-limit-count")
+    em.add_argument("--c-input-limit-count", type=int, default=None, metavar="N",
+                    help="inputs are saturated to +-N counts (default 2^24; 2^16 with --c-word-bits 32)")
     p.add_argument("--plot", metavar="DIR", help="write Bode, sensitivity and step figures (PNG) into DIR")
     p.add_argument("--force", action="store_true", help="replace existing plot and C files")
     add_json_flag(p)
@@ -250,7 +256,8 @@ def _emit(args, result, T, emit, name, profile):
             for k in ("input_per_count", "output_per_count", "out_min", "out_max")}
     settings = PidSettings.from_gains(g, sample_time_s=T, out_min=pick["out_min"], out_max=pick["out_max"])
     coeffs = quantise_pid(settings, input_per_count=pick["input_per_count"],
-                          output_per_count=pick["output_per_count"])
+                          output_per_count=pick["output_per_count"], word_bits=args.c_word_bits,
+                          input_limit_count=args.c_input_limit_count)
     banner = {"method": result.method, "controller": "PID" if result.pid else "PI", "rate_hz": f"{1.0 / T:g}",
               "kp": f"{g.kp:.6g}", "ki_per_s": f"{g.ki_per_s:.6g}", "kd_s": f"{g.kd_s:.6g}",
               "input_per_count": f"{pick['input_per_count']:.6g}",

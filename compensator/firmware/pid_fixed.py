@@ -297,6 +297,14 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
         raise ModelError(f"out_min/out_max: limits of {largest} counts exceed the fixed-point range (2^27 counts)")
     scale = ipc / opc
     kp_c, kpb_c, ki_c, bd_c = disc.kp * scale, disc.kpb * scale, disc.bi * scale, disc.bd * scale
+    if narrow:  # 15-bit mantissas: fewer state fraction bits where a count gain would not fit otherwise
+        biggest = max(abs(kp_c), abs(kpb_c), abs(ki_c), abs(bd_c))
+        while frac > 0 and biggest * 2.0 ** frac > mant_limit:
+            frac -= 1
+        if biggest * 2.0 ** frac > mant_limit:
+            raise ModelError(f"the 32-bit variant: a gain of {biggest:.6g} output counts per input count does not "
+                             f"fit a 15-bit mantissa even without state fraction bits; use the 64-bit code",
+                             key="word_bits")
     two_f = 2.0 ** frac
     # kp and kp b share one shift so that P = kp (b r - y) is formed with one rounding
     big = max(abs(kp_c), abs(kpb_c))
@@ -343,7 +351,7 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
 def _check_32_bit_ranges(c: FixedPidCoefficients) -> None:
     """Refuse the 32-bit variant when P, D or the integrator increment could leave +-2^28 (Q.F)."""
     if c.kp_mant * c.kpb_mant < 0:
-        raise ModelError("word_bits 32: the setpoint weight must not be negative (kp and kp b of one sign)",
+        raise ModelError("the 32-bit variant: the setpoint weight must not be negative (kp and kp b of one sign)",
                          key="word_bits")
     x = c.input_limit_count
     p_max = ((abs(c.kp_mant) + abs(c.kpb_mant)) * x >> c.p_shift) + 1
@@ -354,7 +362,7 @@ def _check_32_bit_ranges(c: FixedPidCoefficients) -> None:
                         ("D (the derivative term)", d_max)):
         if value >= STATE_LIMIT_32:
             raise ModelError(
-                f"word_bits 32: {what} can reach {value:.4g} state units (Q{31 - c.state_frac_bits}."
+                f"the 32-bit variant: {what} can reach {value:.4g} state units (Q{31 - c.state_frac_bits}."
                 f"{c.state_frac_bits}) for inputs within +-{x} counts, beyond 2^28; the 32-bit variant needs "
                 f"a smaller input range (input_limit_count) or gain, otherwise use the 64-bit code",
                 key="word_bits")

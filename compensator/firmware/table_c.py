@@ -174,7 +174,8 @@ def _header_notes(table: LookupTable, sym: str, up: str) -> list:
     notes = [
         " *\n",
         f" * {sym}(adc_code) returns the DAC code for a raw temperature ADC code:\n",
-        f" *   codes {table.code_lo}..{table.code_hi} (the operating range) are interpolated ({table.layout} layout);\n",
+        f" *   codes {table.code_lo}..{table.code_hi} (the operating range) are interpolated"
+        f" ({table.layout} layout);\n",
         f" *   codes {table.fault_lo}..{table.code_lo - 1} ({below} than the range) and {table.code_hi + 1}.."
         f"{table.fault_hi} ({above}) are\n",
         " *   held at the value of the nearer end of the range;\n",
