@@ -44,10 +44,15 @@ def test_quantised_for_32_bits():
     assert rep["kpb_count"] == pytest.approx(0.56, rel=2 ** -13)
 
 
-def test_refused_when_the_q_formats_do_not_allow_it():
-    # kp = 0.8 over +-2^16 input counts at F = 15: P can reach 0.8 2^16 2^15 / ... = about 2^30.7 state units
+def test_fewer_fraction_bits_for_range_then_refused():
+    # kp = 0.8 and kp b = 0.56 over +-2^16 input counts: P reaches 1.36 2^16 2^F state units, within 2^28 only
+    # for F <= 11 (1.36 2^27 = 1.8e8); the limits alone would allow F = 15.
+    c = quantise_pid(bias_loop(), input_per_count=1.0, output_per_count=1.0, word_bits=32)
+    assert c.state_frac_bits == 11 and c.input_limit_count == 1 << 16
+    # kp = 5000 counts per count: (5000 + 3500) 2^16 = 5.6e8 > 2^28 even at F = 0: refused, naming P
     with pytest.raises(ModelError, match=r"32-bit variant: P .* beyond 2\^28"):
-        quantise_pid(bias_loop(), input_per_count=1.0, output_per_count=1.0, word_bits=32)
+        quantise_pid(bias_loop(kp=5000.0, ki_per_s=0.0, kd_s=0.0), input_per_count=1.0, output_per_count=1.0,
+                     word_bits=32)
     with pytest.raises(ModelError, match="setpoint weight"):
         quantise_pid(bias_loop(setpoint_weight=-0.5), input_per_count=1.0, output_per_count=1.0, word_bits=32,
                      input_limit_count=4096)
@@ -127,7 +132,8 @@ def test_tune_emits_the_32_bit_variant_or_says_why_not(cli, tmp_path):
     header, source = (tmp_path / "a" / "loop_pid.h").read_text(), (tmp_path / "a" / "loop_pid.c").read_text()
     assert "LOOP_PID_WORD_BITS 32u" in header and "LOOP_PID_INPUT_LIMIT_COUNT INT32_C(4096)" in header
     assert "int64" not in source
-    # over the default +-2^16 input counts P could reach about 3.9e9 state units: refused, nothing written
-    bad = cli(*base, "--emit-c", tmp_path / "b")
-    assert bad.status == 2 and "3.909e+09" in bad.stderr and "Traceback" not in bad.stderr
-    assert not (tmp_path / "b" / "loop_pid.c").exists()
+    assert "LOOP_PID_STATE_FRAC_BITS 11u" in header
+    # over the default +-2^16 input counts kp = 14.56 needs 4 fewer fraction bits for P to stay within 2^28
+    wide = cli(*base, "--emit-c", tmp_path / "b")
+    assert wide.status == 0, wide.stderr
+    assert "LOOP_PID_STATE_FRAC_BITS 7u" in (tmp_path / "b" / "loop_pid.h").read_text()

@@ -15,7 +15,7 @@ from typing import NamedTuple
 import numpy as np
 
 from compensator.errors import ModelError
-from compensator.firmware.fixed_point import INT32_MAX, INT32_MIN, half, rshift_round, saturate
+from compensator.firmware.fixed_point import INT32_MAX, INT32_MIN, half, rshift_round
 from compensator.firmware.pid import (
     ANTI_WINDUP_MODES,
     INPUT_LIMIT_COUNT,
@@ -305,47 +305,60 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
             raise ModelError(f"the 32-bit variant: a gain of {biggest:.6g} output counts per input count does not "
                              f"fit a 15-bit mantissa even without state fraction bits; use the 64-bit code",
                              key="word_bits")
-    two_f = 2.0 ** frac
-    # kp and kp b share one shift so that P = kp (b r - y) is formed with one rounding
-    big = max(abs(kp_c), abs(kpb_c))
-    if big == 0:
-        kp_m = kpb_m = p_s = 0
-    else:
-        _, p_s = quant(big * two_f, "kp")
-        kp_m = int(math.copysign(math.floor(abs(kp_c) * two_f * 2.0 ** p_s + 0.5), kp_c))
-        kpb_m = int(math.copysign(math.floor(abs(kpb_c) * two_f * 2.0 ** p_s + 0.5), kpb_c))
-    ki_m, ki_s = quant(ki_c * two_f, "ki_per_s")
-    bd_m, bd_s = quant(bd_c * two_f, "kd_s")
-    ad_m, ad_s = quant(disc.ad, "derivative filter") if disc.ad else (0, 0)
-    tr_m, tr_s = quant(disc.track, "tracking_time_s") if disc.track else (0, 0)
-    if disc.rate_step is None:
-        rate_q, rate_c = 0, 0.0
-    else:
-        rate_c = disc.rate_step / abs(opc)
-        rate_q = min(STATE_LIMIT_32 if narrow else INT32_MAX, math.floor(rate_c * two_f + 0.5))
-        if rate_q < 1:
-            raise ModelError(f"rate_limit_per_s: {settings.rate_limit_per_s!r} per second is below the "
-                             f"fixed-point resolution (2^-{frac} count per step)")
-    coeffs = FixedPidCoefficients(
-        state_frac_bits=frac,
-        kp_mant=kp_m, kpb_mant=kpb_m, p_shift=p_s,
-        ki_mant=ki_m, ki_shift=ki_s,
-        ad_mant=ad_m, ad_shift=ad_s,
-        bd_mant=bd_m, bd_shift=bd_s,
-        track_mant=tr_m, track_shift=tr_s,
-        out_min_count=lo_c, out_max_count=hi_c,
-        rate_step_q=rate_q,
-        anti_windup=settings.anti_windup,
-        input_per_count=ipc, output_per_count=opc, sample_time_s=float(settings.sample_time_s),
-        kp_count=kp_c, kpb_count=kpb_c, ki_count=ki_c, bd_count=bd_c,
-        ad=disc.ad, track=disc.track, rate_step_count=rate_c,
-        out_min_exact_count=lo_exact, out_max_exact_count=hi_exact,
-        word_bits=word_bits, input_limit_count=limit_in,
-        integrator_limit_q=STATE_LIMIT_32 if narrow else INT32_MAX,
-    )
-    if narrow:
-        _check_32_bit_ranges(coeffs)
-    return coeffs
+    def build(frac: int) -> FixedPidCoefficients:
+        two_f = 2.0 ** frac
+        # kp and kp b share one shift so that P = kp (b r - y) is formed with one rounding
+        big = max(abs(kp_c), abs(kpb_c))
+        if big == 0:
+            kp_m = kpb_m = p_s = 0
+        else:
+            _, p_s = quant(big * two_f, "kp")
+            kp_m = int(math.copysign(math.floor(abs(kp_c) * two_f * 2.0 ** p_s + 0.5), kp_c))
+            kpb_m = int(math.copysign(math.floor(abs(kpb_c) * two_f * 2.0 ** p_s + 0.5), kpb_c))
+        ki_m, ki_s = quant(ki_c * two_f, "ki_per_s")
+        bd_m, bd_s = quant(bd_c * two_f, "kd_s")
+        ad_m, ad_s = quant(disc.ad, "derivative filter") if disc.ad else (0, 0)
+        tr_m, tr_s = quant(disc.track, "tracking_time_s") if disc.track else (0, 0)
+        if disc.rate_step is None:
+            rate_q, rate_c = 0, 0.0
+        else:
+            rate_c = disc.rate_step / abs(opc)
+            rate_q = min(STATE_LIMIT_32 if narrow else INT32_MAX, math.floor(rate_c * two_f + 0.5))
+            if rate_q < 1:
+                raise ModelError(f"rate_limit_per_s: {settings.rate_limit_per_s!r} per second is below the "
+                                 f"fixed-point resolution (2^-{frac} count per step)")
+        coeffs = FixedPidCoefficients(
+            state_frac_bits=frac,
+            kp_mant=kp_m, kpb_mant=kpb_m, p_shift=p_s,
+            ki_mant=ki_m, ki_shift=ki_s,
+            ad_mant=ad_m, ad_shift=ad_s,
+            bd_mant=bd_m, bd_shift=bd_s,
+            track_mant=tr_m, track_shift=tr_s,
+            out_min_count=lo_c, out_max_count=hi_c,
+            rate_step_q=rate_q,
+            anti_windup=settings.anti_windup,
+            input_per_count=ipc, output_per_count=opc, sample_time_s=float(settings.sample_time_s),
+            kp_count=kp_c, kpb_count=kpb_c, ki_count=ki_c, bd_count=bd_c,
+            ad=disc.ad, track=disc.track, rate_step_count=rate_c,
+            out_min_exact_count=lo_exact, out_max_exact_count=hi_exact,
+            word_bits=word_bits, input_limit_count=limit_in,
+            integrator_limit_q=STATE_LIMIT_32 if narrow else INT32_MAX,
+        )
+        return coeffs
+
+    if not narrow:
+        return build(frac)
+    # 32 bits: P, D and the integrator increment must stay within 2^28 (Q.F); give up state fraction bits
+    # (resolution) for range where needed, and say what does not fit when even F = 0 is not enough.
+    first_error = None
+    for f in range(frac, -1, -1):
+        coeffs = build(f)
+        try:
+            _check_32_bit_ranges(coeffs)
+            return coeffs
+        except ModelError as exc:
+            first_error = first_error or exc
+    raise first_error
 
 
 def _check_32_bit_ranges(c: FixedPidCoefficients) -> None:
