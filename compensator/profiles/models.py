@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from compensator.errors import ModelError, ProfileError
+from compensator.physics.bias_readback import BiasReadback
 from compensator.physics.current_sense import CurrentSense
 from compensator.physics.sensors import FrontEnd, NtcSensor, RtdSensor, SteinhartHart, TemperatureChannel
 from compensator.physics.sipm import Breakdown, Sipm
@@ -47,6 +48,9 @@ class BoardProfile(_Meta):
         DAC code applied when the temperature reading is invalid.
     current_sense : CurrentSense or None
         The SiPM current channel, when the board has one.
+    bias_readback : BiasReadback or None
+        The supply-output measurement, when the board has one (without it
+        the bias is set open-loop).
     """
 
     temperature: TemperatureChannel = None
@@ -57,6 +61,7 @@ class BoardProfile(_Meta):
     max_bias_v: float = 0.0
     safe_dac_code: int = 0
     current_sense: CurrentSense | None = None
+    bias_readback: BiasReadback | None = None
 
 
 @dataclass(frozen=True)
@@ -154,11 +159,25 @@ def _build_board(raw: RawProfile) -> BoardProfile:
         cs = v["current_sense"]
         current_sense = CurrentSense(cs["adc_bits"], cs["reference_v"], cs["sense_gain_v_per_a"],
                                      cs["reference_tolerance_pct"], cs["gain_tolerance_pct"], cs["offset_a"])
+    bias_readback = None
+    if "bias_readback" in v:
+        rb = v["bias_readback"]
+        bias_readback = BiasReadback(
+            adc_bits=rb["adc_bits"], reference_v=rb["reference_v"], divider_ratio_v_per_v=rb["divider_ratio_v_per_v"],
+            reference_tolerance_pct=rb["reference_tolerance_pct"], divider_tolerance_pct=rb["divider_tolerance_pct"],
+            offset_v=rb["offset_v"], filter_time_constant_s=rb["filter_time_constant_s"])
+        highest_v = min(hi_v, lim["max_bias_v"])
+        if bias_readback.full_scale_v < highest_v:
+            problems.append(raw.problem(
+                "bias_readback.divider_ratio_v_per_v",
+                f"the read-back saturates at {bias_readback.full_scale_v:.4g} V, below the highest output "
+                f"{highest_v:.4g} V the board can set"))
     if problems:
         raise ProfileError(problems)
     return BoardProfile(**_meta(raw), temperature=channel, supply=supply, control_rate_hz=ctl["rate_hz"],
                         min_temp_c=lim["min_temp_c"], max_temp_c=lim["max_temp_c"], max_bias_v=lim["max_bias_v"],
-                        safe_dac_code=int(safe), current_sense=current_sense)
+                        safe_dac_code=int(safe), current_sense=current_sense,
+                        bias_readback=bias_readback)
 
 
 def _build_thermal(raw: RawProfile) -> ThermalProfile:

@@ -213,6 +213,17 @@ BOARD = KindSchema(
             _opt("gain_tolerance_pct", "tolerance of the sense gain (resistor and amplifier), percent", 0.5, ge=0),
             _opt("offset_a", "largest input offset referred to the SiPM current (either sign), ampere", 0.0, ge=0),
         ), required=False),
+        Section("bias_readback", "Optional: the supply output measured back through a divider by an ADC (needed to "
+                "close a bias loop; without it the bias is set open-loop and no bias loop is tuned).", (
+            Key("adc_bits", INT, "resolution of the read-back ADC, bits", ge=6, le=24),
+            _f("reference_v", "full-scale reference voltage of the read-back ADC, volt", gt=0, le=50),
+            _opt("reference_tolerance_pct", "reference voltage tolerance, percent", 0.1, ge=0, le=10),
+            _f("divider_ratio_v_per_v", "volts at the ADC input per volt of supply output (divider ratio, "
+               "0 to 1), volt per volt", gt=0, le=1),
+            _opt("divider_tolerance_pct", "tolerance of the divider ratio, percent", 0.1, ge=0, le=10),
+            _opt("offset_v", "largest offset referred to the supply output (either sign), volt", 0.0, ge=0, le=10),
+            _opt("filter_time_constant_s", "first-order lag of the read-back filter, second", 0.0, ge=0, le=10),
+        ), required=False),
     ),
 )
 
