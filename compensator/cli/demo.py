@@ -201,7 +201,7 @@ def _require(root: Path, name: str) -> Path:
 
 
 def run(args) -> int:
-    from compensator.law import build_law, gain_error_budget
+    from compensator.law import build_law, electronics_terms, gain_error_budget
 
     root = Path(args.profiles)
     out_dir = Path(args.out) if args.out else None
@@ -235,7 +235,10 @@ def run(args) -> int:
                        "calibrated_rss_pct": budget.calibrated_rss_pct,
                        "calibrated_worst_case_pct": budget.calibrated_worst_case_pct,
                        "dominant": budget.dominant, "calibrated_dominant": budget.calibrated_dominant,
-                       "monte_carlo_std_pct": budget.monte_carlo.std_pct if budget.monte_carlo else None},
+                       "monte_carlo_std_pct": budget.monte_carlo.std_pct if budget.monte_carlo else None,
+                       "electronics_terms": [{"key": t.key, "limit_pct": t.limit_pct,
+                                              "calibrated_limit_pct": t.calibrated_limit_pct}
+                                             for t in electronics_terms(budget)]},
             "table": tables,
         })
         say(f"\n== 2. {sipm_profile.name} on {board_profile.name}: Vbd {device.breakdown.breakdown_v_at_ref:g} V at "
@@ -254,6 +257,9 @@ def run(args) -> int:
         say(f"budget of what the hardware adds: {budget.rss_pct:.2f} % (1 sigma) as built, dominated by "
             f"{budget.dominant}; {budget.calibrated_rss_pct:.2f} % after a one-point calibration, dominated by "
             f"{budget.calibrated_dominant}")
+        drift = sorted(electronics_terms(budget), key=lambda t: -t.calibrated_limit_pct)[:4]
+        say("electronics drift and lag after calibration (limit, largest over the range): " + "; ".join(
+            f"{t.name} {t.calibrated_limit_pct:.3f} %" for t in drift))
         say(f"== 3. lookup table at {tables['bound_pct']:g} %: optimised {tables['optimised_entries']} entries "
             f"({tables['optimised_table_bytes']} B), smallest uniform {tables['uniform_entries']} entries "
             f"({tables['uniform_table_bytes']} B); {tables['codes_verified']} ADC codes verified, worst "
