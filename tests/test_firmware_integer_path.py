@@ -10,7 +10,7 @@ from compensator.law import build_law
 
 @pytest.fixture(scope="module")
 def path(sipm_a, board_ntc):
-    law = build_law(sipm_a, board_ntc, 3.0, "constant_gain")
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain")
     table = build_table(law, board_ntc, 0.05, "optimised")
     return law, table, integer_path_gain_error(table, law, board_ntc)
 
