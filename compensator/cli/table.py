@@ -146,9 +146,9 @@ def _result(args, sipm, board, law, built, paths) -> dict:
         "adc_code_range": [table.code_lo, table.code_hi], "adc_fault_band": [table.fault_lo, table.fault_hi],
         "safe_dac_code": table.safe_dac_code, "dac_clamp": [table.dac_min, table.dac_max],
         "safe_state": None if safe is None else {
-            "dac_code": safe.dac_code, "profile_dac_code": safe.profile_dac_code,
-            "output_v_max": safe.output_v_max, "coldest_temp_c": safe.coldest_temp_c,
-            "breakdown_v_min": safe.breakdown_v_min, "margin_v": safe.margin_v,
+            "safe_dac_code": safe.dac_code, "profile_dac_code": safe.profile_dac_code,
+            "max_output_v": safe.max_output_v, "min_temp_c": safe.coldest_temp_c,
+            "min_breakdown_v": safe.min_breakdown_v, "margin_v": safe.margin_v,
             "below_breakdown": safe.below_breakdown, "needs_shutdown_line": safe.needs_shutdown_line},
         "c_function": c_function_signature(table, args.name, prefix=args.prefix),
         "sweep": built.sweep_mode,
@@ -188,10 +188,10 @@ def _print_text(args, result: dict, built) -> None:
     print(f"codes outside {table.fault_lo}..{table.fault_hi} give the safe DAC code {table.safe_dac_code}")
     safe = table.safe_state
     if safe is not None and safe.below_breakdown:
-        print(f"safe state: at most {safe.output_v_max:.3f} V, {safe.margin_v:.3f} V below the SiPM breakdown at "
+        print(f"safe state: at most {safe.max_output_v:.3f} V, {safe.margin_v:.3f} V below the SiPM breakdown at "
               f"{safe.coldest_temp_c:g} C with every tolerance against it")
     elif safe is not None:
-        print(f"safe state: NOT SAFE: up to {safe.output_v_max:.3f} V, {-safe.margin_v:.3f} V above the SiPM "
+        print(f"safe state: NOT SAFE: up to {safe.max_output_v:.3f} V, {-safe.margin_v:.3f} V above the SiPM "
               f"breakdown at {safe.coldest_temp_c:g} C: the board needs a hardware enable/shutdown line (see stderr "
               f"and the header)")
     for finding in built.findings:

@@ -58,14 +58,14 @@ class SafeState:
         The board profile's ``safe_dac_code``.
     lowest_output_dac_code : int
         The code whose worst-case output is lowest.
-    output_v_max : float
+    max_output_v : float
         Highest supply output at ``dac_code`` with every tolerance, volt.
     coldest_temp_c : float
         The coldest temperature of the operating range, degree Celsius.
-    breakdown_v_min : float
+    min_breakdown_v : float
         Lowest breakdown voltage there with every tolerance, volt.
     margin_v : float
-        ``breakdown_v_min - output_v_max``: positive when the SiPM is below breakdown, volt.
+        ``min_breakdown_v - max_output_v``: positive when the SiPM is below breakdown, volt.
     below_breakdown : bool
         Whether the fault state holds the SiPM below breakdown.
     needs_shutdown_line : bool
@@ -77,9 +77,9 @@ class SafeState:
     dac_code: int
     profile_dac_code: int
     lowest_output_dac_code: int
-    output_v_max: float
+    max_output_v: float
     coldest_temp_c: float
-    breakdown_v_min: float
+    min_breakdown_v: float
     margin_v: float
     below_breakdown: bool
     needs_shutdown_line: bool
@@ -172,5 +172,5 @@ def safe_state(law, board) -> SafeState:
                      f"tolerances), so a sensor fault leaves the SiPM biased above breakdown; the board needs "
                      f"{SHUTDOWN_LINE_TEXT}")))
     return SafeState(dac_code=int(code), profile_dac_code=profile_code, lowest_output_dac_code=int(lowest),
-                     output_v_max=out_v, coldest_temp_c=t_cold, breakdown_v_min=bd_min, margin_v=bd_min - out_v,
+                     max_output_v=out_v, coldest_temp_c=t_cold, min_breakdown_v=bd_min, margin_v=bd_min - out_v,
                      below_breakdown=safe, needs_shutdown_line=not safe, findings=tuple(findings))

@@ -186,8 +186,8 @@ def _header_notes(table: LookupTable, sym: str, up: str) -> list:
     if safe is not None and safe.below_breakdown:
         notes.append(
             " *\n"
-            f" * Sensor fault: {up}_SAFE_DAC_CODE gives at most {safe.output_v_max:.3f} V (every supply tolerance\n"
-            f" *   against it), below the SiPM breakdown of {safe.breakdown_v_min:.3f} V at {safe.coldest_temp_c:g} C"
+            f" * Sensor fault: {up}_SAFE_DAC_CODE gives at most {safe.max_output_v:.3f} V (every supply tolerance\n"
+            f" *   against it), below the SiPM breakdown of {safe.min_breakdown_v:.3f} V at {safe.coldest_temp_c:g} C"
             f" (calibration\n *   uncertainty against it): {safe.margin_v:.3f} V of margin.\n")
     elif safe is not None:
         words = SHUTDOWN_LINE_TEXT.split()
@@ -201,8 +201,8 @@ def _header_notes(table: LookupTable, sym: str, up: str) -> list:
         notes.append(
             " *\n"
             " * WARNING: NO SAFE DAC CODE. The supply's lowest output is up to\n"
-            f" *   {safe.output_v_max:.3f} V, {-safe.margin_v:.3f} V above the SiPM breakdown of "
-            f"{safe.breakdown_v_min:.3f} V at {safe.coldest_temp_c:g} C,\n"
+            f" *   {safe.max_output_v:.3f} V, {-safe.margin_v:.3f} V above the SiPM breakdown of "
+            f"{safe.min_breakdown_v:.3f} V at {safe.coldest_temp_c:g} C,\n"
             f" *   so {up}_SAFE_DAC_CODE does NOT switch the SiPM off. The board needs\n"
             + "".join(f" *   {ln}\n" for ln in lines)
             + f" *   ({up}_STATUS_SENSOR_FAULT from {sym}_status()).\n")
