@@ -4,8 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from compensator.cli._common import add_json_flag, print_json
-from compensator.cli.budget import add_law_arguments, law_from_args
+from compensator.cli._common import add_json_flag, add_law_arguments, law_from_args, print_json
 from compensator.fileio import write_files_atomic
 from compensator.firmware.table_c import (
     DEFAULT_FUNCTION_NAME,
