@@ -253,7 +253,7 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("max_output_v", "V", "highest supply output at the safe DAC code, every tolerance against it"),
         ("min_breakdown_v", "V", "lowest breakdown voltage at the coldest temperature, every tolerance against it"),
         ("min_temp_c", "degree C", "lowest temperature of the operating range"),
-        ("needs_shutdown_line", "true/false", "no DAC code holds the SiPM below breakdown: a hardware enable is needed"),
+        ("needs_shutdown_line", "true/false", "no DAC code holds the SiPM below breakdown: hardware enable needed"),
         ("profile_dac_code", "code", "the board profile's safe_dac_code"),
         ("safe_dac_code", "code", "DAC code given for a faulty sensor reading"),
         ("safe_state", "record", "what the sensor-fault DAC code does to the SiPM at the coldest temperature"),

@@ -7,13 +7,14 @@ from pathlib import Path
 
 from compensator.cli._common import (
     add_json_flag,
+    add_law_arguments,
     format_table,
+    law_from_args,
     non_negative_float,
     positive_float,
     print_json,
     usage_error,
 )
-from compensator.cli.budget import add_law_arguments, law_from_args
 from compensator.errors import InputError, Problem
 from compensator.fileio import write_files_atomic
 from compensator.findings import Severity
