@@ -14,7 +14,7 @@ _EXPORTS = {
                "DEFAULT_FAULT_MARGIN_K"),
     "layouts": ("LAYOUTS", "LAYOUT_CHOICES"),
     "current": ("CurrentCorrection", "build_current_correction"),
-    "safe_state": ("SafeState", "safe_state", "worst_case_output_v", "lowest_breakdown_v"),
+    "safe_state": ("SafeState", "safe_state"),
     "table_c": ("render_table_c", "render_sweep_csv", "c_function_signature", "c_current_function_signature",
                 "default_sweep_mode", "SWEEP_MODES"),
     "c_names": ("check_function_name", "check_prefix"),

@@ -1,44 +1,28 @@
-"""The sensor-fault state: a DAC code that leaves the SiPM below breakdown, or a named hardware need.
+"""The sensor-fault state of a table: a DAC code that leaves the SiPM below breakdown, or a named need.
 
 When the temperature reading is invalid (open or shorted sensor, a rail
 code), the firmware applies ``safe_dac_code``. That state is safe only if the
-supply output there lies below the SiPM's breakdown voltage at the coldest
-temperature of the operating range (breakdown falls with temperature), with
-every tolerance against it:
+supply output there lies below the SiPM's breakdown voltage wherever in the
+operating range the die really is, with every tolerance against it: the
+numbers come from :func:`compensator.law.safety.safe_bias` (lowest breakdown
+with the calibration uncertainties at three standard uncertainties, supply
+output at the worst corner of every tolerance and drift).
 
-* the supply output at the code is taken at its highest over every corner of
-  the network's resistor tolerance and the DAC reference tolerance (the
-  regulator never goes below its ``min_output_v``; the feedback reference and
-  the direct-drive offset have no tolerance in the profiles and are taken as
-  exact); no drop across the series resistor is counted (below breakdown
-  almost no current flows);
-* the breakdown voltage is taken at its lowest: the nominal breakdown at
-  ``min_temp_c`` less ``SIGMA_COVERAGE`` standard uncertainties of the
-  breakdown calibration and of the temperature coefficient times the distance
-  from the reference temperature, added linearly (a worst case; three
-  standard uncertainties is common practice for a limit).
-
-If the board's ``safe_dac_code`` is not safe but the code of lowest output is,
-that code is used instead and a warning says so. If no code is safe, the
-supply cannot switch the SiPM off by itself: a *danger* finding names the
-hardware enable (shutdown) line the board needs, and the generated C header
-says the same.
+This module makes the table's decision: the board's ``safe_dac_code`` is kept
+when it is safe; otherwise the code of lowest output is used, with a warning
+when that one is safe. If no code is safe, the supply cannot switch the SiPM
+off by itself: a *danger* finding names the hardware enable (shutdown) line
+the board needs, and the generated C header says the same.
 """
 
 from __future__ import annotations
 
-import itertools
-from dataclasses import dataclass, replace
-
-import numpy as np
+from dataclasses import dataclass
 
 from compensator.findings import Finding, Severity
-from compensator.physics.sipm import breakdown_v
+from compensator.law.safety import highest_output_v, safe_bias
 
-__all__ = ["SIGMA_COVERAGE", "SafeState", "worst_case_output_v", "lowest_breakdown_v", "safe_state"]
-
-#: Standard uncertainties of the breakdown calibration counted against the safe state.
-SIGMA_COVERAGE = 3.0
+__all__ = ["SHUTDOWN_LINE_TEXT", "SafeState", "safe_state"]
 
 #: What a board needs when its supply cannot go below breakdown (used in findings and in the C header).
 SHUTDOWN_LINE_TEXT = ("a hardware enable (shutdown) input on the bias regulator, or a load switch in the bias "
@@ -86,51 +70,6 @@ class SafeState:
     findings: tuple = ()
 
 
-def worst_case_output_v(supply, dac_code) -> float:
-    """Highest regulator output at ``dac_code`` over every corner of the network and DAC reference tolerances.
-
-    Parameters
-    ----------
-    supply : BiasSupply
-    dac_code : int
-
-    Returns
-    -------
-    float
-        Volt, never below the regulator's ``min_output_v``.
-    """
-    tol = 1e-2 * supply.resistor_tolerance_pct
-    ref_tol = 1e-2 * supply.dac.reference_tolerance_pct
-    best = -np.inf
-    if supply.topology == "feedback_injection":
-        keys = ("r1_ohm", "r2_ohm", "r3_ohm")
-    else:
-        keys = ("gain_v_per_v",)
-    for signs in itertools.product((-1.0, 1.0), repeat=len(keys) + 1):
-        dac = replace(supply.dac, reference_v=supply.dac.reference_v * (1 + signs[0] * ref_tol))
-        changes = {k: getattr(supply, k) * (1 + s * tol) for k, s in zip(keys, signs[1:])}
-        corner = replace(supply, dac=dac, **changes)
-        best = max(best, float(corner.network_output_v(dac_code)))
-    return float(np.clip(best, supply.min_output_v, supply.max_output_v))
-
-
-def lowest_breakdown_v(sipm, temp_c: float, sigma: float = SIGMA_COVERAGE) -> float:
-    """Breakdown voltage at ``temp_c`` less ``sigma`` standard uncertainties of its calibration, volt.
-
-    Parameters
-    ----------
-    sipm : Sipm
-        The device model (``breakdown.breakdown_err_v``, ``breakdown.tempco_err_mv_per_k``).
-    temp_c : float
-        Degree Celsius.
-    sigma : float
-        Coverage factor.
-    """
-    bd = sipm.breakdown
-    spread_v = bd.breakdown_err_v + 1e-3 * bd.tempco_err_mv_per_k * abs(temp_c - bd.ref_temp_c)
-    return float(breakdown_v(sipm, temp_c)) - sigma * spread_v
-
-
 def safe_state(law, board) -> SafeState:
     """Check the board's sensor-fault DAC code against the SiPM's breakdown at the coldest temperature.
 
@@ -145,18 +84,16 @@ def safe_state(law, board) -> SafeState:
     -------
     SafeState
     """
-    supply = law.supply
-    t_cold = float(law.min_temp_c)
-    bd_min = lowest_breakdown_v(law.sipm, t_cold)
+    bias = safe_bias(law, board)
+    t_cold, bd_min = bias.coldest_temp_c, bias.lowest_breakdown_v
     profile_code = int(board.safe_dac_code)
-    ends = (0, supply.dac.full_scale_code)
-    lowest = min(ends, key=lambda c: (worst_case_output_v(supply, c), c))
-    profile_v = worst_case_output_v(supply, profile_code)
+    lowest = bias.dac_code
+    profile_v = highest_output_v(law, board, profile_code)
     findings = []
     if profile_v < bd_min:
         code, out_v = profile_code, profile_v
     else:
-        code, out_v = lowest, worst_case_output_v(supply, lowest)
+        code, out_v = lowest, bias.highest_output_v
         if out_v < bd_min:
             findings.append(Finding(
                 code="safe_dac_code_replaced", severity=Severity.WARNING,
