@@ -372,6 +372,24 @@ static void init_at_{n}(int32_t o) {{ {n}_init_at(&st_{n}, o); }}""")
     return "\n".join(parts)
 
 
+def check_multi_bit_exact(tmp_path, configs: dict, files: dict, seed: int) -> set:
+    """Compile every controller into one program, run each over a seeded schedule, compare bit for bit with
+    its Python reference; return the product shifts the configurations used."""
+    exe = compile_c(tmp_path, files, {"multi.c": multi_harness(list(configs))},
+                    STRICT + ["-O1"] + sanitizer_flags(tmp_path))
+    shifts = set()
+    for index, (name, coeffs) in enumerate(configs.items()):
+        sched = random_schedule(np.random.default_rng(seed + index), 3000, coeffs)
+        result = subprocess.run([str(exe), str(index)], input=c_commands(sched), capture_output=True, text=True)
+        assert result.returncode == 0 and result.stderr == "", (name, result.stderr)
+        got = [tuple(int(v) for v in line.split()) for line in result.stdout.splitlines()]
+        expected = run_python(coeffs, sched)
+        first_bad = next((k for k, (a, b) in enumerate(zip(got, expected)) if a != b), None)
+        assert len(got) == len(expected) and first_bad is None, (name, coeffs, first_bad)
+        shifts |= {coeffs.p_shift, coeffs.ki_shift, coeffs.bd_shift, coeffs.track_shift, coeffs.ad_shift}
+    return shifts
+
+
 @needs_cc
 def test_random_configurations_are_bit_exact(tmp_path):
     rng = np.random.default_rng(515)
@@ -387,18 +405,7 @@ def test_random_configurations_are_bit_exact(tmp_path):
     files = {}
     for name, coeffs in configs.items():
         files.update(render_pid_c(coeffs, name=name))
-    exe = compile_c(tmp_path, files, {"multi.c": multi_harness(list(configs))},
-                    STRICT + ["-O1"] + sanitizer_flags(tmp_path))
-    shifts = set()
-    for index, (name, coeffs) in enumerate(configs.items()):
-        sched = random_schedule(np.random.default_rng(index), 3000, coeffs)
-        result = subprocess.run([str(exe), str(index)], input=c_commands(sched), capture_output=True, text=True)
-        assert result.returncode == 0 and result.stderr == "", (name, result.stderr)
-        got = [tuple(int(v) for v in line.split()) for line in result.stdout.splitlines()]
-        expected = run_python(coeffs, sched)
-        first_bad = next((k for k, (a, b) in enumerate(zip(got, expected)) if a != b), None)
-        assert len(got) == len(expected) and first_bad is None, (name, coeffs, first_bad)
-        shifts |= {coeffs.p_shift, coeffs.ki_shift, coeffs.bd_shift, coeffs.track_shift, coeffs.ad_shift}
+    shifts = check_multi_bit_exact(tmp_path, configs, files, seed=0)
     assert len(shifts) > 15  # the coefficients cover a wide range of formats
 
 

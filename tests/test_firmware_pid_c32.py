@@ -1,7 +1,6 @@
 """The 32-bit-only fixed-point PID: quantised within its Q formats, bit-exact C with no 64-bit operation."""
 
 import re
-import subprocess
 from dataclasses import replace
 
 import numpy as np
@@ -13,16 +12,7 @@ from compensator.firmware.pid import FixedPid, PidSettings, quantise_pid
 from compensator.firmware.pid_c import render_pid_c
 
 from cbuild import needs_cc
-from test_firmware_pid_c import (
-    STRICT,
-    c_commands,
-    compile_c,
-    multi_harness,
-    random_schedule,
-    random_settings,
-    run_python,
-    sanitizer_flags,
-)
+from test_firmware_pid_c import check_multi_bit_exact, random_settings
 
 
 def bias_loop(**kw):
@@ -109,18 +99,7 @@ def test_random_configurations_are_bit_exact_with_32_bit_operations_only(tmp_pat
         source = files[f"{name}.c"]
         assert "int64" not in source and "long" not in re.sub(r"/\*.*?\*/", "", source, flags=re.S)
         assert f"{name.upper()}_WORD_BITS 32u" in files[f"{name}.h"]
-    exe = compile_c(tmp_path, files, {"multi.c": multi_harness(list(configs))},
-                    STRICT + ["-O1"] + sanitizer_flags(tmp_path))
-    shifts = set()
-    for index, (name, coeffs) in enumerate(configs.items()):
-        sched = random_schedule(np.random.default_rng(100 + index), 3000, coeffs)
-        result = subprocess.run([str(exe), str(index)], input=c_commands(sched), capture_output=True, text=True)
-        assert result.returncode == 0 and result.stderr == "", (name, result.stderr)
-        got = [tuple(int(v) for v in line.split()) for line in result.stdout.splitlines()]
-        expected = run_python(coeffs, sched)
-        first_bad = next((k for k, (a, b) in enumerate(zip(got, expected)) if a != b), None)
-        assert len(got) == len(expected) and first_bad is None, (name, coeffs, first_bad)
-        shifts |= {coeffs.p_shift, coeffs.ki_shift, coeffs.bd_shift, coeffs.track_shift, coeffs.ad_shift}
+    shifts = check_multi_bit_exact(tmp_path, configs, files, seed=100)
     assert any(s > 16 for s in shifts) and any(0 < s <= 16 for s in shifts), sorted(shifts)  # both branches
 
 
