@@ -1,5 +1,6 @@
 """Integer lookup tables: sizing against the bound, the firmware path, faults and the error bound."""
 
+import os
 from dataclasses import replace
 
 import numpy as np
@@ -22,11 +23,14 @@ PAIRS = [("sipm_a", "board_ntc", 3.0), ("sipm_b", "board_pt1000", 4.0), ("sipm_c
 
 @pytest.fixture(scope="module")
 def built(request):
+    """Tables built once per module; under mutation testing every test builds its own, so that each test is
+    known to exercise the code it checks."""
     cache = {}
+    fresh = bool(os.environ.get("MUTANT_UNDER_TEST"))
 
     def get(sipm_name, board_name, ov, layout, bound):
         key = (sipm_name, board_name, ov, layout, bound)
-        if key not in cache:
+        if fresh or key not in cache:
             sipm, board = request.getfixturevalue(sipm_name), request.getfixturevalue(board_name)
             law = build_law(sipm, board, ov)
             cache[key] = (law, board, build_table(law, board, bound, layout))
