@@ -62,6 +62,17 @@ Fixed-point formats (:class:`FixedPid`, and the C code rendered from it)
 * Saturation: ``v``, ``I`` and ``D`` saturate to the int32 range; the output
   is ``rshift_round(u, F)``, which lies inside the integer output limits.
 
+The 32-bit-only variant (``quantise_pid(..., word_bits=32)``)
+-------------------------------------------------------------
+The same algorithm with no 64-bit operation: mantissas of at most 15 bits and
+shifts of at most 46; inputs saturated to ``+-input_limit_count`` (default
+2^16); ``F`` lowered where a gain or the range of P, D or the integrator
+increment needs it, so that each stays within ``+-2^28`` and the integrator
+saturates at ``+-2^28``; then every sum of them fits 32 bits. The C code forms
+each product ``m x`` from 16-bit halves of ``x`` and floors the low part into
+the high part, which equals ``rshift_round(m x, s)`` exactly, so the Python
+reference is :class:`FixedPid` with those limits.
+
 Agreement between the two
 -------------------------
 :func:`agreement_bound_count` derives a worst-case bound on
