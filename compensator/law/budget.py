@@ -389,7 +389,7 @@ def gain_error_at_light_pct(law: CompensationLaw, board, photon_rate_hz, temp_c,
         A negative or non-finite photon rate.
     """
     if not np.isfinite(photon_rate_hz) or photon_rate_hz < 0:
-        raise ModelError(f"photon_rate_hz must be a non-negative number, got {photon_rate_hz!r}")
+        raise ModelError(f"must be a non-negative number, got {photon_rate_hz!r}", key="photon_rate_hz")
     return _chain_gain_error_pct(law, board, dict(deviations or {}), np.asarray(temp_c, dtype=float),
                                  bool(quantise), photon_rate_hz=float(photon_rate_hz))
 
@@ -451,14 +451,14 @@ def gain_error_budget(law: CompensationLaw, board, calibration_temp_c=None, samp
         calibration_temp_c = min(max(law.sipm.breakdown.ref_temp_c, lo), hi)
     calibration_temp_c = float(calibration_temp_c)
     if not lo <= calibration_temp_c <= hi:
-        raise ModelError(f"calibration_temp_c: {calibration_temp_c:g} C is outside the operating range "
-                         f"{lo:g} to {hi:g} C")
+        raise ModelError(f"{calibration_temp_c:g} C is outside the operating range "
+                         f"{lo:g} to {hi:g} C", key="calibration_temp_c")
     if not (isinstance(samples, (int, np.integer)) and 0 <= samples <= 1_000_000):
-        raise ModelError(f"samples must be a whole number from 0 to 1000000, got {samples!r}")
+        raise ModelError(f"must be a whole number from 0 to 1000000, got {samples!r}", key="samples")
     if not np.isfinite(current_uncertainty_pct) or not 0 <= current_uncertainty_pct <= 100:
-        raise ModelError(f"current_uncertainty_pct must be within 0 to 100, got {current_uncertainty_pct!r}")
+        raise ModelError(f"must be within 0 to 100, got {current_uncertainty_pct!r}", key="current_uncertainty_pct")
     if not np.isfinite(step_k) or step_k <= 0:
-        raise ModelError(f"step_k must be positive, got {step_k!r}")
+        raise ModelError(f"must be positive, got {step_k!r}", key="step_k")
     temps = np.linspace(lo, hi, int(round((hi - lo) / step_k)) + 1)
     grid = np.append(temps, calibration_temp_c)  # the last column is the calibration point
     k_cal = _cap_ratio(law.sipm, temps, calibration_temp_c)

@@ -21,6 +21,8 @@ import numpy as np
 
 from compensator.errors import ModelError
 
+__all__ = ["CurrentSense"]
+
 
 @dataclass(frozen=True)
 class CurrentSense:
@@ -41,6 +43,10 @@ class CurrentSense:
         Tolerance of the sense gain (shunt or feedback resistor, amplifier), percent.
     offset_a : float
         Largest input offset, referred to the SiPM current, either sign, ampere.
+    gain_tempco_ppm_per_k : float
+        Drift bound of the sense gain, ppm per kelvin of board temperature.
+    offset_drift_a_per_k : float
+        Drift bound of the input offset, ampere per kelvin.
     """
 
     adc_bits: int
@@ -49,18 +55,21 @@ class CurrentSense:
     reference_tolerance_pct: float = 0.1
     gain_tolerance_pct: float = 0.5
     offset_a: float = 0.0
+    gain_tempco_ppm_per_k: float = 0.0
+    offset_drift_a_per_k: float = 0.0
 
     def __post_init__(self):
         if not (isinstance(self.adc_bits, (int, np.integer)) and 1 <= self.adc_bits <= 24):
-            raise ModelError(f"adc_bits must be a whole number from 1 to 24, got {self.adc_bits!r}")
+            raise ModelError(f"must be a whole number from 1 to 24, got {self.adc_bits!r}", key="adc_bits")
         for name in ("reference_v", "sense_gain_v_per_a"):
             value = getattr(self, name)
             if not np.isfinite(value) or value <= 0:
-                raise ModelError(f"{name} must be a positive number, got {value!r}")
-        for name in ("reference_tolerance_pct", "gain_tolerance_pct", "offset_a"):
+                raise ModelError(f"must be a positive number, got {value!r}", key=name)
+        for name in ("reference_tolerance_pct", "gain_tolerance_pct", "offset_a", "gain_tempco_ppm_per_k",
+                     "offset_drift_a_per_k"):
             value = getattr(self, name)
             if not np.isfinite(value) or value < 0:
-                raise ModelError(f"{name} must be a non-negative number, got {value!r}")
+                raise ModelError(f"must be a non-negative number, got {value!r}", key=name)
 
     @property
     def full_scale_code(self) -> int:
