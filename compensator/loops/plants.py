@@ -295,8 +295,8 @@ class SupplyOperatingPoint:
     load_resistance_ohm: float
 
 
-def bias_supply_plant(supply, regulator_time_constant_s: float | None = None,
-                      load_resistance_ohm: float = float("inf")) -> Plant:
+def bias_supply_plant(supply, regulator_time_constant_s: float | None = None, *,
+                      load_resistance_ohm: float = float("inf"), measurement_time_constant_s: float = 0.0) -> Plant:
     """Small-signal model from DAC code to the bias at the SiPM, volt per code.
 
     ``V_sipm(s) / code(s) = k_v / ((tau_reg s + 1)(R C' s + 1)) * R_load / (R + R_load)``
@@ -312,6 +312,9 @@ def bias_supply_plant(supply, regulator_time_constant_s: float | None = None,
     load_resistance_ohm : float
         Small-signal resistance of the SiPM, ohm (``dV/dI``; inf neglects the
         load, right when the dark current is microamperes).
+    measurement_time_constant_s : float
+        First-order lag of the bias read-back (its filter), second; the
+        plant's output is then the bias as the firmware reads it.
 
     Returns
     -------
@@ -328,6 +331,8 @@ def bias_supply_plant(supply, regulator_time_constant_s: float | None = None,
     div = 1.0 if np.isinf(load_resistance_ohm) else load_resistance_ohm / (r + load_resistance_ohm)
     r_par = r if np.isinf(load_resistance_ohm) else r * load_resistance_ohm / (r + load_resistance_ohm)
     tau_f = r_par * supply.filter_capacitance_f
+    if not measurement_time_constant_s >= 0:
+        raise ModelError("measurement_time_constant_s must be >= 0")
     taus = sorted([t for t in (regulator_time_constant_s, tau_f) if t > 0], reverse=True)
     gain = kv * div
     if not taus:
@@ -336,5 +341,8 @@ def bias_supply_plant(supply, regulator_time_constant_s: float | None = None,
         sys = fopdt_plant(gain, taus[0], 0.0).system
     else:
         sys = sopdt_plant(gain, taus[0], taus[1], 0.0).system
+    if measurement_time_constant_s > 0:
+        tm = measurement_time_constant_s
+        sys = control.series(sys, control.ss([[-1.0 / tm]], [[1.0 / tm]], [[1.0]], [[0.0]]))
     op = SupplyOperatingPoint(kv, regulator_time_constant_s, tau_f, load_resistance_ohm)
     return Plant(sys, 0.0, "bias supply", "DAC code", "SiPM bias, V", op)
