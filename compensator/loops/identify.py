@@ -435,6 +435,9 @@ def relay_experiment(record: LoopRecord, hysteresis: float = 0.0, skip_cycles: i
     if hysteresis < 0:
         raise ModelError("hysteresis must be >= 0")
     t, u, y = record.time_s, record.input, record.output
+    if not (np.all(np.isfinite(y)) and np.all(np.isfinite(u))):
+        raise ModelError(f"{record.source or 'record'}: the relay record gives no finite ultimate gain and period "
+                         "(non-finite samples)")
     u_hi, u_lo = float(np.max(u)), float(np.min(u))
     if u_hi == u_lo:
         raise ModelError(f"{record.source or 'record'}: the input never changes; not a relay experiment")
