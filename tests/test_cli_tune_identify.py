@@ -152,7 +152,7 @@ def test_identify_fopdt_json_and_plot(cli, demo_csv, tmp_path):
     assert r.status == 0, r.stderr
     out = json.loads(r.stdout)
     t = truth["fopdt"]
-    assert out["gain"] == pytest.approx(t["gain"], rel=0.005)
+    assert out["process_gain"] == pytest.approx(t["gain"], rel=0.005)
     assert out["time_constant_s"] == pytest.approx(t["time_constant_s"], rel=0.005)
     assert out["dead_time_s"] == pytest.approx(t["dead_time_s"], abs=0.05)
     assert out["tune_args"][0] == "--fopdt"
@@ -164,7 +164,7 @@ def test_identify_cooler_step_then_tune(cli, demo_csv):
     r = cli("identify", d / "step.csv", "--model", "sopdt", "--json")
     assert r.status == 0, r.stderr
     out = json.loads(r.stdout)
-    assert out["gain"] == pytest.approx(truth["step"]["gain_k_per_a"], rel=0.02)
+    assert out["process_gain"] == pytest.approx(truth["step"]["gain_k_per_a"], rel=0.02)
     assert out["time_constant2_s"] > 0
     tuned = cli("tune", *out["tune_args"], "--method", "simc", "--pid", "--rate-hz", 10, "--json")
     assert tuned.status == 0, tuned.stderr
@@ -353,4 +353,4 @@ def test_identify_survives_huge_values(cli, tmp_path):
     r = cli("identify", path, "--json")
     assert r.status == 0, r.stderr
     out = json.loads(r.stdout)
-    assert out["gain"] == pytest.approx(1e-16, rel=1e-6) and out["time_constant_s"] == pytest.approx(30, rel=1e-4)
+    assert out["process_gain"] == pytest.approx(1e-16, rel=1e-6) and out["time_constant_s"] == pytest.approx(30, rel=1e-4)

@@ -125,7 +125,7 @@ def test_measured_current_holds_gain_at_every_light_level(sipm_a, board_ntc, cap
     for rate in LIGHT_HZ:
         mod = np.abs(gain_error_at_light_pct(modelled, board_ntc, rate, TEMPS_C)).max()
         meas = np.abs(gain_error_at_light_pct(measured, board_ntc, rate, TEMPS_C)).max()
-        meas_worst = np.abs(gain_error_at_light_pct(measured, board_ntc, rate, TEMPS_C, worst)).max()
+        meas_worst = np.abs(gain_error_at_light_pct(measured, board_ntc, rate, TEMPS_C, deviations=worst)).max()
         rows.append((rate, mod, meas, meas_worst))
     with capsys.disabled():
         print("\nhut-sipm-a on hut-board-ntc, 3 V, largest |gain error| over -25..45 C, percent")

@@ -7,6 +7,15 @@ import pytest
 
 from compensator.findings import Severity
 from compensator.law import build_law, lowest_breakdown_v, safe_bias
+from compensator.physics.supply import Dac
+
+
+def _plain(board):
+    """The board with tolerances only: no drifts, no converter offset or gain error, no regulator reference error."""
+    dac = board.supply.dac
+    supply = replace(board.supply, dac=Dac(dac.bits, dac.reference_v, dac.reference_tolerance_pct),
+                     resistor_tempco_ppm_per_k=0.0, feedback_tolerance_pct=0.0, feedback_tempco_ppm_per_k=0.0)
+    return replace(board, supply=supply)
 
 
 def test_coldest_breakdown_by_hand(sipm_a, board_ntc):
@@ -20,6 +29,7 @@ def test_coldest_breakdown_by_hand(sipm_a, board_ntc):
 
 
 def test_feedback_injection_worst_corner_by_hand(sipm_a, board_ntc):
+    board_ntc = _plain(board_ntc)
     # Feedback injection, Vout = Vfb (1 + R1/R2 + R1/R3) - Vdac R1/R3; the lowest output is the highest code.
     # Worst (highest) corner: DAC reference 0.05 % low, R1 0.1 % high, R2 0.1 % low, R3 0.1 % high (Vdac > Vfb,
     # so a larger R3 raises the output) -- computed here independently of the library's corner search.
@@ -38,6 +48,7 @@ def test_feedback_injection_worst_corner_by_hand(sipm_a, board_ntc):
 
 
 def test_a_supply_that_reaches_below_breakdown_is_safe(sipm_b, board_pt1000):
+    board_pt1000 = _plain(board_pt1000)
     # Direct supply: 30 V at code 0 (0.1 % gain tolerance acts on the DAC part only: zero at code 0), against a
     # breakdown near 36.5 V at -25 C: safe with several volts of margin.
     law = build_law(sipm_b, board_pt1000, 4.0)
@@ -47,9 +58,19 @@ def test_a_supply_that_reaches_below_breakdown_is_safe(sipm_b, board_pt1000):
 
 
 def test_drift_raises_the_worst_corner(sipm_a, board_ntc):
+    board_ntc = _plain(board_ntc)
     law = build_law(sipm_a, board_ntc, 3.0)
     plain = safe_bias(law, board_ntc).highest_output_v
     drifting = replace(law, supply=replace(law.supply, resistor_tempco_ppm_per_k=25.0))
-    # 25 ppm/K over 50 K from 25 C (the board follows the SiPM to -25 C) adds 0.125 % to each resistor's bound.
+    # 25 ppm/K over 45 K from 25 C (the electronics reach -20 C and 55 C) adds 0.11 % to each resistor's bound.
     assert safe_bias(drifting, board_ntc).highest_output_v > plain + 0.02
     assert np.isfinite(plain)
+
+
+def test_every_tolerance_of_the_bundled_board_counts(sipm_a, board_ntc):
+    # The bundled board adds a 0.5 % regulator reference, 30 ppm/K on it, DAC offset, gain error and INL:
+    # the worst corner sits well above the tolerance-only one (1.25 V x 28.15 x 0.5 % alone is 0.18 V).
+    law = build_law(sipm_a, board_ntc, 3.0)
+    full = safe_bias(law, board_ntc).highest_output_v
+    plain = safe_bias(build_law(sipm_a, _plain(board_ntc), 3.0), _plain(board_ntc)).highest_output_v
+    assert full - plain > 0.17

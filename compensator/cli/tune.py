@@ -375,7 +375,7 @@ def _summary(result, profile, files) -> dict:
         if plant.operating_point is not None:
             plant_info["operating_point"] = asdict(plant.operating_point)
     if t is not None and t.model is not None:
-        plant_info["model"] = asdict(t.model)
+        plant_info["process_model"] = _process_model(t.model)
     out = {
         "method": "verify" if t is None else t.method, "controller": "PID" if g.kd_s else "PI",
         "kp": g.kp, "ki_per_s": g.ki_per_s, "kd_s": g.kd_s,
@@ -410,6 +410,13 @@ def _summary(result, profile, files) -> dict:
         out["ambient_check"] = [asdict(c) for c in result.ambient.checks]
         out["worst_ms"] = result.ambient.worst_ms
     return out
+
+
+def _process_model(model) -> dict:
+    """The process model's fields under their output names (``gain`` is the ``process_gain``)."""
+    from dataclasses import asdict
+
+    return {("process_gain" if k == "gain" else k): v for k, v in asdict(model).items()}
 
 
 def _fmt(v, spec=".4g"):

@@ -1,6 +1,13 @@
 """Compensation laws, the gain-error budget they leave and the safe bias (pure numerics, no I/O)."""
 
-from compensator.law.budget import BudgetTerm, GainBudget, MonteCarloSummary, gain_error_at_light_pct, gain_error_budget
+from compensator.law.budget import (
+    BudgetTerm,
+    GainBudget,
+    MonteCarloSummary,
+    electronics_terms,
+    gain_error_at_light_pct,
+    gain_error_budget,
+)
 from compensator.law.laws import (
     DROP_CORRECTIONS,
     LAW_KINDS,
@@ -15,7 +22,7 @@ from compensator.law.laws import (
 from compensator.law.safety import SafeBias, lowest_breakdown_v, safe_bias
 
 __all__ = [
-    "BudgetTerm", "GainBudget", "MonteCarloSummary", "gain_error_at_light_pct", "gain_error_budget",
+    "BudgetTerm", "GainBudget", "MonteCarloSummary", "electronics_terms", "gain_error_at_light_pct", "gain_error_budget",
     "DROP_CORRECTIONS", "LAW_KINDS", "LIMIT_NAMES", "CompensationLaw", "build_law", "check_law_in_range",
     "constant_gain_law", "constant_overvoltage_law", "constant_response_law", "SafeBias", "lowest_breakdown_v",
     "safe_bias",

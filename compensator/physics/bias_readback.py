@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from compensator.errors import ModelError
+from compensator.physics.current_sense import centred_adc_code
 
 __all__ = ["BiasReadback"]
 
@@ -119,8 +120,8 @@ class BiasReadback:
         -------
         ndarray of int64
         """
-        x = self.continuous_code(output_v, divider_error, reference_error, offset_v)
-        return np.clip(np.floor(x + 0.5), 0, self.full_scale_code).astype(np.int64)
+        return centred_adc_code(self.continuous_code(output_v, divider_error, reference_error, offset_v),
+                                self.full_scale_code)
 
     def output_v(self, adc_code):
         """Supply output the firmware infers from an ADC code, volt.

@@ -21,7 +21,24 @@ import numpy as np
 
 from compensator.errors import ModelError
 
-__all__ = ["CurrentSense"]
+__all__ = ["CurrentSense", "centred_adc_code"]
+
+
+def centred_adc_code(position, full_scale_code: int):
+    """Ideal ADC with code centres on whole positions: ``clip(floor(x + 1/2), 0, full_scale)`` as int64.
+
+    Parameters
+    ----------
+    position : array_like
+        Unquantised reading in codes.
+    full_scale_code : int
+        Largest code.
+
+    Returns
+    -------
+    ndarray of int64
+    """
+    return np.clip(np.floor(np.asarray(position, dtype=float) + 0.5), 0, full_scale_code).astype(np.int64)
 
 
 @dataclass(frozen=True)
@@ -120,8 +137,8 @@ class CurrentSense:
         -------
         ndarray of int64
         """
-        x = self.continuous_code(current_a, gain_error, reference_error, offset_a)
-        return np.clip(np.floor(x + 0.5), 0, self.full_scale_code).astype(np.int64)
+        return centred_adc_code(self.continuous_code(current_a, gain_error, reference_error, offset_a),
+                                self.full_scale_code)
 
     def current_a(self, adc_code):
         """Current the firmware infers from an ADC code, ampere.
