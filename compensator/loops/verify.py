@@ -537,6 +537,10 @@ def _finite_or(value, default):
     return float(value) if value is not None and np.isfinite(value) else default
 
 
+#: Loop gains below this are not searched for phase crossovers (gain margins above 1/0.01 = 100 count as inf).
+_GM_FLOOR = 0.01
+
+
 def _margins(plant, gains, T, delay):
     w = loop_frequency_grid(plant, T, 6000, 7.0)
     loop = controller_frequency_response(gains, T, w) * discrete_frequency_response(plant, T, w, delay)
@@ -545,11 +549,19 @@ def _margins(plant, gains, T, delay):
     ms, w_ms = float(1.0 / dist[k]), float(w[k])
     # python-control computes the margins from our exact frequency response of the sampled loop (its
     # polynomial method loses accuracy on high-order or stiff sampled loops).
-    coarse = slice(None, None, 3)
+    # Beyond the last frequency where |L| >= 0.01 a phase crossover would mean a gain margin above 100; a long
+    # dead time wraps the phase there thousands of times, so those frequencies are left out (such margins are
+    # reported as inf).
+    big = np.flatnonzero(np.abs(loop) >= _GM_FLOOR)
+    stop = min(int(big[-1]) + 4, loop.size) if big.size else 0
+    coarse = slice(None, stop, 3)
     phase_deg = np.degrees(np.unwrap(np.angle(loop[coarse])))
     with warnings_module.catch_warnings():
         warnings_module.simplefilter("ignore")
-        gm, pm, _sm, wpc, wgc, _wms = control.stability_margins((np.abs(loop[coarse]), phase_deg, w[coarse]))
+        if stop > 6:
+            gm, pm, _sm, wpc, wgc, _wms = control.stability_margins((np.abs(loop[coarse]), phase_deg, w[coarse]))
+        else:
+            gm = pm = wpc = wgc = None
     inf, nan = float("inf"), float("nan")
     gm, pm, wgc, wpc = _finite_or(gm, inf), _finite_or(pm, inf), _finite_or(wgc, nan), _finite_or(wpc, nan)
     delay_margin = math.radians(pm) / wgc if np.isfinite(pm) and np.isfinite(wgc) and wgc > 0 else inf
@@ -580,11 +592,8 @@ def loop_figures(plant: Plant, gains: PidGains, sample_time_s: float, *,
 
 
 def _simulate(a, b, c, d, n):
-    """Outputs of ``x+ = A x + B u``, ``y = C x + D u`` for a unit step on each input (sparse when large)."""
-    import scipy.sparse
-
-    big = a.shape[0] > 60
-    a_op = scipy.sparse.csr_matrix(a) if big else a
+    """Outputs of ``x+ = A x + B u``, ``y = C x + D u`` for a unit step on each input (the state count is bounded)."""
+    a_op = np.ascontiguousarray(a)
     x = np.zeros((a.shape[0], b.shape[1]))
     out = np.empty((n, c.shape[0], b.shape[1]))
     for k in range(n):
