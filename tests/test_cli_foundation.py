@@ -114,14 +114,22 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
     assert abs(char["tempco_mv_per_k"] / char["true_tempco_mv_per_k"] - 1) < 0.02
     assert [i["sipm"] for i in data["instruments"]] == ["hut-sipm-a", "hut-sipm-b", "hut-sipm-c"]
     for inst in data["instruments"]:
+        drift = inst["drift"]
         # Uncompensated, the gain swings by tens of percent over -25..45 C; the law removes it, and the
         # firmware's integer path stays within the table's bound plus half an ADC code.
-        assert max(inst["fixed_gain_error_pct"]) - min(inst["fixed_gain_error_pct"]) > 30
-        assert max(abs(x) for x in inst["law_gain_error_pct"]) < 0.01
-        assert max(abs(x) for x in inst["firmware_gain_error_pct"]) < 0.1
+        assert max(drift["fixed_gain_error_pct"]) - min(drift["fixed_gain_error_pct"]) > 30
+        assert max(abs(x) for x in drift["law_gain_error_pct"]) < 0.01
+        assert max(abs(x) for x in drift["firmware_gain_error_pct"]) < 0.1
+        # The headline figures cover every ADC code of the range, so they bound the printed rows.
+        assert drift["firmware_gain_error_max_abs_pct"] >= max(abs(x) for x in drift["firmware_gain_error_pct"])
+        assert drift["firmware_gain_error_max_abs_pct"] < 0.1 and drift["codes_evaluated"] > 2000
         assert inst["table"]["max_gain_error_pct"] <= inst["table"]["bound_pct"]
         assert inst["budget"]["calibrated_rss_pct"] < inst["budget"]["rss_pct"]
         assert len(inst["table"]["files"]) == 3
+    # hut-sipm-a: linear breakdown (21.5 mV/K), constant cell capacitance, 3 V: at fixed bias the gain moves by
+    # exactly tempco * dT / Vov, so over 70 K the swing is 21.5e-3 * 70 / 3 = 50.17 % (first-order physics,
+    # G = C (V - Vbd) / q); the codes at the ends of the range reach a little past -25 and 45 C.
+    assert data["instruments"][0]["drift"]["fixed_gain_error_ptp_pct"] == pytest.approx(50.17, abs=0.1)
     # Under light, the drop corrected from the measured current holds the gain; from the dark model it does not.
     light = data["instruments"][0]["light"]
     assert [r["photon_rate_hz"] for r in light] == [0, 1e6, 1e7, 1e8]
@@ -133,9 +141,16 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
         # Robust tuning holds Ms at 1.4 (Astrom and Hagglund's robustness measure, evaluated with python-control).
         assert lp["stable"] and lp["ms"] <= 1.4 * 1.001 and lp["gain_margin"] > 2
     assert loops["cooler"]["kp"] < 0  # more current cools
-    # A second run never overwrites what the first wrote.
-    again = cli("demo", "--profiles", profiles_dir, "--json", "--out", tmp_path / "fw")
-    assert again.status == 2 and "already exists" in again.stderr
+    # A second run never overwrites what the first wrote, and says so before writing anything.
+    before = {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")}
+    again = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw")
+    assert again.status == 2 and again.stderr.count("already exists") == 9
+    assert {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")} == before
+    forced = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw", "--force", "--step-c", "35")
+    assert forced.status == 0 and forced.stdout.count("wrote ") == 9
+    # The headline figures do not depend on the print step.
+    line = next(x for x in forced.stdout.splitlines() if x.startswith("gain error against 25 C"))
+    assert "at fixed bias 27.500 V 50.2 % peak-to-peak" in line and "2393 ADC codes" in line
 
 
 def test_demo_missing_profiles(cli, tmp_path):
