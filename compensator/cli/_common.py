@@ -12,6 +12,14 @@ import numpy as np
 from compensator.errors import InputError, Problem
 from compensator.vocabulary import dumps_json, to_json_value
 
+__all__ = [
+    "EXIT_OK", "EXIT_FAILURE", "EXIT_USAGE", "EXIT_NOTHING_ANALYSED", "EXIT_INTERRUPTED", "COMMAND_LINE",
+    "JSON_FIELDS_DOC", "MAX_MAGNITUDE", "MAX_TEMPERATURE_C", "usage_error", "caution", "flush_cautions",
+    "numerical_warning_lines", "print_json", "jsonable", "format_number", "format_table", "add_json_flag",
+    "bounded_float", "bounded_int", "finite_float", "positive_float", "non_negative_float", "temperature_c",
+    "percent", "positive_int", "non_negative_int", "seed", "code", "is_checked_number",
+]
+
 #: Kept for callers of the old name: the one serialiser is :func:`compensator.vocabulary.to_json_value`.
 jsonable = to_json_value
 
