@@ -1,4 +1,5 @@
-"""Safe file writing at the edges: all or nothing, never half-written, never silently overwritten.
+"""Safe file handling at the edges: writes all or nothing, never half-written, never silently overwritten;
+JSON read within bounds.
 
 Every set of files a command writes goes through :func:`write_file_set`:
 
@@ -15,11 +16,17 @@ Every set of files a command writes goes through :func:`write_file_set`:
 
 Written files get the permissions of a newly created file (``0666`` less the
 umask, ``0644`` by default), so colleagues can read them.
+
+:func:`loads_json` parses JSON a user hands to a command within bounds: at most
+:data:`MAX_JSON_DEPTH` levels of nesting and numbers of at most
+:data:`MAX_JSON_NUMBER_CHARS` characters, anything else is a one-line error
+naming the file and line.
 """
 
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import signal
 import tempfile
@@ -30,7 +37,12 @@ from pathlib import Path
 from compensator.errors import InputError, Problem
 
 __all__ = ["write_file_set", "write_file_atomic", "write_files_atomic", "output_dir", "check_targets",
-           "terminate_as_interrupt"]
+           "terminate_as_interrupt", "loads_json", "MAX_JSON_DEPTH", "MAX_JSON_NUMBER_CHARS"]
+
+#: Deepest nesting of arrays and objects a JSON input may have (the tool's own documents use 5).
+MAX_JSON_DEPTH = 32
+#: Longest number, in characters, a JSON input may hold (a double needs at most 24).
+MAX_JSON_NUMBER_CHARS = 40
 
 EXISTS = "already exists; not overwriting (use --force to replace it)"
 
@@ -296,3 +308,63 @@ def write_files_atomic(directory, files: dict, overwrite: bool = False, what: st
         raise InputError(problems)
     output_dir(directory, what)
     return write_file_set(targets, overwrite=overwrite, make_dirs=False)
+
+
+class _JsonLimit(ValueError):
+    pass
+
+
+def _number(convert):
+    def parse(text):
+        if len(text) > MAX_JSON_NUMBER_CHARS:
+            raise _JsonLimit(f"a number of {len(text)} characters (at most {MAX_JSON_NUMBER_CHARS})")
+        return convert(text)
+    return parse
+
+
+def _depth(value) -> int:
+    deepest, stack = 0, [(value, 1)]
+    while stack:
+        item, level = stack.pop()
+        if isinstance(item, (dict, list)):
+            deepest = max(deepest, level)
+            stack.extend((v, level + 1) for v in (item.values() if isinstance(item, dict) else item))
+    return deepest
+
+
+def loads_json(text: str, *, file: str):
+    """Parse JSON a user gave, within bounds; every failure is one located line.
+
+    Parameters
+    ----------
+    text : str
+        The file's text.
+    file : str
+        The file's name, for the message.
+
+    Returns
+    -------
+    object
+        The parsed document.
+
+    Raises
+    ------
+    InputError
+        Invalid JSON (with its line), nesting deeper than
+        :data:`MAX_JSON_DEPTH`, a number longer than
+        :data:`MAX_JSON_NUMBER_CHARS` characters, or a non-finite number.
+    """
+    def constant(name):
+        raise _JsonLimit(f"{name} is not a number JSON allows")
+
+    try:
+        doc = json.loads(text, parse_int=_number(int), parse_float=_number(float), parse_constant=constant)
+    except json.JSONDecodeError as exc:
+        raise InputError(Problem(file, exc.lineno, "", f"invalid JSON: {exc.msg}")) from None
+    except _JsonLimit as exc:
+        raise InputError(Problem(file, 0, "", f"JSON holds {exc}")) from None
+    except RecursionError:
+        raise InputError(Problem(file, 0, "", f"JSON nested deeper than {MAX_JSON_DEPTH} levels")) from None
+    if _depth(doc) > MAX_JSON_DEPTH:
+        raise InputError(Problem(file, 0, "", f"JSON nested deeper than {MAX_JSON_DEPTH} levels"))
+    return doc

@@ -148,3 +148,28 @@ def test_a_full_device_is_one_line_and_leaves_nothing(tmp_path, monkeypatch):
         write_file_set({tmp_path / "out" / "a.h": "1", tmp_path / "out" / "b.c": "2"})
     assert str(err.value).count("\n") == 0
     assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("text, reason", [
+    ('{"scans": [' * 5000 + "]" * 5000 + "}", "nested deeper than 32 levels"),
+    ('{"curves": [{"temp_c": 1' + "0" * 5000 + "}]}", "a number of 5001 characters"),
+    ('{"curves": [{"temp_c": NaN}]}', "NaN is not a number JSON allows"),
+    ('{"curves": [\n{"temp_c": 1,}]}', ":2: invalid JSON"),
+    ("[" * 40 + "]" * 40, "nested deeper than 32 levels"),
+])
+def test_hostile_json_is_one_located_line(tmp_path, text, reason):
+    from compensator.fileio import loads_json
+
+    with pytest.raises(InputError) as err:
+        loads_json(text, file="scan.json")
+    assert reason in str(err.value) and str(err.value).startswith("scan.json") and "\n" not in str(err.value)
+
+
+def test_commands_reading_json_refuse_hostile_documents(cli, tmp_path):
+    deep = tmp_path / "deep.json"
+    deep.write_text('{"scans": [' * 100_000 + "]" * 100_000 + "}")
+    digits = tmp_path / "digits.json"
+    digits.write_text('{"scans": [{"temp_c": 1' + "0" * 5000 + ', "breakdown_v": 24.5}]}')
+    for path in (deep, digits):
+        result = cli("calibrate", "tempco", path)
+        assert result.status == 2 and result.stderr.count("\n") == 1 and str(path) in result.stderr
