@@ -74,7 +74,7 @@ def check_targets(paths, *, overwrite: bool = False) -> list[Problem]:
         Empty when every target can be written.
     """
     problems = []
-    seen = set()
+    seen, blocked = set(), set()
     for path in map(Path, paths):
         if path in seen:
             problems.append(Problem(str(path), 0, "", "named twice in one set of files"))
@@ -86,8 +86,9 @@ def check_targets(paths, *, overwrite: bool = False) -> list[Problem]:
             problems.append(Problem(str(path), 0, "", EXISTS))
         for parent in path.parents:
             if parent.exists():
-                if not parent.is_dir():
-                    problems.append(Problem(str(parent), 0, "", f"is not a directory (wanted for {path.name})"))
+                if not parent.is_dir() and parent not in blocked:
+                    blocked.add(parent)
+                    problems.append(Problem(str(parent), 0, "", "is not a directory (wanted as the output folder)"))
                 break
     return problems
 

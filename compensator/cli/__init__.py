@@ -88,17 +88,21 @@ def main(argv: list[str] | None = None) -> int:
     Notes
     -----
     Arguments are parsed in full before a command starts, so a usage error
-    is one line and comes before anything else, cautions included. Cautions
+    is one line and comes before anything else, cautions included. Ctrl-C
+    and SIGTERM end the command with one line and exit status 130 after its
+    clean-up code has run (no temporary or partial file set is left). Cautions
     the command queued (:func:`compensator.cli._common.caution`) are printed
-    on stderr when it ends, unless it ends with a usage error. Numerical
+    on stderr when it ends, unless it ends with a usage error or an interrupt. Numerical
     warnings raised inside numpy or scipy become one ``compensator: warning:``
     line each, without the library's file paths.
     """
     words = sys.argv[1:] if argv is None else argv
     parser = build_parser(only=next((w for w in words if not w.startswith("-")), ""))
     args = parser.parse_args(argv)
+    from compensator.fileio import terminate_as_interrupt
+
     status = EXIT_USAGE
-    with warnings.catch_warnings(record=True) as caught:
+    with warnings.catch_warnings(record=True) as caught, terminate_as_interrupt():
         warnings.simplefilter("always")
         try:
             status = int(args.handler(args) or EXIT_OK)
@@ -112,7 +116,7 @@ def main(argv: list[str] | None = None) -> int:
             print("compensator: interrupted", file=sys.stderr)
             status = EXIT_INTERRUPTED
         finally:
-            flush_cautions(show=status != EXIT_USAGE)
+            flush_cautions(show=status not in (EXIT_USAGE, EXIT_INTERRUPTED))
     for line in numerical_warning_lines(caught):
         print(line, file=sys.stderr)
     return status

@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from compensator.cli._common import add_json_flag, format_table, print_json
+from compensator.cli._common import add_json_flag, caution, format_table, print_json
 from compensator.errors import InputError, ModelError, Problem
 from compensator.fileio import output_dir
 
@@ -167,14 +167,14 @@ def run(args) -> int:
     from compensator.loops import tuning, verify
 
     _check_arguments(args)
-    plant, profile, kind, model, emit, extra_warnings, caution = _load_plant(args)
+    plant, profile, kind, model, emit, extra_warnings, caution_text = _load_plant(args)
     if args.ambient_range is not None and kind != "thermal":
         raise InputError(Problem("<command line>", 0, "--ambient-range", "applies to a thermal profile only"))
     rate = args.rate_hz or emit.get("rate_hz")
     if rate is None:
         raise InputError(Problem("<command line>", 0, "--rate-hz", "required with --fopdt or --sopdt"))
-    if caution:
-        print(f"compensator: {caution}", file=sys.stderr)
+    if caution_text:
+        caution(f"compensator: {caution_text}")  # printed when the command ends, never with a usage error
     T = 1.0 / rate
     emit_name = args.name or emit.get("name", "loop_pid")
     stem = f"{plant.name.replace(' ', '-')}-{args.method}{'-pid' if args.pid else ''}"
