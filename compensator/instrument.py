@@ -26,6 +26,7 @@ __all__ = [
     "DEFAULT_PHOTON_RATES_HZ",
     "Characterisation",
     "GainDrift",
+    "BudgetTerm",
     "BudgetSummary",
     "TableSummary",
     "LightError",
@@ -141,6 +142,24 @@ class GainDrift:
 
 
 @dataclass(frozen=True, kw_only=True)
+class BudgetTerm:
+    """One term of a gain-error budget, as built and after calibration (percent gain error, its limit).
+
+    Attributes
+    ----------
+    key, name : str
+        The term's identifier and its name in words.
+    limit_pct, calibrated_limit_pct : float
+        Its limit as built and after a one-point calibration, largest over the range.
+    """
+
+    key: str
+    name: str
+    limit_pct: float
+    calibrated_limit_pct: float
+
+
+@dataclass(frozen=True, kw_only=True)
 class BudgetSummary:
     """The headline figures of a gain-error budget (percent gain error over the operating range).
 
@@ -156,6 +175,9 @@ class BudgetSummary:
         The same terms in words.
     monte_carlo_std_pct : float or None
         Standard deviation (1 sigma) of the seeded Monte Carlo.
+    electronics_terms : tuple of BudgetTerm
+        The terms of the electronics' drifts, static converter errors and
+        sensor lag, largest after calibration first.
     """
 
     rss_pct: float
@@ -167,6 +189,7 @@ class BudgetSummary:
     dominant_name: str
     calibrated_dominant_name: str
     monte_carlo_std_pct: float | None
+    electronics_terms: tuple[BudgetTerm, ...] = ()
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -427,16 +450,19 @@ def gain_drift(law, sipm_profile, board_profile, table, *, temps_c) -> GainDrift
 
 
 def _budget_summary(law, board_profile, *, samples: int) -> BudgetSummary:
-    from compensator.law import gain_error_budget
+    from compensator.law import electronics_terms, gain_error_budget
 
     budget = gain_error_budget(law, board_profile, samples=samples)
     names = {t.key: t.name for t in budget.terms}
+    electronics = sorted(electronics_terms(budget), key=lambda t: -t.calibrated_limit_pct)
     return BudgetSummary(
         rss_pct=budget.rss_pct, worst_case_pct=budget.worst_case_pct, calibrated_rss_pct=budget.calibrated_rss_pct,
         calibrated_worst_case_pct=budget.calibrated_worst_case_pct, dominant=budget.dominant,
         calibrated_dominant=budget.calibrated_dominant, dominant_name=names.get(budget.dominant, budget.dominant),
         calibrated_dominant_name=names.get(budget.calibrated_dominant, budget.calibrated_dominant),
-        monte_carlo_std_pct=budget.monte_carlo.std_pct if budget.monte_carlo else None)
+        monte_carlo_std_pct=budget.monte_carlo.std_pct if budget.monte_carlo else None,
+        electronics_terms=tuple(BudgetTerm(key=t.key, name=t.name, limit_pct=t.limit_pct,
+                                           calibrated_limit_pct=t.calibrated_limit_pct) for t in electronics))
 
 
 def _light_errors(sipm_profile, board_profile, *, overvoltage_v, temps_c, photon_rates_hz):

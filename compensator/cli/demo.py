@@ -174,6 +174,9 @@ def _print_instrument(say, inst, sipm_profile, range_c) -> None:
     say(f"budget of what the hardware adds: {_pct(b.rss_pct, '.2f')} (1 sigma, root-sum-square) as built, dominated "
         f"by {b.dominant}; {_pct(b.calibrated_rss_pct, '.2f')} after a one-point calibration, dominated by "
         f"{b.calibrated_dominant}")
+    if b.electronics_terms:
+        say("electronics drift and lag after calibration (limit, largest over the range): " + "; ".join(
+            f"{t.name} {_pct(t.calibrated_limit_pct)}" for t in b.electronics_terms[:4]))
     say(f"== 3. lookup table at {t.bound_pct:g} %: optimised {t.optimised_entries} entries "
         f"({t.optimised_table_bytes} B), smallest uniform {t.uniform_entries} entries ({t.uniform_table_bytes} B); "
         f"{t.codes_verified} ADC codes verified, largest absolute gain error {_pct(t.max_gain_error_pct, '.4f')}")
