@@ -25,9 +25,7 @@ sys.path.pop(0)
 # switch to the types of cli._common; the integrator empties this set after merging. A listed option that is
 # already checked does no harm.
 PENDING_OPTIONS = {
-    "budget --overvoltage-v", "budget --photon-rate-hz", "budget --calibration-temp-c",
-    "budget --current-uncertainty-pct", "budget --samples", "budget --seed",
-    "table --overvoltage-v", "table --photon-rate-hz", "table --max-gain-error-pct", "table --fault-margin-k",
+    "budget --samples", "budget --seed", "table --max-gain-error-pct", "table --fault-margin-k",
     "tune --fopdt", "tune --sopdt", "tune --ms", "tune --rate-hz", "tune --tau-c", "tune --setpoint-temp-c",
     "tune --ambient-temp-c", "tune --current-a", "tune --ambient-range", "tune --regulator-tau-s",
     "tune --input-per-count", "tune --output-per-count", "tune --out-min", "tune --out-max",
