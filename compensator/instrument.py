@@ -269,7 +269,7 @@ class LoopSummary:
         Maximum sensitivity: the largest over the ambient range for the cooler.
     settling_time_s, overshoot_pct : float
         Of the closed-loop setpoint step.
-    ambient_checks : tuple of AmbientCheck
+    ambient_check : tuple of AmbientCheck
         The cooler linearised at each ambient of the range (empty otherwise).
     findings : tuple of Finding
         Operating point, verification and ambient-range findings.
@@ -289,7 +289,7 @@ class LoopSummary:
     ms: float = float("nan")
     settling_time_s: float = float("nan")
     overshoot_pct: float = float("nan")
-    ambient_checks: tuple = ()
+    ambient_check: tuple = ()
     findings: tuple = ()
 
 
@@ -607,7 +607,7 @@ def tune_loops(cooler_profile, board_profile, *, ms_max: float = LOOP_MS,
             gain_margin=report.margins.gain_margin, phase_margin_deg=report.margins.phase_margin_deg,
             ms=report.margins.ms if res.ambient is None else res.ambient.worst_ms,
             settling_time_s=report.step.settling_time_s, overshoot_pct=report.step.overshoot_pct,
-            ambient_checks=() if res.ambient is None else tuple(res.ambient.checks), findings=tuple(res.findings)))
+            ambient_check=() if res.ambient is None else tuple(res.ambient.checks), findings=tuple(res.findings)))
     if board_profile.bias_readback is None:
         out.append(LoopSummary(loop="bias supply", profile=board_profile.name, open_loop=True,
                                findings=(Finding(code="bias_open_loop", severity="info", message=design.NO_READBACK),)))

@@ -128,10 +128,10 @@ def run(args) -> int:
          "overshoot_%", "stable"],
         ["", "", "g", "", "", ".2f", ".1f", ".3f", ".3g", ".1f", ""]))
     for lp in loops:
-        if lp.ambient_checks:
+        if lp.ambient_check:
             say(f"{lp.loop} over the ambient range (Ms above is the largest over it):")
             say(format_table([(c.ambient_temp_c, c.ms, c.hot_temp_c, c.dew_point_c, "YES" if c.condensation else "no")
-                              for c in lp.ambient_checks],
+                              for c in lp.ambient_check],
                              ["ambient_c", "ms", "hot_side_c", "dew_point_c", "condensation"],
                              ["g", ".3f", ".1f", ".1f", ""]))
         if lp.open_loop:
