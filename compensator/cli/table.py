@@ -8,6 +8,7 @@ from pathlib import Path
 from compensator.cli._common import (
     add_json_flag,
     add_law_arguments,
+    caution,
     format_table,
     law_from_args,
     non_negative_float,
@@ -103,6 +104,7 @@ def _refuse_existing(out: Path, names, force: bool) -> None:
 
 def run(args) -> int:
     _check_arguments(args)
+    caution(CAUTION)  # printed when the command ends, never with a usage error
     sipm, board, law = law_from_args(args)
     sym = args.prefix + args.name
     mode = args.sweep or default_sweep_mode(board.temperature.front_end.adc_bits)
@@ -116,10 +118,9 @@ def run(args) -> int:
     built = prepare_table_files(law, board, profiles=[sipm, board], max_gain_error_pct=args.max_gain_error_pct,
                                 layout=args.layout, fault_margin_k=args.fault_margin_k, name=args.name,
                                 prefix=args.prefix, sweep=mode, settings=settings)
-    print(CAUTION, file=sys.stderr)
     for finding in built.findings:
         if finding.severity != Severity.INFO:
-            print(f"compensator: {finding.severity.value.upper()}: {finding.message}", file=sys.stderr)
+            print(f"compensator: {finding.severity.value.upper()}: {finding.message}", file=sys.stderr, flush=True)
     paths = write_files_atomic(out, built.files, overwrite=args.force, what="table output")
     result = _result(args, sipm, board, law, built, paths)
     if args.json:
