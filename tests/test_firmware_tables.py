@@ -318,21 +318,24 @@ def test_layout_bytes_by_hand(sipm_b, board_pt1000):
 def test_a_layout_that_cannot_meet_the_bound_is_reported(sipm_b, board_pt1000, monkeypatch):
     import compensator.firmware.tables as tables_module
 
-    def refuse(*args, **kwargs):
-        raise TableError("DAC quantisation", "no polynomial up to degree 9 meets the bound")
+    def refusing(what):
+        def refuse(*args, **kwargs):
+            raise TableError("DAC quantisation", f"no {what} table meets the bound")
+        return refuse
 
-    monkeypatch.setattr(tables_module, "size_polynomial", refuse)
+    monkeypatch.setattr(tables_module, "size_polynomial", refusing("polynomial"))
     law = build_law(sipm_b, board_pt1000, 4.0)
     report = T.compare_layouts(law, board_pt1000, 0.05)
     failed = report.candidates[-1]
     assert failed.layout == "polynomial" and failed.table_bytes is None and failed.entries is None
-    assert not failed.within_bound and "degree 9" in failed.reason
+    assert failed.within_bound is False and "no polynomial table" in failed.reason
+    assert [c.entries for c in report.candidates[:3]] == [t.entries for t in report.tables.values()]
     assert report.table.layout == "uniform" and report.table.table_bytes == 26  # ties go to the simpler layout
     (finding,) = report.findings
     assert "uniform 26 B, segmented 38 B, optimised 36 B, polynomial: " in finding.message
-    for name in ("size_uniform", "size_segmented", "size_optimised"):
-        monkeypatch.setattr(tables_module, name, refuse)
-    with pytest.raises(TableError, match="degree 9"):
+    for name in ("uniform", "segmented", "optimised"):
+        monkeypatch.setattr(tables_module, f"size_{name}", refusing(name))
+    with pytest.raises(TableError, match="no uniform table"):  # the first layout's reason
         T.compare_layouts(law, board_pt1000, 0.05)
 
 
