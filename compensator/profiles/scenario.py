@@ -78,6 +78,8 @@ SCENARIO = KindSchema(
                  "(default: the board's control.rate_hz)", None, gt=0, le=1000),
             _opt("band_pct", "gain band for the time outside it and for the yield, plus or minus percent", 0.25,
                  gt=0, le=100),
+            _opt("settle_s", "metrics start after this time (lets the gain trim converge from a unit's first "
+                 "error), second", 0.0, ge=0),
             Key("trace_points", INT, "points kept per trace for plots (decimated)", required=False, default=2000,
                 ge=10, le=1000000),
             Key("seed", INT, "seed of the sensor noise and dark-peak statistics of the nominal run",
@@ -342,6 +344,8 @@ def build_scenario(raw) -> ScenarioProfile:
     run = v["run"]
     rate = run["control_rate_hz"] if run["control_rate_hz"] is not None else board.control_rate_hz
     ticks = run["duration_days"] * 86400.0 * rate
+    if run["settle_s"] >= run["duration_days"] * 86400.0:
+        problems.append(raw.problem("run.settle_s", "must be shorter than run.duration_days"))
     if ticks < 2:
         problems.append(raw.problem("run.duration_days", f"{ticks:g} ticks at {rate:g} Hz: the run needs at least "
                                     "two control ticks"))

@@ -392,7 +392,7 @@ def sipm_current_a(sipm, factors: DeviceFactors, overvoltage_v, photon_rate_hz=0
 
 
 def bias_at_sipm_v(sipm, factors: DeviceFactors, breakdown_v, supply_v, series_resistor_ohm: float,
-                   photon_rate_hz=0.0):
+                   photon_rate_hz=0.0, *, with_current: bool = True):
     """Bias at the SiPM after the series resistor, volt, and the current there, ampere.
 
     Two fixed-point steps of ``V = Vout - R I(V)`` from ``Vout`` (see the module docstring).
@@ -408,6 +408,8 @@ def bias_at_sipm_v(sipm, factors: DeviceFactors, breakdown_v, supply_v, series_r
     series_resistor_ohm : float
     photon_rate_hz : array_like
         Hertz.
+    with_current : bool
+        Also evaluate the current at the returned bias (else ``None`` is returned for it).
 
     Returns
     -------
@@ -415,12 +417,12 @@ def bias_at_sipm_v(sipm, factors: DeviceFactors, breakdown_v, supply_v, series_r
     """
     if not series_resistor_ohm:
         bias = np.asarray(supply_v, dtype=float) + 0.0 * breakdown_v
-        return bias, sipm_current_a(sipm, factors, bias - breakdown_v, photon_rate_hz)
-    v = supply_v
-    for _ in range(2):
-        current = sipm_current_a(sipm, factors, v - breakdown_v, photon_rate_hz)
-        v = supply_v - series_resistor_ohm * current
-    return v, sipm_current_a(sipm, factors, v - breakdown_v, photon_rate_hz)
+    else:
+        bias = supply_v
+        for _ in range(2):
+            current = sipm_current_a(sipm, factors, bias - breakdown_v, photon_rate_hz)
+            bias = supply_v - series_resistor_ohm * current
+    return bias, (sipm_current_a(sipm, factors, bias - breakdown_v, photon_rate_hz) if with_current else None)
 
 
 def current_adc_code(sense, current_a, units: UnitDraws):

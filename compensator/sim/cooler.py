@@ -73,30 +73,21 @@ def cooler_substeps(params, tick_s: float) -> int:
     return max(1, int(np.ceil(tick_s / (SUBSTEP_FRACTION * min(cold, hot)))))
 
 
-def _fluxes(p, tc, th, i, ta):
-    s, r, k = p.seebeck_v_per_k, p.resistance_ohm, p.conductance_w_per_k
-    joule = 0.5 * r * i * i
-    cond = k * (th - tc)
-    qc = s * i * (tc + ZERO_C_IN_K) - joule - cond
-    qh = s * i * (th + ZERO_C_IN_K) + joule - cond
-    leak = p.cold_leak_conductance_w_per_k * (ta - tc)
-    sink = (th - ta) / p.sink_resistance_k_per_w
-    power = i * (s * (th - tc) + i * r)  # terminal voltage times current, computed on its own
-    return qc, qh, leak, sink, power
-
-
 def cooler_tick(params, cold_temp_c, hot_temp_c, current_a, ambient_temp_c, tick_s: float,
                 substeps: int | None = None) -> CoolerTick:
     """Advance the cooler one tick at a held current.
 
+    Plain arithmetic only, so Python floats stay floats (fast for one unit)
+    and numpy arrays stay arrays (many units at once).
+
     Parameters
     ----------
     params : CoolerParams
-    cold_temp_c, hot_temp_c : array_like
+    cold_temp_c, hot_temp_c : float or ndarray
         States at the start of the tick, degree Celsius.
-    current_a : array_like
+    current_a : float or ndarray
         Drive current over the tick, ampere (positive cools the plate).
-    ambient_temp_c : array_like
+    ambient_temp_c : float or ndarray
         Air around the module (the enclosure), degree Celsius, held over the tick.
     tick_s : float
         Second.
@@ -110,18 +101,33 @@ def cooler_tick(params, cold_temp_c, hot_temp_c, current_a, ambient_temp_c, tick
     p = params
     n = substeps or cooler_substeps(p, tick_s)
     h = tick_s / n
-    # Plain arithmetic only: Python floats stay floats (fast for one unit), arrays stay arrays.
+    s, r, k = p.seebeck_v_per_k, p.resistance_ohm, p.conductance_w_per_k
+    g, per_rs = p.cold_leak_conductance_w_per_k, 1.0 / p.sink_resistance_k_per_w
+    hc, hh, load = h / p.cold_heat_capacity_j_per_k, h / p.hot_heat_capacity_j_per_k, p.cold_heat_load_w
     tc, th, i, ta = cold_temp_c, hot_temp_c, current_a, ambient_temp_c
-    cc, ch, load = p.cold_heat_capacity_j_per_k, p.hot_heat_capacity_j_per_k, p.cold_heat_load_w
-    sums = [0.0] * 5
+    si = s * i
+    joule = 0.5 * r * i * i
+    ri = r * i
+    sum_qc = sum_qh = sum_leak = sum_sink = sum_power = 0.0
     for _ in range(n):
-        f1 = _fluxes(p, tc, th, i, ta)
-        tc1 = tc + h * (load + f1[2] - f1[0]) / cc
-        th1 = th + h * (f1[1] - f1[3]) / ch
-        f2 = _fluxes(p, tc1, th1, i, ta)
-        qc, qh, leak, sink, power = (0.5 * (a + b) for a, b in zip(f1, f2))
-        tc = tc + h * (load + leak - qc) / cc
-        th = th + h * (qh - sink) / ch
-        sums = [acc + v for acc, v in zip(sums, (qc, qh, leak, sink, power))]
-    qc, qh, leak, sink, power = (v / n for v in sums)
-    return CoolerTick(tc, th, qc, qh, power, leak, sink, float(load))
+        # fluxes at the start of the sub-step ...
+        cond = k * (th - tc)
+        qc1 = si * (tc + ZERO_C_IN_K) - joule - cond
+        qh1 = si * (th + ZERO_C_IN_K) + joule - cond
+        leak1 = g * (ta - tc)
+        sink1 = (th - ta) * per_rs
+        p1 = i * (s * (th - tc) + ri)  # terminal voltage times current, computed on its own
+        tc1 = tc + hc * (load + leak1 - qc1)
+        th1 = th + hh * (qh1 - sink1)
+        # ... and at the predicted end (Heun)
+        cond = k * (th1 - tc1)
+        qc = 0.5 * (qc1 + si * (tc1 + ZERO_C_IN_K) - joule - cond)
+        qh = 0.5 * (qh1 + si * (th1 + ZERO_C_IN_K) + joule - cond)
+        leak = 0.5 * (leak1 + g * (ta - tc1))
+        sink = 0.5 * (sink1 + (th1 - ta) * per_rs)
+        power = 0.5 * (p1 + i * (s * (th1 - tc1) + ri))
+        tc = tc + hc * (load + leak - qc)
+        th = th + hh * (qh - sink)
+        sum_qc, sum_qh, sum_leak, sum_sink, sum_power = (sum_qc + qc, sum_qh + qh, sum_leak + leak,
+                                                         sum_sink + sink, sum_power + power)
+    return CoolerTick(tc, th, sum_qc / n, sum_qh / n, sum_power / n, sum_leak / n, sum_sink / n, float(load))

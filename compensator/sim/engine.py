@@ -36,7 +36,9 @@ block until the current codes repeat (then it is exactly the tick-by-tick
 result). The cooled strategy steps tick by tick, vectorised over units.
 
 Metrics are accumulated as the run goes (largest, smallest, sum, sum of
-squares, ticks outside the band); only decimated traces are kept.
+squares, ticks outside the band), from ``settle_s`` on (the time the gain
+trim needs to converge from a unit's first error); only decimated traces
+are kept.
 """
 
 from __future__ import annotations
@@ -69,8 +71,8 @@ __all__ = ["SimOptions", "StrategyMetrics", "Traces", "UnitsResult", "simulate_u
 
 STRATEGY_ORDER = ("uncompensated", "compensated", "compensated_cooled", "gain_trimmed")
 
-#: Largest number of unit-ticks held in one block array (about 8 MB per float64 array).
-BLOCK_ELEMENTS = 1 << 20
+#: Largest number of unit-ticks in one block: its arrays (256 kB each) stay in the cache (measured: larger blocks run slower).
+BLOCK_ELEMENTS = 1 << 15
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -196,9 +198,10 @@ class UnitsResult:
 class _Acc:
     """Running per-unit statistics of one strategy."""
 
-    def __init__(self, n, band, cooled=False):
+    def __init__(self, n, band, cooled=False, settle=0):
         self.n = n
         self.band = band
+        self.settle = settle
         self.max = np.full(n, -np.inf)
         self.min = np.full(n, np.inf)
         self.sum = np.zeros(n)
@@ -215,22 +218,30 @@ class _Acc:
         self.trim_v = np.zeros(n)
 
     def add(self, dev, ov_dev, status, first_tick):
+        out = np.abs(dev) > self.band
+        any_out = out.any(axis=1)
+        if np.any(any_out):  # tracked from the start: the trim's convergence
+            last = out.shape[1] - 1 - np.argmax(out[:, ::-1], axis=1)
+            self.last_outside = np.where(any_out, first_tick + last, self.last_outside)
+        skip = self.settle - first_tick
+        if skip > 0:  # ticks before the metrics start
+            if skip >= dev.shape[1]:
+                return
+            dev, out = dev[:, skip:], out[:, skip:]
+            ov_dev = np.broadcast_to(ov_dev, (ov_dev.shape[0], dev.shape[1] + skip))[:, skip:]
+            status = None if status is None else status[:, skip:]
         self.max = np.maximum(self.max, dev.max(axis=1))
         self.min = np.minimum(self.min, dev.min(axis=1))
         self.sum += dev.sum(axis=1)
         self.sumsq += np.einsum("ij,ij->i", dev, dev)
-        out = np.abs(dev) > self.band
         self.outside += out.sum(axis=1)
-        any_out = out.any(axis=1)
-        if np.any(any_out):
-            last = out.shape[1] - 1 - np.argmax(out[:, ::-1], axis=1)
-            self.last_outside = np.where(any_out, first_tick + last, self.last_outside)
         self.ov_max = np.maximum(self.ov_max, np.abs(ov_dev).max(axis=1))
         if status is not None:
             self.fault += (status == STATUS_SENSOR_FAULT).sum(axis=1)
             self.out_of_range += ((status == STATUS_BELOW_RANGE) | (status == STATUS_ABOVE_RANGE)).sum(axis=1)
 
     def metrics(self, name, ticks, tick_s):
+        ticks = max(ticks - self.settle, 1)
         mean = self.sum / ticks
         rms = np.sqrt(self.sumsq / ticks)
         converged = np.full(self.n, np.nan)
@@ -371,7 +382,8 @@ def simulate_units(setup: SimSetup, units: UnitDraws, *, seed: int, strategies=N
     target_ov = law.target_overvoltage_v
     g0 = setup.nominal_gain
     band = setup.band_pct
-    acc = {s: _Acc(n, band, cooled=(s == "compensated_cooled")) for s in strategies}
+    settle = min(int(round(setup.settle_s / setup.tick_s)), setup.ticks - 1)
+    acc = {s: _Acc(n, band, cooled=(s == "compensated_cooled"), settle=settle) for s in strategies}
     lags = _lags(setup)
     lag_state = {s: [None] * len(lags) for s in strategies}
     carried_current = {s: np.zeros(n, dtype=np.int64) for s in strategies}
@@ -420,7 +432,7 @@ def simulate_units(setup: SimSetup, units: UnitDraws, *, seed: int, strategies=N
             v_out = np.broadcast_to(v_out, (n, length))
             if lags:
                 v_out = _apply_lags(v_out, lags, lag_state[name])
-            bias, current = bias_at_sipm_v(sipm, factors, vbd, v_out, r_series, rate)
+            bias, current = bias_at_sipm_v(sipm, factors, vbd, v_out, r_series, rate, with_current=measured)
             if measured and name != "uncompensated":
                 offset = trim_codes[:, None] if name == "gain_trimmed" else None
                 bias, current, carried_current[name] = _measured_block(
@@ -552,12 +564,16 @@ def _scalar_code_function(channel, units: UnitDraws):
     rtd = isinstance(sensor, RtdSensor)
     ntc_dev = not rtd and (u["ntc_r25"] or u["ntc_beta"])
     beta = None if rtd else (sensor.beta_k if sensor.beta_k is not None else float(sensor.effective_beta_k(25.0)))
+    plain_beta = not rtd and sensor.beta_k is not None
 
     def code(temp_c: float) -> int:
         t = temp_c + shift
         if rtd:
             t = t + u["rtd_offset_k"] + u["rtd_slope"] * abs(t)
-        r = float(sensor.resistance_ohm(t))
+        if plain_beta:  # the Beta model in plain floats: one unit, tick by tick
+            r = sensor.r25_ohm * math.exp(sensor.beta_k * (1.0 / (t + ZERO_C_IN_K) - 1.0 / T25_K))
+        else:
+            r = float(sensor.resistance_ohm(t))
         if ntc_dev:
             r = r * (1.0 + u["ntc_r25"]) * float(np.exp(u["ntc_beta"] * beta * (1.0 / (t + ZERO_C_IN_K) - 1.0 / T25_K)))
         frac = r / (r + r_ref) if low else r_ref / (r + r_ref)
@@ -679,8 +695,9 @@ class _CooledState:
         if lags:
             v_out = _apply_lags(v_out, lags, self.lag_state)
         r_series = self.sup.series_resistor_ohm if options.drop else 0.0
-        bias, current = bias_at_sipm_v(s.sipm, factors, vbd, v_out, r_series, rate)
-        if s.law.drop_correction == "measured":
+        measured = s.law.drop_correction == "measured"
+        bias, current = bias_at_sipm_v(s.sipm, factors, vbd, v_out, r_series, rate, with_current=measured)
+        if measured:
             bias, current, self.carried_current = _measured_block(
                 s, fw, self.sup, factors, vbd, rate, codes, current, self.carried_current, None, self.units,
                 s.board.current_sense, lags, self.lag_state, options, r_series)

@@ -33,7 +33,7 @@ from compensator.firmware.tables import STATUS_SENSOR_FAULT, LookupTable
 
 __all__ = [
     "VectorPid", "PythonFirmware", "CompiledFirmware", "FirmwareBuildError", "TABLE_NAME", "PID_NAME",
-    "render_firmware_sources", "build_firmware_library",
+    "render_firmware_sources", "build_firmware_library", "compile_firmware",
 ]
 
 TABLE_NAME = "bias_dac_from_adc"
@@ -406,3 +406,54 @@ class CompiledFirmware:
         bank = _CPidBank(self._lib, states, count)
         bank.reset()
         return bank
+
+
+def compile_firmware(setup, directory, profiles=()) -> CompiledFirmware:
+    """Write the setup's generated C (table and cooler PID) into ``directory``, compile it, and load it.
+
+    Files that exist already must hold exactly the generated text (the
+    output is deterministic, so a second run over the same scenario reuses
+    them); any other content is refused rather than overwritten.
+
+    Parameters
+    ----------
+    setup : SimSetup
+    directory : str or path-like
+        Created when missing.
+    profiles : sequence
+        Profiles named in the banners.
+
+    Returns
+    -------
+    CompiledFirmware
+
+    Raises
+    ------
+    InputError
+        A file in ``directory`` differs from what would be written.
+    FirmwareBuildError
+        No compiler, or the C does not compile.
+    """
+    from compensator.errors import InputError, Problem
+    from compensator.fileio import write_files_atomic
+
+    directory = Path(directory)
+    files = render_firmware_sources(setup.table, setup.pid, profiles,
+                                    settings={"generator": "compensator simulate --firmware", "scenario": setup.name})
+    new = {}
+    for name, text in files.items():
+        path = directory / name
+        if path.exists():
+            try:
+                same = path.read_text() == text
+            except (OSError, UnicodeDecodeError):
+                same = False
+            if not same:
+                raise InputError(Problem(str(path), 0, "", "exists with other content; not overwriting (use an "
+                                         "empty directory for --firmware)"))
+        else:
+            new[name] = text
+    if new:
+        write_files_atomic(directory, new, what="firmware")
+    library = build_firmware_library(directory)
+    return CompiledFirmware(setup.table, library, setup.pid is not None)

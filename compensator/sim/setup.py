@@ -76,6 +76,8 @@ class SimSetup:
     ticks : int
     strategies : tuple of str
     band_pct : float
+    settle_s : float
+        Metrics start after this time, second.
     trace_points : int
     seed : int
         Seed of the nominal run's noise.
@@ -108,6 +110,7 @@ class SimSetup:
     ticks: int
     strategies: tuple
     band_pct: float = 0.25
+    settle_s: float = 0.0
     trace_points: int = 2000
     seed: int = 1
     sensor_offset_k: float = 0.0
@@ -148,7 +151,7 @@ def setup_from_profiles(sipm_profile, board_profile, *, thermal_profile=None, ov
                         law_kind: str = "constant_gain", drop_correction: str = "modelled",
                         table_bound_pct: float = 0.05, table_layout: str = "optimised", weather: Weather | None = None,
                         path: ThermalPath | None = None, tick_s: float | None = None, duration_s: float = 86400.0,
-                        strategies=("uncompensated", "compensated"), band_pct: float = 0.25,
+                        strategies=("uncompensated", "compensated"), band_pct: float = 0.25, settle_s: float = 0.0,
                         trace_points: int = 2000, seed: int = 1, sensor_offset_k: float = 0.0,
                         sensor_noise_k: float = 0.0, breakdown_error_v: float = 0.0, ageing_mv_per_day: float = 0.0,
                         trim: TrimSettings = TrimSettings(), cooler_setpoint_temp_c: float | None = None,
@@ -178,6 +181,8 @@ def setup_from_profiles(sipm_profile, board_profile, *, thermal_profile=None, ov
     strategies : sequence of str
     band_pct : float
         Percent.
+    settle_s : float
+        Metrics start after this time, second.
     trace_points : int
     seed : int
     sensor_offset_k, sensor_noise_k : float
@@ -231,7 +236,8 @@ def setup_from_profiles(sipm_profile, board_profile, *, thermal_profile=None, ov
         name=name or f"{sipm_profile.name} on {board_profile.name}", sipm=sipm, board=board_profile, cooler=cooler,
         law=law, table=table, pid=pid, pid_gains=gains, cooler_setpoint_temp_c=setpoint,
         cooler_setpoint_code=setpoint_code, weather=weather, path=path, tick_s=tick_s, ticks=ticks,
-        strategies=tuple(strategies), band_pct=float(band_pct), trace_points=int(trace_points), seed=int(seed),
+        strategies=tuple(strategies), band_pct=float(band_pct), settle_s=float(settle_s),
+        trace_points=int(trace_points), seed=int(seed),
         sensor_offset_k=float(sensor_offset_k), sensor_noise_k=float(sensor_noise_k),
         breakdown_error_v=float(breakdown_error_v), ageing_v_per_s=1e-3 * ageing_mv_per_day / SECONDS_PER_DAY,
         trim=trim, fixed_dac_code=fixed, nominal_gain=nominal_gain)
@@ -284,6 +290,7 @@ def prepare(scenario, *, days: float | None = None, strategies=None) -> SimSetup
             law_kind=hw["law"], drop_correction=hw["drop_correction"], table_bound_pct=hw["table_bound_pct"],
             table_layout=hw["table_layout"], weather=weather, path=path, tick_s=1.0 / rate,
             duration_s=duration_days * SECONDS_PER_DAY, strategies=chosen, band_pct=run["band_pct"],
+            settle_s=run["settle_s"],
             trace_points=run["trace_points"], seed=run["seed"], sensor_offset_k=tp["sensor_offset_k"],
             sensor_noise_k=tp["sensor_noise_k"], breakdown_error_v=unit["breakdown_error_v"],
             ageing_mv_per_day=unit["ageing_mv_per_day"],
