@@ -551,6 +551,19 @@ class _ScalarPid:
         return self.pid.step(int(setpoint_count), int(measurement_count))
 
 
+class _OneOfBank:
+    """A bank of one controller (the compiled C) with plain integers in and out."""
+
+    def __init__(self, bank):
+        self.bank = bank
+
+    def reset(self, output_count=None):
+        self.bank.reset(None if output_count is None else np.atleast_1d(output_count))
+
+    def step(self, setpoint_count, measurement_count):
+        return int(self.bank.step(np.array([setpoint_count]), np.array([measurement_count]))[0])
+
+
 def _scalar_code_function(channel, units: UnitDraws):
     """The ADC code of one unit's sensor as a function of a float temperature (same arithmetic as the vector one)."""
     sensor, fe = channel.sensor, channel.front_end
@@ -595,7 +608,10 @@ class _CooledState:
         self.rng = rng
         self.n = units.count
         self.scalar = self.n == 1
-        self.pid = _ScalarPid(setup.pid) if self.scalar and isinstance(fw, PythonFirmware) else fw.pid(self.n)
+        if self.scalar:
+            self.pid = _ScalarPid(setup.pid) if isinstance(fw, PythonFirmware) else _OneOfBank(fw.pid(1))
+        else:
+            self.pid = fw.pid(self.n)
         self.sup = supply_units(setup.law.supply, units)
         self.params = setup.cooler
         self.substeps = cooler_substeps(self.params, setup.tick_s)
