@@ -10,7 +10,9 @@ an invented cooler. The demo
    compensation law leaves, with its gain-error budget;
 3. sizes the microcontroller lookup table for a gain-error bound (and writes
    the C code with ``--out DIR``);
-4. tunes (robust PI) and verifies the cooler loop and the bias-supply loop.
+4. tunes (robust PI) and verifies the cooler loop and the bias-supply loop;
+5. simulates a week of the hut's weather with the firmware in the loop
+   (``compensator simulate`` on the bundled scenario).
 """
 
 from __future__ import annotations
@@ -46,8 +48,8 @@ SAFETY = (
 
 def register(subparsers) -> None:
     parser = subparsers.add_parser("demo", help="run the main job end to end on the bundled demo profiles")
-    parser.add_argument("--profiles", default="hardware_profiles", metavar="DIR",
-                        help="directory holding the demo profiles (default: hardware_profiles)")
+    parser.add_argument("--profiles", default=None, metavar="DIR",
+                        help="directory holding the demo profiles and scenario (default: the bundled ones)")
     parser.add_argument("--step-c", type=positive_float, default=10.0, metavar="K",
                         help="temperature step of the printed tables, kelvin (default 10)")
     parser.add_argument("--out", metavar="DIR",
@@ -203,7 +205,9 @@ def _require(root: Path, name: str) -> Path:
 def run(args) -> int:
     from compensator.law import build_law, gain_error_budget
 
-    root = Path(args.profiles)
+    from compensator.profiles.bundled import bundled_profiles_dir
+
+    root = Path(args.profiles) if args.profiles else bundled_profiles_dir()
     out_dir = Path(args.out) if args.out else None
     say = (lambda *a: None) if args.json else print
     print(SAFETY, file=sys.stderr)
@@ -281,6 +285,11 @@ def run(args) -> int:
     for lp in report["loops"]:
         for warning in lp["warnings"]:
             print(f"warning: {lp['loop']}: {warning}", file=sys.stderr)
+    # 5. The simulated week: the bundled scenario through `compensator simulate` (figures and report with --out).
+    from compensator.cli.simulate import simulated_week
+
+    say("\n== 5. a simulated week in the hut's weather, firmware in the loop, strategies side by side")
+    report["simulation"] = simulated_week(root, out_dir, say)
     if args.json:
         print_json(report)
     return 0 if all(lp["stable"] for lp in report["loops"]) else 1

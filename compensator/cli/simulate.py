@@ -201,3 +201,40 @@ def render_text(report, files=()) -> str:
                 for w in y.worst], ["unit", "max_abs_%", "largest draws"], ["d", ".3f", ""]))
     lines += [f"wrote {f}" for f in files]
     return "\n".join(lines)
+
+
+def simulated_week(profiles_dir, out_dir=None, say=print) -> dict:
+    """The last step of ``compensator demo``: the bundled scenario's week, printed, with figures and report.
+
+    Parameters
+    ----------
+    profiles_dir : str or path-like
+        Folder holding the demo scenario and the profiles it names.
+    out_dir : str or path-like, optional
+        Figures and ``report.html`` go to ``out_dir/simulation/``.
+    say : callable
+        Prints a line for people (a no-op under ``--json``).
+
+    Returns
+    -------
+    dict
+        The JSON document of the run (as ``compensator simulate --json``).
+    """
+    from compensator.errors import InputError, Problem
+    from compensator.profiles import load_scenario
+    from compensator.profiles.bundled import DEMO_SCENARIO
+    from compensator.sim.report import render_figures, write_plots, write_report
+    from compensator.sim.run import simulate_scenario
+
+    path = Path(profiles_dir) / DEMO_SCENARIO
+    if not path.is_file():
+        raise InputError(Problem(str(path), 0, "", "demo scenario not found (pass --profiles DIR)"))
+    report = simulate_scenario(load_scenario(path))
+    files = []
+    if out_dir is not None:
+        target = Path(out_dir) / "simulation"
+        figures = render_figures(report)
+        files = [str(p) for p in write_plots(report, target)] + [str(p) for p in write_report(report, target,
+                                                                                              figures)]
+    say(render_text(report, files))
+    return render_json(report, files)

@@ -154,6 +154,7 @@ SCENARIO = KindSchema(
                 choices=STRATEGIES),
             Key("worst_units", INT, "how many of the worst units to list with their draws", required=False,
                 default=5, ge=0, le=1000),
+            _flag("cooled", "also run compensated_cooled for every unit (tick by tick over the units: slow)", False),
             _flag("draw_sensor", "temperature sensor tolerance (NTC R25 and Beta, or RTD class)", True),
             _flag("draw_front_end", "divider resistor, ADC reference and excitation", True),
             _flag("draw_dac", "DAC reference", True),
@@ -353,7 +354,8 @@ def build_scenario(raw) -> ScenarioProfile:
         problems.append(raw.problem("run.duration_days", f"{ticks:.3g} ticks at {rate:g} Hz is more than 2e9; "
                                     "shorten the run or lower run.control_rate_hz"))
     mc = v.get("monte_carlo")
-    if mc and mc["units"] and chosen and mc["strategy"] not in chosen:
+    mc_chosen = [c for c in chosen if c != "compensated_cooled" or (mc and mc["cooled"])]
+    if mc and mc["units"] and mc["strategy"] not in mc_chosen:
         problems.append(raw.problem("monte_carlo.strategy", f"{mc['strategy']!r} is not among the strategies run"))
     trim = v.get("gain_trim")
     if trim and trim["window_s"] * rate < 1:

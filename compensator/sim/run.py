@@ -209,13 +209,14 @@ def simulate_scenario(scenario, *, days: float | None = None, units: int | None 
     if count:
         groups = tuple(g for g in GROUPS if mc[f"draw_{g}"])
         strategy = mc["strategy"]
-        if strategy not in setup.strategies:
+        if strategy not in setup.strategies or (strategy == "compensated_cooled" and not mc["cooled"]):
             raise ModelError(f"the yield strategy {strategy!r} is not among the strategies run",
                              key="monte_carlo.strategy").at(scenario.source,
                                                             scenario.lines.get("monte_carlo.strategy", 0))
+        chosen = tuple(s for s in setup.strategies if s != "compensated_cooled" or mc["cooled"])
         yield_ = monte_carlo(setup, units=count, seed=mc["seed"], chunk_units=mc["chunk_units"], groups=groups,
-                             strategy=strategy, worst_count=mc["worst_units"], workers=workers, scheduler=scheduler,
-                             firmware_library=firmware_library, progress=mc_progress)
+                             strategies=chosen, strategy=strategy, worst_count=mc["worst_units"], workers=workers,
+                             scheduler=scheduler, firmware_library=firmware_library, progress=mc_progress)
     gains = setup.pid_gains
     return SimulationReport(
         scenario=scenario.name, source=scenario.source, sha256=scenario.sha256,
