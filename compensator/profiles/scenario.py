@@ -219,8 +219,7 @@ class ScenarioProfile:
         """The values of one section (defaults filled in for an absent optional section)."""
         if name in self.values:
             return self.values[name]
-        keys = next(s for s in SCENARIO.sections if s.name == name).keys
-        return {k.name: k.default for k in keys}
+        return {k.name: k.default for k in _section(name).keys}
 
     def problem(self, keypath: str, reason: str) -> Problem:
         """A :class:`~compensator.errors.Problem` located at ``keypath`` in the scenario file."""
@@ -232,6 +231,10 @@ class ScenarioProfile:
         """The strategies switched on, in report order."""
         chosen = self.section("strategies")
         return tuple(s for s in STRATEGIES if chosen[s])
+
+
+def _section(name: str) -> Section:
+    return next(s for s in SCENARIO.sections if s.name == name)
 
 
 def read_ambient_csv(path, max_gap_s: float = 3600.0) -> AmbientRecording:
@@ -333,7 +336,7 @@ def build_scenario(raw) -> ScenarioProfile:
     if hw["drop_correction"] == "measured" and board.current_sense is None:
         problems.append(raw.problem("hardware.drop_correction", f"'measured' needs a current_sense section in "
                                     f"{board.name}'s profile"))
-    strategies = v.get("strategies") or {k.name: k.default for k in SCENARIO.sections[4].keys}
+    strategies = v.get("strategies") or {k.name: k.default for k in _section("strategies").keys}
     chosen = [s for s in STRATEGIES if strategies[s]]
     if strategies["compensated_cooled"] and thermal is None:
         problems.append(raw.problem("strategies.compensated_cooled", "needs hardware.thermal (a thermal profile)"))
