@@ -413,7 +413,8 @@ def simulate_units(setup: SimSetup, units: UnitDraws, *, seed: int, strategies=N
         rate = amb.photon_rate_hz[None, :]
         code = None
         if {"compensated", "gain_trimmed"} & set(strategies):
-            noise = rng.standard_normal((n, length)) * setup.sensor_noise_k if options.noise else 0.0
+            # tick-major draws: the same numbers reach the same ticks however the run is cut into blocks
+            noise = rng.standard_normal((length, n)).T * setup.sensor_noise_k if options.noise else 0.0
             t_read = amb.sensor_temp_c[None, :] + setup.sensor_offset_k + noise
             code = sensor_adc_code(channel, t_read, units, quantise=options.quantise)
         picks = np.arange(-done % stride, length, stride) if stride else None
@@ -651,7 +652,8 @@ class _CooledState:
         n, length = self.n, amb.time_s.size
         if self.tc is None:
             self._start(float(amb.enclosure_temp_c[0]))
-        noise = self.rng.standard_normal((n, length)) * s.sensor_noise_k if options.noise else np.zeros((n, length))
+        noise = (self.rng.standard_normal((length, n)).T * s.sensor_noise_k if options.noise
+                 else np.zeros((n, length)))
         offset = s.sensor_offset_k
         die = np.empty((n, length))
         codes = np.empty((n, length), dtype=np.int64)

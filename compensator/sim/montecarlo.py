@@ -182,13 +182,17 @@ def _combine(chunks, units, band, strategy, strategies, worst_count, seed, execu
                             groups=tuple(groups))
 
 
+#: How long to wait for a Dask scheduler to answer, second.
+CONNECT_TIMEOUT_S = 10.0
+
+
 def _dask_client(address: str):
     try:
         from dask.distributed import Client
     except ImportError:
         raise ClusterError("--scheduler needs dask.distributed: pip install 'compensator[cluster]'") from None
     try:
-        return Client(address, timeout="10s", set_as_default=False)
+        return Client(address, timeout=f"{CONNECT_TIMEOUT_S}s", set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:
         raise ClusterError(f"cannot reach the Dask scheduler at {address}: {exc}") from None
 
