@@ -44,7 +44,7 @@ def test_bundled_scenario_passes_profile_check(cli, profiles_dir):
     res = cli("profile", "check", profiles_dir / "hut-week-scenario.yaml", "--json")
     assert res.status == 0, res.stderr
     doc = json.loads(res.stdout)
-    assert doc["files"][0]["kind"] == "scenario" and doc["files"][0]["name"] == "hut-week"
+    assert doc["profiles"][0]["kind"] == "scenario" and doc["profiles"][0]["name"] == "hut-week"
     assert doc["checked"] == 1 and doc["invalid"] == 0
 
 
@@ -125,10 +125,12 @@ def test_simulate_json_numbers_and_files(tmp_path, profiles_dir, cli):
     assert runs["compensated"]["gain_dev_max_abs_pct"] < 0.25
     assert runs["uncompensated"]["gain_dev_max_abs_pct"] > 20 * runs["compensated"]["gain_dev_max_abs_pct"]
     assert 17.0 < runs["uncompensated"]["gain_dev_max_abs_pct"] < 22.0
-    assert doc["scenario"]["ticks"] == round(0.05 * 86400 * 0.2)
+    assert doc["ticks"] == round(0.05 * 86400 * 0.2) and doc["name"] == "small"
     y = doc["yield"]
     assert y["units"] == 4 and y["strategy"] == "compensated" and 0.0 <= y["fraction_within"] <= 1.0
     assert len(y["worst"]) == 4 and y["chunks"] == 2 and y["executor"] == "inline"
+    assert sorted(w["unit_index"] for w in y["worst"]) == [0, 1, 2, 3]
+    assert {d["parameter"] for d in y["worst"][0]["draws"]} >= {"breakdown_v", "ntc_r25"}
     names = sorted(Path(f).name for f in doc["files"])
     assert names == ["report.html", "sim-bias.png", "sim-gain.png", "sim-temperatures.png", "sim-yield.png"]
     html = (tmp_path / "report" / "report.html").read_text()

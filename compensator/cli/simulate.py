@@ -123,7 +123,7 @@ def run(args) -> int:
 
 
 def render_json(report, files=()) -> dict:
-    """The JSON document of a :class:`~compensator.sim.run.SimulationReport`.
+    """The JSON document of a :class:`~compensator.sim.run.SimulationReport` (names in :mod:`compensator.vocabulary`).
 
     Parameters
     ----------
@@ -135,19 +135,22 @@ def render_json(report, files=()) -> dict:
 
     y = report.yield_
     return {
-        "scenario": {"name": report.scenario, "file": str(report.source), "sha256": report.sha256,
-                     "duration_days": report.duration_days, "tick_s": report.tick_s, "ticks": report.ticks,
-                     "band_pct": report.band_pct, "settle_s": report.settle_s, "firmware": report.firmware,
-                     "table_entries": report.table_entries, "table_bytes": report.table_bytes,
-                     "table_bound_pct": report.table_bound_pct, "cooler_kp_a_per_k": report.cooler_kp_a_per_k,
-                     "cooler_ki_a_per_k_s": report.cooler_ki_a_per_k_s},
+        "name": report.scenario, "file": str(report.source), "sha256": report.sha256,
+        "duration_days": report.duration_days, "tick_s": report.tick_s, "ticks": report.ticks,
+        "band_pct": report.band_pct, "settle_s": report.settle_s, "firmware": report.firmware,
+        "entries": report.table_entries, "table_bytes": report.table_bytes,
+        "table_bound_pct": report.table_bound_pct,
+        "cooler_controller": None if report.cooler_kp_a_per_k is None else {
+            "kp": report.cooler_kp_a_per_k, "ki_per_s": report.cooler_ki_a_per_k_s},
         "runs": [asdict(r) for r in report.runs],
         "comparison": {"uncompensated_over_compensated": report.uncompensated_over_compensated,
                        "published_dark_pulse_feedback_pct": 2.0,
                        "trim_vs_published_factor": report.trim_vs_published_factor},
         "yield": None if y is None else {
             "units": y.units, "band_pct": y.band_pct, "strategy": y.strategy, "fraction_within": y.fraction_within,
-            "worst": [asdict(w) for w in y.worst],
+            "worst": [{"unit_index": w.unit, "gain_dev_max_abs_pct": w.gain_dev_max_abs_pct,
+                       "gain_dev_pk_pk_pct": w.gain_dev_pk_pk_pct,
+                       "draws": [{"parameter": k, "deviation": v} for k, v in w.draws.items()]} for w in y.worst],
             "strategies": [{"name": s.name, "fraction_within": s.fraction_within,
                             "gain_dev_max_abs_median_pct": s.gain_dev_max_abs_median_pct,
                             "gain_dev_max_abs_p95_pct": s.gain_dev_max_abs_p95_pct} for s in y.strategies],
