@@ -187,6 +187,10 @@ def discretise_thermal_path(path: ThermalPath, tick_s: float) -> ThermalDiscreti
     return ThermalDiscretisation(float(tick_s), phi, g1 - g2, g2)
 
 
+def _hour_of_day(time_s):
+    return np.mod(np.asarray(time_s, dtype=float), SECONDS_PER_DAY) / 3600.0
+
+
 def sun_load_k(weather: Weather, time_s):
     """Warming of the enclosure by the sun, kelvin: a half sine between sunrise and sunset.
 
@@ -196,7 +200,7 @@ def sun_load_k(weather: Weather, time_s):
     time_s : array_like
         Seconds since midnight of the first day.
     """
-    hour = np.mod(np.asarray(time_s, dtype=float), SECONDS_PER_DAY) / 3600.0
+    hour = _hour_of_day(time_s)
     phase = (hour - weather.sunrise_hour) / (weather.sunset_hour - weather.sunrise_hour)
     return weather.sun_peak_k * np.where((phase > 0) & (phase < 1), np.sin(np.pi * np.clip(phase, 0, 1)), 0.0)
 
@@ -210,7 +214,7 @@ def is_day(weather: Weather, time_s):
     time_s : array_like
         Seconds since midnight of the first day.
     """
-    hour = np.mod(np.asarray(time_s, dtype=float), SECONDS_PER_DAY) / 3600.0
+    hour = _hour_of_day(time_s)
     return (hour >= weather.sunrise_hour) & (hour < weather.sunset_hour)
 
 
