@@ -440,11 +440,15 @@ def simulate_units(setup: SimSetup, units: UnitDraws, *, seed: int, strategies=N
                     setup, fw, sup, factors, vbd, rate, code, current, carried_current[name], offset, units, sense,
                     lags, lag_state[name], options, r_series)
             ov = bias - vbd
-            gain = factors.gain_per_v * np.maximum(ov, 0.0)
-            dev = 100.0 * (gain / g0 - 1.0)
-            acc[name].add(dev, ov - ov_target, status, done)
+            gain = np.maximum(ov, 0.0)
+            gain *= factors.gain_per_v
+            dev = gain * (100.0 / g0)
+            dev -= 100.0
             if name == "gain_trimmed":
                 dcr = _dark_rate(sipm, factors, ov)
+            ov -= ov_target  # from here on, the overvoltage's deviation from the law's target
+            acc[name].add(dev, ov, status, done)
+            if name == "gain_trimmed":
                 win_weight += dcr.sum(axis=1)
                 win_gain += (dcr * gain).sum(axis=1)
                 win_stats[0] += dev.sum(axis=1)
