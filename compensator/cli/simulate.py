@@ -7,6 +7,8 @@ from pathlib import Path
 
 from compensator.cli._common import add_json_flag, format_table, print_json, usage_error
 
+__all__ = ["ORDER", "COMMAND", "HELP", "register", "run", "render_json", "render_text", "simulated_week"]
+
 ORDER = 70
 COMMAND = "simulate"
 HELP = "simulate the instrument in its weather, strategy by strategy, with the firmware in the loop; Monte Carlo yield"
