@@ -38,6 +38,9 @@ TOLERANCE_GROUPS = ("sensor", "front_end", "dac", "supply", "breakdown", "sensor
 #: Longest run a scenario may ask for, days (a year and a day).
 MAX_DURATION_DAYS = 366.0
 
+#: Largest seed (numpy seeds are unsigned; 32 bits are plenty).
+MAX_SEED = 2 ** 32 - 1
+
 
 def _f(name, doc, **kw):
     return Key(name, FLOAT, doc, **kw)
@@ -79,11 +82,11 @@ SCENARIO = KindSchema(
             _opt("band_pct", "gain band for the time outside it and for the yield, plus or minus percent", 0.25,
                  gt=0, le=100),
             _opt("settle_s", "metrics start after this time (lets the gain trim converge from a unit's first "
-                 "error), second", 0.0, ge=0),
+                 "error), second", 0.0, ge=0, le=MAX_DURATION_DAYS * 86400.0),
             Key("trace_points", INT, "points kept per trace for plots (decimated)", required=False, default=2000,
                 ge=10, le=1000000),
             Key("seed", INT, "seed of the sensor noise and dark-peak statistics of the nominal run",
-                required=False, default=1, ge=0),
+                required=False, default=1, ge=0, le=MAX_SEED),
         )),
         Section("ambient", "Outdoor air temperature: mean + seasonal offset and ramp + diurnal sinusoid + "
                 "Ornstein-Uhlenbeck weather + steps, or a recorded CSV `time_s,temp_c` replayed instead.", (
@@ -94,25 +97,29 @@ SCENARIO = KindSchema(
             _opt("diurnal_peak_hour", "hour of the day of the warmest air, hour", 15.0, ge=0, lt=24),
             _opt("weather_sigma_k", "standard deviation of the random weather (stationary), kelvin", 0.0,
                  ge=0, le=30),
-            _opt("weather_time_constant_s", "correlation time of the random weather, second", 43200.0, gt=0),
+            _opt("weather_time_constant_s", "correlation time of the random weather, second", 43200.0, gt=0,
+                 le=MAX_DURATION_DAYS * 86400.0),
             _opt("step_k", "size of a temperature step, kelvin", 0.0, ge=-60, le=60),
-            _opt("step_at_s", "time of the first step, second", 0.0, ge=0),
+            _opt("step_at_s", "time of the first step, second", 0.0, ge=0, le=MAX_DURATION_DAYS * 86400.0),
             _opt("step_period_s", "0: one step; otherwise the step is on for half of each period, second", 0.0,
-                 ge=0),
+                 ge=0, le=MAX_DURATION_DAYS * 86400.0),
             _opt("sun_peak_k", "warming of the enclosure by the sun at noon, kelvin", 0.0, ge=0, le=60),
             _opt("sunrise_hour", "hour of sunrise (also when the day light level starts), hour", 6.0, ge=0, lt=24),
             _opt("sunset_hour", "hour of sunset, hour", 18.0, gt=0, le=24),
             Key("replay_csv", STR, "recorded outdoor temperature, CSV with columns time_s,temp_c (path relative "
                 "to this file); replaces the synthetic weather", required=False, default=""),
-            _opt("replay_max_gap_s", "largest time step allowed in the recording, second", 3600.0, gt=0),
-            Key("seed", INT, "seed of the random weather", required=False, default=1, ge=0),
+            _opt("replay_max_gap_s", "largest time step allowed in the recording, second", 3600.0, gt=0, le=86400.0),
+            Key("seed", INT, "seed of the random weather", required=False, default=1, ge=0, le=MAX_SEED),
         )),
         Section("thermal_path", "From the outdoor air to the SiPM die and its temperature sensor.", (
-            _f("enclosure_time_constant_s", "first-order lag from outdoor air to enclosure air, second", gt=0),
+            _f("enclosure_time_constant_s", "first-order lag from outdoor air to enclosure air, second", gt=0,
+               le=1e6),
             _opt("internal_heat_k", "steady warming of the enclosure air by the electronics, kelvin", 0.0,
                  ge=-20, le=40),
-            _f("die_time_constant_s", "first-order lag from enclosure air to the SiPM die (uncooled), second", gt=0),
-            _opt("sensor_lag_s", "first-order lag of the temperature sensor behind the die, second", 0.0, ge=0),
+            _f("die_time_constant_s", "first-order lag from enclosure air to the SiPM die (uncooled), second", gt=0,
+               le=1e6),
+            _opt("sensor_lag_s", "first-order lag of the temperature sensor behind the die, second", 0.0, ge=0,
+                 le=3600.0),
             _opt("sensor_offset_k", "steady offset of the sensor from the die in this unit, kelvin", 0.0,
                  ge=-10, le=10),
             _opt("sensor_noise_k", "white noise of the temperature reading, kelvin (1 sigma per tick)", 0.0,
@@ -147,7 +154,8 @@ SCENARIO = KindSchema(
         Section("monte_carlo", "Units with tolerances drawn from the profiles, for the yield.", (
             Key("units", INT, "number of units (0: no Monte Carlo)", required=False, default=0, ge=0,
                 le=10_000_000),
-            Key("seed", INT, "seed of the draws and of each chunk's noise", required=False, default=7, ge=0),
+            Key("seed", INT, "seed of the draws and of each chunk's noise", required=False, default=7, ge=0,
+                le=MAX_SEED),
             Key("chunk_units", INT, "units simulated together in one chunk (one task)", required=False,
                 default=250, ge=1, le=100000),
             Key("strategy", CHOICE, "strategy the yield is reported for", required=False, default="compensated",
