@@ -335,6 +335,7 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("cooler_mean_power_w", "W", "mean electrical power into the cooler over the run"),
         ("cooler_off_ticks", "count",
          "ticks the cooler was forced off (sensor fault or hot side over its limit)"),
+        ("dew_risk_ticks", "count", "ticks with the cold plate below the dew point plus margin (condensation)"),
         ("deviation", "unit of the parameter (its name's suffix; relative deviations are fractions)", "how far a unit's parameter was drawn from its profile"),
         ("draws", "list",
          "the deviations drawn for a unit: parameter and deviation, only those not zero"),

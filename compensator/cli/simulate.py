@@ -179,6 +179,11 @@ def render_text(report, files=()) -> str:
                            f"outside_{report.band_pct:g}%_time_%", "ov_max_abs_mv", "fault_ticks",
                            "out_of_range_ticks", "cooler_w"],
                           ["", ".3f", ".3f", ".3f", ".2f", ".2f", "d", "d", ".3f"])]
+    for r in report.runs:
+        if r.dew_risk_ticks:
+            lines.append(f"warning: {r.name}: the cold plate sat below the dew point of the enclosure air plus the "
+                         f"margin for {r.dew_risk_ticks * report.tick_s / 3600:.1f} h: condensation would wet the "
+                         "electronics; raise the setpoint or dry the enclosure")
     if report.uncompensated_over_compensated is not None:
         lines.append(f"uncompensated / compensated, largest absolute gain deviation: "
                      f"{report.uncompensated_over_compensated:.0f}x")

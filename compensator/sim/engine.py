@@ -123,6 +123,10 @@ class StrategyMetrics:
         Highest hot-side temperature (NaN without a cooler), degree Celsius.
     cooler_off_ticks : ndarray of int
         Ticks the cooler was forced off (sensor fault or hot side over its limit).
+    dew_risk_ticks : ndarray of int
+        Ticks with the cold plate below the dew point of the enclosure air
+        (at the thermal profile's relative humidity) plus the profile's margin:
+        condensation (Magnus formula, Alduchov and Eskridge 1996).
     trim_v : ndarray
         Final trim of the bias, volt (0 unless gain_trimmed).
     trim_converged_s : ndarray
@@ -146,6 +150,7 @@ class StrategyMetrics:
     cooler_energy_j: np.ndarray
     hot_side_max_temp_c: np.ndarray
     cooler_off_ticks: np.ndarray
+    dew_risk_ticks: np.ndarray
     trim_v: np.ndarray
     trim_converged_s: np.ndarray
     trim_residual_rms_pct: np.ndarray
@@ -214,6 +219,7 @@ class _Acc:
         self.energy = np.zeros(n)
         self.hot_max = np.full(n, np.nan if not cooled else -np.inf)
         self.off = np.zeros(n, dtype=np.int64)
+        self.dew = np.zeros(n, dtype=np.int64)
         self.windows = []  # (end tick, sum, sumsq, count) per trim window
         self.trim_v = np.zeros(n)
 
@@ -267,7 +273,7 @@ class _Acc:
             gain_dev_rms_pct=rms, gain_dev_mean_pct=mean, time_outside_band_pct=100.0 * self.outside / ticks,
             overvoltage_dev_max_abs_v=self.ov_max, sensor_fault_ticks=self.fault,
             out_of_range_ticks=self.out_of_range, cooler_energy_j=self.energy,
-            hot_side_max_temp_c=self.hot_max, cooler_off_ticks=self.off, trim_v=self.trim_v,
+            hot_side_max_temp_c=self.hot_max, cooler_off_ticks=self.off, dew_risk_ticks=self.dew, trim_v=self.trim_v,
             trim_converged_s=converged, trim_residual_rms_pct=residual)
 
 
@@ -707,6 +713,13 @@ class _CooledState:
         acc.energy += energy
         acc.off += off_ticks
         acc.hot_max = np.maximum(acc.hot_max, hot_max)
+        from compensator.physics.thermal import dew_point_c
+
+        p = self.params
+        if p.ambient_relative_humidity_pct > 0:
+            wet = die < dew_point_c(amb.enclosure_temp_c, p.ambient_relative_humidity_pct)[None, :] + p.dew_margin_k
+            skip = max(0, acc.settle - first_tick)
+            acc.dew += wet[:, skip:].sum(axis=1)
         # The bias does not act back on the cooler: the rest of the chain runs on the whole block at once.
         factors = device_factors(s.sipm, die)
         vbd = unit_breakdown_v(factors, self.units, s.breakdown_error_v + s.ageing_v_per_s * amb.time_s[None, :])

@@ -48,6 +48,8 @@ class RunSummary:
     hot_side_max_temp_c : float or None
         Degree Celsius (``None`` without a cooler).
     cooler_off_ticks : int
+    dew_risk_ticks : int
+        Ticks with the cold plate below the dew point plus margin (condensation).
     trim_v : float
         Final bias trim, volt.
     trim_converged_s : float or None
@@ -69,6 +71,7 @@ class RunSummary:
     cooler_mean_power_w: float
     hot_side_max_temp_c: float | None
     cooler_off_ticks: int
+    dew_risk_ticks: int
     trim_v: float
     trim_converged_s: float | None
     trim_residual_rms_pct: float | None
@@ -150,7 +153,7 @@ def summarise_runs(result, tick_s: float) -> list[RunSummary]:
             sensor_fault_ticks=int(m.sensor_fault_ticks[0]), out_of_range_ticks=int(m.out_of_range_ticks[0]),
             cooler_energy_j=energy, cooler_mean_power_w=energy / (result.ticks * tick_s),
             hot_side_max_temp_c=_opt(m.hot_side_max_temp_c[0]), cooler_off_ticks=int(m.cooler_off_ticks[0]),
-            trim_v=float(m.trim_v[0]), trim_converged_s=_opt(m.trim_converged_s[0]),
+            dew_risk_ticks=int(m.dew_risk_ticks[0]), trim_v=float(m.trim_v[0]), trim_converged_s=_opt(m.trim_converged_s[0]),
             trim_residual_rms_pct=_opt(m.trim_residual_rms_pct[0])))
     return out
 
