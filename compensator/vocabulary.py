@@ -98,6 +98,7 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("code", "text", "stable machine-readable identifier of a finding (snake_case)"),
         ("file", "path", "input file, as given on the command line"),
         ("files", "list", "files written by the command, in order"),
+        ("findings", "list", "what a check found: one record each, with code, severity and message"),
         ("invalid", "count", "number of profile files with problems"),
         ("key", "text", "identifier of a budget term, or the key path or column at fault"),
         ("kind", "text", "what sort of thing the record describes (profile kind, budget term kind, plant kind)"),
@@ -127,8 +128,9 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("crosstalk_fraction", "1", "probability that an avalanche triggers prompt crosstalk (0 to 1)"),
         ("current_a", "A", "current (SiPM steady current, or cooler current at an operating point)"),
         ("dark_rate_hz", "Hz", "dark count rate"),
+        ("fixed_bias_gain_change_pct_per_k", "%/K",
+         "relative gain change per kelvin if the bias stayed fixed at that point: -(dVbd/dT)/Vov + alpha_C"),
         ("gain", "1", "SiPM gain: charge of one avalanche over the elementary charge"),
-        ("gain_change_pct_per_k", "%/K", "relative gain change per kelvin in the regime of the record"),
         ("overvoltage_v", "V", "overvoltage: bias minus breakdown voltage"),
         ("pde_fraction", "1", "photon detection efficiency (0 to 1)"),
         ("photon_rate_hz", "Hz", "steady photon rate on the sensor"),
@@ -209,7 +211,6 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("dominant", "text", "key of the largest term"),
         ("drop_correction", "text", "how the series-resistor drop is corrected: none, modelled or measured"),
         ("electronics_terms", "records", "budget terms of the electronics' drifts, static converter errors and sensor lag"),
-        ("findings", "records", "what a check found: code, severity and message"),
         ("law", "text", "compensation law: constant_gain or constant_overvoltage"),
         ("limit_pct", "%", "the term's limit (tolerance bound, half an LSB or 3 sigma), gain error"),
         ("max_abs_pct", "%", "largest absolute gain error over the Monte Carlo samples"),
@@ -258,9 +259,12 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("ambient_check", "list", "one record per ambient temperature the gains are re-verified at"),
         ("ambient_temp_c", "degree C", "ambient temperature"),
         ("amplitude_std", "output unit", "standard deviation of the oscillation amplitude (1 sigma)"),
+        ("analysis_period_s", "s", "period the closed-loop poles and step were computed at (longer than the firmware period for a long dead time)"),
         ("baseline", "output unit", "output before the step"),
         ("cold_temp_c", "degree C", "cold-plate temperature"),
         ("coldest_temp_c", "degree C", "coldest cold-plate temperature reachable at that ambient"),
+        ("condensation", "true/false", "whether the cold plate sits below the dew point plus the margin"),
+        ("conditions", "record", "the cooler at its nominal ambient: humidity, dew point, hot side, current limits"),
         ("controller", "text", "PI or PID"),
         ("crossover_rad_s", "rad/s", "gain crossover frequency"),
         ("cycles", "count", "number of oscillation cycles analysed"),
@@ -268,8 +272,11 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("dead_time_s", "s", "dead time"),
         ("delay_margin_s", "s", "extra loop delay that makes the loop unstable"),
         ("derivative_filter_n", "1", "derivative filter: the derivative is filtered at N / (kd / kp)"),
+        ("describing_function_error_pct", "%", "how far the output's harmonics move the relay's Ku from the estimate by its fundamental"),
+        ("dew_point_c", "degree C", "dew point of the ambient air (Magnus formula)"),
         ("electrical_power_w", "W", "electrical power into the cooler"),
         ("filter_time_constant_s", "s", "time constant of the bias filter"),
+        ("fundamental_ultimate_gain", "actuator unit per measured unit", "Ku from the amplitude of the output's fundamental"),
         ("gain_k_per_a", "K/A", "cooler plant gain: cold-plate temperature per ampere"),
         ("gain_margin", "1", "gain margin, as a ratio (not dB)"),
         ("heat_pumped_w", "W", "heat pumped from the cold side"),
@@ -278,19 +285,25 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("input", "text", "plant input, with its unit"),
         ("input_step", "input unit", "size of the input step"),
         ("kd_s", "s (actuator unit per measured unit)", "derivative gain, parallel form"),
+        ("kd_unit", "text", "unit of kd_s"),
         ("ki_per_s", "1/s (actuator unit per measured unit)", "integral gain, parallel form"),
+        ("ki_unit", "text", "unit of ki_per_s"),
         ("kp", "actuator unit per measured unit", "proportional gain, parallel form"),
+        ("kp_unit", "text", "unit of kp"),
         ("load_iae", "measured unit s", "integral of the absolute error after a unit load step"),
         ("load_resistance_ohm", "ohm", "load resistance seen by the bias supply"),
         ("margins", "record", "stability margins of the sampled loop"),
         ("ms", "1", "maximum sensitivity Ms = 1 / min |1 + L|"),
         ("ms_target", "1", "Ms bound the tuning aimed at (null when none)"),
+        ("open_loop", "true/false", "the bias is set open-loop (no read-back channel): no loop tuned"),
         ("operating_point", "record", "operating point the plant is linearised at"),
         ("optimum_current_a", "A", "cooler current of maximum cooling"),
         ("oscillation_amplitude", "output unit", "amplitude of the relay oscillation"),
+        ("out_max_a", "A", "highest safe cooler current (the current of maximum cooling)"),
+        ("out_min_a", "A", "lowest safe cooler current (strongest stable heating)"),
         ("output", "text", "plant output, with its unit"),
         ("overshoot_pct", "%", "overshoot of the closed-loop setpoint step"),
-        ("peak_actuator_per_unit", "actuator unit per measured unit", "largest actuator value per unit setpoint step"),
+        ("peak_actuator_per_setpoint_unit", "actuator unit per measured unit", "largest actuator value per unit setpoint step"),
         ("peak_time_s", "s", "time of the step response's peak"),
         ("period_std_s", "s", "standard deviation of the oscillation period (1 sigma)"),
         ("phase_crossover_rad_s", "rad/s", "phase crossover frequency"),
@@ -298,10 +311,12 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("plant", "record", "the plant tuned"),
         ("process_gain", "output unit/input unit", "steady-state gain of the process model"),
         ("process_model", "record", "process model the rule was applied to (null when none)"),
+        ("process_sign", "1", "+1 when more input raises the output, -1 when it lowers it"),
         ("r_squared", "1", "coefficient of determination of the fit"),
         ("rate_hz", "Hz", "firmware loop rate"),
         ("reachable", "true/false", "whether the setpoint can be reached at that ambient"),
         ("regulator_time_constant_s", "s", "time constant of the bias regulator"),
+        ("relative_humidity_pct", "%", "relative humidity of the ambient air"),
         ("relay_amplitude", "input unit", "relay output amplitude d"),
         ("residual_rms", "output unit", "root-mean-square of data minus fit"),
         ("rise_time_s", "s", "rise time of the closed-loop setpoint step"),
@@ -309,9 +324,11 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("sample_time_s", "s", "firmware sample period"),
         ("setpoint_weight", "1", "setpoint weight of the proportional term"),
         ("settling_time_s", "s", "settling time of the closed-loop setpoint step"),
+        ("signed_ultimate_gain", "actuator unit per measured unit", "ultimate gain Ku with the process's sign"),
         ("smith_start", "record", "start values from the two-point method of Smith (1972)"),
         ("source", "path", "profile file the plant comes from (null for a given model)"),
         ("stable", "true/false", "whether the sampled closed loop is stable"),
+        ("standard_error_scale", "1", "factor the standard errors were scaled by for correlated residuals (lack of fit)"),
         ("standard_errors", "record", "standard error (1 sigma) of each fitted parameter, by its name"),
         ("step", "record", "closed-loop setpoint step response"),
         ("step_time_s", "s", "time of the input step"),
@@ -321,7 +338,9 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("tune_args", "list", "arguments for 'compensator tune' with the fitted model"),
         ("ultimate_gain", "actuator unit per measured unit", "ultimate gain Ku"),
         ("ultimate_period_s", "s", "ultimate period Pu"),
+        ("verified", "true/false", "whether the gains were verified on a model"),
         ("volts_per_code", "V", "bias change of one DAC code (volt per code)"),
+        ("worst_ms", "1", "largest Ms over the ambient range"),
     )),
     ("Field simulation", _fields(
         ("band_pct", "%", "gain band of the field simulation, plus or minus"),
@@ -396,15 +415,29 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
     )),
     ("Demo", _fields(
         ("budget", "record", "gain-error budget of the instrument's hardware"),
+        ("calibrated_dominant_name", "text", "the largest term after calibration, in words"),
         ("characterisation", "record", "breakdown and tempco recovered from synthetic bench I-V curves"),
+        ("codes_evaluated", "count", "number of ADC codes of the operating range the headline figures cover"),
         ("codes_verified", "count", "number of ADC codes the table was verified at"),
         ("curve_count", "count", "number of I-V curves"),
+        ("dominant_name", "text", "the largest term, in words"),
+        ("drift", "record", "gain error at fixed bias, with the law and through the firmware, against 25 C"),
         ("firmware_dac_code", "code", "DAC code the firmware's lookup table gives"),
+        ("firmware_gain_error_max_abs_pct", "%",
+         "largest absolute gain error through the integer path over every ADC code of the range"),
         ("firmware_gain_error_pct", "%", "gain error through the firmware's integer path, against 25 C"),
+        ("firmware_gain_error_ptp_pct", "%",
+         "peak-to-peak gain error through the integer path over every ADC code of the range"),
         ("fixed_bias_v", "V", "fixed bias that gives the law's overvoltage at 25 C"),
+        ("fixed_gain_error_max_abs_pct", "%",
+         "largest absolute gain error at the fixed bias over every ADC code of the range"),
         ("fixed_gain_error_pct", "%", "gain error at the fixed bias, against 25 C"),
+        ("fixed_gain_error_ptp_pct", "%", "peak-to-peak gain error at the fixed bias over every ADC code of the range"),
         ("instruments", "list", "one record per demo instrument"),
+        ("law_gain_error_max_abs_pct", "%",
+         "largest absolute gain error the law leaves over every ADC code of the range"),
         ("law_gain_error_pct", "%", "gain error the law leaves at the sensor, against 25 C"),
+        ("law_gain_error_ptp_pct", "%", "peak-to-peak gain error the law leaves over every ADC code of the range"),
         ("law_supply_v", "V", "supply output the law asks for"),
         ("light", "list", "largest gain error at each light level (null without a current-sense channel)"),
         ("loop", "text", "which loop: cooler or bias supply"),
@@ -505,7 +538,9 @@ def to_json_value(value):
     object
         Dicts, lists, strings, ints, bools, ``None`` and floats rounded by
         :func:`round_significant`. An enum becomes its value when that is a
-        string and its lower-case name otherwise.
+        string and its lower-case name otherwise (a flag: the list of its
+        members' names). A dataclass field with ``metadata={"json": False}``
+        (an internal object kept for the edge) is left out.
 
     Raises
     ------
@@ -530,7 +565,8 @@ def to_json_value(value):
     if isinstance(value, PurePath):
         return str(value)
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        return {f.name: to_json_value(getattr(value, f.name)) for f in dataclasses.fields(value)}
+        return {f.name: to_json_value(getattr(value, f.name)) for f in dataclasses.fields(value)
+                if f.metadata.get("json", True)}
     if isinstance(value, tuple) and hasattr(value, "_fields"):  # NamedTuple
         return {name: to_json_value(getattr(value, name)) for name in value._fields}
     if isinstance(value, Mapping):

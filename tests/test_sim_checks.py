@@ -8,7 +8,7 @@ import control
 import numpy as np
 import pytest
 
-from compensator.loops.plants import cooler_steady_state
+from compensator.physics.thermal import cooler_steady_state
 from compensator.sim import SimOptions, ThermalPath, Weather, nominal_units, setup_from_profiles, simulate_units
 from compensator.sim.cooler import cooler_tick
 from compensator.sim.engine import measure_dark_peak

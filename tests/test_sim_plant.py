@@ -7,7 +7,7 @@ import pytest
 
 from compensator.errors import ModelError
 from compensator.firmware.tables import STATUS_SENSOR_FAULT
-from compensator.loops.plants import cooler_steady_state
+from compensator.physics.thermal import cooler_steady_state
 from compensator.physics.sipm import gain
 from compensator.physics.supply import sipm_bias_v
 from compensator.sim import FieldPlant
@@ -65,7 +65,7 @@ def test_cooled_plant_settles_on_the_heat_balance_steady_state(sipm_a, board_ntc
     plant = FieldPlant.from_profiles(sipm_a, board_ntc, cooler, overvoltage_v=3.0, ambient_temp_c=25.0, tick_s=1.0)
     for _ in range(3000):
         r = plant.step(40000, cooler_current_a=1.2)
-    # Independent: the exact steady state of the linear heat balance at a fixed current (loops.plants).
+    # Independent: the exact steady state of the linear heat balance at a fixed current (physics.thermal).
     tc, th = cooler_steady_state(cooler.cooler, 1.2, 25.0)
     assert r.die_temp_c == pytest.approx(float(tc), abs=2e-3)
     assert r.hot_side_temp_c == pytest.approx(float(th), abs=2e-3)

@@ -213,38 +213,42 @@ def render_text(report, files=()) -> str:
     return "\n".join(lines)
 
 
-def simulated_week(profiles_dir, out_dir=None, say=print) -> dict:
-    """The last step of ``compensator demo``: the bundled scenario's week, printed, with figures and report.
+def simulated_week(profiles_dir, out_dir=None, say=print):
+    """The last step of ``compensator demo``: the bundled scenario's week, printed, with its figures and report.
+
+    Nothing is written here: the files come back so the demo writes them with
+    its own, all or nothing.
 
     Parameters
     ----------
     profiles_dir : str or path-like
         Folder holding the demo scenario and the profiles it names.
     out_dir : str or path-like, optional
-        Figures and ``report.html`` go to ``out_dir/simulation/``.
+        Where the figures and ``report.html`` are to go (``None``: no files).
     say : callable
         Prints a line for people (a no-op under ``--json``).
 
     Returns
     -------
-    dict
+    document : dict
         The JSON document of the run (as ``compensator simulate --json``).
+    files : dict
+        Path -> content (PNG bytes, HTML text); empty without ``out_dir``.
     """
     from compensator.errors import InputError, Problem
     from compensator.profiles import load_scenario
     from compensator.profiles.bundled import DEMO_SCENARIO
-    from compensator.sim.report import render_figures, write_plots, write_report
+    from compensator.sim.report import render_figures, render_html
     from compensator.sim.run import simulate_scenario
 
     path = Path(profiles_dir) / DEMO_SCENARIO
     if not path.is_file():
         raise InputError(Problem(str(path), 0, "", "demo scenario not found (pass --profiles DIR)"))
     report = simulate_scenario(load_scenario(path))
-    files = []
+    files = {}
     if out_dir is not None:
-        target = Path(out_dir) / "simulation"
         figures = render_figures(report)
-        files = [str(p) for p in write_plots(report, target)] + [str(p) for p in write_report(report, target,
-                                                                                              figures)]
-    say(render_text(report, files))
-    return render_json(report, files)
+        files = {Path(out_dir) / name: data for name, data in figures.items()}
+        files[Path(out_dir) / "report.html"] = render_html(report, figures)
+    say(render_text(report))
+    return render_json(report, [str(p) for p in files]), files

@@ -1,7 +1,7 @@
 """The thermoelectric cooler on its nonlinear heat balance, one control tick at a time, for many units.
 
 The heat balance (lumped module, common practice; the same equations as
-:func:`compensator.loops.plants.cooler_derivatives`)::
+:func:`compensator.physics.thermal.cooler_derivatives`)::
 
     Qc = S I Tc - I^2 R / 2 - K (Th - Tc)       heat pumped off the cold plate
     Qh = S I Th + I^2 R / 2 - K (Th - Tc)       heat rejected on the hot side

@@ -640,7 +640,7 @@ class _CooledState:
 
     def _start(self, enclosure_c):
         """Settled at the setpoint (controller at the steady current) if the cooler can hold it, else at rest."""
-        from compensator.loops.plants import cooler_operating_point, cooler_steady_state
+        from compensator.physics.thermal import cooler_operating_point, cooler_steady_state
 
         p = self.params
         try:

@@ -179,7 +179,7 @@ class FieldPlant:
         amb = self._ambient()
         self._tc = self._th = None
         if self.cooled:
-            from compensator.loops.plants import cooler_steady_state
+            from compensator.physics.thermal import cooler_steady_state
 
             tc, th = cooler_steady_state(setup.cooler, 0.0, amb[1])
             self._tc, self._th = float(tc), float(th)

@@ -131,11 +131,12 @@ def _cooler_controller(cooler, board, tick_s, setpoint_temp_c):
     """Tune (robust PI, Ms <= 1.4) and quantise the cooler controller for raw ADC codes in, mA out."""
     from compensator.firmware.pid import PidSettings, quantise_pid
     from compensator.loops import plants, tuning
+    from compensator.physics.thermal import cooler_current_limits_a, cooler_operating_point
 
-    point = plants.cooler_operating_point(cooler, setpoint_temp_c)
+    point = cooler_operating_point(cooler, setpoint_temp_c)
     plant = plants.linearise_cooler(cooler, point)
     result = tuning.tune(plant, "robust", tick_s)
-    out_min, out_max = plants.cooler_current_limits_a(cooler)
+    out_min, out_max = cooler_current_limits_a(cooler)
     g = result.gains
     settings = PidSettings(g.kp, g.ki_per_s, g.kd_s, tick_s, out_min, out_max,
                            derivative_filter_n=g.derivative_filter_n, setpoint_weight=g.setpoint_weight)
