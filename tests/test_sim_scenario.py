@@ -155,6 +155,7 @@ def test_simulate_text_output_names_strategies_and_ratio(tmp_path, profiles_dir,
     (["--days", "nan"], "--days"),
     (["--days", "-1"], "--days"),
     (["--units", "-3"], "--units"),
+    (["--workers", "0"], "--workers"),
     (["--strategy", "magic"], "--strategy"),
     (["--scheduler", "tcp://127.0.0.1:9", "--workers", "2"], "--workers"),
 ])

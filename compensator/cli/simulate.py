@@ -40,7 +40,7 @@ def register(subparsers) -> None:
                         "library and run the loop through it")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="run the Monte Carlo chunks on this running Dask scheduler (needs compensator[cluster])")
-    p.add_argument("--workers", type=_units, metavar="N",
+    p.add_argument("--workers", type=_workers, metavar="N",
                    help="local processes for the Monte Carlo (default: the CPUs available)")
     p.add_argument("--plot", metavar="DIR", help="write the figures (PNG) into DIR; never overwrites")
     p.add_argument("--report", metavar="DIR", help="write a self-contained report.html into DIR; never overwrites")
@@ -69,6 +69,15 @@ def _units(text):
         raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
     if not 0 <= value <= 10_000_000:
         raise argparse.ArgumentTypeError(f"must be 0 to 10000000, got {text!r}")
+    return value
+
+
+def _workers(text):
+    import argparse
+
+    value = _units(text)
+    if not 1 <= value <= 1024:
+        raise argparse.ArgumentTypeError(f"must be 1 to 1024, got {text!r}")
     return value
 
 
