@@ -15,6 +15,16 @@ from compensator.sim.engine import measure_dark_peak
 from compensator.sim.environment import AmbientStream, sun_load_k
 
 
+def lags_system(path: ThermalPath, outputs):
+    """The thermal path built here from its time constants alone (three first-order lags in series), as states
+    (enclosure, die, sensor) with the given output matrix: independent of the module's own matrices."""
+    te, td, ts = path.enclosure_time_constant_s, path.die_time_constant_s, path.sensor_lag_s
+    a = np.array([[-1 / te, 0.0, 0.0], [1 / td, -1 / td, 0.0], [0.0, 1 / ts, -1 / ts]])
+    b = np.array([[1 / te], [0.0], [0.0]])
+    c = np.atleast_2d(outputs)
+    return control.ss(a, b, c, np.zeros((c.shape[0], 1)))
+
+
 def test_linear_loop_equals_python_control_forced_response(sipm_a, board_ntc):
     """Quantisation, noise, limits and the drop off: the loop is linear and python-control is the reference.
 
@@ -37,8 +47,7 @@ def test_linear_loop_equals_python_control_forced_response(sipm_a, board_ntc):
     ov = comp["bias_v"] - sipm_a.device.breakdown.breakdown_v(comp["die_temp_c"])
     a_v_per_k = 1e-3 * sipm_a.device.breakdown.tempco_mv_per_k
     drive = tr.outdoor_temp_c + path.internal_heat_k + sun_load_k(weather, tr.time_s)
-    A, B = path.continuous_matrices()
-    sys = control.ss(A, B, [[0.0, -a_v_per_k, a_v_per_k]], [[0.0]])
+    sys = lags_system(path, [[0.0, -a_v_per_k, a_v_per_k]])
     ref = control.forced_response(sys, tr.time_s, drive, X0=np.full(3, drive[0])).outputs
     # The law and the supply are evaluated in floating point around 27 V: agreement to about 1e-12 V.
     np.testing.assert_allclose(ov - 3.0, ref, rtol=0, atol=1e-9)
@@ -55,12 +64,31 @@ def test_thermal_path_states_equal_forced_response_and_do_not_depend_on_blocks()
     pieces = [parts.next_block(n) for n in (1, 999, 4000, 3000)]
     for name in ("outdoor_temp_c", "enclosure_temp_c", "die_temp_c", "sensor_temp_c"):
         assert np.array_equal(np.concatenate([getattr(p, name) for p in pieces]), getattr(whole, name))
-    A, B = path.continuous_matrices()
     drive = whole.outdoor_temp_c + path.internal_heat_k
-    ref = control.forced_response(control.ss(A, B, np.eye(3), np.zeros((3, 1))), whole.time_s, drive,
-                                  X0=np.full(3, drive[0])).outputs
+    ref = control.forced_response(lags_system(path, np.eye(3)), whole.time_s, drive, X0=np.full(3, drive[0])).outputs
     for i, name in enumerate(("enclosure_temp_c", "die_temp_c", "sensor_temp_c")):
         np.testing.assert_allclose(getattr(whole, name), ref[i], rtol=0, atol=1e-9)
+
+
+def test_a_sensor_without_lag_reads_the_die_and_bad_paths_are_refused():
+    from compensator.errors import ModelError
+    from compensator.sim.environment import discretise_thermal_path
+
+    weather = Weather(mean_temp_c=0.0, diurnal_amplitude_k=10.0)
+    fast = ThermalPath(enclosure_time_constant_s=900.0, die_time_constant_s=100.0, sensor_lag_s=0.5)
+    none = replace(fast, sensor_lag_s=0.0)
+    lagged = AmbientStream(weather, fast, 60.0).next_block(500)
+    direct = AmbientStream(weather, none, 60.0).next_block(500)
+    assert np.array_equal(direct.sensor_temp_c, direct.die_temp_c)
+    # A 0.5 s lag at a 60 s tick: the sensor trails the die by about 0.5 s times its slope (under 1 mK here).
+    assert 0 < np.max(np.abs(lagged.sensor_temp_c - lagged.die_temp_c)) < 1e-3
+    for bad in (dict(enclosure_time_constant_s=0.0), dict(die_time_constant_s=-1.0), dict(sensor_lag_s=-0.1)):
+        with pytest.raises(ModelError) as err:
+            replace(fast, **bad)
+        assert err.value.key == next(iter(bad)) and err.value.reason
+    for tick in (0.0, -1.0):
+        with pytest.raises(ModelError, match="tick_s must be positive"):
+            discretise_thermal_path(fast, tick)
 
 
 @pytest.mark.parametrize("current_a, tick_s", [(-0.8, 1.0), (0.0, 1.0), (1.1, 20.0), (2.9, 7.0)])
