@@ -201,3 +201,37 @@ def test_setup_copy_with_other_run_length_keeps_the_tables(sipm_a, board_ntc):
     result = simulate_units(short, nominal_units(1), seed=1)
     assert set(result.metrics) == {"uncompensated", "compensated"}
     assert result.ticks == 10
+
+
+def test_random_weather_has_the_stated_spread_and_correlation():
+    """Statistics of the Ornstein-Uhlenbeck process (no outside source needed): stationary standard deviation
+    sigma and one-step correlation exp(-h / tau)."""
+    weather = Weather(mean_temp_c=3.0, weather_sigma_k=4.0, weather_time_constant_s=43200.0, seed=9)
+    path = ThermalPath(enclosure_time_constant_s=1000.0, die_time_constant_s=100.0)
+    x = AmbientStream(weather, path, 600.0).next_block(200_000).outdoor_temp_c - 3.0
+    # About 200000 x 600 s / (2 x 43200 s) = 1400 independent stretches: the spread is known to about 2 %.
+    assert np.std(x) == pytest.approx(4.0, rel=0.08)
+    assert np.corrcoef(x[:-1], x[1:])[0, 1] == pytest.approx(np.exp(-600.0 / 43200.0), abs=0.003)
+    assert abs(np.mean(x)) < 4 * 4.0 / np.sqrt(1400)
+
+
+def test_sun_daylight_diurnal_and_steps_by_the_clock():
+    from compensator.sim.environment import is_day, outdoor_temp_c
+
+    w = Weather(mean_temp_c=10.0, seasonal_offset_k=-2.0, ramp_k_per_day=1.5, diurnal_amplitude_k=6.0,
+                diurnal_peak_hour=14.0, sun_peak_k=8.0, sunrise_hour=6.0, sunset_hour=20.0, step_k=-5.0,
+                step_at_s=86400.0, step_period_s=7200.0)
+    hour = 3600.0
+    assert sun_load_k(w, 13 * hour) == pytest.approx(8.0)                      # noon of the 6..20 h day
+    assert sun_load_k(w, 9.5 * hour) == pytest.approx(8.0 * np.sin(np.pi / 4))  # a quarter of the way
+    assert sun_load_k(w, [2 * hour, 21 * hour, 86400 + 5 * hour]).tolist() == [0.0, 0.0, 0.0]
+    assert is_day(w, [5.99 * hour, 6 * hour, 19.99 * hour, 20 * hour]).tolist() == [False, True, True, False]
+    # before the step: mean + offset + ramp + diurnal; the peak at 14 h
+    t = 14 * hour
+    assert outdoor_temp_c(w, t) == pytest.approx(10.0 - 2.0 + 1.5 * t / 86400 + 6.0)
+    t = 2 * hour
+    assert outdoor_temp_c(w, t) == pytest.approx(8.0 + 1.5 * t / 86400 + 6.0 * np.cos(2 * np.pi * (2 - 14) / 24))
+    # the step: on for the first hour of every two hours from day two
+    base = lambda t: 8.0 + 1.5 * t / 86400 + 6.0 * np.cos(2 * np.pi * (t / 86400 - 14 / 24))  # noqa: E731
+    for t, on in ((86400 - 1, False), (86400 + 10, True), (86400 + 3700, False), (86400 + 7300, True)):
+        assert outdoor_temp_c(w, t) == pytest.approx(base(t) - 5.0 * on)
