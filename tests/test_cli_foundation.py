@@ -144,7 +144,8 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
     # A second run never overwrites what the first wrote, and says so before writing anything.
     before = {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")}
     again = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw")
-    assert again.status == 2 and again.stderr.count("already exists") == 9
+    # 9 table files and the simulated week's 4 figures and report
+    assert again.status == 2 and again.stderr.count("already exists") == 9 + 5
     assert {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")} == before
     forced = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw", "--force", "--step-c", "35")
     assert forced.status == 0 and forced.stdout.count("wrote ") == 9

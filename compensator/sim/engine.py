@@ -377,7 +377,9 @@ def simulate_units(setup: SimSetup, units: UnitDraws, *, seed: int, strategies=N
                          key="strategies")
     fw = firmware or PythonFirmware(setup.table, setup.pid)
     n = units.count
+    # One generator per purpose: a strategy's noise does not depend on which other strategies run.
     rng = np.random.default_rng([int(seed), 0x5EED])
+    trim_rng = np.random.default_rng([int(seed), 0x7819])
     stream = AmbientStream(setup.weather, setup.path, setup.tick_s)
     sipm, law, board = setup.sipm, setup.law, setup.board
     channel = board.temperature
@@ -405,7 +407,8 @@ def simulate_units(setup: SimSetup, units: UnitDraws, *, seed: int, strategies=N
     stride = max(1, int(np.ceil(setup.ticks / max(setup.trace_points, 1)))) if traces else 0
     trace_rows = {"time_s": [], "outdoor_temp_c": [], "enclosure_temp_c": [], "die_temp_c": [], "sensor_temp_c": []}
     trace_strat = {s: {"gain_dev_pct": [], "bias_v": [], "die_temp_c": []} for s in strategies}
-    cooled = _CooledState(setup, units, fw, rng) if "compensated_cooled" in strategies else None
+    cooled = (_CooledState(setup, units, fw, np.random.default_rng([int(seed), 0xC001]))
+              if "compensated_cooled" in strategies else None)
     done = 0
     while done < setup.ticks:
         length = min(block, setup.ticks - done)
@@ -483,11 +486,11 @@ def simulate_units(setup: SimSetup, units: UnitDraws, *, seed: int, strategies=N
             window_s = win_stats[2] * setup.tick_s
             mean_dcr = win_weight / win_stats[2]
             expected = np.minimum(mean_dcr, trim.captured_pulse_rate_hz) * window_s
-            pulses = rng.poisson(expected) if options.noise else np.rint(expected).astype(np.int64)
+            pulses = trim_rng.poisson(expected) if options.noise else np.rint(expected).astype(np.int64)
             with np.errstate(invalid="ignore", divide="ignore"):
                 mean_gain = np.where(win_weight > 0, win_gain / win_weight, np.nan)
             spread = 1e-2 * trim.single_pe_spread_pct if options.noise else 0.0
-            measured_gain, _ = measure_dark_peak(rng, mean_gain, pulses, spread)
+            measured_gain, _ = measure_dark_peak(trim_rng, mean_gain, pulses, spread)
             ok = np.isfinite(measured_gain)
             rel = np.where(ok, measured_gain / g0 - 1.0, 0.0)
             step = np.rint(-trim.loop_gain * rel * law.overvoltage_v / vpc).astype(np.int64)
