@@ -80,6 +80,13 @@ def test_a_sensor_without_lag_reads_the_die_and_bad_paths_are_refused():
     lagged = AmbientStream(weather, fast, 60.0).next_block(500)
     direct = AmbientStream(weather, none, 60.0).next_block(500)
     assert np.array_equal(direct.sensor_temp_c, direct.die_temp_c)
+    # Without the sensor state the path is two lags: python-control on the two lags built here.
+    te, td = none.enclosure_time_constant_s, none.die_time_constant_s
+    two = control.ss([[-1 / te, 0.0], [1 / td, -1 / td]], [[1 / te], [0.0]], np.eye(2), np.zeros((2, 1)))
+    ref = control.forced_response(two, direct.time_s, direct.outdoor_temp_c,
+                                  X0=np.full(2, direct.outdoor_temp_c[0])).outputs
+    np.testing.assert_allclose(direct.enclosure_temp_c, ref[0], rtol=0, atol=1e-9)
+    np.testing.assert_allclose(direct.die_temp_c, ref[1], rtol=0, atol=1e-9)
     # A 0.5 s lag at a 60 s tick: the sensor trails the die by about 0.5 s times its slope (under 1 mK here).
     assert 0 < np.max(np.abs(lagged.sensor_temp_c - lagged.die_temp_c)) < 1e-3
     for bad in (dict(enclosure_time_constant_s=0.0), dict(die_time_constant_s=-1.0), dict(sensor_lag_s=-0.1)):
