@@ -144,10 +144,11 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
     # A second run never overwrites what the first wrote, and says so before writing anything.
     before = {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")}
     again = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw")
-    assert again.status == 2 and again.stderr.count("already exists") == 9
+    # 9 table files and the simulated week's 4 figures and report
+    assert again.status == 2 and again.stderr.count("already exists") == 9 + 5
     assert {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")} == before
     forced = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw", "--force", "--step-c", "35")
-    assert forced.status == 0 and forced.stdout.count("wrote ") == 9
+    assert forced.status == 0 and forced.stdout.count("wrote ") == 9 + 5
     # The headline figures do not depend on the print step.
     line = next(x for x in forced.stdout.splitlines() if x.startswith("gain error against 25 C"))
     assert "at fixed bias 27.500 V 50.2 % peak-to-peak" in line and "2393 ADC codes" in line

@@ -75,6 +75,8 @@ INVOCATIONS: tuple[Invocation, ...] = (
     Invocation(command="calibrate tempco", argv=("calibrate", "tempco", "{work}/gain-scan.json", "--write-profile",
                                                  "{work}/calibrated.yaml", "--base", f"{_H}/hut-sipm-a.yaml")),
     Invocation(command="calibrate tempco", argv=("calibrate", "tempco", "{work}/iv.json")),
+    Invocation(command="simulate", argv=("simulate", f"{_H}/hut-week-scenario.yaml", "--days", "0.02", "--units", "3",
+                                         "--workers", "1")),
 )
 
 

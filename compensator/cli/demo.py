@@ -10,7 +10,9 @@ an invented cooler. The demo
    compensation law leaves, with its gain-error budget;
 3. sizes the microcontroller lookup table for a gain-error bound (and writes
    the C code with ``--out DIR``);
-4. tunes (robust PI) and verifies the cooler loop and the bias-supply loop.
+4. tunes (robust PI) and verifies the cooler loop and the bias-supply loop;
+5. simulates a week of the hut's weather with the firmware in the loop
+   (``compensator simulate`` on the bundled scenario).
 """
 
 from __future__ import annotations
@@ -59,14 +61,15 @@ SAFETY = (
 
 def register(subparsers) -> None:
     parser = subparsers.add_parser("demo", help="run the main job end to end on the bundled demo profiles")
-    parser.add_argument("--profiles", default="hardware_profiles", metavar="DIR",
-                        help="directory holding the demo profiles (default: hardware_profiles)")
+    parser.add_argument("--profiles", default=None, metavar="DIR",
+                        help="directory holding the demo profiles and scenario (default: the bundled ones)")
     parser.add_argument("--step-c", type=bounded_float(MIN_STEP_K, 100.0, unit="K"), default=10.0, metavar="K",
                         help=f"temperature step of the printed rows, kelvin ({MIN_STEP_K:g} to 100, default 10); "
                              "the headline figures cover every ADC code of the range whatever the step")
     parser.add_argument("--out", metavar="DIR",
-                        help="also write each instrument's lookup table as C99 and its sweep (DIR/<sipm>/); every "
-                             "target is checked before anything is written")
+                        help="also write each instrument's lookup table as C99 and its sweep (DIR/<sipm>/) and the "
+                             "simulated week's figures and report (DIR/simulation/); every target is checked before "
+                             "anything is written")
     parser.add_argument("--force", action="store_true", help="replace existing files under --out")
     add_json_flag(parser)
     parser.set_defaults(handler=run)
@@ -88,7 +91,9 @@ def run(args) -> int:
     from compensator.fileio import write_file_set
     from compensator.instrument import characterise_breakdown, evaluate_instrument, render_table_files, tune_loops
 
-    root = Path(args.profiles)
+    from compensator.profiles.bundled import bundled_profiles_dir
+
+    root = Path(args.profiles) if args.profiles else bundled_profiles_dir()
     say = (lambda *a: None) if args.json else print
     lo_c, hi_c = DEMO_RANGE_C
     temps_c = np.arange(lo_c, hi_c + 1e-9, args.step_c)
@@ -137,6 +142,13 @@ def run(args) -> int:
         if lp.open_loop:
             say(f"{lp.loop} ({lp.profile}): set open-loop, no read-back channel")
 
+    # 5. The simulated week: the bundled scenario through `compensator simulate` (figures and report with --out).
+    from compensator.cli.simulate import simulated_week
+
+    say("\n== 5. a simulated week in the hut's weather, firmware in the loop, strategies side by side")
+    week, week_files = simulated_week(root, Path(args.out) / "simulation" if args.out else None, say)
+    files.update(week_files)
+
     if files:
         written = write_file_set(files, overwrite=args.force)
         by_sipm = {}
@@ -154,7 +166,7 @@ def run(args) -> int:
                 print(f"compensator: {finding.severity.value}: {lp.loop}: {finding.message}", file=sys.stderr)
     if args.json:
         print_json({"scenario": "mountain-hut radiation monitors, enclosure -25 to +45 C", "characterisation": char,
-                    "instruments": instruments, "loops": loops})
+                    "instruments": instruments, "loops": loops, "simulation": week})
     return EXIT_OK if all(lp.stable for lp in loops) else EXIT_FAILURE
 
 
