@@ -50,7 +50,7 @@ import numpy as np
 
 from compensator.constants import ZERO_C_IN_K
 from compensator.errors import ModelError
-from compensator.firmware.tables import STATUS_ABOVE_RANGE, STATUS_BELOW_RANGE, STATUS_SENSOR_FAULT
+from compensator.firmware.tables import STATUS_SENSOR_FAULT, TableStatus
 from compensator.physics.sensors import T25_K, RtdSensor
 from compensator.sim.chain import (
     UnitDraws,
@@ -244,7 +244,7 @@ class _Acc:
         self.ov_max = np.maximum(self.ov_max, np.abs(ov_dev).max(axis=1))
         if status is not None:
             self.fault += (status == STATUS_SENSOR_FAULT).sum(axis=1)
-            self.out_of_range += ((status == STATUS_BELOW_RANGE) | (status == STATUS_ABOVE_RANGE)).sum(axis=1)
+            self.out_of_range += np.isin(status, (TableStatus.COLDER_THAN_RANGE, TableStatus.HOTTER_THAN_RANGE)).sum(axis=1)
 
     def metrics(self, name, ticks, tick_s):
         ticks = max(ticks - self.settle, 1)
