@@ -6,12 +6,15 @@ import numpy as np
 import pytest
 
 from compensator.calibration.iv import (
+    DEFINITIONS,
+    MAX_GRID_POINTS,
     METHODS,
     choose_window,
+    decimate,
     estimate_log_noise,
     find_breakdown,
 )
-from compensator.calibration.synthetic import iv_current_a, simulate_iv
+from compensator.calibration.synthetic import iv_current_a, leakage_at_crossing_a, simulate_iv
 from compensator.errors import ModelError
 
 GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)
@@ -55,30 +58,90 @@ def test_second_derivative_matches_dense_numerical_maximum(k):
     assert r.breakdown_v[0] == pytest.approx(expected, abs=0.005)
 
 
-@pytest.mark.parametrize("geiger_scale_v", [None, 0.8, 2.0])
-@pytest.mark.parametrize("relative_noise", [0.001, 0.005, 0.02])
-def test_default_method_recovers_truth_within_20_mv(geiger_scale_v, relative_noise):
+@pytest.mark.parametrize("geiger_scale_v, relative_noise, median_mv, p90_mv", [
+    # Figures of tools/bench/bench_calibration.py (median and 90th percentile of |error| over the
+    # category), with a margin for 200 curves instead of 300: the method's known error.
+    (None, 0.001, 5.0, 9.0), (0.8, 0.001, 5.0, 6.0), (2.0, 0.001, 2.0, 3.0),
+    (None, 0.005, 5.0, 9.0), (0.8, 0.005, 5.0, 10.0), (2.0, 0.005, 3.5, 7.0),
+    (None, 0.02, 7.0, 15.0), (0.8, 0.02, 20.0, 33.0), (2.0, 0.02, 13.0, 24.0),
+])
+def test_default_method_recovers_truth(geiger_scale_v, relative_noise, median_mv, p90_mv):
     # Truth recovery on seeded synthetic curves (known truth), including curves that are
-    # not pure power laws (triggering-probability factor): median error within 20 mV.
+    # not pure power laws (triggering-probability factor).
     rng = np.random.default_rng(7)
     truth = rng.uniform(24.0, 25.0, 200)
     current = simulate_iv(rng, GRID_V, truth, geiger_scale_v=geiger_scale_v, relative_noise=relative_noise)
     r = find_breakdown(GRID_V, current)
     assert r.ok.all()
-    error_mv = 1e3 * (r.breakdown_v - truth)
-    assert abs(np.median(error_mv)) < 20.0
-    assert np.percentile(np.abs(error_mv), 90) < 60.0
+    error_mv = np.abs(1e3 * (r.breakdown_v - truth))
+    assert np.median(error_mv) <= median_mv
+    assert np.percentile(error_mv, 90) <= p90_mv
 
 
-def test_reported_uncertainty_matches_scatter():
-    # Pulls (error / reported sigma) should have a spread of order one for moderate noise.
+@pytest.mark.parametrize("crossing_v", [0.05, 0.1, 0.2, 0.3])
+@pytest.mark.parametrize("k", [1.5, 2.0, 3.0])
+def test_leakage_subtraction_is_exact_on_exponential_plus_power_law(crossing_v, k):
+    # I = I_leak exp(s (V - Vbd)) + A (V - Vbd)^k: after the fitted exponential is removed the
+    # inverse log-derivative of the rest is (V - Vbd)/k exactly (Chmill et al., NIM A 845, 56,
+    # 2017), so breakdown, exponent, leakage slope and leakage at breakdown come back to the
+    # precision of the smoothed derivative on a 10 mV grid (0.1 mV, 0.1 %).
+    grid = np.round(np.arange(20.0, 31.0001, 0.01), 4)
+    leak = leakage_at_crossing_a(crossing_v, exponent=k, leakage_slope_per_v=0.5)
+    r = find_breakdown(grid, iv_current_a(grid, 24.5, exponent=k, leakage_a=leak, leakage_slope_per_v=0.5))
+    assert r.ok.all(), r.reason
+    assert r.breakdown_v[0] == pytest.approx(24.5, abs=1e-4)
+    assert r.exponent[0] == pytest.approx(k, rel=1e-3)
+    assert r.leakage_slope_per_v[0] == pytest.approx(0.5, rel=1e-4)
+    assert r.leakage_current_a[0] == pytest.approx(leak, rel=1e-3)
+    assert 0.0 < r.leakage_fraction[0] <= 0.8 and r.leakage_points[0] > 100
+
+
+def test_leakage_removal_takes_out_the_bias_of_the_plain_fit():
+    # Leakage equal to the avalanche current 0.1 V above breakdown biases a fit on the total
+    # current low by about 90 mV; with the leakage modelled the median error is within 5 mV.
+    rng = np.random.default_rng(12)
+    truth = rng.uniform(24.0, 25.0, 200)
+    leak = leakage_at_crossing_a(0.1, exponent=2.0, leakage_slope_per_v=0.5)
+    current = simulate_iv(rng, GRID_V, truth, leakage_a=leak, leakage_slope_per_v=0.5, relative_noise=0.002)
+    r = find_breakdown(GRID_V, current)
+    error_mv = np.abs(1e3 * (r.breakdown_v - truth))
+    assert np.median(error_mv) <= 3.0 and np.percentile(error_mv, 90) <= 6.0
+    # the pre-breakdown slope comes back from the fit below the knee
+    assert np.median(r.leakage_slope_per_v) == pytest.approx(0.5, abs=0.03)
+
+
+def test_reported_uncertainty_covers_the_error():
+    # About 68 % of the errors should lie within the reported one-sigma uncertainty (statistical
+    # and systematic parts in quadrature); the benchmark shows 60 to 100 % across categories.
     rng = np.random.default_rng(11)
     truth = rng.uniform(24.0, 25.0, 300)
     current = simulate_iv(rng, GRID_V, truth, relative_noise=0.01)
     r = find_breakdown(GRID_V, current)
-    err = r.breakdown_v - truth
-    spread = np.std(err - np.median(err))
-    assert 0.3 < spread / np.median(r.breakdown_err_v) < 3.0
+    within = np.mean(np.abs(r.breakdown_v - truth) <= r.breakdown_err_v)
+    assert 0.6 <= within <= 0.97
+    assert np.allclose(r.breakdown_err_v, np.hypot(r.breakdown_stat_err_v, r.breakdown_sys_err_v))
+
+
+def test_systematic_part_shows_a_bent_curve():
+    # A strong triggering-probability bend at low noise: the window spread enters the error.
+    rng = np.random.default_rng(2)
+    truth = rng.uniform(24.0, 25.0, 50)
+    r = find_breakdown(GRID_V, simulate_iv(rng, GRID_V, truth, geiger_scale_v=0.8, relative_noise=0.001))
+    assert np.median(r.breakdown_sys_err_v) > 0.0
+    assert np.all(r.breakdown_sys_err_v >= 0.0)
+
+
+def test_a_million_points_are_decimated_by_block_means():
+    # A 1,000,000-point sweep is analysed on block means of ceil(n / MAX_GRID_POINTS) points.
+    grid = np.linspace(20.0, 31.0, 1_000_000)
+    rng = np.random.default_rng(4)
+    current = simulate_iv(rng, grid, [24.5], relative_noise=0.005, geiger_scale_v=1.5)
+    r = find_breakdown(grid, current)
+    assert r.decimation == -(-grid.size // MAX_GRID_POINTS) == 489
+    assert r.bias_v.shape[1] == grid.size // 489
+    assert r.breakdown_v[0] == pytest.approx(24.5, abs=0.005)
+    b, ln = decimate(np.arange(7.0), np.arange(7.0)[None, :] * 2, 3)
+    assert b.tolist() == [1.0, 4.0] and ln.tolist() == [[2.0, 8.0]]
 
 
 @pytest.mark.parametrize("method", METHODS)
@@ -92,7 +155,10 @@ def test_vectorised_batch_equals_one_by_one_and_sweep_direction_does_not_matter(
         assert single.breakdown_v[0] == pytest.approx(batch.breakdown_v[i], abs=1e-9)
         down = find_breakdown(GRID_V[::-1], current[i, ::-1], method)
         assert down.breakdown_v[0] == pytest.approx(batch.breakdown_v[i], abs=1e-9)
-    assert np.all(np.abs(batch.breakdown_v - truth) < 0.3)
+    if method == METHODS[0]:
+        assert np.all(np.abs(batch.breakdown_v - truth) < 3 * batch.breakdown_err_v + 0.005)
+    else:  # the peak definitions sit above the power-law breakdown by design (about 0.1 V here)
+        assert np.all((batch.breakdown_v - truth > -0.05) & (batch.breakdown_v - truth < 0.15))
     assert np.all(np.isfinite(batch.breakdown_err_v)) and np.all(batch.breakdown_err_v > 0)
 
 
@@ -130,6 +196,7 @@ def test_too_few_points_and_non_monotonic_bias():
     bias[50] = bias[48]
     r = find_breakdown(bias, iv_current_a(GRID_V, 24.5))
     assert "not strictly monotonic" in r.reason[0]
+    assert np.isnan(r.breakdown_err_v[0]) and not r.ok[0]
     with pytest.raises(ModelError, match="method"):
         find_breakdown(GRID_V, iv_current_a(GRID_V, 24.5), "nonsense")
 
@@ -152,3 +219,9 @@ def test_non_finite_values_are_a_reason_not_a_crash():
     r = find_breakdown(GRID_V, current)
     assert r.ok.tolist() == [True, False]
     assert "non-finite" in r.reason[1]
+
+
+@pytest.mark.parametrize("method", METHODS)
+def test_every_result_names_its_definition(method):
+    r = find_breakdown(GRID_V, iv_current_a(GRID_V, 24.5), method)
+    assert r.definition == DEFINITIONS[method] == "iv_" + method.replace("-", "_")

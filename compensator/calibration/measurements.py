@@ -37,12 +37,14 @@ def _single_temperature(table: Table, temp_c, what):
 
 @dataclass(frozen=True)
 class IvData:
-    """One I-V curve: ``bias_v`` (volt), ``current_a`` (ampere), ``temp_c`` (degree Celsius or None)."""
+    """One I-V curve: ``bias_v`` (volt), ``current_a`` (ampere), ``temp_c`` (degree Celsius or None), ``channel``."""
 
     file: str
     bias_v: np.ndarray
     current_a: np.ndarray
     temp_c: float | None
+    channel: str | None = None
+    notes: tuple = ()
 
 
 def read_iv(path, temp_c=None) -> IvData:

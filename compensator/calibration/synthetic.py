@@ -84,6 +84,29 @@ def iv_current_a(bias_v, breakdown_v, *, exponent=2.0, geiger_scale_v=None, aval
     return leakage_a * np.exp(leakage_slope_per_v * (bias_v - breakdown_v)) + avalanche
 
 
+def leakage_at_crossing_a(crossing_v, *, exponent=2.0, geiger_scale_v=None, avalanche_a=1e-6,
+                          leakage_slope_per_v=0.05):
+    """Leakage current at breakdown that equals the avalanche current ``crossing_v`` above breakdown.
+
+    Parameters
+    ----------
+    crossing_v : float
+        Overvoltage where leakage and avalanche current are equal, volt (> 0).
+    exponent, geiger_scale_v, avalanche_a, leakage_slope_per_v
+        See :func:`iv_current_a`.
+
+    Returns
+    -------
+    float
+        ``leakage_a`` for :func:`iv_current_a`, ampere.
+    """
+    if not crossing_v > 0:
+        raise ModelError(f"crossing_v must be positive, got {crossing_v!r}", key="crossing_v")
+    avalanche = iv_current_a(crossing_v, 0.0, exponent=exponent, geiger_scale_v=geiger_scale_v,
+                             avalanche_a=avalanche_a, leakage_a=0.0)
+    return float(avalanche / np.exp(leakage_slope_per_v * crossing_v))
+
+
 def simulate_iv(rng, bias_v, breakdown_v, *, exponent=2.0, geiger_scale_v=None, avalanche_a=1e-6,
                 leakage_a=2e-10, leakage_slope_per_v=0.05, relative_noise=0.01, noise_floor_a=2e-12):
     """Noisy synthetic I-V curves on a common bias grid.
