@@ -7,12 +7,14 @@ import json
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tools"))
 import make_demo_data  # noqa: E402
 
 from compensator.calibration.batch import Progress  # noqa: E402
+from compensator.cli._common import EXIT_NOTHING_ANALYSED  # noqa: E402
 from compensator.profiles import load_sipm  # noqa: E402
 
 
@@ -75,7 +77,7 @@ def test_iv_bad_files_one_line_each_and_batch_goes_on(cli, demo, tmp_path):
     assert doc["curves"][2]["breakdown_v"] is not None
     assert "Traceback" not in r.stderr
     none = cli("calibrate", "iv", missing, no_column)
-    assert none.status == 2 and len(none.stderr.strip().splitlines()) == 2
+    assert none.status == EXIT_NOTHING_ANALYSED == 3 and len(none.stderr.strip().splitlines()) == 2
 
 
 def test_iv_temperature_from_option_and_plot(cli, demo, tmp_path):
@@ -108,7 +110,7 @@ def test_spectrum_json_contract_and_plot(cli, demo, truth, tmp_path):
     bad = tmp_path / "empty.csv"
     bad.write_text("charge,counts\n0.1,0\n0.2,0\n")
     r = cli("calibrate", "spectrum", bad)
-    assert r.status == 2 and r.stderr.count("\n") == 1 and str(bad) in r.stderr
+    assert r.status == EXIT_NOTHING_ANALYSED == 3 and r.stderr.count("\n") == 1 and str(bad) in r.stderr
 
 
 def test_spectrum_fit_range_and_amplitude_models(cli, demo, truth):
@@ -119,7 +121,7 @@ def test_spectrum_fit_range_and_amplitude_models(cli, demo, truth):
     assert wide["gain"] == pytest.approx(whole["gain"], rel=1e-9)
     # A window holding only the pedestal cannot give a gain: a one-line failure, exit 2.
     narrow = cli("calibrate", "spectrum", path, "--fit-range", "-100", str(whole["pedestal"] + 0.2 * whole["gain"]))
-    assert narrow.status == 2 and narrow.stderr.count("\n") == 1 and "fit failed" in narrow.stderr
+    assert narrow.status == EXIT_NOTHING_ANALYSED == 3 and narrow.stderr.count("\n") == 1 and "fit failed" in narrow.stderr
     free = json.loads(cli("calibrate", "spectrum", path, "--json", "--amplitudes", "free").stdout)["spectra"][0]
     assert free["gain"] == pytest.approx(spec["gain_pc"], rel=0.005)
 
@@ -250,7 +252,7 @@ def test_csv_reader_names_file_line_column_and_reason(cli, tmp_path, text, fragm
     path = tmp_path / "bad.csv"
     path.write_text(text)
     r = cli("calibrate", "iv", path)
-    assert r.status == 2
+    assert r.status == EXIT_NOTHING_ANALYSED == 3
     assert r.stderr.startswith(f"compensator: {path}") and fragment in r.stderr
     assert r.stderr.count("\n") == 1
 
@@ -259,7 +261,7 @@ def test_gain_table_checks_and_manifest_paths(cli, demo, tmp_path):
     bad = tmp_path / "g.csv"
     bad.write_text("bias_v,gain,gain_err\n26,1e6,0\n27,2e6,1e4\n28,3e6,1e4\n")
     r = cli("calibrate", "gain-scan", bad)
-    assert r.status == 2 and f"{bad}:2: gain_err: gain errors must be positive" in r.stderr
+    assert r.status == EXIT_NOTHING_ANALYSED == 3 and f"{bad}:2: gain_err: gain errors must be positive" in r.stderr
     manifest = tmp_path / "m.csv"
     lines = (demo / "spectra" / "manifest.csv").read_text().splitlines()
     rows = [lines[0]] + [f"{demo / 'spectra' / ln.split(',')[0]},{ln.split(',', 1)[1]}" for ln in lines[1:4]]
@@ -270,3 +272,79 @@ def test_gain_table_checks_and_manifest_paths(cli, demo, tmp_path):
     assert r.stderr.strip() == f"compensator: {tmp_path / 'missing.csv'}: no such file"
     scan = json.loads(r.stdout)["scans"][0]
     assert scan["n_points"] == 3 and scan["capacitance_f"] is None and scan["gain_unit"] == "pc"
+
+
+def test_tempco_per_channel_from_file_names(cli, demo, truth, tmp_path, profiles_dir):
+    from scipy import stats
+
+    files = sorted(str(p) for p in (demo / "iv").glob("ch*.csv"))
+    iv_json = tmp_path / "iv.json"
+    r = cli("calibrate", "iv", *files, "--json", "--channel-from-name", r"^(ch\d+)_")
+    assert r.status == 0, r.stderr
+    doc = json.loads(r.stdout)
+    assert doc["definition"] == "iv_inverse_log_derivative"
+    assert {c["channel"] for c in doc["curves"]} == {"ch01", "ch02", "ch03", "ch04"}
+    iv_json.write_text(r.stdout)
+    pooled = cli("calibrate", "tempco", iv_json, "--json", "--pool")
+    pdoc = json.loads(pooled.stdout)
+    assert pdoc["channels"] == []
+    # Four devices with offsets of tens of mV fitted as one: improbable chi2, p from scipy.stats.chi2.
+    assert pdoc["chi2_p_value"] == pytest.approx(stats.chi2.sf(pdoc["chi2"], pdoc["ndf"]), rel=1e-9, abs=1e-300)
+    assert pdoc["chi2_p_value"] < 1e-3 and "improbable" in pooled.stderr
+    assert [w["code"] for w in pdoc["warnings"]] == ["chi2_improbable"]
+    out = cli("calibrate", "tempco", iv_json, "--json")
+    doc = json.loads(out.stdout)
+    chans = {c["channel"]: c for c in doc["channels"]}
+    assert sorted(chans) == ["ch01", "ch02", "ch03", "ch04"]
+    offsets = truth["channel_offsets_v"]
+    for i, name in enumerate(sorted(chans)):
+        c = chans[name]
+        assert c["tempco_mv_per_k"] == pytest.approx(truth["tempco_mv_per_k"], abs=3 * c["tempco_err_mv_per_k"] + 0.05)
+        assert c["breakdown_v_at_ref"] == pytest.approx(truth["breakdown_v_at_ref"] + offsets[i],
+                                                        abs=3 * c["breakdown_err_v"] + 0.005)
+        assert c["points"] == 7
+    assert doc["tempco_spread_mv_per_k"] == pytest.approx(
+        np.std([c["tempco_mv_per_k"] for c in doc["channels"]], ddof=1), rel=1e-9)
+    base = profiles_dir / "hut-sipm-a.yaml"
+    lumped = cli("calibrate", "tempco", iv_json, "--write-profile", tmp_path / "one.yaml", "--base", base)
+    assert lumped.status == 2 and "--pool" in lumped.stderr and not (tmp_path / "one.yaml").exists()
+    per = cli("calibrate", "tempco", iv_json, "--write-profile", str(tmp_path / "cal-{channel}.yaml"), "--base", base)
+    assert per.status == 0, per.stderr
+    prof = load_sipm(tmp_path / "cal-ch03.yaml")
+    assert prof.device.breakdown.breakdown_v_at_ref == pytest.approx(chans["ch03"]["breakdown_v_at_ref"], abs=1e-6)
+    assert prof.values["breakdown"]["definition"] == "iv_inverse_log_derivative"
+
+
+def test_plots_are_not_replaced_without_force(cli, demo, tmp_path):
+    path = demo / "iv" / "ch01_p20C.csv"
+    assert cli("calibrate", "iv", path, "--plot", tmp_path).status == 0
+    png = tmp_path / "ch01_p20C-iv.png"
+    before = png.read_bytes()
+    again = cli("calibrate", "iv", path, "--plot", tmp_path, "--json")
+    assert again.status == 2 and "--force" in again.stderr and again.stdout == "" and png.read_bytes() == before
+    forced = cli("calibrate", "iv", path, "--plot", tmp_path, "--force", "--json")
+    assert forced.status == 0 and json.loads(forced.stdout)["curves"][0]["breakdown_v"] > 20.0
+
+
+def test_iv_bench_export_with_column_map_and_notes(cli, demo, tmp_path, truth):
+    rows = (demo / "iv" / "ch01_p20C.csv").read_text().splitlines()
+    header = rows[0].split(",")
+    bi, ci = header.index("bias_v"), header.index("current_a")
+    out = ["Vsrc;Imeas"] + [f"{r.split(',')[bi].replace('.', ',')};{float(r.split(',')[ci]) * 1e6:.6e}"
+                            for r in rows[1:]]
+    path = tmp_path / "export.csv"
+    path.write_text("\n".join(out) + "\n")
+    r = cli("calibrate", "iv", path, "--columns", "bias=Vsrc:v,current=Imeas:ua", "--temp-c", "20", "--json")
+    assert r.status == 0, r.stderr
+    curve = json.loads(r.stdout)["curves"][0]
+    expected = {c["file"]: c["breakdown_v"] for c in truth["iv_curves"]}["iv/ch01_p20C.csv"]
+    assert curve["breakdown_v"] == pytest.approx(expected, abs=3 * curve["breakdown_err_v"] + 0.005)
+    assert "converted from microampere to ampere" in r.stderr and "decimal commas" in r.stderr
+    bad = cli("calibrate", "iv", path, "--columns", "bias=nope")
+    assert bad.status == EXIT_NOTHING_ANALYSED and "nope" in bad.stderr and bad.stderr.count("\n") == 1
+
+
+def test_write_profile_to_a_directory_is_named_as_such(cli, demo, tmp_path, profiles_dir):
+    r = cli("calibrate", "tempco", demo / "breakdown_scan.csv", "--write-profile", tmp_path,
+            "--base", profiles_dir / "hut-sipm-a.yaml")
+    assert r.status == 2 and "is a directory" in r.stderr and r.stderr.count("\n") == 1

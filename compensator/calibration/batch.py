@@ -97,6 +97,7 @@ class IvRecord:
     leakage_limited: bool = False
     decimation: int = 1
     channel: str | None = None
+    notes: tuple = ()
     reason: str = ""
     error_line: str = ""
     bias_v: np.ndarray = field(default=None, repr=False)
@@ -119,7 +120,7 @@ class IvRecord:
             "breakdown_stat_err_v": self.breakdown_stat_err_v, "breakdown_sys_err_v": self.breakdown_sys_err_v,
             "leakage_current_a": self.leakage_current_a, "leakage_slope_per_v": self.leakage_slope_per_v,
             "leakage_fraction": self.leakage_fraction, "leakage_limited": bool(self.leakage_limited),
-            "decimation": self.decimation,
+            "decimation": self.decimation, "notes": list(self.notes),
         }
 
 
@@ -146,14 +147,14 @@ def channel_from_name(path, pattern) -> str | None:
     return match.group(1) if match.groups() else match.group(0)
 
 
-def _iv_chunk(paths, method, temp_c, keep_arrays, channel_pattern=None):
+def _iv_chunk(paths, method, temp_c, keep_arrays, channel_pattern=None, columns=None):
     """Read and analyse a list of I-V files (runs in a worker process or in-line)."""
     records = [None] * len(paths)
     channels = [None] * len(paths)
     curves = {}
     for i, path in enumerate(paths):
         try:
-            data = read_iv(path, temp_c)
+            data = read_iv(path, temp_c, columns=columns)
             channels[i] = data.channel
             if channel_pattern is not None:
                 channels[i] = channel_from_name(path, channel_pattern)
@@ -183,7 +184,7 @@ def _iv_chunk(paths, method, temp_c, keep_arrays, channel_pattern=None):
                 leakage_slope_per_v=float(result.leakage_slope_per_v[row]),
                 leakage_fraction=float(result.leakage_fraction[row]),
                 leakage_limited=bool(result.leakage_limited[row]), decimation=result.decimation,
-                channel=channels[i], reason=reason, error_line=f"{d.file}: {reason}" if reason else "",
+                channel=channels[i], notes=d.notes, reason=reason, error_line=f"{d.file}: {reason}" if reason else "",
                 bias_v=d.bias_v if keep_arrays else None, current_a=d.current_a if keep_arrays else None,
                 grid_v=result.bias_v[row] if keep_arrays else None,
                 log_derivative_per_v=result.log_derivative_per_v[row] if keep_arrays else None)
@@ -205,7 +206,7 @@ def default_jobs() -> int:
 
 
 def analyse_iv_files(paths, *, method=DEFAULT_METHOD, temp_c=None, jobs=1, keep_arrays=False, progress=None,
-                     channel_pattern=None):
+                     channel_pattern=None, columns=None):
     """Breakdown voltage of every I-V file.
 
     Parameters
@@ -225,6 +226,8 @@ def analyse_iv_files(paths, *, method=DEFAULT_METHOD, temp_c=None, jobs=1, keep_
     channel_pattern : str, optional
         Regular expression whose first group, searched in each file name, is
         the file's channel (instead of a ``channel`` column).
+    columns : dict, optional
+        The user's column map (see :func:`compensator.csvio.parse_columns_option`).
 
     Returns
     -------
@@ -240,12 +243,12 @@ def analyse_iv_files(paths, *, method=DEFAULT_METHOD, temp_c=None, jobs=1, keep_
     records = []
     if jobs <= 1:
         for chunk in chunks:
-            records.extend(_iv_chunk(chunk, method, temp_c, keep_arrays, channel_pattern))
+            records.extend(_iv_chunk(chunk, method, temp_c, keep_arrays, channel_pattern, columns))
             if progress:
                 progress.update(len(chunk))
         return records
     with ProcessPoolExecutor(max_workers=jobs) as pool:
-        futures = [pool.submit(_iv_chunk, chunk, method, temp_c, keep_arrays, channel_pattern) for chunk in chunks]
+        futures = [pool.submit(_iv_chunk, chunk, method, temp_c, keep_arrays, channel_pattern, columns) for chunk in chunks]
         for chunk, future in zip(chunks, futures):
             records.extend(future.result())
             if progress:

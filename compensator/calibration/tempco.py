@@ -219,7 +219,7 @@ def constant_gain_slope(temp_c, breakdown_v, slope_per_v, *, overvoltage_v=3.0, 
 
 
 def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitance_f=None,
-                      capacitance_tempco_ppm_per_k=None) -> dict:
+                      capacitance_tempco_ppm_per_k=None, definition=None) -> dict:
     """Profile values of a calibrated ``sipm`` profile: the base profile with the fitted breakdown.
 
     Parameters
@@ -233,6 +233,8 @@ def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitan
         Fitted cell capacitance, farad (from gain scans).
     capacitance_tempco_ppm_per_k : float, optional
         Fitted capacitance temperature coefficient, ppm per kelvin.
+    definition : str, optional
+        Breakdown definition of the fitted values (``breakdown.definition``; kept from the base when None).
 
     Returns
     -------
@@ -247,6 +249,8 @@ def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitan
         tempco_mv_per_k=round(fit.tempco_mv_per_k, 4), curvature_mv_per_k2=round(fit.curvature_mv_per_k2, 6),
         breakdown_err_v=round(fit.breakdown_err_v, 6), tempco_err_mv_per_k=round(fit.tempco_err_mv_per_k, 4),
     )
+    if definition is not None:
+        bd["definition"] = definition
     if capacitance_f is not None and np.isfinite(capacitance_f):
         values["cell"]["capacitance_f"] = float(f"{capacitance_f:.6g}")
     if capacitance_tempco_ppm_per_k is not None and np.isfinite(capacitance_tempco_ppm_per_k):
@@ -255,7 +259,7 @@ def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitan
 
 
 def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file="", force=False, name=None,
-                             capacitance_f=None, capacitance_tempco_ppm_per_k=None):
+                             capacitance_f=None, capacitance_tempco_ppm_per_k=None, definition=None):
     """Write a calibrated ``sipm`` profile, checked by loading it back, atomically.
 
     Parameters
@@ -269,7 +273,7 @@ def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file=""
         The breakdown data the fit came from (named in the header).
     force : bool
         Replace an existing file.
-    name, capacitance_f, capacitance_tempco_ppm_per_k
+    name, capacitance_f, capacitance_tempco_ppm_per_k, definition
         See :func:`calibrated_values`.
 
     Returns
@@ -288,10 +292,14 @@ def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file=""
     from compensator.profiles import load_sipm, render_profile
 
     path = Path(path)
+    if path.is_dir():
+        raise InputError(Problem(str(path), 0, "", "is a directory; give a file name for the profile"))
+    if not path.parent.is_dir():
+        raise InputError(Problem(str(path), 0, "", f"folder {path.parent} does not exist"))
     if path.exists() and not force:
         raise InputError(Problem(str(path), 0, "", "already exists; not overwriting (use --force to replace it)"))
     values = calibrated_values(base_profile.values, fit, name=name, capacitance_f=capacitance_f,
-                               capacitance_tempco_ppm_per_k=capacitance_tempco_ppm_per_k)
+                               capacitance_tempco_ppm_per_k=capacitance_tempco_ppm_per_k, definition=definition)
     settings = {"breakdown data": PurePath(data_file).name if data_file else "(arrays)",
                 "model": fit.model, "points": fit.n_points, "test": fit.test}
     header = "\n".join(["calibrated sipm profile"] + banner_lines("", [base_profile], settings)[1:])
@@ -307,3 +315,167 @@ def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file=""
             raise InputError(problems) from None
     write_file_atomic(path, text, overwrite=force)
     return load_sipm(path)
+
+
+#: chi2/ndf is improbable (a warning) below this p-value.
+IMPROBABLE_P = 0.001
+
+
+@dataclass(frozen=True, kw_only=True)
+class ChannelTempco:
+    """The temperature coefficient of one device (channel).
+
+    Attributes
+    ----------
+    channel : str
+    tempco_mv_per_k, tempco_err_mv_per_k : float
+        Millivolt per kelvin.
+    breakdown_v_at_ref, breakdown_err_v : float
+        Volt, at the reference temperature.
+    chi2_ndf : float
+        chi2 / ndf of the chosen model (NaN without degrees of freedom).
+    chi2_p_value : float
+        Probability of a chi2 at least as large (``scipy.stats.chi2.sf``; NaN when unweighted).
+    points : int
+    fit : TempcoFit
+    """
+
+    channel: str
+    tempco_mv_per_k: float
+    tempco_err_mv_per_k: float
+    breakdown_v_at_ref: float
+    breakdown_err_v: float
+    chi2_ndf: float
+    chi2_p_value: float
+    points: int
+    fit: TempcoFit = field(repr=False)
+
+
+@dataclass(frozen=True, kw_only=True)
+class TempcoCalibration:
+    """Everything ``calibrate tempco`` reports: the fit, per-channel fits, the constant-gain slope, warnings.
+
+    Attributes
+    ----------
+    fit : TempcoFit
+        All points as one device (the pooled fit).
+    chi2_p_value : float
+        Probability of the pooled chi2 (``scipy.stats.chi2.sf(chi2, ndf)``; NaN when unweighted).
+    channels : tuple of ChannelTempco
+        One per channel when the data name channels (empty otherwise).
+    tempco_spread_mv_per_k : float
+        Sample standard deviation of the channel tempcos (NaN with fewer than 2 channels).
+    constant_gain : ConstantGainSlope or None
+    capacitance_f_at_ref : float or None
+    definition : str or None
+        The breakdown definition of the data.
+    residuals_v : ndarray
+        Breakdown minus the chosen model of the pooled fit, volt.
+    findings : tuple of Finding
+        Improbable chi2, mixed channels.
+    """
+
+    fit: TempcoFit
+    chi2_p_value: float
+    channels: tuple
+    tempco_spread_mv_per_k: float
+    constant_gain: ConstantGainSlope | None
+    capacitance_f_at_ref: float | None
+    definition: str | None
+    residuals_v: np.ndarray = field(repr=False)
+    findings: tuple = ()
+
+
+def chi2_p_value(fit: TempcoFit) -> float:
+    """Probability of a chi2 at least as large as the fit's (``scipy.stats.chi2.sf``), NaN when unweighted.
+
+    Parameters
+    ----------
+    fit : TempcoFit
+
+    Returns
+    -------
+    float
+    """
+    if not fit.chosen.weighted or fit.ndf <= 0:
+        return float("nan")
+    return float(stats.chi2.sf(fit.chi2, fit.ndf))
+
+
+def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None, ref_temp_c=25.0, alpha=ALPHA,
+                     slope_per_v=None, capacitance_f=None, overvoltage_v=3.0, definition=None) -> TempcoCalibration:
+    """Temperature coefficient of a breakdown scan, per channel where the data name channels.
+
+    Parameters
+    ----------
+    temp_c, breakdown_v : array_like
+        Degree Celsius, volt.
+    breakdown_err_v : array_like, optional
+        One-sigma errors, volt.
+    channels : sequence of str, optional
+        The channel (device) of each point.
+    ref_temp_c : float
+        Reference temperature, degree Celsius.
+    alpha : float
+        Significance level of the quadratic term.
+    slope_per_v : array_like, optional
+        Gain per volt at each point (gain scans), for the constant-gain slope.
+    capacitance_f : array_like, optional
+        Cell capacitance at each point, farad.
+    overvoltage_v : float
+        Overvoltage of the held gain, volt.
+    definition : str, optional
+        Breakdown definition of the data (carried into the result).
+
+    Returns
+    -------
+    TempcoCalibration
+
+    Raises
+    ------
+    ModelError
+        Too few points or temperatures.
+    """
+    from compensator.findings import Finding, Severity
+
+    temp_c = np.asarray(temp_c, dtype=float)
+    breakdown_v = np.asarray(breakdown_v, dtype=float)
+    fit = fit_tempco(temp_c, breakdown_v, breakdown_err_v, ref_temp_c=ref_temp_c, alpha=alpha)
+    findings = []
+    p_pool = chi2_p_value(fit)
+    if p_pool < IMPROBABLE_P:
+        findings.append(Finding(code="chi2_improbable", severity=Severity.WARNING, message=(
+            f"chi2/ndf = {fit.chi2:.1f}/{fit.ndf} is improbable (p = {p_pool:.2g}): the points scatter more than "
+            "their errors; the reported errors are scaled by sqrt(chi2/ndf)")))
+    per = []
+    if channels is not None:
+        channels = np.asarray([str(c) for c in channels])
+        for name in sorted(set(channels.tolist())):
+            sel = channels == name
+            if np.unique(temp_c[sel]).size < 2:
+                findings.append(Finding(code="channel_one_temperature", severity=Severity.WARNING,
+                                        message=f"channel {name}: fewer than 2 temperatures; no tempco"))
+                continue
+            err = None if breakdown_err_v is None else np.asarray(breakdown_err_v, dtype=float)[sel]
+            cf = fit_tempco(temp_c[sel], breakdown_v[sel], err, ref_temp_c=ref_temp_c, alpha=alpha)
+            p = chi2_p_value(cf)
+            if p < IMPROBABLE_P:
+                findings.append(Finding(code="chi2_improbable", severity=Severity.WARNING, message=(
+                    f"channel {name}: chi2/ndf = {cf.chi2:.1f}/{cf.ndf} is improbable (p = {p:.2g}); errors scaled "
+                    "by sqrt(chi2/ndf)")))
+            per.append(ChannelTempco(channel=name, tempco_mv_per_k=cf.tempco_mv_per_k,
+                                     tempco_err_mv_per_k=cf.tempco_err_mv_per_k,
+                                     breakdown_v_at_ref=cf.breakdown_v_at_ref, breakdown_err_v=cf.breakdown_err_v,
+                                     chi2_ndf=cf.chi2 / cf.ndf if cf.ndf > 0 else float("nan"), chi2_p_value=p,
+                                     points=cf.n_points, fit=cf))
+    spread = float(np.std([c.tempco_mv_per_k for c in per], ddof=1)) if len(per) >= 2 else float("nan")
+    cg = None
+    if slope_per_v is not None and np.unique(temp_c).size >= 2:
+        cg = constant_gain_slope(temp_c, breakdown_v, slope_per_v, overvoltage_v=overvoltage_v,
+                                 ref_temp_c=ref_temp_c, breakdown_err_v=breakdown_err_v)
+    cap = None
+    if capacitance_f is not None:
+        cap = float(fit_polynomial(temp_c, capacitance_f, 1 if np.unique(temp_c).size > 1 else 0, x0=ref_temp_c).coef[0])
+    return TempcoCalibration(fit=fit, chi2_p_value=p_pool, channels=tuple(per), tempco_spread_mv_per_k=spread,
+                             constant_gain=cg, capacitance_f_at_ref=cap, definition=definition,
+                             residuals_v=breakdown_v - fit.chosen(temp_c), findings=tuple(findings))
