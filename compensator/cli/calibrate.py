@@ -8,8 +8,6 @@ from pathlib import Path
 
 import numpy as np
 
-from compensator.calibration.iv import DEFAULT_METHOD, DEFINITIONS, METHODS
-
 from compensator.cli._common import (
     EXIT_NOTHING_ANALYSED,
     EXIT_OK,
@@ -42,6 +40,7 @@ def register(subparsers) -> None:
     sub = parser.add_subparsers(dest="calibrate_command", metavar="WHAT")
     sub.required = True
 
+    from compensator.calibration.iv import DEFAULT_METHOD, METHODS
     from compensator.calibration.spectrum import AMPLITUDE_MODELS
 
     iv = sub.add_parser("iv", help="breakdown voltage from I-V curves (CSV bias_v,current_a[,temp_c])",
@@ -155,6 +154,7 @@ def _plot_targets(directory, files, suffix, force):
 
 def run_iv(args) -> int:
     from compensator.calibration.batch import Progress, analyse_iv_files
+    from compensator.calibration.iv import DEFINITIONS
     from compensator.csvio import parse_columns_option
 
     jobs = _jobs(args.jobs)
