@@ -16,10 +16,14 @@ from compensator.calibration.gainscan import (
     gain_scan_from_fits,
     gain_scan_from_spectra,
 )
-from compensator.calibration.iv import DEFAULT_METHOD, METHODS, IvBreakdown, find_breakdown
+from compensator.calibration.iv import DEFAULT_METHOD, DEFINITIONS, METHODS, IvBreakdown, find_breakdown
 from compensator.calibration.spectrum import SpectrumFit, fit_spectrum, naive_gain, simulate_spectrum
 from compensator.calibration.tempco import (
+    ChannelTempco,
     ConstantGainSlope,
+    TempcoCalibration,
+    calibrate_tempco,
+    chi2_p_value,
     TempcoFit,
     calibrated_values,
     constant_gain_slope,
@@ -28,6 +32,7 @@ from compensator.calibration.tempco import (
 )
 
 __all__ = [
+    "DEFINITIONS", "ChannelTempco", "TempcoCalibration", "calibrate_tempco", "chi2_p_value",
     "DEFAULT_METHOD", "METHODS", "ConstantGainSlope", "GainScanFit", "IvBreakdown", "PolyFit", "SpectraScan",
     "SpectrumFit", "TempcoFit", "calibrated_values", "constant_gain_slope", "find_breakdown", "fit_gain_scan",
     "fit_polynomial", "fit_spectrum", "fit_tempco", "gain_scan_from_fits", "gain_scan_from_spectra", "naive_gain", "simulate_spectrum",

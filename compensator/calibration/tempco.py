@@ -31,6 +31,10 @@ from scipy import stats
 from compensator.calibration.gainscan import PolyFit, fit_polynomial
 from compensator.errors import InputError, ModelError, Problem, ProfileError
 
+__all__ = ["ALPHA", "IMPROBABLE_P", "ChannelTempco", "ConstantGainSlope", "TempcoCalibration", "TempcoFit",
+           "calibrate_tempco", "calibrated_values", "chi2_p_value", "constant_gain_slope", "fit_tempco",
+           "write_calibrated_profile"]
+
 #: Significance level of the test of the quadratic term.
 ALPHA = 0.05
 
@@ -443,10 +447,14 @@ def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None
     fit = fit_tempco(temp_c, breakdown_v, breakdown_err_v, ref_temp_c=ref_temp_c, alpha=alpha)
     findings = []
     p_pool = chi2_p_value(fit)
-    if p_pool < IMPROBABLE_P:
-        findings.append(Finding(code="chi2_improbable", severity=Severity.WARNING, message=(
-            f"chi2/ndf = {fit.chi2:.1f}/{fit.ndf} is improbable (p = {p_pool:.2g}): the points scatter more than "
-            "their errors; the reported errors are scaled by sqrt(chi2/ndf)")))
+
+    def improbable(label, f, p):
+        if p < IMPROBABLE_P:
+            findings.append(Finding(code="chi2_improbable", severity=Severity.WARNING, message=(
+                f"{label}chi2/ndf = {f.chi2:.1f}/{f.ndf} is improbable (p = {p:.2g}): the points scatter more "
+                "than their errors; the reported errors are scaled by sqrt(chi2/ndf)")))
+
+    improbable("", fit, p_pool)
     per = []
     if channels is not None:
         channels = np.asarray([str(c) for c in channels])
@@ -459,10 +467,7 @@ def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None
             err = None if breakdown_err_v is None else np.asarray(breakdown_err_v, dtype=float)[sel]
             cf = fit_tempco(temp_c[sel], breakdown_v[sel], err, ref_temp_c=ref_temp_c, alpha=alpha)
             p = chi2_p_value(cf)
-            if p < IMPROBABLE_P:
-                findings.append(Finding(code="chi2_improbable", severity=Severity.WARNING, message=(
-                    f"channel {name}: chi2/ndf = {cf.chi2:.1f}/{cf.ndf} is improbable (p = {p:.2g}); errors scaled "
-                    "by sqrt(chi2/ndf)")))
+            improbable(f"channel {name}: ", cf, p)
             per.append(ChannelTempco(channel=name, tempco_mv_per_k=cf.tempco_mv_per_k,
                                      tempco_err_mv_per_k=cf.tempco_err_mv_per_k,
                                      breakdown_v_at_ref=cf.breakdown_v_at_ref, breakdown_err_v=cf.breakdown_err_v,
