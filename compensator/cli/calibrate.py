@@ -324,8 +324,8 @@ def _scan_from_spectra(args, label, temp_c, entries, errors):
                                  [rec.reason or "" for rec in records], temp_c=temp_c,
                                  charge_per_unit_c=args.charge_per_unit_c,
                                  charge_unit=units.pop() if len(units) == 1 else "")
-    per = [{"file": rec.file, "bias_v": b, "gain": rec.fit.gain if rec.ok else None,
-            "gain_err": rec.fit.gain_err if rec.ok else None, "reason": rec.reason or None}
+    per = [{"file": rec.file, "bias_v": b, "gain_in_charge_unit": rec.fit.gain if rec.ok else None,
+            "gain_err_in_charge_unit": rec.fit.gain_err if rec.ok else None, "reason": rec.reason or None}
            for rec, (_, b) in zip(records, entries)]
     return _scan_summary(label, result.scan, {"spectra": per})
 
@@ -387,7 +387,7 @@ def run_tempco(args) -> int:
     resid = result.residuals_v
     out = {
         "file": args.file, "ref_temp_c": fit.ref_temp_c, "breakdown_v_at_ref": fit.breakdown_v_at_ref,
-        "breakdown_err_v": fit.breakdown_err_v, "tempco_mv_per_k": fit.tempco_mv_per_k,
+        "breakdown_err_v_at_ref": fit.breakdown_err_v, "tempco_mv_per_k": fit.tempco_mv_per_k,
         "tempco_err_mv_per_k": fit.tempco_err_mv_per_k, "curvature_mv_per_k2": fit.curvature_mv_per_k2,
         "curvature_err_mv_per_k2": fit.curvature_err_mv_per_k2, "model": fit.model,
         "tempco_relative_per_k": 1e-3 * fit.tempco_mv_per_k / fit.breakdown_v_at_ref,
@@ -404,12 +404,12 @@ def run_tempco(args) -> int:
             "capacitance_tempco_ppm_per_k": cg.capacitance_tempco_ppm_per_k,
             "capacitance_tempco_err_ppm_per_k": cg.capacitance_tempco_err_ppm_per_k},
         "capacitance_f_at_ref": cap_at_ref,
-        "profile": {"file": written[0][0], "name": written[0][1].name} if len(written) == 1 else None,
-        "profiles": [{"file": path, "name": prof.name} for path, prof in written],
+        "written_profile": {"file": written[0][0], "name": written[0][1].name} if len(written) == 1 else None,
+        "written_profiles": [{"file": path, "name": prof.name} for path, prof in written],
         "definition": result.definition, "chi2_p_value": result.chi2_p_value,
         "channels": [{"channel": c.channel, "tempco_mv_per_k": c.tempco_mv_per_k,
                       "tempco_err_mv_per_k": c.tempco_err_mv_per_k, "breakdown_v_at_ref": c.breakdown_v_at_ref,
-                      "breakdown_err_v": c.breakdown_err_v, "chi2_ndf": c.chi2_ndf, "chi2_p_value": c.chi2_p_value,
+                      "breakdown_err_v_at_ref": c.breakdown_err_v, "chi2_ndf": c.chi2_ndf, "chi2_p_value": c.chi2_p_value,
                       "points": c.points} for c in result.channels],
         "tempco_spread_mv_per_k": result.tempco_spread_mv_per_k,
         "warnings": [{"code": f.code, "severity": f.severity.value, "message": f.message} for f in result.findings],
