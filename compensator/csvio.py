@@ -32,6 +32,7 @@ import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 
@@ -195,6 +196,10 @@ def csv_rows(path, expected):
     delimiter : str
     """
     text, note = _read_text_noted(path)
+    return _rows_of_text(path, text, note, expected)
+
+
+def _rows_of_text(path, text, note, expected):
     notes = [note] if note else []
     text = _strip_comments(text.replace("\r\n", "\n").replace("\r", "\n"))
     delimiter = _delimiter(path, text)
@@ -315,62 +320,15 @@ def read_table(path, required, optional=(), prefixes=(), *, columns=None, text=(
         One problem: unreadable file, no header, a missing, duplicate or
         ambiguous column, a cell that is not a finite number, or no data rows.
     """
-    rows, notes, delimiter = csv_rows(path, "a header row and data rows")
-    header_line, header_cells = rows[0]
-    raw = [h.strip() for h in header_cells]
-    header = [h.lower() for h in raw]
-    seen = {}
-    for i, h in enumerate(header):
-        if h and h in seen:
-            fail(path, header_line, raw[i], f"columns {seen[h] + 1} and {i + 1} have the same name; rename one")
-        seen[h] = i
-    split = [_split_header(h) for h in raw]
-    body = rows[1:]
-    # a units row: no cell is a number, and some cell is a known unit
-    if body and not any(_is_number(c, delimiter) for c in body[0][1] if c.strip()):
-        known = {u for q in QUANTITIES.values() for u in q.units}
-        units_row = [_unit_word(c.strip().strip("()[]")) for c in body[0][1]]
-        if any(u in known for u in units_row):
-            split = [(n, u if u is not None else (units_row[i] if i < len(units_row) and units_row[i] else None))
-                     for i, (n, u) in enumerate(split)]
-            notes.append(f"units row on line {body[0][0]}")
-            body = body[1:]
-    where, factors = {}, {}
-    columns = dict(columns or {})
-    for name in list(required) + list(optional) + list(text):
-        if name in columns:
-            col, unit = columns[name]
-            if col.lower() not in header:
-                fail(path, header_line, col, f"--columns: no such column (the header has {', '.join(raw)})")
-            i = header.index(col.lower())
-            where[name] = i
-            if name in QUANTITIES:
-                factors[name] = _unit_factor(path, header_line, raw[i], name, unit or split[i][1] or _suffix_unit(
-                    header[i], QUANTITIES[name]), notes)
-            continue
-        if name in header:
-            where[name] = header.index(name)
-            continue
-        if name in QUANTITIES:
-            found = _find_quantity(path, header_line, raw, split, QUANTITIES[name])
-            if found is not None:
-                i, unit = found
-                where[name] = i
-                factors[name] = _unit_factor(path, header_line, raw[i], name, unit, notes)
-            continue
-        if name in prefixes:
-            matches = [i for i, h in enumerate(header) if h.startswith(name + "_")]
-            if matches:
-                where[name] = matches[0]
-    missing = [n for n in required if n not in where]
-    if missing:
-        present = ", ".join(h for h in raw if h) or "none"
-        hint = ""
-        if delimiter == "," and len(raw) == 1 and re.search(r"\s{2,}|\s", raw[0]):
-            hint = "; the header is one column: if the file is separated by spaces, save it with commas, tabs or semicolons"
-        elif name_hint := _suggest(missing[0], header):
-            hint = f"; {name_hint}"
-        fail(path, header_line, missing[0], f"missing column (need {', '.join(required)}; the header has {present}{hint})")
+    text_in, note = _read_text_noted(path)
+    fast = _read_plain(path, text_in, note, required, optional, prefixes, columns, text)
+    if fast is not None:
+        return fast
+    rows, notes, delimiter = _rows_of_text(path, text_in, note, "a header row and data rows")
+    header_line = rows[0][0]
+    layout = _resolve_columns(path, rows[:2], notes, delimiter, required, optional, prefixes, columns, text)
+    raw, where, factors = layout.raw, layout.where, layout.factors
+    body = rows[2:] if layout.units_row else rows[1:]
     if not body:
         fail(path, header_line, "", "no data rows after the header")
     values = {n: [] for n in where if n not in text}
@@ -410,6 +368,139 @@ def read_table(path, required, optional=(), prefixes=(), *, columns=None, text=(
         out[name] = arr
     return Table(str(path), out, {n: raw[c] for n, c in where.items()}, np.asarray(lines, dtype=int), header_line,
                  {n: tuple(v) for n, v in texts.items()}, tuple(notes))
+
+
+class _Layout(NamedTuple):
+    """Where the requested columns are and how to convert them."""
+
+    raw: list
+    where: dict
+    factors: dict
+    units_row: bool
+
+
+def _resolve_columns(path, head, notes, delimiter, required, optional, prefixes, columns, text) -> _Layout:
+    """Columns of the header record (and a units row, if ``head[1]`` is one); appends notes; raises on problems."""
+    header_line, header_cells = head[0]
+    raw = [h.strip() for h in header_cells]
+    header = [h.lower() for h in raw]
+    seen = {}
+    for i, h in enumerate(header):
+        if h and h in seen:
+            fail(path, header_line, raw[i], f"columns {seen[h] + 1} and {i + 1} have the same name; rename one")
+        seen[h] = i
+    split = [_split_header(h) for h in raw]
+    body = head[1:]
+    units_row = False
+    # a units row: no cell is a number, and some cell is a known unit
+    if body and not any(_is_number(c, delimiter) for c in body[0][1] if c.strip()):
+        known = {u for q in QUANTITIES.values() for u in q.units}
+        units = [_unit_word(c.strip().strip("()[]")) for c in body[0][1]]
+        if any(u in known for u in units):
+            split = [(n, u if u is not None else (units[i] if i < len(units) and units[i] else None))
+                     for i, (n, u) in enumerate(split)]
+            notes.append(f"units row on line {body[0][0]}")
+            units_row = True
+    where, factors = {}, {}
+    columns = dict(columns or {})
+    for name in list(required) + list(optional) + list(text):
+        if name in columns:
+            col, unit = columns[name]
+            if col.lower() not in header:
+                fail(path, header_line, col, f"--columns: no such column (the header has {', '.join(raw)})")
+            i = header.index(col.lower())
+            where[name] = i
+            if name in QUANTITIES:
+                factors[name] = _unit_factor(path, header_line, raw[i], name, unit or split[i][1] or _suffix_unit(
+                    header[i], QUANTITIES[name]), notes)
+            continue
+        if name in header:
+            where[name] = header.index(name)
+            continue
+        if name in QUANTITIES:
+            found = _find_quantity(path, header_line, raw, split, QUANTITIES[name])
+            if found is not None:
+                i, unit = found
+                where[name] = i
+                factors[name] = _unit_factor(path, header_line, raw[i], name, unit, notes)
+            continue
+        if name in prefixes:
+            matches = [i for i, h in enumerate(header) if h.startswith(name + "_")]
+            if matches:
+                where[name] = matches[0]
+    missing = [n for n in required if n not in where]
+    if missing:
+        present = ", ".join(h for h in raw if h) or "none"
+        hint = ""
+        if delimiter == "," and len(raw) == 1 and re.search(r"\s{2,}|\s", raw[0]):
+            hint = "; the header is one column: if the file is separated by spaces, save it with commas, tabs or semicolons"
+        elif name_hint := _suggest(missing[0], header):
+            hint = f"; {name_hint}"
+        fail(path, header_line, missing[0], f"missing column (need {', '.join(required)}; the header has {present}{hint})")
+    return _Layout(raw, where, factors, units_row)
+
+
+#: A blank (or whitespace-only) line inside a body of data.
+_BLANK_LINE = re.compile(r"(?:^|\n)[ \t]*(?:\n|$)")
+
+
+def _read_plain(path, text, note, required, optional, prefixes, columns, text_names):
+    """Fast path for plain numeric files: the body parsed at C speed by ``numpy.loadtxt``.
+
+    A file qualifies when it has no quotes and no text column is requested, and
+    its body (after the header and an optional units row) has no comment or
+    blank line. Anything the fast parser cannot take (a bad cell, a short row,
+    a non-finite value) returns None, and the caller's row-by-row reader then
+    names the line and the column at fault, so the errors are the same.
+    """
+    if '"' in text:
+        return None
+    if "\r" in text:
+        text = text.replace("\r\n", "\n").replace("\r", "\n")
+    head, pos, line_no = [], 0, 0
+    while len(head) < 2 and pos < len(text):  # the header and the next record (maybe a units row)
+        end = text.find("\n", pos)
+        end = len(text) if end < 0 else end
+        line_no += 1
+        line = text[pos:end]
+        pos = end + 1
+        if line.strip() and not line.lstrip().startswith("#"):
+            head.append((line_no, line, pos))
+    if len(head) < 2:
+        return None
+    delimiter = _delimiter(path, head[0][1])
+    notes = [note] if note else []
+    if delimiter != ",":
+        notes.append(f"separator {'tab' if delimiter == chr(9) else repr(delimiter)}")
+    records = [(no, next(csv.reader([line], delimiter=delimiter))) for no, line, _ in head]
+    layout = _resolve_columns(path, records, notes, delimiter, required, optional, prefixes, columns, text_names)
+    if any(name in layout.where for name in text_names):
+        return None
+    first = head[1] if layout.units_row else head[0]
+    body = text[first[2]:].rstrip("\n \t")
+    if not body or "#" in body or _BLANK_LINE.search(body):
+        return None
+    comma = delimiter != "," and "," in body
+    if comma:
+        body = body.replace(",", ".")
+    names = list(layout.where)
+    try:
+        data = np.loadtxt(io.StringIO(body), delimiter=delimiter, usecols=[layout.where[n] for n in names],
+                          dtype=float, comments=None, ndmin=2)
+    except (ValueError, IndexError):
+        return None
+    rows = body.count("\n") + 1
+    if data.shape[0] != rows or not np.all(np.isfinite(data)):
+        return None
+    if comma:
+        notes.append("decimal commas read as decimal points")
+    out = {}
+    for j, name in enumerate(names):
+        factor, offset = layout.factors.get(name, (1.0, 0.0))
+        out[name] = data[:, j] * factor + offset if name in layout.factors else data[:, j].copy()
+    lines = first[0] + 1 + np.arange(rows)
+    return Table(str(path), out, {n: layout.raw[c] for n, c in layout.where.items()}, lines, head[0][0], {},
+                 tuple(notes))
 
 
 def _suffix_unit(header, quantity):

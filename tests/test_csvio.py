@@ -132,3 +132,45 @@ def test_channel_column_is_read_as_text(tmp_path):
     assert data.channel == "ch07" and np.allclose(data.current_a, [1e-9, 2e-9])
     with pytest.raises(InputError, match="one I-V curve per file"):
         read_iv(_write(tmp_path, "bias_v,current_a,channel\n24.5,1e-9,a\n24.6,2e-9,b\n", name="two.csv"))
+
+
+def _plain_and_row_by_row(tmp_path, text, monkeypatch):
+    """The same data read by the fast path and (with a trailing comment line) by the row-by-row reader."""
+    import compensator.csvio as csvio
+
+    def no_row_by_row(*args):
+        raise AssertionError("a plain file must not be read row by row")
+
+    with monkeypatch.context() as patch:
+        patch.setattr(csvio, "_rows_of_text", no_row_by_row)
+        plain = read_table(_write(tmp_path, text, "plain.csv"), ("bias_v", "current_a"), ("temp_c",))
+    slow = read_table(_write(tmp_path, text + "# end of export\n", "slow.csv"), ("bias_v", "current_a"), ("temp_c",))
+    return plain, slow
+
+
+@pytest.mark.parametrize("text", [
+    "bias_v,current_ua,temp_c\n24.5,2.5,25\n25.0,7.5e0,25\n25.5, 12.5 ,25\n",
+    "# meter export\nVoltage;Current;T\nV;nA;K\n24,5;2,5;298,15\n25;7,5;298,15\n25,5;1,25E1;298,15\n",
+    "bias_v\tcurrent_a\textra\r\n24.5\t2.5e-6\tx\r\n25.0\t7.5e-6\ty\r\n25.5\t1.25e-5\tz\r\n",
+])
+def test_plain_files_read_fast_give_the_same_table(tmp_path, text, monkeypatch):
+    plain, slow = _plain_and_row_by_row(tmp_path, text, monkeypatch)
+    scale = 1e-9 if "nA" in text else 1e-6
+    assert plain.columns["bias_v"] == pytest.approx([24.5, 25.0, 25.5], abs=1e-12)
+    assert plain.columns["current_a"] == pytest.approx([2.5 * scale, 7.5 * scale, 12.5 * scale], rel=1e-12)
+    for name in slow.columns:
+        np.testing.assert_array_equal(plain.columns[name], slow.columns[name])
+    np.testing.assert_array_equal(plain.lines, slow.lines)
+    assert plain.header_line == slow.header_line and plain.notes == slow.notes and plain.names == slow.names
+
+
+@pytest.mark.parametrize("cell, fragment", [("abc", "not a number: 'abc'"), ("nan", "not a finite number"),
+                                            ("", "empty cell")])
+def test_a_bad_cell_deep_in_a_long_plain_file_is_located(tmp_path, cell, fragment):
+    rows = [f"{20 + 1e-4 * i:.4f},{1e-9 * (1 + i):.4e}" for i in range(20000)]
+    rows[15000] = f"{20 + 1.5:.4f},{cell}"
+    path = _write(tmp_path, "bias_v,current_a\n" + "\n".join(rows) + "\n")
+    with pytest.raises(InputError) as exc:
+        read_table(path, ("bias_v", "current_a"))
+    problem = exc.value.problems[0]
+    assert (problem.line, problem.key) == (15002, "current_a") and fragment in problem.reason
