@@ -323,24 +323,35 @@ class _PolyFit(NamedTuple):
     n_used: np.ndarray
 
 
-def _weighted_poly(x, y, weights, mask, degree) -> _PolyFit:
-    """Weighted polynomial fit of every row over its masked points (normal equations from moment sums)."""
+def _weighted_poly(x, y, weights, mask, degree, *, also=None):
+    """Weighted polynomial fit of every row over its masked points (normal equations from moment sums).
+
+    With ``also`` (a lower degree) the fit of that degree is returned too, as
+    ``(fit, lower_fit)``, from the same moment sums.
+    """
     wm = np.where(mask, weights, 0.0)
     y = np.where(mask, y, 0.0)  # points outside the mask (possibly NaN) must not reach the sums
     x = np.where(mask, x, 0.0)
-    p = degree + 1
     s_moments, t_moments = [], []
-    xp = np.ones_like(x)
+    wx = wm
     for j in range(2 * degree + 1):
-        wx = wm * xp
+        if j:
+            wx = wx * x
         s_moments.append(wx.sum(axis=1))
-        if j < p:
-            t_moments.append((wx * y).sum(axis=1))
-        xp = xp * x
+        if j <= degree:
+            t_moments.append(np.einsum("ij,ij->i", wx, y))
     s_moments = np.stack(s_moments, axis=1)
-    a = np.stack([s_moments[:, i:i + p] for i in range(p)], axis=1)  # Hankel matrix of the moments
-    b = np.stack(t_moments, axis=1)
+    t_moments = np.stack(t_moments, axis=1)
     n_used = mask.sum(axis=1)
+    fits = tuple(_solve_moments(s_moments, t_moments, d, x, y, wm, n_used)
+                 for d in ((degree,) if also is None else (degree, also)))
+    return fits[0] if also is None else fits
+
+
+def _solve_moments(s_moments, t_moments, degree, x, y, wm, n_used) -> _PolyFit:
+    p = degree + 1
+    a = np.stack([s_moments[:, i:i + p] for i in range(p)], axis=1)  # Hankel matrix of the moments
+    b = t_moments[:, :p]
     good = n_used > degree
     with np.errstate(invalid="ignore", over="ignore"):
         good &= np.all(np.isfinite(a), axis=(1, 2)) & (np.abs(np.linalg.det(np.where(
@@ -348,10 +359,11 @@ def _weighted_poly(x, y, weights, mask, degree) -> _PolyFit:
     a_safe = np.where(good[:, None, None], a, np.eye(p)[None])
     cov = np.linalg.inv(a_safe)
     coef = np.einsum("mij,mj->mi", cov, b)
-    model = coef[:, degree, None] * np.ones_like(x)
-    for j in range(degree - 1, -1, -1):
-        model = model * x + coef[:, j, None]
-    chi2 = np.sum(wm * (y - model) ** 2, axis=1)
+    model = coef[:, degree, None] * x
+    for j in range(degree - 1, 0, -1):
+        model = (model + coef[:, j, None]) * x
+    resid = y - model - coef[:, 0, None] if degree else y - coef[:, 0, None]
+    chi2 = np.einsum("ij,ij->i", wm * resid, resid)
     coef[~good] = np.nan
     return _PolyFit(coef, cov, chi2, n_used)
 
@@ -735,8 +747,7 @@ class _Root(NamedTuple):
 
 def _ild_root(x, inv, weights, mask) -> _Root:
     """Root nearest the window of a weighted parabola (a line where the parabola has none) through 1/D."""
-    quad = _weighted_poly(x, inv, weights, mask, 2)
-    line = _weighted_poly(x, inv, weights, mask, 1)
+    quad, line = _weighted_poly(x, inv, weights, mask, 2, also=1)
     a0, a1, a2 = quad.coef[:, 0], quad.coef[:, 1], quad.coef[:, 2]
     with np.errstate(divide="ignore", invalid="ignore"):
         disc = a1 * a1 - 4.0 * a0 * a2
