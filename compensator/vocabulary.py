@@ -180,6 +180,8 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("gain_err_in_charge_unit", "charge unit", "standard error of gain_in_charge_unit (1 sigma)"),
         ("gain_in_charge_unit", "charge unit", "charge of one photoelectron peak step, in the file's charge unit"),
         ("gain_unit", "text", "unit of the gains in a gain scan (e.g. electrons, or a charge unit)"),
+        ("joint_fit", "true/false",
+         "whether the breakdown comes from the joint fit of leakage and avalanche current (else the derivative alone)"),
         ("leakage_current_a", "A", "pre-breakdown (leakage) current removed, at the breakdown voltage"),
         ("leakage_fraction", "1", "leakage current over the total current at the start of the fit window (0 to 1)"),
         ("leakage_limited", "true/false", "whether the leakage current limited the fit window"),

@@ -95,6 +95,7 @@ class IvRecord:
     leakage_slope_per_v: float = float("nan")
     leakage_fraction: float = float("nan")
     leakage_limited: bool = False
+    joint_fit: bool = False
     decimation: int = 1
     channel: str | None = None
     notes: tuple = ()
@@ -120,7 +121,7 @@ class IvRecord:
             "breakdown_stat_err_v": self.breakdown_stat_err_v, "breakdown_sys_err_v": self.breakdown_sys_err_v,
             "leakage_current_a": self.leakage_current_a, "leakage_slope_per_v": self.leakage_slope_per_v,
             "leakage_fraction": self.leakage_fraction, "leakage_limited": bool(self.leakage_limited),
-            "decimation": self.decimation, "notes": list(self.notes),
+            "joint_fit": bool(self.joint_fit), "decimation": self.decimation, "notes": list(self.notes),
         }
 
 
@@ -183,7 +184,8 @@ def _iv_chunk(paths, method, temp_c, keep_arrays, channel_pattern=None, columns=
                 leakage_current_a=float(result.leakage_current_a[row]),
                 leakage_slope_per_v=float(result.leakage_slope_per_v[row]),
                 leakage_fraction=float(result.leakage_fraction[row]),
-                leakage_limited=bool(result.leakage_limited[row]), decimation=result.decimation,
+                leakage_limited=bool(result.leakage_limited[row]), joint_fit=bool(result.joint_fit[row]),
+                decimation=result.decimation,
                 channel=channels[i], notes=d.notes, reason=reason, error_line=f"{d.file}: {reason}" if reason else "",
                 bias_v=d.bias_v if keep_arrays else None, current_a=d.current_a if keep_arrays else None,
                 grid_v=result.bias_v[row] if keep_arrays else None,

@@ -97,6 +97,7 @@ from typing import NamedTuple
 import numpy as np
 from scipy.signal import savgol_coeffs, savgol_filter
 
+from compensator.calibration.ivjoint import fit_joint
 from compensator.errors import ModelError
 
 __all__ = [
@@ -178,6 +179,9 @@ class IvBreakdown:
         The fit window was moved up because leakage dominated the current below it.
     leakage_points : ndarray of int
         Points of the pre-breakdown region the leakage was fitted on (0: not modelled).
+    joint_fit : ndarray of bool
+        The breakdown (and the exponent, leakage and fit range) come from the
+        joint fit of leakage and avalanche current (default method only).
     decimation : int
         Points averaged into one (1: the curves were analysed as given).
     bias_v : ndarray, shape (n_curves, n_points)
@@ -202,6 +206,7 @@ class IvBreakdown:
     leakage_fraction: np.ndarray
     leakage_limited: np.ndarray
     leakage_points: np.ndarray
+    joint_fit: np.ndarray
     decimation: int = 1
     bias_v: np.ndarray = field(repr=False)
     log_derivative_per_v: np.ndarray = field(repr=False)
@@ -230,6 +235,7 @@ def _empty_result(m):
     out = {k: np.full(m, np.nan) for k in _FLOAT_FIELDS}
     out.update({k: np.zeros(m, dtype=int) for k in _INT_FIELDS})
     out["leakage_limited"] = np.zeros(m, dtype=bool)
+    out["joint_fit"] = np.zeros(m, dtype=bool)
     return out
 
 
@@ -438,7 +444,7 @@ def check_curve(bias_v, current_a) -> str:
     return ""
 
 
-def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdown:
+def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD, *, joint_fit: bool = True) -> IvBreakdown:
     """Breakdown voltage of one or many I-V curves.
 
     Parameters
@@ -451,6 +457,10 @@ def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdo
         Reverse current magnitude, ampere (positive).
     method : {"inverse-log-derivative", "log-derivative-peak", "second-derivative"}
         See the module docstring.
+    joint_fit : bool
+        For the default method, refine each breakdown by the joint fit of
+        leakage and avalanche current (:mod:`compensator.calibration.ivjoint`);
+        False keeps the derivative method's own result.
 
     Returns
     -------
@@ -525,10 +535,10 @@ def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdo
                 b, c = b[::-1], c[::-1]
             b, logs = decimate(b, np.log(c)[None, :], factor)
             grid[i], ln_i[i] = _uniform(b, logs[0])
-    return _analyse(grid, ln_i, reasons, method, factor)
+    return _analyse(grid, ln_i, reasons, method, factor, joint_fit)
 
 
-def _analyse(grid, ln_i, reasons, method, factor=1):
+def _analyse(grid, ln_i, reasons, method, factor=1, joint_fit=True):
     m, n = ln_i.shape
     result = _empty_result(m)
     deriv_all = np.full((m, n), np.nan)
@@ -540,7 +550,7 @@ def _analyse(grid, ln_i, reasons, method, factor=1):
         # Rows share one step size only if they share a grid; group by step.
         for s in np.unique(np.round(step, 12)):
             rows = idx[np.isclose(step, s, rtol=0, atol=1e-12)]
-            out = _analyse_uniform(grid[rows], ln_i[rows], float(s), method)
+            out = _analyse_uniform(grid[rows], ln_i[rows], float(s), method, joint_fit)
             for key in result:
                 result[key][rows] = out[key]
             deriv_all[rows] = out["deriv"]
@@ -626,7 +636,7 @@ def _fit_leakage(grid, ln_i, knee: _Knee, step_v) -> _Leakage:
     return _Leakage(a, b, x0, cov, np.where(usable, points, 0))
 
 
-def _analyse_uniform(grid, ln_i, step_v, method):
+def _analyse_uniform(grid, ln_i, step_v, method, joint_fit):
     m, n = ln_i.shape
     reasons = [""] * m
     knee = _knee(ln_i, step_v)
@@ -667,12 +677,15 @@ def _analyse_uniform(grid, ln_i, step_v, method):
 
     if method == "inverse-log-derivative":
         _fit_ild(grid, ln_i, knee, leak, step_v, out, reasons)
+        out["leakage_current_a"][:] = np.exp(leak.a + leak.b * (out["breakdown_v"] - leak.v0))
+        if joint_fit:
+            _refine_joint(grid, ln_i, out, reasons)
     elif method == "log-derivative-peak":
         _fit_peak(grid, deriv, p, half, knee.sigma_d, np.sqrt(np.maximum(windows / 2.0, 1.0)), out)
     else:
         _second_derivative(grid, ln_i, knee, step_v, out, reasons)
-    ln_leak_bd = leak.a + leak.b * (out["breakdown_v"] - leak.v0)
-    out["leakage_current_a"][:] = np.exp(ln_leak_bd)
+    if method != "inverse-log-derivative":
+        out["leakage_current_a"][:] = np.exp(leak.a + leak.b * (out["breakdown_v"] - leak.v0))
     out["breakdown_err_v"][:] = np.hypot(out["breakdown_stat_err_v"], out["breakdown_sys_err_v"])
     for i in range(m):
         finite = all(np.isfinite(out[k][i]) for k in ("breakdown_v", "breakdown_err_v"))
@@ -682,8 +695,20 @@ def _analyse_uniform(grid, ln_i, step_v, method):
             for key in _FLOAT_FIELDS:
                 out[key][i] = np.nan
             out["leakage_limited"][i] = False
+            out["joint_fit"][i] = False
     out["reason"] = reasons
     return out
+
+
+def _refine_joint(grid, ln_i, out, reasons):
+    """Replace the derivative method's results by the joint fit's where that converged."""
+    live = np.array([not r for r in reasons], dtype=bool) & np.isfinite(out["breakdown_v"])
+    fit = fit_joint(grid, ln_i, np.where(live, out["breakdown_v"], np.nan), exponent=out["exponent"],
+                    leakage_current_a=out["leakage_current_a"], leakage_slope_per_v=out["leakage_slope_per_v"])
+    for name in ("breakdown_v", "breakdown_stat_err_v", "breakdown_sys_err_v", "exponent", "leakage_current_a",
+                 "leakage_slope_per_v", "fit_lo_v", "fit_hi_v"):
+        out[name][:] = np.where(fit.ok, getattr(fit, name), out[name])
+    out["joint_fit"][:] = fit.ok
 
 
 def _second_derivative(grid, ln_i, knee: _Knee, step_v, out, reasons):
