@@ -306,8 +306,9 @@ def test_tempco_per_channel_from_file_names(cli, demo, truth, tmp_path, profiles
         assert c["breakdown_v_at_ref"] == pytest.approx(truth["breakdown_v_at_ref"] + offsets[i],
                                                         abs=3 * c["breakdown_err_v_at_ref"] + 0.005)
         assert c["points"] == 7
+    # (the tempcos are printed to 12 significant digits; their spread is a thousandth of them)
     assert doc["tempco_spread_mv_per_k"] == pytest.approx(
-        np.std([c["tempco_mv_per_k"] for c in doc["channels"]], ddof=1), rel=1e-9)
+        np.std([c["tempco_mv_per_k"] for c in doc["channels"]], ddof=1), rel=1e-7)
     base = profiles_dir / "hut-sipm-a.yaml"
     lumped = cli("calibrate", "tempco", iv_json, "--write-profile", tmp_path / "one.yaml", "--base", base)
     assert lumped.status == 2 and "--pool" in lumped.stderr and not (tmp_path / "one.yaml").exists()

@@ -142,3 +142,26 @@ def test_too_few_temperatures():
         fit_tempco([25.0, 25.0, 25.0], [24.5, 24.51, 24.49])
     fit = fit_tempco([0.0, 25.0, 40.0], [24.0, 24.5, 24.8])
     assert np.isnan(fit.quadratic_p_value) and fit.model == "linear"
+
+
+def test_common_systematic_error_enters_the_reference_breakdown_only():
+    # A systematic error common to every point (covariance diag(sigma^2) + c^2 1 1^T) computed
+    # here by generalised least squares with the full covariance matrix (independent of the
+    # code): by the Woodbury identity it adds c^2 to the intercept's variance and nothing to the
+    # slope's, whatever the temperatures.
+    temps = np.array([-20.0, -10.0, 0.0, 10.0, 20.0, 30.0, 40.0])
+    rng = np.random.default_rng(5)
+    sigma = rng.uniform(0.0005, 0.002, temps.size)
+    volts = 24.5 + 0.0215 * (temps - 25.0) + sigma * rng.standard_normal(temps.size)
+    common = 0.003
+    x = np.column_stack([np.ones_like(temps), temps - 25.0])
+    cov = np.diag(sigma ** 2) + common ** 2 * np.ones((temps.size, temps.size))
+    gls = np.linalg.inv(x.T @ np.linalg.solve(cov, x))
+    fit = fit_tempco(temps, volts, sigma, common_err_v=np.full(temps.size, common))
+    scale = max(fit.chi2 / fit.ndf, 1.0)  # the fit scales its statistical errors by sqrt(chi2/ndf) when above 1
+    plain = fit_tempco(temps, volts, sigma)
+    assert fit.breakdown_err_v == pytest.approx(np.sqrt((gls[0, 0] - common ** 2) * scale + common ** 2), rel=1e-9)
+    assert fit.tempco_err_mv_per_k == pytest.approx(1e3 * np.sqrt(gls[1, 1] * scale), rel=1e-9)
+    assert fit.breakdown_v_at_ref == plain.breakdown_v_at_ref and fit.breakdown_sys_err_v == pytest.approx(common)
+    with pytest.raises(ModelError):
+        fit_tempco(temps, volts, sigma, common_err_v=-1.0)

@@ -25,10 +25,15 @@ Gaussian on ln I to first order), by Levenberg-Marquardt iterations run for
 all curves at once; a curve stops iterating when its step in Vbd falls below
 ten microvolts. The start values come from the derivative method. The one-sigma
 statistical error is the (Vbd, Vbd) element of the inverse normal matrix times
-the residual variance; the systematic part is the part of the difference
-between this fit and a fit over a shorter window above breakdown that the
-statistics do not explain (for nested windows the variance of the difference
-is the difference of the variances).
+the residual variance. The systematic part measures the model form: the fit
+is repeated with a second-order bending term, ln I_av = c + k ln x + g x +
+h x^2, and the part of the difference between the two breakdowns that the
+statistics do not explain is kept (for nested models the variance of the
+difference is the difference of the variances). On a strongly bent curve the
+first-order model is biased by a few millivolts and the second-order one is
+not; on curves the first-order model describes, the term is near zero. The
+second-order model is not the default because its extra parameter costs
+precision (and convergence) where leakage still matters above breakdown.
 """
 
 from __future__ import annotations
@@ -38,19 +43,17 @@ from typing import NamedTuple
 
 import numpy as np
 
-__all__ = ["JOINT_BELOW_V", "JOINT_MAX_ITERATIONS", "JOINT_SHORT_SPAN_V", "JOINT_SPAN_V", "JointFit",
-           "fit_joint"]
+__all__ = ["JOINT_BELOW_V", "JOINT_MAX_ITERATIONS", "JOINT_SPAN_V", "JointFit", "fit_joint"]
 
 #: The fit window reaches this far below the start value of the breakdown
 #: voltage (the leakage is determined there), volt.
 JOINT_BELOW_V = 3.0
 #: ... and this far above it, volt.
 JOINT_SPAN_V = 2.0
-#: Span above breakdown of the shorter window for the systematic part, volt.
-JOINT_SHORT_SPAN_V = 1.2
 #: Most Levenberg-Marquardt iterations per curve.
 JOINT_MAX_ITERATIONS = 40
-#: Parameters: breakdown, ln A, exponent k, bending g, leakage ln I at breakdown, leakage slope.
+#: Parameters: breakdown, ln A, exponent k, bending g, leakage ln I at breakdown, leakage slope
+#: (and the second-order bending h of the model for the systematic part).
 _N_PARAMS = 6
 #: A fitted breakdown further than this from its start value is not trusted, volt.
 _MAX_SHIFT_V = 0.25
@@ -117,14 +120,16 @@ def _window(grid, ln_i, start_v, below_v, above_v) -> _Window:
 
 def _residuals(win: _Window, params, jacobian):
     """Residuals of ln I, their sum of squares per curve and (optionally) the Jacobian columns."""
-    vb, c, k, g, la, b = params.T
+    vb, c, k, g, la, b = params.T[:_N_PARAMS]
+    h = params[:, _N_PARAMS] if params.shape[1] > _N_PARAMS else None
     xr = win.bias_v - vb[:, None]
     above = xr > 0
     x = np.where(above, xr, 1.0)
     lx = np.log(x)
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         leak = np.exp(la[:, None] + b[:, None] * xr)
-        aval = np.exp(c[:, None] + k[:, None] * lx + g[:, None] * x) * above
+        bend = g[:, None] if h is None else g[:, None] + h[:, None] * x
+        aval = np.exp(c[:, None] + k[:, None] * lx + bend * x) * above
         total = leak + aval
         r = (win.ln_current - np.log(total)) * win.mask
     cost = np.einsum("ij,ij->i", r, r)
@@ -134,18 +139,19 @@ def _residuals(win: _Window, params, jacobian):
         fa = aval / total * win.mask
         fl = leak / total * win.mask
     # d ln I / d(Vbd, c, k, g, a, b); the residual's derivative is minus these.
-    cols = (-fa * (k[:, None] / x + g[:, None]), fa, fa * lx, fa * x, fl, fl * xr)
+    slope = k[:, None] / x + (g[:, None] if h is None else g[:, None] + 2.0 * h[:, None] * x)
+    cols = (-fa * slope, fa, fa * lx, fa * x, fl, fl * xr) + (() if h is None else (fa * x * x,))
     return r, cost, cols
 
 
 def _normal(cols, r):
     """Normal matrix J^T J and gradient J^T r of every curve."""
-    m = r.shape[0]
-    a = np.empty((m, _N_PARAMS, _N_PARAMS))
-    g = np.empty((m, _N_PARAMS))
-    for i in range(_N_PARAMS):
+    m, p = r.shape[0], len(cols)
+    a = np.empty((m, p, p))
+    g = np.empty((m, p))
+    for i in range(p):
         g[:, i] = np.einsum("ij,ij->i", cols[i], r)
-        for j in range(i, _N_PARAMS):
+        for j in range(i, p):
             a[:, i, j] = a[:, j, i] = np.einsum("ij,ij->i", cols[i], cols[j])
     return a, g
 
@@ -156,13 +162,13 @@ def _solve(win: _Window, params, max_iterations) -> _Solution:
     The residuals and Jacobian of every trial are kept when the trial is
     accepted, so each iteration evaluates the model once.
     """
-    m = len(params)
+    m, p = params.shape
     params = params.copy()
     damping = np.full(m, 1e-3)
-    eye = np.eye(_N_PARAMS)
+    eye = np.eye(p)
     active = np.arange(m)
     converged = np.zeros(m, dtype=bool)
-    normal = np.full((m, _N_PARAMS, _N_PARAMS), np.nan)
+    normal = np.full((m, p, p), np.nan)
     final_cost = np.full(m, np.nan)
     sub = win
     r, cost, cols = _residuals(win, params, True)
@@ -205,12 +211,13 @@ def _solve(win: _Window, params, max_iterations) -> _Solution:
 
 def _variance(sol: _Solution, mask):
     """Variance of the fitted breakdown: (J^T J)^-1 times the residual variance."""
-    dof = np.maximum(mask.sum(axis=1) - _N_PARAMS, 1)
+    p = sol.params.shape[1]
+    dof = np.maximum(mask.sum(axis=1) - p, 1)
     ok = np.all(np.isfinite(sol.normal), axis=(1, 2))
-    normal = np.where(ok[:, None, None], sol.normal, np.eye(_N_PARAMS))
+    normal = np.where(ok[:, None, None], sol.normal, np.eye(p))
     ok &= np.abs(np.linalg.det(normal)) > 0
-    normal[~ok] = np.eye(_N_PARAMS)
-    unit = np.zeros((len(normal), _N_PARAMS, 1))
+    normal[~ok] = np.eye(p)
+    unit = np.zeros((len(normal), p, 1))
     unit[:, 0] = 1.0
     first = np.linalg.solve(normal, unit)[:, 0, 0]  # element (0, 0) of the inverse
     return np.where(ok, first * sol.cost / dof, np.nan)
@@ -268,13 +275,13 @@ def fit_joint(bias_v, ln_current, breakdown_v, *, exponent, leakage_current_a, l
             c0 = np.nanmedian(np.where(pick, ln_a, np.nan), axis=1)
         params = np.stack([v0, c0, k0, np.zeros_like(v0), la0, b0], axis=1)
         full = _solve(win, params, JOINT_MAX_ITERATIONS)
-        short_win = _window(grid, ln_i, v0, JOINT_BELOW_V, JOINT_SHORT_SPAN_V)
-        short = _solve(short_win, full.params, JOINT_MAX_ITERATIONS // 2)
+        bent = _solve(win, np.column_stack([full.params, np.zeros(len(v0))]), JOINT_MAX_ITERATIONS)
         var_full = _variance(full, win.mask)
-        var_short = _variance(short, short_win.mask)
+        var_bent = _variance(bent, win.mask)
         vb, k = full.params[:, 0], full.params[:, 2]
         with np.errstate(invalid="ignore"):
-            sys2 = np.maximum((short.params[:, 0] - vb) ** 2 - np.maximum(var_short - var_full, 0.0), 0.0)
+            sys2 = np.maximum((bent.params[:, 0] - vb) ** 2 - np.maximum(var_bent - var_full, 0.0), 0.0)
+            sys2 = np.where(bent.converged & (np.abs(bent.params[:, 0] - vb) <= _MAX_SHIFT_V), sys2, 0.0)
             good = (full.converged & np.isfinite(vb) & np.isfinite(var_full) & (var_full > 0)
                     & (np.abs(vb - v0) <= _MAX_SHIFT_V) & (k > 0.3) & (k < 10.0))
         sys2 = np.where(np.isfinite(sys2), sys2, 0.0)

@@ -195,7 +195,8 @@ class BreakdownScan:
     temp_c, breakdown_v : ndarray
         Degree Celsius, volt.
     breakdown_err_v : ndarray or None
-        One-sigma errors, volt (None when the file gives none).
+        One-sigma errors, volt (None when the file gives none): the statistical
+        part alone when ``breakdown_sys_err_v`` is given.
     slope_per_v : ndarray or None
         Gain per volt of overvoltage at each temperature (from gain scans), for
         the constant-gain bias slope.
@@ -207,6 +208,9 @@ class BreakdownScan:
         The device (channel) of each point, None when the data do not say.
     definition : str or None
         The breakdown definition the values measure (from the JSON), None when unknown.
+    breakdown_sys_err_v : ndarray or None
+        The breakdown method's systematic error of each point, common to all points
+        (from the JSON of ``calibrate iv``), volt; None when not given.
     """
 
     file: str
@@ -218,6 +222,7 @@ class BreakdownScan:
     sources: tuple = ()
     channels: tuple | None = None
     definition: str | None = None
+    breakdown_sys_err_v: np.ndarray | None = None
 
 
 def read_breakdown_scan(path) -> BreakdownScan:
@@ -244,6 +249,11 @@ def read_breakdown_scan(path) -> BreakdownScan:
         if len(usable) < 2:
             _fail(path, 0, "", f"only {len(usable)} entries have both breakdown_v and temp_c; need at least 2")
         errs = [e.get("breakdown_err_v") for e in usable]
+        stat = [e.get("breakdown_stat_err_v") for e in usable]
+        sys_errs = [e.get("breakdown_sys_err_v") for e in usable]
+        split = all(_num(x) and x > 0 for x in stat) and all(_num(x) and x >= 0 for x in sys_errs)
+        if split:  # the method's systematic part is common to the points: the fit takes it apart
+            errs = stat
         slopes = [e.get("slope_per_v") for e in usable]
         caps = [e.get("capacitance_f") for e in usable]
         return BreakdownScan(
@@ -254,7 +264,7 @@ def read_breakdown_scan(path) -> BreakdownScan:
             tuple(str(e.get("file", "")) for e in usable),
             tuple(str(e["channel"]) for e in usable) if all(e.get("channel") not in (None, "") for e in usable)
             else None,
-            _definition(path, doc, usable))
+            _definition(path, doc, usable), np.array(sys_errs, float) if split else None)
     table = read_table(path, ("temp_c", "breakdown_v"), ("breakdown_err_v",), text=("channel",))
     check_temperatures(table)
     err = table.columns.get("breakdown_err_v")

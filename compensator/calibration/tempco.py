@@ -48,7 +48,8 @@ class TempcoFit:
     ref_temp_c : float
         Reference temperature, degree Celsius.
     breakdown_v_at_ref, breakdown_err_v : float
-        Breakdown at the reference temperature and its one-sigma error, volt (chosen model).
+        Breakdown at the reference temperature and its one-sigma error, volt (chosen
+        model): the fit's statistical error and ``breakdown_sys_err_v`` in quadrature.
     tempco_mv_per_k, tempco_err_mv_per_k : float
         Slope at the reference temperature, millivolt per kelvin (chosen model).
     curvature_mv_per_k2, curvature_err_mv_per_k2 : float
@@ -68,6 +69,10 @@ class TempcoFit:
     ndf : int
     linear, quadratic : PolyFit
         The underlying fits in volt against kelvin from the reference (``quadratic`` may be None).
+    breakdown_sys_err_v : float
+        The systematic error common to every point (the breakdown method's own,
+        fully correlated between the points), volt; it moves the breakdown at the
+        reference but not the temperature coefficient.
     """
 
     ref_temp_c: float
@@ -88,6 +93,7 @@ class TempcoFit:
     ndf: int
     linear: PolyFit = field(repr=False)
     quadratic: PolyFit | None = field(repr=False, default=None)
+    breakdown_sys_err_v: float = 0.0
 
     @property
     def chosen(self) -> PolyFit:
@@ -95,7 +101,8 @@ class TempcoFit:
         return self.quadratic if self.model == "quadratic" else self.linear
 
 
-def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, alpha=ALPHA) -> TempcoFit:
+def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, alpha=ALPHA,
+               common_err_v=None) -> TempcoFit:
     """Weighted linear and quadratic fits of breakdown voltage against temperature.
 
     Parameters
@@ -110,6 +117,14 @@ def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, al
         Reference temperature, degree Celsius.
     alpha : float
         Significance level for keeping the quadratic term.
+    common_err_v : float or array_like, optional
+        One-sigma systematic error common to every point, volt (e.g. the
+        ``breakdown_sys_err_v`` of :func:`~compensator.calibration.iv.find_breakdown`,
+        whose model-form bias has the same sign on every curve); an array is
+        averaged. Give ``breakdown_err_v`` without it then: a common error
+        does not average down over the points as independent errors do, so it
+        is added in quadrature to the error at the reference temperature
+        (it leaves the temperature coefficient unchanged).
 
     Returns
     -------
@@ -147,8 +162,12 @@ def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, al
     err = chosen.err
     curv = 1e3 * quad.coef[2] if quad is not None else float("nan")
     curv_err = 1e3 * quad.err[2] if quad is not None else float("nan")
+    common = 0.0 if common_err_v is None else float(np.mean(np.asarray(common_err_v, dtype=float)))
+    if not (np.isfinite(common) and common >= 0):
+        raise ModelError(f"common_err_v must be finite and non-negative, got {common!r}", key="common_err_v")
     return TempcoFit(
-        ref_temp_c=float(ref_temp_c), breakdown_v_at_ref=float(chosen.coef[0]), breakdown_err_v=float(err[0]),
+        ref_temp_c=float(ref_temp_c), breakdown_v_at_ref=float(chosen.coef[0]),
+        breakdown_err_v=float(np.hypot(err[0], common)), breakdown_sys_err_v=common,
         tempco_mv_per_k=float(1e3 * chosen.coef[1]), tempco_err_mv_per_k=float(1e3 * err[1]),
         curvature_mv_per_k2=float(1e3 * chosen.coef[2]) if significant else 0.0,
         curvature_err_mv_per_k2=float(1e3 * err[2]) if significant else 0.0,
@@ -407,7 +426,8 @@ def chi2_p_value(fit: TempcoFit) -> float:
 
 
 def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None, ref_temp_c=25.0, alpha=ALPHA,
-                     slope_per_v=None, capacitance_f=None, overvoltage_v=3.0, definition=None) -> TempcoCalibration:
+                     slope_per_v=None, capacitance_f=None, overvoltage_v=3.0, definition=None,
+                     common_err_v=None) -> TempcoCalibration:
     """Temperature coefficient of a breakdown scan, per channel where the data name channels.
 
     Parameters
@@ -430,6 +450,8 @@ def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None
         Overvoltage of the held gain, volt.
     definition : str, optional
         Breakdown definition of the data (carried into the result).
+    common_err_v : array_like, optional
+        Systematic error of each point common to all points (see :func:`fit_tempco`), volt.
 
     Returns
     -------
@@ -444,7 +466,8 @@ def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None
 
     temp_c = np.asarray(temp_c, dtype=float)
     breakdown_v = np.asarray(breakdown_v, dtype=float)
-    fit = fit_tempco(temp_c, breakdown_v, breakdown_err_v, ref_temp_c=ref_temp_c, alpha=alpha)
+    common = None if common_err_v is None else np.broadcast_to(np.asarray(common_err_v, dtype=float), temp_c.shape)
+    fit = fit_tempco(temp_c, breakdown_v, breakdown_err_v, ref_temp_c=ref_temp_c, alpha=alpha, common_err_v=common)
     findings = []
     p_pool = chi2_p_value(fit)
 
@@ -465,7 +488,8 @@ def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None
                                         message=f"channel {name}: fewer than 2 temperatures; no tempco"))
                 continue
             err = None if breakdown_err_v is None else np.asarray(breakdown_err_v, dtype=float)[sel]
-            cf = fit_tempco(temp_c[sel], breakdown_v[sel], err, ref_temp_c=ref_temp_c, alpha=alpha)
+            cf = fit_tempco(temp_c[sel], breakdown_v[sel], err, ref_temp_c=ref_temp_c, alpha=alpha,
+                            common_err_v=None if common is None else common[sel])
             p = chi2_p_value(cf)
             improbable(f"channel {name}: ", cf, p)
             per.append(ChannelTempco(channel=name, tempco_mv_per_k=cf.tempco_mv_per_k,

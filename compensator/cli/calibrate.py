@@ -357,7 +357,7 @@ def run_tempco(args) -> int:
         result = calibrate_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, channels=channels,
                                   ref_temp_c=ref, alpha=args.alpha, slope_per_v=scan.slope_per_v,
                                   capacitance_f=scan.capacitance_f, overvoltage_v=args.overvoltage_v,
-                                  definition=scan.definition)
+                                  definition=scan.definition, common_err_v=scan.breakdown_sys_err_v)
     except ModelError as exc:
         raise exc.at(args.file) from None
     fit, cg, cap_at_ref = result.fit, result.constant_gain, result.capacitance_f_at_ref
