@@ -168,6 +168,7 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("crosstalk_branching_ratio", "1",
          "mean number of prompt crosstalk avalanches one avalanche triggers (generalised Poisson lambda)"),
         ("crosstalk_branching_ratio_err", "1", "standard error of crosstalk_branching_ratio (1 sigma)"),
+        ("crosstalk_fraction_err", "1", "standard error of crosstalk_fraction (1 sigma)"),
         ("curvature_err_mv_per_k2", "mV/K^2", "standard error of curvature_mv_per_k2 (1 sigma)"),
         ("curvature_mv_per_k2", "mV/K^2", "quadratic coefficient of breakdown against temperature"),
         ("curves", "list", "one record per I-V curve"),

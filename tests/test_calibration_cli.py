@@ -107,6 +107,11 @@ def test_spectrum_json_contract_and_plot(cli, demo, truth, tmp_path):
             "crosstalk_branching_ratio"} <= set(s)
     assert s["file"] == str(demo / spec["file"]) and s["charge_unit"] == "pc"
     assert s["gain_in_charge_unit"] == pytest.approx(spec["gain_pc"], rel=0.005)
+    # Both crosstalk figures: the branching ratio lambda and the probability 1 - exp(-lambda)
+    # (Vinogradov, NIM A 695, 247, 2012), with the error propagated as exp(-lambda) err(lambda).
+    lam, lam_err = s["crosstalk_branching_ratio"], s["crosstalk_branching_ratio_err"]
+    assert s["crosstalk_fraction"] == pytest.approx(1.0 - np.exp(-lam), rel=1e-9)
+    assert s["crosstalk_fraction_err"] == pytest.approx(np.exp(-lam) * lam_err, rel=1e-9)
     assert (tmp_path / f"{Path(spec['file']).stem}-spectrum.png").exists()
     bad = tmp_path / "empty.csv"
     bad.write_text("charge,counts\n0.1,0\n0.2,0\n")

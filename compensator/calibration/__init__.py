@@ -17,7 +17,7 @@ from compensator.calibration.gainscan import (
     gain_scan_from_spectra,
 )
 from compensator.calibration.iv import DEFAULT_METHOD, DEFINITIONS, METHODS, IvBreakdown, find_breakdown
-from compensator.calibration.spectrum import SpectrumFit, fit_spectrum, naive_gain, simulate_spectrum
+from compensator.calibration.spectrum import SpectrumFit, fit_spectrum, simulate_spectrum
 from compensator.calibration.tempco import (
     ChannelTempco,
     ConstantGainSlope,
@@ -35,6 +35,6 @@ __all__ = [
     "DEFINITIONS", "ChannelTempco", "TempcoCalibration", "calibrate_tempco", "chi2_p_value",
     "DEFAULT_METHOD", "METHODS", "ConstantGainSlope", "GainScanFit", "IvBreakdown", "PolyFit", "SpectraScan",
     "SpectrumFit", "TempcoFit", "calibrated_values", "constant_gain_slope", "find_breakdown", "fit_gain_scan",
-    "fit_polynomial", "fit_spectrum", "fit_tempco", "gain_scan_from_fits", "gain_scan_from_spectra", "naive_gain", "simulate_spectrum",
+    "fit_polynomial", "fit_spectrum", "fit_tempco", "gain_scan_from_fits", "gain_scan_from_spectra", "simulate_spectrum",
     "write_calibrated_profile",
 ]

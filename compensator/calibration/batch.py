@@ -280,7 +280,9 @@ class SpectrumRecord:
                  "sigma0_in_charge_unit": "sigma0", "sigma0_err_in_charge_unit": "sigma0_err",
                  "sigma1_in_charge_unit": "sigma1", "sigma1_err_in_charge_unit": "sigma1_err",
                  "mean_pe": "mean_pe", "mean_pe_err": "mean_pe_err",
-                 "crosstalk_branching_ratio": "crosstalk", "crosstalk_branching_ratio_err": "crosstalk_err",
+                 "crosstalk_branching_ratio": "crosstalk_branching_ratio",
+                 "crosstalk_branching_ratio_err": "crosstalk_branching_ratio_err",
+                 "crosstalk_fraction": "crosstalk_probability", "crosstalk_fraction_err": "crosstalk_probability_err",
                  "chi2": "chi2", "ndf": "ndf", "n_peaks": "n_peaks", "method": "method"}
         for key, attribute in names.items():  # output names of compensator.vocabulary
             out[key] = getattr(self.fit, attribute) if self.fit is not None else None

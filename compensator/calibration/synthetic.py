@@ -25,6 +25,9 @@ import numpy as np
 from compensator.constants import ELEMENTARY_CHARGE_C
 from compensator.errors import ModelError
 
+__all__ = ["IvTruth", "breakdown_at", "iv_current_a", "leakage_at_crossing_a", "simulate_breakdown_scan",
+           "simulate_events", "simulate_gain_scan", "simulate_iv", "simulate_spectrum"]
+
 
 @dataclass(frozen=True)
 class IvTruth:
@@ -223,3 +226,105 @@ def simulate_breakdown_scan(rng, temp_c, breakdown_v_at_ref, tempco_mv_per_k, *,
                         curvature_mv_per_k2=curvature_mv_per_k2)
     err = np.full(np.shape(true), float(noise_v))
     return true + noise_v * rng.standard_normal(np.shape(true)), err
+
+
+def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events, bin_width, dark=False):
+    """Seeded synthetic charge histogram with known truth.
+
+    The number of fired cells per event is drawn as a branching process: a
+    Poisson number of primaries (mean ``mean_pe``), then generation after
+    generation each new avalanche triggers a Poisson number (mean
+    ``crosstalk``) of further ones. The total follows the generalised Poisson
+    distribution (Vinogradov 2012). Charges are ``pedestal + n gain`` plus
+    Gaussian noise of width ``sqrt(sigma0**2 + n sigma1**2)``.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator or int
+        Random generator (or a seed for one).
+    gain, pedestal, sigma0, sigma1 : float
+        Charge per fired cell, pedestal position, widths (any charge unit).
+    mean_pe : float
+        Mean number of primary photoelectrons, >= 0.
+    crosstalk : float
+        Branching ratio, 0 <= crosstalk < 1.
+    n_events : int
+        Number of events.
+    bin_width : float
+        Histogram bin width (same unit); bins are aligned on
+        ``pedestal + bin_width * (j + 1/2)``.
+    dark : bool
+        A self-triggered dark-count spectrum: every event starts from exactly
+        one primary avalanche (``mean_pe`` is ignored), so there is no
+        pedestal and the cells fired follow the Borel distribution.
+
+    Returns
+    -------
+    charge : numpy.ndarray
+        Bin centres, contiguous from the lowest to the highest event.
+    counts : numpy.ndarray
+        Events per bin (float array of integers).
+
+    Raises
+    ------
+    ModelError
+        Parameters outside their domain.
+    """
+    if not (np.isfinite(bin_width) and bin_width > 0):
+        raise ModelError("simulate_spectrum: bin_width must be > 0")
+    charges = simulate_events(
+        rng, gain=gain, pedestal=pedestal, sigma0=sigma0, sigma1=sigma1,
+        mean_pe=mean_pe, crosstalk=crosstalk, n_events=n_events, dark=dark,
+    )
+    j = np.floor((charges - pedestal) / bin_width).astype(np.int64)
+    j_lo, j_hi = int(j.min()), int(j.max())
+    counts = np.bincount(j - j_lo, minlength=j_hi - j_lo + 1).astype(float)
+    centres = pedestal + bin_width * (np.arange(j_lo, j_hi + 1) + 0.5)
+    return centres, counts
+
+
+def simulate_events(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events, dark=False):
+    """Seeded synthetic event list (one charge per event).
+
+    Same model as :func:`simulate_spectrum`, without the binning.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator or int
+        Random generator (or a seed for one).
+    gain, pedestal, sigma0, sigma1 : float
+        Charge per fired cell, pedestal position, widths (any charge unit).
+    mean_pe : float
+        Mean number of primary photoelectrons, >= 0.
+    crosstalk : float
+        Branching ratio, 0 <= crosstalk < 1.
+    n_events : int
+        Number of events.
+    dark : bool
+        Exactly one primary per event (dark counts); ``mean_pe`` is ignored.
+
+    Returns
+    -------
+    numpy.ndarray
+        Charges, one per event, in the unit of ``gain``.
+
+    Raises
+    ------
+    ModelError
+        Parameters outside their domain.
+    """
+    rng = np.random.default_rng(rng)
+    n_events = int(n_events)
+    if n_events < 1:
+        raise ModelError("simulate_spectrum: n_events must be >= 1")
+    if not (gain > 0 and sigma0 > 0 and sigma1 >= 0):
+        raise ModelError("simulate_spectrum: need gain > 0, sigma0 > 0, sigma1 >= 0")
+    if not (mean_pe >= 0 and 0 <= crosstalk < 1):
+        raise ModelError("simulate_spectrum: need mean_pe >= 0 and 0 <= crosstalk < 1")
+    fired = np.ones(n_events, dtype=np.int64) if dark else rng.poisson(mean_pe, n_events)
+    generation = fired.copy()
+    while crosstalk > 0 and generation.any():
+        generation = rng.poisson(crosstalk * generation)
+        fired += generation
+    width = np.sqrt(sigma0**2 + fired * sigma1**2)
+    return pedestal + fired * gain + width * rng.standard_normal(n_events)

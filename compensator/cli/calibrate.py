@@ -216,10 +216,12 @@ def run_spectrum(args) -> int:
     elif ok:
         print(format_table(
             [(r.file, r.charge_unit or "-", r.fit.gain, r.fit.gain_err, r.fit.pedestal, r.fit.mean_pe,
-              r.fit.crosstalk, f"{r.fit.chi2:.1f}/{r.fit.ndf}") for r in ok],
-            ["file", "unit", "gain", "gain_err", "pedestal", "mean_pe", "crosstalk", "chi2/ndf"],
-            ["", "", ".5g", ".2g", ".4g", ".4f", ".4f", ""]))
-        print(f"{len(ok)} of {len(records)} spectra fitted")
+              r.fit.crosstalk_branching_ratio, r.fit.crosstalk_probability, f"{r.fit.chi2:.1f}/{r.fit.ndf}")
+             for r in ok],
+            ["file", "unit", "gain", "gain_err", "pedestal", "mean_pe", "xt_lambda", "xt_fraction", "chi2/ndf"],
+            ["", "", ".5g", ".2g", ".4g", ".4f", ".4f", ".4f", ""]))
+        print(f"{len(ok)} of {len(records)} spectra fitted (xt_lambda: crosstalk branching ratio; xt_fraction: "
+              "probability of at least one crosstalk avalanche, 1 - exp(-xt_lambda), the profile's crosstalk.probability)")
     return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
 
 

@@ -37,6 +37,7 @@ spectra <= 20 s.
 from __future__ import annotations
 
 import argparse
+import sys
 import tempfile
 import time
 from concurrent.futures import ProcessPoolExecutor
@@ -46,9 +47,12 @@ import numpy as np
 
 from compensator.calibration.batch import analyse_iv_files, default_jobs
 from compensator.calibration.iv import DEFAULT_METHOD, METHODS, find_breakdown
-from compensator.calibration.spectrum import fit_spectrum, naive_gain, simulate_spectrum
+from compensator.calibration.spectrum import fit_spectrum, simulate_spectrum
 from compensator.calibration.synthetic import leakage_at_crossing_a, simulate_iv
 from compensator.errors import CompensatorError
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from spectrum_baseline import naive_gain  # noqa: E402
 
 GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)
 NOISES = (0.001, 0.005, 0.02)
