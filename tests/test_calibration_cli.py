@@ -308,8 +308,9 @@ def test_tempco_per_channel_from_file_names(cli, demo, truth, tmp_path, profiles
     for i, name in enumerate(sorted(chans)):
         c = chans[name]
         assert c["tempco_mv_per_k"] == pytest.approx(truth["tempco_mv_per_k"], abs=3 * c["tempco_err_mv_per_k"] + 0.05)
-        assert c["breakdown_v_at_ref"] == pytest.approx(truth["breakdown_v_at_ref"] + offsets[i],
-                                                        abs=3 * c["breakdown_err_v_at_ref"] + 0.005)
+        # the I-V breakdown sits iv_definition_offset_v above the gain intercept of the truth
+        assert c["breakdown_v_at_ref"] == pytest.approx(
+            truth["breakdown_v_at_ref"] + offsets[i] + truth["iv_definition_offset_v"], abs=3 * c["breakdown_err_v_at_ref"])
         assert c["points"] == 7
     # (the tempcos are printed to 12 significant digits; their spread is a thousandth of them)
     assert doc["tempco_spread_mv_per_k"] == pytest.approx(
@@ -322,6 +323,39 @@ def test_tempco_per_channel_from_file_names(cli, demo, truth, tmp_path, profiles
     prof = load_sipm(tmp_path / "cal-ch03.yaml")
     assert prof.device.breakdown.breakdown_v_at_ref == pytest.approx(chans["ch03"]["breakdown_v_at_ref"], abs=1e-6)
     assert prof.values["breakdown"]["definition"] == "iv_inverse_log_derivative"
+
+
+def test_tempco_moved_onto_the_gain_intercept_by_the_measured_offset(cli, demo, truth, tmp_path, profiles_dir):
+    # I-V curves of four channels and gain scans of channel 1 at the same seven temperatures: the
+    # offset between the definitions is measured (truth: the gain intercept lies 120 mV below the
+    # I-V breakdown of these invented devices) and the profile is written on the gain intercept.
+    iv = cli("calibrate", "iv", *sorted((demo / "iv").glob("ch*.csv")), "--json", "--channel-from-name", r"^(ch\d+)_")
+    gain = cli("calibrate", "gain-scan", *sorted((demo / "gain").glob("*.csv")), "--json")
+    assert iv.status == 0 and gain.status == 0, iv.stderr + gain.stderr
+    (tmp_path / "iv.json").write_text(iv.stdout)
+    (tmp_path / "gain.json").write_text(gain.stdout)
+    lumped = cli("calibrate", "tempco", tmp_path / "iv.json", "--offset-from", tmp_path / "gain.json")
+    assert lumped.status == 2 and "--channel" in lumped.stderr and lumped.stderr.count("\n") == 1
+    out = tmp_path / "gain-intercept.yaml"
+    r = cli("calibrate", "tempco", tmp_path / "iv.json", "--channel", "ch01", "--offset-from", tmp_path / "gain.json",
+            "--json", "--write-profile", out, "--base", profiles_dir / "hut-sipm-a.yaml")
+    assert r.status == 0, r.stderr
+    doc = json.loads(r.stdout)
+    off = doc["definition_offset"]
+    assert off["matched_points"] == 7 and off["from_definition"] == "iv_inverse_log_derivative"
+    assert off["definition"] == doc["definition"] == "gain_intercept"
+    assert off["definition_offset_v"] == pytest.approx(-truth["iv_definition_offset_v"],
+                                                       abs=3 * off["definition_offset_err_v"])
+    assert 0 < off["definition_offset_err_v"] < 0.01
+    assert doc["breakdown_v_at_ref"] == pytest.approx(truth["breakdown_v_at_ref"], abs=3 * doc["breakdown_err_v_at_ref"])
+    assert doc["tempco_mv_per_k"] == pytest.approx(truth["tempco_mv_per_k"], abs=3 * doc["tempco_err_mv_per_k"])
+    prof = load_sipm(out)
+    assert prof.values["breakdown"]["definition"] == "gain_intercept"
+    assert prof.device.breakdown.breakdown_v_at_ref == pytest.approx(doc["breakdown_v_at_ref"], abs=1e-6)
+    text = cli("calibrate", "tempco", tmp_path / "iv.json", "--channel", "ch01", "--offset-from", tmp_path / "gain.json")
+    assert f"{1e3 * off['definition_offset_v']:+.1f} +- {1e3 * off['definition_offset_err_v']:.1f} mV" in text.stdout
+    unknown = cli("calibrate", "tempco", tmp_path / "iv.json", "--channel", "ch09")
+    assert unknown.status == 2 and "ch01, ch02, ch03, ch04" in unknown.stderr
 
 
 def test_plots_are_not_replaced_without_force(cli, demo, tmp_path):

@@ -165,3 +165,39 @@ def test_common_systematic_error_enters_the_reference_breakdown_only():
     assert fit.breakdown_v_at_ref == plain.breakdown_v_at_ref and fit.breakdown_sys_err_v == pytest.approx(common)
     with pytest.raises(ModelError):
         fit_tempco(temps, volts, sigma, common_err_v=-1.0)
+
+
+def test_definition_offset_is_the_weighted_mean_of_matched_differences():
+    # Weighted mean and its error computed here by hand (independent of the code): the gain
+    # intercepts at 0, 20 and 40 C are matched to the I-V breakdowns within 0.5 K (the I-V point
+    # at 10 C has no partner); offsets 118, 121 and 124 mV with errors 2, 2 and 4 mV in quadrature
+    # with the I-V errors of 1 mV.
+    from compensator.calibration.definitions import definition_offset
+
+    iv_t, iv_v, iv_e = [0.0, 10.0, 20.0, 40.2], [24.1, 24.3, 24.5, 24.9], [0.001] * 4
+    gi_t, gi_v, gi_e = [0.1, 20.0, 40.0], [23.982, 24.379, 24.776], [0.002, 0.002, 0.004]
+    r = definition_offset(iv_t, iv_v, iv_e, gi_t, gi_v, gi_e, from_definition="iv_inverse_log_derivative",
+                          to_definition="gain_intercept")
+    d = np.array([-0.118, -0.121, -0.124])
+    w = 1.0 / (np.array(gi_e) ** 2 + 0.001 ** 2)
+    mean = np.sum(w * d) / np.sum(w)
+    chi2 = np.sum(w * (d - mean) ** 2)
+    assert r.offset_v == pytest.approx(mean, abs=1e-12) and r.matched_points == 3 and r.ndf == 2
+    assert r.chi2 == pytest.approx(chi2, rel=1e-9)
+    assert r.chi2_p_value == pytest.approx(stats.chi2.sf(chi2, 2), rel=1e-9)
+    assert r.offset_err_v == pytest.approx(np.sqrt(1 / np.sum(w)) * max(1.0, np.sqrt(chi2 / 2)), rel=1e-9)
+    assert r.findings == ()
+    # Differences that scatter far beyond their errors: a finding, and the error scaled up.
+    wild = definition_offset(iv_t, iv_v, iv_e, gi_t, [23.9, 24.4, 24.7], gi_e)
+    assert [f.code for f in wild.findings] == ["definition_offset_scatter"] and wild.offset_err_v > 0.02
+    with pytest.raises(ModelError, match="no temperature"):
+        definition_offset(iv_t, iv_v, iv_e, [60.0], [25.0], [0.002])
+    with pytest.raises(ModelError, match="same definition|both breakdown sets"):
+        definition_offset(iv_t, iv_v, iv_e, gi_t, gi_v, gi_e, from_definition="gain_intercept",
+                          to_definition="gain_intercept")
+    # fit_tempco moves the breakdown by the offset and adds its error to the common part.
+    plain = fit_tempco(np.array(iv_t), np.array(iv_v), np.array(iv_e))
+    moved = fit_tempco(np.array(iv_t), np.array(iv_v), np.array(iv_e), offset_v=r.offset_v, offset_err_v=r.offset_err_v)
+    assert moved.breakdown_v_at_ref == pytest.approx(plain.breakdown_v_at_ref + r.offset_v, abs=1e-12)
+    assert moved.breakdown_err_v == pytest.approx(np.hypot(plain.breakdown_err_v, r.offset_err_v), rel=1e-12)
+    assert moved.tempco_mv_per_k == plain.tempco_mv_per_k

@@ -21,6 +21,7 @@ from compensator.csvio import Table, read_table
 from compensator.csvio import csv_rows as _csv_rows
 from compensator.csvio import fail as _fail
 from compensator.csvio import read_text as _read_text
+from compensator.errors import ModelError
 
 
 
@@ -223,6 +224,23 @@ class BreakdownScan:
     channels: tuple | None = None
     definition: str | None = None
     breakdown_sys_err_v: np.ndarray | None = None
+
+    def for_channel(self, channel: str) -> BreakdownScan:
+        """The points of one channel (a ModelError naming the channels there are when it is not there)."""
+        names = sorted(set(self.channels or ()))
+        if channel not in names:
+            raise ModelError(f"no channel {channel!r} in the data (channels: {', '.join(names) or 'none named'})",
+                             key="channel")
+        sel = np.array([c == channel for c in self.channels])
+
+        def pick(values):
+            return None if values is None else np.asarray(values)[sel]
+
+        return BreakdownScan(self.file, self.temp_c[sel], self.breakdown_v[sel], pick(self.breakdown_err_v),
+                             pick(self.slope_per_v), pick(self.capacitance_f),
+                             tuple(s for s, keep in zip(self.sources, sel) if keep) if self.sources else (),
+                             tuple(c for c, keep in zip(self.channels, sel) if keep), self.definition,
+                             pick(self.breakdown_sys_err_v))
 
 
 def read_breakdown_scan(path) -> BreakdownScan:

@@ -102,7 +102,7 @@ class TempcoFit:
 
 
 def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, alpha=ALPHA,
-               common_err_v=None) -> TempcoFit:
+               common_err_v=None, offset_v=0.0, offset_err_v=0.0) -> TempcoFit:
     """Weighted linear and quadratic fits of breakdown voltage against temperature.
 
     Parameters
@@ -125,6 +125,11 @@ def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, al
         does not average down over the points as independent errors do, so it
         is added in quadrature to the error at the reference temperature
         (it leaves the temperature coefficient unchanged).
+    offset_v, offset_err_v : float
+        A known offset to another breakdown definition and its one-sigma
+        error, volt (:func:`~compensator.calibration.definitions.definition_offset`):
+        the breakdown at the reference is reported on that definition
+        (``offset_v`` added) and the offset's error joins the common error.
 
     Returns
     -------
@@ -165,8 +170,12 @@ def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, al
     common = 0.0 if common_err_v is None else float(np.mean(np.asarray(common_err_v, dtype=float)))
     if not (np.isfinite(common) and common >= 0):
         raise ModelError(f"common_err_v must be finite and non-negative, got {common!r}", key="common_err_v")
+    if not (np.isfinite(offset_v) and np.isfinite(offset_err_v) and offset_err_v >= 0):
+        raise ModelError(f"offset_v and offset_err_v must be finite (the error non-negative), got {offset_v!r}, "
+                         f"{offset_err_v!r}", key="offset_v")
+    common = float(np.hypot(common, offset_err_v))
     return TempcoFit(
-        ref_temp_c=float(ref_temp_c), breakdown_v_at_ref=float(chosen.coef[0]),
+        ref_temp_c=float(ref_temp_c), breakdown_v_at_ref=float(chosen.coef[0] + offset_v),
         breakdown_err_v=float(np.hypot(err[0], common)), breakdown_sys_err_v=common,
         tempco_mv_per_k=float(1e3 * chosen.coef[1]), tempco_err_mv_per_k=float(1e3 * err[1]),
         curvature_mv_per_k2=float(1e3 * chosen.coef[2]) if significant else 0.0,
@@ -427,7 +436,7 @@ def chi2_p_value(fit: TempcoFit) -> float:
 
 def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None, ref_temp_c=25.0, alpha=ALPHA,
                      slope_per_v=None, capacitance_f=None, overvoltage_v=3.0, definition=None,
-                     common_err_v=None) -> TempcoCalibration:
+                     common_err_v=None, definition_offset=None) -> TempcoCalibration:
     """Temperature coefficient of a breakdown scan, per channel where the data name channels.
 
     Parameters
@@ -452,6 +461,11 @@ def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None
         Breakdown definition of the data (carried into the result).
     common_err_v : array_like, optional
         Systematic error of each point common to all points (see :func:`fit_tempco`), volt.
+    definition_offset : DefinitionOffset, optional
+        Offset to another breakdown definition measured on the same device
+        (:func:`~compensator.calibration.definitions.definition_offset`): the
+        breakdowns at the reference are reported on its ``to_definition``, which
+        becomes the result's definition, and its finding is passed on.
 
     Returns
     -------
@@ -467,8 +481,13 @@ def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None
     temp_c = np.asarray(temp_c, dtype=float)
     breakdown_v = np.asarray(breakdown_v, dtype=float)
     common = None if common_err_v is None else np.broadcast_to(np.asarray(common_err_v, dtype=float), temp_c.shape)
-    fit = fit_tempco(temp_c, breakdown_v, breakdown_err_v, ref_temp_c=ref_temp_c, alpha=alpha, common_err_v=common)
-    findings = []
+    shift = {} if definition_offset is None else {"offset_v": definition_offset.offset_v,
+                                                  "offset_err_v": definition_offset.offset_err_v}
+    if definition_offset is not None:
+        definition = definition_offset.to_definition
+    fit = fit_tempco(temp_c, breakdown_v, breakdown_err_v, ref_temp_c=ref_temp_c, alpha=alpha, common_err_v=common,
+                     **shift)
+    findings = [] if definition_offset is None else list(definition_offset.findings)
     p_pool = chi2_p_value(fit)
 
     def improbable(label, f, p):
@@ -489,7 +508,7 @@ def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None
                 continue
             err = None if breakdown_err_v is None else np.asarray(breakdown_err_v, dtype=float)[sel]
             cf = fit_tempco(temp_c[sel], breakdown_v[sel], err, ref_temp_c=ref_temp_c, alpha=alpha,
-                            common_err_v=None if common is None else common[sel])
+                            common_err_v=None if common is None else common[sel], **shift)
             p = chi2_p_value(cf)
             improbable(f"channel {name}: ", cf, p)
             per.append(ChannelTempco(channel=name, tempco_mv_per_k=cf.tempco_mv_per_k,

@@ -102,6 +102,11 @@ def register(subparsers) -> None:
     tc.add_argument("--base", metavar="BASE.yaml", help="sipm profile whose other sections the new profile keeps")
     tc.add_argument("--name", help="name of the new profile (default: BASE name + '-calibrated')")
     tc.add_argument("--force", action="store_true", help="replace an existing --write-profile file or plot")
+    tc.add_argument("--channel", metavar="NAME", help="fit only the points of this channel (device)")
+    tc.add_argument("--offset-from", metavar="OTHER",
+                    help="breakdowns of another definition measured on the same device (usually the JSON of "
+                         "'calibrate gain-scan'): their offset from FILE at matched temperatures is reported and "
+                         "the breakdown (and a written profile) moved onto OTHER's definition")
     tc.add_argument("--pool", action="store_true",
                     help="fit the points of several channels as one device (default: refuse to lump them "
                          "into one profile)")
@@ -332,6 +337,32 @@ def _scan_from_spectra(args, label, temp_c, entries, errors):
     return _scan_summary(label, result.scan, {"spectra": per})
 
 
+def _definition_offset(args, scan):
+    """The offset of --offset-from's breakdowns from FILE's (one device, matched temperatures)."""
+    from compensator.calibration.definitions import definition_offset
+    from compensator.calibration.measurements import read_breakdown_scan
+
+    if len(set(scan.channels or ())) > 1:
+        raise usage_error("--offset-from", f"{args.file} holds {len(set(scan.channels))} channels; name the one "
+                                           "measured in OTHER with --channel")
+    other = read_breakdown_scan(args.offset_from)
+    if args.channel is not None and other.channels is not None:
+        try:
+            other = other.for_channel(args.channel)
+        except ModelError as exc:
+            raise exc.at(args.offset_from) from None
+    if len(set(other.channels or ())) > 1:
+        raise usage_error("--offset-from", f"{args.offset_from} holds several channels; name one with --channel")
+    try:
+        return definition_offset(scan.temp_c, scan.breakdown_v,
+                                 scan.breakdown_err_v if scan.breakdown_err_v is not None else np.zeros(0),
+                                 other.temp_c, other.breakdown_v,
+                                 other.breakdown_err_v if other.breakdown_err_v is not None else np.zeros(0),
+                                 from_definition=scan.definition, to_definition=other.definition)
+    except ModelError as exc:
+        raise exc.at(args.offset_from) from None
+
+
 def run_tempco(args) -> int:
     from compensator.calibration.measurements import read_breakdown_scan
     from compensator.calibration.tempco import calibrate_tempco, write_calibrated_profile
@@ -350,6 +381,12 @@ def run_tempco(args) -> int:
     if not args.overvoltage_v > 0:
         raise usage_error("--overvoltage-v", f"must be positive, got {args.overvoltage_v:g}")
     scan = read_breakdown_scan(args.file)
+    if args.channel is not None:
+        try:
+            scan = scan.for_channel(args.channel)
+        except ModelError as exc:
+            raise usage_error("--channel", exc.reason) from None
+    offset = _definition_offset(args, scan) if args.offset_from else None
     plot_path = None
     if args.plot:
         plot_dir, names = _plot_targets(args.plot, [args.file], "-tempco.png", args.force)
@@ -359,7 +396,8 @@ def run_tempco(args) -> int:
         result = calibrate_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, channels=channels,
                                   ref_temp_c=ref, alpha=args.alpha, slope_per_v=scan.slope_per_v,
                                   capacitance_f=scan.capacitance_f, overvoltage_v=args.overvoltage_v,
-                                  definition=scan.definition, common_err_v=scan.breakdown_sys_err_v)
+                                  definition=scan.definition, common_err_v=scan.breakdown_sys_err_v,
+                                  definition_offset=offset)
     except ModelError as exc:
         raise exc.at(args.file) from None
     fit, cg, cap_at_ref = result.fit, result.constant_gain, result.capacitance_f_at_ref
@@ -414,13 +452,22 @@ def run_tempco(args) -> int:
                       "breakdown_err_v_at_ref": c.breakdown_err_v, "chi2_ndf": c.chi2_ndf, "chi2_p_value": c.chi2_p_value,
                       "points": c.points} for c in result.channels],
         "tempco_spread_mv_per_k": result.tempco_spread_mv_per_k,
+        "definition_offset": None if offset is None else {
+            "definition_offset_v": offset.offset_v, "definition_offset_err_v": offset.offset_err_v,
+            "from_definition": offset.from_definition, "definition": offset.to_definition,
+            "matched_points": offset.matched_points, "chi2": offset.chi2, "ndf": offset.ndf,
+            "chi2_p_value": offset.chi2_p_value},
         "warnings": [{"code": f.code, "severity": f.severity.value, "message": f.message} for f in result.findings],
     }
     if args.json:
         print_json(out)
         return EXIT_OK
     print(f"{args.file}: {fit.n_points} points, {fit.model} model ({'weighted' if out['weighted'] else 'unweighted'})")
-    print(f"  breakdown at {fit.ref_temp_c:g} C: {fit.breakdown_v_at_ref:.4f} +- {fit.breakdown_err_v:.4f} V")
+    print(f"  breakdown at {fit.ref_temp_c:g} C: {fit.breakdown_v_at_ref:.4f} +- {fit.breakdown_err_v:.4f} V"
+          + (f" ({result.definition})" if result.definition else ""))
+    if offset is not None:
+        print(f"  moved onto {offset.to_definition} by the offset measured at {offset.matched_points} temperature(s): "
+              f"{1e3 * offset.offset_v:+.1f} +- {1e3 * offset.offset_err_v:.1f} mV from {offset.from_definition}")
     print(f"  tempco: {fit.tempco_mv_per_k:.3f} +- {fit.tempco_err_mv_per_k:.3f} mV/K "
           f"({1e3 * out['tempco_relative_per_k']:.3f} per mille per K)")
     q = fit.quadratic_curvature_mv_per_k2
