@@ -41,7 +41,11 @@ def test_log_derivative_peak_matches_analytic_maximum():
     i0, a, k = 1e-8, 1e-6, 2.0
     current = iv_current_a(grid, 24.5, exponent=k, avalanche_a=a, leakage_a=i0, leakage_slope_per_v=0.0)
     r = find_breakdown(grid, current, "log-derivative-peak")
-    assert r.breakdown_v[0] == pytest.approx(24.5 + ((k - 1) * i0 / a) ** (1 / k), abs=0.01)
+    # the vertex of a parabola through the smoothed derivative on a 10 mV grid: within 2 mV (1.7 mV here)
+    assert r.breakdown_v[0] == pytest.approx(24.5 + ((k - 1) * i0 / a) ** (1 / k), abs=0.002)
+    # the peak methods' systematic part is half a grid step; the fit spans the vertex +- 2 to 6 points
+    assert r.breakdown_sys_err_v[0] == pytest.approx(0.005, rel=1e-9)
+    assert 4 <= round((r.fit_hi_v[0] - r.fit_lo_v[0]) / 0.01) <= 12
 
 
 @pytest.mark.parametrize("k", [2.5, 3.0])
@@ -55,7 +59,9 @@ def test_second_derivative_matches_dense_numerical_maximum(k):
     expected = fine[np.argmax(d2)]
     r = find_breakdown(grid, iv_current_a(grid, 24.5, **kw), "second-derivative")
     assert r.ok.all()
-    assert r.breakdown_v[0] == pytest.approx(expected, abs=0.005)
+    # within 1.5 mV on a 10 mV grid (1.2 mV at k = 2.5, 0.3 mV at k = 3)
+    assert r.breakdown_v[0] == pytest.approx(expected, abs=0.0015)
+    assert r.breakdown_sys_err_v[0] == pytest.approx(0.005, rel=1e-9)
 
 
 @pytest.mark.parametrize("joint_fit, geiger_scale_v, relative_noise, median_mv, p90_mv", [
@@ -207,7 +213,7 @@ def test_vectorised_batch_equals_one_by_one_and_sweep_direction_does_not_matter(
         down = find_breakdown(GRID_V[::-1], current[i, ::-1], method)
         assert down.breakdown_v[0] == pytest.approx(batch.breakdown_v[i], abs=1e-9)
     if method == METHODS[0]:
-        assert np.all(np.abs(batch.breakdown_v - truth) < 3 * batch.breakdown_err_v + 0.005)
+        assert np.all(np.abs(batch.breakdown_v - truth) < 3.5 * batch.breakdown_err_v)
     else:  # the peak definitions sit above the power-law breakdown by design (about 0.1 V here)
         assert np.all((batch.breakdown_v - truth > -0.05) & (batch.breakdown_v - truth < 0.15))
     assert np.all(np.isfinite(batch.breakdown_err_v)) and np.all(batch.breakdown_err_v > 0)
