@@ -14,7 +14,8 @@ from compensator.calibration.spectrum.histogram import (
     _fill_gaps,
     bin_events,
 )
-from compensator.calibration.spectrum.model import AMPLITUDE_MODELS, _best_fit, _deviance_terms, _fit
+from compensator.calibration.spectrum.amplitudes import AMPLITUDE_MODEL_TABLE, AMPLITUDE_MODELS
+from compensator.calibration.spectrum.model import _best_fit, _deviance_terms, _fit
 from compensator.calibration.spectrum.start import _start_values
 from compensator.errors import InputError, ModelError
 from compensator.physics.counting import crosstalk_probability_from_branching_ratio
@@ -222,42 +223,26 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) 
     xs = (x - origin) / unit
     edges = _edges_from_centres(xs)
     start = _start_values(xs, c, edges)
-    if amplitudes == "borel":
-        # the first peak is one fired cell; the zero-cell position lies one
-        # spacing below it; P(1) = exp(-lambda)
-        g0, s0, s1 = start["gain"], start["sigma0"], start["sigma1"]
-        start = dict(start, pedestal=start["pedestal"] - g0, sigma0=float(np.sqrt(max(s0**2 - s1**2, (0.03 * g0) ** 2))),
-                     crosstalk=float(np.clip(start["mean_pe"], 0.01, 0.9)))
-        p, cov, m, nfev, model = _best_fit(xs, edges, c, start, "borel")
-    else:
-        p, cov, m, nfev, model = _best_fit(xs, edges, c, start, "gpoisson")
-    if amplitudes == "free":
+    kind = AMPLITUDE_MODEL_TABLE[amplitudes]
+    first = AMPLITUDE_MODEL_TABLE[kind.seeded_by] if kind.seeded_by else kind
+    p, cov, m, nfev, model = _best_fit(xs, edges, c, first.prepare_start(start), first.name)
+    if kind.seeded_by:
         # Free amplitudes cannot tell the spacing from half of it (the odd
         # peaks may simply be empty), so the peak labelling and the start come
-        # from the generalised-Poisson fit.
+        # from the seeding model's fit.
         start = dict(start, pedestal=float(p[0]), gain=float(p[1]), sigma0=float(abs(p[2])),
-                     sigma1=float(abs(p[3])), n_total=float(p[4]), mean_pe=float(p[5]), crosstalk=float(p[6]))
-        p, cov, m, nfev_free, model = _fit(edges, c, start, "free")
-        nfev += nfev_free
+                     sigma1=float(abs(p[3])), n_total=float(p[4]), **first.restart(p[4:]))
+        p, cov, m, nfev_seeded, model = _fit(edges, c, start, kind.name)
+        nfev += nfev_seeded
     err = np.sqrt(np.clip(np.diag(cov), 0.0, None))
     q0, g, s0, s1 = p[:4]
     amp = model.amplitudes(p)[0]
     total = float(c.sum())
-    if amplitudes == "gpoisson":
-        mu, lam = float(p[5]), float(p[6])
-        mu_err, lam_err = float(err[5]), float(err[6])
-        names = ("pedestal", "gain", "sigma0", "sigma1", "n_total", "mean_pe", "crosstalk")
-    elif amplitudes == "borel":
-        mu, mu_err = float("nan"), float("nan")
-        lam, lam_err = float(p[5]), float(err[5])
-        names = ("pedestal", "gain", "sigma0", "sigma1", "n_total", "crosstalk")
-    else:
-        mu, lam, mu_err, lam_err = _free_amplitude_moments(amp, cov[4:, 4:])
-        names = ("pedestal", "gain", "sigma0", "sigma1") + tuple(f"amplitude_{k}" for k in range(amp.size))
+    moments = kind.moments(p[4:], err[4:], amp, cov[4:, 4:])
+    mu, mu_err, lam, lam_err = moments
+    names = ("pedestal", "gain", "sigma0", "sigma1") + kind.parameter_names(amp.size)
     if not np.sum(amp[1:]) >= 5.0:
-        if amplitudes == "borel":
-            raise ModelError("spectrum: only one peak (no crosstalk peak beyond it); the gain cannot be measured")
-        raise ModelError("spectrum: no photoelectron peak beyond the pedestal; the gain cannot be measured")
+        raise ModelError(f"spectrum: {kind.no_peak_reason}; the gain cannot be measured")
     width_1 = np.hypot(s0, s1)
     if g < 2.0 * width_1:
         raise ModelError(
@@ -286,25 +271,3 @@ def fit_spectrum(charge, counts=None, *, amplitudes="gpoisson", fit_range=None) 
     for arr in (fit.charge, fit.counts, fit.model_counts, fit.peak_amplitudes, fit.covariance):
         arr.setflags(write=False)
     return fit
-
-
-def _free_amplitude_moments(amp, cov):
-    """mu = -ln(A0/sum A), lambda = 1 - mu/<n>, with propagated errors."""
-    total = float(amp.sum())
-    n = np.arange(amp.size, dtype=float)
-    if amp[0] <= 0 or total <= 0:
-        raise ModelError("spectrum: the fitted pedestal peak is empty; mean_pe cannot be measured")
-    mu = -np.log(amp[0] / total)
-    mean_n = float(np.sum(n * amp) / total)
-    # gradients with respect to the amplitudes
-    d_mu = np.full(amp.size, 1.0 / total)
-    d_mu[0] -= 1.0 / amp[0]
-    d_mean = (n - mean_n) / total
-    if mean_n > 0:
-        lam = 1.0 - mu / mean_n
-        d_lam = -d_mu / mean_n + mu * d_mean / mean_n**2
-    else:
-        lam, d_lam = 0.0, np.zeros(amp.size)
-    mu_err = float(np.sqrt(max(d_mu @ cov @ d_mu, 0.0)))
-    lam_err = float(np.sqrt(max(d_lam @ cov @ d_lam, 0.0)))
-    return float(mu), float(lam), mu_err, lam_err

@@ -11,32 +11,14 @@ from __future__ import annotations
 import numpy as np
 from scipy import optimize, special
 
-from compensator.physics.counting import generalized_poisson_pmf
+from compensator.calibration.spectrum.amplitudes import AMPLITUDE_MODEL_TABLE, AMPLITUDE_MODELS
 
 __all__ = ["AMPLITUDE_MODELS", "MAX_PEAKS"]
 
-#: The amplitude models :func:`~compensator.calibration.spectrum.fit_spectrum` accepts.
-AMPLITUDE_MODELS = ("gpoisson", "free", "borel")
 #: Most peaks a model carries (pedestal included); keeps the fit bounded in time.
 MAX_PEAKS = 64
 
 _SQRT_2PI = np.sqrt(2.0 * np.pi)
-_LAMBDA_MAX = 0.95
-
-
-def _borel_log_terms(n, lam):
-    """log P(n) and d log P/d lam for n >= 1 (lam > 0 assumed)."""
-    logp = -lam * n + (n - 1.0) * np.log(lam * n) - special.gammaln(n + 1.0)
-    return logp, (n - 1.0) / lam - n
-
-
-def _gp_log_terms(n, mu, lam):
-    """log P(n), d log P/d mu, d log P/d lam for the fit (mu > 0 assumed)."""
-    s = mu + n * lam
-    logp = np.log(mu) + (n - 1.0) * np.log(s) - mu - n * lam - special.gammaln(n + 1.0)
-    dmu = 1.0 / mu + (n - 1.0) / s - 1.0
-    dlam = n * (n - 1.0) / s - n
-    return logp, dmu, dlam
 
 
 #: Peaks are evaluated within this many standard deviations of their centre
@@ -72,31 +54,25 @@ def _banded_shapes(edges, means, sigmas):
 
 
 class _Model:
-    """Expected counts per bin and their Jacobian for one amplitude model."""
+    """Expected counts per bin and their Jacobian for one amplitude model (see :mod:`.amplitudes`)."""
 
     def __init__(self, edges, n_peaks, method):
         self.edges = edges
         self.n_bins = edges.size - 1
-        first = 1 if method == "borel" else 0  # no pedestal peak in a dark-count spectrum
+        self.kind = AMPLITUDE_MODEL_TABLE[method]
+        first = self.kind.first_peak  # no pedestal peak in a dark-count spectrum
         self.n = np.arange(first, first + n_peaks, dtype=float)
         self.method = method
 
     def amplitudes(self, p):
-        if self.method == "gpoisson":
-            logp, dmu, dlam = _gp_log_terms(self.n, p[5], p[6])
-            prob = np.exp(logp)
-            return p[4] * prob, prob, dmu, dlam
-        if self.method == "borel":
-            logp, dlam = _borel_log_terms(self.n, p[5])
-            prob = np.exp(logp)
-            return p[4] * prob, prob, None, dlam
-        return p[4:], None, None, None
+        """The peak amplitudes and their derivatives (:class:`~.amplitudes.Amplitudes`)."""
+        return self.kind.amplitudes(self.n, p[4:])
 
     def __call__(self, p, jac=True):
         q0, g, s0, s1 = p[:4]
         sig = np.sqrt(s0 * s0 + self.n * s1 * s1)
         k, i, shape, d_mean, d_sigma = _banded_shapes(self.edges, q0 + self.n * g, sig)
-        amp, prob, dmu, dlam = self.amplitudes(p)
+        amp, columns = self.amplitudes(p)
         B = self.n_bins
 
         def column(weights, values):
@@ -111,11 +87,8 @@ class _Model:
             column(amp * s0 / sig, d_sigma),
             column(amp * self.n * s1 / sig, d_sigma),
         ]
-        if self.method == "gpoisson":
-            cols += [column(prob, shape), column(amp * dmu, shape), column(amp * dlam, shape)]
-            return m, np.column_stack(cols)
-        if self.method == "borel":
-            cols += [column(prob, shape), column(amp * dlam, shape)]
+        if columns is not None:
+            cols += [column(weights, shape) for weights in columns]
             return m, np.column_stack(cols)
         J = np.zeros((B, 4 + self.n.size))
         J[:, :4] = np.column_stack(cols)
@@ -149,26 +122,11 @@ def _fit(edges, c, start, method):
     bw = float(np.median(np.diff(edges)))
     lo = [edges[0] - g0, 0.3 * g0, 1e-3 * min(g0, bw), 0.0]
     hi = [edges[-1], 3.0 * g0, 5.0 * g0, 5.0 * g0]
-    if method == "gpoisson":
-        mu0 = start["mean_pe"]
-        lam0 = start["crosstalk"]
-        # the fraction of the model inside the histogram sets the start normalisation
-        frac = model([*p0, 1.0, mu0, lam0], jac=False)[0].sum()
-        p0 += [total / max(frac, 1e-3), mu0, lam0]
-        lo += [0.0, 1e-4, 0.0]
-        hi += [np.inf, 200.0, _LAMBDA_MAX]
-    elif method == "borel":
-        lam0 = start["crosstalk"]
-        frac = model([*p0, 1.0, lam0], jac=False)[0].sum()
-        p0 += [total / max(frac, 1e-3), lam0]
-        lo += [0.0, 1e-6]
-        hi += [np.inf, _LAMBDA_MAX]
-    else:
-        prob = generalized_poisson_pmf(np.arange(K), start["mean_pe"], start["crosstalk"])
-        amp = np.maximum(prob * start.get("n_total", total), 0.5)
-        p0 += list(amp)
-        lo += [0.0] * K
-        hi += [np.inf] * K
+    own = model.kind.bounds(dict(start, total=total), K,
+                            lambda params: model(np.array([*p0, *params]), jac=False)[0].sum())
+    p0 += own.start
+    lo += own.lower
+    hi += own.upper
     lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
     margin = 1e-6 * np.minimum(np.where(np.isfinite(hi), hi - lo, 1.0), 1.0)
     p0 = np.clip(np.asarray(p0, dtype=float), lo + margin, hi - margin)
@@ -198,7 +156,7 @@ def _fit(edges, c, start, method):
         drdm[close] = -1.0 / np.sqrt(m[close])
         return J * drdm[:, None]
 
-    if method == "free":
+    if model.kind.optimiser == "fisher_scoring":
         p, nfev = _fisher_scoring(model, p0, lo, hi, c, tiny)
     else:
         res = optimize.least_squares(
@@ -275,7 +233,7 @@ def _peaks_needed(edges, pedestal, gain, method="gpoisson", sigma0=0.0, sigma1=0
     centre inside the histogram, or at most one peak width past its end, else
     nothing constrains it.
     """
-    if method == "free":
+    if AMPLITUDE_MODEL_TABLE[method].peaks_inside:
         n = np.arange(MAX_PEAKS)
         inside = pedestal + n * gain <= edges[-1] + np.sqrt(sigma0**2 + n * sigma1**2)
         return int(np.clip(np.count_nonzero(inside), 2, MAX_PEAKS))
@@ -309,7 +267,8 @@ def _best_fit(xs, edges, c, start, amplitudes):
     m = best[2]
     win = (xs >= q0 - 1.5 * g) & (xs < q0 - 0.5 * g)
     below, expected = float(c[win].sum()), float(m[win].sum())
-    if amplitudes == "gpoisson" and below >= 2.0 and below > expected + 3.0 * np.sqrt(expected):
+    if AMPLITUDE_MODEL_TABLE[amplitudes].relabel_pedestal and below >= 2.0 \
+            and below > expected + 3.0 * np.sqrt(expected):
         alternatives.append(dict(start, pedestal=q0 - g, mean_pe=float(-np.log(below / total))))
     ndf = c.size - best[0].size
     if best_dev > ndf + 5.0 * np.sqrt(2.0 * max(ndf, 1)):
@@ -324,10 +283,7 @@ def _best_fit(xs, edges, c, start, amplitudes):
     if _peaks_needed(edges, p[0], p[1], amplitudes, abs(p[2]), abs(p[3])) > model.n.size:
         sv = dict(start, pedestal=float(p[0]), gain=float(p[1]), sigma0=float(abs(p[2])),
                   sigma1=float(max(abs(p[3]), 1e-3 * p[1])))
-        if amplitudes == "gpoisson":
-            sv.update(mean_pe=float(p[5]), crosstalk=float(min(max(p[6], 0.01), 0.9)))
-        elif amplitudes == "borel":
-            sv.update(crosstalk=float(min(max(p[5], 0.01), 0.9)))
+        sv.update(model.kind.restart(p[4:]))
         dev, out = run(sv)
         if dev < best_dev:
             best_dev, best = dev, out
