@@ -282,3 +282,17 @@ def test_non_finite_values_are_a_reason_not_a_crash():
 def test_every_result_names_its_definition(method):
     r = find_breakdown(GRID_V, iv_current_a(GRID_V, 24.5), method)
     assert r.definition == DEFINITIONS[method] == "iv_" + method.replace("-", "_")
+
+
+def test_joint_fit_window_reaches_from_below_to_above_the_start_inclusive():
+    # The window of each curve: every grid point from start - below to start + above, both ends
+    # included; a window cut by the end of the sweep is padded (mask 0) with the last point.
+    from compensator.calibration.ivjoint import _window
+
+    grid = np.broadcast_to(np.arange(0.0, 10.001, 0.5), (2, 21))
+    ln_i = np.log(1.0 + grid)
+    win = _window(grid, ln_i, np.array([5.0, 9.5]), 1.0, 1.0)
+    np.testing.assert_array_equal(win.bias_v, [[4.0, 4.5, 5.0, 5.5, 6.0], [8.5, 9.0, 9.5, 10.0, 10.0]])
+    np.testing.assert_array_equal(win.mask, [[1, 1, 1, 1, 1], [1, 1, 1, 1, 0]])
+    np.testing.assert_array_equal(win.ln_current, np.log(1.0 + win.bias_v))
+    assert win.mask.dtype == float
