@@ -354,6 +354,10 @@ def test_tempco_moved_onto_the_gain_intercept_by_the_measured_offset(cli, demo, 
     assert prof.device.breakdown.breakdown_v_at_ref == pytest.approx(doc["breakdown_v_at_ref"], abs=1e-6)
     text = cli("calibrate", "tempco", tmp_path / "iv.json", "--channel", "ch01", "--offset-from", tmp_path / "gain.json")
     assert f"{1e3 * off['definition_offset_v']:+.1f} +- {1e3 * off['definition_offset_err_v']:.1f} mV" in text.stdout
+    for other, fragment in ((tmp_path / "iv.json", "no offset to measure"),
+                            (demo / "breakdown_scan.csv", "does not say which breakdown definition")):
+        bad = cli("calibrate", "tempco", tmp_path / "iv.json", "--channel", "ch01", "--offset-from", other)
+        assert bad.status == 2 and bad.stderr.count("\n") == 1 and fragment in bad.stderr, bad.stderr
     unknown = cli("calibrate", "tempco", tmp_path / "iv.json", "--channel", "ch09")
     assert unknown.status == 2 and "ch01, ch02, ch03, ch04" in unknown.stderr
 

@@ -341,11 +341,15 @@ def _definition_offset(args, scan):
     """The offset of --offset-from's breakdowns from FILE's (one device, matched temperatures)."""
     from compensator.calibration.definitions import definition_offset
     from compensator.calibration.measurements import read_breakdown_scan
+    from compensator.errors import ModelError
 
     if len(set(scan.channels or ())) > 1:
         raise usage_error("--offset-from", f"{args.file} holds {len(set(scan.channels))} channels; name the one "
                                            "measured in OTHER with --channel")
     other = read_breakdown_scan(args.offset_from)
+    if other.definition is None:
+        raise usage_error("--offset-from", f"{args.offset_from} does not say which breakdown definition it holds; "
+                                           "give the JSON of 'calibrate gain-scan' or 'calibrate iv'")
     if args.channel is not None and other.channels is not None:
         try:
             other = other.for_channel(args.channel)
