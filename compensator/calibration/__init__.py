@@ -7,6 +7,7 @@ The numerical core (:mod:`.iv`, :mod:`.spectrum`, :mod:`.gainscan`,
 at the edge.
 """
 
+from compensator.calibration.definitions import DefinitionOffset, definition_offset
 from compensator.calibration.gainscan import (
     GainScanFit,
     PolyFit,
@@ -32,7 +33,7 @@ from compensator.calibration.tempco import (
 )
 
 __all__ = [
-    "DEFINITIONS", "ChannelTempco", "TempcoCalibration", "calibrate_tempco", "chi2_p_value",
+    "DEFINITIONS", "DefinitionOffset", "definition_offset", "ChannelTempco", "TempcoCalibration", "calibrate_tempco", "chi2_p_value",
     "DEFAULT_METHOD", "METHODS", "ConstantGainSlope", "GainScanFit", "IvBreakdown", "PolyFit", "SpectraScan",
     "SpectrumFit", "TempcoFit", "calibrated_values", "constant_gain_slope", "find_breakdown", "fit_gain_scan",
     "fit_polynomial", "fit_spectrum", "fit_tempco", "gain_scan_from_fits", "gain_scan_from_spectra", "simulate_spectrum",
