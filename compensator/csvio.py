@@ -440,6 +440,8 @@ def _resolve_columns(path, head, notes, delimiter, required, optional, prefixes,
     return _Layout(raw, where, factors, units_row)
 
 
+#: Plain bodies longer than this (characters) are parsed from the file rather than from a copy in memory.
+_LARGE_BODY_CHARS = 64_000_000
 #: A blank (or whitespace-only) line inside a body of data.
 _BLANK_LINE = re.compile(r"(?:^|\n)[ \t]*(?:\n|$)")
 
@@ -477,19 +479,25 @@ def _read_plain(path, text, note, required, optional, prefixes, columns, text_na
     if any(name in layout.where for name in text_names):
         return None
     first = head[1] if layout.units_row else head[0]
-    body = text[first[2]:].rstrip("\n \t")
-    if not body or "#" in body or _BLANK_LINE.search(body):
+    begin, end = first[2], len(text)
+    while end > begin and text[end - 1] in " \t\n":  # trailing blank lines (no copy of the body)
+        end -= 1
+    if end <= begin or text.find("#", begin, end) >= 0 or _BLANK_LINE.search(text, begin, end):
         return None
-    comma = delimiter != "," and "," in body
-    if comma:
-        body = body.replace(",", ".")
+    rows = text.count("\n", begin, end) + 1
+    comma = delimiter != "," and text.find(",", begin, end) >= 0
     names = list(layout.where)
+    usecols = [layout.where[n] for n in names]
     try:
-        data = np.loadtxt(io.StringIO(body), delimiter=delimiter, usecols=[layout.where[n] for n in names],
-                          dtype=float, comments=None, ndmin=2)
-    except (ValueError, IndexError):
+        if comma or note or end - begin < _LARGE_BODY_CHARS:  # parse the decoded text (decimal commas, latin-1)
+            body = text[begin:end].replace(",", ".") if comma else text[begin:end]
+            data = np.loadtxt(io.StringIO(body), delimiter=delimiter, usecols=usecols, dtype=float, comments=None,
+                              ndmin=2)
+        else:  # a large body straight from the file: no copy of it in memory (a little slower)
+            data = np.loadtxt(path, delimiter=delimiter, usecols=usecols, dtype=float, comments=None, ndmin=2,
+                              skiprows=first[0], max_rows=rows, encoding="utf-8-sig")
+    except (ValueError, IndexError, OSError, UnicodeDecodeError):
         return None
-    rows = body.count("\n") + 1
     if data.shape[0] != rows or not np.all(np.isfinite(data)):
         return None
     if comma:

@@ -152,16 +152,25 @@ def _plain_and_row_by_row(tmp_path, text, monkeypatch):
     "bias_v,current_ua,temp_c\n24.5,2.5,25\n25.0,7.5e0,25\n25.5, 12.5 ,25\n",
     "# meter export\nVoltage;Current;T\nV;nA;K\n24,5;2,5;298,15\n25;7,5;298,15\n25,5;1,25E1;298,15\n",
     "bias_v\tcurrent_a\textra\r\n24.5\t2.5e-6\tx\r\n25.0\t7.5e-6\ty\r\n25.5\t1.25e-5\tz\r\n",
+    "\ufeff# export of a source-measure unit\n\n# sweep 1\nbias_v,current_na\n24.5,2.5\n25.0,7.5\n25.5,12.5\n\n\n",
 ])
 def test_plain_files_read_fast_give_the_same_table(tmp_path, text, monkeypatch):
     plain, slow = _plain_and_row_by_row(tmp_path, text, monkeypatch)
-    scale = 1e-9 if "nA" in text else 1e-6
+    scale = 1e-9 if "nA" in text or "current_na" in text else 1e-6
     assert plain.columns["bias_v"] == pytest.approx([24.5, 25.0, 25.5], abs=1e-12)
     assert plain.columns["current_a"] == pytest.approx([2.5 * scale, 7.5 * scale, 12.5 * scale], rel=1e-12)
+    import compensator.csvio as csvio
+
+    with monkeypatch.context() as patch:  # a large body is parsed from the file itself: the same table
+        patch.setattr(csvio, "_LARGE_BODY_CHARS", 0)
+        from_file = read_table(tmp_path / "plain.csv", ("bias_v", "current_a"), ("temp_c",))
     for name in slow.columns:
         np.testing.assert_array_equal(plain.columns[name], slow.columns[name])
+        np.testing.assert_array_equal(from_file.columns[name], slow.columns[name])
     np.testing.assert_array_equal(plain.lines, slow.lines)
+    np.testing.assert_array_equal(from_file.lines, slow.lines)
     assert plain.header_line == slow.header_line and plain.notes == slow.notes and plain.names == slow.names
+    assert from_file.notes == slow.notes
 
 
 @pytest.mark.parametrize("cell, fragment", [("abc", "not a number: 'abc'"), ("nan", "not a finite number"),
