@@ -12,6 +12,7 @@ from compensator.cli._common import (
     EXIT_NOTHING_ANALYSED,
     EXIT_OK,
     add_json_flag,
+    caution,
     format_table,
     print_json,
     temperature_c,
@@ -424,7 +425,7 @@ def run_tempco(args) -> int:
                 path, base, f, data_file=args.file, force=args.force, name=name, capacitance_f=cap_at_ref,
                 capacitance_tempco_ppm_per_k=cg.capacitance_tempco_ppm_per_k if cg is not None else None,
                 definition=result.definition)))
-        print(CAUTION, file=sys.stderr)
+        caution(CAUTION)  # printed when the command ends
     if plot_path is not None:
         from compensator.calibration.plots import plot_tempco
         plot_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, fit, plot_path, title=Path(args.file).name)
