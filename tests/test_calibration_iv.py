@@ -311,12 +311,14 @@ def test_joint_fit_statistical_error_matches_the_scatter_of_repeated_curves():
 
 
 def test_joint_fit_window_cut_by_the_end_of_the_sweep():
-    # A sweep that ends 1.2 V above breakdown (the window wants 2 V): the padded points carry no
-    # weight and the noise-free model still comes back exactly (iv_current_a, the generating model).
+    # A sweep that ends 1.2 V above the first curve's breakdown (the window wants 2 V) while the
+    # second curve's window fits: the first is padded to the second's width, the padded points
+    # carry no weight, and both noise-free curves come back exactly (iv_current_a, the model).
     grid = np.round(np.arange(20.0, 25.7001, 0.05), 4)
     leak = leakage_at_crossing_a(0.1, exponent=2.0, leakage_slope_per_v=0.5)
-    current = iv_current_a(grid, 24.5, exponent=2.0, leakage_a=leak, leakage_slope_per_v=0.5)
+    truth = np.array([24.5, 23.4])
+    current = iv_current_a(grid[None, :], truth[:, None], exponent=2.0, leakage_a=leak, leakage_slope_per_v=0.5)
     r = find_breakdown(grid, current)
     assert r.joint_fit.all()
-    assert r.breakdown_v[0] == pytest.approx(24.5, abs=1e-5)
-    assert r.fit_hi_v[0] == pytest.approx(25.7, abs=1e-9)
+    np.testing.assert_allclose(r.breakdown_v, truth, atol=1e-5)
+    assert r.fit_hi_v[0] == pytest.approx(25.7, abs=1e-9) and r.fit_hi_v[1] == pytest.approx(25.4, abs=0.026)
