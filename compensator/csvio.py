@@ -442,8 +442,9 @@ def _resolve_columns(path, head, notes, delimiter, required, optional, prefixes,
 
 #: Plain bodies longer than this (characters) are parsed from the file rather than from a copy in memory.
 _LARGE_BODY_CHARS = 64_000_000
-#: A blank (or whitespace-only) line inside a body of data.
-_BLANK_LINE = re.compile(r"(?:^|\n)[ \t]*(?:\n|$)")
+#: A blank (or whitespace-only) line inside a body of data, searched from the newline before
+#: the body (a literal first character keeps the search at C speed).
+_BLANK_LINE = re.compile(r"\n[ \t]*(?:\n|$)")
 
 
 def _read_plain(path, text, note, required, optional, prefixes, columns, text_names):
@@ -482,7 +483,7 @@ def _read_plain(path, text, note, required, optional, prefixes, columns, text_na
     begin, end = first[2], len(text)
     while end > begin and text[end - 1] in " \t\n":  # trailing blank lines (no copy of the body)
         end -= 1
-    if end <= begin or text.find("#", begin, end) >= 0 or _BLANK_LINE.search(text, begin, end):
+    if end <= begin or text.find("#", begin, end) >= 0 or _BLANK_LINE.search(text, begin - 1, end):
         return None
     rows = text.count("\n", begin, end) + 1
     comma = delimiter != "," and text.find(",", begin, end) >= 0
