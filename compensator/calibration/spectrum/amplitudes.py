@@ -120,7 +120,23 @@ class AmplitudeModel:
         raise NotImplementedError
 
     def bounds(self, start: dict, n_peaks: int, normalisation) -> Bounds:
-        """Start values and bounds; ``normalisation(params)`` is the model's sum inside the histogram."""
+        """Start values and bounds of the model's own parameters.
+
+        Parameters
+        ----------
+        start : dict
+            Start values of the search (``gain``, ``mean_pe``, ``crosstalk``,
+            ``total`` events ...).
+        n_peaks : int
+            Peaks the model carries.
+        normalisation : callable
+            ``normalisation(params)``: the model's expected events inside the
+            histogram for the given own parameters with ``n_total = 1``.
+
+        Returns
+        -------
+        Bounds
+        """
         raise NotImplementedError
 
     def restart(self, params) -> dict:
@@ -128,7 +144,21 @@ class AmplitudeModel:
         return {}
 
     def moments(self, params, errors, amplitude, covariance) -> Moments:
-        """Mean photoelectrons and branching ratio of a solution (``covariance`` of the model's parameters)."""
+        """Mean photoelectrons and branching ratio of a solution.
+
+        Parameters
+        ----------
+        params, errors : ndarray
+            The model's own parameters and their one-sigma errors.
+        amplitude : ndarray
+            The peak amplitudes of the solution.
+        covariance : ndarray
+            Covariance of the model's own parameters.
+
+        Returns
+        -------
+        Moments
+        """
         raise NotImplementedError
 
     def parameter_names(self, n_peaks: int) -> tuple:
