@@ -65,7 +65,7 @@ class Characterisation:
         Number of curves.
     temp_c, breakdown_v, breakdown_err_v, true_breakdown_v : ndarray
         Per curve: temperature, breakdown found (volt), its 1-sigma
-        statistical error (volt), and the truth (volt).
+        error, statistical and systematic (volt), and the truth (volt).
     ref_temp_c : float
         Reference temperature of the fit, degree Celsius.
     breakdown_v_at_ref, breakdown_err_v_at_ref, true_breakdown_v_at_ref : float
@@ -368,7 +368,9 @@ def characterise_breakdown(sipm_profile, *, seed: int, temps_c=(-20.0, -10.0, 0.
     bias_v = np.arange(true_v.min() - 1.5, true_v.max() + 3.0, 0.01)
     current_a = simulate_iv(rng, bias_v, true_v, geiger_scale_v=0.8, relative_noise=relative_noise)
     found = find_breakdown(bias_v, current_a)
-    fit = fit_tempco(temps_c, found.breakdown_v, found.breakdown_err_v, ref_temp_c=truth.ref_temp_c)
+    # the method's systematic part is common to the curves: it does not average down
+    fit = fit_tempco(temps_c, found.breakdown_v, found.breakdown_stat_err_v, ref_temp_c=truth.ref_temp_c,
+                     common_err_v=found.breakdown_sys_err_v)
     return Characterisation(
         sipm=sipm_profile.name, curve_count=int(temps_c.size), temp_c=temps_c, breakdown_v=found.breakdown_v,
         breakdown_err_v=found.breakdown_err_v, true_breakdown_v=true_v, ref_temp_c=truth.ref_temp_c,

@@ -58,7 +58,6 @@ PENDING_PARAMETERS: set[str] = {
 }
 #: Entry points without a runnable example yet.
 PENDING_EXAMPLES: set[str] = {
-    "compensator.calibration.spectrum.fit_spectrum",
     "compensator.firmware.tables.build_table",
     "compensator.firmware.pid.quantise_pid",
     "compensator.loops.verify.verify_loop",

@@ -93,3 +93,15 @@ def test_gain_scan_errors():
         fit_gain_scan([25.0, 26.0, 27.0], [3e6, 2e6, 1e6])
     with pytest.raises(ModelError, match="positive"):
         fit_polynomial([1.0, 2.0, 3.0], [1.0, 2.0, 3.0], 1, [0.1, 0.0, 0.1])
+
+
+def test_errors_spanning_twenty_decades_are_refused_not_a_crash():
+    # gain errors of 1e-10 next to 1e10 made the weighted normal equations singular (a traceback)
+    from compensator.calibration.gainscan import MAX_ERROR_RATIO
+
+    bias = np.array([26.0, 27.0, 28.0, 29.0])
+    with pytest.raises(ModelError) as exc:
+        fit_gain_scan(bias, 1e6 * (bias - 25.0), [1e-10, 1e10, 1e4, 1e4])
+    assert exc.value.key == "gain_err" and "1e-10" in exc.value.reason and MAX_ERROR_RATIO == 1e6
+    ok = fit_gain_scan(bias, 1e6 * (bias - 25.0), [1e3, 1e4, 1e4, 1e4])
+    assert ok.breakdown_v == pytest.approx(25.0, abs=1e-9)

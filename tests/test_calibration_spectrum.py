@@ -12,6 +12,9 @@ Truth recovery uses seeded synthetic spectra from :func:`simulate_spectrum`.
 
 from __future__ import annotations
 
+import sys
+from pathlib import Path
+
 import numpy as np
 import pytest
 from scipy import stats
@@ -22,7 +25,6 @@ from compensator.calibration.spectrum import (
     borel_pmf,
     fit_spectrum,
     generalized_poisson_pmf,
-    naive_gain,
     simulate_events,
     simulate_spectrum,
     spectrum_start_values,
@@ -120,6 +122,10 @@ def test_start_values_are_close_to_truth(over, bin_width):
 
 
 def test_naive_gain_on_a_clean_spectrum_and_its_failure_mode():
+    sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tools" / "bench"))
+    from spectrum_baseline import naive_gain  # the benchmark's baseline
+
+    sys.path.pop(0)
     _, x, c = _spectrum(4, n_events=50000, sigma0=0.05, sigma1=0.02)
     assert naive_gain(x, c) == pytest.approx(1.0, abs=0.06)
     _, x, c = _spectrum(4, mean_pe=0.01, crosstalk=0.0)
@@ -320,7 +326,7 @@ def test_banded_model_matches_dense_bin_integrals_and_its_jacobian(method):
     # every bin edge (no band), and central differences for the Jacobian.
     from scipy import special
 
-    from compensator.calibration.spectrum import _Model
+    from compensator.calibration.spectrum.model import _Model
 
     edges = np.linspace(-3.0, 40.0, 700)
     K = 20
@@ -435,3 +441,24 @@ def test_empty_bins_left_out_of_an_export_are_put_back():
     assert sparse_export.charge.size == x.size
     assert sparse_export.gain == pytest.approx(full.gain, rel=1e-9)
     assert sparse_export.chi2 == pytest.approx(full.chi2, rel=1e-9)
+
+
+def test_crosstalk_probability_from_the_branching_ratio():
+    # p = 1 - exp(-lambda) (Vinogradov, NIM A 695, 247, 2012): at lambda = 0.3 the probability is
+    # 0.2592 (computed by hand: 1 - 0.740818), 14 % below lambda; the profile's model inverts it.
+    from compensator.physics.counting import crosstalk_probability_from_branching_ratio
+    from compensator.physics.sipm import crosstalk_branching_ratio
+
+    p, err = crosstalk_probability_from_branching_ratio(np.array([0.0, 0.3]), np.array([0.0, 0.01]))
+    assert p == pytest.approx([0.0, 0.2591818], abs=1e-7)
+    assert err == pytest.approx([0.0, 0.00740818], abs=1e-8)
+    assert crosstalk_branching_ratio(p[1]) == pytest.approx(0.3, rel=1e-12)
+    with pytest.raises(ModelError):
+        crosstalk_probability_from_branching_ratio(1.0)
+    rng = np.random.default_rng(4)
+    x, c = simulate_spectrum(rng, gain=1.0, pedestal=0.0, sigma0=0.08, sigma1=0.03, mean_pe=1.5,
+                             crosstalk=0.3, n_events=40000, bin_width=0.02)
+    fit = fit_spectrum(x, c)
+    assert fit.crosstalk == fit.crosstalk_branching_ratio and fit.crosstalk_err == fit.crosstalk_branching_ratio_err
+    assert fit.crosstalk_probability == pytest.approx(-np.expm1(-fit.crosstalk_branching_ratio), rel=1e-12)
+    assert fit.crosstalk_probability == pytest.approx(0.2592, abs=4 * fit.crosstalk_probability_err)

@@ -41,7 +41,7 @@ def test_tempco_recovered_within_one_percent(tempco):
     assert np.percentile(np.abs(rel), 90) < 0.02
 
 
-def test_tempco_from_iv_curves_end_to_end_within_one_percent():
+def test_tempco_from_iv_curves_end_to_end_within_its_error():
     # I-V curves (with a triggering-probability factor) at -20 ... +40 C -> breakdown -> tempco.
     rng = np.random.default_rng(21)
     grid = np.round(np.arange(18.0, 32.0001, 0.05), 4)
@@ -50,8 +50,11 @@ def test_tempco_from_iv_curves_end_to_end_within_one_percent():
     currents = simulate_iv(rng, grid, truth, geiger_scale_v=1.5, relative_noise=0.005)
     r = find_breakdown(grid, currents)
     assert r.ok.all()
-    fit = fit_tempco(temps, r.breakdown_v, r.breakdown_err_v)
-    assert fit.tempco_mv_per_k == pytest.approx(21.5, rel=0.01)
+    # The joint fit's systematic part is common to the curves (fit_tempco's common_err_v).
+    fit = fit_tempco(temps, r.breakdown_v, r.breakdown_stat_err_v, common_err_v=r.breakdown_sys_err_v)
+    assert fit.tempco_mv_per_k == pytest.approx(21.5, abs=3 * fit.tempco_err_mv_per_k)
+    assert fit.tempco_err_mv_per_k < 0.02  # 0.1 % of the tempco
+    assert fit.breakdown_v_at_ref == pytest.approx(24.5, abs=3 * fit.breakdown_err_v)
     assert fit.model == "linear"
 
 
@@ -142,3 +145,62 @@ def test_too_few_temperatures():
         fit_tempco([25.0, 25.0, 25.0], [24.5, 24.51, 24.49])
     fit = fit_tempco([0.0, 25.0, 40.0], [24.0, 24.5, 24.8])
     assert np.isnan(fit.quadratic_p_value) and fit.model == "linear"
+
+
+def test_common_systematic_error_enters_the_reference_breakdown_only():
+    # A systematic error common to every point (covariance diag(sigma^2) + c^2 1 1^T) computed
+    # here by generalised least squares with the full covariance matrix (independent of the
+    # code): by the Woodbury identity it adds c^2 to the intercept's variance and nothing to the
+    # slope's, whatever the temperatures.
+    temps = np.array([-20.0, -10.0, 0.0, 10.0, 20.0, 30.0, 40.0])
+    rng = np.random.default_rng(5)
+    sigma = rng.uniform(0.0005, 0.002, temps.size)
+    volts = 24.5 + 0.0215 * (temps - 25.0) + sigma * rng.standard_normal(temps.size)
+    common = 0.003
+    x = np.column_stack([np.ones_like(temps), temps - 25.0])
+    cov = np.diag(sigma ** 2) + common ** 2 * np.ones((temps.size, temps.size))
+    gls = np.linalg.inv(x.T @ np.linalg.solve(cov, x))
+    fit = fit_tempco(temps, volts, sigma, common_err_v=np.full(temps.size, common))
+    scale = max(fit.chi2 / fit.ndf, 1.0)  # the fit scales its statistical errors by sqrt(chi2/ndf) when above 1
+    plain = fit_tempco(temps, volts, sigma)
+    assert fit.breakdown_err_v == pytest.approx(np.sqrt((gls[0, 0] - common ** 2) * scale + common ** 2), rel=1e-9)
+    assert fit.tempco_err_mv_per_k == pytest.approx(1e3 * np.sqrt(gls[1, 1] * scale), rel=1e-9)
+    assert fit.breakdown_v_at_ref == plain.breakdown_v_at_ref and fit.breakdown_sys_err_v == pytest.approx(common)
+    with pytest.raises(ModelError):
+        fit_tempco(temps, volts, sigma, common_err_v=-1.0)
+
+
+def test_definition_offset_is_the_weighted_mean_of_matched_differences():
+    # Weighted mean and its error computed here by hand (independent of the code): the gain
+    # intercepts at 0, 20 and 40 C are matched to the I-V breakdowns within 0.5 K (the I-V point
+    # at 10 C has no partner); offsets 118, 121 and 124 mV with errors 2, 2 and 4 mV in quadrature
+    # with the I-V errors of 1 mV.
+    from compensator.calibration.definitions import definition_offset
+
+    iv_t, iv_v, iv_e = [0.0, 10.0, 20.0, 40.2], [24.1, 24.3, 24.5, 24.9], [0.001] * 4
+    gi_t, gi_v, gi_e = [0.1, 20.0, 40.0], [23.982, 24.379, 24.776], [0.002, 0.002, 0.004]
+    r = definition_offset(iv_t, iv_v, iv_e, gi_t, gi_v, gi_e, from_definition="iv_inverse_log_derivative",
+                          to_definition="gain_intercept")
+    d = np.array([-0.118, -0.121, -0.124])
+    w = 1.0 / (np.array(gi_e) ** 2 + 0.001 ** 2)
+    mean = np.sum(w * d) / np.sum(w)
+    chi2 = np.sum(w * (d - mean) ** 2)
+    assert r.offset_v == pytest.approx(mean, abs=1e-12) and r.matched_points == 3 and r.ndf == 2
+    assert r.chi2 == pytest.approx(chi2, rel=1e-9)
+    assert r.chi2_p_value == pytest.approx(stats.chi2.sf(chi2, 2), rel=1e-9)
+    assert r.offset_err_v == pytest.approx(np.sqrt(1 / np.sum(w)) * max(1.0, np.sqrt(chi2 / 2)), rel=1e-9)
+    assert r.findings == ()
+    # Differences that scatter far beyond their errors: a finding, and the error scaled up.
+    wild = definition_offset(iv_t, iv_v, iv_e, gi_t, [23.9, 24.4, 24.7], gi_e)
+    assert [f.code for f in wild.findings] == ["definition_offset_scatter"] and wild.offset_err_v > 0.02
+    with pytest.raises(ModelError, match="no temperature"):
+        definition_offset(iv_t, iv_v, iv_e, [60.0], [25.0], [0.002])
+    with pytest.raises(ModelError, match="same definition|both breakdown sets"):
+        definition_offset(iv_t, iv_v, iv_e, gi_t, gi_v, gi_e, from_definition="gain_intercept",
+                          to_definition="gain_intercept")
+    # fit_tempco moves the breakdown by the offset and adds its error to the common part.
+    plain = fit_tempco(np.array(iv_t), np.array(iv_v), np.array(iv_e))
+    moved = fit_tempco(np.array(iv_t), np.array(iv_v), np.array(iv_e), offset_v=r.offset_v, offset_err_v=r.offset_err_v)
+    assert moved.breakdown_v_at_ref == pytest.approx(plain.breakdown_v_at_ref + r.offset_v, abs=1e-12)
+    assert moved.breakdown_err_v == pytest.approx(np.hypot(plain.breakdown_err_v, r.offset_err_v), rel=1e-12)
+    assert moved.tempco_mv_per_k == plain.tempco_mv_per_k

@@ -11,15 +11,17 @@ with a reason; the rest of the batch goes on.
 from __future__ import annotations
 
 import os
+import re
 import sys
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
-from compensator.calibration.iv import DEFAULT_METHOD, find_breakdown
+from compensator.calibration.iv import DEFAULT_METHOD, DEFINITIONS, find_breakdown
 from compensator.calibration.measurements import read_iv, read_spectrum
-from compensator.errors import CompensatorError
+from compensator.errors import CompensatorError, InputError, Problem
 
 
 class Progress:
@@ -87,6 +89,16 @@ class IvRecord:
     fit_lo_v: float = float("nan")
     fit_hi_v: float = float("nan")
     n_points: int = 0
+    breakdown_stat_err_v: float = float("nan")
+    breakdown_sys_err_v: float = float("nan")
+    leakage_current_a: float = float("nan")
+    leakage_slope_per_v: float = float("nan")
+    leakage_fraction: float = float("nan")
+    leakage_limited: bool = False
+    joint_fit: bool = False
+    decimation: int = 1
+    channel: str | None = None
+    notes: tuple = ()
     reason: str = ""
     error_line: str = ""
     bias_v: np.ndarray = field(default=None, repr=False)
@@ -105,16 +117,51 @@ class IvRecord:
             "breakdown_err_v": self.breakdown_err_v, "method": self.method, "ok": self.ok,
             "reason": self.reason or None, "exponent": self.exponent, "window_points": self.window_points,
             "fit_lo_v": self.fit_lo_v, "fit_hi_v": self.fit_hi_v, "n_points": self.n_points,
+            "definition": DEFINITIONS[self.method], "channel": self.channel,
+            "breakdown_stat_err_v": self.breakdown_stat_err_v, "breakdown_sys_err_v": self.breakdown_sys_err_v,
+            "leakage_current_a": self.leakage_current_a, "leakage_slope_per_v": self.leakage_slope_per_v,
+            "leakage_fraction": self.leakage_fraction, "leakage_limited": bool(self.leakage_limited),
+            "joint_fit": bool(self.joint_fit), "decimation": self.decimation, "notes": list(self.notes),
         }
 
 
-def _iv_chunk(paths, method, temp_c, keep_arrays):
+def channel_from_name(path, pattern) -> str | None:
+    """The channel named by a file: the first group of ``pattern`` (or its whole match) searched in the file name.
+
+    Parameters
+    ----------
+    path : str
+        File as given.
+    pattern : str or None
+        Regular expression; None gives None.
+
+    Returns
+    -------
+    str or None
+        The channel, or None when the pattern does not match.
+    """
+    if pattern is None:
+        return None
+    match = re.search(pattern, Path(path).name)
+    if match is None:
+        return None
+    return match.group(1) if match.groups() else match.group(0)
+
+
+def _iv_chunk(paths, method, temp_c, keep_arrays, channel_pattern=None, columns=None):
     """Read and analyse a list of I-V files (runs in a worker process or in-line)."""
     records = [None] * len(paths)
+    channels = [None] * len(paths)
     curves = {}
     for i, path in enumerate(paths):
         try:
-            data = read_iv(path, temp_c)
+            data = read_iv(path, temp_c, columns=columns)
+            channels[i] = data.channel
+            if channel_pattern is not None:
+                channels[i] = channel_from_name(path, channel_pattern)
+                if channels[i] is None:
+                    raise InputError(Problem(path, 0, "", f"the file name does not match --channel-from-name "
+                                                         f"{channel_pattern!r}"))
         except CompensatorError as exc:
             msg = str(exc).splitlines()[0]
             records[i] = IvRecord(path, None, method, reason=msg, error_line=msg)
@@ -131,10 +178,18 @@ def _iv_chunk(paths, method, temp_c, keep_arrays):
             records[i] = IvRecord(
                 d.file, d.temp_c, method, float(result.breakdown_v[row]), float(result.breakdown_err_v[row]),
                 float(result.exponent[row]), int(result.window_points[row]), float(result.fit_lo_v[row]),
-                float(result.fit_hi_v[row]), int(bias.size), reason, f"{d.file}: {reason}" if reason else "",
-                d.bias_v if keep_arrays else None, d.current_a if keep_arrays else None,
-                result.bias_v[row] if keep_arrays else None,
-                result.log_derivative_per_v[row] if keep_arrays else None)
+                float(result.fit_hi_v[row]), int(bias.size),
+                breakdown_stat_err_v=float(result.breakdown_stat_err_v[row]),
+                breakdown_sys_err_v=float(result.breakdown_sys_err_v[row]),
+                leakage_current_a=float(result.leakage_current_a[row]),
+                leakage_slope_per_v=float(result.leakage_slope_per_v[row]),
+                leakage_fraction=float(result.leakage_fraction[row]),
+                leakage_limited=bool(result.leakage_limited[row]), joint_fit=bool(result.joint_fit[row]),
+                decimation=result.decimation,
+                channel=channels[i], notes=d.notes, reason=reason, error_line=f"{d.file}: {reason}" if reason else "",
+                bias_v=d.bias_v if keep_arrays else None, current_a=d.current_a if keep_arrays else None,
+                grid_v=result.bias_v[row] if keep_arrays else None,
+                log_derivative_per_v=result.log_derivative_per_v[row] if keep_arrays else None)
     return records
 
 
@@ -152,7 +207,8 @@ def default_jobs() -> int:
         return os.cpu_count() or 1
 
 
-def analyse_iv_files(paths, *, method=DEFAULT_METHOD, temp_c=None, jobs=1, keep_arrays=False, progress=None):
+def analyse_iv_files(paths, *, method=DEFAULT_METHOD, temp_c=None, jobs=1, keep_arrays=False, progress=None,
+                     channel_pattern=None, columns=None):
     """Breakdown voltage of every I-V file.
 
     Parameters
@@ -169,6 +225,11 @@ def analyse_iv_files(paths, *, method=DEFAULT_METHOD, temp_c=None, jobs=1, keep_
         Keep the data and derivative arrays on the records (for plots).
     progress : Progress, optional
         Advanced as files complete.
+    channel_pattern : str, optional
+        Regular expression whose first group, searched in each file name, is
+        the file's channel (instead of a ``channel`` column).
+    columns : dict, optional
+        The user's column map (see :func:`compensator.csvio.parse_columns_option`).
 
     Returns
     -------
@@ -178,17 +239,18 @@ def analyse_iv_files(paths, *, method=DEFAULT_METHOD, temp_c=None, jobs=1, keep_
     paths = [str(p) for p in paths]
     if not paths:
         return []
+    jobs = max(1, min(int(jobs), len(paths), default_jobs()))
     n_chunks = 1 if jobs <= 1 else jobs * 4
     chunks = _chunks(paths, n_chunks if jobs > 1 else max(1, len(paths) // 500 + 1))
     records = []
     if jobs <= 1:
         for chunk in chunks:
-            records.extend(_iv_chunk(chunk, method, temp_c, keep_arrays))
+            records.extend(_iv_chunk(chunk, method, temp_c, keep_arrays, channel_pattern, columns))
             if progress:
                 progress.update(len(chunk))
         return records
     with ProcessPoolExecutor(max_workers=jobs) as pool:
-        futures = [pool.submit(_iv_chunk, chunk, method, temp_c, keep_arrays) for chunk in chunks]
+        futures = [pool.submit(_iv_chunk, chunk, method, temp_c, keep_arrays, channel_pattern, columns) for chunk in chunks]
         for chunk, future in zip(chunks, futures):
             records.extend(future.result())
             if progress:
@@ -218,7 +280,9 @@ class SpectrumRecord:
                  "sigma0_in_charge_unit": "sigma0", "sigma0_err_in_charge_unit": "sigma0_err",
                  "sigma1_in_charge_unit": "sigma1", "sigma1_err_in_charge_unit": "sigma1_err",
                  "mean_pe": "mean_pe", "mean_pe_err": "mean_pe_err",
-                 "crosstalk_branching_ratio": "crosstalk", "crosstalk_branching_ratio_err": "crosstalk_err",
+                 "crosstalk_branching_ratio": "crosstalk_branching_ratio",
+                 "crosstalk_branching_ratio_err": "crosstalk_branching_ratio_err",
+                 "crosstalk_fraction": "crosstalk_probability", "crosstalk_fraction_err": "crosstalk_probability_err",
                  "chi2": "chi2", "ndf": "ndf", "n_peaks": "n_peaks", "method": "method"}
         for key, attribute in names.items():  # output names of compensator.vocabulary
             out[key] = getattr(self.fit, attribute) if self.fit is not None else None
@@ -262,6 +326,7 @@ def analyse_spectrum_files(paths, *, amplitudes="gpoisson", fit_range=None, jobs
     """
     paths = [str(p) for p in paths]
     records = []
+    jobs = max(1, min(int(jobs), len(paths), default_jobs()))
     if jobs <= 1 or len(paths) < 2:
         for p in paths:
             records.append(_spectrum_one(p, amplitudes, fit_range))

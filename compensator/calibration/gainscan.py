@@ -16,6 +16,9 @@ import numpy as np
 from compensator.constants import ELEMENTARY_CHARGE_C
 from compensator.errors import CompensatorError, ModelError
 
+#: Largest ratio between the biggest and the smallest error of one weighted fit.
+MAX_ERROR_RATIO = 1e6
+
 
 @dataclass(frozen=True)
 class PolyFit:
@@ -101,12 +104,18 @@ def fit_polynomial(x, y, degree, y_err=None, *, x0=0.0, inflate=True) -> PolyFit
     if y_err is not None:
         y_err = np.asarray(y_err, dtype=float)
         if not np.all(np.isfinite(y_err)) or np.any(y_err <= 0):
-            raise ModelError("y_err must be finite and positive")
+            raise ModelError("y_err must be finite and positive", key="y_err")
+        if y_err.max() > MAX_ERROR_RATIO * y_err.min():
+            raise ModelError(f"the errors span from {y_err.min():.3g} to {y_err.max():.3g} (more than a factor "
+                             f"{MAX_ERROR_RATIO:.0e}): one point would outweigh all others; check the error column",
+                             key="y_err")
         w = 1.0 / y_err ** 2
     else:
         w = np.ones(n)
     basis = np.stack([(x - x0) ** i for i in range(degree + 1)], axis=1)
     a = basis.T @ (w[:, None] * basis)
+    if not np.all(np.isfinite(a)) or np.linalg.cond(a) > 1e14:
+        raise ModelError("the fit is singular (the x values or weights do not determine the coefficients)")
     cov = np.linalg.inv(a)
     coef = cov @ (basis.T @ (w * y))
     chi2 = float(np.sum(w * (y - basis @ coef) ** 2))
@@ -192,10 +201,15 @@ def fit_gain_scan(bias_v, gain, gain_err=None, *, temp_c=None, charge_per_unit_c
     if bias_v.size < 3:
         raise ModelError(f"a gain scan needs at least 3 bias points, got {bias_v.size}")
     centre = float(np.mean(bias_v))
-    line = fit_polynomial(bias_v, gain, 1, gain_err, x0=centre)
+    try:
+        line = fit_polynomial(bias_v, gain, 1, gain_err, x0=centre)
+    except ModelError as exc:
+        raise ModelError(exc.reason, key="gain_err" if exc.key == "y_err" else exc.key) from None
     a0, a1 = line.coef
     if not a1 > 0:
-        raise ModelError(f"gain does not rise with bias (slope {a1:.4g} per volt); not a gain scan above breakdown")
+        slope_err = float(np.sqrt(line.cov[1, 1]))
+        raise ModelError(f"gain does not rise with bias (fitted slope {a1:.4g} +- {slope_err:.2g} per volt); not a "
+                         "gain scan above breakdown, or a gain error so small that one point sets the line")
     breakdown = centre - a0 / a1
     grad = np.array([-1.0 / a1, a0 / a1 ** 2])
     breakdown_err = float(np.sqrt(grad @ line.cov @ grad))

@@ -3,11 +3,13 @@
 Three published methods, selected with ``method``:
 
 ``"inverse-log-derivative"`` (default)
-    Above breakdown the current rises as a power law, I ~ (V - Vbd)^k, so the
-    inverse logarithmic derivative (d ln I / dV)^-1 = (V - Vbd) / k is a
-    straight line that crosses zero at Vbd. A weighted line fit just above the
-    knee gives Vbd and k (Chmill et al., NIM A 845, 56, 2017; Klanner, NIM A
-    926, 36, 2019).
+    Above breakdown the avalanche current rises as a power law, I ~ (V - Vbd)^k,
+    so the inverse logarithmic derivative (d ln I / dV)^-1 = (V - Vbd) / k is a
+    straight line that crosses zero at Vbd (Chmill et al., NIM A 845, 56, 2017;
+    Klanner, NIM A 926, 36, 2019). A triggering-probability factor bends it
+    near breakdown, so a weighted parabola (a line when the parabola is not
+    determined) is fitted just above the knee and its root nearest the window
+    is Vbd.
 ``"log-derivative-peak"``
     The bias at the maximum of d ln I / dV (Bonanno et al., IEEE Sensors J. 14,
     3567, 2014).
@@ -16,6 +18,35 @@ Three published methods, selected with ``method``:
     second-derivative method after Nagy et al., NIM A 849, 55, 2017; the exact
     form used there is quoted from memory).
 
+The definitions differ by tens to hundreds of millivolts on the same curve;
+:data:`DEFINITIONS` names each for profiles and JSON.
+
+Pre-breakdown (leakage) current
+-------------------------------
+Real curves carry a leakage current below breakdown that grows roughly
+exponentially with bias. Every method models it: ln I is fitted with a straight
+line over the pre-breakdown region (from the start of the sweep to
+:data:`LEAKAGE_GAP_V` plus a filter window below the knee), and the fitted
+exponential I_leak(V) = exp(a + b V) is extrapolated above breakdown.
+
+* inverse logarithmic derivative: the method is applied to the avalanche
+  current I - I_leak, computed from the smoothed curve,
+  d ln(I - I_leak)/dV = (I d ln I/dV - b I_leak) / (I - I_leak); on an
+  exponential leakage plus a power law this is exact. The fit window starts
+  where leakage is at most :data:`MAX_LEAKAGE_FRACTION` of the current.
+* the peak methods are defined on the total current, whose leakage level sets
+  the peak position (for I = I0 + A x^k the peak of d ln I/dV sits at
+  x = ((k - 1) I0 / A)^(1/k) above breakdown): the growth of the leakage with
+  bias is removed (I - I_leak(V) + I_leak(V_knee)) and its level at the knee
+  kept, so these definitions stay what their authors defined, and still
+  depend on the leakage level.
+
+The result says how much leakage was removed (``leakage_current_a`` at the
+breakdown voltage, ``leakage_fraction`` of the current at the start of the fit
+window) and whether the window was limited by it (``leakage_limited``).
+
+Smoothing and windows
+---------------------
 Differentiation is by Savitzky-Golay filters (``scipy.signal.savgol_filter``,
 cubic local polynomials). The window is chosen per curve from the data:
 
@@ -30,55 +61,97 @@ cubic local polynomials). The window is chosen per curve from the data:
    applied to the height of the d^2 ln I / dV^2 peak, with
    :data:`NOISE_FRACTION_SECOND`).
 
-Narrow windows keep the knee sharp on clean data; noisy data get wider ones.
+Curves of more than :data:`MAX_GRID_POINTS` points are first decimated: ln I
+and the bias are averaged over consecutive blocks of ``ceil(n /
+MAX_GRID_POINTS)`` points (the block mean keeps the information of the
+block at a tenth of the cost or less and makes the analysis linear in n).
 
-Uncertainties come from the covariance of the weighted fits (line for the
-inverse-log-derivative, local parabola around the peak for the peak methods),
-with the point errors propagated from the noise estimate, scaled up by
-sqrt(chi2/ndf) when the scatter is larger than expected, and by
-sqrt(window / 2) because neighbouring smoothed derivatives are correlated
-over the filter window (an approximation; the benchmark checks the pulls).
+Uncertainties
+-------------
+``breakdown_stat_err_v`` comes from the covariance of the weighted fit (root
+of the parabola or line for the inverse-log-derivative, local parabola around
+the peak for the peak methods), with the point errors propagated from the
+noise estimate, scaled up by sqrt(chi2/ndf) when the scatter is larger than
+expected; for the peak methods also by sqrt(window / 2) because neighbouring
+smoothed derivatives are correlated over the filter window (an approximation;
+the benchmark prints the fraction of curves whose error lies within one
+reported sigma). ``breakdown_sys_err_v`` is the method's systematic part: for the
+inverse logarithmic derivative, the part of the difference between the roots
+of a short and the full fit window that the statistics do not explain (for
+nested fits the variance of the difference is the difference of the
+variances), added in quadrature to the shift caused by a one-sigma change of
+the extrapolated leakage; for the peak methods, half a grid step.
+``breakdown_err_v`` is the quadrature sum of both.
 
 Curves that cannot be analysed get a reason (too few points, non-monotonic
-bias, non-positive currents, no breakdown in the range) and NaN results; the
-other curves of the batch are unaffected.
+bias, non-positive currents, no breakdown in the range, a non-finite fit) and
+NaN results; the other curves of the batch are unaffected.
 """
 
 from __future__ import annotations
 
-import functools
 from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
-from scipy.signal import savgol_coeffs, savgol_filter
+from scipy.signal import savgol_filter
 
+from compensator.calibration.ivjoint import fit_joint
+from compensator.calibration.ivpeaks import _fit_peak, _second_derivative
+from compensator.calibration.ivsignal import (
+    NOISE_FRACTION,
+    NOISE_FRACTION_SECOND,
+    POLYORDER,
+    _gains,
+    _odd,
+    _savgol_grouped,
+    _uniform,
+    _weighted_poly,
+    choose_window,
+    decimate,
+    estimate_log_noise,
+)
 from compensator.errors import ModelError
+
+__all__ = [
+    "DEFAULT_METHOD", "DEFINITIONS", "ILD_SPAN_V", "LEAKAGE_GAP_V", "MAX_GRID_POINTS", "MAX_LEAKAGE_FRACTION",
+    "METHODS", "MIN_CURRENT_RATIO", "MIN_LEAKAGE_POINTS", "MIN_POINTS", "NOISE_FRACTION", "NOISE_FRACTION_SECOND",
+    "POLYORDER", "IvBreakdown", "check_curve", "choose_window", "decimate", "estimate_log_noise", "find_breakdown",
+]
 
 #: Method names accepted by :func:`find_breakdown`.
 METHODS = ("inverse-log-derivative", "log-derivative-peak", "second-derivative")
 DEFAULT_METHOD = "inverse-log-derivative"
+#: The breakdown definition each method measures (the names used by profiles and JSON).
+DEFINITIONS = {
+    "inverse-log-derivative": "iv_inverse_log_derivative",
+    "log-derivative-peak": "iv_log_derivative_peak",
+    "second-derivative": "iv_second_derivative",
+}
 
 #: Fewest points a curve needs.
 MIN_POINTS = 15
-#: Allowed noise of the smoothed d ln I/dV, as a fraction of its peak height.
-NOISE_FRACTION = 0.1
-#: The same for d^2 ln I/dV^2: its peak is narrower, and wide windows drag it
-#: below breakdown, so more noise is accepted (both values were tuned on the
-#: seeded synthetic curves of ``tools/bench/bench_calibration.py``).
-NOISE_FRACTION_SECOND = 0.5
-#: Savitzky-Golay polynomial order.
-POLYORDER = 3
+#: Longer curves are decimated by block means to at most this many points.
+MAX_GRID_POINTS = 2048
 #: The current must rise at least this many times over the sweep to show a breakdown.
 MIN_CURRENT_RATIO = 20.0
-#: The inverse-log-derivative line is fitted from half a window above the
-#: peak of d ln I/dV (where the smoothing no longer flattens the knee) over
-#: ``ILD_SPAN_V`` volt, or at least two windows' worth of points. Starting
-#: close to the knee keeps the fit where 1/(d ln I/dV) is straight even when a
-#: triggering-probability factor bends it further up.
-ILD_SPAN_V = 0.6
+#: The inverse-log-derivative fit starts half a window above the peak of
+#: d ln I/dV (where the smoothing no longer flattens the knee) and spans
+#: ``ILD_SPAN_V`` volt, or at least two windows' worth of points.
+ILD_SPAN_V = 2.0
+#: The short window for the systematic part spans this fraction of the full one.
+ILD_SHORT_FRACTION = 0.5
+#: The pre-breakdown region ends this far (plus one filter window) below the knee.
+LEAKAGE_GAP_V = 0.3
+#: Fewest points of the pre-breakdown region for a leakage model; with fewer
+#: the leakage is not modelled and the result says so.
+MIN_LEAKAGE_POINTS = 8
+#: The inverse-log-derivative fit starts where the leakage is at most this
+#: fraction of the current.
+MAX_LEAKAGE_FRACTION = 0.8
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class IvBreakdown:
     """Breakdown voltages of a batch of I-V curves (every array has one entry per curve).
 
@@ -87,7 +160,9 @@ class IvBreakdown:
     breakdown_v : ndarray
         Breakdown voltage, volt (NaN where the curve failed).
     breakdown_err_v : ndarray
-        One-sigma statistical uncertainty, volt (NaN where the curve failed).
+        One-sigma uncertainty, statistical and systematic parts in quadrature, volt.
+    breakdown_stat_err_v, breakdown_sys_err_v : ndarray
+        The statistical and the method's systematic part, volt.
     method : str
         Method used (one of :data:`METHODS`).
     reason : tuple of str
@@ -95,24 +170,49 @@ class IvBreakdown:
     window_points : ndarray of int
         Savitzky-Golay window used for d ln I/dV (0 where the curve failed early).
     exponent : ndarray
-        Power-law exponent k from the inverse-log-derivative fit (NaN for other methods).
+        Power-law exponent k at the start of the inverse-log-derivative fit
+        (NaN for other methods).
     fit_lo_v, fit_hi_v : ndarray
-        Bias range of the fit (line or parabola), volt.
+        Bias range of the fit (parabola, line or peak parabola), volt.
+    leakage_current_a : ndarray
+        Modelled leakage current at the breakdown voltage, ampere (NaN when not modelled).
+    leakage_slope_per_v : ndarray
+        Logarithmic slope b of the modelled leakage, 1/volt (NaN when not modelled).
+    leakage_fraction : ndarray
+        Fraction of the current at the start of the fit window that was leakage and was removed.
+    leakage_limited : ndarray of bool
+        The fit window was moved up because leakage dominated the current below it.
+    leakage_points : ndarray of int
+        Points of the pre-breakdown region the leakage was fitted on (0: not modelled).
+    joint_fit : ndarray of bool
+        The breakdown (and the exponent, leakage and fit range) come from the
+        joint fit of leakage and avalanche current (default method only).
+    decimation : int
+        Points averaged into one (1: the curves were analysed as given).
     bias_v : ndarray, shape (n_curves, n_points)
         Uniform bias grid each curve was analysed on, volt (for plots).
     log_derivative_per_v : ndarray, shape (n_curves, n_points)
-        Smoothed d ln I / dV, 1/volt (NaN within half a window of the ends, and
-        NaN rows where the curve failed early).
+        Smoothed d ln I / dV of the total current, 1/volt (NaN within half a
+        window of the ends, and NaN rows where the curve failed early).
     """
 
     breakdown_v: np.ndarray
     breakdown_err_v: np.ndarray
+    breakdown_stat_err_v: np.ndarray
+    breakdown_sys_err_v: np.ndarray
     method: str
     reason: tuple
     window_points: np.ndarray
     exponent: np.ndarray
     fit_lo_v: np.ndarray
     fit_hi_v: np.ndarray
+    leakage_current_a: np.ndarray
+    leakage_slope_per_v: np.ndarray
+    leakage_fraction: np.ndarray
+    leakage_limited: np.ndarray
+    leakage_points: np.ndarray
+    joint_fit: np.ndarray
+    decimation: int = 1
     bias_v: np.ndarray = field(repr=False)
     log_derivative_per_v: np.ndarray = field(repr=False)
 
@@ -121,118 +221,27 @@ class IvBreakdown:
         """Boolean mask of the curves that were analysed."""
         return np.array([not r for r in self.reason], dtype=bool)
 
+    @property
+    def definition(self) -> str:
+        """The breakdown definition measured (see :data:`DEFINITIONS`)."""
+        return DEFINITIONS[self.method]
+
     def __len__(self) -> int:
         return len(self.reason)
 
 
-def _odd(n: int) -> int:
-    n = int(n)
-    return n if n % 2 else n - 1
+#: Per-curve result arrays, in the order :class:`IvBreakdown` lists them.
+_FLOAT_FIELDS = ("breakdown_v", "breakdown_err_v", "breakdown_stat_err_v", "breakdown_sys_err_v", "exponent",
+                 "fit_lo_v", "fit_hi_v", "leakage_current_a", "leakage_slope_per_v", "leakage_fraction")
+_INT_FIELDS = ("window_points", "leakage_points")
 
 
-@functools.lru_cache(maxsize=None)
-def _noise_gain(window: int, deriv: int) -> float:
-    """Factor from the noise of ln I (per point) to the noise of its SG derivative (per unit step)."""
-    return float(np.linalg.norm(savgol_coeffs(window, POLYORDER, deriv=deriv, use="dot")))
-
-
-def estimate_log_noise(ln_current):
-    """Noise (standard deviation) of ln I per point, from the MAD of second differences.
-
-    Parameters
-    ----------
-    ln_current : array_like, shape (..., n_points)
-        Natural logarithm of the current (dimensionless).
-
-    Returns
-    -------
-    ndarray, shape (...)
-        Estimated standard deviation of the white noise on ln I.
-    """
-    d2 = np.diff(np.asarray(ln_current, dtype=float), n=2, axis=-1)
-    mad = np.median(np.abs(d2 - np.median(d2, axis=-1, keepdims=True)), axis=-1)
-    return np.maximum(1.4826 * mad / np.sqrt(6.0), 1e-7)
-
-
-def choose_window(noise, peak_height, step_v, n_points, deriv=1, fraction=None):
-    """Narrowest odd Savitzky-Golay window whose derivative noise is a small fraction of the peak.
-
-    Parameters
-    ----------
-    noise : array_like
-        Noise of ln I per point (see :func:`estimate_log_noise`).
-    peak_height : array_like
-        Height of the derivative peak (1/volt for ``deriv=1``, 1/volt^2 for ``deriv=2``).
-    step_v : float
-        Grid step, volt.
-    n_points : int
-        Points per curve.
-    deriv : {1, 2}
-        Order of the derivative.
-    fraction : float, optional
-        Allowed noise as a fraction of the peak height (default
-        :data:`NOISE_FRACTION` for ``deriv=1``, :data:`NOISE_FRACTION_SECOND` for ``deriv=2``).
-
-    Returns
-    -------
-    ndarray of int
-        Window length (odd, between 5 and a quarter of the curve).
-    """
-    w_max = max(5, _odd(n_points // 4))
-    windows = np.arange(5, w_max + 1, 2)
-    gains = np.array([_noise_gain(int(w), deriv) for w in windows]) / step_v ** deriv
-    noise = np.atleast_1d(np.asarray(noise, dtype=float))
-    height = np.atleast_1d(np.abs(np.asarray(peak_height, dtype=float)))
-    if fraction is None:
-        fraction = NOISE_FRACTION if deriv == 1 else NOISE_FRACTION_SECOND
-    allowed = fraction * height
-    ok = gains[None, :] * noise[:, None] <= allowed[:, None]
-    first = np.where(ok.any(axis=1), ok.argmax(axis=1), len(windows) - 1)
-    return windows[first]
-
-
-def _gains(windows, deriv):
-    """Noise gain of each curve's window (computed once per distinct window)."""
-    table = {int(w): _noise_gain(int(w), deriv) for w in np.unique(windows)}
-    return np.array([table[int(w)] for w in windows]) if len(windows) else np.zeros(0)
-
-
-def _savgol_grouped(y, windows, step_v, deriv):
-    """Savitzky-Golay derivative of each row with its own window (grouped by window)."""
-    out = np.empty_like(y)
-    for w in np.unique(windows):
-        rows = windows == w
-        out[rows] = savgol_filter(y[rows], int(w), POLYORDER, deriv=deriv, delta=step_v, axis=-1, mode="nearest")
+def _empty_result(m):
+    out = {k: np.full(m, np.nan) for k in _FLOAT_FIELDS}
+    out.update({k: np.zeros(m, dtype=int) for k in _INT_FIELDS})
+    out["leakage_limited"] = np.zeros(m, dtype=bool)
+    out["joint_fit"] = np.zeros(m, dtype=bool)
     return out
-
-
-def _weighted_poly(x, y, weights, mask, degree):
-    """Weighted polynomial fit of every row over its masked points; returns coeffs (low->high), cov, chi2, n."""
-    wm = np.where(mask, weights, 0.0)
-    y = np.where(mask, y, 0.0)  # points outside the mask (possibly NaN) must not reach the sums
-    powers = np.stack([x ** d for d in range(degree + 1)], axis=-1)  # (m, n, p)
-    a = np.einsum("mn,mni,mnj->mij", wm, powers, powers)
-    b = np.einsum("mn,mni,mn->mi", wm, powers, y)
-    n_used = mask.sum(axis=1)
-    good = n_used > degree
-    a_safe = np.where(good[:, None, None], a, np.eye(degree + 1)[None])
-    cov = np.linalg.inv(a_safe)
-    coef = np.einsum("mij,mj->mi", cov, b)
-    model = np.einsum("mni,mi->mn", powers, coef)
-    chi2 = np.sum(wm * (y - model) ** 2, axis=1)
-    coef[~good] = np.nan
-    return coef, cov, chi2, n_used
-
-
-def _uniform(bias_v, ln_i):
-    """Return a uniform grid and ln I (rows) on it, interpolating when the steps vary by more than 1 %."""
-    steps = np.diff(bias_v)
-    if np.ptp(steps) <= 0.01 * abs(steps.mean()):
-        return bias_v, ln_i
-    grid = np.linspace(bias_v[0], bias_v[-1], bias_v.size)
-    if ln_i.ndim == 1:
-        return grid, np.interp(grid, bias_v, ln_i)
-    return grid, np.array([np.interp(grid, bias_v, row) for row in ln_i])
 
 
 def check_curve(bias_v, current_a) -> str:
@@ -269,7 +278,7 @@ def check_curve(bias_v, current_a) -> str:
     return ""
 
 
-def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdown:
+def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD, *, joint_fit: bool = True) -> IvBreakdown:
     """Breakdown voltage of one or many I-V curves.
 
     Parameters
@@ -282,6 +291,10 @@ def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdo
         Reverse current magnitude, ampere (positive).
     method : {"inverse-log-derivative", "log-derivative-peak", "second-derivative"}
         See the module docstring.
+    joint_fit : bool
+        For the default method, refine each breakdown by the joint fit of
+        leakage and avalanche current (:mod:`compensator.calibration.ivjoint`);
+        False keeps the derivative method's own result.
 
     Returns
     -------
@@ -293,28 +306,42 @@ def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdo
     ------
     ModelError
         Unknown ``method`` or arrays whose shapes do not match.
+
+    Examples
+    --------
+    A pure power law above a small leakage floor, breakdown at 24.5 V:
+
+    >>> import numpy as np
+    >>> bias_v = np.arange(20.0, 30.0, 0.05)
+    >>> x = np.clip(bias_v - 24.5, 0.0, None)
+    >>> current_a = 1e-11 * np.exp(0.1 * (bias_v - 24.5)) + 1e-6 * x ** 2
+    >>> round(float(find_breakdown(bias_v, current_a).breakdown_v[0]), 2)
+    24.5
     """
     if method not in METHODS:
-        raise ModelError(f"method must be one of {', '.join(METHODS)}; got {method!r}")
+        raise ModelError(f"method must be one of {', '.join(METHODS)}; got {method!r}", key="method")
     current_a = np.asarray(current_a, dtype=float)
     bias_v = np.asarray(bias_v, dtype=float)
     if current_a.ndim == 1:
         current_a = current_a[None, :]
     if current_a.ndim != 2:
-        raise ModelError("current_a must be 1-D or 2-D (curves x points)")
+        raise ModelError("current_a must be 1-D or 2-D (curves x points)", key="current_a")
     m, n = current_a.shape
     if bias_v.ndim == 1:
         if bias_v.size != n:
-            raise ModelError(f"bias_v has {bias_v.size} points but current_a has {n}")
+            raise ModelError(f"bias_v has {bias_v.size} points but current_a has {n}", key="bias_v")
         bias_rows = None
     elif bias_v.shape == current_a.shape:
         bias_rows = bias_v
     else:
-        raise ModelError(f"bias_v shape {bias_v.shape} does not match current_a shape {current_a.shape}")
+        raise ModelError(f"bias_v shape {bias_v.shape} does not match current_a shape {current_a.shape}",
+                         key="bias_v")
 
+    factor = max(1, -(-n // MAX_GRID_POINTS))
+    n_out = n // factor
     reasons = [""] * m
-    grid = np.full((m, n), np.nan)
-    ln_i = np.full((m, n), np.nan)
+    grid = np.full((m, n_out), np.nan)
+    ln_i = np.full((m, n_out), np.nan)
     if bias_rows is None:
         grid_reason = check_curve(bias_v, np.ones_like(bias_v))  # the shared grid alone
         if grid_reason:
@@ -328,6 +355,7 @@ def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdo
                 reasons[i] = check_curve(b, c[i])
             with np.errstate(divide="ignore", invalid="ignore"):
                 logs = np.log(np.where(bad[:, None], 1.0, c))
+            b, logs = decimate(b, logs, factor)
             g, logs_u = _uniform(b, logs)
             grid[:] = g
             ln_i[:] = logs_u
@@ -339,15 +367,14 @@ def find_breakdown(bias_v, current_a, method: str = DEFAULT_METHOD) -> IvBreakdo
             b, c = bias_rows[i], current_a[i]
             if b[-1] < b[0]:
                 b, c = b[::-1], c[::-1]
-            grid[i], ln_i[i] = _uniform(b, np.log(c))
-    return _analyse(grid, ln_i, reasons, method)
+            b, logs = decimate(b, np.log(c)[None, :], factor)
+            grid[i], ln_i[i] = _uniform(b, logs[0])
+    return _analyse(grid, ln_i, reasons, method, factor, joint_fit)
 
 
-def _analyse(grid, ln_i, reasons, method):
+def _analyse(grid, ln_i, reasons, method, factor=1, joint_fit=True):
     m, n = ln_i.shape
-    nan = np.full(m, np.nan)
-    result = dict(breakdown_v=nan.copy(), breakdown_err_v=nan.copy(), exponent=nan.copy(),
-                  fit_lo_v=nan.copy(), fit_hi_v=nan.copy(), window_points=np.zeros(m, dtype=int))
+    result = _empty_result(m)
     deriv_all = np.full((m, n), np.nan)
     live = np.array([not r for r in reasons], dtype=bool)
     reasons = list(reasons)
@@ -357,18 +384,30 @@ def _analyse(grid, ln_i, reasons, method):
         # Rows share one step size only if they share a grid; group by step.
         for s in np.unique(np.round(step, 12)):
             rows = idx[np.isclose(step, s, rtol=0, atol=1e-12)]
-            out = _analyse_uniform(grid[rows], ln_i[rows], float(s), method)
+            out = _analyse_uniform(grid[rows], ln_i[rows], float(s), method, joint_fit)
             for key in result:
                 result[key][rows] = out[key]
             deriv_all[rows] = out["deriv"]
             for r, why in zip(rows, out["reason"]):
                 reasons[r] = why
-    return IvBreakdown(method=method, reason=tuple(reasons), bias_v=grid, log_derivative_per_v=deriv_all, **result)
+    return IvBreakdown(method=method, reason=tuple(reasons), bias_v=grid, log_derivative_per_v=deriv_all,
+                       decimation=int(factor), **result)
 
 
-def _analyse_uniform(grid, ln_i, step_v, method):
+class _Knee(NamedTuple):
+    """Smoothed log derivative of every curve and where it peaks."""
+
+    noise: np.ndarray
+    windows: np.ndarray
+    deriv: np.ndarray
+    peak_index: np.ndarray
+    sigma_d: np.ndarray
+    interior: np.ndarray
+
+
+def _knee(ln_i, step_v) -> _Knee:
+    """Noise, window, smoothed d ln I/dV and its peak (the knee) of every curve."""
     m, n = ln_i.shape
-    reasons = [""] * m
     noise = estimate_log_noise(ln_i)
     w_max = max(5, _odd(n // 4))
     pilot = savgol_filter(ln_i, w_max, POLYORDER, deriv=1, delta=step_v, axis=-1, mode="nearest")
@@ -380,11 +419,82 @@ def _analyse_uniform(grid, ln_i, step_v, method):
     cols = np.arange(n)[None, :]
     interior = (cols >= half[:, None]) & (cols < n - half[:, None])
     deriv[~interior] = np.nan  # within half a window of the ends the filter has no full support
-    masked = np.where(interior, deriv, -np.inf)
-    p = np.argmax(masked, axis=1)
+    # The knee: the peak of the pilot derivative (robust against noise spikes where
+    # the current is small), refined with the chosen window within a pilot window of it.
+    cols_all = np.arange(n)
+    pilot_inside = (cols_all >= h_max) & (cols_all < n - h_max) if n > 2 * h_max else np.ones(n, dtype=bool)
+    p_pilot = np.argmax(np.where(pilot_inside[None, :], pilot, -np.inf), axis=1)
+    near = np.abs(cols - p_pilot[:, None]) <= h_max
+    p = np.argmax(np.where(interior & near, deriv, -np.inf), axis=1)
+    return _Knee(noise, windows, deriv, p, noise * _gains(windows, 1) / step_v, interior)
+
+
+class _Leakage(NamedTuple):
+    """Exponential pre-breakdown current ln I_leak = a + b (V - v0) of every curve (a NaN where not modelled)."""
+
+    a: np.ndarray
+    b: np.ndarray
+    v0: np.ndarray
+    cov: np.ndarray
+    points: np.ndarray
+
+    def ln_current(self, bias_v):
+        """ln I_leak at ``bias_v`` (rows), -inf where not modelled."""
+        ln = self.a[:, None] + self.b[:, None] * (bias_v - self.v0[:, None])
+        return np.where(np.isfinite(ln), ln, -np.inf)
+
+    def ln_rel_err(self, bias_v):
+        """One-sigma error of ln I_leak at ``bias_v`` (rows)."""
+        dx = bias_v - self.v0[:, None]
+        var = self.cov[:, 0, 0, None] + 2 * dx * self.cov[:, 0, 1, None] + dx * dx * self.cov[:, 1, 1, None]
+        return np.sqrt(np.maximum(var, 0.0))
+
+
+def _fit_leakage(grid, ln_i, knee: _Knee, step_v) -> _Leakage:
+    """Straight line through ln I over the pre-breakdown region of every curve."""
+    m, n = ln_i.shape
+    cols = np.arange(n)[None, :]
+    gap = np.ceil(LEAKAGE_GAP_V / step_v).astype(int) + knee.windows
+    end = knee.peak_index - gap
+    mask = cols < end[:, None]
+    x0 = grid[np.arange(m), np.clip(end, 0, n - 1)]
+    x = grid - x0[:, None]
+    fit = _weighted_poly(x, ln_i, np.ones_like(ln_i), mask, 1)
+    points = fit.n_used
+    dof = np.maximum(points - 2, 1)
+    s2 = fit.chi2 / dof
+    cov = fit.cov * s2[:, None, None]
+    usable = (points >= MIN_LEAKAGE_POINTS) & np.all(np.isfinite(fit.coef), axis=1)
+    a = np.where(usable, fit.coef[:, 0], np.nan)
+    b = np.where(usable, fit.coef[:, 1], np.nan)
+    return _Leakage(a, b, x0, cov, np.where(usable, points, 0))
+
+
+def _analyse_uniform(grid, ln_i, step_v, method, joint_fit):
+    m, n = ln_i.shape
+    reasons = [""] * m
+    knee = _knee(ln_i, step_v)
+    leak = _fit_leakage(grid, ln_i, knee, step_v)
+    out = _empty_result(m)
+    out["leakage_slope_per_v"][:] = leak.b
+    out["leakage_points"][:] = leak.points
+    if method != DEFAULT_METHOD:
+        # Peak methods: take out the growth of the leakage, keep its level at the knee.
+        rows = np.arange(m)
+        ln_leak = leak.ln_current(grid)
+        at_knee = ln_leak[rows, knee.peak_index]
+        modelled = np.isfinite(at_knee)
+        with np.errstate(over="ignore", invalid="ignore"):
+            flat = np.exp(ln_i) - np.exp(ln_leak) + np.exp(np.where(modelled, at_knee, -np.inf))[:, None]
+            ln_flat = np.log(np.maximum(flat, 1e-3 * np.exp(ln_i)))
+        ln_i = np.where(modelled[:, None], ln_flat, ln_i)
+        knee = _knee(ln_i, step_v)
+    windows, deriv, p = knee.windows, knee.deriv, knee.peak_index
+    half = windows // 2
     rows = np.arange(m)
     peak = deriv[rows, p]
-    sigma_d = noise * _gains(windows, 1) / step_v
+    out["window_points"][:] = windows
+    out["deriv"] = deriv
 
     # No breakdown in the range: too little rise, or the derivative still climbing at the end.
     rise = np.max(ln_i, axis=1) - np.min(ln_i, axis=1)
@@ -396,99 +506,140 @@ def _analyse_uniform(grid, ln_i, step_v, method):
             reasons[i] = f"no breakdown in range: d ln I/dV is still rising at the end of the sweep ({grid[i, -1]:.4g} V)"
         elif p[i] <= half[i] + 1:
             reasons[i] = f"no breakdown in range: d ln I/dV peaks at the start of the sweep ({grid[i, 0]:.4g} V)"
-        elif peak[i] < 5.0 * sigma_d[i]:
+        elif peak[i] < 5.0 * knee.sigma_d[i]:
             reasons[i] = "no breakdown in range: no significant knee in d ln I/dV above the noise"
 
-    out = dict(breakdown_v=np.full(m, np.nan), breakdown_err_v=np.full(m, np.nan), exponent=np.full(m, np.nan),
-               fit_lo_v=np.full(m, np.nan), fit_hi_v=np.full(m, np.nan), window_points=windows.astype(int),
-               deriv=deriv)
-    corr = np.sqrt(np.maximum(windows / 2.0, 1.0))
     if method == "inverse-log-derivative":
-        _fit_ild(grid, deriv, p, half, sigma_d, step_v, corr, out, reasons)
+        _fit_ild(grid, ln_i, knee, leak, step_v, out, reasons)
+        out["leakage_current_a"][:] = np.exp(leak.a + leak.b * (out["breakdown_v"] - leak.v0))
+        if joint_fit:
+            _refine_joint(grid, ln_i, out, reasons)
     elif method == "log-derivative-peak":
-        _fit_peak(grid, deriv, p, half, sigma_d, corr, out)
+        _fit_peak(grid, deriv, p, half, knee.sigma_d, np.sqrt(np.maximum(windows / 2.0, 1.0)), out)
     else:
-        noise2 = noise
-        pilot2 = savgol_filter(ln_i, w_max, POLYORDER, deriv=2, delta=step_v, axis=-1, mode="nearest")
-        region_hi = np.minimum(p + half, n - 1)
-        in_region = interior & (cols <= region_hi[:, None])
-        peak2 = np.max(np.where(in_region, pilot2, -np.inf), axis=1)
-        windows2 = choose_window(noise2, np.maximum(peak2, 1e-12), step_v, n, deriv=2)
-        d2 = _savgol_grouped(ln_i, windows2, step_v, 2)
-        half2 = windows2 // 2
-        in_region = (cols >= half2[:, None]) & (cols <= region_hi[:, None]) & (cols < n - half2[:, None])
-        p2 = np.argmax(np.where(in_region, d2, -np.inf), axis=1)
-        sigma_d2 = noise2 * _gains(windows2, 2) / step_v ** 2
-        _fit_peak(grid, d2, p2, half2, sigma_d2, np.sqrt(np.maximum(windows2 / 2.0, 1.0)), out)
-        for i in range(m):
-            if not reasons[i] and (p2[i] <= half2[i] or d2[i, p2[i]] <= 0):
-                reasons[i] = "no breakdown in range: no maximum of d2 ln I/dV2 below the knee"
+        _second_derivative(grid, ln_i, knee, step_v, out, reasons)
+    if method != "inverse-log-derivative":
+        out["leakage_current_a"][:] = np.exp(leak.a + leak.b * (out["breakdown_v"] - leak.v0))
+    out["breakdown_err_v"][:] = np.hypot(out["breakdown_stat_err_v"], out["breakdown_sys_err_v"])
     for i in range(m):
+        finite = all(np.isfinite(out[k][i]) for k in ("breakdown_v", "breakdown_err_v"))
+        if not reasons[i] and not finite:
+            reasons[i] = "fit failed: the breakdown or its uncertainty is not a finite number"
         if reasons[i]:
-            for key in ("breakdown_v", "breakdown_err_v", "exponent", "fit_lo_v", "fit_hi_v"):
+            for key in _FLOAT_FIELDS:
                 out[key][i] = np.nan
-        elif not np.isfinite(out["breakdown_v"][i]):
-            reasons[i] = "fit failed: the breakdown could not be located"
+            out["leakage_limited"][i] = False
+            out["joint_fit"][i] = False
     out["reason"] = reasons
     return out
 
 
-def _fit_peak(grid, values, p, half, sigma, corr, out):
-    """Vertex of a weighted parabola through the points around each peak."""
-    m, n = values.shape
-    hw = np.maximum(np.minimum(half, 6), 2)
-    cols = np.arange(n)[None, :]
-    mask = (np.abs(cols - p[:, None]) <= hw[:, None])
-    x0 = grid[np.arange(m), p]
-    x = grid - x0[:, None]
-    weights = np.broadcast_to((1.0 / sigma ** 2)[:, None], values.shape)
-    coef, cov, chi2, n_used = _weighted_poly(x, values, weights, mask, 2)
-    c1, c2 = coef[:, 1], coef[:, 2]
+def _refine_joint(grid, ln_i, out, reasons):
+    """Replace the derivative method's results by the joint fit's where that converged."""
+    live = np.array([not r for r in reasons], dtype=bool) & np.isfinite(out["breakdown_v"])
+    fit = fit_joint(grid, ln_i, np.where(live, out["breakdown_v"], np.nan), exponent=out["exponent"],
+                    leakage_current_a=out["leakage_current_a"], leakage_slope_per_v=out["leakage_slope_per_v"])
+    for name in ("breakdown_v", "breakdown_stat_err_v", "breakdown_sys_err_v", "exponent", "leakage_current_a",
+                 "leakage_slope_per_v", "fit_lo_v", "fit_hi_v"):
+        out[name][:] = np.where(fit.ok, getattr(fit, name), out[name])
+    out["joint_fit"][:] = fit.ok
+
+
+class _Root(NamedTuple):
+    """Root of the inverse-log-derivative fit (relative to the window start) and its statistics."""
+
+    root: np.ndarray
+    var: np.ndarray
+    slope: np.ndarray
+    n_used: np.ndarray
+
+
+def _ild_root(x, inv, weights, mask) -> _Root:
+    """Root nearest the window of a weighted parabola (a line where the parabola has none) through 1/D."""
+    quad, line = _weighted_poly(x, inv, weights, mask, 2, also=1)
+    a0, a1, a2 = quad.coef[:, 0], quad.coef[:, 1], quad.coef[:, 2]
     with np.errstate(divide="ignore", invalid="ignore"):
-        vertex = -c1 / (2.0 * c2)
-        # d vertex / d c1 = -1/(2 c2); d vertex / d c2 = c1/(2 c2^2)
-        g1, g2 = -1.0 / (2.0 * c2), c1 / (2.0 * c2 ** 2)
-        var = g1 ** 2 * cov[:, 1, 1] + g2 ** 2 * cov[:, 2, 2] + 2 * g1 * g2 * cov[:, 1, 2]
-        scale = np.sqrt(np.maximum(chi2 / np.maximum(n_used - 3, 1), 1.0))
-    step = grid[:, 1] - grid[:, 0]
-    usable = (c2 < 0) & (np.abs(vertex) <= hw * step)
-    vertex = np.where(usable, vertex, 0.0)  # fall back to the sample maximum
-    err = np.where(usable, np.sqrt(np.abs(var)) * scale * corr, step / np.sqrt(12.0))
-    out["breakdown_v"][:] = x0 + vertex
-    out["breakdown_err_v"][:] = np.maximum(err, 0.0)
-    out["fit_lo_v"][:] = grid[np.arange(m), np.maximum(p - hw, 0)]
-    out["fit_hi_v"][:] = grid[np.arange(m), np.minimum(p + hw, n - 1)]
+        disc = a1 * a1 - 4.0 * a0 * a2
+        root_q = -2.0 * a0 / (a1 + np.sqrt(disc))  # the root continuous with -a0/a1 as a2 -> 0
+        fprime = a1 + 2.0 * a2 * root_q
+        g = -np.stack([np.ones_like(root_q), root_q, root_q ** 2], axis=1) / fprime[:, None]
+        var_q = np.einsum("mi,mij,mj->m", g, quad.cov, g)
+        scale_q = np.maximum(quad.chi2 / np.maximum(quad.n_used - 3, 1), 1.0)
+        b0, b1 = line.coef[:, 0], line.coef[:, 1]
+        root_l = -b0 / b1
+        gl = np.stack([-1.0 / b1, b0 / b1 ** 2], axis=1)
+        var_l = np.einsum("mi,mij,mj->m", gl, line.cov, gl)
+        scale_l = np.maximum(line.chi2 / np.maximum(line.n_used - 2, 1), 1.0)
+    use_q = (disc >= 0) & (a1 > 0) & (fprime > 0) & np.isfinite(root_q) & (quad.n_used >= 6)
+    root = np.where(use_q, root_q, root_l)
+    var = np.where(use_q, var_q * scale_q, var_l * scale_l)
+    slope = np.where(use_q, a1, b1)
+    return _Root(root, var, slope, line.n_used)
 
 
-def _fit_ild(grid, deriv, p, half, sigma_d, step_v, corr, out, reasons):
-    """Weighted line fit of 1/(d ln I/dV) against bias, just above the knee."""
-    m, n = deriv.shape
+def _fit_ild(grid, ln_i, knee: _Knee, leak: _Leakage, step_v, out, reasons):
+    """Weighted fit of 1/(d ln I_avalanche/dV) against bias, just above the knee."""
+    m, n = ln_i.shape
+    rows = np.arange(m)
     cols = np.arange(n)[None, :]
-    start = p + half
+    deriv, p, half, sigma_d = knee.deriv, knee.peak_index, knee.windows // 2, knee.sigma_d
+    smooth = _savgol_grouped(ln_i, knee.windows, step_v, 0)
+    ln_leak = leak.ln_current(grid)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        fraction = np.exp(ln_leak - smooth)  # leakage / current
+        slope_b = np.where(np.isfinite(leak.b), leak.b, 0.0)[:, None]
+
+        d_av = (deriv - slope_b * fraction) / (1.0 - fraction)
+    natural = p + half
+    clean = (fraction <= MAX_LEAKAGE_FRACTION) & (cols >= natural[:, None])
+    start = np.where(clean.any(axis=1), np.argmax(clean, axis=1), n - 1)
+    limited = start > natural
     span = np.maximum(np.ceil(ILD_SPAN_V / step_v).astype(int), 2 * (2 * half + 1))
     stop = np.minimum(start + span, n - half)
+    short_stop = np.minimum(start + np.maximum((ILD_SHORT_FRACTION * span).astype(int), 2 * half + 1 + 3),
+                            stop)
+    x0 = grid[rows, np.minimum(start, n - 1)]
+    # Work on the fit windows only: gather (curves x longest window) columns.
+    width = max(int(np.max(stop - start)), 1)
+    offset = np.arange(width)[None, :]
+    index = np.clip(start[:, None] + offset, 0, n - 1)
+    x = np.take_along_axis(grid, index, axis=1) - x0[:, None]
+    frac_w = np.take_along_axis(fraction, index, axis=1)
+    d_w = np.take_along_axis(d_av, index, axis=1)
+    deriv_w = np.take_along_axis(deriv, index, axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        inv = 1.0 / deriv
-        weights = deriv ** 4 / sigma_d[:, None] ** 2
-    mask = (cols >= start[:, None]) & (cols < stop[:, None]) & (deriv > 0) & np.isfinite(weights)
-    x0 = grid[np.arange(m), np.minimum(start, n - 1)]
-    x = grid - x0[:, None]
-    coef, cov, chi2, n_used = _weighted_poly(x, np.where(mask, inv, 0.0), np.where(mask, weights, 0.0), mask, 1)
-    a0, a1 = coef[:, 0], coef[:, 1]
+        amplification = 1.0 / (1.0 - np.clip(frac_w, 0.0, 0.99))
+
+    def root_for(d, stop_at):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            inv = 1.0 / d
+            weights = d ** 4 / (sigma_d[:, None] * amplification) ** 2
+        mask = (offset < (stop_at - start)[:, None]) & (d > 0) & np.isfinite(weights) & np.isfinite(inv)
+        return _ild_root(x, np.where(mask, inv, 0.0), np.where(mask, weights, 0.0), mask)
+
+    full = root_for(d_w, stop)
+    short = root_for(d_w, short_stop)
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        window_sys2 = np.maximum((short.root - full.root) ** 2 - np.maximum(short.var - full.var, 0.0), 0.0)
+        leak_err = np.exp(leak.ln_rel_err(x + x0[:, None])) - 1.0
+        frac_hi = frac_w * (1.0 + np.where(np.isfinite(leak_err), leak_err, 0.0))
+        shifted = root_for((deriv_w - slope_b * frac_hi) / (1.0 - frac_hi), stop)
+        leak_sys = np.where(np.isfinite(shifted.root), shifted.root - full.root, 0.0)
+    out["breakdown_v"][:] = x0 + full.root
+    out["breakdown_stat_err_v"][:] = np.sqrt(np.abs(full.var))
+    out["breakdown_sys_err_v"][:] = np.sqrt(window_sys2 + leak_sys ** 2)
     with np.errstate(divide="ignore", invalid="ignore"):
-        root = -a0 / a1
-        g = np.stack([-1.0 / a1, a0 / a1 ** 2], axis=1)
-        var = np.einsum("mi,mij,mj->m", g, cov, g)
-        scale = np.sqrt(np.maximum(chi2 / np.maximum(n_used - 2, 1), 1.0))
-    out["breakdown_v"][:] = x0 + root
-    out["breakdown_err_v"][:] = np.sqrt(np.abs(var)) * scale * corr
-    out["exponent"][:] = 1.0 / a1
+        out["exponent"][:] = 1.0 / full.slope
     out["fit_lo_v"][:] = x0
-    out["fit_hi_v"][:] = grid[np.arange(m), np.maximum(stop - 1, 0)]
+    out["fit_hi_v"][:] = grid[rows, np.clip(stop - 1, 0, n - 1)]
+    frac_start = fraction[rows, np.minimum(start, n - 1)]
+    out["leakage_fraction"][:] = np.where(np.isfinite(frac_start), frac_start, 0.0)
+    out["leakage_limited"][:] = limited
     for i in range(m):
         if reasons[i]:
             continue
-        if n_used[i] < 4:
-            reasons[i] = f"too few points above the knee for the line fit ({int(n_used[i])}; need 4)"
-        elif not a1[i] > 0:
+        if full.n_used[i] < 4:
+            reasons[i] = (f"no breakdown in range: too few points above the knee at {grid[i, p[i]]:.4g} V for the "
+                          f"fit ({int(full.n_used[i])}; need 4) before the end of the sweep at {grid[i, -1]:.4g} V")
+        elif not full.slope[i] > 0:
             reasons[i] = "no breakdown in range: 1/(d ln I/dV) does not rise above the knee"

@@ -20,12 +20,66 @@ from compensator.csvio import Table, read_table
 from compensator.csvio import csv_rows as _csv_rows
 from compensator.csvio import fail as _fail
 from compensator.csvio import read_text as _read_text
+from compensator.errors import ModelError
 
+
+
+#: Temperatures (degree Celsius) outside this range are refused as implausible for a SiPM bench.
+PLAUSIBLE_TEMP_C = (-200.0, 150.0)
+#: Biases (volt) above this are refused: SiPMs break down between about 10 and 200 V (common practice).
+MAX_PLAUSIBLE_BIAS_V = 1000.0
+
+
+def check_temperatures(table: Table, key="temp_c"):
+    """Refuse temperatures below absolute zero, or a column that looks like kelvin or out of range.
+
+    Parameters
+    ----------
+    table : Table
+        With the column ``key`` in degree Celsius.
+    key : str
+        Canonical name of the temperature column.
+    """
+    t = table.columns[key]
+    col = table.names[key]
+    below = t <= -273.15
+    if below.any():
+        i = int(np.argmax(below))
+        _fail(table.file, int(table.lines[i]), col, f"{t[i]:g} C is below absolute zero (-273.15 C)")
+    if np.all((t >= 200.0) & (t <= 400.0)) and col.lower() == key:
+        _fail(table.file, int(table.lines[0]), col, f"every temperature lies between 200 and 400 ({t.min():g} to "
+                                                   f"{t.max():g}): these look like kelvin; name the column temp_k "
+                                                   "to convert, or give degree Celsius")
+    bad = (t < PLAUSIBLE_TEMP_C[0]) | (t > PLAUSIBLE_TEMP_C[1])
+    if bad.any():
+        i = int(np.argmax(bad))
+        _fail(table.file, int(table.lines[i]), col, f"{t[i]:g} C is outside the plausible bench range "
+                                                   f"{PLAUSIBLE_TEMP_C[0]:g} to {PLAUSIBLE_TEMP_C[1]:g} C")
+
+
+def check_bias(table: Table, key="bias_v"):
+    """Refuse a bias column that looks like millivolts (above 1000 V).
+
+    Parameters
+    ----------
+    table : Table
+        With the column ``key`` in volt.
+    key : str
+        Canonical name of the bias column.
+    """
+    b = table.columns[key]
+    high = np.abs(b) > MAX_PLAUSIBLE_BIAS_V
+    if high.any():
+        i = int(np.argmax(high))
+        _fail(table.file, int(table.lines[i]), table.names[key],
+              f"{b[i]:g} V is above {MAX_PLAUSIBLE_BIAS_V:g} V, far beyond any SiPM bias; if the column holds "
+              "millivolts name it bias_mv")
 
 
 def _single_temperature(table: Table, temp_c, what):
     """The temperature of a measurement: from its ``temp_c`` column (mean) or the given value."""
     if "temp_c" in table.columns:
+        check_temperatures(table)
         t = table.columns["temp_c"]
         if np.ptp(t) > 2.0:
             _fail(table.file, int(table.lines[int(np.argmax(np.abs(t - t.mean())))]), table.names["temp_c"],
@@ -36,30 +90,44 @@ def _single_temperature(table: Table, temp_c, what):
 
 @dataclass(frozen=True)
 class IvData:
-    """One I-V curve: ``bias_v`` (volt), ``current_a`` (ampere), ``temp_c`` (degree Celsius or None)."""
+    """One I-V curve: ``bias_v`` (volt), ``current_a`` (ampere), ``temp_c`` (degree Celsius or None), ``channel``."""
 
     file: str
     bias_v: np.ndarray
     current_a: np.ndarray
     temp_c: float | None
+    channel: str | None = None
+    notes: tuple = ()
 
 
-def read_iv(path, temp_c=None) -> IvData:
-    """Read an I-V curve: columns ``bias_v,current_a[,temp_c]``.
+def read_iv(path, temp_c=None, *, columns=None) -> IvData:
+    """Read an I-V curve: bias, current and optionally temperature and channel columns.
 
     Parameters
     ----------
     path : str or path-like
+        CSV file; see :mod:`compensator.csvio` for the names, units and
+        separators accepted (``bias_v,current_a[,temp_c][,channel]`` in the plainest form).
     temp_c : float, optional
-        Temperature (degree Celsius) used when the file has no ``temp_c`` column.
+        Temperature (degree Celsius) used when the file has no temperature column.
+    columns : dict, optional
+        User's column choice (:func:`compensator.csvio.parse_columns_option`).
 
     Returns
     -------
     IvData
     """
-    table = read_table(path, ("bias_v", "current_a"), ("temp_c",))
+    table = read_table(path, ("bias_v", "current_a"), ("temp_c",), columns=columns, text=("channel",))
+    check_bias(table)
+    channel = None
+    if "channel" in table.text:
+        names = sorted(set(table.text["channel"]))
+        if len(names) > 1:
+            _fail(path, int(table.lines[0]), table.names["channel"],
+                  f"one I-V curve per file: the channel column holds {', '.join(names[:4])}")
+        channel = names[0]
     return IvData(table.file, table.columns["bias_v"], table.columns["current_a"],
-                  _single_temperature(table, temp_c, "I-V curve"))
+                  _single_temperature(table, temp_c, "I-V curve"), channel, table.notes)
 
 
 @dataclass(frozen=True)
@@ -127,7 +195,8 @@ class BreakdownScan:
     temp_c, breakdown_v : ndarray
         Degree Celsius, volt.
     breakdown_err_v : ndarray or None
-        One-sigma errors, volt (None when the file gives none).
+        One-sigma errors, volt (None when the file gives none): the statistical
+        part alone when ``breakdown_sys_err_v`` is given.
     slope_per_v : ndarray or None
         Gain per volt of overvoltage at each temperature (from gain scans), for
         the constant-gain bias slope.
@@ -135,6 +204,13 @@ class BreakdownScan:
         Cell capacitance at each temperature, farad (from gain scans).
     sources : tuple of str
         Where each point came from (file names from the JSON, or ``FILE:LINE``).
+    channels : tuple of str or None
+        The device (channel) of each point, None when the data do not say.
+    definition : str or None
+        The breakdown definition the values measure (from the JSON), None when unknown.
+    breakdown_sys_err_v : ndarray or None
+        The breakdown method's systematic error of each point, common to all points
+        (from the JSON of ``calibrate iv``), volt; None when not given.
     """
 
     file: str
@@ -144,6 +220,26 @@ class BreakdownScan:
     slope_per_v: np.ndarray | None = None
     capacitance_f: np.ndarray | None = None
     sources: tuple = ()
+    channels: tuple | None = None
+    definition: str | None = None
+    breakdown_sys_err_v: np.ndarray | None = None
+
+    def for_channel(self, channel: str) -> BreakdownScan:
+        """The points of one channel (a ModelError naming the channels there are when it is not there)."""
+        names = sorted(set(self.channels or ()))
+        if channel not in names:
+            raise ModelError(f"no channel {channel!r} in the data (channels: {', '.join(names) or 'none named'})",
+                             key="channel")
+        sel = np.array([c == channel for c in self.channels])
+
+        def pick(values):
+            return None if values is None else np.asarray(values)[sel]
+
+        return BreakdownScan(self.file, self.temp_c[sel], self.breakdown_v[sel], pick(self.breakdown_err_v),
+                             pick(self.slope_per_v), pick(self.capacitance_f),
+                             tuple(s for s, keep in zip(self.sources, sel) if keep) if self.sources else (),
+                             tuple(c for c, keep in zip(self.channels, sel) if keep), self.definition,
+                             pick(self.breakdown_sys_err_v))
 
 
 def read_breakdown_scan(path) -> BreakdownScan:
@@ -169,6 +265,11 @@ def read_breakdown_scan(path) -> BreakdownScan:
         if len(usable) < 2:
             _fail(path, 0, "", f"only {len(usable)} entries have both breakdown_v and temp_c; need at least 2")
         errs = [e.get("breakdown_err_v") for e in usable]
+        stat = [e.get("breakdown_stat_err_v") for e in usable]
+        sys_errs = [e.get("breakdown_sys_err_v") for e in usable]
+        split = all(_num(x) and x > 0 for x in stat) and all(_num(x) and x >= 0 for x in sys_errs)
+        if split:  # the method's systematic part is common to the points: the fit takes it apart
+            errs = stat
         slopes = [e.get("slope_per_v") for e in usable]
         caps = [e.get("capacitance_f") for e in usable]
         return BreakdownScan(
@@ -176,14 +277,34 @@ def read_breakdown_scan(path) -> BreakdownScan:
             np.array(errs, float) if all(_num(x) and x > 0 for x in errs) else None,
             np.array(slopes, float) if all(_num(x) and x > 0 for x in slopes) else None,
             np.array(caps, float) if all(_num(x) and x > 0 for x in caps) else None,
-            tuple(str(e.get("file", "")) for e in usable))
-    table = read_table(path, ("temp_c", "breakdown_v"), ("breakdown_err_v",))
+            tuple(str(e.get("file", "")) for e in usable),
+            tuple(str(e["channel"]) for e in usable) if all(e.get("channel") not in (None, "") for e in usable)
+            else None,
+            _definition(path, doc, usable), np.array(sys_errs, float) if split else None)
+    table = read_table(path, ("temp_c", "breakdown_v"), ("breakdown_err_v",), text=("channel",))
+    check_temperatures(table)
     err = table.columns.get("breakdown_err_v")
     if err is not None and np.any(err <= 0):
         i = int(np.argmax(err <= 0))
         _fail(path, int(table.lines[i]), table.names["breakdown_err_v"], "breakdown errors must be positive")
     return BreakdownScan(table.file, table.columns["temp_c"], table.columns["breakdown_v"], err,
-                         sources=tuple(f"{table.file}:{n}" for n in table.lines))
+                         sources=tuple(f"{table.file}:{n}" for n in table.lines),
+                         channels=table.text.get("channel"))
+
+
+def _definition(path, doc, entries):
+    """The one breakdown definition of a calibrate JSON document (refused when entries mix definitions)."""
+    found = {e.get("definition") for e in entries if e.get("definition")}
+    if not found and isinstance(doc, dict):
+        if "scans" in doc:
+            found = {"gain_intercept"}
+        elif isinstance(doc.get("method"), str):
+            from compensator.calibration.iv import DEFINITIONS
+            found = {DEFINITIONS.get(doc["method"])} - {None}
+    if len(found) > 1:
+        _fail(path, 0, "definition", f"the entries mix breakdown definitions ({', '.join(sorted(found))}); "
+                                     "fit one definition at a time")
+    return found.pop() if found else None
 
 
 def _num(x) -> bool:
@@ -207,7 +328,9 @@ def read_manifest(path) -> list:
     -------
     list of ManifestEntry
     """
-    reader, parsed = _csv_rows(path, "a header row file,bias_v[,temp_c]")
+    records, _, delimiter = _csv_rows(path, "a header row file,bias_v[,temp_c]")
+    reader = [(n, "") for n, _ in records]
+    parsed = [cells for _, cells in records]
     header = [h.strip().lower() for h in parsed[0]]
     for need in ("file", "bias_v"):
         if need not in header:
@@ -219,8 +342,9 @@ def read_manifest(path) -> list:
     for (number, _), cells in zip(reader[1:], parsed[1:]):
         try:
             name = cells[fi].strip()
-            bias = float(cells[bi])
-            temp = float(cells[ti]) if ti is not None and cells[ti].strip() else None
+            bias = float(cells[bi].replace(",", ".") if delimiter != "," else cells[bi])
+            temp = (float(cells[ti].replace(",", ".") if delimiter != "," else cells[ti])
+                    if ti is not None and cells[ti].strip() else None)
         except (IndexError, ValueError):
             _fail(path, number, "", "expected a file name and numbers for bias_v/temp_c")
         if not name:

@@ -96,7 +96,7 @@ def plot_spectrum(fit, path, title="", charge_unit="") -> Path:
     fig, (ax1, ax2) = plt.subplots(2, 1, sharex=True, figsize=(7, 6), gridspec_kw={"height_ratios": [3, 1]})
     ax1.step(x, c, where="mid", lw=0.8, label="data")
     ax1.plot(x, m, "-", lw=1.2, color="C3",
-             label=f"fit: gain {fit.gain:.4g} +- {fit.gain_err:.2g}, mean p.e. {fit.mean_pe:.3g}, crosstalk {fit.crosstalk:.3g}")
+             label=f"fit: gain {fit.gain:.4g} +- {fit.gain_err:.2g}, mean p.e. {fit.mean_pe:.3g}, crosstalk lambda {fit.crosstalk_branching_ratio:.3g} (p {fit.crosstalk_probability:.3g})")
     ax1.set_yscale("symlog", linthresh=1.0)
     ax1.set_ylabel("counts per bin")
     ax1.set_title(title)

@@ -25,6 +25,9 @@ import numpy as np
 from compensator.constants import ELEMENTARY_CHARGE_C
 from compensator.errors import ModelError
 
+__all__ = ["IvTruth", "breakdown_at", "iv_current_a", "leakage_at_crossing_a", "simulate_breakdown_scan",
+           "simulate_events", "simulate_gain_scan", "simulate_iv", "simulate_spectrum"]
+
 
 @dataclass(frozen=True)
 class IvTruth:
@@ -82,6 +85,29 @@ def iv_current_a(bias_v, breakdown_v, *, exponent=2.0, geiger_scale_v=None, aval
             raise ModelError(f"geiger_scale_v must be positive, got {geiger_scale_v!r}")
         avalanche = avalanche * -np.expm1(-x / geiger_scale_v) / -np.expm1(-1.0 / geiger_scale_v)
     return leakage_a * np.exp(leakage_slope_per_v * (bias_v - breakdown_v)) + avalanche
+
+
+def leakage_at_crossing_a(crossing_v, *, exponent=2.0, geiger_scale_v=None, avalanche_a=1e-6,
+                          leakage_slope_per_v=0.05):
+    """Leakage current at breakdown that equals the avalanche current ``crossing_v`` above breakdown.
+
+    Parameters
+    ----------
+    crossing_v : float
+        Overvoltage where leakage and avalanche current are equal, volt (> 0).
+    exponent, geiger_scale_v, avalanche_a, leakage_slope_per_v
+        See :func:`iv_current_a`.
+
+    Returns
+    -------
+    float
+        ``leakage_a`` for :func:`iv_current_a`, ampere.
+    """
+    if not crossing_v > 0:
+        raise ModelError(f"crossing_v must be positive, got {crossing_v!r}", key="crossing_v")
+    avalanche = iv_current_a(crossing_v, 0.0, exponent=exponent, geiger_scale_v=geiger_scale_v,
+                             avalanche_a=avalanche_a, leakage_a=0.0)
+    return float(avalanche / np.exp(leakage_slope_per_v * crossing_v))
 
 
 def simulate_iv(rng, bias_v, breakdown_v, *, exponent=2.0, geiger_scale_v=None, avalanche_a=1e-6,
@@ -200,3 +226,105 @@ def simulate_breakdown_scan(rng, temp_c, breakdown_v_at_ref, tempco_mv_per_k, *,
                         curvature_mv_per_k2=curvature_mv_per_k2)
     err = np.full(np.shape(true), float(noise_v))
     return true + noise_v * rng.standard_normal(np.shape(true)), err
+
+
+def simulate_spectrum(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events, bin_width, dark=False):
+    """Seeded synthetic charge histogram with known truth.
+
+    The number of fired cells per event is drawn as a branching process: a
+    Poisson number of primaries (mean ``mean_pe``), then generation after
+    generation each new avalanche triggers a Poisson number (mean
+    ``crosstalk``) of further ones. The total follows the generalised Poisson
+    distribution (Vinogradov 2012). Charges are ``pedestal + n gain`` plus
+    Gaussian noise of width ``sqrt(sigma0**2 + n sigma1**2)``.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator or int
+        Random generator (or a seed for one).
+    gain, pedestal, sigma0, sigma1 : float
+        Charge per fired cell, pedestal position, widths (any charge unit).
+    mean_pe : float
+        Mean number of primary photoelectrons, >= 0.
+    crosstalk : float
+        Branching ratio, 0 <= crosstalk < 1.
+    n_events : int
+        Number of events.
+    bin_width : float
+        Histogram bin width (same unit); bins are aligned on
+        ``pedestal + bin_width * (j + 1/2)``.
+    dark : bool
+        A self-triggered dark-count spectrum: every event starts from exactly
+        one primary avalanche (``mean_pe`` is ignored), so there is no
+        pedestal and the cells fired follow the Borel distribution.
+
+    Returns
+    -------
+    charge : numpy.ndarray
+        Bin centres, contiguous from the lowest to the highest event.
+    counts : numpy.ndarray
+        Events per bin (float array of integers).
+
+    Raises
+    ------
+    ModelError
+        Parameters outside their domain.
+    """
+    if not (np.isfinite(bin_width) and bin_width > 0):
+        raise ModelError("simulate_spectrum: bin_width must be > 0")
+    charges = simulate_events(
+        rng, gain=gain, pedestal=pedestal, sigma0=sigma0, sigma1=sigma1,
+        mean_pe=mean_pe, crosstalk=crosstalk, n_events=n_events, dark=dark,
+    )
+    j = np.floor((charges - pedestal) / bin_width).astype(np.int64)
+    j_lo, j_hi = int(j.min()), int(j.max())
+    counts = np.bincount(j - j_lo, minlength=j_hi - j_lo + 1).astype(float)
+    centres = pedestal + bin_width * (np.arange(j_lo, j_hi + 1) + 0.5)
+    return centres, counts
+
+
+def simulate_events(rng, *, gain, pedestal, sigma0, sigma1, mean_pe, crosstalk, n_events, dark=False):
+    """Seeded synthetic event list (one charge per event).
+
+    Same model as :func:`simulate_spectrum`, without the binning.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator or int
+        Random generator (or a seed for one).
+    gain, pedestal, sigma0, sigma1 : float
+        Charge per fired cell, pedestal position, widths (any charge unit).
+    mean_pe : float
+        Mean number of primary photoelectrons, >= 0.
+    crosstalk : float
+        Branching ratio, 0 <= crosstalk < 1.
+    n_events : int
+        Number of events.
+    dark : bool
+        Exactly one primary per event (dark counts); ``mean_pe`` is ignored.
+
+    Returns
+    -------
+    numpy.ndarray
+        Charges, one per event, in the unit of ``gain``.
+
+    Raises
+    ------
+    ModelError
+        Parameters outside their domain.
+    """
+    rng = np.random.default_rng(rng)
+    n_events = int(n_events)
+    if n_events < 1:
+        raise ModelError("simulate_spectrum: n_events must be >= 1")
+    if not (gain > 0 and sigma0 > 0 and sigma1 >= 0):
+        raise ModelError("simulate_spectrum: need gain > 0, sigma0 > 0, sigma1 >= 0")
+    if not (mean_pe >= 0 and 0 <= crosstalk < 1):
+        raise ModelError("simulate_spectrum: need mean_pe >= 0 and 0 <= crosstalk < 1")
+    fired = np.ones(n_events, dtype=np.int64) if dark else rng.poisson(mean_pe, n_events)
+    generation = fired.copy()
+    while crosstalk > 0 and generation.any():
+        generation = rng.poisson(crosstalk * generation)
+        fired += generation
+    width = np.sqrt(sigma0**2 + fired * sigma1**2)
+    return pedestal + fired * gain + width * rng.standard_normal(n_events)

@@ -31,6 +31,10 @@ from scipy import stats
 from compensator.calibration.gainscan import PolyFit, fit_polynomial
 from compensator.errors import InputError, ModelError, Problem, ProfileError
 
+__all__ = ["ALPHA", "IMPROBABLE_P", "ChannelTempco", "ConstantGainSlope", "TempcoCalibration", "TempcoFit",
+           "calibrate_tempco", "calibrated_values", "chi2_p_value", "constant_gain_slope", "fit_tempco",
+           "write_calibrated_profile"]
+
 #: Significance level of the test of the quadratic term.
 ALPHA = 0.05
 
@@ -44,7 +48,8 @@ class TempcoFit:
     ref_temp_c : float
         Reference temperature, degree Celsius.
     breakdown_v_at_ref, breakdown_err_v : float
-        Breakdown at the reference temperature and its one-sigma error, volt (chosen model).
+        Breakdown at the reference temperature and its one-sigma error, volt (chosen
+        model): the fit's statistical error and ``breakdown_sys_err_v`` in quadrature.
     tempco_mv_per_k, tempco_err_mv_per_k : float
         Slope at the reference temperature, millivolt per kelvin (chosen model).
     curvature_mv_per_k2, curvature_err_mv_per_k2 : float
@@ -64,6 +69,10 @@ class TempcoFit:
     ndf : int
     linear, quadratic : PolyFit
         The underlying fits in volt against kelvin from the reference (``quadratic`` may be None).
+    breakdown_sys_err_v : float
+        The systematic error common to every point (the breakdown method's own,
+        fully correlated between the points), volt; it moves the breakdown at the
+        reference but not the temperature coefficient.
     """
 
     ref_temp_c: float
@@ -84,6 +93,7 @@ class TempcoFit:
     ndf: int
     linear: PolyFit = field(repr=False)
     quadratic: PolyFit | None = field(repr=False, default=None)
+    breakdown_sys_err_v: float = 0.0
 
     @property
     def chosen(self) -> PolyFit:
@@ -91,7 +101,8 @@ class TempcoFit:
         return self.quadratic if self.model == "quadratic" else self.linear
 
 
-def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, alpha=ALPHA) -> TempcoFit:
+def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, alpha=ALPHA,
+               common_err_v=None, offset_v=0.0, offset_err_v=0.0) -> TempcoFit:
     """Weighted linear and quadratic fits of breakdown voltage against temperature.
 
     Parameters
@@ -106,6 +117,19 @@ def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, al
         Reference temperature, degree Celsius.
     alpha : float
         Significance level for keeping the quadratic term.
+    common_err_v : float or array_like, optional
+        One-sigma systematic error common to every point, volt (e.g. the
+        ``breakdown_sys_err_v`` of :func:`~compensator.calibration.iv.find_breakdown`,
+        whose model-form bias has the same sign on every curve); an array is
+        averaged. Give ``breakdown_err_v`` without it then: a common error
+        does not average down over the points as independent errors do, so it
+        is added in quadrature to the error at the reference temperature
+        (it leaves the temperature coefficient unchanged).
+    offset_v, offset_err_v : float
+        A known offset to another breakdown definition and its one-sigma
+        error, volt (:func:`~compensator.calibration.definitions.definition_offset`):
+        the breakdown at the reference is reported on that definition
+        (``offset_v`` added) and the offset's error joins the common error.
 
     Returns
     -------
@@ -143,8 +167,16 @@ def fit_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, ref_temp_c=25.0, al
     err = chosen.err
     curv = 1e3 * quad.coef[2] if quad is not None else float("nan")
     curv_err = 1e3 * quad.err[2] if quad is not None else float("nan")
+    common = 0.0 if common_err_v is None else float(np.mean(np.asarray(common_err_v, dtype=float)))
+    if not (np.isfinite(common) and common >= 0):
+        raise ModelError(f"common_err_v must be finite and non-negative, got {common!r}", key="common_err_v")
+    if not (np.isfinite(offset_v) and np.isfinite(offset_err_v) and offset_err_v >= 0):
+        raise ModelError(f"offset_v and offset_err_v must be finite (the error non-negative), got {offset_v!r}, "
+                         f"{offset_err_v!r}", key="offset_v")
+    common = float(np.hypot(common, offset_err_v))
     return TempcoFit(
-        ref_temp_c=float(ref_temp_c), breakdown_v_at_ref=float(chosen.coef[0]), breakdown_err_v=float(err[0]),
+        ref_temp_c=float(ref_temp_c), breakdown_v_at_ref=float(chosen.coef[0] + offset_v),
+        breakdown_err_v=float(np.hypot(err[0], common)), breakdown_sys_err_v=common,
         tempco_mv_per_k=float(1e3 * chosen.coef[1]), tempco_err_mv_per_k=float(1e3 * err[1]),
         curvature_mv_per_k2=float(1e3 * chosen.coef[2]) if significant else 0.0,
         curvature_err_mv_per_k2=float(1e3 * err[2]) if significant else 0.0,
@@ -219,7 +251,7 @@ def constant_gain_slope(temp_c, breakdown_v, slope_per_v, *, overvoltage_v=3.0, 
 
 
 def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitance_f=None,
-                      capacitance_tempco_ppm_per_k=None) -> dict:
+                      capacitance_tempco_ppm_per_k=None, definition=None) -> dict:
     """Profile values of a calibrated ``sipm`` profile: the base profile with the fitted breakdown.
 
     Parameters
@@ -233,6 +265,8 @@ def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitan
         Fitted cell capacitance, farad (from gain scans).
     capacitance_tempco_ppm_per_k : float, optional
         Fitted capacitance temperature coefficient, ppm per kelvin.
+    definition : str, optional
+        Breakdown definition of the fitted values (``breakdown.definition``; kept from the base when None).
 
     Returns
     -------
@@ -247,6 +281,8 @@ def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitan
         tempco_mv_per_k=round(fit.tempco_mv_per_k, 4), curvature_mv_per_k2=round(fit.curvature_mv_per_k2, 6),
         breakdown_err_v=round(fit.breakdown_err_v, 6), tempco_err_mv_per_k=round(fit.tempco_err_mv_per_k, 4),
     )
+    if definition is not None:
+        bd["definition"] = definition
     if capacitance_f is not None and np.isfinite(capacitance_f):
         values["cell"]["capacitance_f"] = float(f"{capacitance_f:.6g}")
     if capacitance_tempco_ppm_per_k is not None and np.isfinite(capacitance_tempco_ppm_per_k):
@@ -255,7 +291,7 @@ def calibrated_values(base_values: dict, fit: TempcoFit, *, name=None, capacitan
 
 
 def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file="", force=False, name=None,
-                             capacitance_f=None, capacitance_tempco_ppm_per_k=None):
+                             capacitance_f=None, capacitance_tempco_ppm_per_k=None, definition=None):
     """Write a calibrated ``sipm`` profile, checked by loading it back, atomically.
 
     Parameters
@@ -269,7 +305,7 @@ def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file=""
         The breakdown data the fit came from (named in the header).
     force : bool
         Replace an existing file.
-    name, capacitance_f, capacitance_tempco_ppm_per_k
+    name, capacitance_f, capacitance_tempco_ppm_per_k, definition
         See :func:`calibrated_values`.
 
     Returns
@@ -288,10 +324,14 @@ def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file=""
     from compensator.profiles import load_sipm, render_profile
 
     path = Path(path)
+    if path.is_dir():
+        raise InputError(Problem(str(path), 0, "", "is a directory; give a file name for the profile"))
+    if not path.parent.is_dir():
+        raise InputError(Problem(str(path), 0, "", f"folder {path.parent} does not exist"))
     if path.exists() and not force:
         raise InputError(Problem(str(path), 0, "", "already exists; not overwriting (use --force to replace it)"))
     values = calibrated_values(base_profile.values, fit, name=name, capacitance_f=capacitance_f,
-                               capacitance_tempco_ppm_per_k=capacitance_tempco_ppm_per_k)
+                               capacitance_tempco_ppm_per_k=capacitance_tempco_ppm_per_k, definition=definition)
     settings = {"breakdown data": PurePath(data_file).name if data_file else "(arrays)",
                 "model": fit.model, "points": fit.n_points, "test": fit.test}
     header = "\n".join(["calibrated sipm profile"] + banner_lines("", [base_profile], settings)[1:])
@@ -307,3 +347,183 @@ def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file=""
             raise InputError(problems) from None
     write_file_atomic(path, text, overwrite=force)
     return load_sipm(path)
+
+
+#: chi2/ndf is improbable (a warning) below this p-value.
+IMPROBABLE_P = 0.001
+
+
+@dataclass(frozen=True, kw_only=True)
+class ChannelTempco:
+    """The temperature coefficient of one device (channel).
+
+    Attributes
+    ----------
+    channel : str
+    tempco_mv_per_k, tempco_err_mv_per_k : float
+        Millivolt per kelvin.
+    breakdown_v_at_ref, breakdown_err_v : float
+        Volt, at the reference temperature.
+    chi2_ndf : float
+        chi2 / ndf of the chosen model (NaN without degrees of freedom).
+    chi2_p_value : float
+        Probability of a chi2 at least as large (``scipy.stats.chi2.sf``; NaN when unweighted).
+    points : int
+    fit : TempcoFit
+    """
+
+    channel: str
+    tempco_mv_per_k: float
+    tempco_err_mv_per_k: float
+    breakdown_v_at_ref: float
+    breakdown_err_v: float
+    chi2_ndf: float
+    chi2_p_value: float
+    points: int
+    fit: TempcoFit = field(repr=False)
+
+
+@dataclass(frozen=True, kw_only=True)
+class TempcoCalibration:
+    """Everything ``calibrate tempco`` reports: the fit, per-channel fits, the constant-gain slope, warnings.
+
+    Attributes
+    ----------
+    fit : TempcoFit
+        All points as one device (the pooled fit).
+    chi2_p_value : float
+        Probability of the pooled chi2 (``scipy.stats.chi2.sf(chi2, ndf)``; NaN when unweighted).
+    channels : tuple of ChannelTempco
+        One per channel when the data name channels (empty otherwise).
+    tempco_spread_mv_per_k : float
+        Sample standard deviation of the channel tempcos (NaN with fewer than 2 channels).
+    constant_gain : ConstantGainSlope or None
+    capacitance_f_at_ref : float or None
+    definition : str or None
+        The breakdown definition of the data.
+    residuals_v : ndarray
+        Breakdown minus the chosen model of the pooled fit, volt.
+    findings : tuple of Finding
+        Improbable chi2, mixed channels.
+    """
+
+    fit: TempcoFit
+    chi2_p_value: float
+    channels: tuple
+    tempco_spread_mv_per_k: float
+    constant_gain: ConstantGainSlope | None
+    capacitance_f_at_ref: float | None
+    definition: str | None
+    residuals_v: np.ndarray = field(repr=False)
+    findings: tuple = ()
+
+
+def chi2_p_value(fit: TempcoFit) -> float:
+    """Probability of a chi2 at least as large as the fit's (``scipy.stats.chi2.sf``), NaN when unweighted.
+
+    Parameters
+    ----------
+    fit : TempcoFit
+
+    Returns
+    -------
+    float
+    """
+    if not fit.chosen.weighted or fit.ndf <= 0:
+        return float("nan")
+    return float(stats.chi2.sf(fit.chi2, fit.ndf))
+
+
+def calibrate_tempco(temp_c, breakdown_v, breakdown_err_v=None, *, channels=None, ref_temp_c=25.0, alpha=ALPHA,
+                     slope_per_v=None, capacitance_f=None, overvoltage_v=3.0, definition=None,
+                     common_err_v=None, definition_offset=None) -> TempcoCalibration:
+    """Temperature coefficient of a breakdown scan, per channel where the data name channels.
+
+    Parameters
+    ----------
+    temp_c, breakdown_v : array_like
+        Degree Celsius, volt.
+    breakdown_err_v : array_like, optional
+        One-sigma errors, volt.
+    channels : sequence of str, optional
+        The channel (device) of each point.
+    ref_temp_c : float
+        Reference temperature, degree Celsius.
+    alpha : float
+        Significance level of the quadratic term.
+    slope_per_v : array_like, optional
+        Gain per volt at each point (gain scans), for the constant-gain slope.
+    capacitance_f : array_like, optional
+        Cell capacitance at each point, farad.
+    overvoltage_v : float
+        Overvoltage of the held gain, volt.
+    definition : str, optional
+        Breakdown definition of the data (carried into the result).
+    common_err_v : array_like, optional
+        Systematic error of each point common to all points (see :func:`fit_tempco`), volt.
+    definition_offset : DefinitionOffset, optional
+        Offset to another breakdown definition measured on the same device
+        (:func:`~compensator.calibration.definitions.definition_offset`): the
+        breakdowns at the reference are reported on its ``to_definition``, which
+        becomes the result's definition, and its finding is passed on.
+
+    Returns
+    -------
+    TempcoCalibration
+
+    Raises
+    ------
+    ModelError
+        Too few points or temperatures.
+    """
+    from compensator.findings import Finding, Severity
+
+    temp_c = np.asarray(temp_c, dtype=float)
+    breakdown_v = np.asarray(breakdown_v, dtype=float)
+    common = None if common_err_v is None else np.broadcast_to(np.asarray(common_err_v, dtype=float), temp_c.shape)
+    shift = {} if definition_offset is None else {"offset_v": definition_offset.offset_v,
+                                                  "offset_err_v": definition_offset.offset_err_v}
+    if definition_offset is not None:
+        definition = definition_offset.to_definition
+    fit = fit_tempco(temp_c, breakdown_v, breakdown_err_v, ref_temp_c=ref_temp_c, alpha=alpha, common_err_v=common,
+                     **shift)
+    findings = [] if definition_offset is None else list(definition_offset.findings)
+    p_pool = chi2_p_value(fit)
+
+    def improbable(label, f, p):
+        if p < IMPROBABLE_P:
+            findings.append(Finding(code="chi2_improbable", severity=Severity.WARNING, message=(
+                f"{label}chi2/ndf = {f.chi2:.1f}/{f.ndf} is improbable (p = {p:.2g}): the points scatter more "
+                "than their errors; the reported errors are scaled by sqrt(chi2/ndf)")))
+
+    improbable("", fit, p_pool)
+    per = []
+    if channels is not None:
+        channels = np.asarray([str(c) for c in channels])
+        for name in sorted(set(channels.tolist())):
+            sel = channels == name
+            if np.unique(temp_c[sel]).size < 2:
+                findings.append(Finding(code="channel_one_temperature", severity=Severity.WARNING,
+                                        message=f"channel {name}: fewer than 2 temperatures; no tempco"))
+                continue
+            err = None if breakdown_err_v is None else np.asarray(breakdown_err_v, dtype=float)[sel]
+            cf = fit_tempco(temp_c[sel], breakdown_v[sel], err, ref_temp_c=ref_temp_c, alpha=alpha,
+                            common_err_v=None if common is None else common[sel], **shift)
+            p = chi2_p_value(cf)
+            improbable(f"channel {name}: ", cf, p)
+            per.append(ChannelTempco(channel=name, tempco_mv_per_k=cf.tempco_mv_per_k,
+                                     tempco_err_mv_per_k=cf.tempco_err_mv_per_k,
+                                     breakdown_v_at_ref=cf.breakdown_v_at_ref, breakdown_err_v=cf.breakdown_err_v,
+                                     chi2_ndf=cf.chi2 / cf.ndf if cf.ndf > 0 else float("nan"), chi2_p_value=p,
+                                     points=cf.n_points, fit=cf))
+    spread = float(np.std([c.tempco_mv_per_k for c in per], ddof=1)) if len(per) >= 2 else float("nan")
+    cg = None
+    if slope_per_v is not None and np.unique(temp_c).size >= 2:
+        cg = constant_gain_slope(temp_c, breakdown_v, slope_per_v, overvoltage_v=overvoltage_v,
+                                 ref_temp_c=ref_temp_c, breakdown_err_v=breakdown_err_v)
+    cap = None
+    if capacitance_f is not None:
+        cap = float(fit_polynomial(temp_c, capacitance_f, 1 if np.unique(temp_c).size > 1 else 0, x0=ref_temp_c).coef[0])
+    return TempcoCalibration(fit=fit, chi2_p_value=p_pool, channels=tuple(per), tempco_spread_mv_per_k=spread,
+                             constant_gain=cg, capacitance_f_at_ref=cap, definition=definition,
+                             residuals_v=breakdown_v - fit.chosen(temp_c), findings=tuple(findings))

@@ -8,13 +8,25 @@ from pathlib import Path
 
 import numpy as np
 
-from compensator.cli._common import add_json_flag, caution, format_table, print_json
+from compensator.cli._common import (
+    EXIT_NOTHING_ANALYSED,
+    EXIT_OK,
+    add_json_flag,
+    caution,
+    format_table,
+    print_json,
+    temperature_c,
+    usage_error,
+)
 
 ORDER = 30
 COMMAND = "calibrate"
 HELP = "breakdown, gain and temperature coefficients from bench measurements"
 
-EXIT_NONE_ANALYSED = 2
+#: Kept for old imports: "nothing could be analysed" is the shared EXIT_NOTHING_ANALYSED (3).
+EXIT_NONE_ANALYSED = EXIT_NOTHING_ANALYSED
+#: Breakdown voltages outside this range (volt) are warned about: SiPMs break down between about 10 and 200 V.
+PLAUSIBLE_BREAKDOWN_V = (10.0, 200.0)
 
 CAUTION = ("caution: a calibrated profile sets the bias law; check it against a measurement before it drives "
            "hardware. SiPM bias supplies reach tens of volts (more than 60 V dc is hazardous live under IEC 61010-1); "
@@ -37,7 +49,12 @@ def register(subparsers) -> None:
     iv.add_argument("files", nargs="+", metavar="FILE", help="I-V curves: CSV with bias_v,current_a[,temp_c]")
     iv.add_argument("--method", choices=METHODS, default=DEFAULT_METHOD,
                     help=f"breakdown method (default {DEFAULT_METHOD})")
-    iv.add_argument("--temp-c", type=float, metavar="T", help="temperature for files without a temp_c column, degree Celsius")
+    iv.add_argument("--temp-c", type=temperature_c, metavar="T",
+                    help="temperature for files without a temp_c column, degree Celsius")
+    iv.add_argument("--columns", metavar="MAP",
+                    help="map unusual headers: bias=COL,current=COL[:UNIT][,temp=COL[:UNIT]][,channel=COL]")
+    iv.add_argument("--channel-from-name", metavar="REGEX",
+                    help="the channel (device) of each file: the first group of REGEX searched in its file name")
     _batch_flags(iv)
     iv.set_defaults(handler=run_iv)
 
@@ -67,6 +84,7 @@ def register(subparsers) -> None:
     add_json_flag(gs)
     gs.add_argument("--jobs", type=int, default=1, metavar="N", help="worker processes for spectrum fits (default 1)")
     gs.add_argument("--plot", metavar="DIR", help="write spectrum plots into DIR")
+    gs.add_argument("--force", action="store_true", help="replace existing plots in DIR")
     gs.set_defaults(handler=run_gain_scan)
 
     tc = sub.add_parser("tempco", help="temperature coefficient of the breakdown; write a calibrated sipm profile",
@@ -84,7 +102,15 @@ def register(subparsers) -> None:
     tc.add_argument("--write-profile", metavar="NEW.yaml", help="write a calibrated sipm profile (needs --base)")
     tc.add_argument("--base", metavar="BASE.yaml", help="sipm profile whose other sections the new profile keeps")
     tc.add_argument("--name", help="name of the new profile (default: BASE name + '-calibrated')")
-    tc.add_argument("--force", action="store_true", help="replace an existing --write-profile file")
+    tc.add_argument("--force", action="store_true", help="replace an existing --write-profile file or plot")
+    tc.add_argument("--channel", metavar="NAME", help="fit only the points of this channel (device)")
+    tc.add_argument("--offset-from", metavar="OTHER",
+                    help="breakdowns of another definition measured on the same device (usually the JSON of "
+                         "'calibrate gain-scan'): their offset from FILE at matched temperatures is reported and "
+                         "the breakdown (and a written profile) moved onto OTHER's definition")
+    tc.add_argument("--pool", action="store_true",
+                    help="fit the points of several channels as one device (default: refuse to lump them "
+                         "into one profile)")
     add_json_flag(tc)
     tc.add_argument("--plot", metavar="DIR", help="write the breakdown-vs-temperature plot into DIR")
     tc.set_defaults(handler=run_tempco)
@@ -93,6 +119,7 @@ def register(subparsers) -> None:
 def _batch_flags(parser) -> None:
     add_json_flag(parser)
     parser.add_argument("--plot", metavar="DIR", help="write one plot per file into DIR (created if missing)")
+    parser.add_argument("--force", action="store_true", help="replace existing plots in DIR")
     parser.add_argument("--jobs", type=int, default=1, metavar="N",
                         help="worker processes (default 1; 0 = one per CPU)")
     parser.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
@@ -101,11 +128,10 @@ def _batch_flags(parser) -> None:
 
 def _jobs(n: int) -> int:
     from compensator.calibration.batch import default_jobs
-    from compensator.errors import InputError
 
     if n < 0:
-        raise InputError("--jobs: must be 0 (one per CPU) or a positive number")
-    return default_jobs() if n == 0 else n
+        raise usage_error("--jobs", f"must be 0 (one per CPU) or a positive number, got {n}")
+    return default_jobs() if n == 0 else min(n, default_jobs())
 
 
 def _report_errors(records) -> None:
@@ -118,44 +144,72 @@ def _fmt(x, spec):
     return "-" if x is None or not np.isfinite(x) else format(x, spec)
 
 
+def _plot_targets(directory, files, suffix, force):
+    """The plot directory and file names; existing figures are refused without ``--force`` (before any work)."""
+    from compensator.calibration.plots import plot_dir, unique_names
+
+    names = unique_names(files, suffix)
+    target = Path(directory)
+    if not force:
+        taken = [n for n in names if (target / n).exists()]
+        if taken:
+            raise usage_error("--plot", f"{target / taken[0]} already exists ({len(taken)} figure(s)); "
+                                        "use --force to replace them")
+    return plot_dir(directory), names
+
+
 def run_iv(args) -> int:
     from compensator.calibration.batch import Progress, analyse_iv_files
+    from compensator.calibration.iv import DEFINITIONS
+    from compensator.csvio import parse_columns_option
 
     jobs = _jobs(args.jobs)
-    plot_dir = None
-    if args.plot:
-        from compensator.calibration.plots import plot_dir as make_dir
-        plot_dir = make_dir(args.plot)
+    columns = parse_columns_option(args.columns) if args.columns else None
+    if args.channel_from_name:
+        import re
+        try:
+            re.compile(args.channel_from_name)
+        except re.error as exc:
+            raise usage_error("--channel-from-name", f"not a regular expression: {exc}") from None
+    plot = _plot_targets(args.plot, args.files, "-iv.png", args.force) if args.plot else None
     with Progress(len(args.files), "calibrate iv", enabled=args.progress) as bar:
         records = analyse_iv_files(args.files, method=args.method, temp_c=args.temp_c, jobs=jobs,
-                                   keep_arrays=plot_dir is not None, progress=bar)
+                                   keep_arrays=plot is not None, progress=bar,
+                                   channel_pattern=args.channel_from_name, columns=columns)
     _report_errors(records)
-    if plot_dir is not None:
-        from compensator.calibration.plots import plot_iv, unique_names
-        for rec, name in zip(records, unique_names([r.file for r in records], "-iv.png")):
+    for rec in records:
+        for note in rec.notes:
+            print(f"compensator: note: {rec.file}: {note}", file=sys.stderr)
+        lo, hi = PLAUSIBLE_BREAKDOWN_V
+        if rec.ok and not lo <= rec.breakdown_v <= hi:
+            print(f"compensator: warning: {rec.file}: breakdown {rec.breakdown_v:.4g} V lies outside the SiPM range "
+                  f"{lo:g} to {hi:g} V: check the units of the bias column", file=sys.stderr)
+    if plot is not None:
+        from compensator.calibration.plots import plot_iv
+        for rec, name in zip(records, plot[1]):
             if rec.bias_v is not None:
-                plot_iv(rec, plot_dir / name)
+                plot_iv(rec, plot[0] / name)
     ok = [r for r in records if r.ok]
     if args.json:
-        print_json({"method": args.method, "curves": [r.summary() for r in records]})
+        print_json({"method": args.method, "definition": DEFINITIONS[args.method],
+                    "curves": [r.summary() for r in records]})
     elif ok:
         print(format_table(
-            [(r.file, _fmt(r.temp_c, ".2f"), r.breakdown_v, 1e3 * r.breakdown_err_v, _fmt(r.exponent, ".2f"),
-              r.window_points) for r in ok],
-            ["file", "temp_c", "breakdown_v", "err_mv", "exponent", "window"],
-            ["", "", ".4f", ".1f", "", "d"]))
-        print(f"{len(ok)} of {len(records)} curves analysed ({args.method})")
-    return 0 if ok else EXIT_NONE_ANALYSED
+            [(r.file, r.channel or "-", _fmt(r.temp_c, ".2f"), r.breakdown_v, 1e3 * r.breakdown_err_v,
+              1e3 * r.breakdown_sys_err_v, _fmt(r.exponent, ".2f"), _fmt(100 * r.leakage_fraction, ".0f"),
+              "yes" if r.leakage_limited else "no") for r in ok],
+            ["file", "channel", "temp_c", "breakdown_v", "err_mv", "sys_mv", "exponent", "leak_pct", "leak_limited"],
+            ["", "", "", ".4f", ".1f", ".1f", "", "", ""]))
+        print(f"{len(ok)} of {len(records)} curves analysed ({args.method}: breakdown definition "
+              f"{DEFINITIONS[args.method]})")
+    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
 
 
 def run_spectrum(args) -> int:
     from compensator.calibration.batch import Progress, analyse_spectrum_files
 
     jobs = _jobs(args.jobs)
-    plot_dir = None
-    if args.plot:
-        from compensator.calibration.plots import plot_dir as make_dir
-        plot_dir = make_dir(args.plot)
+    plot_dir = _plot_targets(args.plot, args.files, "-spectrum.png", args.force)[0] if args.plot else None
     with Progress(len(args.files), "calibrate spectrum", enabled=args.progress) as bar:
         records = analyse_spectrum_files(args.files, amplitudes=args.amplitudes, fit_range=args.fit_range,
                                          jobs=jobs, progress=bar)
@@ -168,11 +222,13 @@ def run_spectrum(args) -> int:
     elif ok:
         print(format_table(
             [(r.file, r.charge_unit or "-", r.fit.gain, r.fit.gain_err, r.fit.pedestal, r.fit.mean_pe,
-              r.fit.crosstalk, f"{r.fit.chi2:.1f}/{r.fit.ndf}") for r in ok],
-            ["file", "unit", "gain", "gain_err", "pedestal", "mean_pe", "crosstalk", "chi2/ndf"],
-            ["", "", ".5g", ".2g", ".4g", ".4f", ".4f", ""]))
-        print(f"{len(ok)} of {len(records)} spectra fitted")
-    return 0 if ok else EXIT_NONE_ANALYSED
+              r.fit.crosstalk_branching_ratio, r.fit.crosstalk_probability, f"{r.fit.chi2:.1f}/{r.fit.ndf}")
+             for r in ok],
+            ["file", "unit", "gain", "gain_err", "pedestal", "mean_pe", "xt_lambda", "xt_fraction", "chi2/ndf"],
+            ["", "", ".5g", ".2g", ".4g", ".4f", ".4f", ".4f", ""]))
+        print(f"{len(ok)} of {len(records)} spectra fitted (xt_lambda: crosstalk branching ratio; xt_fraction: "
+              "probability of at least one crosstalk avalanche, 1 - exp(-xt_lambda), the profile's crosstalk.probability)")
+    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
 
 
 def _plot_spectra(records, plot_dir):
@@ -188,7 +244,7 @@ def _scan_summary(file, fit, extra=None) -> dict:
            "breakdown_err_v": fit.breakdown_err_v, "capacitance_f": fit.capacitance_f,
            "capacitance_err_f": fit.capacitance_err_f, "slope_per_v": fit.slope_per_v,
            "slope_err_per_v": fit.slope_err_per_v, "gain_unit": fit.gain_unit, "chi2": fit.chi2, "ndf": fit.ndf,
-           "n_points": fit.n_points}
+           "n_points": fit.n_points, "definition": "gain_intercept"}
     out.update(extra or {})
     return out
 
@@ -235,7 +291,7 @@ def run_gain_scan(args) -> int:
               f"{s['chi2']:.1f}/{s['ndf']}") for s in ok],
             ["file", "temp_c", "breakdown_v", "err_mv", "capacitance_ff", "err_ff", "chi2/ndf"],
             ["", "", ".4f", ".1f", "", "", ""]))
-    return 0 if ok else EXIT_NONE_ANALYSED
+    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
 
 
 def _spectrum_groups(args):
@@ -282,13 +338,43 @@ def _scan_from_spectra(args, label, temp_c, entries, errors):
     return _scan_summary(label, result.scan, {"spectra": per})
 
 
+def _definition_offset(args, scan):
+    """The offset of --offset-from's breakdowns from FILE's (one device, matched temperatures)."""
+    from compensator.calibration.definitions import definition_offset
+    from compensator.calibration.measurements import read_breakdown_scan
+    from compensator.errors import ModelError
+
+    if len(set(scan.channels or ())) > 1:
+        raise usage_error("--offset-from", f"{args.file} holds {len(set(scan.channels))} channels; name the one "
+                                           "measured in OTHER with --channel")
+    other = read_breakdown_scan(args.offset_from)
+    if other.definition is None:
+        raise usage_error("--offset-from", f"{args.offset_from} does not say which breakdown definition it holds; "
+                                           "give the JSON of 'calibrate gain-scan' or 'calibrate iv'")
+    if args.channel is not None and other.channels is not None:
+        try:
+            other = other.for_channel(args.channel)
+        except ModelError as exc:
+            raise exc.at(args.offset_from) from None
+    if len(set(other.channels or ())) > 1:
+        raise usage_error("--offset-from", f"{args.offset_from} holds several channels; name one with --channel")
+    try:
+        return definition_offset(scan.temp_c, scan.breakdown_v,
+                                 scan.breakdown_err_v if scan.breakdown_err_v is not None else np.zeros(0),
+                                 other.temp_c, other.breakdown_v,
+                                 other.breakdown_err_v if other.breakdown_err_v is not None else np.zeros(0),
+                                 from_definition=scan.definition, to_definition=other.definition)
+    except ModelError as exc:
+        raise exc.at(args.offset_from) from None
+
+
 def run_tempco(args) -> int:
     from compensator.calibration.measurements import read_breakdown_scan
-    from compensator.calibration.tempco import constant_gain_slope, fit_tempco, write_calibrated_profile
-    from compensator.errors import InputError, ModelError, Problem
+    from compensator.calibration.tempco import calibrate_tempco, write_calibrated_profile
+    from compensator.errors import ModelError
 
     if args.write_profile and not args.base:
-        raise InputError("--write-profile: needs --base BASE.yaml (the sipm profile to calibrate)")
+        raise usage_error("--write-profile", "needs --base BASE.yaml (the sipm profile to calibrate)")
     base = None
     if args.base:
         from compensator.profiles import load_sipm
@@ -296,36 +382,54 @@ def run_tempco(args) -> int:
     ref = args.ref_temp_c if args.ref_temp_c is not None else (
         base.device.breakdown.ref_temp_c if base is not None else 25.0)
     if not 0.0 < args.alpha < 1.0:
-        raise InputError(f"--alpha: must lie between 0 and 1, got {args.alpha:g}")
-    if args.overvoltage_v <= 0:
-        raise InputError(f"--overvoltage-v: must be positive, got {args.overvoltage_v:g}")
+        raise usage_error("--alpha", f"must lie between 0 and 1, got {args.alpha:g}")
+    if not args.overvoltage_v > 0:
+        raise usage_error("--overvoltage-v", f"must be positive, got {args.overvoltage_v:g}")
     scan = read_breakdown_scan(args.file)
-    try:
-        fit = fit_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, ref_temp_c=ref, alpha=args.alpha)
-        cg = None
-        if scan.slope_per_v is not None and np.unique(scan.temp_c).size >= 2:
-            cg = constant_gain_slope(scan.temp_c, scan.breakdown_v, scan.slope_per_v,
-                                     overvoltage_v=args.overvoltage_v, ref_temp_c=ref,
-                                     breakdown_err_v=scan.breakdown_err_v)
-    except ModelError as exc:
-        raise InputError(Problem(args.file, 0, "", str(exc))) from None
-    cap_at_ref = None
-    if scan.capacitance_f is not None:
-        from compensator.calibration.gainscan import fit_polynomial
-        cap_at_ref = float(fit_polynomial(scan.temp_c, scan.capacitance_f, 1 if np.unique(scan.temp_c).size > 1 else 0,
-                                          x0=ref).coef[0])
-    written = None
-    if args.write_profile:
-        written = write_calibrated_profile(
-            args.write_profile, base, fit, data_file=args.file, force=args.force, name=args.name,
-            capacitance_f=cap_at_ref,
-            capacitance_tempco_ppm_per_k=cg.capacitance_tempco_ppm_per_k if cg is not None else None)
-        caution(CAUTION)  # printed when the command ends
+    if args.channel is not None:
+        try:
+            scan = scan.for_channel(args.channel)
+        except ModelError as exc:
+            raise usage_error("--channel", exc.reason) from None
+    offset = _definition_offset(args, scan) if args.offset_from else None
+    plot_path = None
     if args.plot:
-        from compensator.calibration.plots import plot_dir, plot_tempco
-        plot_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, fit,
-                    plot_dir(args.plot) / f"{Path(args.file).stem}-tempco.png", title=Path(args.file).name)
-    resid = scan.breakdown_v - fit.chosen(scan.temp_c)
+        plot_dir, names = _plot_targets(args.plot, [args.file], "-tempco.png", args.force)
+        plot_path = plot_dir / names[0]
+    channels = None if args.pool else scan.channels
+    try:
+        result = calibrate_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, channels=channels,
+                                  ref_temp_c=ref, alpha=args.alpha, slope_per_v=scan.slope_per_v,
+                                  capacitance_f=scan.capacitance_f, overvoltage_v=args.overvoltage_v,
+                                  definition=scan.definition, common_err_v=scan.breakdown_sys_err_v,
+                                  definition_offset=offset)
+    except ModelError as exc:
+        raise exc.at(args.file) from None
+    fit, cg, cap_at_ref = result.fit, result.constant_gain, result.capacitance_f_at_ref
+    for finding in result.findings:
+        print(f"compensator: warning: {args.file}: {finding.message}", file=sys.stderr)
+    written = []
+    if args.write_profile:
+        targets = [(None, fit)]
+        if len(result.channels) > 1:
+            if "{channel}" not in args.write_profile:
+                raise usage_error("--write-profile", f"the data hold {len(result.channels)} channels: put "
+                                                     "{channel} in the file name for one profile per channel, "
+                                                     "or give --pool to fit them as one device")
+            targets = [(c.channel, c.fit) for c in result.channels]
+        paths = [args.write_profile.replace("{channel}", ch) if ch is not None else args.write_profile
+                 for ch, _ in targets]
+        for (ch, f), path in zip(targets, paths):
+            name = args.name or (f"{base.name}-{ch}" if ch is not None else None)
+            written.append((path, write_calibrated_profile(
+                path, base, f, data_file=args.file, force=args.force, name=name, capacitance_f=cap_at_ref,
+                capacitance_tempco_ppm_per_k=cg.capacitance_tempco_ppm_per_k if cg is not None else None,
+                definition=result.definition)))
+        caution(CAUTION)  # printed when the command ends
+    if plot_path is not None:
+        from compensator.calibration.plots import plot_tempco
+        plot_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, fit, plot_path, title=Path(args.file).name)
+    resid = result.residuals_v
     out = {
         "file": args.file, "ref_temp_c": fit.ref_temp_c, "breakdown_v_at_ref": fit.breakdown_v_at_ref,
         "breakdown_err_v_at_ref": fit.breakdown_err_v, "tempco_mv_per_k": fit.tempco_mv_per_k,
@@ -345,13 +449,30 @@ def run_tempco(args) -> int:
             "capacitance_tempco_ppm_per_k": cg.capacitance_tempco_ppm_per_k,
             "capacitance_tempco_err_ppm_per_k": cg.capacitance_tempco_err_ppm_per_k},
         "capacitance_f_at_ref": cap_at_ref,
-        "written_profile": None if written is None else {"file": args.write_profile, "name": written.name},
+        "written_profile": {"file": written[0][0], "name": written[0][1].name} if len(written) == 1 else None,
+        "written_profiles": [{"file": path, "name": prof.name} for path, prof in written],
+        "definition": result.definition, "chi2_p_value": result.chi2_p_value,
+        "channels": [{"channel": c.channel, "tempco_mv_per_k": c.tempco_mv_per_k,
+                      "tempco_err_mv_per_k": c.tempco_err_mv_per_k, "breakdown_v_at_ref": c.breakdown_v_at_ref,
+                      "breakdown_err_v_at_ref": c.breakdown_err_v, "chi2_ndf": c.chi2_ndf, "chi2_p_value": c.chi2_p_value,
+                      "points": c.points} for c in result.channels],
+        "tempco_spread_mv_per_k": result.tempco_spread_mv_per_k,
+        "definition_offset": None if offset is None else {
+            "definition_offset_v": offset.offset_v, "definition_offset_err_v": offset.offset_err_v,
+            "from_definition": offset.from_definition, "definition": offset.to_definition,
+            "matched_points": offset.matched_points, "chi2": offset.chi2, "ndf": offset.ndf,
+            "chi2_p_value": offset.chi2_p_value},
+        "warnings": [{"code": f.code, "severity": f.severity.value, "message": f.message} for f in result.findings],
     }
     if args.json:
         print_json(out)
-        return 0
+        return EXIT_OK
     print(f"{args.file}: {fit.n_points} points, {fit.model} model ({'weighted' if out['weighted'] else 'unweighted'})")
-    print(f"  breakdown at {fit.ref_temp_c:g} C: {fit.breakdown_v_at_ref:.4f} +- {fit.breakdown_err_v:.4f} V")
+    print(f"  breakdown at {fit.ref_temp_c:g} C: {fit.breakdown_v_at_ref:.4f} +- {fit.breakdown_err_v:.4f} V"
+          + (f" ({result.definition})" if result.definition else ""))
+    if offset is not None:
+        print(f"  moved onto {offset.to_definition} by the offset measured at {offset.matched_points} temperature(s): "
+              f"{1e3 * offset.offset_v:+.1f} +- {1e3 * offset.offset_err_v:.1f} mV from {offset.from_definition}")
     print(f"  tempco: {fit.tempco_mv_per_k:.3f} +- {fit.tempco_err_mv_per_k:.3f} mV/K "
           f"({1e3 * out['tempco_relative_per_k']:.3f} per mille per K)")
     q = fit.quadratic_curvature_mv_per_k2
@@ -361,6 +482,12 @@ def run_tempco(args) -> int:
     if cg is not None:
         print(f"  constant-gain bias slope: {cg.slope_mv_per_k:.3f} +- {cg.slope_err_mv_per_k:.3f} mV/K "
               f"(capacitance {cg.capacitance_tempco_ppm_per_k:+.0f} ppm/K)")
-    if written is not None:
-        print(f"  wrote {args.write_profile} (profile {written.name})")
-    return 0
+    for c in result.channels:
+        print(f"  channel {c.channel}: {c.tempco_mv_per_k:.3f} +- {c.tempco_err_mv_per_k:.3f} mV/K, breakdown "
+              f"{c.breakdown_v_at_ref:.4f} V, chi2/ndf {c.chi2_ndf:.2f}, {c.points} points")
+    if len(result.channels) > 1:
+        print(f"  spread of tempco across {len(result.channels)} channels: {result.tempco_spread_mv_per_k:.3f} mV/K "
+              "(sample standard deviation)")
+    for path, prof in written:
+        print(f"  wrote {path} (profile {prof.name})")
+    return EXIT_OK

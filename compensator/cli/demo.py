@@ -107,8 +107,8 @@ def run(args) -> int:
         f"{char.seed})")
     say(f"breakdown at {char.ref_temp_c:g} C: {char.breakdown_v_at_ref:.4f} +- {char.breakdown_err_v_at_ref:.4f} V "
         f"(truth {char.true_breakdown_v_at_ref:g}); tempco {char.tempco_mv_per_k:.2f} +- "
-        f"{char.tempco_err_mv_per_k:.2f} mV/K (truth {char.true_tempco_mv_per_k:g}); the errors are statistical "
-        f"only (1 sigma): the method's own shape bias is up to about 12 mV (tools/bench/bench_calibration.py)")
+        f"{char.tempco_err_mv_per_k:.2f} mV/K (truth {char.true_tempco_mv_per_k:g}); one sigma, the breakdown's "
+        f"with the method's systematic part (common to all curves)")
 
     # 2. and 3. Each instrument: drift, law, firmware path, budget, table, light
     instruments, files = [], {}
