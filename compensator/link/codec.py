@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import binascii
 import struct
+from typing import NamedTuple
 
 from cobs import cobs
 
@@ -43,7 +44,7 @@ from compensator.link import protocol as p
 
 __all__ = [
     "NEED_DATA", "NeedData", "ProtocolError", "LocalProtocolError", "RemoteProtocolError", "LinkCodec",
-    "crc16", "encode_payload", "decode_payload", "encode_frame", "DEFAULT_MAX_BUFFER_BYTES",
+    "crc16", "encode_payload", "decode_payload", "encode_frame", "DEFAULT_MAX_BUFFER_BYTES", "RawFrame",
 ]
 
 #: Default bound on bytes buffered and not yet drained by :meth:`LinkCodec.next_message`.
@@ -281,6 +282,15 @@ def decode_payload(cls, payload: bytes, *, seq: int = 0, kind: int | None = None
     return cls(seq=seq, **values)
 
 
+class RawFrame(NamedTuple):
+    """A frame whose COBS and CRC are valid, before its payload is interpreted."""
+
+    version: int
+    kind: int
+    seq: int
+    payload: bytes
+
+
 class LinkCodec:
     """Frames and messages in both directions, with no I/O of its own.
 
@@ -334,17 +344,18 @@ class LinkCodec:
                                      f"{self.max_buffer_bytes}; call next_message() to drain it", code="buffer")
         self._buffer += data
 
-    def next_message(self):
-        """The next complete message, or :data:`NEED_DATA`.
+    def next_frame(self):
+        """The next frame with valid COBS and CRC (payload not interpreted), or :data:`NEED_DATA`.
 
         Returns
         -------
-        Message or NeedData
+        RawFrame or NeedData
 
         Raises
         ------
         RemoteProtocolError
-            The next frame is invalid; it has been dropped, so call again for the rest.
+            The next frame is corrupt (``code`` ``"cobs"``, ``"short"``,
+            ``"crc"`` or ``"too_long"``); it has been dropped, so call again.
         """
         buf = self._buffer
         while True:
@@ -368,9 +379,9 @@ class LinkCodec:
                 continue
             if not encoded:
                 continue  # an idle delimiter (e.g. sent first to flush a receiver)
-            return self._decode_frame(encoded)
+            return self._unframe(encoded)
 
-    def _decode_frame(self, encoded: bytes):
+    def _unframe(self, encoded: bytes) -> RawFrame:
         if len(encoded) > p.MAX_ENCODED_BYTES - 1:
             self.frames_bad += 1
             raise RemoteProtocolError(f"frame of {len(encoded)} bytes exceeds {p.MAX_ENCODED_BYTES - 1}",
@@ -386,8 +397,24 @@ class LinkCodec:
         if crc16(body[:-2]) != int.from_bytes(body[-2:], "little"):
             self.frames_bad += 1
             raise RemoteProtocolError("CRC mismatch: the frame was corrupted", code="crc")
-        version, kind = body[0], body[1]
-        seq = body[2] | body[3] << 8
+        return RawFrame(body[0], body[1], body[2] | body[3] << 8, body[p.HEADER_BYTES:-2])
+
+    def next_message(self):
+        """The next complete message, or :data:`NEED_DATA`.
+
+        Returns
+        -------
+        Message or NeedData
+
+        Raises
+        ------
+        RemoteProtocolError
+            The next frame is invalid; it has been dropped, so call again for the rest.
+        """
+        frame = self.next_frame()
+        if frame is NEED_DATA:
+            return frame
+        version, kind, seq, payload = frame
         if version != p.PROTOCOL_VERSION:
             self.frames_bad += 1
             raise RemoteProtocolError(f"protocol version {version}, this end speaks {p.PROTOCOL_VERSION}",
@@ -397,7 +424,7 @@ class LinkCodec:
             self.frames_bad += 1
             raise RemoteProtocolError(f"unknown message kind 0x{kind:02X}", code="unknown_kind", kind=kind, seq=seq)
         try:
-            message = decode_payload(cls, body[p.HEADER_BYTES:-2], seq=seq, kind=kind)
+            message = decode_payload(cls, payload, seq=seq, kind=kind)
         except RemoteProtocolError:
             self.frames_bad += 1
             raise

@@ -37,7 +37,7 @@ __all__ = [
     "MAX_ENCODED_BYTES", "WIRE_TYPES", "Kind", "Result", "UploadTarget", "Mode", "Message",
     "Identify", "ReadStatus", "SetOvervoltage", "SetBias", "SetOutputs", "ReadFaults", "ClearFaults",
     "Heartbeat", "SetTelemetryPeriod", "UploadBegin", "UploadChunk", "UploadCommit",
-    "IdentityReport", "StatusReport", "FaultReport", "Reply", "TelemetryReport",
+    "IdentityReport", "StatusReport", "FaultReport", "Reply", "Refusal", "TelemetryReport",
     "MESSAGE_TYPES", "REQUEST_TYPES", "message_type", "reply_kind", "fixed_size", "RESULT_REASONS",
 ]
 
@@ -91,6 +91,7 @@ class Kind(IntEnum):
     IDENTITY_REPORT = 0x81
     STATUS_REPORT = 0x82
     FAULT_REPORT = 0x86
+    REFUSAL = 0xBF
     TELEMETRY = 0xC0
 
 
@@ -371,10 +372,31 @@ class Reply(Message):
         return {"result": self.result, "faults": self.faults, "value": self.value}
 
 
+@dataclass(frozen=True, kw_only=True)
+class Refusal(Message):
+    """A request the board could not even parse: wrong version, unknown kind or malformed payload.
+
+    Attributes
+    ----------
+    request_kind : int
+        The kind byte of the refused frame.
+    result : int
+        ``BAD_VERSION``, ``UNKNOWN_KIND`` or ``BAD_REQUEST``.
+    value : int
+        The board's protocol version for ``BAD_VERSION``, else 0.
+    """
+
+    KIND: ClassVar[int] = Kind.REFUSAL
+    LAYOUT: ClassVar[tuple] = (("request_kind", "u8"), ("result", "u8"), ("value", "i32"))
+    request_kind: int
+    result: int
+    value: int = 0
+
+
 REQUEST_TYPES = (Identify, ReadStatus, SetOvervoltage, SetBias, SetOutputs, ReadFaults, ClearFaults, Heartbeat,
                  SetTelemetryPeriod, UploadBegin, UploadChunk, UploadCommit)
 #: Every message class with a kind of its own (``Reply`` takes ``0x80 + request kind`` for the other requests).
-MESSAGE_TYPES = REQUEST_TYPES + (IdentityReport, StatusReport, FaultReport, TelemetryReport)
+MESSAGE_TYPES = REQUEST_TYPES + (IdentityReport, StatusReport, FaultReport, Refusal, TelemetryReport)
 _BY_KIND = {int(cls.KIND): cls for cls in MESSAGE_TYPES}
 #: The requests answered by a specific report rather than a :class:`Reply`.
 _REPORTS = {Kind.IDENTIFY: IdentityReport, Kind.READ_STATUS: StatusReport, Kind.READ_FAULTS: FaultReport}
