@@ -47,7 +47,7 @@ def c_struct_name(cls) -> str:
     cls : type
         A message class of :mod:`compensator.link.protocol`.
     """
-    return re.sub(r"(?<!^)(?=[A-Z])", "_", cls.__name__).lower()
+    return p.message_name(cls)
 
 
 _ALL = (*p.MESSAGE_TYPES, p.Reply)

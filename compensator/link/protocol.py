@@ -26,6 +26,7 @@ message for people; this module is its executable form.
 
 from __future__ import annotations
 
+import re
 import struct
 from dataclasses import dataclass, fields
 from enum import IntEnum
@@ -38,7 +39,7 @@ __all__ = [
     "Identify", "ReadStatus", "SetOvervoltage", "SetBias", "SetOutputs", "ReadFaults", "ClearFaults",
     "Heartbeat", "SetTelemetryPeriod", "UploadBegin", "UploadChunk", "UploadCommit",
     "IdentityReport", "StatusReport", "FaultReport", "Reply", "Refusal", "TelemetryReport",
-    "MESSAGE_TYPES", "REQUEST_TYPES", "message_type", "reply_kind", "fixed_size", "RESULT_REASONS",
+    "MESSAGE_TYPES", "REQUEST_TYPES", "message_type", "message_name", "reply_kind", "fixed_size", "RESULT_REASONS",
 ]
 
 #: Version byte at the start of every frame; a board answers another version with ``Result.BAD_VERSION``.
@@ -139,6 +140,7 @@ class Mode(IntEnum):
     LAW = 1        # bias from the lookup table (overvoltage target)
     FIXED = 2      # a fixed bias
     SAFE = 3       # a latched trip holds the safe state
+    RAMP_DOWN = 4  # outputs disabled, bias still ramping down to the safe code at the slew limit
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -400,6 +402,17 @@ MESSAGE_TYPES = REQUEST_TYPES + (IdentityReport, StatusReport, FaultReport, Refu
 _BY_KIND = {int(cls.KIND): cls for cls in MESSAGE_TYPES}
 #: The requests answered by a specific report rather than a :class:`Reply`.
 _REPORTS = {Kind.IDENTIFY: IdentityReport, Kind.READ_STATUS: StatusReport, Kind.READ_FAULTS: FaultReport}
+
+
+def message_name(message) -> str:
+    """Snake-case name of a message or message class (``SetBias`` -> ``"set_bias"``).
+
+    Parameters
+    ----------
+    message : Message or type
+    """
+    cls = message if isinstance(message, type) else type(message)
+    return re.sub(r"(?<!^)(?=[A-Z])", "_", cls.__name__).lower()
 
 
 def reply_kind(request_kind: int) -> int:
