@@ -125,6 +125,7 @@ class BoardFirmware:
         self._out = None
         self.executed = {}
         self.replays = 0
+        self.requests = 0
 
     # ------------------------------------------------------------------ host side
     def receive(self, data: bytes) -> bytes:
@@ -154,6 +155,7 @@ class BoardFirmware:
     def _dispatch(self, frame: RawFrame) -> bytes:
         version, kind, seq, payload = frame
         self.last_host_ms = self.now_ms
+        self.requests += 1
         if kind >= 0x80:
             return b""
         crc = zlib.crc32(payload)
