@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import os
 import re
+import shutil
 import signal
 import subprocess
 import sys
@@ -32,6 +33,8 @@ def sim_port():
         if proc.poll() is None:
             proc.kill()
             proc.wait()
+        if path:
+            shutil.rmtree(Path(path).parent, ignore_errors=True)   # a killed simulator leaves its folder
 
 
 def test_status_json_with_numbers(cli, sim_port, sipm_b):
@@ -42,7 +45,7 @@ def test_status_json_with_numbers(cli, sim_port, sipm_b):
     doc = json.loads(result.stdout)
     assert doc["temp_c"] == pytest.approx(10.0, abs=0.5)          # the constant 10 C ambient
     assert doc["bias_v"] == pytest.approx(30.0, abs=0.01)         # hut-board-pt1000 at its safe code 0: 30 V
-    assert doc["current_a"] is None and doc["faults"] == [] and doc["mode"] == "off"
+    assert doc["current_a"] is None and doc["faults"] == [] and doc["board_mode"] == "off"
 
 
 def test_set_bias_refused_with_reason_and_status_2(cli, sim_port, sipm_b):

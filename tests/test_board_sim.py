@@ -101,7 +101,7 @@ def test_heartbeat_loss_reaches_the_safe_state(sipm_a, board_ntc):
         assert s.mode == "safe" and "heartbeat_lost" in board.faults().latched
         assert s.bias_dac_code == sim.firmware.config.limits.safe_dac_code
         trip = next(t for t in board.faults().trips if t.fault == "heartbeat_lost")
-        assert trip.value > 300 * 20                 # silence in board milliseconds (time scale 20)
+        assert trip.trip_value > 300 * 20                 # silence in board milliseconds (time scale 20)
         with pytest.raises(BoardRefused) as info:
             board.enable()
         assert info.value.result == p.Result.REFUSED_FAULT
@@ -120,7 +120,7 @@ def test_sensor_fault_reaches_the_safe_state(sipm_a, board_ntc, fault, flag):
         state = board.faults()
         assert flag in state.latched
         rail = board_ntc.temperature.front_end.full_scale_code if fault == "open" else 0
-        assert next(t for t in state.trips if t.fault == flag).value == rail
+        assert next(t for t in state.trips if t.fault == flag).trip_value == rail
         assert board.status().bias_dac_code == sim.firmware.config.limits.safe_dac_code
         assert board.clear_faults() == [flag]      # the cause is still there
 
@@ -137,7 +137,7 @@ def test_hot_side_fault_and_cooler(sipm_a, board_ntc, cooler):
         s = board.status()
         assert "hot_side_over_temp" in board.faults().latched
         assert s.telemetry.cooler_current_a == 0.0
-        value = next(t for t in board.faults().trips if t.fault == "hot_side_over_temp").value
+        value = next(t for t in board.faults().trips if t.fault == "hot_side_over_temp").trip_value
         assert value == 70_000 + 5000             # hut-cooler max_hot_temp_c 70 C plus the injected 5 K
 
 

@@ -58,7 +58,8 @@ def register(subparsers) -> None:
                    help="telemetry period in board time, second (default 1)")
     p.add_argument("--duration-s", type=non_negative_float, default=None, metavar="S",
                    help="stop after this long, second (default: until Ctrl-C)")
-    p.add_argument("--json", action="store_true", help="one JSON object per sample on stdout (JSON lines)")
+    p.add_argument("--json-lines", action="store_true",
+                   help="one JSON object per sample on stdout (JSON lines, field names as in `status --json`)")
     parser.set_defaults(handler=run)
 
 
@@ -136,7 +137,7 @@ def _act(board, action, args, image, UploadTarget) -> dict:
         return {**port, "temp_c": t.sensor_temp_c,
                 "bias_v": t.bias_measured_v if t.bias_measured_v is not None else t.bias_set_v,
                 "current_a": t.sipm_current_a, "faults": _telemetry_json(t)["faults_latched"],
-                "mode": s.mode, "outputs_enabled": s.outputs_enabled, "bias_dac_code": s.bias_dac_code,
+                "board_mode": s.mode, "outputs_enabled": s.outputs_enabled, "bias_dac_code": s.bias_dac_code,
                 "telemetry_period_s": s.telemetry_period_s, "telemetry": _telemetry_json(t)}
     if action == "identify":
         return {**port, **dataclasses.asdict(board.identify())}
@@ -165,10 +166,11 @@ def _act(board, action, args, image, UploadTarget) -> dict:
 
 def _watch(board, args) -> int:
     from compensator.link.messages import Telemetry
+    from compensator.vocabulary import to_json_value
 
     board.set_telemetry_period(args.period_s)
     header = f"{'uptime_s':>10} {'temp_c':>8} {'bias_v':>9} {'ov_target_v':>11} {'current_a':>10} faults"
-    if not args.json:
+    if not args.json_lines:
         print(header)
     samples = 0
     try:
@@ -178,8 +180,8 @@ def _watch(board, args) -> int:
                       file=sys.stderr)
                 continue
             samples += 1
-            if args.json:
-                print(json.dumps(_telemetry_json(item)), flush=True)
+            if args.json_lines:
+                print(json.dumps(to_json_value(_telemetry_json(item))), flush=True)
             else:
                 cur = "-" if item.sipm_current_a is None else f"{item.sipm_current_a:.3e}"
                 print(f"{item.uptime_s:10.1f} {item.sensor_temp_c:8.3f} {item.bias_set_v:9.4f} "

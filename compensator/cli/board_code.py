@@ -73,7 +73,7 @@ def run(args) -> int:
             "slew_levels_per_tick": limits.slew_levels_per_tick, "adc_fault_band": [limits.adc_fault_lo,
                                                                                    limits.adc_fault_hi],
             "heartbeat_timeout_ms": limits.heartbeat_timeout_ms,
-            "findings": [f.message for f in limits.safe_findings]}
+            "warnings": [f.message for f in limits.safe_findings]}
         for finding in limits.safe_findings:
             print(f"{finding.severity.value}: {finding.message}", file=sys.stderr)
     if args.json:

@@ -130,13 +130,13 @@ class TripRecord:
         Flag name (lower case).
     uptime_s : float
         Board time of the trip, second.
-    value : int
+    trip_value : int
         The value that tripped it, in the unit ``docs/protocol.md`` gives for the flag.
     """
 
     fault: str
     uptime_s: float
-    value: int
+    trip_value: int
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -401,7 +401,7 @@ class BoardClient:
         """
         r = self.request(p.ReadFaults())
         trips = [TripRecord(fault=fault_names(1 << b)[0], uptime_s=r.trip_uptime_ms[b] / 1000.0,
-                            value=r.trip_value[b]) for b in range(p.FAULT_SLOTS) if r.faults_latched >> b & 1]
+                            trip_value=r.trip_value[b]) for b in range(p.FAULT_SLOTS) if r.faults_latched >> b & 1]
         return FaultState(live=fault_names(r.faults_live), latched=fault_names(r.faults_latched),
                           live_bits=r.faults_live, latched_bits=r.faults_latched, trips=trips)
 
