@@ -157,7 +157,8 @@ def _load_plant(args):
 def _targets(args, emit_name, stem):
     out = []
     if args.emit_c:
-        out += [Path(args.emit_c) / f"{emit_name}.h", Path(args.emit_c) / f"{emit_name}.c"]
+        out += [Path(args.emit_c) / f"{emit_name}.h", Path(args.emit_c) / f"{emit_name}.c",
+                Path(args.emit_c) / f"{emit_name}.image.json"]
     if args.plot:
         out += [Path(args.plot) / f"{stem}-{k}.png" for k in ("bode", "sensitivity", "step")]
     return out
@@ -242,7 +243,9 @@ def _ambient_plants(args, profile, warnings):
 
 def _emit(args, result, T, emit, name, profile):
     from compensator.firmware.pid import PidSettings, quantise_pid
-    from compensator.firmware.pid_c import write_pid_c
+    from compensator.fileio import write_files_atomic
+    from compensator.firmware.pid_c import render_pid_c
+    from compensator.link.images import pid_image
 
     g = result.gains
     pick = {k: (getattr(args, k) if getattr(args, k) is not None else emit.get(k))
@@ -257,8 +260,9 @@ def _emit(args, result, T, emit, name, profile):
               "input_per_count": f"{pick['input_per_count']:.6g}",
               "output_per_count": f"{pick['output_per_count']:.6g}",
               "out_min": f"{pick['out_min']:.6g}", "out_max": f"{pick['out_max']:.6g}"}
-    written = write_pid_c(coeffs, args.emit_c, name=name, profiles=(profile,) if profile else (), settings=banner,
-                          overwrite=args.force)
+    files = render_pid_c(coeffs, name=name, profiles=(profile,) if profile else (), settings=banner)
+    files[f"{name}.image.json"] = pid_image(coeffs).decode("ascii")  # what `compensator board upload-pid` sends
+    written = write_files_atomic(args.emit_c, files, overwrite=args.force, what="C output")
     return [str(p) for p in written]
 
 
