@@ -88,6 +88,10 @@ def test_upload_what_table_and_tune_write(cli, sim_port, tmp_path):
     assert result.status == 2 and "not pid coefficients" in result.stderr
     result = cli("board", "--port", path, "upload-table", tmp_path)
     assert result.status == 2 and "found 0" in result.stderr
+    huge = tmp_path / "huge.image.json"
+    huge.write_bytes(b" " * 20000)
+    result = cli("board", "--port", path, "upload-table", huge)
+    assert result.status == 2 and "20000 bytes" in result.stderr and "16384" in result.stderr
 
 
 def test_sigterm_ends_cleanly(sim_port):
