@@ -123,7 +123,7 @@ def test_loop_url_times_out_with_one_line(cli):
     result = cli("board", "--port", "loop://", "status")
     assert result.status == 2
     lines = [line for line in result.stderr.splitlines() if line.startswith("compensator:")]
-    assert len(lines) == 1 and "read_status" in lines[0] and "5 attempts" in lines[0]
+    assert len(lines) == 1 and "read_status" in lines[0] and "11 attempts" in lines[0]
 
 
 @needs_cc

@@ -11,6 +11,8 @@ from compensator.cli._common import EXIT_OK, add_json_flag, finite_float, non_ne
 from compensator.errors import InputError, Problem
 
 ORDER = 70
+#: Re-sends of one command before giving up (a one-shot command can afford to wait a second or two).
+COMMAND_RETRIES = 10
 
 CAUTION = ("caution: the board drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, IEC 61010-1) "
            "and possibly a cooler; keep hardware limits that do not depend on software and follow local codes and "
@@ -116,7 +118,7 @@ def run(args) -> int:
             raise InputError(Problem(str(path), 0, "image", f"holds {kind.replace('_', ' ')}, not "
                                                             f"{wanted.replace('_', ' ')}"))
     with BoardClient.open(args.port, baud_rate=args.baud, hexdump=hexdump, ramp_down_on_exit=False,
-                          reconnect_timeout_s=2.0) as board:
+                          reconnect_timeout_s=2.0, retries=COMMAND_RETRIES) as board:
         if action == "watch":
             return _watch(board, args)
         result = _act(board, action, args, image, UploadTarget)
