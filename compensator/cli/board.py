@@ -14,9 +14,11 @@ ORDER = 70
 #: Re-sends of one command before giving up (a one-shot command can afford to wait a second or two).
 COMMAND_RETRIES = 10
 
-CAUTION = ("caution: the board drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, IEC 61010-1) "
-           "and possibly a cooler; keep hardware limits that do not depend on software and follow local codes and "
-           "licensed practice.")
+#: The caution every link command shows (board, board-sim, board-code).
+CAUTION = ("caution: a controller board drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, "
+           "IEC 61010-1) and possibly a cooler (an unsinked hot side runs away; a cold plate below the dew point "
+           "wets the electronics); a simulation is no evidence that hardware is safe. Keep limits in hardware that "
+           "does not depend on software and follow local codes and licensed practice.")
 
 
 def register(subparsers) -> None:

@@ -4,13 +4,11 @@ from __future__ import annotations
 
 import sys
 
+from compensator.cli.board import CAUTION
 from compensator.cli._common import EXIT_OK, add_json_flag, non_negative_float, positive_float, print_json
 
 ORDER = 74
 
-CAUTION = ("caution: this code drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, IEC 61010-1) "
-           "and possibly a cooler; keep hardware limits that do not depend on software and follow local codes and "
-           "licensed practice.")
 
 
 def register(subparsers) -> None:

@@ -5,15 +5,13 @@ from __future__ import annotations
 import signal
 import sys
 
+from compensator.cli.board import CAUTION
 from compensator.cli._common import EXIT_OK, finite_float, non_negative_float, positive_float, usage_error
 
 ORDER = 72
 COMMAND = "board-sim"
 HELP = "run a simulated controller board on a pseudo-terminal (prints its path first)"
 
-CAUTION = ("caution: a simulated board is no evidence that real hardware is safe; real bias supplies of tens of "
-           "volts (above 60 V dc is hazardous live, IEC 61010-1) and coolers need hardware limits and local codes "
-           "and licensed practice.")
 
 
 def _probability(text: str) -> float:
