@@ -273,3 +273,37 @@ def test_stateful_client_against_board(sipm_a, board_ntc):
     machine.settings = settings(max_examples=4, stateful_step_count=12, deadline=None, derandomize=True,
                                 database=None)
     machine().runTest()
+
+
+def test_board_from_a_scenario(tmp_path, profiles_dir):
+    from compensator.profiles.scenario import load_scenario
+
+    path = tmp_path / "hut-scenario.yaml"
+    path.write_text(f"""kind: scenario
+name: test-hut
+hardware:
+  sipm: {profiles_dir / 'hut-sipm-a.yaml'}
+  board: {profiles_dir / 'hut-board-ntc.yaml'}
+  thermal: {profiles_dir / 'hut-cooler.yaml'}
+  overvoltage_v: 3.0
+run:
+  duration_days: 1
+ambient:
+  mean_temp_c: 10
+thermal_path:
+  enclosure_time_constant_s: 3600
+  die_time_constant_s: 300
+strategies:
+  uncompensated: false
+  compensated: true
+  compensated_cooled: true
+""")
+    firmware, plant, findings = build_board(None, None, scenario=load_scenario(path))
+    assert plant.cooled and firmware.config.board_name == "hut-board-ntc"
+    assert [f.code for f in findings] == ["safe_state_above_breakdown"]   # hut-board-ntc cannot reach below 25.19 V
+    firmware.enabled, firmware.mode = True, p.Mode.LAW
+    for _ in range(50):
+        dac, cooler_a, _ = firmware.tick(plant.reading)
+        plant.step(dac, cooler_current_a=cooler_a)
+    assert plant.reading.outdoor_temp_c == pytest.approx(10.0)
+    assert cooler_a != 0.0 and plant.reading.time_s == pytest.approx(5.0)

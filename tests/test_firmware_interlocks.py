@@ -66,7 +66,8 @@ def test_slew_and_timeouts_from_the_profile(falling, board_ntc):
     # 2 V/s at 10 Hz is 0.2 V per tick; one level is lsb_v
     assert falling.slew_levels_per_tick == int(0.2 / board_ntc.supply.lsb_v)
     assert falling.tick_ms == 100 and falling.heartbeat_timeout_ms == 5000
-    assert falling.max_step_mdegc == 200            # 2 K/s over 0.1 s
+    # with the cooler: twice (S I T_hot + R I^2) / C = 2 (0.05*3*343.15 + 2*9) / 20 = 6.947 K/s, over 0.1 s
+    assert falling.max_step_mdegc == 695
     assert falling.over_current_na == 200_000       # hut-sipm-a max_current_a 2e-4 A
     assert falling.hot_side_max_mdegc == 70_000 and falling.dew_margin_mdegc == 3000  # hut-cooler limits
 
@@ -157,7 +158,9 @@ def test_trips_go_to_the_safe_state_at_once_and_latch(falling, board_ntc, change
     assert falling.level(out.dac_code) - falling.level(falling.safe_dac_code) == falling.slew_levels_per_tick
 
 
-def test_implausible_rate(falling, board_ntc):
+def test_implausible_rate(rising, board_pt1000):
+    falling, board_ntc = rising, board_pt1000    # no cooler: the default 2 K/s, 200 mK per 0.1 s tick
+    assert falling.max_step_mdegc == 200
     ilk = Interlocks(falling)
     base = _inputs(falling, board_ntc, 20.0, falling.safe_dac_code)
     ilk.step(base)
@@ -180,12 +183,13 @@ def test_heartbeat_loss_only_with_outputs_enabled(falling, board_ntc):
     assert wrapped.step(base._replace(now_ms=50, last_host_ms=(1 << 32) - 50)).faults_live == 0
 
 
-def test_dew_point_holds_the_cooler_off_but_not_the_bias(falling, board_ntc):
+def test_dew_point_stops_cooling_but_not_heating_nor_the_bias(falling, board_ntc):
     ilk = Interlocks(falling)
     base = _inputs(falling, board_ntc, 20.0, falling.safe_dac_code, cooler_request=800,
                    cold_side_mdegc=15_000, dew_point_mdegc=12_001)
     out = ilk.step(base)
     assert out.cooler_drive == 0 and out.faults_live == FaultFlag.DEW_POINT and out.state == STATE_RUN
+    assert ilk.step(base._replace(cooler_request=-800)).cooler_drive == -800   # heating is allowed
     assert ilk.step(base._replace(dew_point_mdegc=12_000)).cooler_drive == 800
     assert ilk.step(base._replace(dew_point_mdegc=ABSENT)).cooler_drive == 800
     assert not FaultFlag.DEW_POINT & TRIP_FLAGS

@@ -187,10 +187,7 @@ def scenario_has_cooler(scenario) -> bool:
     ----------
     scenario : ScenarioProfile
     """
-    try:
-        return bool(scenario.section("profiles").get("thermal"))
-    except (KeyError, AttributeError):
-        return False
+    return getattr(scenario, "thermal", None) is not None
 
 
 class SimulatedBoard:
