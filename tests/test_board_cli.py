@@ -111,6 +111,9 @@ def test_sigterm_ends_cleanly(sim_port):
     (["board-sim", "--board", "x.yaml"], "needs --sipm and --board"),
     (["board-sim", "--sipm", "a", "--board", "b", "--corrupt-rate", "1.5"], "probability"),
     (["board-code", "--out", "x", "--sipm", "a.yaml"], "--board"),
+    (["board-sim", "--sipm", "a", "--board", "b", "--seed", "-1"], "non-negative integer"),
+    (["board-sim", "--sipm", str(PROFILES / "hut-sipm-a.yaml"), "--board", str(PROFILES / "hut-board-ntc.yaml"),
+      "--overvoltage-v", "50"], "--overvoltage-v: 50 V is outside"),
 ])
 def test_bad_input_is_one_line_and_status_2(cli, argv, needle, tmp_path):
     result = cli(*argv)

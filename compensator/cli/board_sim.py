@@ -23,6 +23,18 @@ def _probability(text: str) -> float:
     return value
 
 
+def _seed(text: str) -> int:
+    import argparse
+
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a non-negative integer, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected a non-negative integer, got {text!r}")
+    return value
+
+
 def register(subparsers) -> None:
     parser = subparsers.add_parser(
         COMMAND, help=HELP,
@@ -58,7 +70,8 @@ def register(subparsers) -> None:
     parser.add_argument("--heartbeat-timeout-s", type=non_negative_float, default=10.0, metavar="S",
                         help="host silence (wall clock) after which the board goes to its safe state, second "
                              "(0: no watchdog; default 10)")
-    parser.add_argument("--seed", type=int, default=1, metavar="N", help="seed of the plant noise and line faults")
+    parser.add_argument("--seed", type=_seed, default=1, metavar="N",
+                        help="seed of the plant noise and line faults (a non-negative integer)")
     parser.add_argument("--duration-s", type=positive_float, metavar="S", help="stop after this long (wall clock)")
     parser.set_defaults(handler=run)
 
@@ -93,7 +106,7 @@ def run(args) -> int:
                                                 heartbeat_timeout_s=args.heartbeat_timeout_s,
                                                 time_scale=args.time_scale, seed=args.seed)
     except ModelError as exc:
-        raise exc.at("<command line>") from None
+        raise exc.at("<command line>", key=f"--{exc.key.replace('_', '-')}" if exc.key else None) from None
     for finding in findings:
         print(f"{finding.severity.value}: {finding.message}", file=sys.stderr)
     sim = SimulatedBoard(firmware, plant, time_scale=args.time_scale, line=line,
