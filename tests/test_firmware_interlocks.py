@@ -332,3 +332,53 @@ def test_render_is_deterministic_and_carries_the_caution(falling, sipm_a, board_
         render_interlocks_c(falling, name="Bad Name")
     paths = write_interlocks_c(falling, tmp_path / "out", name="ilk")
     assert sorted(p.name for p in paths) == ["ilk.c", "ilk.h"]
+
+
+@pytest.mark.parametrize("key, bad", [
+    ("tick_ms", 0), ("tick_ms", 60_001), ("dac_full_scale", 0), ("dac_full_scale", 1 << 31),
+    ("safe_dac_code", -1), ("safe_dac_code", 65536), ("bias_limit_level", -1), ("bias_limit_level", 65536),
+    ("slew_levels_per_tick", 0), ("slew_levels_per_tick", 65536), ("adc_fault_lo", -1), ("adc_fault_lo", 4000),
+    ("max_step_mdegc", -1), ("max_step_mdegc", 1 << 31), ("over_current_na", -1), ("over_current_na", 1 << 31),
+    ("heartbeat_timeout_ms", -1), ("heartbeat_timeout_ms", 1 << 31), ("ov_limit_slope_q", 1 << 31),
+    ("ov_limit_slope_q", -(1 << 31)), ("ov_limit_level_at_ref", 1 << 31), ("dew_margin_mdegc", -1),
+    ("dew_margin_mdegc", 100_001),
+])
+def test_limits_out_of_range_are_named(falling, key, bad):
+    import dataclasses
+
+    with pytest.raises(ModelError) as info:
+        dataclasses.replace(falling, **{key: bad})
+    assert info.value.key == key and repr(bad) in str(info.value)
+
+
+@pytest.mark.parametrize("key, edge", [
+    ("tick_ms", 1), ("tick_ms", 60_000), ("safe_dac_code", 0), ("safe_dac_code", 65535), ("bias_limit_level", 0),
+    ("bias_limit_level", 65535), ("slew_levels_per_tick", 1), ("slew_levels_per_tick", 65535),
+    ("adc_fault_lo", 0), ("max_step_mdegc", 0), ("over_current_na", 0), ("heartbeat_timeout_ms", 0),
+    ("ov_limit_slope_q", (1 << 31) - 1), ("ov_limit_slope_q", -(1 << 31) + 1), ("dew_margin_mdegc", 0),
+    ("dew_margin_mdegc", 100_000),
+])
+def test_limits_at_their_edges_are_accepted(falling, key, edge):
+    import dataclasses
+
+    assert getattr(dataclasses.replace(falling, **{key: edge}), key) == edge
+
+
+def test_limit_constants_against_independent_computations(falling, rising, sipm_a, board_ntc, sipm_b, board_pt1000):
+    # hut-board-ntc: feedback injection, output falls as the code rises; 36 V board maximum is above the
+    # network's highest output (code 0, 35.185 V), so every level is allowed by the board's maximum
+    s = board_ntc.supply
+    assert not falling.bias_rises_with_code and falling.bias_limit_level == 65535
+    assert falling.bias_v_at_level0 == pytest.approx(float(s.output_v(65535)), abs=1e-9)
+    assert falling.volts_per_level == pytest.approx(s.lsb_v, rel=1e-12)
+    # hut-board-pt1000: direct supply rising with the code; level of the 65 V board maximum
+    s2 = board_pt1000.supply
+    assert rising.bias_rises_with_code
+    assert rising.bias_limit_level == int(np.floor((min(65.0, s2.output_range_v()[1]) - s2.intercept_v)
+                                                   / s2.volts_per_code + 1e-9))
+    # the reference of the limit line is the coldest plausible temperature, -25 C less the 20 K margin
+    assert falling.ov_limit_ref_mdegc == -45_000 and rising.ov_limit_ref_mdegc == -45_000
+    # its slope: the breakdown tempco (21.5 mV/K for hut-sipm-a, a straight line) in levels per milli-kelvin
+    assert falling.ov_limit_slope_q == int(np.floor(0.0215 / 1000 / s.lsb_v * 2 ** 24))
+    assert falling.over_current_na == 200_000 and rising.over_current_na == 100_000
+    assert rising.hot_side_max_mdegc == 2**31 - 1 and rising.dew_margin_mdegc == 0
