@@ -87,6 +87,14 @@ def test_bad_settings_are_named(sipm_a, board_ntc):
     with pytest.raises(ModelError) as info:
         build_interlock_limits(sipm_a, board_ntc, over_current_a=-1.0)
     assert info.value.key == "over_current_a"
+    with pytest.raises(ModelError) as info:
+        build_interlock_limits(sipm_a, board_ntc, max_rate_k_per_s=0.0)
+    assert info.value.key == "max_rate_k_per_s" and "must be a positive number" in str(info.value)
+    with pytest.raises(ModelError) as info:
+        build_interlock_limits(sipm_a, board_ntc, heartbeat_timeout_s=-1.0)
+    assert info.value.key == "heartbeat_timeout_s" and "must be a non-negative number" in str(info.value)
+    # the plain device model and the cooler parameters work as well as the profiles
+    assert build_interlock_limits(sipm_a.device, board_ntc) == build_interlock_limits(sipm_a, board_ntc)
 
 
 def test_safe_state_finding(falling, rising, board_ntc):
