@@ -106,12 +106,12 @@ def test_sigterm_ends_cleanly(sim_port):
 
 @pytest.mark.parametrize("argv, needle", [
     (["board", "--port", "/nonexistent/tty", "status"], "cannot open the port"),
-    (["board", "--port", "loop://", "set-bias", "nan"], "must be finite"),
+    (["board", "--port", "loop://", "set-bias", "nan"], "must be a finite number"),
     (["board-sim", "--sipm", "missing.yaml", "--board", "missing.yaml"], "missing.yaml"),
     (["board-sim", "--board", "x.yaml"], "needs --sipm and --board"),
-    (["board-sim", "--sipm", "a", "--board", "b", "--corrupt-rate", "1.5"], "probability"),
+    (["board-sim", "--sipm", "a", "--board", "b", "--corrupt-rate", "1.5"], "--corrupt-rate: must be at most 1"),
     (["board-code", "--out", "x", "--sipm", "a.yaml"], "--board"),
-    (["board-sim", "--sipm", "a", "--board", "b", "--seed", "-1"], "non-negative integer"),
+    (["board-sim", "--sipm", "a", "--board", "b", "--seed", "-1"], "--seed: must be at least 0"),
     (["board-sim", "--sipm", str(PROFILES / "hut-sipm-a.yaml"), "--board", str(PROFILES / "hut-board-ntc.yaml"),
       "--overvoltage-v", "50"], "--overvoltage-v: 50 V is outside"),
 ])

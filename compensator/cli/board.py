@@ -7,8 +7,11 @@ import json
 import sys
 from pathlib import Path
 
-from compensator.cli._common import EXIT_OK, add_json_flag, finite_float, non_negative_float, print_json, usage_error
+from compensator.cli._common import (EXIT_OK, add_json_flag, bounded_int, caution, finite_float, non_negative_float,
+                                     print_json)
 from compensator.errors import InputError, Problem
+
+__all__ = ["register", "run"]
 
 ORDER = 70
 #: Re-sends of one command before giving up (a one-shot command can afford to wait a second or two).
@@ -30,7 +33,7 @@ def register(subparsers) -> None:
                     "while a host keeps talking to it (`watch` does; a board with its heartbeat watchdog on goes "
                     "to its safe state after the timeout). " + CAUTION)
     parser.add_argument("--port", required=True, metavar="URL", help="device path, pty path or pyserial URL")
-    parser.add_argument("--baud", type=int, default=115200, metavar="N", help="line speed, baud (default 115200)")
+    parser.add_argument("--baud", type=bounded_int(1, 100_000_000), default=115200, metavar="N", help="line speed, baud (default 115200)")
     parser.add_argument("--hexdump", action="store_true", help="print the traffic in hex on stderr")
     sub = parser.add_subparsers(dest="action", metavar="ACTION")
     sub.required = True
@@ -94,11 +97,9 @@ def run(args) -> int:
     from compensator.link.protocol import UploadTarget
 
     hexdump = (lambda line: print(line, file=sys.stderr)) if args.hexdump else None
-    if args.baud <= 0:
-        raise usage_error("--baud", f"must be a positive integer, got {args.baud}")
     action = args.action
     if action in ("set-bias", "set-overvoltage", "enable"):
-        print(CAUTION, file=sys.stderr)
+        caution(CAUTION)
     image = None
     if action in ("upload-table", "upload-pid"):
         path = _image_path(args.path)
