@@ -390,3 +390,33 @@ def test_limit_constants_against_independent_computations(falling, rising, sipm_
     assert falling.ov_limit_slope_q == int(np.floor(0.0215 / 1000 / s.lsb_v * 2 ** 24))
     assert falling.over_current_na == 200_000 and rising.over_current_na == 100_000
     assert rising.hot_side_max_mdegc == 2**31 - 1 and rising.dew_margin_mdegc == 0
+
+
+def test_boundaries_of_the_rules(falling, board_ntc):
+    ilk = Interlocks(falling)
+    base = _inputs(falling, board_ntc, 20.0, falling.safe_dac_code, cooler_request=1, cold_side_mdegc=15_000,
+                   dew_point_mdegc=13_000)
+    # the last plausible codes and exactly the trip current do not trip
+    assert ilk.step(base._replace(adc_code=falling.adc_fault_hi)).faults_live & TRIP_FLAGS == 0
+    assert Interlocks(falling).step(base._replace(adc_code=falling.adc_fault_lo)).faults_live & TRIP_FLAGS == 0
+    assert ilk.step(base._replace(sipm_current_na=falling.over_current_na)).faults_live & TRIP_FLAGS == 0
+    # near the dew point even the smallest cooling drive is held at zero
+    out = ilk.step(base)
+    assert out.faults_live == FaultFlag.DEW_POINT and out.cooler_drive == 0
+    # a target exactly one slew step away is reached in that step
+    ilk = Interlocks(falling)
+    safe_level = falling.level(falling.safe_dac_code)
+    target = falling.code(safe_level + falling.slew_levels_per_tick)
+    out = ilk.step(base._replace(request_dac_code=target, dew_point_mdegc=ABSENT))
+    assert out.dac_code == target
+    with pytest.raises(ModelError) as info:
+        Interlocks(None)
+    assert info.value.key == "limits" and "need InterlockLimits" in str(info.value)
+
+
+def test_bits_beyond_the_records_latch_and_clear(falling):
+    ilk = Interlocks(falling)
+    ilk.latch(1 << 16 | FaultFlag.REQUEST_REFUSED, 5, 7)
+    assert ilk.faults_latched == 1 << 16 | FaultFlag.REQUEST_REFUSED
+    assert ilk.trip_record(8) == (5, 7)
+    assert ilk.clear(1 << 16) == FaultFlag.REQUEST_REFUSED

@@ -304,3 +304,41 @@ def test_garbage_then_a_frame_always_recovers(message, garbage):
     codec.receive_data(garbage + b"\x00" + codec.encode(message))
     out, _ = _drain(codec)
     assert out[-1] == message
+
+
+@pytest.mark.parametrize("kind, payload", [
+    (p.Kind.UPLOAD_CHUNK, b"\x01" + bytes(4)),                        # ends exactly before the data's length byte
+    (p.Kind.UPLOAD_CHUNK, b"\x01" + bytes(4) + b"\x03ab"),            # data shorter than its length byte says
+    (p.Kind.UPLOAD_CHUNK, b"\x01" + bytes(4) + b"\xc1" + bytes(193)),  # longer than a chunk may be
+    (p.Kind.UPLOAD_CHUNK, b"\x01" + bytes(4) + b"\x01a" + b"zz"),      # bytes after the last field
+    (p.Kind.IDENTITY_REPORT, b"\x01\x02a\x7f"),                        # DEL is not printable ASCII
+    (p.Kind.IDENTITY_REPORT, b"\x01\x21" + b"a" * 33),                 # text longer than 32 bytes
+    (p.Kind.IDENTITY_REPORT, b"\x01\x00\x00\x00" + bytes(31)),         # a hash cut short
+    (p.Kind.SET_BIAS, b"\x00" * 5),                                   # fixed layout, wrong length
+])
+def test_every_malformed_payload_names_the_frame(kind, payload):
+    codec = LinkCodec()
+    codec.receive_data(encode_frame(int(kind), 4321, payload))
+    with pytest.raises(RemoteProtocolError) as info:
+        codec.next_message()
+    assert (info.value.code, info.value.kind, info.value.seq) == ("payload", int(kind), 4321)
+    assert info.value.reason.startswith(p.message_type(int(kind)).__name__)
+
+
+def test_trailing_bytes_are_counted_in_the_message():
+    codec = LinkCodec()
+    codec.receive_data(encode_frame(p.Kind.UPLOAD_CHUNK, 1, b"\x01" + bytes(4) + b"\x01a" + b"zzz"))
+    with pytest.raises(RemoteProtocolError) as info:
+        codec.next_message()
+    assert "3 bytes after the last field" in str(info.value)
+
+
+def test_text_edges_are_accepted():
+    codec = LinkCodec()
+    message = p.IdentityReport(protocol_version=1, firmware_version=" ~" * 16, board_name="", serial_number="x")
+    codec.receive_data(codec.encode(message))
+    assert codec.next_message() == message
+    with pytest.raises(LocalProtocolError):
+        codec.encode(p.IdentityReport(protocol_version=1, firmware_version="\x7f", board_name="b"))
+    with pytest.raises(LocalProtocolError):
+        codec.encode(p.IdentityReport(protocol_version=1, firmware_version="é", board_name="b"))

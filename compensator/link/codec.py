@@ -137,8 +137,11 @@ _FLAT = {cls: any(t in _ARRAY for _, t in cls.LAYOUT) for cls in _STRUCTS}
 
 
 def _check_text(value: str, name: str) -> bytes:
-    raw = value.encode("ascii", "replace") if isinstance(value, str) else b"\x00"
-    if not isinstance(value, str) or len(raw) > p.MAX_TEXT_BYTES or any(b < 0x20 or b > 0x7E for b in raw):
+    try:
+        raw = value.encode("ascii") if isinstance(value, str) else b"\x00"
+    except UnicodeEncodeError:
+        raw = b"\x00"  # not ASCII: refused below, never silently replaced
+    if len(raw) > p.MAX_TEXT_BYTES or any(b < 0x20 or b > 0x7E for b in raw):
         raise LocalProtocolError(f"{name}: needs printable ASCII text of at most {p.MAX_TEXT_BYTES} bytes, "
                                  f"got {value!r}", code="value")
     return raw
