@@ -342,3 +342,47 @@ def test_text_edges_are_accepted():
         codec.encode(p.IdentityReport(protocol_version=1, firmware_version="\x7f", board_name="b"))
     with pytest.raises(LocalProtocolError):
         codec.encode(p.IdentityReport(protocol_version=1, firmware_version="é", board_name="b"))
+
+
+def test_error_codes_counts_and_the_length_boundary():
+    codec = LinkCodec()
+    rng = random.Random(3)
+    codec.receive_data(bytes(rng.randrange(1, 256) for _ in range(247)) + b"\x00")   # longest a frame may be
+    with pytest.raises(RemoteProtocolError) as info:
+        codec.next_message()
+    assert info.value.code in ("cobs", "crc", "short") and codec.frames_bad == 1
+    codec.receive_data(bytes(rng.randrange(1, 256) for _ in range(248)) + b"\x00")   # one byte too long
+    with pytest.raises(RemoteProtocolError) as info:
+        codec.next_message()
+    assert info.value.code == "too_long" and codec.frames_bad == 2
+    assert "248 bytes exceeds 247" in str(info.value)
+    codec.receive_data(b"\x05\x01\x00")                                              # COBS runs past the end
+    with pytest.raises(RemoteProtocolError) as info:
+        codec.next_message()
+    assert info.value.code == "cobs" and str(info.value).startswith("bad COBS framing")
+    codec.receive_data(cobs.encode(b"\x01\x02\x03\x04\x05") + b"\x00")             # five bytes: no room for a CRC
+    with pytest.raises(RemoteProtocolError) as info:
+        codec.next_message()
+    assert info.value.code == "short"
+    wire = bytearray(codec.encode(SAMPLES[2]))
+    wire[3] ^= 0x01
+    codec.receive_data(bytes(wire))
+    with pytest.raises(RemoteProtocolError) as info:
+        codec.next_message()
+    assert info.value.code == "crc" and codec.frames_bad == 5 and codec.frames_ok == 0
+    codec.receive_data(b"\x01" * 248)                                                # no delimiter yet
+    with pytest.raises(RemoteProtocolError) as info:
+        codec.next_message()
+    assert info.value.code == "too_long" and "no frame delimiter in 248 bytes" in str(info.value)
+    assert codec.frames_bad == 6
+
+
+def test_frame_header_ranges():
+    assert encode_frame(0, 0, b"", version=0)[-1] == 0        # the lowest kind and version are representable
+    assert encode_frame(255, 65535, bytes(p.MAX_PAYLOAD_BYTES), version=255)[-1] == 0
+    for kwargs in (dict(kind=256, seq=0, payload=b""), dict(kind=-1, seq=0, payload=b""),
+                   dict(kind=1, seq=-1, payload=b""), dict(kind=1, seq=0, payload=b"", version=256),
+                   dict(kind=1, seq=0, payload=bytes(p.MAX_PAYLOAD_BYTES + 1))):
+        with pytest.raises(LocalProtocolError) as info:
+            encode_frame(**kwargs)
+        assert info.value.code == "value"
