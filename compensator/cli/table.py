@@ -109,7 +109,8 @@ def run(args) -> int:
     sym = args.prefix + args.name
     mode = args.sweep or default_sweep_mode(board.temperature.front_end.adc_bits)
     out = Path(args.out)
-    _refuse_existing(out, [f"{sym}.h", f"{sym}.c"] + ([SWEEP_FILE] if mode != "none" else []), args.force)
+    _refuse_existing(out, [f"{sym}.h", f"{sym}.c", f"{sym}.image.json"] + ([SWEEP_FILE] if mode != "none" else []),
+                     args.force)
     settings = {"law": law.kind, "overvoltage_v": f"{law.overvoltage_v:g}", "layout": args.layout,
                 "max_gain_error_pct": f"{args.max_gain_error_pct:g}", "fault_margin_k": f"{args.fault_margin_k:g}",
                 "drop_correction": law.drop_correction, "photon_rate_hz": f"{law.photon_rate_hz:g}"}
@@ -118,16 +119,29 @@ def run(args) -> int:
     built = prepare_table_files(law, board, profiles=[sipm, board], max_gain_error_pct=args.max_gain_error_pct,
                                 layout=args.layout, fault_margin_k=args.fault_margin_k, name=args.name,
                                 prefix=args.prefix, sweep=mode, settings=settings)
+    files = dict(built.files)
+    files.update(_upload_image(built.table, sym))
     for finding in built.findings:
         if finding.severity != Severity.INFO:
             print(f"compensator: {finding.severity.value.upper()}: {finding.message}", file=sys.stderr, flush=True)
-    paths = write_files_atomic(out, built.files, overwrite=args.force, what="table output")
+    paths = write_files_atomic(out, files, overwrite=args.force, what="table output")
     result = _result(args, sipm, board, law, built, paths)
     if args.json:
         print_json(result)
     else:
         _print_text(args, result, built)
     return 0
+
+
+def _upload_image(table, sym: str) -> dict[str, str]:
+    """The image `compensator board upload-table` sends to a board, as a file; none when the table has no image."""
+    from compensator.link.images import ImageError, table_image
+
+    try:
+        return {f"{sym}.image.json": table_image(table).decode("ascii")}
+    except ImageError as exc:
+        print(f"compensator: note: no upload image: {exc}", file=sys.stderr)
+        return {}
 
 
 def _result(args, sipm, board, law, built, paths) -> dict:
