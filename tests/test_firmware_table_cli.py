@@ -47,7 +47,8 @@ def test_sweep_none_writes_no_sweep_but_checks_every_code(cli, profiles_dir, tmp
     assert result.status == 0, result.stderr
     data = json.loads(result.stdout)
     assert data["sweep"] == "none" and data["codes_verified"] == 5706
-    assert sorted(p.name for p in out.iterdir()) == ["bias_dac_from_adc.c", "bias_dac_from_adc.h"]
+    assert sorted(p.name for p in out.iterdir()) == ["bias_dac_from_adc.c", "bias_dac_from_adc.h",
+                                                    "bias_dac_from_adc.image.json"]
 
 
 def board_with_adc_bits(board, bits):
@@ -134,5 +135,5 @@ def test_everything_is_rendered_before_one_write_of_the_whole_set(cli, profiles_
     monkeypatch.setattr(command, "write_files_atomic", spy)
     result = cli(*args(profiles_dir, tmp_path / "o", "--name", "bias", "--prefix", "hut_", "--json"))
     assert result.status == 0, result.stderr
-    assert calls == [["hut_bias.c", "hut_bias.h", "sweep.csv"]]
+    assert calls == [["hut_bias.c", "hut_bias.h", "hut_bias.image.json", "sweep.csv"]]
     assert json.loads(result.stdout)["c_function"] == "uint16_t hut_bias(uint16_t adc_code)"
