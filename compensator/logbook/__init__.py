@@ -1,0 +1,27 @@
+"""Append-only, crash-safe telemetry logbook on SQLite.
+
+``schema`` (tables, units in every column, schema version), ``records``
+(what readers get back), ``store`` (the writer and the reader), ``logger``
+(telemetry source -> logbook, with faults, gaps and reconnects),
+``export`` (CSV and Parquet).
+"""
+
+from compensator.logbook.records import EventKind, EventRecord, RunSeries, SessionRecord
+from compensator.logbook.schema import APPLICATION_ID, SCHEMA_VERSION, TELEMETRY_COLUMNS
+from compensator.logbook.store import (
+    TELEMETRY_FIELDS,
+    LogbookError,
+    LogbookWriter,
+    count_rows,
+    open_for_reading,
+    read_events,
+    read_run,
+    read_sessions,
+)
+
+__all__ = [
+    "EventKind", "EventRecord", "RunSeries", "SessionRecord",
+    "APPLICATION_ID", "SCHEMA_VERSION", "TELEMETRY_COLUMNS",
+    "TELEMETRY_FIELDS", "LogbookError", "LogbookWriter", "count_rows", "open_for_reading", "read_events",
+    "read_run", "read_sessions",
+]
