@@ -6,6 +6,7 @@
 ``export`` (CSV and Parquet).
 """
 
+from compensator.logbook.logger import LoggerResult, LoggerStatus, missed_gap_s, run_logger
 from compensator.logbook.records import EventKind, EventRecord, RunSeries, SessionRecord
 from compensator.logbook.schema import APPLICATION_ID, SCHEMA_VERSION, TELEMETRY_COLUMNS
 from compensator.logbook.store import (
@@ -20,6 +21,7 @@ from compensator.logbook.store import (
 )
 
 __all__ = [
+    "LoggerResult", "LoggerStatus", "missed_gap_s", "run_logger",
     "EventKind", "EventRecord", "RunSeries", "SessionRecord",
     "APPLICATION_ID", "SCHEMA_VERSION", "TELEMETRY_COLUMNS",
     "TELEMETRY_FIELDS", "LogbookError", "LogbookWriter", "count_rows", "open_for_reading", "read_events",

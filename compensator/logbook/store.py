@@ -25,6 +25,7 @@ import math
 import operator
 import os
 import sqlite3
+import threading
 import time
 import urllib.parse
 from pathlib import Path
@@ -347,6 +348,9 @@ class LogbookWriter:
         self.rows_committed = 0
         self._lock_fd = None
         self._conn = None
+        self._mutex = threading.RLock()
+        self._ticker = None
+        self._ticking = threading.Event()
         existed = self.path.exists()
         if existed and not self.path.is_file():
             raise LogbookError(self.path, "is not a file")
@@ -453,8 +457,9 @@ class LogbookWriter:
         """
         if self.session_id is None:
             raise RuntimeError("start_session() before append()")
-        self._rows.append((self.session_id, host_time_unix_s, *_ROW(telemetry)))
-        self._note_buffered()
+        with self._mutex:
+            self._rows.append((self.session_id, host_time_unix_s, *_ROW(telemetry)))
+            self._note_buffered()
 
     def append_rows(self, rows) -> None:
         """Buffer rows already in column order (``TELEMETRY_COLUMNS`` after ``session_id``).
@@ -467,8 +472,9 @@ class LogbookWriter:
         if self.session_id is None:
             raise RuntimeError("start_session() before append_rows()")
         sid = self.session_id
-        self._rows.extend((sid, *row) for row in rows)
-        self._note_buffered()
+        with self._mutex:
+            self._rows.extend((sid, *row) for row in rows)
+            self._note_buffered()
 
     def record_event(self, kind: EventKind, *, host_time_unix_s: float, faults: int = 0,
                      duration_s: float | None = None, detail: str = "") -> None:
@@ -488,9 +494,10 @@ class LogbookWriter:
         """
         if self.session_id is None:
             raise RuntimeError("start_session() before record_event()")
-        self._events.append((self.session_id, host_time_unix_s, EventKind(kind).value, int(faults),
-                             duration_s, detail))
-        self._note_buffered()
+        with self._mutex:
+            self._events.append((self.session_id, host_time_unix_s, EventKind(kind).value, int(faults),
+                                 duration_s, detail))
+            self._note_buffered()
 
     def _note_buffered(self) -> None:
         now = self._clock()
@@ -501,28 +508,49 @@ class LogbookWriter:
 
     def poll(self) -> bool:
         """Commit if the oldest buffered row has waited ``commit_interval_s``; return whether it did."""
-        if self._oldest_s is not None and self._clock() - self._oldest_s >= self.commit_interval_s:
-            self.flush()
-            return True
+        with self._mutex:
+            if self._oldest_s is not None and self._clock() - self._oldest_s >= self.commit_interval_s:
+                self.flush()
+                return True
         return False
+
+    def start_autocommit(self) -> None:
+        """Call :meth:`poll` from a background thread four times per ``commit_interval_s``.
+
+        So buffered rows are committed on time even when no new row arrives.
+        Stopped by :meth:`close`.
+        """
+        if self._ticker is not None:
+            return
+
+        def tick():
+            while not self._ticking.wait(self.commit_interval_s / 4.0):
+                try:
+                    self.poll()
+                except LogbookError:
+                    return  # the foreground sees the same error on its next flush
+
+        self._ticker = threading.Thread(target=tick, name="logbook-autocommit", daemon=True)
+        self._ticker.start()
 
     def flush(self) -> int:
         """Commit everything buffered now, in one transaction; return the rows committed."""
-        if not self._rows and not self._events:
-            self._oldest_s = None
-            return 0
-        rows, events = self._rows, self._events
-        try:
-            self._conn.execute("BEGIN IMMEDIATE")
-            self._conn.executemany(_INSERT_TELEMETRY, rows)
-            self._conn.executemany(_INSERT_EVENT, events)
-            self._conn.execute("COMMIT")
-        except sqlite3.Error as exc:
-            self._rollback()
-            raise _explain(self.path, exc) from None
-        self._rows, self._events, self._oldest_s = [], [], None
-        self.rows_committed += len(rows)
-        return len(rows)
+        with self._mutex:
+            if not self._rows and not self._events:
+                self._oldest_s = None
+                return 0
+            rows, events = self._rows, self._events
+            try:
+                self._conn.execute("BEGIN IMMEDIATE")
+                self._conn.executemany(_INSERT_TELEMETRY, rows)
+                self._conn.executemany(_INSERT_EVENT, events)
+                self._conn.execute("COMMIT")
+            except sqlite3.Error as exc:
+                self._rollback()
+                raise _explain(self.path, exc) from None
+            self._rows, self._events, self._oldest_s = [], [], None
+            self.rows_committed += len(rows)
+            return len(rows)
 
     def _rollback(self) -> None:
         try:
@@ -546,6 +574,10 @@ class LogbookWriter:
 
     def close(self, _abandon: bool = False) -> None:
         """Commit what is buffered (unless abandoning) and close the file."""
+        if self._ticker is not None:
+            self._ticking.set()
+            self._ticker.join()
+            self._ticker = None
         if self._conn is not None:
             try:
                 if not _abandon:
