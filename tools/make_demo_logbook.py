@@ -15,42 +15,22 @@ import json
 import sys
 from pathlib import Path
 
-import numpy as np
-
-from compensator.drift.synthetic import run_rows, synthetic_run
+from compensator.drift.synthetic import synthetic_run
 from compensator.firmware.faults import FaultFlag
 from compensator.link.messages import Identity
-from compensator.logbook import EventKind, LogbookWriter
+from compensator.logbook.demo import write_run
 
 UNITS = [("hut-03", -0.020, 0.030), ("hut-07", -0.008, -0.012), ("hut-11", -0.045, 0.055), ("hut-12", 0.004, 0.010)]
 
 
 def write_unit(path: Path, unit_id: str, *, days: float, rate_hz: float, drift: float, tempco: float, seed: int):
-    gap_day = days * 0.4
-    restart_day = days * 0.7
     run, truth = synthetic_run(days=days, rate_hz=rate_hz, drift_pct_per_day=drift, tempco_pct_per_k=tempco,
-                               gaps=[(gap_day, 1800.0), (restart_day, 600.0)],
+                               gaps=[(days * 0.4, 1800.0)], restarts=[(days * 0.7, 600.0)],
                                faults=[(days * 0.2, 900.0, int(FaultFlag.SENSOR_RATE))],
                                dark_peak_every=10, unit_id=unit_id, seed=seed)
     identity = Identity(firmware_version="1.4.0", board_name="hut-board-ntc", protocol_version=1,
                         table_sha256="9f" * 32, coefficients_sha256="4c" * 32, serial_number=unit_id)
-    t = run.time_unix_s
-    split = int(np.searchsorted(t, t[0] + restart_day * 86400.0))
-    gap_at = int(np.searchsorted(t, t[0] + gap_day * 86400.0))
-    with LogbookWriter(path) as writer:
-        for first, last in ((0, split), (split, run.samples)):
-            writer.start_session(identity, unit_id=unit_id, port="/dev/ttyACM0", rate_hz=rate_hz,
-                                 started_unix_s=float(t[first]) - 1.0)
-            for start in range(first, last, 50_000):
-                stop = min(last, start + 50_000)
-                if start <= gap_at < stop:
-                    writer.record_event(EventKind.LINK_LOST, host_time_unix_s=float(t[gap_at - 1]) + 1.0,
-                                        detail="no answer from the board")
-                    writer.record_event(EventKind.LINK_RESTORED, host_time_unix_s=float(t[gap_at]),
-                                        duration_s=float(t[gap_at] - t[gap_at - 1]))
-                writer.append_rows(run_rows(run, start=start, stop=stop))
-                writer.flush()
-            writer.end_session(host_time_unix_s=float(t[last - 1]) + 1.0, detail="demo")
+    write_run(path, run, identity=identity)
     return truth
 
 

@@ -15,9 +15,9 @@ import numpy as np
 from scipy.signal import lfilter
 
 from compensator.firmware.faults import FaultFlag
-from compensator.logbook.records import RunSeries, SessionRecord
+from compensator.logbook.records import EventKind, EventRecord, RunSeries, SessionRecord
 
-__all__ = ["SyntheticTruth", "synthetic_run", "run_rows", "START_UNIX_S"]
+__all__ = ["SyntheticTruth", "synthetic_run", "START_UNIX_S"]
 
 #: First sample of every synthetic run: 2025-06-15 00:00:00 UTC.
 START_UNIX_S = 1_749_945_600.0
@@ -63,7 +63,7 @@ def synthetic_run(*, days: float, rate_hz: float, drift_pct_per_day: float = -0.
                   correlated_noise_pct: float = 0.03, correlation_time_s: float = 7200.0,
                   mean_temp_c: float = 5.0, daily_swing_k: float = 8.0, weather_k: float = 3.0,
                   seasonal_k_per_day: float = 0.0, dark_peak_every: int = 0, bias_readback: bool = True,
-                  gaps=(), faults=(), unit_id: str = "hut-07", seed: int = 0) -> tuple[RunSeries, SyntheticTruth]:
+                  gaps=(), restarts=(), faults=(), unit_id: str = "hut-07", seed: int = 0) -> tuple[RunSeries, SyntheticTruth]:
     """A seeded synthetic telemetry run (invented data).
 
     Parameters
@@ -96,7 +96,10 @@ def synthetic_run(*, days: float, rate_hz: float, drift_pct_per_day: float = -0.
     bias_readback : bool
         Log a bias read-back (needed by the overvoltage proxy).
     gaps : sequence of (float, float)
-        (start day, length in seconds) stretches without samples.
+        (start day, length in seconds) link outages: no samples, and a
+        ``link_lost`` and ``link_restored`` event.
+    restarts : sequence of (float, float)
+        (day, length in seconds) logger restarts: no samples, then a new session.
     faults : sequence of (float, float, int)
         (start day, length in seconds, fault bits) stretches under a live fault;
         the gain is wrong there (outputs in the safe state).
@@ -113,7 +116,7 @@ def synthetic_run(*, days: float, rate_hz: float, drift_pct_per_day: float = -0.
     n = int(round(days * 86400.0 * rate_hz))
     t_s = np.arange(n) * step_s
     keep = np.ones(n, dtype=bool)
-    for start_day, length_s in gaps:
+    for start_day, length_s in (*gaps, *restarts):
         keep &= ~((t_s >= start_day * 86400.0) & (t_s < start_day * 86400.0 + length_s))
     day = t_s / 86400.0
     true_temp = (mean_temp_c + seasonal_k_per_day * day
@@ -138,46 +141,32 @@ def synthetic_run(*, days: float, rate_hz: float, drift_pct_per_day: float = -0.
         every = np.arange(n) % dark_peak_every == 0
         gain[every] = _GAIN0 * (1.0 + rel_pct[every] / 100.0)
         gain_err[every] = _GAIN0 * white_noise_pct / 100.0
-    session = SessionRecord(session_id=1, started_unix_s=START_UNIX_S, unit_id=unit_id,
-                            firmware_version="0.0-synthetic", board_name="synthetic-board", protocol_version=1,
-                            table_sha256="", coefficients_sha256="", serial_number=unit_id, port="synthetic",
-                            rate_hz=float(rate_hz), rows=int(keep.sum()))
+    kept_t = t_s[keep]
+    session_index = np.zeros(kept_t.size, dtype=np.int64)
+    for day_restart, length_s in sorted(restarts):
+        session_index[kept_t >= day_restart * 86400.0 + length_s] += 1
+    sessions = tuple(
+        SessionRecord(session_id=k + 1, started_unix_s=START_UNIX_S + (kept_t[session_index == k][0]
+                                                                       if np.any(session_index == k) else 0.0),
+                      unit_id=unit_id, firmware_version="0.0-synthetic", board_name="synthetic-board",
+                      protocol_version=1, table_sha256="", coefficients_sha256="", serial_number=unit_id,
+                      port="synthetic", rate_hz=float(rate_hz), rows=int(np.sum(session_index == k)))
+        for k in range(len(restarts) + 1))
+    events = []
+    for start_day, length_s in gaps:
+        lost = START_UNIX_S + start_day * 86400.0
+        session = int(session_index[min(np.searchsorted(kept_t, start_day * 86400.0), kept_t.size - 1)])
+        events.append(EventRecord(session_id=session + 1, time_unix_s=lost, kind=EventKind.LINK_LOST, faults=0,
+                                  duration_s=float("nan"), detail="no answer from the board"))
+        events.append(EventRecord(session_id=session + 1, time_unix_s=lost + length_s,
+                                  kind=EventKind.LINK_RESTORED, faults=0, duration_s=float(length_s), detail=""))
     run = RunSeries(source=f"synthetic:{unit_id}:{seed}", unit_id=unit_id, time_unix_s=START_UNIX_S + t_s[keep],
                     temp_c=temp_c[keep], bias_set_v=bias_set_v[keep],
                     bias_measured_v=(bias_measured_v if bias_readback else np.full(n, np.nan))[keep],
                     overvoltage_target_v=np.full(int(keep.sum()), target_v), faults_live=fault_bits[keep],
                     dark_peak_gain=gain[keep], dark_peak_gain_err=gain_err[keep],
-                    session_index=np.zeros(int(keep.sum()), dtype=np.int64), sessions=(session,), events=())
+                    session_index=session_index, sessions=sessions, events=tuple(events))
     truth = SyntheticTruth(drift_pct_per_day=drift_pct_per_day, tempco_pct_per_k=tempco_pct_per_k,
                            white_noise_pct=white_noise_pct, correlated_noise_pct=correlated_noise_pct,
                            correlation_time_s=correlation_time_s)
     return run, truth
-
-
-def run_rows(run: RunSeries, *, start: int = 0, stop: int | None = None):
-    """Yield a run's samples as logbook rows (:meth:`LogbookWriter.append_rows` order).
-
-    Parameters
-    ----------
-    run : RunSeries
-    start, stop : int
-        Slice of the samples.
-    """
-    stop = run.samples if stop is None else stop
-    t0 = run.time_unix_s[0] if run.samples else 0.0
-
-    def opt(a):
-        return [None if not np.isfinite(v) else float(v) for v in a]
-
-    sl = slice(start, stop)
-    time_s = run.time_unix_s[sl].tolist()
-    temp = run.temp_c[sl].tolist()
-    adc = np.clip(np.rint(32768 - 600.0 * run.temp_c[sl]), 0, 65535).astype(int).tolist()
-    bias_set = run.bias_set_v[sl].tolist()
-    measured = opt(run.bias_measured_v[sl])
-    target = run.overvoltage_target_v[sl].tolist()
-    faults = run.faults_live[sl].tolist()
-    gain, gain_err = opt(run.dark_peak_gain[sl]), opt(run.dark_peak_gain_err[sl])
-    for i in range(len(time_s)):
-        yield (time_s[i], time_s[i] - t0, adc[i], temp[i], bias_set[i], measured[i], 1.0e-6, None, None,
-               target[i], faults[i], faults[i], gain[i], gain_err[i])

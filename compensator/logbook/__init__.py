@@ -6,6 +6,7 @@
 ``export`` (CSV and Parquet).
 """
 
+from compensator.logbook.demo import run_rows, write_run
 from compensator.logbook.logger import LoggerResult, LoggerStatus, missed_gap_s, run_logger
 from compensator.logbook.records import EventKind, EventRecord, RunSeries, SessionRecord
 from compensator.logbook.schema import APPLICATION_ID, SCHEMA_VERSION, TELEMETRY_COLUMNS
@@ -21,6 +22,7 @@ from compensator.logbook.store import (
 )
 
 __all__ = [
+    "run_rows", "write_run",
     "LoggerResult", "LoggerStatus", "missed_gap_s", "run_logger",
     "EventKind", "EventRecord", "RunSeries", "SessionRecord",
     "APPLICATION_ID", "SCHEMA_VERSION", "TELEMETRY_COLUMNS",

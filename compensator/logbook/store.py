@@ -345,6 +345,7 @@ class LogbookWriter:
         self._events: list[tuple] = []
         self._oldest_s: float | None = None
         self.session_id: int | None = None
+        self._session_open = False
         self.rows_committed = 0
         self._lock_fd = None
         self._conn = None
@@ -411,7 +412,7 @@ class LogbookWriter:
 
     def start_session(self, identity, *, unit_id: str, port: str, rate_hz: float | None,
                       started_unix_s: float) -> int:
-        """Commit any buffered rows and open a new session; return its id.
+        """End the open session (if any), commit buffered rows and open a new session; return its id.
 
         Parameters
         ----------
@@ -427,6 +428,8 @@ class LogbookWriter:
         started_unix_s : float
             Host clock, seconds since 1970 (UTC).
         """
+        if self._session_open:
+            self.end_session(host_time_unix_s=started_unix_s, detail="new session")
         self.flush()
         unit_id = unit_id or identity.serial_number or self.path.stem
         values = (started_unix_s, unit_id, identity.firmware_version, identity.board_name,
@@ -438,6 +441,7 @@ class LogbookWriter:
             cursor = self._conn.execute(f"INSERT INTO sessions ({names}) VALUES ({', '.join('?' * len(values))})",
                                         values)
             self.session_id = cursor.lastrowid
+            self._session_open = True
             self._conn.execute(_INSERT_EVENT, (self.session_id, started_unix_s, EventKind.SESSION_START.value, 0,
                                                None, f"port {port}"))
             self._conn.execute("COMMIT")
@@ -559,7 +563,7 @@ class LogbookWriter:
             pass
 
     def end_session(self, *, host_time_unix_s: float, detail: str = "") -> None:
-        """Record an orderly end of the session and commit.
+        """Record an orderly end of the open session (if any) and commit.
 
         Parameters
         ----------
@@ -568,12 +572,13 @@ class LogbookWriter:
         detail : str
             Why it ended (e.g. "duration reached", "interrupted").
         """
-        if self.session_id is not None:
+        if self._session_open:
             self.record_event(EventKind.SESSION_END, host_time_unix_s=host_time_unix_s, detail=detail)
+            self._session_open = False
         self.flush()
 
     def close(self, _abandon: bool = False) -> None:
-        """Commit what is buffered (unless abandoning) and close the file."""
+        """End the open session, commit what is buffered (unless abandoning) and close the file."""
         if self._ticker is not None:
             self._ticking.set()
             self._ticker.join()
@@ -581,7 +586,7 @@ class LogbookWriter:
         if self._conn is not None:
             try:
                 if not _abandon:
-                    self.flush()
+                    self.end_session(host_time_unix_s=time.time(), detail="closed")
             finally:
                 self._conn.close()
                 self._conn = None
