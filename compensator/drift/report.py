@@ -74,8 +74,8 @@ def _figures(run, report: DriftReport, breakdown_v=None) -> list[bytes]:
     twin.plot(day, binned.temp_c, "-", lw=0.7, color="C1", alpha=0.6)
     twin.set_ylabel("temperature (C)", color="C1")
     ax.legend(loc="upper left", fontsize=8)
-    ax.set_title(f"{report.unit_id}: gain ({report.gain_source}) and temperature")
-    fig.tight_layout()
+    ax.set_title(f"{report.unit_id}: gain ({report.gain_source}) and temperature", fontsize=10)
+    fig.subplots_adjust(left=0.1, right=0.9, bottom=0.14, top=0.9)
     figs.append(_png(fig))
 
     fig, ax = plt.subplots(figsize=(6, 3.6))
@@ -91,7 +91,7 @@ def _figures(run, report: DriftReport, breakdown_v=None) -> list[bytes]:
     ax.set_xlabel("temperature (C)")
     ax.set_ylabel("gain less drift (%)")
     ax.set_title("residual temperature coefficient")
-    fig.tight_layout()
+    fig.subplots_adjust(left=0.14, right=0.96, bottom=0.14, top=0.9)
     figs.append(_png(fig))
 
     fig, axes = plt.subplots(1, max(1, len(report.allan)), figsize=(9, 3.2), squeeze=False)
@@ -99,10 +99,10 @@ def _figures(run, report: DriftReport, breakdown_v=None) -> list[bytes]:
         ax.loglog(curve.tau_s, curve.deviation, "o-", ms=3)
         ax.plot([curve.minimum_tau_s], [curve.minimum_deviation], "s", color="C3")
         ax.set_xlabel("averaging time (s)")
-        ax.set_ylabel(f"Allan deviation, {_QUANTITY_LABELS.get(curve.quantity, curve.quantity)}")
+        ax.set_title(_QUANTITY_LABELS.get(curve.quantity, curve.quantity), fontsize=9)
         ax.grid(True, which="both", alpha=0.3)
-    fig.suptitle("overlapping Allan deviation (IEEE Std 1139)")
-    fig.tight_layout()
+    fig.suptitle("overlapping Allan deviation (IEEE Std 1139), in each quantity's unit")
+    fig.subplots_adjust(left=0.09, right=0.98, bottom=0.16, top=0.82, wspace=0.4)
     figs.append(_png(fig))
 
     fig, ax = plt.subplots(figsize=(8, 2.2 + 0.25 * len(report.fault_summary)))
@@ -118,7 +118,7 @@ def _figures(run, report: DriftReport, breakdown_v=None) -> list[bytes]:
     ax.set_xlim(0, max(report.duration_s / 86400.0, 1e-3))
     ax.set_xlabel("time since start (days); grey: no telemetry")
     ax.set_title("fault timeline" if names else "fault timeline: no faults")
-    fig.tight_layout()
+    fig.subplots_adjust(left=0.2, right=0.97, bottom=0.3, top=0.85)
     figs.append(_png(fig))
     return figs
 
