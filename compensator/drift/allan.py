@@ -153,23 +153,29 @@ def overlapping_adev(values, *, tau0_s: float, factors) -> tuple[np.ndarray, np.
     """
     y = np.asarray(values, dtype=float)
     valid = np.isfinite(y)
+    gaps = not valid.all()
     if valid.any():
         y = y - np.mean(y[valid])  # the deviation ignores a constant; this keeps the cumulative sums small
-    csum = np.concatenate(([0.0], np.cumsum(np.where(valid, y, 0.0))))
-    cbad = np.concatenate(([0], np.cumsum(~valid)))
+    csum = np.concatenate(([0.0], np.cumsum(np.where(valid, y, 0.0) if gaps else y)))
+    cbad = np.concatenate(([0], np.cumsum(~valid))) if gaps else None
     factors = np.asarray(factors, dtype=np.int64)
     deviation = np.full(factors.shape, np.nan)
     terms = np.zeros(factors.shape, dtype=np.int64)
+    window = np.empty(csum.size)
     for k, m in enumerate(factors):
         if m < 1 or y.size - 2 * m + 1 < 1:
             continue
-        window = csum[m:] - csum[:-m]                  # sum of y over [j, j+m)
-        bad = (cbad[m:] - cbad[:-m]) > 0
-        step = window[m:] - window[:-m]                # sum over [j+m, j+2m) minus sum over [j, j+m)
-        good = ~(bad[m:] | bad[:-m])
-        count = int(np.count_nonzero(good))
-        if count:
+        n_window = csum.size - m
+        win = np.subtract(csum[m:], csum[:-m], out=window[:n_window])        # sum of y over [j, j+m)
+        step = np.subtract(win[m:], win[:-m], out=win[:n_window - m])         # next window minus this one
+        if gaps:
+            bad = (cbad[m:] - cbad[:-m]) > 0
+            good = ~(bad[m:] | bad[:-m])
+            count = int(np.count_nonzero(good))
             step = step[good]
+        else:
+            count = step.size
+        if count:
             deviation[k] = np.sqrt(np.dot(step, step) / (2.0 * m * m * count))
         terms[k] = count
     return deviation, terms

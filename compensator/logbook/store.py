@@ -165,17 +165,13 @@ def _read_events(conn) -> list[EventRecord]:
     return events
 
 
-def _dense(conn, expression: str, count: int, dtype=float) -> np.ndarray:
-    cursor = conn.execute(f"SELECT {expression} FROM telemetry ORDER BY row_id")
-    return np.fromiter(itertools.chain.from_iterable(cursor), dtype=dtype, count=count)
-
-
-def _nullable(conn, column: str, count: int) -> np.ndarray:
-    if conn.execute(f"SELECT NOT EXISTS (SELECT 1 FROM telemetry WHERE {column} IS NOT NULL)").fetchone()[0]:
-        return np.full(count, np.nan)
-    values = _dense(conn, f"ifnull({column}, {_NULL_AS_INF})", count)
-    values[np.isinf(values)] = np.nan
-    return values
+def _dense(conn, expressions, count: int, dtype=float) -> np.ndarray:
+    """All rows of one SQL expression (a string: 1-d result) or of several (a list: one row of the result each)."""
+    width = 1 if isinstance(expressions, str) else len(expressions)
+    select = expressions if isinstance(expressions, str) else ", ".join(expressions)
+    cursor = conn.execute(f"SELECT {select} FROM telemetry ORDER BY row_id")
+    flat = np.fromiter(itertools.chain.from_iterable(cursor), dtype=dtype, count=count * width)
+    return flat if width == 1 else flat.reshape(count, width).T.copy()
 
 
 def read_sessions(path) -> list[SessionRecord]:
@@ -260,11 +256,20 @@ def read_run(path) -> RunSeries:
             row_ids = np.asarray(row_ids, dtype=np.int64)
             return row_ids - first_id if contiguous else np.searchsorted(row_index, row_ids)
 
-        time_unix_s = _dense(conn, "host_time_unix_s", count)
-        temp_c = _dense(conn, "sensor_temp_c", count)
-        bias_set_v = _dense(conn, "bias_set_v", count)
-        overvoltage_v = _dense(conn, "overvoltage_target_v", count)
-        bias_measured_v = _nullable(conn, "bias_measured_v", count)
+        # One query for the dense columns: a row tuple costs less than a query per column.
+        has_measured = conn.execute("SELECT EXISTS (SELECT 1 FROM telemetry WHERE bias_measured_v IS NOT NULL)"
+                                    ).fetchone()[0]
+        columns = ["host_time_unix_s", "sensor_temp_c", "bias_set_v", "overvoltage_target_v"]
+        if has_measured:
+            columns.append(f"ifnull(bias_measured_v, {_NULL_AS_INF})")
+        dense = _dense(conn, columns, count)
+        time_unix_s, temp_c, bias_set_v, overvoltage_v = dense[:4]
+        if has_measured:
+            bias_measured_v = dense[4]
+            bias_measured_v[np.isinf(bias_measured_v)] = np.nan
+        else:
+            bias_measured_v = np.full(count, np.nan)
+        del dense
         faults = np.zeros(count, dtype=np.int64)
         rows = conn.execute("SELECT row_id, faults_live FROM telemetry WHERE faults_live != 0").fetchall()
         if rows:
