@@ -100,9 +100,10 @@ def test_spectrum_json_contract_and_plot(cli, demo, truth, tmp_path):
     r = cli("calibrate", "spectrum", demo / spec["file"], "--json", "--plot", tmp_path)
     assert r.status == 0, r.stderr
     s = json.loads(r.stdout)["spectra"][0]
-    assert {"file", "gain", "gain_err", "pedestal", "mean_pe", "crosstalk"} <= set(s)
+    assert {"file", "gain_in_charge_unit", "gain_err_in_charge_unit", "pedestal_in_charge_unit", "mean_pe",
+            "crosstalk_branching_ratio"} <= set(s)
     assert s["file"] == str(demo / spec["file"]) and s["charge_unit"] == "pc"
-    assert s["gain"] == pytest.approx(spec["gain_pc"], rel=0.005)
+    assert s["gain_in_charge_unit"] == pytest.approx(spec["gain_pc"], rel=0.005)
     assert (tmp_path / f"{Path(spec['file']).stem}-spectrum.png").exists()
     bad = tmp_path / "empty.csv"
     bad.write_text("charge,counts\n0.1,0\n0.2,0\n")
@@ -115,12 +116,12 @@ def test_spectrum_fit_range_and_amplitude_models(cli, demo, truth):
     path = demo / spec["file"]
     whole = json.loads(cli("calibrate", "spectrum", path, "--json").stdout)["spectra"][0]
     wide = json.loads(cli("calibrate", "spectrum", path, "--json", "--fit-range", "-100", "100").stdout)["spectra"][0]
-    assert wide["gain"] == pytest.approx(whole["gain"], rel=1e-9)
+    assert wide["gain_in_charge_unit"] == pytest.approx(whole["gain_in_charge_unit"], rel=1e-9)
     # A window holding only the pedestal cannot give a gain: a one-line failure, exit 2.
-    narrow = cli("calibrate", "spectrum", path, "--fit-range", "-100", str(whole["pedestal"] + 0.2 * whole["gain"]))
+    narrow = cli("calibrate", "spectrum", path, "--fit-range", "-100", str(whole["pedestal_in_charge_unit"] + 0.2 * whole["gain_in_charge_unit"]))
     assert narrow.status == 2 and narrow.stderr.count("\n") == 1 and "fit failed" in narrow.stderr
     free = json.loads(cli("calibrate", "spectrum", path, "--json", "--amplitudes", "free").stdout)["spectra"][0]
-    assert free["gain"] == pytest.approx(spec["gain_pc"], rel=0.005)
+    assert free["gain_in_charge_unit"] == pytest.approx(spec["gain_pc"], rel=0.005)
 
 
 def test_gain_scan_tables_and_manifest(cli, demo, truth):
@@ -235,7 +236,7 @@ def test_spectrum_event_list_in_adc_counts(cli, tmp_path):
     assert r.status == 0, r.stderr
     s = json.loads(r.stdout)["spectra"][0]
     assert s["charge_unit"] == "adc"
-    assert s["gain"] == pytest.approx(42.0, rel=0.01)
+    assert s["gain_in_charge_unit"] == pytest.approx(42.0, rel=0.01)
 
 
 @pytest.mark.parametrize("text, fragment", [

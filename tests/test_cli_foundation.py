@@ -41,8 +41,8 @@ def test_profile_check_json(cli, profiles_dir, tmp_path):
     bad.write_text("kind: board\n")
     result = cli("profile", "check", "--json", profiles_dir / "hut-cooler.yaml", bad)
     data = json.loads(result.stdout)
-    assert result.status == 2 and data["invalid"] == 1 and data["files"][0]["status"] == "ok"
-    assert {p["key"] for p in data["files"][1]["problems"]} >= {"name", "supply", "dac"}
+    assert result.status == 2 and data["invalid"] == 1 and data["profiles"][0]["status"] == "ok"
+    assert {p["key"] for p in data["profiles"][1]["problems"]} >= {"name", "supply", "dac"}
 
 
 def test_profile_check_nothing_to_check(cli, profiles_dir):

@@ -38,8 +38,8 @@ def test_tune_fopdt_simc_json_contract(cli):
     out = json.loads(r.stdout)
     theta = 5 + 1.5 * 0.1  # the model's dead time plus the hold and computation delay
     assert out["kp"] == pytest.approx(30 / (2 * 2 * theta))  # Skogestad 2003 with tau_c = theta
-    assert out["ki"] == pytest.approx(out["kp"] / min(30, 8 * theta))
-    assert out["kd"] == 0
+    assert out["ki_per_s"] == pytest.approx(out["kp"] / min(30, 8 * theta))
+    assert out["kd_s"] == 0
     assert set(out["margins"]) >= {"gain_margin", "phase_margin_deg", "ms", "crossover_rad_s"}
     assert set(out["step"]) >= {"rise_time_s", "settling_time_s", "overshoot_pct"}
     assert out["stable"] and out["margins"]["ms"] < 1.6
@@ -53,7 +53,7 @@ def test_tune_cooler_profile_with_caution_plot_and_c(cli, profiles_dir, tmp_path
             "--plot", tmp_path, "--emit-c", tmp_path)
     assert r.status == 0, r.stderr
     out = json.loads(r.stdout)
-    assert out["kp"] < 0 and out["ki"] < 0  # more current cools
+    assert out["kp"] < 0 and out["ki_per_s"] < 0  # more current cools
     assert out["margins"]["ms"] <= 1.4 * 1.001
     assert "dew point" in r.stderr and "heat sink" in r.stderr and "licensed practice" in r.stderr
     op = out["plant"]["operating_point"]
@@ -134,7 +134,7 @@ def test_identify_fopdt_json_and_plot(cli, demo_csv, tmp_path):
     assert r.status == 0, r.stderr
     out = json.loads(r.stdout)
     t = truth["fopdt"]
-    assert out["gain"] == pytest.approx(t["gain"], rel=0.005)
+    assert out["process_gain"] == pytest.approx(t["gain"], rel=0.005)
     assert out["time_constant_s"] == pytest.approx(t["time_constant_s"], rel=0.005)
     assert out["dead_time_s"] == pytest.approx(t["dead_time_s"], abs=0.05)
     assert out["tune_args"][0] == "--fopdt"
@@ -146,7 +146,7 @@ def test_identify_cooler_step_then_tune(cli, demo_csv):
     r = cli("identify", d / "step.csv", "--model", "sopdt", "--json")
     assert r.status == 0, r.stderr
     out = json.loads(r.stdout)
-    assert out["gain"] == pytest.approx(truth["step"]["gain_k_per_a"], rel=0.02)
+    assert out["process_gain"] == pytest.approx(truth["step"]["gain_k_per_a"], rel=0.02)
     assert out["time_constant2_s"] > 0
     tuned = cli("tune", *out["tune_args"], "--method", "simc", "--pid", "--rate-hz", 10, "--json")
     assert tuned.status == 0, tuned.stderr

@@ -213,10 +213,15 @@ class SpectrumRecord:
     def summary(self) -> dict:
         """JSON-ready fields (no arrays)."""
         out = {"file": self.file, "charge_unit": self.charge_unit or None, "ok": self.ok, "reason": self.reason or None}
-        names = ("gain", "gain_err", "pedestal", "pedestal_err", "sigma0", "sigma0_err", "sigma1", "sigma1_err",
-                 "mean_pe", "mean_pe_err", "crosstalk", "crosstalk_err", "chi2", "ndf", "n_peaks", "method")
-        for name in names:
-            out[name] = getattr(self.fit, name) if self.fit is not None else None
+        names = {"gain_in_charge_unit": "gain", "gain_err_in_charge_unit": "gain_err",
+                 "pedestal_in_charge_unit": "pedestal", "pedestal_err_in_charge_unit": "pedestal_err",
+                 "sigma0_in_charge_unit": "sigma0", "sigma0_err_in_charge_unit": "sigma0_err",
+                 "sigma1_in_charge_unit": "sigma1", "sigma1_err_in_charge_unit": "sigma1_err",
+                 "mean_pe": "mean_pe", "mean_pe_err": "mean_pe_err",
+                 "crosstalk_branching_ratio": "crosstalk", "crosstalk_branching_ratio_err": "crosstalk_err",
+                 "chi2": "chi2", "ndf": "ndf", "n_peaks": "n_peaks", "method": "method"}
+        for key, attribute in names.items():  # output names of compensator.vocabulary
+            out[key] = getattr(self.fit, attribute) if self.fit is not None else None
         return out
 
 

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
-import json
 import math
 import sys
 from collections.abc import Sequence
@@ -11,6 +9,10 @@ from collections.abc import Sequence
 import numpy as np
 
 from compensator.errors import InputError, Problem
+from compensator.vocabulary import dumps_json, to_json_value
+
+#: Kept for callers of the old name: the one serialiser is :func:`compensator.vocabulary.to_json_value`.
+jsonable = to_json_value
 
 #: Exit statuses, used by every command (and by ``compensator.cli.main``).
 EXIT_OK = 0
@@ -24,6 +26,9 @@ EXIT_NOTHING_ANALYSED = 3
 EXIT_INTERRUPTED = 130
 
 COMMAND_LINE = "<command line>"
+
+#: Where the JSON fields are documented (generated from :mod:`compensator.vocabulary`).
+JSON_FIELDS_DOC = "docs/json-fields.md"
 
 
 def usage_error(flag: str, reason: str) -> InputError:
@@ -39,31 +44,45 @@ def usage_error(flag: str, reason: str) -> InputError:
     return InputError(Problem(COMMAND_LINE, 0, flag, reason))
 
 
-def jsonable(value):
-    """Convert dataclasses, numpy scalars and arrays into JSON-ready values.
-
-    Non-finite floats become ``None`` so the output is strict JSON.
-    """
-    if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        return {f.name: jsonable(getattr(value, f.name)) for f in dataclasses.fields(value)}
-    if isinstance(value, dict):
-        return {str(k): jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [jsonable(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return jsonable(value.tolist())
-    if isinstance(value, np.generic):
-        return jsonable(value.item())
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
 def print_json(value, stream=None) -> None:
-    """Write ``value`` as indented strict JSON to stdout (or ``stream``)."""
-    stream = stream or sys.stdout
-    json.dump(jsonable(value), stream, indent=2, allow_nan=False)
-    stream.write("\n")
+    """Write the JSON document of ``value`` to stdout (or ``stream``).
+
+    The document is built by :func:`compensator.vocabulary.json_document`:
+    it carries ``schema_version`` and ``compensator_version``, floats rounded
+    to :data:`~compensator.vocabulary.SIGNIFICANT_DIGITS` significant digits,
+    no negative zero, and ``null`` for non-finite values.
+
+    Parameters
+    ----------
+    value : record or mapping
+        The command's result; every key must be a registered field name.
+    stream : file-like, optional
+        Where to write (default ``sys.stdout``).
+    """
+    (stream or sys.stdout).write(dumps_json(value))
+
+
+def format_number(value, spec: str = "") -> str:
+    """``format(value, spec)``, except that a number that prints as zero never carries a minus sign.
+
+    Parameters
+    ----------
+    value : object
+        A number (other values are formatted as they are).
+    spec : str, optional
+        A ``format()`` specification, e.g. ``".3f"`` or ``"+.2e"``.
+
+    Examples
+    --------
+    >>> format_number(-0.0001, ".3f"), format_number(-0.0, "+.1f"), format_number(-0.02, ".1f")
+    ('0.000', '+0.0', '0.0')
+    """
+    text = format(value, spec)
+    if isinstance(value, (float, np.floating)) and "-" in text and math.isfinite(value):
+        mantissa = text.lower().split("e")[0]
+        if not any(ch in "123456789" for ch in mantissa):
+            text = format(0.0, spec)
+    return text
 
 
 def format_table(rows: Sequence[Sequence], headers: Sequence[str], formats: Sequence[str] | None = None) -> str:
@@ -77,12 +96,13 @@ def format_table(rows: Sequence[Sequence], headers: Sequence[str], formats: Sequ
         Column titles (put the unit in the title).
     formats : sequence of str, optional
         ``format()`` specs per column, e.g. ``".3f"``; strings pass through.
+        A number that prints as zero never shows a minus sign ("-0.000").
     """
     formats = list(formats or [""] * len(headers))
     cells = [[str(h) for h in headers]]
     for row in rows:
         cells.append([
-            v if isinstance(v, str) else format(v, f) for v, f in zip(row, formats)
+            v if isinstance(v, str) else format_number(v, f) for v, f in zip(row, formats)
         ])
     widths = [max(len(r[i]) for r in cells) for i in range(len(headers))]
     lines = ["  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in cells]
@@ -92,7 +112,9 @@ def format_table(rows: Sequence[Sequence], headers: Sequence[str], formats: Sequ
 
 def add_json_flag(parser) -> None:
     """Add the standard ``--json`` flag."""
-    parser.add_argument("--json", action="store_true", help="print machine-readable JSON on stdout")
+    parser.add_argument("--json", action="store_true",
+                        help=f"print machine-readable JSON on stdout instead of the table; every field's unit and "
+                             f"meaning: {JSON_FIELDS_DOC}")
 
 
 def finite_float(text: str) -> float:

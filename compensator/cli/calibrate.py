@@ -276,8 +276,8 @@ def _scan_from_spectra(args, label, temp_c, entries, errors):
                                  [rec.reason or "" for rec in records], temp_c=temp_c,
                                  charge_per_unit_c=args.charge_per_unit_c,
                                  charge_unit=units.pop() if len(units) == 1 else "")
-    per = [{"file": rec.file, "bias_v": b, "gain": rec.fit.gain if rec.ok else None,
-            "gain_err": rec.fit.gain_err if rec.ok else None, "reason": rec.reason or None}
+    per = [{"file": rec.file, "bias_v": b, "gain_in_charge_unit": rec.fit.gain if rec.ok else None,
+            "gain_err_in_charge_unit": rec.fit.gain_err if rec.ok else None, "reason": rec.reason or None}
            for rec, (_, b) in zip(records, entries)]
     return _scan_summary(label, result.scan, {"spectra": per})
 
@@ -328,7 +328,7 @@ def run_tempco(args) -> int:
     resid = scan.breakdown_v - fit.chosen(scan.temp_c)
     out = {
         "file": args.file, "ref_temp_c": fit.ref_temp_c, "breakdown_v_at_ref": fit.breakdown_v_at_ref,
-        "breakdown_err_v": fit.breakdown_err_v, "tempco_mv_per_k": fit.tempco_mv_per_k,
+        "breakdown_err_v_at_ref": fit.breakdown_err_v, "tempco_mv_per_k": fit.tempco_mv_per_k,
         "tempco_err_mv_per_k": fit.tempco_err_mv_per_k, "curvature_mv_per_k2": fit.curvature_mv_per_k2,
         "curvature_err_mv_per_k2": fit.curvature_err_mv_per_k2, "model": fit.model,
         "tempco_relative_per_k": 1e-3 * fit.tempco_mv_per_k / fit.breakdown_v_at_ref,
@@ -345,7 +345,7 @@ def run_tempco(args) -> int:
             "capacitance_tempco_ppm_per_k": cg.capacitance_tempco_ppm_per_k,
             "capacitance_tempco_err_ppm_per_k": cg.capacitance_tempco_err_ppm_per_k},
         "capacitance_f_at_ref": cap_at_ref,
-        "profile": None if written is None else {"file": args.write_profile, "name": written.name},
+        "written_profile": None if written is None else {"file": args.write_profile, "name": written.name},
     }
     if args.json:
         print_json(out)

@@ -88,7 +88,7 @@ def instrument_model(law, sipm_profile, board_profile, table, temps_c) -> dict:
         "law_gain_error_pct": 100.0 * (gain(device, at_sensor_v, temps_c) / nominal_gain - 1.0),
         "firmware_dac_code": dac_code,
         "firmware_gain_error_pct": 100.0 * (gain(device, firmware_v, temps_c) / nominal_gain - 1.0),
-        "dark_rate_khz": evaluate(device, temps_c, bias_v=at_sensor_v).dark_rate_hz / 1e3,
+        "dark_rate_hz": evaluate(device, temps_c, bias_v=at_sensor_v).dark_rate_hz,
     }
 
 
@@ -111,7 +111,7 @@ def characterise(sipm_profile, seed: int = DEMO_SEED) -> dict:
     found = find_breakdown(bias_v, current_a)
     fit = fit_tempco(temps_c, found.breakdown_v, found.breakdown_err_v, ref_temp_c=truth.ref_temp_c)
     return {
-        "sipm": sipm_profile.name, "curves": int(temps_c.size), "temp_c": temps_c,
+        "sipm": sipm_profile.name, "curve_count": int(temps_c.size), "temp_c": temps_c,
         "breakdown_v": found.breakdown_v, "breakdown_err_v": found.breakdown_err_v, "true_breakdown_v": true_v,
         "tempco_mv_per_k": fit.tempco_mv_per_k, "tempco_err_mv_per_k": fit.tempco_err_mv_per_k,
         "true_tempco_mv_per_k": truth.tempco_mv_per_k,
@@ -143,8 +143,8 @@ def table_summary(law, table, uniform, sipm_profile, board_profile, out_dir: Pat
                                                     what="table output")]
     return {
         "bound_pct": DEMO_TABLE_BOUND_PCT,
-        "optimised_entries": table.entries, "optimised_bytes": table.table_bytes,
-        "uniform_entries": uniform.entries, "uniform_bytes": uniform.table_bytes,
+        "optimised_entries": table.entries, "optimised_table_bytes": table.table_bytes,
+        "uniform_entries": uniform.entries, "uniform_table_bytes": uniform.table_bytes,
         "codes_verified": int(sweep.adc_code.size), "max_gain_error_pct": sweep.max_gain_error_pct,
         "files": files,
     }
@@ -213,7 +213,7 @@ def run(args) -> int:
 
     # 1. Characterise
     char = characterise(loaded[0][0])
-    say(f"== 1. characterise {char['sipm']} from {char['curves']} synthetic bench I-V curves (-20..40 C, seed "
+    say(f"== 1. characterise {char['sipm']} from {char['curve_count']} synthetic bench I-V curves (-20..40 C, seed "
         f"{DEMO_SEED})")
     say(f"breakdown at {char['ref_temp_c']:g} C: {char['breakdown_v_at_ref']:.4f} +- {char['breakdown_err_v_at_ref']:.4f} V "
         f"(truth {char['true_breakdown_v_at_ref']:g}); tempco {char['tempco_mv_per_k']:.2f} +- "
@@ -244,7 +244,7 @@ def run(args) -> int:
         say(format_table(
             list(zip(model["temp_c"], model["breakdown_v"], model["fixed_gain_error_pct"], model["law_supply_v"],
                      model["series_drop_mv"], model["law_gain_error_pct"], model["adc_code"].tolist(),
-                     model["firmware_dac_code"].tolist(), model["firmware_gain_error_pct"], model["dark_rate_khz"])),
+                     model["firmware_dac_code"].tolist(), model["firmware_gain_error_pct"], model["dark_rate_hz"] / 1e3)),
             ["temp_c", "breakdown_v", "fixed_bias_gain_%", "law_supply_v", "series_drop_mv", "law_gain_%",
              "adc_code", "table_dac_code", "firmware_gain_%", "dark_khz"],
             [".1f", ".3f", "+.2f", ".4f", ".2f", "+.3f", "d", "d", "+.3f", ".1f"]))
@@ -255,8 +255,8 @@ def run(args) -> int:
             f"{budget.dominant}; {budget.calibrated_rss_pct:.2f} % after a one-point calibration, dominated by "
             f"{budget.calibrated_dominant}")
         say(f"== 3. lookup table at {tables['bound_pct']:g} %: optimised {tables['optimised_entries']} entries "
-            f"({tables['optimised_bytes']} B), smallest uniform {tables['uniform_entries']} entries "
-            f"({tables['uniform_bytes']} B); {tables['codes_verified']} ADC codes verified, worst "
+            f"({tables['optimised_table_bytes']} B), smallest uniform {tables['uniform_entries']} entries "
+            f"({tables['uniform_table_bytes']} B); {tables['codes_verified']} ADC codes verified, worst "
             f"{tables['max_gain_error_pct']:.4f} %")
         for f in tables["files"]:
             say(f"wrote {f}")

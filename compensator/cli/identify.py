@@ -61,8 +61,8 @@ def run(args) -> int:
             files = [str(f) for f in plot_relay(args.plot, stem, record, result, overwrite=args.force)]
     else:
         model = result.model
-        out = {"model": args.model, "file": args.file, **asdict(model),
-               "standard_errors": result.standard_errors, "smith_start": asdict(result.start),
+        out = {"model": args.model, "file": args.file, **_named(asdict(model)),
+               "standard_errors": _named(result.standard_errors), "smith_start": _named(asdict(result.start)),
                "baseline": result.baseline, "step_time_s": result.step_time_s, "input_step": result.input_step,
                "residual_rms": result.residual_rms, "r_squared": result.r_squared,
                "warnings": list(result.warnings)}
@@ -89,6 +89,11 @@ def run(args) -> int:
     return 0
 
 
+def _named(params: dict) -> dict:
+    """Model parameters under their output names (``gain`` is the ``process_gain``)."""
+    return {("process_gain" if k == "gain" else k): v for k, v in params.items()}
+
+
 def _print_human(out):
     if out["model"] == "relay":
         rows = [("ultimate gain Ku", out["ultimate_gain"], "input per output unit"),
@@ -99,7 +104,7 @@ def _print_human(out):
         print(f"{out['cycles']} cycles; period spread {out['period_std_s']:.3g} s")
     else:
         se = out["standard_errors"]
-        keys = [k for k in ("gain", "time_constant_s", "time_constant2_s", "dead_time_s") if k in out]
+        keys = [k for k in ("process_gain", "time_constant_s", "time_constant2_s", "dead_time_s") if k in out]
         rows = [(k, out[k], se.get(k, float("nan")), out["smith_start"].get(k, float("nan"))) for k in keys]
         print(format_table(rows, ["parameter", "fit", "std error", "Smith start"], ["", ".5g", ".2g", ".5g"]))
         print(f"R^2 {out['r_squared']:.5f}, residual rms {out['residual_rms']:.3g}")

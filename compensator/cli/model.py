@@ -42,8 +42,8 @@ def run(args) -> int:
     if args.json:
         print_json({"sipm": profile.name, "file": args.sipm, "mode": "bias" if args.bias_v is not None else "overvoltage",
                     "points": [
-                        {"temp_c": t, "bias_v": b, "breakdown_v": vbd, "overvoltage_v": ov, "gain": g, "pde": p,
-                         "dark_rate_hz": d, "crosstalk": x, "current_a": i, "gain_change_pct_per_k": c}
+                        {"temp_c": t, "bias_v": b, "breakdown_v": vbd, "overvoltage_v": ov, "gain": g, "pde_fraction": p,
+                         "dark_rate_hz": d, "crosstalk_fraction": x, "current_a": i, "gain_change_pct_per_k": c}
                         for t, b, vbd, ov, g, p, d, x, i, c in zip(
                             *(np.atleast_1d(a).tolist() for a in (
                                 state.temp_c, state.bias_v, state.breakdown_v, state.overvoltage_v, state.gain,

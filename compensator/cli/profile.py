@@ -51,7 +51,7 @@ def run_check(args) -> int:
         if not args.json:
             print(f"{name}: ok ({kind} {profile.name})")
     if args.json:
-        print_json({"files": results, "checked": checked, "invalid": failed})
+        print_json({"profiles": results, "checked": checked, "invalid": failed})
     if checked == 0:
         print("compensator: no YAML profile among the files given", file=sys.stderr)
         return 2

@@ -272,10 +272,10 @@ def _summary(args, plant, profile, kind, result, report, rate, warnings, files):
     if plant.operating_point is not None:
         plant_info["operating_point"] = asdict(plant.operating_point)
     if result.model is not None:
-        plant_info["model"] = asdict(result.model)
+        plant_info["process_model"] = _process_model(result.model)
     return {
         "method": result.method, "controller": "PID" if result.pid else "PI",
-        "kp": g.kp, "ki": g.ki_per_s, "kd": g.kd_s,
+        "kp": g.kp, "ki_per_s": g.ki_per_s, "kd_s": g.kd_s,
         "derivative_filter_n": g.derivative_filter_n, "setpoint_weight": g.setpoint_weight,
         "rate_hz": rate, "sample_time_s": 1.0 / rate,
         "rule_dead_time_s": result.rule_dead_time_s if result.method not in ("robust", "zn-cycle") else None,
@@ -292,6 +292,13 @@ def _summary(args, plant, profile, kind, result, report, rate, warnings, files):
     }
 
 
+def _process_model(model) -> dict:
+    """The process model's fields under their output names (``gain`` is the ``process_gain``)."""
+    from dataclasses import asdict
+
+    return {("process_gain" if k == "gain" else k): v for k, v in asdict(model).items()}
+
+
 def _fmt(v, spec=".4g"):
     if v is None:
         return "-"
@@ -302,8 +309,8 @@ def _print_human(out):
     p = out["plant"]
     print(f"{out['controller']} by {out['method']} for {p['name']} ({p['input']} -> {p['output']}), "
           f"{out['rate_hz']:g} Hz")
-    rows = [("kp", _fmt(out["kp"]), "per output unit"), ("ki", _fmt(out["ki"]), "per output unit per s"),
-            ("kd", _fmt(out["kd"]), "per output unit times s")]
+    rows = [("kp", _fmt(out["kp"]), "per output unit"), ("ki", _fmt(out["ki_per_s"]), "per output unit per s"),
+            ("kd", _fmt(out["kd_s"]), "per output unit times s")]
     print(format_table(rows, ["gain", "value", "unit (actuator units)"]))
     m, s = out["margins"], out["step"]
     print(f"margins: gain {_fmt(m['gain_margin'], '.3g')}, phase {_fmt(m['phase_margin_deg'], '.1f')} deg, "
