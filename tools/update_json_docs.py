@@ -75,6 +75,13 @@ INVOCATIONS: tuple[Invocation, ...] = (
     Invocation(command="calibrate tempco", argv=("calibrate", "tempco", "{work}/gain-scan.json", "--write-profile",
                                                  "{work}/calibrated.yaml", "--base", f"{_H}/hut-sipm-a.yaml")),
     Invocation(command="calibrate tempco", argv=("calibrate", "tempco", "{work}/iv.json")),
+    Invocation(command="board-code", argv=("board-code", "--out", "{work}/board-code", "--sipm",
+                                           f"{_H}/hut-sipm-a.yaml", "--board", f"{_H}/hut-board-ntc.yaml")),
+    *(Invocation(command=f"board {action}", argv=("board", "--port", "{board}", action, *extra))
+      for action, extra in (("identify", ()), ("status", ()), ("set-overvoltage", ("3",)), ("set-bias", ("27",)),
+                            ("enable", ()), ("disable", ()), ("faults", ()), ("clear-faults", ()),
+                            ("upload-table", ("{work}/board.table.image.json",)),
+                            ("upload-pid", ("{work}/board.pid.image.json",)))),
 )
 
 
@@ -116,7 +123,38 @@ def prepare(work: Path) -> dict:
     make_loop_data.make_step(loops / "hut-cooler-step.csv")
     make_loop_data.make_relay(loops / "hut-cooler-relay.csv")
     (work / "bad.yaml").write_text("kind: board\n")
-    return {"profiles": str(REPO / "hardware_profiles"), "demo": str(demo), "loops": str(loops), "work": str(work)}
+    return {"profiles": str(REPO / "hardware_profiles"), "demo": str(demo), "loops": str(loops), "work": str(work),
+            "board": _start_board(work)}
+
+
+def _start_board(work: Path) -> str:
+    """A simulated board for the ``board`` invocations (stopped at exit); writes images to upload; returns its port."""
+    import atexit
+    import threading
+
+    from compensator.board import SimulatedBoard, build_board
+    from compensator.firmware.pid import PidSettings, quantise_pid
+    from compensator.link.images import pid_image, table_image
+    from compensator.profiles import load_board, load_sipm
+
+    profiles = REPO / "hardware_profiles"
+    firmware, plant, _ = build_board(load_sipm(profiles / "hut-sipm-a.yaml"), load_board(profiles / "hut-board-ntc.yaml"),
+                                     overvoltage_v=3.0, heartbeat_timeout_s=0.0)
+    (work / "board.table.image.json").write_bytes(table_image(firmware.table))
+    pid = quantise_pid(PidSettings(kp=0.5, ki_per_s=0.05, kd_s=0.0, sample_time_s=0.1, out_min=-3.0, out_max=3.0),
+                       input_per_count=0.01, output_per_count=0.001)
+    (work / "board.pid.image.json").write_bytes(pid_image(pid))
+    sim = SimulatedBoard(firmware, plant)
+    thread = threading.Thread(target=sim.run, daemon=True)
+    thread.start()
+
+    def stop():
+        sim.stop()
+        thread.join(5.0)
+        sim.close()
+
+    atexit.register(stop)
+    return sim.path
 
 
 def collect(work: Path, invocations=INVOCATIONS) -> list[Run]:

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from enum import IntFlag
 
-__all__ = ["FaultFlag", "fault_names"]
+__all__ = ["FaultFlag", "TRIP_FLAGS", "fault_names"]
 
 
 class FaultFlag(IntFlag):
@@ -27,6 +27,11 @@ class FaultFlag(IntFlag):
     HEARTBEAT_LOST = 1 << 7       # host silent longer than the heartbeat timeout
     REQUEST_REFUSED = 1 << 8      # a host request was refused (informational)
     SUPPLY_FAULT = 1 << 9         # bias read-back disagrees with the set value
+
+
+#: Flags that put the outputs in the safe state while latched.
+TRIP_FLAGS = (FaultFlag.SENSOR_OPEN | FaultFlag.SENSOR_SHORT | FaultFlag.SENSOR_RATE | FaultFlag.OVER_CURRENT
+              | FaultFlag.HOT_SIDE_OVER_TEMP | FaultFlag.HEARTBEAT_LOST | FaultFlag.SUPPLY_FAULT)
 
 
 def fault_names(flags: int) -> list[str]:

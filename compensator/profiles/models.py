@@ -181,7 +181,13 @@ def _build_thermal(raw: RawProfile) -> ThermalProfile:
     return ThermalProfile(**_meta(raw), cooler=cooler)
 
 
-_BUILDERS = {"sipm": _build_sipm, "board": _build_board, "thermal": _build_thermal}
+def _build_scenario(raw: RawProfile):
+    from compensator.profiles.scenario import build_scenario
+
+    return build_scenario(raw)
+
+
+_BUILDERS = {"sipm": _build_sipm, "board": _build_board, "thermal": _build_thermal, "scenario": _build_scenario}
 
 
 def load_profile(path: str | Path, kind: str | None = None):
@@ -191,12 +197,12 @@ def load_profile(path: str | Path, kind: str | None = None):
     ----------
     path : str or path-like
         YAML file.
-    kind : {"sipm", "board", "thermal"}, optional
+    kind : {"sipm", "board", "thermal", "scenario"}, optional
         Expected kind; another kind is an error.
 
     Returns
     -------
-    SipmProfile, BoardProfile or ThermalProfile
+    SipmProfile, BoardProfile, ThermalProfile or ScenarioProfile
 
     Raises
     ------

@@ -254,7 +254,10 @@ THERMAL = KindSchema(
     ),
 )
 
-KINDS: dict[str, KindSchema] = {s.kind: s for s in (SIPM, BOARD, THERMAL)}
+# The field-scenario kind lives in a module of its own (it imports the classes above).
+from compensator.profiles.scenario import SCENARIO  # noqa: E402
+
+KINDS: dict[str, KindSchema] = {s.kind: s for s in (SIPM, BOARD, THERMAL, SCENARIO)}
 
 #: Keys allowed at the top of every profile besides the sections.
 TOP_KEYS = (

@@ -1,0 +1,140 @@
+"""Images of a lookup table or loop coefficients for upload to the board.
+
+The protocol carries an image as bytes with its size and CRC-32; what the
+bytes mean is the firmware's business. compensator's images (what the
+simulated board accepts) are canonical JSON records of the firmware
+package's objects: ``{"image": "lookup_table" | "pid_coefficients",
+"format": 1, "fields": {...}}`` with sorted keys and no spaces, so the same
+table always gives the same bytes and the same SHA-256 (the board reports it
+in :class:`~compensator.link.messages.Identity`). A microcontroller usually
+compiles the generated C instead; a builder whose firmware accepts uploads
+defines its own binary image and keeps this protocol.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+
+import numpy as np
+
+from compensator.errors import LinkError
+from compensator.link.protocol import MAX_IMAGE_BYTES
+
+__all__ = ["IMAGE_FORMAT", "table_image", "pid_image", "read_image", "image_sha256", "ImageError"]
+
+#: Version of the image layout.
+IMAGE_FORMAT = 1
+
+
+class ImageError(LinkError, ValueError):
+    """An image is not one of ours, or its content is not valid."""
+
+
+def _plain(value):
+    if isinstance(value, np.ndarray):
+        return {"ndarray": value.tolist(), "dtype": str(value.dtype)}
+    if isinstance(value, np.generic):
+        return value.item()
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {"record": type(value).__name__,
+                "fields": {f.name: _plain(getattr(value, f.name)) for f in dataclasses.fields(value)}}
+    if hasattr(value, "value") and hasattr(type(value), "__members__"):  # enums
+        return value.value
+    return value
+
+
+def _image(kind: str, record) -> bytes:
+    body = {"image": kind, "format": IMAGE_FORMAT,
+            "fields": {f.name: _plain(getattr(record, f.name)) for f in dataclasses.fields(record)}}
+    data = json.dumps(body, sort_keys=True, separators=(",", ":"), allow_nan=False).encode("ascii")
+    if len(data) > MAX_IMAGE_BYTES:
+        raise ImageError(f"the {kind.replace('_', ' ')} image has {len(data)} bytes, more than the protocol's "
+                         f"{MAX_IMAGE_BYTES}: choose a smaller table")
+    return data
+
+
+def table_image(table) -> bytes:
+    """The image of a :class:`~compensator.firmware.tables.LookupTable`.
+
+    Parameters
+    ----------
+    table : LookupTable
+
+    Raises
+    ------
+    ImageError
+        The image would exceed :data:`~compensator.link.protocol.MAX_IMAGE_BYTES`.
+    """
+    return _image("lookup_table", table)
+
+
+def pid_image(coefficients) -> bytes:
+    """The image of :class:`~compensator.firmware.pid.FixedPidCoefficients`.
+
+    Parameters
+    ----------
+    coefficients : FixedPidCoefficients
+    """
+    return _image("pid_coefficients", coefficients)
+
+
+def _revive(value, types):
+    if isinstance(value, dict) and "ndarray" in value:
+        return np.asarray(value["ndarray"], dtype=value["dtype"])
+    if isinstance(value, dict) and "record" in value:
+        cls = types.get(value["record"])
+        if cls is None:
+            raise ImageError(f"unknown record {value['record']!r} in the image")
+        return cls(**{k: _revive(v, types) for k, v in value["fields"].items()})
+    return value
+
+
+def read_image(data: bytes):
+    """The object an image holds.
+
+    Parameters
+    ----------
+    data : bytes
+        An image from :func:`table_image` or :func:`pid_image`.
+
+    Returns
+    -------
+    tuple of (str, object)
+        ``("lookup_table", LookupTable)`` or ``("pid_coefficients", FixedPidCoefficients)``.
+
+    Raises
+    ------
+    ImageError
+        Not an image of ours, another format version, or fields the objects refuse.
+    """
+    from compensator.firmware import pid as pid_module
+    from compensator.firmware import tables as tables_module
+
+    try:
+        body = json.loads(bytes(data).decode("ascii"))
+        kind, fmt, fields = body["image"], body["format"], body["fields"]
+    except (ValueError, KeyError, TypeError, UnicodeDecodeError) as exc:
+        raise ImageError(f"not a compensator image ({exc.__class__.__name__})") from None
+    if fmt != IMAGE_FORMAT:
+        raise ImageError(f"image format {fmt!r}, this version reads {IMAGE_FORMAT}")
+    cls = {"lookup_table": tables_module.LookupTable, "pid_coefficients": pid_module.FixedPidCoefficients}.get(kind)
+    if cls is None:
+        raise ImageError(f"unknown image kind {kind!r}")
+    types = {name: obj for module in (tables_module, pid_module) for name, obj in vars(module).items()
+             if isinstance(obj, type) and dataclasses.is_dataclass(obj)}
+    try:
+        return kind, cls(**{k: _revive(v, types) for k, v in fields.items()})
+    except (TypeError, ValueError) as exc:
+        raise ImageError(f"the {kind.replace('_', ' ')} image does not hold a valid record: {exc}") from None
+
+
+def image_sha256(data: bytes) -> str:
+    """Hex SHA-256 of an image (what the board reports for what it loaded).
+
+    Parameters
+    ----------
+    data : bytes
+    """
+    return hashlib.sha256(data).hexdigest()

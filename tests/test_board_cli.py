@@ -1,0 +1,134 @@
+"""Command line: board-sim in a subprocess (path first, clean stop on SIGTERM), board against it, board-code, bad input."""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import signal
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from cbuild import CC, needs_cc
+from compensator.physics.sipm import breakdown_v
+
+PROFILES = Path(__file__).resolve().parent.parent / "hardware_profiles"
+
+
+@pytest.fixture(scope="module")
+def sim_port():
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "compensator", "board-sim", "--sipm", str(PROFILES / "hut-sipm-b.yaml"),
+         "--board", str(PROFILES / "hut-board-pt1000.yaml"), "--ambient-c", "10", "--time-scale", "20",
+         "--heartbeat-timeout-s", "0", "--seed", "2"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    path = proc.stdout.readline().strip()
+    try:
+        yield path, proc
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+        if path:
+            shutil.rmtree(Path(path).parent, ignore_errors=True)   # a killed simulator leaves its folder
+
+
+def test_status_json_with_numbers(cli, sim_port, sipm_b):
+    path, _ = sim_port
+    assert Path(path).exists() and os.path.realpath(path).startswith("/dev/pts/")
+    result = cli("board", "--port", path, "status", "--json")
+    assert result.status == 0, result.stderr
+    doc = json.loads(result.stdout)
+    assert doc["temp_c"] == pytest.approx(10.0, abs=0.5)          # the constant 10 C ambient
+    assert doc["bias_v"] == pytest.approx(30.0, abs=0.01)         # hut-board-pt1000 at its safe code 0: 30 V
+    assert doc["current_a"] is None and doc["faults"] == [] and doc["board_mode"] == "off"
+
+
+def test_set_bias_refused_with_reason_and_status_2(cli, sim_port, sipm_b):
+    path, _ = sim_port
+    ceiling = float(breakdown_v(sipm_b.device, 10.0)) + sipm_b.device.max_overvoltage_v   # physics.sipm
+    result = cli("board", "--port", path, "set-bias", f"{ceiling + 0.5:.3f}")
+    assert result.status == 2
+    lines = [line for line in result.stderr.splitlines() if line.startswith("compensator:")]
+    assert len(lines) == 1 and "refused: beyond a safety limit" in lines[0]
+    limit = float(re.search(r"\(limit ([0-9.]+) V", lines[0]).group(1))
+    assert ceiling - 0.1 < limit <= ceiling
+    result = cli("board", "--port", path, "set-bias", "40", "--json")
+    assert result.status == 0
+    assert json.loads(result.stdout)["bias_set_v"] == pytest.approx(40.0, abs=0.001)
+    result = cli("board", "--port", path, "faults", "--json")
+    assert json.loads(result.stdout)["faults_latched"] == ["request_refused"]
+    assert cli("board", "--port", path, "clear-faults").status == 0
+
+
+def test_upload_table_image_from_a_folder(cli, sim_port, tmp_path):
+    from compensator.board import build_board
+    from compensator.link.images import image_sha256, table_image
+    from compensator.profiles import load_board, load_sipm
+
+    path, _ = sim_port
+    firmware, _, _ = build_board(load_sipm(PROFILES / "hut-sipm-b.yaml"), load_board(PROFILES / "hut-board-pt1000.yaml"),
+                                 overvoltage_v=4.0)
+    image = table_image(firmware.table)
+    (tmp_path / "bias_table.image.json").write_bytes(image)
+    result = cli("board", "--port", path, "upload-table", tmp_path, "--json")
+    assert result.status == 0, result.stderr
+    doc = json.loads(result.stdout)
+    assert doc["image_bytes"] == len(image) and doc["image_sha256"] == image_sha256(image)
+    result = cli("board", "--port", path, "upload-pid", tmp_path)
+    assert result.status == 2 and "not pid coefficients" in result.stderr
+
+
+def test_sigterm_ends_cleanly(sim_port):
+    path, proc = sim_port
+    folder = Path(path).parent
+    proc.send_signal(signal.SIGTERM)
+    _, err = proc.communicate(timeout=10)
+    assert proc.returncode == 0, err
+    assert "Traceback" not in err and "stopped after" in err
+    assert not folder.exists()
+
+
+@pytest.mark.parametrize("argv, needle", [
+    (["board", "--port", "/nonexistent/tty", "status"], "cannot open the port"),
+    (["board", "--port", "loop://", "set-bias", "nan"], "must be finite"),
+    (["board-sim", "--sipm", "missing.yaml", "--board", "missing.yaml"], "missing.yaml"),
+    (["board-sim", "--board", "x.yaml"], "needs --sipm and --board"),
+    (["board-sim", "--sipm", "a", "--board", "b", "--corrupt-rate", "1.5"], "probability"),
+    (["board-code", "--out", "x", "--sipm", "a.yaml"], "--board"),
+])
+def test_bad_input_is_one_line_and_status_2(cli, argv, needle, tmp_path):
+    result = cli(*argv)
+    assert result.status == 2
+    assert needle in result.stderr and "Traceback" not in result.stderr
+
+
+def test_loop_url_times_out_with_one_line(cli):
+    # loop:// echoes our own request back: no board answers, so the request times out after its retries
+    result = cli("board", "--port", "loop://", "status")
+    assert result.status == 2
+    lines = [line for line in result.stderr.splitlines() if line.startswith("compensator:")]
+    assert len(lines) == 1 and "read_status" in lines[0] and "5 attempts" in lines[0]
+
+
+@needs_cc
+def test_board_code_writes_c_that_compiles(cli, tmp_path):
+    out = tmp_path / "fw"
+    result = cli("board-code", "--out", out, "--sipm", PROFILES / "hut-sipm-a.yaml", "--board",
+                 PROFILES / "hut-board-ntc.yaml", "--thermal", PROFILES / "hut-cooler.yaml", "--json")
+    assert result.status == 0, result.stderr
+    doc = json.loads(result.stdout)
+    assert doc["max_frame_bytes"] == 248 and doc["interlocks"]["heartbeat_timeout_ms"] == 10_000
+    # hut-board-ntc's lowest output (25.19 V) stays above hut-sipm-a's breakdown at -45 C (22.995 V)
+    assert doc["interlocks"]["safe_margin_v"] == pytest.approx(22.995 - 25.18534, abs=2e-3)
+    assert "danger" in result.stderr
+    for source in ("board_link.c", "interlocks.c"):
+        compiled = subprocess.run([CC, "-std=c99", "-Wall", "-Wextra", "-Werror", "-c", str(out / source), "-o",
+                                   str(tmp_path / (source + ".o"))], capture_output=True, text=True)
+        assert compiled.returncode == 0 and compiled.stderr == ""
+    again = cli("board-code", "--out", out)
+    assert again.status == 2 and "already exists" in again.stderr

@@ -1,0 +1,330 @@
+"""Safety interlocks: limits against independent computations, the rules one by one, and the C bit-exact with Python."""
+
+from __future__ import annotations
+
+import random
+import subprocess
+
+import numpy as np
+import pytest
+
+from cbuild import build, needs_cc
+from compensator.errors import ModelError
+from compensator.firmware.faults import TRIP_FLAGS, FaultFlag
+from compensator.firmware.interlocks import (
+    ABSENT,
+    STATE_OFF,
+    STATE_RUN,
+    STATE_TRIPPED,
+    InterlockInputs,
+    Interlocks,
+    build_interlock_limits,
+)
+from compensator.firmware.interlocks_c import render_interlocks_c, write_interlocks_c
+from compensator.physics.sipm import breakdown_v
+
+STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion",
+          "-Wshadow", "-Wstrict-prototypes", "-Wmissing-prototypes"]
+
+
+@pytest.fixture(scope="module")
+def falling(sipm_a, board_ntc, cooler):
+    """Feedback-injection supply: the bias falls as the code rises."""
+    return build_interlock_limits(sipm_a, board_ntc, cooler, heartbeat_timeout_s=5.0)
+
+
+@pytest.fixture(scope="module")
+def rising(sipm_b, board_pt1000):
+    """Direct supply: the bias rises with the code; no cooler."""
+    return build_interlock_limits(sipm_b, board_pt1000)
+
+
+def _inputs(lim, board, temp_c, request_code, *, now_ms=0, enabled=1, last_host_ms=None, **extra):
+    code = int(board.temperature.adc_code(temp_c))
+    return InterlockInputs(now_ms=now_ms, adc_code=code, temp_mdegc=int(round(temp_c * 1000)),
+                           request_dac_code=request_code, outputs_enabled=enabled,
+                           last_host_ms=now_ms if last_host_ms is None else last_host_ms, **extra)
+
+
+# ---------------------------------------------------------------- limits vs independent computations
+
+@pytest.mark.parametrize("which", ["falling", "rising"])
+def test_bias_limit_never_above_max_overvoltage(which, request, sipm_a, sipm_b, board_ntc, board_pt1000):
+    lim = request.getfixturevalue(which)
+    sipm, board = (sipm_a, board_ntc) if which == "falling" else (sipm_b, board_pt1000)
+    temps = np.linspace(board.min_temp_c - 20, board.max_temp_c + 20, 300)
+    for t in temps:
+        level = lim.limit_level(int(np.floor(t * 1000)))
+        bias = float(board.supply.output_v(lim.code(level)))     # the supply model, not the level arithmetic
+        ceiling = min(float(breakdown_v(sipm.device, t)) + sipm.device.max_overvoltage_v, board.max_bias_v)
+        assert bias <= ceiling + 1e-9
+        # and not needlessly low: within the line's curvature allowance plus two LSB
+        assert ceiling - bias < 0.07 + 2 * board.supply.lsb_v
+
+
+def test_slew_and_timeouts_from_the_profile(falling, board_ntc):
+    # 2 V/s at 10 Hz is 0.2 V per tick; one level is lsb_v
+    assert falling.slew_levels_per_tick == int(0.2 / board_ntc.supply.lsb_v)
+    assert falling.tick_ms == 100 and falling.heartbeat_timeout_ms == 5000
+    assert falling.max_step_mdegc == 200            # 2 K/s over 0.1 s
+    assert falling.over_current_na == 200_000       # hut-sipm-a max_current_a 2e-4 A
+    assert falling.hot_side_max_mdegc == 70_000 and falling.dew_margin_mdegc == 3000  # hut-cooler limits
+
+
+def test_sensor_band_matches_the_channel(falling, board_ntc):
+    ch = board_ntc.temperature
+    lo, hi = sorted(ch.continuous_code(np.array([-45.0, 65.0])))
+    assert falling.adc_fault_lo == int(np.floor(lo)) and falling.adc_fault_hi == int(np.floor(hi))
+    # NTC on the low side of the divider: an open sensor reads high, a short reads 0
+    assert not falling.adc_low_is_open
+
+
+def test_bad_settings_are_named(sipm_a, board_ntc):
+    with pytest.raises(ModelError) as info:
+        build_interlock_limits(sipm_a, board_ntc, slew_v_per_s=float("nan"))
+    assert info.value.key == "slew_v_per_s"
+    with pytest.raises(ModelError) as info:
+        build_interlock_limits(sipm_a, board_ntc, over_current_a=-1.0)
+    assert info.value.key == "over_current_a"
+
+
+def test_safe_state_finding(falling, rising, board_ntc):
+    # hut-board-ntc's lowest output (about 25.2 V) is above hut-sipm-a's breakdown at -45 C (about 23.0 V)
+    expected = float(board_ntc.supply.output_v(board_ntc.safe_dac_code)) - (24.5 + 0.0215 * (-45 - 25))
+    assert falling.safe_margin_v == pytest.approx(-expected, abs=1e-9)
+    assert [f.code for f in falling.safe_findings] == ["safe_state_above_breakdown"]
+    assert rising.safe_findings == [] and rising.safe_margin_v > 0
+
+
+# ---------------------------------------------------------------- the rules
+
+def _run_to_steady(ilk, inputs, ticks=400):
+    out = None
+    for k in range(ticks):
+        out = ilk.step(inputs._replace(now_ms=inputs.now_ms + k * 100, last_host_ms=inputs.now_ms + k * 100))
+    return out
+
+
+def test_ramps_at_the_slew_limit_up_and_down(falling, board_ntc):
+    ilk = Interlocks(falling)
+    request = int(board_ntc.supply.dac_code(30.0))
+    levels = []
+    for k in range(200):
+        out = ilk.step(_inputs(falling, board_ntc, 20.0, request, now_ms=100 * k))
+        levels.append(falling.level(out.dac_code))
+    steps = np.diff([falling.level(falling.safe_dac_code)] + levels)
+    assert steps.max() <= falling.slew_levels_per_tick and steps[0] == falling.slew_levels_per_tick
+    assert ilk.dac_code == request and out.state == STATE_RUN
+    down = []
+    for k in range(200, 400):
+        out = ilk.step(_inputs(falling, board_ntc, 20.0, request, now_ms=100 * k, enabled=0))
+        down.append(falling.level(out.dac_code))
+    assert np.diff(down).min() >= -falling.slew_levels_per_tick and out.state == STATE_OFF
+    assert out.dac_code == falling.safe_dac_code and out.faults_latched == 0
+
+
+def test_request_above_the_limit_is_clamped_not_tripped(falling, board_ntc, sipm_a):
+    ilk = Interlocks(falling)
+    too_high = int(board_ntc.supply.dac_code(40.0))  # beyond 36 V and beyond Vbd + 7 V
+    out = _run_to_steady(ilk, _inputs(falling, board_ntc, 0.0, too_high))
+    bias = float(board_ntc.supply.output_v(out.dac_code))
+    assert bias <= float(breakdown_v(sipm_a.device, 0.0)) + 7.0
+    assert out.faults_live == FaultFlag.BIAS_LIMIT and out.state == STATE_RUN
+    assert ilk.clear(FaultFlag.BIAS_LIMIT) == FaultFlag.BIAS_LIMIT  # still live: stays latched
+
+
+@pytest.mark.parametrize("change, flag", [
+    (dict(adc_code=0), FaultFlag.SENSOR_SHORT),
+    (dict(adc_code=4095), FaultFlag.SENSOR_OPEN),
+    (dict(sipm_current_na=250_000), FaultFlag.OVER_CURRENT),
+    (dict(hot_side_mdegc=70_001), FaultFlag.HOT_SIDE_OVER_TEMP),
+])
+def test_trips_go_to_the_safe_state_at_once_and_latch(falling, board_ntc, change, flag):
+    ilk = Interlocks(falling)
+    base = _inputs(falling, board_ntc, 20.0, int(board_ntc.supply.dac_code(29.0)), cooler_request=500)
+    out = _run_to_steady(ilk, base)
+    assert out.dac_code != falling.safe_dac_code and out.cooler_drive == 500
+    out = ilk.step(base._replace(now_ms=50_000, last_host_ms=50_000, **change))
+    assert out.dac_code == falling.safe_dac_code and out.cooler_drive == 0
+    assert out.state == STATE_TRIPPED and out.faults_live & flag and out.faults_latched & flag
+    assert ilk.trip_record(int(flag).bit_length() - 1)[0] == 50_000
+    assert ilk.clear(0xFFFF) & flag                         # cause still present: stays latched
+    out = ilk.step(base._replace(now_ms=50_100, last_host_ms=50_100))  # cause gone, still latched
+    assert out.state == STATE_TRIPPED and out.faults_live == 0
+    assert ilk.clear(flag) == 0 and ilk.trip_record(int(flag).bit_length() - 1) == (0, 0)
+    out = ilk.step(base._replace(now_ms=50_200, last_host_ms=50_200))
+    assert out.state == STATE_RUN
+    assert falling.level(out.dac_code) - falling.level(falling.safe_dac_code) == falling.slew_levels_per_tick
+
+
+def test_implausible_rate(falling, board_ntc):
+    ilk = Interlocks(falling)
+    base = _inputs(falling, board_ntc, 20.0, falling.safe_dac_code)
+    ilk.step(base)
+    out = ilk.step(base._replace(temp_mdegc=20_200, now_ms=100, last_host_ms=100))
+    assert out.faults_live == 0                              # 0.2 K per tick is allowed
+    out = ilk.step(base._replace(temp_mdegc=20_401, now_ms=200, last_host_ms=200))
+    assert out.faults_live == FaultFlag.SENSOR_RATE and ilk.trip_record(2) == (200, 201)
+
+
+def test_heartbeat_loss_only_with_outputs_enabled(falling, board_ntc):
+    ilk = Interlocks(falling)
+    base = _inputs(falling, board_ntc, 20.0, falling.safe_dac_code, last_host_ms=0)
+    assert ilk.step(base._replace(now_ms=5000)).faults_live == 0          # exactly the timeout
+    out = ilk.step(base._replace(now_ms=5001))
+    assert out.faults_live == FaultFlag.HEARTBEAT_LOST and out.state == STATE_TRIPPED
+    assert ilk.trip_record(7) == (5001, 5001)
+    quiet = Interlocks(falling)
+    assert quiet.step(base._replace(now_ms=10**6, outputs_enabled=0)).faults_live == 0
+    wrapped = Interlocks(falling)  # the millisecond clock wraps: 100 ms of silence, not 4e9
+    assert wrapped.step(base._replace(now_ms=50, last_host_ms=(1 << 32) - 50)).faults_live == 0
+
+
+def test_dew_point_holds_the_cooler_off_but_not_the_bias(falling, board_ntc):
+    ilk = Interlocks(falling)
+    base = _inputs(falling, board_ntc, 20.0, falling.safe_dac_code, cooler_request=800,
+                   cold_side_mdegc=15_000, dew_point_mdegc=12_001)
+    out = ilk.step(base)
+    assert out.cooler_drive == 0 and out.faults_live == FaultFlag.DEW_POINT and out.state == STATE_RUN
+    assert ilk.step(base._replace(dew_point_mdegc=12_000)).cooler_drive == 800
+    assert ilk.step(base._replace(dew_point_mdegc=ABSENT)).cooler_drive == 800
+    assert not FaultFlag.DEW_POINT & TRIP_FLAGS
+
+
+# ---------------------------------------------------------------- C, bit-exact
+
+HARNESS = r"""#include <stdio.h>
+#include <stdint.h>
+#include "ilk.h"
+
+int main(void)
+{
+    ilk_state s;
+    ilk_inputs in;
+    ilk_outputs out;
+    char op;
+    long long a[11];
+    int b;
+    ilk_init(&s);
+    while (scanf(" %c", &op) == 1) {
+        if (op == 's') {
+            for (b = 0; b < 11; ++b) if (scanf("%lld", &a[b]) != 1) return 1;
+            in.now_ms = (uint32_t)a[0]; in.adc_code = (uint32_t)a[1]; in.temp_mdegc = (int32_t)a[2];
+            in.request_dac_code = (uint32_t)a[3]; in.outputs_enabled = (uint8_t)a[4];
+            in.last_host_ms = (uint32_t)a[5]; in.sipm_current_na = (int32_t)a[6];
+            in.hot_side_mdegc = (int32_t)a[7]; in.cold_side_mdegc = (int32_t)a[8];
+            in.dew_point_mdegc = (int32_t)a[9]; in.cooler_request = (int32_t)a[10];
+            ilk_step(&s, &in, &out);
+            printf("%lu %ld %lu %lu %u\n", (unsigned long)out.dac_code, (long)out.cooler_drive,
+                   (unsigned long)out.faults_live, (unsigned long)out.faults_latched, (unsigned)out.state);
+        } else if (op == 'c') {
+            if (scanf("%lld", &a[0]) != 1) return 1;
+            printf("%lu\n", (unsigned long)ilk_clear(&s, (uint32_t)a[0]));
+        } else if (op == 'l') {
+            if (scanf("%lld %lld %lld", &a[0], &a[1], &a[2]) != 3) return 1;
+            ilk_latch(&s, (uint32_t)a[0], (uint32_t)a[1], a[2]);
+            printf("%lu\n", (unsigned long)s.latched);
+        } else if (op == 'r') {
+            for (b = 0; b < 16; ++b) printf("%lu %ld ", (unsigned long)s.trip_ms[b], (long)s.trip_value[b]);
+            printf("\n");
+        } else if (op == 'm') {
+            if (scanf("%lld", &a[0]) != 1) return 1;
+            printf("%lld\n", (long long)ilk_limit_level((int32_t)a[0]));
+        }
+    }
+    return 0;
+}
+"""
+
+
+def _random_script(lim, board, seed, n):
+    """A long random walk with faults, clears, latches, wrapping clock and extreme values."""
+    rng = random.Random(seed)
+    temp = 20_000
+    now = (1 << 32) - 20_000  # the clock wraps within the run
+    last_host = now
+    enabled = 1
+    req = lim.safe_dac_code
+    lines = []
+    for k in range(n):
+        now = (now + lim.tick_ms) & 0xFFFFFFFF
+        r = rng.random()
+        temp += rng.randint(-150, 150) if r > 0.02 else rng.randint(-5000, 5000)
+        temp = max(-60_000, min(80_000, temp))
+        if rng.random() < 0.9:
+            last_host = now
+        if rng.random() < 0.01:
+            last_host = (now - rng.randint(0, 20_000)) & 0xFFFFFFFF
+        if rng.random() < 0.02:
+            enabled = 1 - enabled
+        if rng.random() < 0.05:
+            req = rng.randint(0, lim.dac_full_scale)
+        code = int(board.temperature.adc_code(temp / 1000.0))
+        if rng.random() < 0.01:
+            code = rng.choice([0, board.temperature.front_end.full_scale_code, rng.randint(0, 65535)])
+        temp_in = temp if rng.random() > 0.005 else rng.choice([-(1 << 31) + 1, (1 << 31) - 1])
+        cur = rng.choice([ABSENT, rng.randint(0, 300_000), rng.randint(-(1 << 31) + 1, (1 << 31) - 1)]) \
+            if rng.random() < 0.1 else rng.randint(0, 150_000)
+        hot = rng.choice([ABSENT, rng.randint(20_000, 75_000)])
+        cold = rng.choice([ABSENT, temp])
+        dew = rng.choice([ABSENT, rng.randint(-10_000, 25_000)])
+        cool = rng.randint(-(1 << 31), (1 << 31) - 1) if rng.random() < 0.01 else rng.randint(-3000, 3000)
+        lines.append(("s", (now, code, temp_in, req, enabled, last_host, cur, hot, cold, dew, cool)))
+        if rng.random() < 0.03:
+            lines.append(("c", (rng.choice([0xFFFFFFFF, 1 << rng.randint(0, 9), rng.getrandbits(32)]),)))
+        if rng.random() < 0.005:
+            lines.append(("l", (1 << rng.randint(0, 12), now, rng.randint(-(1 << 40), 1 << 40))))
+        if rng.random() < 0.01:
+            lines.append(("r", ()))
+        if rng.random() < 0.01:
+            lines.append(("m", (rng.randint(-(1 << 31), (1 << 31) - 1),)))
+    return lines
+
+
+def _python_answers(lim, script):
+    ilk = Interlocks(lim)
+    out = []
+    for op, args in script:
+        if op == "s":
+            o = ilk.step(InterlockInputs(*args))
+            out.append(f"{o.dac_code} {o.cooler_drive} {o.faults_live} {o.faults_latched} {o.state}")
+        elif op == "c":
+            out.append(str(ilk.clear(args[0])))
+        elif op == "l":
+            ilk.latch(*args)
+            out.append(str(ilk.faults_latched))
+        elif op == "r":
+            out.append(" ".join(f"{a} {b}" for a, b in (ilk.trip_record(i) for i in range(16))) + " ")
+        else:
+            out.append(str(lim.limit_level(args[0])))
+    return out
+
+
+@needs_cc
+@pytest.mark.parametrize("which", ["falling", "rising"])
+def test_c_is_bit_exact_over_long_random_sequences(which, request, tmp_path, board_ntc, board_pt1000):
+    lim = request.getfixturevalue(which)
+    board = board_ntc if which == "falling" else board_pt1000
+    files = render_interlocks_c(lim, name="ilk")
+    exe = build(tmp_path, {**files, "main.c": HARNESS}, STRICT)
+    script = _random_script(lim, board, seed=3 if which == "falling" else 5, n=12_000)
+    text = "\n".join(f"{op} {' '.join(str(a) for a in args)}" for op, args in script) + "\n"
+    result = subprocess.run([str(exe)], input=text, capture_output=True, text=True, check=True)
+    c_lines = result.stdout.splitlines()
+    py_lines = _python_answers(lim, script)
+    assert len(c_lines) == len(py_lines)
+    mismatch = next((i for i, (a, b) in enumerate(zip(c_lines, py_lines)) if a != b), None)
+    assert mismatch is None, (script[mismatch], c_lines[mismatch], py_lines[mismatch])
+    # the walk visited every kind of outcome
+    states = {int(line.split()[4]) for op_line, line in zip(script, py_lines) if op_line[0] == "s"}
+    assert states == {STATE_RUN, STATE_OFF, STATE_TRIPPED}
+
+
+def test_render_is_deterministic_and_carries_the_caution(falling, sipm_a, board_ntc, tmp_path):
+    a = render_interlocks_c(falling, name="ilk", profiles=[sipm_a, board_ntc])
+    b = render_interlocks_c(falling, name="ilk", profiles=[sipm_a, board_ntc])
+    assert a == b and "IEC 61010-1" in a["ilk.h"] and "hut-board-ntc" in a["ilk.h"]
+    with pytest.raises(ModelError):
+        render_interlocks_c(falling, name="Bad Name")
+    paths = write_interlocks_c(falling, tmp_path / "out", name="ilk")
+    assert sorted(p.name for p in paths) == ["ilk.c", "ilk.h"]
