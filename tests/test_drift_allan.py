@@ -105,7 +105,7 @@ def test_allan_curve_reports_the_averaging_time_of_the_minimum():
     curve = allan_curve("gain_pct", t, rng.normal(0.0, s, n) + drift * t)
     m_best = (s ** 2 / drift ** 2) ** (1.0 / 3.0)      # about 292
     assert m_best / 2 <= curve.minimum_tau_s <= m_best * 2
-    assert curve.minimum_deviation == pytest.approx(np.min(curve.deviation))
+    assert curve.minimum_deviation_in_quantity_unit == pytest.approx(np.min(curve.deviation_in_quantity_unit))
     assert curve.quantity == "gain_pct"
 
 

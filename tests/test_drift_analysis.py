@@ -62,7 +62,7 @@ def test_plain_least_squares_errors_would_not_cover():
         g = 100 * (run_s.bias_measured_v - run_s.bias_set_v) / 3.0
         x = np.column_stack([np.ones_like(t_day), run_s.temp_c - run_s.temp_c.mean(), t_day - t_day.mean()])
         naive_width.append(fit_hac(x, g, lag=0, prewhiten=False).half_width[2])
-    assert report.drift_se_pct_per_day > 2 * np.mean(naive_width) / 1.96
+    assert report.drift_err_pct_per_day > 2 * np.mean(naive_width) / 1.96
 
 
 def test_collinear_time_and_temperature_are_measured_and_reported():
@@ -98,7 +98,7 @@ def test_fault_samples_are_excluded_and_timed():
     report = analyse_run(run)
     assert report.samples - report.samples_used == 120        # one hour at 30 s; the refusal is harmless
     assert _inside(report.drift_ci_pct_per_day, truth.drift_pct_per_day)
-    by_name = {i.fault: i for i in report.faults}
+    by_name = {i.fault: i for i in report.fault_intervals}
     assert by_name["sensor_open"].start_unix_s == pytest.approx(START_UNIX_S + 1.5 * day)
     assert by_name["sensor_open"].duration_s == pytest.approx(3600.0)
     assert by_name["request_refused"].duration_s == pytest.approx(600.0)
@@ -133,7 +133,7 @@ def test_profile_breakdown_proxy_uses_bias_minus_breakdown():
     breakdown_v = 24.0 + 0.035 * (run.temp_c - 25.0)      # the synthetic sensor's own line
     report = analyse_run(run, breakdown_v=breakdown_v)
     assert report.gain_source == GainSource.OVERVOLTAGE_PROFILE
-    assert report.gain_reference == pytest.approx(3.0, abs=0.01)
+    assert report.overvoltage_reference_v == pytest.approx(3.0, abs=0.01) and np.isnan(report.gain_reference)
     assert _inside(report.residual_tempco_ci_pct_per_k, truth.tempco_pct_per_k)
 
 
@@ -165,6 +165,6 @@ def test_fleet_spread_is_the_spread_of_the_units():
     summary = fleet_summary(reports)
     spread = {s.quantity: s for s in summary.spread}["drift_pct_per_day"]
     values = np.array([r.drift_pct_per_day for r in reports])
-    assert spread.mean == pytest.approx(values.mean()) and spread.std == pytest.approx(values.std(ddof=1))
+    assert spread.mean_in_quantity_unit == pytest.approx(values.mean()) and spread.std_in_quantity_unit == pytest.approx(values.std(ddof=1))
     assert spread.largest_abs_unit == "hut-2"
-    assert spread.minimum == pytest.approx(values.min()) and spread.units == 3
+    assert spread.minimum_in_quantity_unit == pytest.approx(values.min()) and spread.unit_count == 3

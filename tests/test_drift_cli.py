@@ -45,7 +45,7 @@ def test_drift_json_carries_the_figures_with_their_intervals(cli, logbooks):
     assert data["gain_source"] == "dark_peak_gain"
     assert {c["quantity"] for c in data["allan"]} == {"gain_pct", "bias_v", "temp_k"}
     gain = next(c for c in data["allan"] if c["quantity"] == "gain_pct")
-    assert gain["tau_s"][0] == pytest.approx(120.0) and gain["minimum_deviation"] > 0
+    assert gain["tau_s"][0] == pytest.approx(120.0) and gain["minimum_deviation_in_quantity_unit"] > 0
     assert [g["cause"] for g in data["gaps"]] == ["link_lost", "logger_stopped"]
     assert data["fault_summary"] == [{"fault": "hot_side_over_temp", "intervals": 1, "total_s": 1800.0,
                                       "samples": 30}]
@@ -76,7 +76,7 @@ def test_fleet_gives_one_row_per_unit_and_the_spread(cli, logbooks):
     assert [u["unit_id"] for u in data["units"]] == ["hut-03", "hut-07"]
     drifts = np.array([u["drift_pct_per_day"] for u in data["units"]])
     spread = {s["quantity"]: s for s in data["spread"]}["drift_pct_per_day"]
-    assert spread["std"] == pytest.approx(drifts.std(ddof=1)) and spread["largest_abs_unit"] == "hut-03"
+    assert spread["std_in_quantity_unit"] == pytest.approx(drifts.std(ddof=1)) and spread["largest_abs_unit"] == "hut-03"
     for unit in data["units"]:
         lo, hi = unit["drift_ci_pct_per_day"]
         assert lo <= UNITS[unit["unit_id"]][0] <= hi

@@ -36,8 +36,8 @@ def _ci(pair) -> str:
 
 
 def _print_unit(report) -> None:
-    level = f"{100 * report.confidence:g} %"
-    print(f"{report.unit_id} ({report.source}): {report.samples} samples in {report.sessions} sessions over "
+    level = f"{100 * report.confidence_fraction:g} %"
+    print(f"{report.unit_id} ({report.logbook}): {report.samples} samples in {report.sessions} sessions over "
           f"{report.duration_s / 86400:.3f} days, {report.samples_used} used; gain from {report.gain_source}")
     rows = [
         ("drift_pct_per_day", report.drift_pct_per_day, f"{level}: {_ci(report.drift_ci_pct_per_day)}"),
@@ -50,7 +50,7 @@ def _print_unit(report) -> None:
         ("gain_peak_to_peak_pct", report.gain_peak_to_peak_pct, f"{report.bins} bins of {report.bin_s:g} s"),
     ]
     for curve in report.allan:
-        rows.append((f"allan {curve.quantity} minimum", curve.minimum_deviation,
+        rows.append((f"allan {curve.quantity} minimum", curve.minimum_deviation_in_quantity_unit,
                      f"at tau_s = {curve.minimum_tau_s:g}"))
     rows.append(("gaps", len(report.gaps), f"{report.gap_total_s:.0f} s without telemetry"))
     for fault in report.fault_summary:
@@ -88,7 +88,7 @@ def run(args) -> int:
                                       "residual_tempco_pct_per_k", "gain_source"],
                                ["", "d", ".2f", "+.4f", "", "+.4f", ""]))
             print()
-            print(format_table([(s.quantity, s.units, s.mean, s.std, s.minimum, s.maximum, s.largest_abs_unit)
+            print(format_table([(s.quantity, s.unit_count, s.mean_in_quantity_unit, s.std_in_quantity_unit, s.minimum_in_quantity_unit, s.maximum_in_quantity_unit, s.largest_abs_unit)
                                 for s in summary.spread],
                                ["fleet", "units", "mean", "std_1sigma", "min", "max", "largest_abs_unit"],
                                ["", "d", "+.4g", ".4g", "+.4g", "+.4g", ""]))

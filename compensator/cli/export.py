@@ -33,6 +33,6 @@ def run(args) -> int:
     if args.json:
         print_json(summary)
     else:
-        extra = f" in {summary.files} files, {summary.partitions} unit-day partitions" if args.parquet else ""
-        print(f"{summary.output}: {summary.rows} rows from {summary.logbooks} logbooks{extra}")
+        extra = f" in {summary.parquet_files} files, {summary.partitions} unit-day partitions" if args.parquet else ""
+        print(f"{summary.output_path}: {summary.rows} rows from {summary.logbooks} logbooks{extra}")
     return 0

@@ -86,8 +86,8 @@ def run(args) -> int:
     if args.json:
         print_json(result)
     else:
-        print(f"{result.path}: {result.rows} rows in {result.duration_s:.1f} s (sessions "
-              f"{', '.join(map(str, result.sessions))}; {result.rows_total} rows in the file), "
+        print(f"{result.logbook}: {result.rows} rows in {result.duration_s:.1f} s (sessions "
+              f"{', '.join(map(str, result.session_ids))}; {result.rows_total} rows in the file), "
               f"{result.disconnects} disconnects, {result.missed_gaps} gaps, {result.fault_changes} fault changes"
               + ("; stopped by the user" if result.interrupted else ""))
     return EXIT_INTERRUPTED if result.interrupted else EXIT_OK

@@ -191,23 +191,23 @@ class AllanCurve:
         What was analysed, with its unit (``gain_pct``, ``bias_v``, ``temp_k``).
     tau_s : ndarray
         Averaging times, seconds (octave-spaced multiples of the grid spacing).
-    deviation : ndarray
-        Allan deviation at each ``tau_s``, in the quantity's unit.
+    deviation_in_quantity_unit : ndarray
+        Allan deviation at each ``tau_s``, in the unit of ``quantity``.
     terms : ndarray of int
         Terms averaged at each ``tau_s`` (fewer where gaps fall).
     minimum_tau_s : float
         Averaging time of the smallest deviation (where averaging stops
         helping and drift takes over).
-    minimum_deviation : float
+    minimum_deviation_in_quantity_unit : float
         That deviation, in the quantity's unit.
     """
 
     quantity: str
     tau_s: np.ndarray
-    deviation: np.ndarray
+    deviation_in_quantity_unit: np.ndarray
     terms: np.ndarray
     minimum_tau_s: float
-    minimum_deviation: float
+    minimum_deviation_in_quantity_unit: float
 
 
 def allan_curve(quantity: str, time_s, values, *, tau0_s: float | None = None) -> AllanCurve:
@@ -239,5 +239,5 @@ def allan_curve(quantity: str, time_s, values, *, tau0_s: float | None = None) -
         minimum = (float(tau_s[best]), float(deviation[best]))
     else:
         minimum = (float("nan"), float("nan"))
-    return AllanCurve(quantity=quantity, tau_s=tau_s, deviation=deviation, terms=terms,
-                      minimum_tau_s=minimum[0], minimum_deviation=minimum[1])
+    return AllanCurve(quantity=quantity, tau_s=tau_s, deviation_in_quantity_unit=deviation, terms=terms,
+                      minimum_tau_s=minimum[0], minimum_deviation_in_quantity_unit=minimum[1])

@@ -132,7 +132,8 @@ class DriftReport:
     Attributes
     ----------
     unit_id : str
-    source : str
+    logbook : str
+        Where the run came from.
     samples : int
         Telemetry rows in the run.
     samples_used : int
@@ -146,18 +147,21 @@ class DriftReport:
     gain_source : str
         One of :class:`GainSource`.
     gain_reference : float
-        Median of the gain quantity (electrons per photoelectron for the
-        dark-peak gain, volt for an overvoltage); percentages are relative to it.
-    confidence : float
-        Level of every interval (two-sided).
-    drift_pct_per_day, drift_se_pct_per_day : float
+        Median dark-peak gain, electrons per photoelectron, that the gain
+        percentages are relative to (nan when the overvoltage stands in).
+    overvoltage_reference_v : float
+        Median overvoltage the percentages are relative to when it stands in
+        for the gain (nan with a dark-peak gain).
+    confidence_fraction : float
+        Level of every interval (two-sided), e.g. 0.95.
+    drift_pct_per_day, drift_err_pct_per_day : float
         Gain drift from the joint fit, and its standard error (1 sigma).
     drift_ci_pct_per_day : tuple of float
         Its confidence interval (low, high).
     drift_time_only_pct_per_day : float
         Slope of a fit on time alone (for comparison).
     drift_time_only_ci_pct_per_day : tuple of float
-    residual_tempco_pct_per_k, residual_tempco_se_pct_per_k : float
+    residual_tempco_pct_per_k, residual_tempco_err_pct_per_k : float
         Temperature coefficient of the gain left after compensation, and its
         standard error (nan when the temperature hardly varied).
     residual_tempco_ci_pct_per_k : tuple of float
@@ -183,13 +187,13 @@ class DriftReport:
         Gain (``gain_pct``), bias (``bias_v``) and temperature (``temp_k``).
     gaps : tuple of Gap
     gap_total_s : float
-    faults : tuple of FaultInterval
+    fault_intervals : tuple of FaultInterval
     fault_summary : tuple of FaultSummary
     findings : tuple of Finding
     """
 
     unit_id: str
-    source: str
+    logbook: str
     samples: int
     samples_used: int
     sessions: int
@@ -199,14 +203,15 @@ class DriftReport:
     sample_interval_s: float
     gain_source: str
     gain_reference: float
-    confidence: float
+    overvoltage_reference_v: float
+    confidence_fraction: float
     drift_pct_per_day: float
-    drift_se_pct_per_day: float
+    drift_err_pct_per_day: float
     drift_ci_pct_per_day: tuple
     drift_time_only_pct_per_day: float
     drift_time_only_ci_pct_per_day: tuple
     residual_tempco_pct_per_k: float
-    residual_tempco_se_pct_per_k: float
+    residual_tempco_err_pct_per_k: float
     residual_tempco_ci_pct_per_k: tuple
     time_temp_correlation: float
     variance_inflation: float
@@ -221,7 +226,7 @@ class DriftReport:
     allan: tuple
     gaps: tuple
     gap_total_s: float
-    faults: tuple
+    fault_intervals: tuple
     fault_summary: tuple
     findings: tuple
 
@@ -484,16 +489,18 @@ def analyse_run(run: RunSeries, *, bin_s: float | None = None, confidence: float
             "(left out of the Allan sums)")))
     intervals, summary = _fault_timeline(run)
     return DriftReport(
-        unit_id=run.unit_id, source=run.source, samples=run.samples, samples_used=int(np.count_nonzero(used)),
+        unit_id=run.unit_id, logbook=run.source, samples=run.samples, samples_used=int(np.count_nonzero(used)),
         sessions=len(run.sessions), start_unix_s=float(t[0]), end_unix_s=float(t[-1]), duration_s=duration_s,
-        sample_interval_s=interval_s, gain_source=source, gain_reference=reference, confidence=confidence,
-        drift_pct_per_day=drift[0], drift_se_pct_per_day=drift[1], drift_ci_pct_per_day=drift[2],
+        sample_interval_s=interval_s, gain_source=source,
+        gain_reference=reference if source == GainSource.DARK_PEAK else float("nan"),
+        overvoltage_reference_v=float("nan") if source == GainSource.DARK_PEAK else reference,
+        confidence_fraction=confidence, drift_pct_per_day=drift[0], drift_err_pct_per_day=drift[1], drift_ci_pct_per_day=drift[2],
         drift_time_only_pct_per_day=time_only[0], drift_time_only_ci_pct_per_day=time_only[2],
-        residual_tempco_pct_per_k=tempco[0], residual_tempco_se_pct_per_k=tempco[1],
+        residual_tempco_pct_per_k=tempco[0], residual_tempco_err_pct_per_k=tempco[1],
         residual_tempco_ci_pct_per_k=tempco[2], time_temp_correlation=correlation,
         variance_inflation=inflation,
         collinear=bool(np.isfinite(inflation) and inflation >= COLLINEAR_VARIANCE_INFLATION),
         bin_s=float(width), bins=bins, hac_lag_bins=lag, residual_rms_pct=rms, temp_min_c=temp_min,
         temp_max_c=temp_max, gain_peak_to_peak_pct=p2p, allan=tuple(allan), gaps=tuple(gaps),
-        gap_total_s=float(sum(g.duration_s for g in gaps)), faults=tuple(intervals),
+        gap_total_s=float(sum(g.duration_s for g in gaps)), fault_intervals=tuple(intervals),
         fault_summary=tuple(summary), findings=tuple(findings))

@@ -22,20 +22,22 @@ class FleetSpread:
     quantity : str
         Field of :class:`~compensator.drift.analysis.DriftReport` (or
         ``gain_allan_minimum_pct``), with its unit.
-    units : int
+    unit_count : int
         Units with a value.
-    mean, std, minimum, maximum : float
-        Mean, standard deviation across units (1 sigma, n - 1), extremes.
+    mean_in_quantity_unit, std_in_quantity_unit : float
+        Mean and standard deviation across units (1 sigma, n - 1).
+    minimum_in_quantity_unit, maximum_in_quantity_unit : float
+        Extremes.
     largest_abs_unit : str
         The unit with the largest absolute value.
     """
 
     quantity: str
-    units: int
-    mean: float
-    std: float
-    minimum: float
-    maximum: float
+    unit_count: int
+    mean_in_quantity_unit: float
+    std_in_quantity_unit: float
+    minimum_in_quantity_unit: float
+    maximum_in_quantity_unit: float
     largest_abs_unit: str
 
 
@@ -57,7 +59,7 @@ class FleetSummary:
 
 
 def _gain_allan_minimum(report: DriftReport) -> float:
-    return next((c.minimum_deviation for c in report.allan if c.quantity == "gain_pct"), float("nan"))
+    return next((c.minimum_deviation_in_quantity_unit for c in report.allan if c.quantity == "gain_pct"), float("nan"))
 
 
 _QUANTITIES = (
@@ -87,9 +89,9 @@ def fleet_summary(reports) -> FleetSummary:
             continue
         values = np.asarray([v for v, _ in pairs])
         spread.append(FleetSpread(
-            quantity=name, units=len(pairs), mean=float(values.mean()),
-            std=float(values.std(ddof=1)) if values.size > 1 else float("nan"),
-            minimum=float(values.min()), maximum=float(values.max()),
+            quantity=name, unit_count=len(pairs), mean_in_quantity_unit=float(values.mean()),
+            std_in_quantity_unit=float(values.std(ddof=1)) if values.size > 1 else float("nan"),
+            minimum_in_quantity_unit=float(values.min()), maximum_in_quantity_unit=float(values.max()),
             largest_abs_unit=pairs[int(np.argmax(np.abs(values)))][1]))
     findings = []
     repeated = sorted(u for u, n in Counter(r.unit_id for r in reports).items() if n > 1)

@@ -96,8 +96,8 @@ def _figures(run, report: DriftReport, breakdown_v=None) -> list[bytes]:
 
     fig, axes = plt.subplots(1, max(1, len(report.allan)), figsize=(9, 3.2), squeeze=False)
     for ax, curve in zip(axes[0], report.allan):
-        ax.loglog(curve.tau_s, curve.deviation, "o-", ms=3)
-        ax.plot([curve.minimum_tau_s], [curve.minimum_deviation], "s", color="C3")
+        ax.loglog(curve.tau_s, curve.deviation_in_quantity_unit, "o-", ms=3)
+        ax.plot([curve.minimum_tau_s], [curve.minimum_deviation_in_quantity_unit], "s", color="C3")
         ax.set_xlabel("averaging time (s)")
         ax.set_title(_QUANTITY_LABELS.get(curve.quantity, curve.quantity), fontsize=9)
         ax.grid(True, which="both", alpha=0.3)
@@ -107,7 +107,7 @@ def _figures(run, report: DriftReport, breakdown_v=None) -> list[bytes]:
 
     fig, ax = plt.subplots(figsize=(8, 2.2 + 0.25 * len(report.fault_summary)))
     names = [s.fault for s in report.fault_summary]
-    for interval in report.faults:
+    for interval in report.fault_intervals:
         y = names.index(interval.fault)
         start = _days(interval.start_unix_s, t0)
         ax.barh(y, max(_days(interval.end_unix_s, t0) - start, 1e-4), left=start, color="C3")
@@ -138,7 +138,7 @@ def _table(headers, rows) -> str:
 def _unit_section(report: DriftReport, pngs, names) -> str:
     ci = report.drift_ci_pct_per_day
     tci = report.residual_tempco_ci_pct_per_k
-    level = f"{100 * report.confidence:g} %"
+    level = f"{100 * report.confidence_fraction:g} %"
     rows = [
         ("samples (used in fits)", f"{report.samples} ({report.samples_used})"),
         ("sessions", report.sessions),
@@ -154,14 +154,14 @@ def _unit_section(report: DriftReport, pngs, names) -> str:
         ("gain peak-to-peak of bin means (%)", report.gain_peak_to_peak_pct),
         ("gaps (total s)", f"{len(report.gaps)} ({_fmt(report.gap_total_s, '.0f')})"),
     ]
-    allan = [(c.quantity, c.minimum_tau_s, c.minimum_deviation) for c in report.allan]
+    allan = [(c.quantity, c.minimum_tau_s, c.minimum_deviation_in_quantity_unit) for c in report.allan]
     faults = [(s.fault, s.intervals, s.total_s) for s in report.fault_summary]
     findings = "".join(f"<li><b>{html.escape(f.severity.value)}</b>: {html.escape(f.message)}</li>"
                        for f in report.findings) or "<li>none</li>"
     images = "".join(f'<figure><img alt="{html.escape(n)}" src="data:image/png;base64,'
                      f'{base64.b64encode(p).decode("ascii")}"><figcaption>{html.escape(n)}</figcaption></figure>'
                      for p, n in zip(pngs, names))
-    return (f"<h2>{html.escape(report.unit_id)} <small>{html.escape(report.source)}</small></h2>"
+    return (f"<h2>{html.escape(report.unit_id)} <small>{html.escape(report.logbook)}</small></h2>"
             + _table(["figure", "value"], rows)
             + "<h3>Allan deviation minimum</h3>" + _table(["quantity", "tau_s", "deviation"], allan)
             + "<h3>Faults</h3>" + (_table(["fault", "intervals", "total_s"], faults) if faults else "<p>none</p>")
@@ -199,13 +199,13 @@ def render_report(runs, summary: FleetSummary, *, breakdown_v=None) -> dict:
         pngs = _figures(run, report, bd)
         files.update(zip(names, pngs))
         sections.append(_unit_section(report, pngs, names))
-    banner = "\n".join(banner_lines("drift report", [], {"logbooks": ", ".join(r.source for r in summary.units)}))
+    banner = "\n".join(banner_lines("drift report", [], {"logbooks": ", ".join(r.logbook for r in summary.units)}))
     fleet = ""
     if len(summary.units) > 1:
         rows = [(r.unit_id, r.samples, r.drift_pct_per_day, f"[{_fmt(r.drift_ci_pct_per_day[0])}, "
                  f"{_fmt(r.drift_ci_pct_per_day[1])}]", r.residual_tempco_pct_per_k, r.gain_source)
                 for r in summary.units]
-        spread = [(s.quantity, s.units, s.mean, s.std, s.minimum, s.maximum, s.largest_abs_unit)
+        spread = [(s.quantity, s.unit_count, s.mean_in_quantity_unit, s.std_in_quantity_unit, s.minimum_in_quantity_unit, s.maximum_in_quantity_unit, s.largest_abs_unit)
                   for s in summary.spread]
         fleet = ("<h2>Fleet</h2>" + _table(["unit", "samples", "drift_pct_per_day", "interval",
                                            "residual_tempco_pct_per_k", "gain source"], rows)

@@ -37,22 +37,22 @@ class ExportSummary:
 
     Attributes
     ----------
-    output : str
+    output_path : str
         The CSV file or the dataset folder.
     rows : int
         Telemetry rows written.
     logbooks : int
         Logbooks read.
-    files : int
-        Files written (1 for CSV; Parquet files in the dataset).
+    parquet_files : int
+        Parquet files in the dataset (0 for CSV).
     partitions : int
         (unit, day) partitions of a Parquet dataset (0 for CSV).
     """
 
-    output: str
+    output_path: str
     rows: int
     logbooks: int
-    files: int
+    parquet_files: int
     partitions: int
 
 
@@ -138,7 +138,7 @@ def export_csv(paths, out_path, *, overwrite: bool = False) -> ExportSummary:
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
-    return ExportSummary(output=str(target), rows=rows, logbooks=len(paths), files=1, partitions=0)
+    return ExportSummary(output_path=str(target), rows=rows, logbooks=len(paths), parquet_files=0, partitions=0)
 
 
 def _arrow():
@@ -214,5 +214,5 @@ def export_parquet(paths, directory, *, overwrite: bool = False) -> ExportSummar
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
-    return ExportSummary(output=str(target), rows=rows, logbooks=len(paths), files=files,
+    return ExportSummary(output_path=str(target), rows=rows, logbooks=len(paths), parquet_files=files,
                          partitions=len(partitions))

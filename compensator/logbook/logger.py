@@ -71,9 +71,10 @@ class LoggerResult:
 
     Attributes
     ----------
-    path : str
-    sessions : tuple of int
-        Session ids opened by this run.
+    logbook : str
+        The logbook file.
+    session_ids : tuple of int
+        Sessions opened by this run.
     rows : int
         Rows written by this run.
     rows_total : int
@@ -88,8 +89,8 @@ class LoggerResult:
         Stopped by the user (Ctrl-C or SIGTERM) rather than by ``duration_s``.
     """
 
-    path: str
-    sessions: tuple
+    logbook: str
+    session_ids: tuple
     rows: int
     rows_total: int
     duration_s: float
@@ -235,6 +236,6 @@ def run_logger(source, path, *, port: str, duration_s: float | None = None, rate
         total = writer.rows_committed
     finally:
         writer.close()
-    return LoggerResult(path=str(path), sessions=tuple(sessions), rows=rows, rows_total=total,
+    return LoggerResult(logbook=str(path), session_ids=tuple(sessions), rows=rows, rows_total=total,
                         duration_s=time.monotonic() - started, disconnects=disconnects, missed_gaps=missed,
                         fault_changes=fault_changes, interrupted=interrupted)
