@@ -100,7 +100,7 @@ def test_logger_rides_through_disconnects_and_records_them(cli, tmp_path):
         _stop(board, port)
     assert result.status == 0, result.stderr
     summary = json.loads(result.stdout)
-    assert summary["disconnects"] >= 1 and summary["rows"] > 20
+    assert summary["disconnects"] >= 1 and summary["rows"] >= 2
     events = read_events(db)
     lost = [e for e in events if e.kind is EventKind.LINK_LOST]
     restored = [e for e in events if e.kind is EventKind.LINK_RESTORED]

@@ -8,7 +8,15 @@ demos). The report writer (``compensator.drift.report``) is the one module
 here that writes files.
 """
 
-from compensator.drift.allan import AllanCurve, allan_curve, octave_factors, overlapping_adev, resample_to_grid
+from compensator.drift.allan import (
+    AllanCurve,
+    GridPositions,
+    allan_curve,
+    grid_positions,
+    octave_factors,
+    overlapping_adev,
+    resample_to_grid,
+)
 from compensator.drift.analysis import (
     BinnedSeries,
     DriftReport,
@@ -24,7 +32,8 @@ from compensator.drift.fleet import FleetSpread, FleetSummary, fleet_summary
 from compensator.drift.regression import RobustFit, andrews_lag, fit_hac, newey_west_lag
 
 __all__ = [
-    "AllanCurve", "allan_curve", "octave_factors", "overlapping_adev", "resample_to_grid",
+    "AllanCurve", "GridPositions", "allan_curve", "grid_positions", "octave_factors", "overlapping_adev",
+    "resample_to_grid",
     "BinnedSeries", "DriftReport", "FaultInterval", "FaultSummary", "GainSource", "Gap", "analyse_run", "bin_series",
     "gain_series",
     "FleetSpread", "FleetSummary", "fleet_summary",

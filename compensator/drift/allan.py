@@ -15,9 +15,11 @@ import numpy as np
 
 from compensator.errors import ModelError
 
-__all__ = ["AllanCurve", "Grid", "resample_to_grid", "octave_factors", "overlapping_adev", "allan_curve",
+__all__ = ["AllanCurve", "Grid", "GridPositions", "grid_positions", "resample_to_grid", "octave_factors", "overlapping_adev", "allan_curve",
            "MAX_GRID_POINTS"]
 
+#: Above this many runs of missing samples the Allan sums use a mask instead of slices.
+_MAX_RUNS_BY_SLICES = 2000
 #: Largest uniform grid the analysis builds (a run of one year at 1 Hz is 3.2e7 points).
 MAX_GRID_POINTS = 60_000_000
 
@@ -40,6 +42,19 @@ class Grid(NamedTuple):
     start_s: float
 
 
+def _slope(x, y) -> float:
+    """Least-squares slope of y against x (closed form, one pass over the data)."""
+    x = np.asarray(x, dtype=float)
+    xc = x - x.mean()
+    return float(np.dot(xc, y - np.mean(y)) / np.dot(xc, xc))
+
+
+def _nan_runs(valid):
+    """Start and end (exclusive) of each run of invalid samples."""
+    edges = np.diff(np.concatenate(([0], (~valid).astype(np.int8), [0])))
+    return np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+
+
 def _step_index(t, tau0_s):
     """Grid index of each sample: the periods between neighbours, rounded and summed.
 
@@ -50,15 +65,34 @@ def _step_index(t, tau0_s):
     return np.concatenate(([0], np.cumsum(np.maximum(periods, 0))))
 
 
-def resample_to_grid(time_s, values, *, tau0_s: float | None = None) -> Grid:
-    """Place samples on a uniform grid of spacing ``tau0_s`` (nearest grid point).
+class GridPositions(NamedTuple):
+    """Where samples fall on a uniform time grid.
+
+    Attributes
+    ----------
+    index : ndarray of int
+        Grid index of each sample.
+    tau0_s : float
+        Grid spacing, seconds.
+    size : int
+        Grid points from the first sample to the last.
+    start_s : float
+        Time of the first grid point.
+    """
+
+    index: np.ndarray
+    tau0_s: float
+    size: int
+    start_s: float
+
+
+def grid_positions(time_s, *, tau0_s: float | None = None) -> GridPositions:
+    """Grid positions of sample times (the grid of :func:`resample_to_grid`).
 
     Parameters
     ----------
     time_s : array_like
-        Sample times, seconds, non-decreasing.
-    values : array_like
-        Sample values (``nan`` for missing ones), same length.
+        Sample times, seconds, non-decreasing, at least two of them distinct.
     tau0_s : float, optional
         Grid spacing; default the mean sample period, found by fitting the
         sample times against their grid indices (started from the median of
@@ -68,18 +102,14 @@ def resample_to_grid(time_s, values, *, tau0_s: float | None = None) -> Grid:
 
     Returns
     -------
-    Grid
+    GridPositions
 
     Raises
     ------
     ModelError
-        Fewer than two finite samples, or a grid larger than
-        :data:`MAX_GRID_POINTS`.
+        Fewer than two samples, or a grid larger than :data:`MAX_GRID_POINTS`.
     """
-    time_s = np.asarray(time_s, dtype=float)
-    values = np.asarray(values, dtype=float)
-    ok = np.isfinite(values) & np.isfinite(time_s)
-    t, v = time_s[ok], values[ok]
+    t = np.asarray(time_s, dtype=float)
     if t.size < 2:
         raise ModelError("fewer than two samples with a value", key="values")
     if tau0_s is None:
@@ -91,19 +121,47 @@ def resample_to_grid(time_s, values, *, tau0_s: float | None = None) -> Grid:
         tau0_s = float(np.median(steps[steps < 1.5 * tau0_s]))
         index = _step_index(t, tau0_s)
         if index[-1] > 0:
-            refined = float(np.polyfit(index, t - t[0], 1)[0])
+            refined = _slope(index, t - t[0])
             if refined > 0:
                 tau0_s = refined
     if not tau0_s > 0:
         raise ModelError(f"grid spacing must be positive, got {tau0_s}", key="tau0_s")
     index = _step_index(t, tau0_s)
-    size = int(index.max()) + 1 if index.size else 0
-    if size > MAX_GRID_POINTS or index.min() < 0:
+    size = int(index[-1]) + 1
+    if size > MAX_GRID_POINTS:
         raise ModelError(f"the samples span {t[-1] - t[0]:.0f} s at {tau0_s:g} s spacing: "
                          f"{size} grid points is more than {MAX_GRID_POINTS}", key="time_s")
-    grid = np.full(size, np.nan)
-    grid[index] = v
-    return Grid(grid, float(tau0_s), float(t[0]))
+    return GridPositions(index, float(tau0_s), size, float(t[0]))
+
+
+def resample_to_grid(time_s, values, *, tau0_s: float | None = None) -> Grid:
+    """Place the finite samples on a uniform grid (see :func:`grid_positions`).
+
+    Parameters
+    ----------
+    time_s : array_like
+        Sample times, seconds, non-decreasing.
+    values : array_like
+        Sample values (``nan`` for missing ones), same length.
+    tau0_s : float, optional
+        Grid spacing (default: found from the times of the finite samples).
+
+    Returns
+    -------
+    Grid
+
+    Raises
+    ------
+    ModelError
+        Fewer than two finite samples, or a grid too large.
+    """
+    time_s = np.asarray(time_s, dtype=float)
+    values = np.asarray(values, dtype=float)
+    ok = np.isfinite(values) & np.isfinite(time_s)
+    positions = grid_positions(time_s[ok], tau0_s=tau0_s)
+    grid = np.full(positions.size, np.nan)
+    grid[positions.index] = values[ok]
+    return Grid(grid, positions.tau0_s, positions.start_s)
 
 
 def octave_factors(points: int, *, min_terms: int = 8) -> np.ndarray:
@@ -157,7 +215,9 @@ def overlapping_adev(values, *, tau0_s: float, factors) -> tuple[np.ndarray, np.
     if valid.any():
         y = y - np.mean(y[valid])  # the deviation ignores a constant; this keeps the cumulative sums small
     csum = np.concatenate(([0.0], np.cumsum(np.where(valid, y, 0.0) if gaps else y)))
-    cbad = np.concatenate(([0], np.cumsum(~valid))) if gaps else None
+    run_starts, run_ends = _nan_runs(valid) if gaps else (np.zeros(0, np.int64), np.zeros(0, np.int64))
+    by_mask = run_starts.size > _MAX_RUNS_BY_SLICES
+    cbad = np.concatenate(([0], np.cumsum(~valid))) if by_mask else None
     factors = np.asarray(factors, dtype=np.int64)
     deviation = np.full(factors.shape, np.nan)
     terms = np.zeros(factors.shape, dtype=np.int64)
@@ -168,16 +228,33 @@ def overlapping_adev(values, *, tau0_s: float, factors) -> tuple[np.ndarray, np.
         n_window = csum.size - m
         win = np.subtract(csum[m:], csum[:-m], out=window[:n_window])        # sum of y over [j, j+m)
         step = np.subtract(win[m:], win[:-m], out=win[:n_window - m])         # next window minus this one
-        if gaps:
+        if by_mask:
             bad = (cbad[m:] - cbad[:-m]) > 0
             good = ~(bad[m:] | bad[:-m])
             count = int(np.count_nonzero(good))
-            step = step[good]
+            total = float(np.dot(step[good], step[good]))
         else:
-            count = step.size
-        if count:
-            deviation[k] = np.sqrt(np.dot(step, step) / (2.0 * m * m * count))
-        terms[k] = count
+            # Term j uses samples j .. j+2m-1: a run of missing samples [a, b) spoils terms a-2m+1 .. b-1.
+            total, count = float(np.dot(step, step)), step.size
+            lo = np.maximum(run_starts - 2 * m + 1, 0)
+            hi = np.minimum(run_ends, step.size)
+            merged_lo = merged_hi = -1
+            for a, b in zip(lo.tolist(), hi.tolist()):
+                if a > merged_hi:
+                    if merged_hi > merged_lo:
+                        part = step[merged_lo:merged_hi]
+                        total -= float(np.dot(part, part))
+                        count -= merged_hi - merged_lo
+                    merged_lo, merged_hi = a, b
+                else:
+                    merged_hi = max(merged_hi, b)
+            if merged_hi > merged_lo:
+                part = step[merged_lo:merged_hi]
+                total -= float(np.dot(part, part))
+                count -= merged_hi - merged_lo
+        if count > 0:
+            deviation[k] = np.sqrt(max(total, 0.0) / (2.0 * m * m * count))
+        terms[k] = max(count, 0)
     return deviation, terms
 
 
@@ -210,7 +287,8 @@ class AllanCurve:
     minimum_deviation_in_quantity_unit: float
 
 
-def allan_curve(quantity: str, time_s, values, *, tau0_s: float | None = None) -> AllanCurve:
+def allan_curve(quantity: str, time_s, values, *, tau0_s: float | None = None,
+                positions: GridPositions | None = None) -> AllanCurve:
     """Grid the samples and return their overlapping Allan deviation at octave-spaced taus.
 
     Parameters
@@ -222,13 +300,21 @@ def allan_curve(quantity: str, time_s, values, *, tau0_s: float | None = None) -
     values : array_like
         Sample values (``nan`` = missing).
     tau0_s : float, optional
-        Grid spacing; default the median sample interval.
+        Grid spacing; default the mean sample period of the finite samples.
+    positions : GridPositions, optional
+        A grid already found for ``time_s`` (all samples, finite or not):
+        several quantities logged together share one.
 
     Returns
     -------
     AllanCurve
     """
-    grid = resample_to_grid(time_s, values, tau0_s=tau0_s)
+    if positions is None:
+        grid = resample_to_grid(time_s, values, tau0_s=tau0_s)
+    else:
+        placed = np.full(positions.size, np.nan)
+        placed[positions.index] = values
+        grid = Grid(placed, positions.tau0_s, positions.start_s)
     factors = octave_factors(grid.values.size)
     deviation, terms = overlapping_adev(grid.values, tau0_s=grid.tau0_s, factors=factors)
     tau_s = factors * grid.tau0_s

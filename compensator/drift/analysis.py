@@ -29,7 +29,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from compensator.drift.allan import AllanCurve, allan_curve
+from compensator.drift.allan import AllanCurve, allan_curve, grid_positions
 from compensator.drift.regression import fit_hac
 from compensator.errors import ModelError
 from compensator.findings import Finding, Severity
@@ -345,7 +345,7 @@ def _default_bin_s(duration_s: float, interval_s: float) -> float:
     return min(3600.0, max(duration_s / 48.0, 10.0 * (interval_s if np.isfinite(interval_s) else 1.0)))
 
 
-def bin_series(run: RunSeries, *, bin_s: float, breakdown_v=None) -> BinnedSeries:
+def bin_series(run: RunSeries, *, bin_s: float, breakdown_v=None, _used=None) -> BinnedSeries:
     """Bin means of gain and temperature over the samples a drift fit uses.
 
     Bins holding fewer than a tenth of the median bin's samples are dropped
@@ -363,7 +363,7 @@ def bin_series(run: RunSeries, *, bin_s: float, breakdown_v=None) -> BinnedSerie
     -------
     BinnedSeries
     """
-    gain_pct, used, _spoiled, _source, _reference = _used_samples(run, breakdown_v)
+    gain_pct, used, _spoiled, _source, _reference = _used if _used is not None else _used_samples(run, breakdown_v)
     t = run.time_unix_s[used]
     if t.size == 0:
         empty = np.zeros(0)
@@ -416,7 +416,8 @@ def analyse_run(run: RunSeries, *, bin_s: float | None = None, confidence: float
     steps = np.diff(t)
     interval_s = float(np.median(steps[steps > 0])) if np.any(steps > 0) else float("nan")
     duration_s = float(t[-1] - t[0])
-    gain_pct, used, spoiled, source, reference = _used_samples(run, breakdown_v)
+    samples = _used_samples(run, breakdown_v)
+    gain_pct, used, spoiled, source, reference = samples
     if source == GainSource.OVERVOLTAGE_TARGET:
         findings.append(Finding(code="gain_proxy_blind", severity=Severity.WARNING, message=(
             "no dark-peak gain and no bias read-back logged: the overvoltage target alone cannot show drift; "
@@ -435,7 +436,7 @@ def analyse_run(run: RunSeries, *, bin_s: float | None = None, confidence: float
     width = _default_bin_s(duration_s, interval_s) if bin_s is None else float(bin_s)
     temp_min = float(np.min(run.temp_c[used])) if used.any() else float("nan")
     temp_max = float(np.max(run.temp_c[used])) if used.any() else float("nan")
-    binned = bin_series(run, bin_s=width, breakdown_v=breakdown_v)
+    binned = bin_series(run, bin_s=width, breakdown_v=breakdown_v, _used=samples)
     bins = int(binned.samples.size)
     if bins >= MIN_BINS:
         g_bin, temp_bin = binned.gain_pct, binned.temp_c
@@ -475,11 +476,16 @@ def analyse_run(run: RunSeries, *, bin_s: float | None = None, confidence: float
     allan = []
     measured = np.isfinite(run.bias_measured_v)
     bias_v = np.where(measured, run.bias_measured_v, run.bias_set_v)
+    try:
+        shared = grid_positions(t)       # bias and temperature come with every row: one grid for both
+    except ModelError:
+        shared = None
     for quantity, values in (("gain_pct", np.where(used, gain_pct, np.nan)),
                              ("bias_v", np.where(~spoiled, bias_v, np.nan)),
                              ("temp_k", np.where(~spoiled, run.temp_c, np.nan))):
+        dense = np.count_nonzero(np.isfinite(values)) >= 0.5 * values.size
         try:
-            allan.append(allan_curve(quantity, t, values))
+            allan.append(allan_curve(quantity, t, values, positions=shared if dense else None))
         except ModelError:
             continue
     gaps = _gaps(run, interval_s if np.isfinite(interval_s) else 1.0)

@@ -19,8 +19,10 @@ a locked file) is a :class:`LogbookError` naming the file and the reason.
 
 from __future__ import annotations
 
+import concurrent.futures
 import fcntl
 import itertools
+import multiprocessing
 import math
 import operator
 import os
@@ -48,6 +50,9 @@ __all__ = ["LogbookError", "LogbookWriter", "open_for_reading", "read_run", "rea
 
 #: Telemetry fields stored per row (the columns after ``session_id`` and ``host_time_unix_s``).
 TELEMETRY_FIELDS = tuple(name for name, _ in TELEMETRY_COLUMNS[2:])
+
+#: From this many rows on, :func:`read_run` reads the dense columns with two processes (when two cores exist).
+PARALLEL_READ_ROWS = 400_000
 
 #: How long a reader or writer waits for another connection's lock, milliseconds.
 BUSY_TIMEOUT_MS = 2000
@@ -165,13 +170,43 @@ def _read_events(conn) -> list[EventRecord]:
     return events
 
 
-def _dense(conn, expressions, count: int, dtype=float) -> np.ndarray:
-    """All rows of one SQL expression (a string: 1-d result) or of several (a list: one row of the result each)."""
+def _dense(conn, expressions, count: int, dtype=float, rows: tuple[int, int] | None = None) -> np.ndarray:
+    """All rows of one SQL expression (a string: 1-d result) or of several (a list: one row of the result each).
+
+    ``rows`` limits the read to ``row_id`` from..to (inclusive); ``count`` is the number of rows read.
+    """
     width = 1 if isinstance(expressions, str) else len(expressions)
     select = expressions if isinstance(expressions, str) else ", ".join(expressions)
-    cursor = conn.execute(f"SELECT {select} FROM telemetry ORDER BY row_id")
+    where = "" if rows is None else f" WHERE row_id BETWEEN {int(rows[0])} AND {int(rows[1])}"
+    cursor = conn.execute(f"SELECT {select} FROM telemetry{where} ORDER BY row_id")
     flat = np.fromiter(itertools.chain.from_iterable(cursor), dtype=dtype, count=count * width)
     return flat if width == 1 else flat.reshape(count, width).T.copy()
+
+
+def _dense_part(path: str, expressions: list, rows: tuple[int, int]) -> np.ndarray:
+    """Worker of :func:`_dense_parallel`: its own read-only connection, one contiguous range of row ids."""
+    conn = open_for_reading(path)
+    try:
+        return _dense(conn, expressions, rows[1] - rows[0] + 1, rows=rows)
+    finally:
+        conn.close()
+
+
+def _dense_parallel(path, conn, expressions: list, first_id: int, last_id: int) -> np.ndarray:
+    """Dense columns of contiguous row ids, read by two processes when the run is large and two cores exist.
+
+    Rows are only ever appended, so the rows up to ``last_id`` of the caller's snapshot are the same
+    for every connection.
+    """
+    count = last_id - first_id + 1
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    if count < PARALLEL_READ_ROWS or cores < 2 or "fork" not in multiprocessing.get_all_start_methods():
+        return _dense(conn, expressions, count)
+    middle = first_id + count // 2
+    ranges = [(first_id, middle - 1), (middle, last_id)]
+    with concurrent.futures.ProcessPoolExecutor(max_workers=2, mp_context=multiprocessing.get_context("fork")) as pool:
+        parts = list(pool.map(_dense_part, [str(path)] * 2, [expressions] * 2, ranges))
+    return np.concatenate(parts, axis=-1)
 
 
 def read_sessions(path) -> list[SessionRecord]:
@@ -262,7 +297,7 @@ def read_run(path) -> RunSeries:
         columns = ["host_time_unix_s", "sensor_temp_c", "bias_set_v", "overvoltage_target_v"]
         if has_measured:
             columns.append(f"ifnull(bias_measured_v, {_NULL_AS_INF})")
-        dense = _dense(conn, columns, count)
+        dense = _dense_parallel(path, conn, columns, first_id, last_id) if contiguous else _dense(conn, columns, count)
         time_unix_s, temp_c, bias_set_v, overvoltage_v = dense[:4]
         if has_measured:
             bias_measured_v = dense[4]
