@@ -91,7 +91,7 @@ def test_sigkill_while_the_simulated_board_streams(tmp_path):
 
 
 def test_logger_rides_through_disconnects_and_records_them(cli, tmp_path):
-    board, port = _board_sim("--disconnect-every-s", "0.8", "--disconnect-s", "0.3")
+    board, port = _board_sim("--disconnect-every-s", "1.0", "--disconnect-s", "0.3")
     db = tmp_path / "flaky.sqlite"
     try:
         assert port, board.stderr.read()
@@ -112,3 +112,19 @@ def test_logger_rides_through_disconnects_and_records_them(cli, tmp_path):
     drift = cli("drift", db, "--json")
     assert drift.status == 0, drift.stderr
     assert json.loads(drift.stdout)["samples"] == summary["rows"]
+
+
+def test_log_bad_input_is_one_line_and_writes_nothing(cli, tmp_path):
+    db = tmp_path / "new.sqlite"
+    missing = cli("log", "--port", tmp_path / "no-such-port", "--db", db, "--connect-window-s", "0")
+    assert missing.status == 2 and "cannot open the port" in missing.stderr
+    assert len(missing.stderr.strip().splitlines()) == 1 and not db.exists()
+    notes = tmp_path / "notes.sqlite"
+    notes.write_text("field notes, not a logbook\n")
+    bad = cli("log", "--port", tmp_path / "no-such-port", "--db", notes, "--connect-window-s", "0")
+    assert bad.status == 2 and "not a SQLite database" in bad.stderr and str(notes) in bad.stderr
+    assert notes.read_text() == "field notes, not a logbook\n"
+    for args in (["--rate-hz", "0"], ["--duration-s", "nan"], ["--connect-window-s", "-1"]):
+        usage = cli("log", "--port", "x", "--db", db, *args)
+        assert usage.status == 2 and args[0] in usage.stderr.strip().splitlines()[-1]
+    assert not db.exists()

@@ -5,17 +5,21 @@ from __future__ import annotations
 import math
 import signal
 import sys
+import time
 
 from compensator.cli._common import (
     EXIT_INTERRUPTED,
     EXIT_OK,
     add_json_flag,
+    non_negative_float,
     positive_float,
     print_json,
     usage_error,
 )
 
 ORDER = 70
+#: How long the logger keeps trying to open the port at the start (a board still booting or re-enumerating).
+CONNECT_WINDOW_S = 5.0
 COMMAND = "log"
 HELP = "log the board's telemetry into a crash-safe SQLite logbook"
 
@@ -35,6 +39,8 @@ def register(subparsers) -> None:
     parser.add_argument("--rate-hz", type=positive_float, metavar="R", help="telemetry rate to ask the board for")
     parser.add_argument("--unit", default="", metavar="NAME", help="instrument name for fleet views "
                         "(default: the board's serial number)")
+    parser.add_argument("--connect-window-s", type=non_negative_float, default=CONNECT_WINDOW_S, metavar="S",
+                        help="keep trying to open the port for this long at the start (default 5 s)")
     add_json_flag(parser)
     parser.set_defaults(handler=run)
 
@@ -67,6 +73,24 @@ def _sigterm_as_interrupt(signum, frame):
     raise KeyboardInterrupt
 
 
+def _connect(client_type, port: str, window_s: float):
+    """An opened client; retries for ``window_s``, then the link's one-line error."""
+    from compensator.errors import LinkError
+
+    deadline = time.monotonic() + window_s
+    delay = 0.1
+    while True:
+        client = client_type.open(port, ramp_down_on_exit=False)
+        try:
+            client.transport.open()
+            return client
+        except LinkError:
+            if time.monotonic() + delay > deadline:
+                raise
+        time.sleep(delay)
+        delay = min(2 * delay, 1.0)
+
+
 def run(args) -> int:
     from compensator.logbook.logger import run_logger
 
@@ -74,10 +98,17 @@ def run(args) -> int:
         from compensator.link.client import BoardClient
     except ImportError:
         raise usage_error("--port", "this build has no link client to reach a board") from None
+    from pathlib import Path
+
+    from compensator.logbook.store import open_for_reading
+
+    if Path(args.db).exists():
+        open_for_reading(args.db).close()   # not a logbook, newer schema, locked: say so before touching the board
     line = _StatusLine()
     previous = signal.signal(signal.SIGTERM, _sigterm_as_interrupt)
     try:
-        with BoardClient.open(args.port, ramp_down_on_exit=False) as client:
+        client = _connect(BoardClient, args.port, args.connect_window_s)
+        with client:
             result = run_logger(client, args.db, port=args.port, duration_s=args.duration_s, rate_hz=args.rate_hz,
                                 unit_id=args.unit, status=line)
     finally:
