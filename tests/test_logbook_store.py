@@ -73,7 +73,8 @@ def test_round_trip_sessions_events_and_pragmas(tmp_path):
         writer.append(_telemetry(0, faults_live=8), host_time_unix_s=2000.0)
     run = read_run(path)
     assert run.samples == 11
-    assert run.time_unix_s[:3].tolist() == [1000.0, 1000.5, 1001.0]
+    # Sample times: host clock at the session's first sample plus the board's uptime since (1 s per sample here).
+    assert run.time_unix_s[:3].tolist() == [1000.0, 1001.0, 1002.0] and run.time_unix_s[10] == 2000.0
     assert run.bias_measured_v[3] == pytest.approx(27.1 - 3e-4, abs=1e-12)
     assert np.isnan(run.dark_peak_gain[1]) and run.dark_peak_gain[2] == 1.6e6
     assert run.faults_live.tolist() == [0] * 10 + [8]
@@ -128,13 +129,29 @@ def test_reader_sees_committed_rows_while_the_writer_holds_more(tmp_path):
     assert read_run(path).samples == 101
 
 
+def test_sample_times_follow_the_board_clock_and_restarts(tmp_path):
+    # Telemetry arriving in bursts on the host (three samples at once) keeps the board's exact spacing;
+    # a board restart (uptime back to 0) starts a new stretch anchored at its host time.
+    path = tmp_path / "bursty.sqlite"
+    with LogbookWriter(path) as writer:
+        writer.start_session(IDENTITY, unit_id="u", port="p", rate_hz=10.0, started_unix_s=500.0)
+        for k, host in enumerate([500.0, 500.31, 500.31, 500.31, 500.6, 500.6]):
+            writer.append(_telemetry(0, uptime_s=7.0 + 0.1 * k), host_time_unix_s=host)
+        for k in range(3):
+            writer.append(_telemetry(0, uptime_s=0.1 * k), host_time_unix_s=900.0 + 0.1 * k)
+    run = read_run(path)
+    expected = [500.0, 500.1, 500.2, 500.3, 500.4, 500.5, 900.0, 900.1, 900.2]
+    assert np.allclose(run.time_unix_s, expected, rtol=0, atol=1e-9)
+
+
 def test_write_run_then_read_run_gives_the_same_arrays(tmp_path):
     run, _ = synthetic_run(days=1, rate_hz=1 / 60, dark_peak_every=7, gaps=[(0.3, 600.0)], restarts=[(0.6, 300.0)],
                            seed=2)
     path = tmp_path / "syn.sqlite"
     assert write_run(path, run) == run.samples
     back = read_run(path)
-    for name in ("time_unix_s", "temp_c", "bias_set_v", "bias_measured_v", "overvoltage_target_v",
+    assert np.allclose(back.time_unix_s, run.time_unix_s, rtol=0, atol=1e-6)
+    for name in ("temp_c", "bias_set_v", "bias_measured_v", "overvoltage_target_v",
                  "dark_peak_gain", "dark_peak_gain_err", "faults_live", "session_index"):
         assert np.array_equal(getattr(back, name), getattr(run, name), equal_nan=True), name
     assert [e.kind for e in back.events].count(EventKind.LINK_LOST) == 1

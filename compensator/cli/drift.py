@@ -37,7 +37,7 @@ def _ci(pair) -> str:
 
 def _print_unit(report) -> None:
     level = f"{100 * report.confidence_fraction:g} %"
-    print(f"{report.unit_id} ({report.logbook}): {report.samples} samples in {report.sessions} sessions over "
+    print(f"{report.unit_id} ({report.logbook}): {report.samples} samples in {report.sessions} session{'' if report.sessions == 1 else 's'} over "
           f"{report.duration_s / 86400:.3f} days, {report.samples_used} used; gain from {report.gain_source}")
     rows = [
         ("drift_pct_per_day", report.drift_pct_per_day, f"{level}: {_ci(report.drift_ci_pct_per_day)}"),

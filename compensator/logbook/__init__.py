@@ -8,7 +8,7 @@
 
 from compensator.logbook.demo import run_rows, write_run
 from compensator.logbook.logger import LoggerResult, LoggerStatus, missed_gap_s, run_logger
-from compensator.logbook.records import EventKind, EventRecord, RunSeries, SessionRecord
+from compensator.logbook.records import EventKind, EventRecord, RunSeries, SessionRecord, sample_times
 from compensator.logbook.schema import APPLICATION_ID, SCHEMA_VERSION, TELEMETRY_COLUMNS
 from compensator.logbook.store import (
     TELEMETRY_FIELDS,
@@ -24,7 +24,7 @@ from compensator.logbook.store import (
 __all__ = [
     "run_rows", "write_run",
     "LoggerResult", "LoggerStatus", "missed_gap_s", "run_logger",
-    "EventKind", "EventRecord", "RunSeries", "SessionRecord",
+    "EventKind", "EventRecord", "RunSeries", "SessionRecord", "sample_times",
     "APPLICATION_ID", "SCHEMA_VERSION", "TELEMETRY_COLUMNS",
     "TELEMETRY_FIELDS", "LogbookError", "LogbookWriter", "count_rows", "open_for_reading", "read_events",
     "read_run", "read_sessions",

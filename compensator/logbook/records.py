@@ -11,7 +11,7 @@ from enum import Enum
 
 import numpy as np
 
-__all__ = ["EventKind", "SessionRecord", "EventRecord", "RunSeries"]
+__all__ = ["EventKind", "SessionRecord", "EventRecord", "RunSeries", "sample_times"]
 
 
 class EventKind(str, Enum):
@@ -101,6 +101,33 @@ class EventRecord:
     detail: str
 
 
+def sample_times(uptime_s, starts, host_at_starts_s) -> np.ndarray:
+    """Sample times from the board's uptime, anchored to the host clock at the start of each stretch.
+
+    Parameters
+    ----------
+    uptime_s : array_like
+        Board uptime of every sample, seconds.
+    starts : array_like of int
+        Index of the first sample of each stretch (sorted, the first one 0):
+        each session start and each board restart (uptime going back).
+    host_at_starts_s : array_like
+        Host clock at those samples, seconds since 1970 (UTC).
+
+    Returns
+    -------
+    ndarray
+        ``host_at_start + (uptime - uptime_at_start)`` of each sample's stretch.
+    """
+    uptime_s = np.asarray(uptime_s, dtype=float)
+    starts = np.asarray(starts, dtype=np.int64)
+    stretch = np.zeros(uptime_s.size, dtype=np.int64)
+    stretch[starts[1:]] = 1
+    stretch = np.cumsum(stretch)
+    anchor = np.asarray(host_at_starts_s, dtype=float) - uptime_s[starts]
+    return uptime_s + anchor[stretch]
+
+
 def _empty() -> np.ndarray:
     return np.zeros(0)
 
@@ -120,7 +147,12 @@ class RunSeries:
     unit_id : str
         Name of the instrument (of the latest session).
     time_unix_s : ndarray
-        Host clock of each sample, seconds since 1970 (UTC).
+        Time of each sample, seconds since 1970 (UTC): the host clock at the
+        start of the sample's stretch (a session, or the part of one after a
+        board restart) plus the board's uptime since then (see
+        :func:`sample_times`). The board's clock spaces the samples exactly,
+        where host arrival times come in bursts; under a time-scaled
+        simulated board it runs in simulated time.
     temp_c : ndarray
         The board's sensor temperature, degree C.
     bias_set_v, bias_measured_v : ndarray

@@ -36,7 +36,7 @@ import numpy as np
 
 from compensator import __version__
 from compensator.errors import InputError, Problem
-from compensator.logbook.records import EventKind, EventRecord, RunSeries, SessionRecord
+from compensator.logbook.records import EventKind, EventRecord, RunSeries, SessionRecord, sample_times
 from compensator.logbook.schema import (
     APPLICATION_ID,
     SCHEMA_VERSION,
@@ -261,7 +261,9 @@ def read_run(path) -> RunSeries:
     """Read the columns the drift analysis needs from a logbook.
 
     One consistent snapshot: the rows committed when the read began (a
-    logger may go on writing meanwhile).
+    logger may go on writing meanwhile). Sample times come from the board's
+    uptime anchored to the host clock (see
+    :func:`~compensator.logbook.records.sample_times`).
 
     Parameters
     ----------
@@ -294,11 +296,22 @@ def read_run(path) -> RunSeries:
         # One query for the dense columns: a row tuple costs less than a query per column.
         has_measured = conn.execute("SELECT EXISTS (SELECT 1 FROM telemetry WHERE bias_measured_v IS NOT NULL)"
                                     ).fetchone()[0]
-        columns = ["host_time_unix_s", "sensor_temp_c", "bias_set_v", "overvoltage_target_v"]
+        columns = ["uptime_s", "sensor_temp_c", "bias_set_v", "overvoltage_target_v"]
         if has_measured:
             columns.append(f"ifnull(bias_measured_v, {_NULL_AS_INF})")
         dense = _dense_parallel(path, conn, columns, first_id, last_id) if contiguous else _dense(conn, columns, count)
-        time_unix_s, temp_c, bias_set_v, overvoltage_v = dense[:4]
+        uptime_s, temp_c, bias_set_v, overvoltage_v = dense[:4]
+        # Stretches of one board clock: each session, split where the board restarted (uptime went back).
+        session_starts = [index_of(first) for first, last in ranges if last >= first]
+        starts = np.union1d(np.asarray(session_starts, dtype=np.int64),
+                            np.flatnonzero(np.diff(uptime_s) < 0) + 1).astype(np.int64)
+        ids = (starts + first_id) if contiguous else row_index[starts]
+        host_at = {}
+        for chunk in range(0, ids.size, 500):
+            part = [int(i) for i in ids[chunk:chunk + 500]]
+            host_at.update(conn.execute(f"SELECT row_id, host_time_unix_s FROM telemetry WHERE row_id IN "
+                                        f"({', '.join('?' * len(part))})", part).fetchall())
+        time_unix_s = sample_times(uptime_s, starts, [host_at[int(i)] for i in ids])
         if has_measured:
             bias_measured_v = dense[4]
             bias_measured_v[np.isinf(bias_measured_v)] = np.nan
