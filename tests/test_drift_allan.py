@@ -119,9 +119,9 @@ def test_too_few_samples_is_a_model_error():
 def test_many_scattered_gaps_take_the_mask_path_with_the_same_result():
     # More runs of missing samples than the slice path handles: the mask path must agree with the definition.
     rng = np.random.default_rng(4)
-    y = rng.normal(0.0, 1.0, 25000)
-    y[::10] = np.nan                                         # 2500 runs of one missing sample
-    factors = np.array([1, 2, 4])
+    y = rng.normal(0.0, 1.0, 20500)
+    y[::10] = np.nan                                         # 2050 runs of one missing sample
+    factors = np.array([1, 4])
     dev, terms = overlapping_adev(y, tau0_s=1.0, factors=factors)
     for m, d, k in zip(factors, dev, terms):
         ref, count = _brute_force_adev(y, m)

@@ -234,5 +234,15 @@ def write_report(directory, runs, summary: FleetSummary, *, breakdown_v=None, ov
     list of Path
         The files written, the HTML page last.
     """
+    from pathlib import Path
+
+    from compensator.errors import InputError, Problem
+
+    if not overwrite:   # refuse before the (slow) rendering
+        names = [n for r in summary.units for n in figure_names(r.unit_id)] + ["drift-report.html"]
+        existing = [Path(directory) / n for n in names if (Path(directory) / n).exists()]
+        if existing:
+            raise InputError([Problem(str(p), 0, "", "already exists; not overwriting (use --force to replace it)")
+                              for p in existing])
     files = render_report(runs, summary, breakdown_v=breakdown_v)
     return write_files_atomic(directory, files, overwrite=overwrite, what="drift report")
