@@ -187,3 +187,33 @@ def test_sigkill_of_a_fast_logger_loses_no_committed_row(tmp_path):
     assert count_rows(path) == last_count
     kinds = [e.kind for e in read_events(path)]
     assert kinds.count(EventKind.SESSION_START) == 2 and EventKind.SESSION_END not in kinds
+
+
+def test_status_line_shows_the_numbers_in_place_on_a_terminal_and_every_10_s_otherwise():
+    import io
+
+    from compensator.cli.log import _StatusLine
+    from compensator.logbook import LoggerStatus
+
+    def status(elapsed_s, faults=()):
+        return LoggerStatus(elapsed_s=elapsed_s, rows=1234, rows_committed=1200, rate_hz=4.0, temp_c=-12.345,
+                            bias_v=27.1234, faults=faults, link_up=not faults, disconnects=0)
+
+    class Terminal(io.StringIO):
+        def isatty(self):
+            return True
+
+    log = io.StringIO()
+    line = _StatusLine(log)
+    for t in (0.0, 5.0, 10.5):
+        line(status(t))
+    text = log.getvalue().splitlines()
+    assert len(text) == 2 and "1234 rows (1200 committed)" in text[0] and "T -12.35 C" in text[0]
+    assert "bias 27.123 V" in text[0] and "4.00 rows/s" in text[1]
+    screen = Terminal()
+    line = _StatusLine(screen)
+    line(status(1.0))
+    line(status(1.5, faults=("sensor_open",)))
+    line.end()
+    out = screen.getvalue()
+    assert out.count("\r") == 2 and out.endswith("\n") and "faults sensor_open  LINK DOWN" in out

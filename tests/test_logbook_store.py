@@ -239,3 +239,33 @@ def test_second_logger_on_the_same_file_is_refused(tmp_path):
         with pytest.raises(LogbookError, match="another logger is writing"):
             LogbookWriter(path)
     LogbookWriter(path).close()      # released when the first one closed
+
+
+def test_a_sample_with_nan_is_rejected_with_an_event_and_the_batch_survives(tmp_path):
+    path = tmp_path / "run.sqlite"
+    with LogbookWriter(path) as writer:
+        writer.start_session(IDENTITY, unit_id="u", port="p", rate_hz=1.0, started_unix_s=0.0)
+        writer.append(_telemetry(0), host_time_unix_s=0.0)
+        writer.append(_telemetry(1, sensor_temp_c=float("nan")), host_time_unix_s=1.0)
+        writer.append(_telemetry(2, bias_measured_v=float("nan")), host_time_unix_s=2.0)   # nullable: stored empty
+    run = read_run(path)
+    assert run.samples == 2 and np.isnan(run.bias_measured_v[1])
+    rejected = [e for e in read_events(path) if e.kind is EventKind.SAMPLE_REJECTED]
+    assert len(rejected) == 1 and "sensor_temp_c" in rejected[0].detail
+
+
+def test_locked_logbook_from_the_command_line(cli, tmp_path):
+    path = tmp_path / "run.sqlite"
+    write_run(path, synthetic_run(days=0.01, rate_hz=0.1, seed=1)[0])
+    holder = sqlite3.connect(path, isolation_level=None)
+    holder.execute("PRAGMA locking_mode = EXCLUSIVE")
+    holder.execute("BEGIN EXCLUSIVE")
+    holder.execute("INSERT INTO logbook_info VALUES ('held', 'yes')")
+    try:
+        for command in (["drift", path], ["export", path, "--csv", tmp_path / "out.csv"]):
+            result = cli(*command)
+            assert result.status == 2 and "locked by another program" in result.stderr
+            assert len(result.stderr.strip().splitlines()) == 1
+        assert not (tmp_path / "out.csv").exists()
+    finally:
+        holder.close()

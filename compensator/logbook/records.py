@@ -31,6 +31,8 @@ class EventKind(str, Enum):
     LINK_RESTORED = "link_restored"
     #: Telemetry arrived later than expected (``duration_s`` is the gap).
     SAMPLES_MISSED = "samples_missed"
+    #: A sample with a non-finite value where the schema needs one was not stored (``detail`` says which).
+    SAMPLE_REJECTED = "sample_rejected"
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -356,6 +356,9 @@ def read_run(path) -> RunSeries:
 
 
 _ROW = operator.attrgetter(*TELEMETRY_FIELDS)
+#: Positions (in ``_ROW``'s order) of the REAL columns that may not be NULL (SQLite stores NaN as NULL).
+_REQUIRED_REAL = tuple((i, name) for i, name in enumerate(TELEMETRY_FIELDS)
+                       if dict(TELEMETRY_COLUMNS)[name].startswith("REAL NOT NULL"))
 _INSERT_TELEMETRY = (f"INSERT INTO telemetry ({', '.join(n for n, _ in TELEMETRY_COLUMNS)}) "
                      f"VALUES ({', '.join('?' * len(TELEMETRY_COLUMNS))})")
 _INSERT_EVENT = ("INSERT INTO events (session_id, host_time_unix_s, kind, faults, duration_s, detail) "
@@ -506,6 +509,10 @@ class LogbookWriter:
     def append(self, telemetry, *, host_time_unix_s: float) -> None:
         """Buffer one telemetry record; commit if the oldest buffered row is due.
 
+        A record with a non-finite value in a column that needs one (uptime,
+        temperature, bias set, overvoltage target) is not stored; a
+        ``sample_rejected`` event says so, and the batch goes on.
+
         Parameters
         ----------
         telemetry : compensator.link.messages.Telemetry
@@ -514,8 +521,15 @@ class LogbookWriter:
         """
         if self.session_id is None:
             raise RuntimeError("start_session() before append()")
+        values = _ROW(telemetry)
+        bad = [name for i, name in _REQUIRED_REAL if not math.isfinite(values[i])]
+        if bad or not math.isfinite(host_time_unix_s):
+            self.record_event(EventKind.SAMPLE_REJECTED, host_time_unix_s=host_time_unix_s
+                              if math.isfinite(host_time_unix_s) else time.time(),
+                              detail="non-finite " + ", ".join(bad or ["host_time_unix_s"]))
+            return
         with self._mutex:
-            self._rows.append((self.session_id, host_time_unix_s, *_ROW(telemetry)))
+            self._rows.append((self.session_id, host_time_unix_s, *values))
             self._note_buffered()
 
     def append_rows(self, rows) -> None:
