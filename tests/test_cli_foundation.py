@@ -28,10 +28,10 @@ def test_profile_check_reports_each_problem_and_exits_2(cli, tmp_path, profiles_
     result = cli("profile", "check", profiles_dir / "hut-sipm-b.yaml", bad, empty, broken)
     assert result.status == 2
     lines = result.stderr.strip().splitlines()
-    assert any(line.startswith(f"{bad}:") and "cell.capacitance_f: must be greater than 0" in line for line in lines)
-    assert any(line.startswith(f"{bad}:") and "cell.count: expected a whole number" in line for line in lines)
-    assert any(line.startswith(f"{empty}:1: ") and "empty" in line for line in lines)
-    assert any(line.startswith(f"{broken}:") and "YAML syntax error" in line for line in lines)
+    assert any(line.startswith(f"compensator: {bad}:") and "cell.capacitance_f: must be greater than 0" in line for line in lines)
+    assert any(line.startswith(f"compensator: {bad}:") and "cell.count: expected a whole number" in line for line in lines)
+    assert any(line.startswith(f"compensator: {empty}:1: ") and "empty" in line for line in lines)
+    assert any(line.startswith(f"compensator: {broken}:") and "YAML syntax error" in line for line in lines)
     assert "Traceback" not in result.stderr
     assert "hut-sipm-b.yaml: ok" in result.stdout
 

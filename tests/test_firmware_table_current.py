@@ -42,7 +42,7 @@ def board_direct(tmp_path_factory, profiles_dir):
 
 
 def measured_table(sipm, board, ov, layout="optimised", bound=0.05):
-    law = build_law(sipm, board, ov, "constant_gain", drop_correction="measured")
+    law = build_law(sipm, board, ov, kind="constant_gain", drop_correction="measured")
     return law, build_table(law, board, bound, layout)
 
 
@@ -106,7 +106,7 @@ def test_fault_gives_the_safe_code_never_a_corrected_one(sipm_a, board_ntc):
 
 def test_without_current_the_plain_path_is_unchanged(sipm_a, board_ntc):
     _, table = measured_table(sipm_a, board_ntc, 3.0)
-    plain = build_table(build_law(sipm_a, board_ntc, 3.0, "constant_gain", drop_correction="none"), board_ntc, 0.05)
+    plain = build_table(build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none"), board_ntc, 0.05)
     codes = np.arange(4096)
     assert np.array_equal(table.lookup(codes)[0], plain.lookup(codes)[0])
     assert np.array_equal(table.lookup_with_current(codes, 0)[0], plain.lookup(codes)[0])
@@ -131,7 +131,7 @@ def test_headroom_limits_the_current_code(sipm_a, board_ntc):
 
 
 def test_no_headroom_is_an_error(sipm_a, board_ntc):
-    law = build_law(sipm_a, board_ntc, 7.0, "constant_gain", drop_correction="measured")
+    law = build_law(sipm_a, board_ntc, 7.0, kind="constant_gain", drop_correction="measured")
     with pytest.raises(ModelError, match="no headroom"):
         build_current_correction(law)
 

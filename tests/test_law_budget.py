@@ -15,19 +15,19 @@ from compensator.physics.supply import sipm_bias_v
 
 @pytest.fixture(scope="module")
 def budget_b_flat(sipm_b, board_pt1000):
-    law = build_law(sipm_b, board_pt1000, 4.0, "constant_overvoltage", correct_drop=False)
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_overvoltage", drop_correction="none")
     return law, gain_error_budget(law, board_pt1000, samples=0)
 
 
 @pytest.fixture(scope="module")
 def budget_b_mc(sipm_b, board_pt1000):
-    law = build_law(sipm_b, board_pt1000, 4.0, "constant_gain")
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_gain")
     return law, gain_error_budget(law, board_pt1000, samples=2000, seed=7)
 
 
 @pytest.fixture(scope="module")
 def budget_a_mc(sipm_a, board_ntc):
-    law = build_law(sipm_a, board_ntc, 3.0, "constant_gain", correct_drop=False)
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
     return law, gain_error_budget(law, board_ntc, samples=2000, seed=11)
 
 
@@ -142,7 +142,7 @@ def test_monte_carlo_is_seeded(sipm_c, board_pt1000):
 
 
 def test_constant_overvoltage_law_residual(sipm_b, board_pt1000):
-    law = build_law(sipm_b, board_pt1000, 4.0, "constant_overvoltage")
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_overvoltage")
     budget = gain_error_budget(law, board_pt1000, samples=0)
     term = budget.term("law_residual")
     # G = C(T) Vov / q: 150 ppm/K * (-50 K) = -0.75 % at -25 C (common practice).

@@ -47,10 +47,14 @@ def test_missing_required_current_sense_key(tmp_path, profiles_dir):
         load_board(path)
 
 
-def test_modes_and_old_callers(sipm_a, board_ntc, board_pt1000, sipm_b):
+def test_modes_and_one_option_per_choice(sipm_a, board_ntc, board_pt1000, sipm_b):
     assert build_law(sipm_a, board_ntc, 3.0).drop_correction == "modelled"
-    assert build_law(sipm_a, board_ntc, 3.0, correct_drop=False).drop_correction == "none"
-    assert build_law(sipm_a, board_ntc, 3.0, correct_drop=True).correct_drop
+    with pytest.raises(TypeError):  # one option per choice: the old boolean is gone
+        build_law(sipm_a, board_ntc, 3.0, correct_drop=False)
+    with pytest.raises(TypeError):  # options are keyword-only
+        build_law(sipm_a, board_ntc, 3.0, "constant_gain")
+    assert build_law(sipm_a, board_ntc, 3.0, drop_correction="none").drop_correction == "none"
+    assert build_law(sipm_a, board_ntc, 3.0, drop_correction="modelled").correct_drop
     measured = build_law(sipm_a, board_ntc, 3.0, drop_correction="measured")
     assert measured.correct_drop and measured.current_sense is board_ntc.current_sense
     with pytest.raises(ModelError, match="drop_correction"):
@@ -78,7 +82,7 @@ def test_budget_drop_term_by_hand(sipm_a, board_ntc):
     # First order (common practice): dG/G = dV / Vov with dV = R dI. The channel's limits add:
     # R I (gain 0.5 % + reference 0.5 %) + R offset + R lsb_I / 2 + half a DAC LSB.
     rate = 3e7
-    law = build_law(sipm_a, board_ntc, 3.0, "constant_overvoltage", photon_rate_hz=rate, drop_correction="measured")
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_overvoltage", photon_rate_hz=rate, drop_correction="measured")
     term = drop_term(law, board_ntc)
     assert term.kind == "random" and "measured" in term.note
     sense, supply = board_ntc.current_sense, board_ntc.supply
@@ -121,7 +125,7 @@ def test_measured_current_holds_gain_at_every_light_level(sipm_a, board_ntc, cap
     for rate in LIGHT_HZ:
         mod = np.abs(gain_error_at_light_pct(modelled, board_ntc, rate, TEMPS_C)).max()
         meas = np.abs(gain_error_at_light_pct(measured, board_ntc, rate, TEMPS_C)).max()
-        meas_worst = np.abs(gain_error_at_light_pct(measured, board_ntc, rate, TEMPS_C, worst)).max()
+        meas_worst = np.abs(gain_error_at_light_pct(measured, board_ntc, rate, TEMPS_C, deviations=worst)).max()
         rows.append((rate, mod, meas, meas_worst))
     with capsys.disabled():
         print("\nhut-sipm-a on hut-board-ntc, 3 V, largest |gain error| over -25..45 C, percent")

@@ -161,3 +161,18 @@ def test_ntc_models_refuse_absolute_zero():
         S.ntc_beta_resistance_ohm(-280.0, 10_000.0, 3435.0)
     with pytest.raises(ModelError, match="absolute zero"):
         S.steinhart_hart_resistance_ohm(-273.15, sh)
+
+
+def test_ntc_tolerance_terms_by_hand():
+    # Beta model 1/T = 1/T25 + ln(R/R25)/B: a relative resistance error e reads as dT = e T^2 / B, a Beta error
+    # dB/B at fixed R as dT = T^2 |1/T - 1/T25| dB/B (differentiating the published Beta equation by hand).
+    # At 0 C, 1 % and 1 %, B = 3435 K: 0.01 * 273.15^2 / 3435 = 0.217208 K and
+    # 0.01 * 273.15 * (1 - 273.15/298.15) = 0.229037 K.
+    ntc = S.NtcSensor(10_000.0, beta_k=3435.0, r25_tolerance_pct=1.0, beta_tolerance_pct=1.0)
+    from_r25 = 0.01 * 273.15 ** 2 / 3435.0
+    from_beta = 0.01 * 273.15 ** 2 * (1 / 273.15 - 1 / 298.15)
+    assert from_r25 == pytest.approx(0.217208, abs=1e-6) and from_beta == pytest.approx(0.229037, abs=1e-6)
+    assert float(ntc.tolerance_k(0.0)) == pytest.approx(from_r25 + from_beta, rel=1e-6)
+    beta_only = S.NtcSensor(10_000.0, beta_k=3435.0, r25_tolerance_pct=0.0, beta_tolerance_pct=2.0)
+    assert float(beta_only.tolerance_k(0.0)) == pytest.approx(2 * from_beta, rel=1e-6)
+    assert float(beta_only.tolerance_k(25.0)) == pytest.approx(0.0, abs=1e-9)  # no Beta error at 25 C

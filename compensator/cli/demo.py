@@ -150,27 +150,34 @@ def table_summary(law, table, uniform, sipm_profile, board_profile, out_dir: Pat
     }
 
 
-def loop_summaries(cooler_profile, board_profile) -> list[dict]:
-    """Tune (robust PI, Ms <= 1.4) and verify the cooler loop and one bias-supply loop at their firmware rates."""
-    from compensator.loops import plants, tuning, verify
+def loop_summaries(cooler_profile, board_profile, ambient_range_c=(-25.0, 45.0)) -> list[dict]:
+    """Tune (robust PI, Ms <= 1.4) and verify the cooler loop over the field's ambient range, and the bias loop
+    when the board reads its bias back (else the bias is set open-loop and no loop is tuned)."""
+    from compensator.loops import design
 
-    point = plants.cooler_operating_point(cooler_profile.cooler)
-    loops = [("cooler", cooler_profile.name, plants.linearise_cooler(cooler_profile.cooler, point),
-              cooler_profile.cooler.control_rate_hz,
-              verify.cooler_operating_warnings(cooler_profile.cooler, point)),
-             ("bias supply", board_profile.name, plants.bias_supply_plant(board_profile.supply),
-              board_profile.control_rate_hz, [])]
+    results = [("cooler", cooler_profile.name,
+                design.design_cooler_loop(cooler_profile.cooler, method="robust", ambient_range_c=ambient_range_c))]
+    if board_profile.bias_readback is not None:
+        results.append(("bias supply", board_profile.name, design.design_bias_loop(board_profile, method="robust")))
     out = []
-    for loop, source, plant, rate_hz, warnings in loops:
-        result = tuning.tune(plant, "robust", 1.0 / rate_hz)
-        report = verify.verify_loop(plant, result.gains, 1.0 / rate_hz)
-        out.append({
-            "loop": loop, "profile": source, "rate_hz": rate_hz, "kp": result.gains.kp, "ki_per_s": result.gains.ki_per_s,
-            "stable": report.stable, "gain_margin": report.margins.gain_margin,
-            "phase_margin_deg": report.margins.phase_margin_deg, "ms": report.margins.ms,
-            "settling_time_s": report.step.settling_time_s, "overshoot_pct": report.step.overshoot_pct,
-            "warnings": [*warnings, *report.warnings],
-        })
+    for loop, source, res in results:
+        r = res.report
+        entry = {
+            "loop": loop, "profile": source, "rate_hz": 1.0 / res.sample_time_s, "kp": res.gains.kp,
+            "ki_per_s": res.gains.ki_per_s, "kp_unit": res.units.kp_unit, "ki_unit": res.units.ki_unit,
+            "stable": res.ok, "gain_margin": r.margins.gain_margin, "phase_margin_deg": r.margins.phase_margin_deg,
+            "ms": r.margins.ms if res.ambient is None else res.ambient.worst_ms,
+            "settling_time_s": r.step.settling_time_s, "overshoot_pct": r.step.overshoot_pct,
+            "warnings": [f"{f.severity.value}: {f.message}" for f in res.findings],
+        }
+        if res.ambient is not None:
+            entry["ambient_check"] = [{"ambient_temp_c": c.ambient_temp_c, "ms": c.ms, "dew_point_c": c.dew_point_c,
+                                       "hot_temp_c": c.hot_temp_c, "condensation": c.condensation,
+                                       "stable": c.stable} for c in res.ambient.checks]
+        out.append(entry)
+    if board_profile.bias_readback is None:
+        out.append({"loop": "bias supply", "profile": board_profile.name, "open_loop": True,
+                    "warnings": [design.NO_READBACK]})
     return out
 
 
@@ -201,7 +208,7 @@ def _require(root: Path, name: str) -> Path:
 
 
 def run(args) -> int:
-    from compensator.law import build_law, gain_error_budget
+    from compensator.law import build_law, electronics_terms, gain_error_budget
 
     root = Path(args.profiles)
     out_dir = Path(args.out) if args.out else None
@@ -235,7 +242,10 @@ def run(args) -> int:
                        "calibrated_rss_pct": budget.calibrated_rss_pct,
                        "calibrated_worst_case_pct": budget.calibrated_worst_case_pct,
                        "dominant": budget.dominant, "calibrated_dominant": budget.calibrated_dominant,
-                       "monte_carlo_std_pct": budget.monte_carlo.std_pct if budget.monte_carlo else None},
+                       "monte_carlo_std_pct": budget.monte_carlo.std_pct if budget.monte_carlo else None,
+                       "electronics_terms": [{"key": t.key, "limit_pct": t.limit_pct,
+                                              "calibrated_limit_pct": t.calibrated_limit_pct}
+                                             for t in electronics_terms(budget)]},
             "table": tables,
         })
         say(f"\n== 2. {sipm_profile.name} on {board_profile.name}: Vbd {device.breakdown.breakdown_v_at_ref:g} V at "
@@ -254,6 +264,9 @@ def run(args) -> int:
         say(f"budget of what the hardware adds: {budget.rss_pct:.2f} % (1 sigma) as built, dominated by "
             f"{budget.dominant}; {budget.calibrated_rss_pct:.2f} % after a one-point calibration, dominated by "
             f"{budget.calibrated_dominant}")
+        drift = sorted(electronics_terms(budget), key=lambda t: -t.calibrated_limit_pct)[:4]
+        say("electronics drift and lag after calibration (limit, largest over the range): " + "; ".join(
+            f"{t.name} {t.calibrated_limit_pct:.3f} %" for t in drift))
         say(f"== 3. lookup table at {tables['bound_pct']:g} %: optimised {tables['optimised_entries']} entries "
             f"({tables['optimised_table_bytes']} B), smallest uniform {tables['uniform_entries']} entries "
             f"({tables['uniform_table_bytes']} B); {tables['codes_verified']} ADC codes verified, worst "
@@ -269,18 +282,24 @@ def run(args) -> int:
                               for r in light], ["photon_rate_hz", "modelled_%", "measured_%"], [".0e", ".3f", ".3f"]))
     cooler = load_thermal(_require(root, DEMO_COOLER))
     report["loops"] = loop_summaries(cooler, loaded[0][1])
-    say("\n== 4. loops tuned for Ms <= 1.4 (robust PI) and verified with python-control at the firmware rate, "
-        "zero-order hold and one sample of computation delay")
+    say("\n== 4. loops tuned for Ms <= 1.4 (robust PI; the cooler at every ambient of -25..45 C) and verified with "
+        "python-control at the firmware rate, zero-order hold and one sample of computation delay")
     say(format_table(
         [(lp["loop"], lp["profile"], lp["rate_hz"], lp["kp"], lp["ki_per_s"], lp["gain_margin"], lp["phase_margin_deg"],
           lp["ms"], lp["settling_time_s"], lp["overshoot_pct"], "yes" if lp["stable"] else "NO")
-         for lp in report["loops"]],
+         for lp in report["loops"] if not lp.get("open_loop")],
         ["loop", "profile", "rate_hz", "kp", "ki_per_s", "gain_margin", "phase_margin_deg", "ms", "settling_s",
          "overshoot_%", "stable"],
         ["", "", "g", ".4g", ".4g", ".2f", ".1f", ".3f", ".3g", ".1f", ""]))
     for lp in report["loops"]:
+        if lp.get("ambient_check"):
+            say(f"{lp['loop']} over the ambient range (Ms is the worst over it):")
+            say(format_table([(c["ambient_temp_c"], c["ms"], c["hot_temp_c"], c["dew_point_c"],
+                               "YES" if c["condensation"] else "no") for c in lp["ambient_check"]],
+                             ["ambient_c", "ms", "hot_side_c", "dew_point_c", "condensation"],
+                             ["g", ".3f", ".1f", ".1f", ""]))
         for warning in lp["warnings"]:
             print(f"warning: {lp['loop']}: {warning}", file=sys.stderr)
     if args.json:
         print_json(report)
-    return 0 if all(lp["stable"] for lp in report["loops"]) else 1
+    return 0 if all(lp["stable"] for lp in report["loops"] if not lp.get("open_loop")) else 1

@@ -5,11 +5,13 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from compensator.cli._common import add_json_flag, print_json
+from compensator.cli._common import EXIT_OK, EXIT_USAGE, add_json_flag, print_json
 from compensator.errors import ProfileError
 from compensator.profiles import load_profile
 from compensator.profiles.docs import keys_markdown
 from compensator.profiles.schema import KINDS
+
+__all__ = ["ORDER", "YAML_SUFFIXES", "register", "run_check", "run_keys"]
 
 ORDER = 10
 YAML_SUFFIXES = (".yaml", ".yml")
@@ -32,7 +34,7 @@ def run_check(args) -> int:
     results, checked, failed = [], 0, 0
     for name in args.files:
         if Path(name).suffix.lower() not in YAML_SUFFIXES and not Path(name).is_dir() and Path(name).exists():
-            print(f"{name}: skipped (not a .yaml/.yml file)", file=sys.stderr)
+            print(f"compensator: {name}: skipped (not a .yaml/.yml file)", file=sys.stderr)
             results.append({"file": name, "status": "skipped", "problems": []})
             continue
         checked += 1
@@ -41,7 +43,7 @@ def run_check(args) -> int:
         except ProfileError as exc:
             failed += 1
             for problem in exc.problems:
-                print(str(problem), file=sys.stderr)
+                print(f"compensator: {problem}", file=sys.stderr)
             results.append({"file": name, "status": "invalid",
                             "problems": [{"line": p.line, "key": p.key, "reason": p.reason} for p in exc.problems]})
             continue
@@ -54,10 +56,10 @@ def run_check(args) -> int:
         print_json({"profiles": results, "checked": checked, "invalid": failed})
     if checked == 0:
         print("compensator: no YAML profile among the files given", file=sys.stderr)
-        return 2
-    return 2 if failed else 0
+        return EXIT_USAGE
+    return EXIT_USAGE if failed else EXIT_OK
 
 
 def run_keys(args) -> int:
     sys.stdout.write(keys_markdown(args.kind))
-    return 0
+    return EXIT_OK

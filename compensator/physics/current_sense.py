@@ -21,6 +21,25 @@ import numpy as np
 
 from compensator.errors import ModelError
 
+__all__ = ["CurrentSense", "centred_adc_code"]
+
+
+def centred_adc_code(position, full_scale_code: int):
+    """Ideal ADC with code centres on whole positions: ``clip(floor(x + 1/2), 0, full_scale)`` as int64.
+
+    Parameters
+    ----------
+    position : array_like
+        Unquantised reading in codes.
+    full_scale_code : int
+        Largest code.
+
+    Returns
+    -------
+    ndarray of int64
+    """
+    return np.clip(np.floor(np.asarray(position, dtype=float) + 0.5), 0, full_scale_code).astype(np.int64)
+
 
 @dataclass(frozen=True)
 class CurrentSense:
@@ -41,6 +60,10 @@ class CurrentSense:
         Tolerance of the sense gain (shunt or feedback resistor, amplifier), percent.
     offset_a : float
         Largest input offset, referred to the SiPM current, either sign, ampere.
+    gain_tempco_ppm_per_k : float
+        Drift bound of the sense gain, ppm per kelvin of board temperature.
+    offset_drift_a_per_k : float
+        Drift bound of the input offset, ampere per kelvin.
     """
 
     adc_bits: int
@@ -49,18 +72,21 @@ class CurrentSense:
     reference_tolerance_pct: float = 0.1
     gain_tolerance_pct: float = 0.5
     offset_a: float = 0.0
+    gain_tempco_ppm_per_k: float = 0.0
+    offset_drift_a_per_k: float = 0.0
 
     def __post_init__(self):
         if not (isinstance(self.adc_bits, (int, np.integer)) and 1 <= self.adc_bits <= 24):
-            raise ModelError(f"adc_bits must be a whole number from 1 to 24, got {self.adc_bits!r}")
+            raise ModelError(f"must be a whole number from 1 to 24, got {self.adc_bits!r}", key="adc_bits")
         for name in ("reference_v", "sense_gain_v_per_a"):
             value = getattr(self, name)
             if not np.isfinite(value) or value <= 0:
-                raise ModelError(f"{name} must be a positive number, got {value!r}")
-        for name in ("reference_tolerance_pct", "gain_tolerance_pct", "offset_a"):
+                raise ModelError(f"must be a positive number, got {value!r}", key=name)
+        for name in ("reference_tolerance_pct", "gain_tolerance_pct", "offset_a", "gain_tempco_ppm_per_k",
+                     "offset_drift_a_per_k"):
             value = getattr(self, name)
             if not np.isfinite(value) or value < 0:
-                raise ModelError(f"{name} must be a non-negative number, got {value!r}")
+                raise ModelError(f"must be a non-negative number, got {value!r}", key=name)
 
     @property
     def full_scale_code(self) -> int:
@@ -111,8 +137,8 @@ class CurrentSense:
         -------
         ndarray of int64
         """
-        x = self.continuous_code(current_a, gain_error, reference_error, offset_a)
-        return np.clip(np.floor(x + 0.5), 0, self.full_scale_code).astype(np.int64)
+        return centred_adc_code(self.continuous_code(current_a, gain_error, reference_error, offset_a),
+                                self.full_scale_code)
 
     def current_a(self, adc_code):
         """Current the firmware infers from an ADC code, ampere.

@@ -21,6 +21,13 @@ import numpy as np
 from compensator.constants import ZERO_C_IN_K
 from compensator.errors import ModelError
 
+__all__ = [
+    "CVD_A", "CVD_B", "CVD_C", "RTD_MAX_TEMP_C", "RTD_MIN_TEMP_C", "RTD_TOLERANCE_CLASSES", "T25_K", "FrontEnd",
+    "NtcSensor", "RtdSensor", "SteinhartHart", "TemperatureChannel", "fit_steinhart_hart", "ntc_beta_resistance_ohm",
+    "ntc_beta_temp_c", "rtd_resistance_ohm", "rtd_temp_c", "rtd_tolerance_k", "steinhart_hart_resistance_ohm",
+    "steinhart_hart_temp_c",
+]
+
 # IEC 60751 Callendar-Van Dusen coefficients (ITS-90).
 CVD_A = 3.9083e-3
 CVD_B = -5.775e-7
@@ -52,7 +59,7 @@ def rtd_resistance_ohm(temp_c, r0_ohm=100.0):
     """
     t = np.asarray(temp_c, dtype=float)
     if np.any((t < RTD_MIN_TEMP_C - 1e-9) | (t > RTD_MAX_TEMP_C + 1e-9)):
-        raise ModelError(f"temp_c outside the IEC 60751 range {RTD_MIN_TEMP_C:g} to {RTD_MAX_TEMP_C:g} C")
+        raise ModelError(f"outside the IEC 60751 range {RTD_MIN_TEMP_C:g} to {RTD_MAX_TEMP_C:g} C", key="temp_c")
     c = np.where(t < 0.0, CVD_C, 0.0)
     return r0_ohm * (1.0 + CVD_A * t + CVD_B * t * t + c * (t - 100.0) * t ** 3)
 
@@ -78,7 +85,7 @@ def rtd_temp_c(resistance_ohm, r0_ohm=100.0):
     ratio = np.asarray(resistance_ohm, dtype=float) / r0_ohm
     lo, hi = rtd_resistance_ohm([RTD_MIN_TEMP_C, RTD_MAX_TEMP_C], 1.0)
     if np.any((ratio < lo * (1 - 1e-12)) | (ratio > hi * (1 + 1e-12))):
-        raise ModelError("resistance_ohm outside the IEC 60751 range (-200 to 850 C)")
+        raise ModelError("outside the IEC 60751 range (-200 to 850 C)", key="resistance_ohm")
     t = (-CVD_A + np.sqrt(CVD_A ** 2 - 4.0 * CVD_B * (1.0 - ratio))) / (2.0 * CVD_B)
     neg = t < 0.0
     if np.any(neg):
@@ -104,7 +111,7 @@ def rtd_tolerance_k(temp_c, tolerance_class="A"):
     try:
         offset, slope = RTD_TOLERANCE_CLASSES[tolerance_class]
     except KeyError:
-        raise ModelError(f"tolerance_class must be one of {', '.join(RTD_TOLERANCE_CLASSES)}") from None
+        raise ModelError(f"must be one of {', '.join(RTD_TOLERANCE_CLASSES)}", key="tolerance_class") from None
     return offset + slope * np.abs(np.asarray(temp_c, dtype=float))
 
 
@@ -112,7 +119,7 @@ def _kelvin(temp_c):
     """Absolute temperature of ``temp_c``; an error at or below absolute zero."""
     t_k = np.asarray(temp_c, dtype=float) + ZERO_C_IN_K
     if np.any(t_k <= 0):
-        raise ModelError("temp_c must be above absolute zero (-273.15 C)")
+        raise ModelError("must be above absolute zero (-273.15 C)", key="temp_c")
     return t_k
 
 
@@ -212,9 +219,9 @@ def fit_steinhart_hart(temp_c, resistance_ohm) -> SteinhartHart:
     t_k = np.asarray(temp_c, dtype=float).ravel() + ZERO_C_IN_K
     r = np.asarray(resistance_ohm, dtype=float).ravel()
     if t_k.size != r.size or t_k.size < 3:
-        raise ModelError("fit_steinhart_hart needs at least three (temp_c, resistance_ohm) pairs of equal length")
+        raise ModelError("needs at least three (temp_c, resistance_ohm) pairs of equal length", key="temp_c")
     if np.any(r <= 0) or np.any(t_k <= 0):
-        raise ModelError("resistances and absolute temperatures must be positive")
+        raise ModelError("resistances and absolute temperatures must be positive", key="resistance_ohm")
     x = np.log(r)
     design = np.column_stack([np.ones_like(x), x, x ** 3])
     coeffs, *_ = np.linalg.lstsq(design, 1.0 / t_k, rcond=None)
@@ -223,12 +230,28 @@ def fit_steinhart_hart(temp_c, resistance_ohm) -> SteinhartHart:
 
 @dataclass(frozen=True)
 class RtdSensor:
-    """Platinum RTD (IEC 60751)."""
+    """Platinum RTD (IEC 60751).
+
+    Attributes
+    ----------
+    r0_ohm : float
+        Resistance at 0 degree Celsius, ohm.
+    tolerance_class : {"AA", "A", "B", "C"}
+    self_heating_k, sensor_to_die_k : float
+        Bounds of the self-heating and of the sensor-to-die offset, kelvin.
+    time_constant_s, die_to_sensor_time_constant_s : float
+        The sensor's own first-order lag and that of the thermal path from
+        the SiPM die to it, second; under a ramp of r kelvin per second the
+        reading lags the die by ``r (sum of both)`` (two first-order lags in
+        series, steady ramp).
+    """
 
     r0_ohm: float = 100.0
     tolerance_class: str = "A"
     self_heating_k: float = 0.0
     sensor_to_die_k: float = 0.0
+    time_constant_s: float = 0.0
+    die_to_sensor_time_constant_s: float = 0.0
 
     def resistance_ohm(self, temp_c):
         """Resistance in ohm at ``temp_c``."""
@@ -245,7 +268,22 @@ class RtdSensor:
 
 @dataclass(frozen=True)
 class NtcSensor:
-    """NTC thermistor, Beta model or Steinhart-Hart (when ``steinhart_hart`` is set)."""
+    """NTC thermistor, Beta model or Steinhart-Hart (when ``steinhart_hart`` is set).
+
+    Attributes
+    ----------
+    r25_ohm : float
+        Resistance at 25 degree Celsius, ohm.
+    beta_k : float or None
+        Beta constant, kelvin.
+    steinhart_hart : SteinhartHart or None
+    r25_tolerance_pct, beta_tolerance_pct : float
+        Tolerances, percent.
+    self_heating_k, sensor_to_die_k : float
+        Bounds of the self-heating and of the sensor-to-die offset, kelvin.
+    time_constant_s, die_to_sensor_time_constant_s : float
+        Lags of the sensor and of the die-to-sensor path, second (see :class:`RtdSensor`).
+    """
 
     r25_ohm: float
     beta_k: float | None = None
@@ -254,10 +292,12 @@ class NtcSensor:
     beta_tolerance_pct: float = 1.0
     self_heating_k: float = 0.0
     sensor_to_die_k: float = 0.0
+    time_constant_s: float = 0.0
+    die_to_sensor_time_constant_s: float = 0.0
 
     def __post_init__(self):
         if (self.beta_k is None) == (self.steinhart_hart is None):
-            raise ModelError("an NTC needs exactly one of beta_k and steinhart_hart")
+            raise ModelError("an NTC needs exactly one of beta_k and steinhart_hart", key="beta_k")
 
     def resistance_ohm(self, temp_c):
         """Resistance in ohm at ``temp_c``."""
@@ -309,6 +349,12 @@ class FrontEnd:
         Used only when not ratiometric.
     reference_resistor_tolerance_pct, adc_reference_tolerance_pct, excitation_tolerance_pct : float
         Tolerances, percent (the last two cancel in a ratiometric front end).
+    reference_resistor_tempco_ppm_per_k, adc_reference_tempco_ppm_per_k, excitation_tempco_ppm_per_k : float
+        Drift bounds, ppm per kelvin of board temperature (the last two cancel
+        in a ratiometric front end).
+    adc_offset_lsb, adc_gain_error_pct, adc_inl_lsb : float
+        ADC offset (LSB), gain error (percent) and integral non-linearity
+        (LSB) bounds, either sign; they do not cancel in a ratiometric front end.
     """
 
     sensor_position: str
@@ -320,6 +366,12 @@ class FrontEnd:
     reference_resistor_tolerance_pct: float = 0.1
     adc_reference_tolerance_pct: float = 0.1
     excitation_tolerance_pct: float = 0.1
+    reference_resistor_tempco_ppm_per_k: float = 0.0
+    adc_reference_tempco_ppm_per_k: float = 0.0
+    excitation_tempco_ppm_per_k: float = 0.0
+    adc_offset_lsb: float = 0.0
+    adc_gain_error_pct: float = 0.0
+    adc_inl_lsb: float = 0.0
 
     @property
     def full_scale_code(self) -> int:

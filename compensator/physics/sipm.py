@@ -13,11 +13,18 @@ Model summary (sources in brackets):
 * dark rate  DCR = DCR0 (Vov / Vov0)^n 2^((T - T0) / Td)  (doubling every few
   kelvin near room temperature; common practice)
 * crosstalk  p = 1 - exp(-k Vov^n) with k from a reference point, so p < 1
-  (grows roughly with the square of overvoltage; common practice)
+  (grows roughly with the square of overvoltage; common practice). The mean
+  number of avalanches one primary brings (itself included) follows one of
+  two models, chosen per profile (``crosstalk_model``): the geometric chain,
+  where each avalanche triggers at most one more with probability p, mean
+  ``1/(1 - p)``; or the branching Poisson process, where each avalanche
+  triggers a Poisson number of others with mean ``lambda = -ln(1 - p)`` (so
+  that p is the probability of at least one), total number Borel-distributed
+  with mean ``1/(1 - lambda)`` (Vinogradov, NIM A 695, 247, 2012)
 * saturation N_fired = N_cells (1 - exp(-N_ph PDE / N_cells))  (Klanner, NIM A
   926, 36, 2019; pulses much shorter than the recovery time)
-* current    I = q G (DCR + R_ph PDE) / (1 - p)  (mean cells per primary with
-  branching crosstalk, Vinogradov, NIM A 695, 247, 2012)
+* current    I = q G (DCR + R_ph PDE) M, M the mean avalanches per primary of
+  the crosstalk model above; afterpulsing neglected
 """
 
 from __future__ import annotations
@@ -28,6 +35,16 @@ import numpy as np
 
 from compensator.constants import ELEMENTARY_CHARGE_C
 from compensator.errors import ModelError
+
+__all__ = [
+    "CROSSTALK_MODELS", "EVALUATE_BLOCK", "Breakdown", "Sipm", "SipmState", "breakdown_v", "cell_capacitance_f",
+    "crosstalk_branching_ratio", "crosstalk_mean_multiplier", "crosstalk_probability", "dark_rate_hz", "evaluate",
+    "fired_cells", "gain", "pde", "relative_gain_change_per_k", "steady_current_a",
+]
+
+#: How prompt crosstalk multiplies a primary avalanche: ``geometric`` (chain, mean 1/(1-p)) or
+#: ``branching_poisson`` (Poisson branching with lambda = -ln(1-p), mean 1/(1-lambda); Vinogradov 2012).
+CROSSTALK_MODELS = ("geometric", "branching_poisson")
 
 
 @dataclass(frozen=True)
@@ -51,6 +68,12 @@ class Breakdown:
         bias extrapolated to zero; what a gain law needs) or an I-V method
         (``"iv_inverse_log_derivative"``, ``"iv_second_derivative"``,
         ``"iv_log_derivative_peak"``).
+    definition_offset_v : float or None
+        The gain-intercept breakdown minus this one, volt, when known (from
+        I-V curves and gain scans at the same temperature); lets a gain law
+        use an I-V breakdown. ``None`` when unknown.
+    definition_offset_err_v : float
+        One-sigma uncertainty of ``definition_offset_v``, volt.
     """
 
     breakdown_v_at_ref: float
@@ -60,6 +83,8 @@ class Breakdown:
     breakdown_err_v: float = 0.0
     tempco_err_mv_per_k: float = 0.0
     definition: str = "gain_intercept"
+    definition_offset_v: float | None = None
+    definition_offset_err_v: float = 0.0
 
     def breakdown_v(self, temp_c):
         """Breakdown voltage in volt at ``temp_c`` (degree Celsius, array-like)."""
@@ -85,6 +110,8 @@ class Sipm:
     pde_max_fraction, pde_saturation_overvoltage_v : float
     dark_rate_hz, dark_ref_temp_c, dark_ref_overvoltage_v, dark_doubling_temp_k, dark_overvoltage_exponent : float
     crosstalk_probability, crosstalk_ref_overvoltage_v, crosstalk_overvoltage_exponent : float
+    crosstalk_model : {"geometric", "branching_poisson"}
+        How one primary multiplies through crosstalk (see the module docstring).
     max_overvoltage_v, min_overvoltage_v, max_current_a : float
     capacitance_tempco_ppm_per_k : float
     recovery_time_s : float
@@ -108,14 +135,21 @@ class Sipm:
     max_current_a: float = 1e-3
     capacitance_tempco_ppm_per_k: float = 0.0
     recovery_time_s: float = 50e-9
+    crosstalk_model: str = "geometric"
 
     def __post_init__(self):
         if self.cell_capacitance_f <= 0:
-            raise ModelError(f"cell_capacitance_f must be positive, got {self.cell_capacitance_f!r}")
+            raise ModelError(f"must be positive, got {self.cell_capacitance_f!r}", key="cell_capacitance_f")
         if self.cell_count <= 0:
-            raise ModelError(f"cell_count must be positive, got {self.cell_count!r}")
+            raise ModelError(f"must be positive, got {self.cell_count!r}", key="cell_count")
         if not 0 <= self.crosstalk_probability < 1:
-            raise ModelError(f"crosstalk_probability must be in [0, 1), got {self.crosstalk_probability!r}")
+            raise ModelError(f"must be in [0, 1), got {self.crosstalk_probability!r}", key="crosstalk_probability")
+        if self.crosstalk_model not in CROSSTALK_MODELS:
+            raise ModelError(f"must be one of {', '.join(CROSSTALK_MODELS)}, got {self.crosstalk_model!r}",
+                             key="crosstalk_model")
+        if self.crosstalk_model == "branching_poisson" and self.crosstalk_probability >= 1.0 - np.exp(-1.0):
+            raise ModelError(f"must be below 1 - 1/e = 0.632 for the branching Poisson model (lambda < 1), got "
+                             f"{self.crosstalk_probability!r}", key="crosstalk_probability")
 
 
 def breakdown_v(sipm: Sipm, temp_c):
@@ -183,7 +217,7 @@ def relative_gain_change_per_k(sipm: Sipm, overvoltage_v, temp_c=None):
     """
     overvoltage_v = np.asarray(overvoltage_v, dtype=float)
     if np.any(overvoltage_v <= 0):
-        raise ModelError("overvoltage_v must be positive for a relative gain change")
+        raise ModelError("must be positive for a relative gain change", key="overvoltage_v")
     temp_c = sipm.breakdown.ref_temp_c if temp_c is None else temp_c
     return -sipm.breakdown.slope_v_per_k(temp_c) / overvoltage_v + 1e-6 * sipm.capacitance_tempco_ppm_per_k
 
@@ -221,6 +255,54 @@ def crosstalk_probability(sipm: Sipm, overvoltage_v):
     return -np.expm1(-k * ov ** sipm.crosstalk_overvoltage_exponent)
 
 
+def crosstalk_branching_ratio(probability):
+    """Poisson branching ratio ``lambda = -ln(1 - p)`` of a crosstalk probability ``p``.
+
+    ``p`` is the probability that an avalanche triggers at least one other;
+    for a Poisson number of triggered avalanches with mean lambda,
+    ``p = 1 - exp(-lambda)`` (Vinogradov, NIM A 695, 247, 2012).
+
+    Parameters
+    ----------
+    probability : array_like
+        Crosstalk probability, fraction in [0, 1).
+
+    Returns
+    -------
+    ndarray
+        Branching ratio lambda, dimensionless.
+    """
+    return -np.log1p(-np.asarray(probability, dtype=float))
+
+
+def crosstalk_mean_multiplier(sipm: Sipm, overvoltage_v):
+    """Mean number of avalanches one primary brings through prompt crosstalk, itself included.
+
+    ``1/(1 - p)`` for the geometric chain; ``1/(1 - lambda)``, ``lambda =
+    -ln(1 - p)``, the mean of the Borel distribution, for the branching
+    Poisson process (Vinogradov, NIM A 695, 247, 2012); ``p`` is
+    :func:`crosstalk_probability` at ``overvoltage_v``. The branching model
+    diverges as lambda approaches 1 (p approaches 1 - 1/e).
+
+    Parameters
+    ----------
+    sipm : Sipm
+    overvoltage_v : array_like
+        Overvoltage, volt.
+
+    Returns
+    -------
+    ndarray
+        Mean avalanches per primary, at least 1 (``inf`` where lambda >= 1).
+    """
+    p = crosstalk_probability(sipm, overvoltage_v)
+    if sipm.crosstalk_model == "branching_poisson":
+        with np.errstate(divide="ignore"):
+            excess = 1.0 - crosstalk_branching_ratio(p)
+            return np.where(excess > 0, 1.0 / np.where(excess > 0, excess, 1.0), np.inf)
+    return 1.0 / (1.0 - p)
+
+
 def fired_cells(cell_count, photon_count, pde_fraction):
     """Mean number of fired microcells for a short light pulse.
 
@@ -243,9 +325,9 @@ def fired_cells(cell_count, photon_count, pde_fraction):
 def steady_current_a(sipm: Sipm, bias_v, temp_c, photon_rate_hz=0.0):
     """Steady current drawn by the SiPM in ampere.
 
-    ``I = q G (DCR + R_ph PDE) / (1 - p_xt)``: each primary avalanche (dark or
-    photon) brings on average ``1/(1 - p)`` avalanches through crosstalk
-    (Vinogradov, NIM A 695, 247, 2012). Afterpulsing is neglected.
+    ``I = q G (DCR + R_ph PDE) M``: each primary avalanche (dark or photon)
+    brings on average ``M`` avalanches through crosstalk
+    (:func:`crosstalk_mean_multiplier`). Afterpulsing is neglected.
 
     Parameters
     ----------
@@ -259,7 +341,7 @@ def steady_current_a(sipm: Sipm, bias_v, temp_c, photon_rate_hz=0.0):
     """
     ov = np.asarray(bias_v, dtype=float) - breakdown_v(sipm, temp_c)
     primaries_hz = dark_rate_hz(sipm, temp_c, ov) + np.asarray(photon_rate_hz, dtype=float) * pde(sipm, ov)
-    return ELEMENTARY_CHARGE_C * gain(sipm, bias_v, temp_c) * primaries_hz / (1.0 - crosstalk_probability(sipm, ov))
+    return ELEMENTARY_CHARGE_C * gain(sipm, bias_v, temp_c) * primaries_hz * crosstalk_mean_multiplier(sipm, ov)
 
 
 @dataclass(frozen=True)
@@ -333,7 +415,10 @@ def _evaluate_block(sipm: Sipm, temp_c, bias_v, photon_rate_hz):
     primaries_hz = dcr + photon_rate_hz * pde_fraction if np.any(photon_rate_hz) else dcr
     current = g * primaries_hz
     current *= ELEMENTARY_CHARGE_C
-    current /= 1.0 - xt
+    if sipm.crosstalk_model == "branching_poisson":
+        current /= 1.0 + np.log1p(-xt)  # 1 - lambda
+    else:
+        current /= 1.0 - xt
     with np.errstate(divide="ignore", invalid="ignore"):
         change = slope_v_per_k / ov
         change *= -100.0
@@ -371,7 +456,7 @@ def evaluate(sipm: Sipm, temp_c, bias_v=None, overvoltage_v=None, photon_rate_hz
     SipmState
     """
     if (bias_v is None) == (overvoltage_v is None):
-        raise ModelError("give exactly one of bias_v and overvoltage_v")
+        raise ModelError("give exactly one of bias_v and overvoltage_v", key="bias_v")
     temp_c = np.asarray(temp_c, dtype=float)
     if bias_v is None:
         bias = breakdown_v(sipm, temp_c) + np.asarray(overvoltage_v, dtype=float)

@@ -20,6 +20,11 @@ import numpy as np
 
 from compensator.errors import ModelError
 
+__all__ = [
+    "DEFAULT_REGULATOR_TIME_CONSTANT_S", "ROUNDING_MODES", "BiasSupply", "Dac", "network_output_v", "sipm_bias_v",
+    "solve_operating_point_v",
+]
+
 ROUNDING_MODES = ("nearest", "floor", "ceil")
 
 #: Closed-loop time constant assumed for a switching bias regulator when the
@@ -29,11 +34,29 @@ DEFAULT_REGULATOR_TIME_CONSTANT_S = 1e-4
 
 @dataclass(frozen=True)
 class Dac:
-    """An ideal DAC: ``V = code Vref / 2^bits``."""
+    """A DAC: ideally ``V = code Vref / 2^bits``.
+
+    Attributes
+    ----------
+    bits : int
+    reference_v : float
+        Full-scale reference, volt.
+    reference_tolerance_pct : float
+        Reference tolerance, percent.
+    reference_tempco_ppm_per_k : float
+        Reference drift bound, ppm per kelvin of board temperature.
+    offset_lsb, gain_error_pct, inl_lsb : float
+        Offset (LSB), gain error (percent) and integral non-linearity (LSB)
+        bounds, either sign.
+    """
 
     bits: int
     reference_v: float
     reference_tolerance_pct: float = 0.05
+    reference_tempco_ppm_per_k: float = 0.0
+    offset_lsb: float = 0.0
+    gain_error_pct: float = 0.0
+    inl_lsb: float = 0.0
 
     @property
     def full_scale_code(self) -> int:
@@ -72,6 +95,15 @@ class BiasSupply:
         Tolerance of the network resistors (or amplifier gain), percent.
     regulator_time_constant_s : float
         First-order closed-loop lag of the regulator, second.
+    resistor_tempco_ppm_per_k : float
+        Temperature coefficient bound of each network resistor, ppm per kelvin.
+    resistor_tracking_ppm_per_k : float or None
+        Bound of the difference between two network resistors' coefficients
+        (a matched network tracks to a few ppm per kelvin); ``None`` for
+        independent parts (twice the coefficient).
+    feedback_tolerance_pct, feedback_tempco_ppm_per_k : float
+        Tolerance (percent) and drift (ppm per kelvin) of the regulator's
+        feedback reference ``feedback_v`` (feedback injection only).
     """
 
     dac: Dac
@@ -88,12 +120,16 @@ class BiasSupply:
     filter_capacitance_f: float = 0.0
     resistor_tolerance_pct: float = 0.1
     regulator_time_constant_s: float = DEFAULT_REGULATOR_TIME_CONSTANT_S
+    resistor_tempco_ppm_per_k: float = 0.0
+    resistor_tracking_ppm_per_k: float | None = None
+    feedback_tolerance_pct: float = 0.0
+    feedback_tempco_ppm_per_k: float = 0.0
 
     def __post_init__(self):
         if self.topology not in ("feedback_injection", "direct"):
-            raise ModelError(f"topology must be 'feedback_injection' or 'direct', got {self.topology!r}")
+            raise ModelError(f"must be 'feedback_injection' or 'direct', got {self.topology!r}", key="topology")
         if self.volts_per_code == 0:
-            raise ModelError("the supply network does not depend on the DAC code")
+            raise ModelError("the supply network does not depend on the DAC code", key="topology")
 
     @property
     def intercept_v(self) -> float:
@@ -138,7 +174,7 @@ class BiasSupply:
             Codes clipped to ``[0, full_scale_code]``.
         """
         if rounding not in ROUNDING_MODES:
-            raise ModelError(f"rounding must be one of {', '.join(ROUNDING_MODES)}, got {rounding!r}")
+            raise ModelError(f"must be one of {', '.join(ROUNDING_MODES)}, got {rounding!r}", key="rounding")
         exact = (np.asarray(output_v, dtype=float) - self.intercept_v) / self.volts_per_code
         code = {"nearest": np.rint, "floor": np.floor, "ceil": np.ceil}[rounding](exact)
         return np.clip(code, 0, self.dac.full_scale_code).astype(np.int64)
@@ -151,6 +187,58 @@ class BiasSupply:
     def drop_v(self, current_a):
         """Voltage lost across the series resistor at ``current_a`` (ampere), volt."""
         return np.asarray(current_a, dtype=float) * self.series_resistor_ohm
+
+    @property
+    def resistor_drift_ppm_per_k(self) -> float:
+        """Drift bound of each resistor's share in the network's ratios, ppm per kelvin.
+
+        The network's output depends on resistor ratios only, so a drift
+        common to all resistors cancels; what is left is each resistor's
+        departure from the others: the tempco itself for independent parts,
+        half the tracking for a matched network (so that two resistors differ
+        by at most the tracking).
+        """
+        if self.resistor_tracking_ppm_per_k is None:
+            return self.resistor_tempco_ppm_per_k
+        return min(self.resistor_tempco_ppm_per_k, 0.5 * self.resistor_tracking_ppm_per_k)
+
+
+def network_output_v(supply: BiasSupply, dac_code, *, dac_error=0.0, dac_offset_lsb=0.0, resistor_errors=(0.0, 0.0, 0.0),
+                     feedback_error=0.0, clip=True):
+    """Supply output at ``dac_code`` with relative errors of its parts (arrays broadcast).
+
+    Parameters
+    ----------
+    supply : BiasSupply
+    dac_code : array_like
+        DAC code (may be fractional).
+    dac_error : array_like
+        Relative error of the DAC's volts per code (reference, gain error and their drifts), fraction.
+    dac_offset_lsb : array_like
+        DAC offset, in DAC codes.
+    resistor_errors : tuple of array_like
+        Relative errors of R1, R2, R3 (feedback injection) or of the amplifier gain (first entry; direct).
+    feedback_error : array_like
+        Relative error of the regulator's feedback reference (feedback injection only).
+    clip : bool
+        Clip to the regulator's output range.
+
+    Returns
+    -------
+    ndarray
+        Supply output, volt.
+    """
+    v_dac = (np.asarray(dac_code, dtype=float) + dac_offset_lsb) * supply.dac.lsb_v * (1.0 + np.asarray(dac_error))
+    e1, e2, e3 = resistor_errors
+    if supply.topology == "feedback_injection":
+        r1 = supply.r1_ohm * (1.0 + e1)
+        r2 = supply.r2_ohm * (1.0 + e2)
+        r3 = supply.r3_ohm * (1.0 + e3)
+        v_fb = supply.feedback_v * (1.0 + np.asarray(feedback_error))
+        out = v_fb * (1.0 + r1 / r2 + r1 / r3) - v_dac * r1 / r3
+    else:
+        out = supply.offset_v + supply.gain_v_per_v * (1.0 + e1) * v_dac
+    return np.clip(out, supply.min_output_v, supply.max_output_v) if clip else out
 
 
 def sipm_bias_v(supply: BiasSupply, sipm, supply_v, temp_c, photon_rate_hz=0.0, tol_v=1e-9, max_iter=100):
@@ -225,4 +313,4 @@ def solve_operating_point_v(output_v_of_current, start_v, series_resistor_ohm, s
         if np.all(np.abs(new - v) < tol_v):
             return new
         v = new
-    raise ModelError("series-resistor operating point did not converge (R dI/dV >= 1?)")
+    raise ModelError("series-resistor operating point did not converge (R dI/dV >= 1?)", key="series_resistor_ohm")

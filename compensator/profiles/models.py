@@ -8,12 +8,16 @@ from pathlib import Path
 import numpy as np
 
 from compensator.errors import ModelError, ProfileError
+from compensator.physics.bias_readback import BiasReadback
 from compensator.physics.current_sense import CurrentSense
 from compensator.physics.sensors import FrontEnd, NtcSensor, RtdSensor, SteinhartHart, TemperatureChannel
+from compensator.physics.scintillator import Scintillator
 from compensator.physics.sipm import Breakdown, Sipm
 from compensator.physics.supply import BiasSupply, Dac
 from compensator.physics.thermal import CoolerParams
 from compensator.profiles.loader import RawProfile, read_raw_profile
+
+__all__ = ["BoardProfile", "SipmProfile", "ThermalProfile", "load_board", "load_profile", "load_sipm", "load_thermal"]
 
 
 @dataclass(frozen=True)
@@ -27,9 +31,18 @@ class _Meta:
 
 @dataclass(frozen=True)
 class SipmProfile(_Meta):
-    """A ``sipm`` profile: metadata plus the :class:`~compensator.physics.sipm.Sipm` model."""
+    """A ``sipm`` profile: metadata plus the :class:`~compensator.physics.sipm.Sipm` model.
+
+    Attributes
+    ----------
+    device : Sipm
+    scintillator : Scintillator or None
+        The crystal the SiPM reads, when the profile describes one (for the
+        ``constant_response`` law).
+    """
 
     device: Sipm = None
+    scintillator: Scintillator | None = None
 
 
 @dataclass(frozen=True)
@@ -47,6 +60,14 @@ class BoardProfile(_Meta):
         DAC code applied when the temperature reading is invalid.
     current_sense : CurrentSense or None
         The SiPM current channel, when the board has one.
+    bias_readback : BiasReadback or None
+        The supply-output measurement, when the board has one (without it
+        the bias is set open-loop).
+    electronics_ref_temp_c : float
+        Temperature at which the electronics' tolerances hold, degree Celsius.
+    electronics_min_temp_c, electronics_max_temp_c : float
+        Temperature of the electronics while the SiPM is at ``min_temp_c`` and
+        ``max_temp_c``, degree Celsius (linear in between).
     """
 
     temperature: TemperatureChannel = None
@@ -57,6 +78,28 @@ class BoardProfile(_Meta):
     max_bias_v: float = 0.0
     safe_dac_code: int = 0
     current_sense: CurrentSense | None = None
+    bias_readback: BiasReadback | None = None
+    electronics_ref_temp_c: float = 25.0
+    electronics_min_temp_c: float | None = None
+    electronics_max_temp_c: float | None = None
+
+    def electronics_temp_c(self, temp_c):
+        """Temperature of the board's electronics while the SiPM is at ``temp_c``, degree Celsius.
+
+        Parameters
+        ----------
+        temp_c : array_like
+            SiPM temperature, degree Celsius.
+
+        Returns
+        -------
+        ndarray
+            Linear between the two ends of the operating range (and beyond it).
+        """
+        t = np.asarray(temp_c, dtype=float)
+        lo = self.min_temp_c if self.electronics_min_temp_c is None else self.electronics_min_temp_c
+        hi = self.max_temp_c if self.electronics_max_temp_c is None else self.electronics_max_temp_c
+        return lo + (t - self.min_temp_c) * ((hi - lo) / (self.max_temp_c - self.min_temp_c))
 
 
 @dataclass(frozen=True)
@@ -77,10 +120,14 @@ def _build_sipm(raw: RawProfile) -> SipmProfile:
     bd, cell, pde, dark, xt, lim = (v[k] for k in ("breakdown", "cell", "pde", "dark", "crosstalk", "limits"))
     if lim["min_overvoltage_v"] >= lim["max_overvoltage_v"]:
         raise ProfileError(raw.problem("limits.min_overvoltage_v", "must be below limits.max_overvoltage_v"))
+    if xt["model"] == "branching_poisson" and xt["probability"] >= 1.0 - np.exp(-1.0):
+        raise ProfileError(raw.problem("crosstalk.probability", "must be below 1 - 1/e = 0.632 for the "
+                                       "branching_poisson model (the mean diverges at lambda = 1)"))
     device = Sipm(
         breakdown=Breakdown(bd["breakdown_v_at_ref"], bd["ref_temp_c"], bd["tempco_mv_per_k"],
                             bd["curvature_mv_per_k2"], bd["breakdown_err_v"], bd["tempco_err_mv_per_k"],
-                            definition=bd["definition"]),
+                            definition=bd["definition"], definition_offset_v=bd["definition_offset_v"],
+                            definition_offset_err_v=bd["definition_offset_err_v"]),
         cell_capacitance_f=cell["capacitance_f"], cell_count=cell["count"],
         capacitance_tempco_ppm_per_k=cell["capacitance_tempco_ppm_per_k"], recovery_time_s=cell["recovery_time_s"],
         pde_max_fraction=pde["max_fraction"], pde_saturation_overvoltage_v=pde["saturation_overvoltage_v"],
@@ -88,11 +135,18 @@ def _build_sipm(raw: RawProfile) -> SipmProfile:
         dark_ref_overvoltage_v=dark["ref_overvoltage_v"], dark_doubling_temp_k=dark["doubling_temp_k"],
         dark_overvoltage_exponent=dark["overvoltage_exponent"],
         crosstalk_probability=xt["probability"], crosstalk_ref_overvoltage_v=xt["ref_overvoltage_v"],
-        crosstalk_overvoltage_exponent=xt["overvoltage_exponent"],
+        crosstalk_overvoltage_exponent=xt["overvoltage_exponent"], crosstalk_model=xt["model"],
         max_overvoltage_v=lim["max_overvoltage_v"], min_overvoltage_v=lim["min_overvoltage_v"],
         max_current_a=lim["max_current_a"],
     )
-    return SipmProfile(**_meta(raw), device=device)
+    scintillator = None
+    if "scintillator" in v:
+        sc = v["scintillator"]
+        scintillator = Scintillator(
+            ref_temp_c=sc["ref_temp_c"], light_yield_tempco_pct_per_k=sc["light_yield_tempco_pct_per_k"],
+            light_yield_curvature_pct_per_k2=sc["light_yield_curvature_pct_per_k2"],
+            light_yield_tempco_err_pct_per_k=sc["light_yield_tempco_err_pct_per_k"])
+    return SipmProfile(**_meta(raw), device=device, scintillator=scintillator)
 
 
 def _build_board(raw: RawProfile) -> BoardProfile:
@@ -101,16 +155,23 @@ def _build_board(raw: RawProfile) -> BoardProfile:
         "temperature_sensor", "front_end", "adc", "dac", "supply", "control", "limits"))
     problems = []
     if ts["type"] == "rtd":
-        sensor = RtdSensor(ts["r0_ohm"], ts["tolerance_class"], ts["self_heating_k"], ts["sensor_to_die_k"])
+        sensor = RtdSensor(ts["r0_ohm"], ts["tolerance_class"], ts["self_heating_k"], ts["sensor_to_die_k"],
+                           ts["time_constant_s"], ts["die_to_sensor_time_constant_s"])
     else:
         sh = None
         if ts["type"] == "ntc_steinhart_hart":
             sh = SteinhartHart(ts["sh_a_per_k"], ts["sh_b_per_k"], ts["sh_c_per_k"])
         sensor = NtcSensor(ts["r25_ohm"], ts.get("beta_k"), sh, ts["r25_tolerance_pct"], ts["beta_tolerance_pct"],
-                           ts["self_heating_k"], ts["sensor_to_die_k"])
+                           ts["self_heating_k"], ts["sensor_to_die_k"], ts["time_constant_s"],
+                           ts["die_to_sensor_time_constant_s"])
     front_end = FrontEnd(fe["sensor_position"], fe["reference_resistor_ohm"], fe["excitation_v"], fe["ratiometric"],
                          adc["bits"], adc["reference_v"], fe["reference_resistor_tolerance_pct"],
-                         adc["reference_tolerance_pct"], fe["excitation_tolerance_pct"])
+                         adc["reference_tolerance_pct"], fe["excitation_tolerance_pct"],
+                         reference_resistor_tempco_ppm_per_k=fe["reference_resistor_tempco_ppm_per_k"],
+                         adc_reference_tempco_ppm_per_k=adc["reference_tempco_ppm_per_k"],
+                         excitation_tempco_ppm_per_k=fe["excitation_tempco_ppm_per_k"],
+                         adc_offset_lsb=adc["offset_lsb"], adc_gain_error_pct=adc["gain_error_pct"],
+                         adc_inl_lsb=adc["inl_lsb"])
     channel = TemperatureChannel(sensor, front_end)
     if lim["min_temp_c"] >= lim["max_temp_c"]:
         problems.append(raw.problem("limits.min_temp_c", "must be below limits.max_temp_c"))
@@ -118,16 +179,21 @@ def _build_board(raw: RawProfile) -> BoardProfile:
         problems.append(raw.problem("supply.min_output_v", "must be below supply.max_output_v"))
     try:
         supply = BiasSupply(
-            Dac(dac["bits"], dac["reference_v"], dac["reference_tolerance_pct"]), sup["topology"],
+            Dac(dac["bits"], dac["reference_v"], dac["reference_tolerance_pct"], dac["reference_tempco_ppm_per_k"],
+                dac["offset_lsb"], dac["gain_error_pct"], dac["inl_lsb"]), sup["topology"],
             feedback_v=sup.get("feedback_v", 1.25), r1_ohm=sup.get("r1_ohm", 0.0), r2_ohm=sup.get("r2_ohm", 1.0),
             r3_ohm=sup.get("r3_ohm", 1.0), gain_v_per_v=sup.get("gain_v_per_v", 1.0),
             offset_v=sup.get("offset_v", 0.0), min_output_v=sup["min_output_v"], max_output_v=sup["max_output_v"],
             series_resistor_ohm=sup["series_resistor_ohm"], filter_capacitance_f=sup["filter_capacitance_f"],
             regulator_time_constant_s=sup["regulator_time_constant_s"],
             resistor_tolerance_pct=sup["resistor_tolerance_pct"],
+            resistor_tempco_ppm_per_k=sup["resistor_tempco_ppm_per_k"],
+            resistor_tracking_ppm_per_k=sup["resistor_tracking_ppm_per_k"],
+            feedback_tolerance_pct=sup.get("feedback_tolerance_pct", 0.0),
+            feedback_tempco_ppm_per_k=sup.get("feedback_tempco_ppm_per_k", 0.0),
         )
     except ModelError as exc:
-        raise ProfileError([*problems, raw.problem("supply.topology", str(exc))]) from None
+        raise ProfileError([*problems, raw.problem(f"supply.{exc.key or 'topology'}", exc.reason)]) from None
     if problems:
         raise ProfileError(problems)
     # The sensor must read inside the ADC range over the whole operating range.
@@ -135,7 +201,8 @@ def _build_board(raw: RawProfile) -> BoardProfile:
     try:
         codes = channel.adc_code(temps_c)
     except ModelError as exc:
-        raise ProfileError(raw.problem("limits.min_temp_c", f"operating range outside the sensor model: {exc}")) from None
+        raise ProfileError(raw.problem("limits.min_temp_c",
+                                       f"operating range outside the sensor model: {exc.reason}")) from None
     if codes.min() <= 0 or codes.max() >= front_end.full_scale_code:
         problems.append(raw.problem("front_end.reference_resistor_ohm",
                                     "the divider drives the ADC to a rail inside the operating temperature range"))
@@ -144,21 +211,41 @@ def _build_board(raw: RawProfile) -> BoardProfile:
     lo_v, hi_v = supply.output_range_v()
     if lo_v >= hi_v:
         problems.append(raw.problem("supply.min_output_v", "the network's output range is empty within the limits"))
+    if lim["max_bias_v"] <= lo_v:
+        problems.append(raw.problem("limits.max_bias_v", f"{lim['max_bias_v']:g} V is not above the lowest output "
+                                    f"the supply reaches ({lo_v:.4g} V): no bias would be allowed"))
     safe = lim["safe_dac_code"]
     if safe is None:
         safe = int(np.argmin(supply.output_v([0, supply.dac.full_scale_code]))) * supply.dac.full_scale_code
     elif safe > supply.dac.full_scale_code:
         problems.append(raw.problem("limits.safe_dac_code", f"exceeds the DAC's largest code {supply.dac.full_scale_code}"))
+    el = v.get("electronics", {"ref_temp_c": 25.0, "min_temp_c": None, "max_temp_c": None})
     current_sense = None
     if "current_sense" in v:
         cs = v["current_sense"]
         current_sense = CurrentSense(cs["adc_bits"], cs["reference_v"], cs["sense_gain_v_per_a"],
-                                     cs["reference_tolerance_pct"], cs["gain_tolerance_pct"], cs["offset_a"])
+                                     cs["reference_tolerance_pct"], cs["gain_tolerance_pct"], cs["offset_a"],
+                                     cs["gain_tempco_ppm_per_k"], cs["offset_drift_a_per_k"])
+    bias_readback = None
+    if "bias_readback" in v:
+        rb = v["bias_readback"]
+        bias_readback = BiasReadback(
+            adc_bits=rb["adc_bits"], reference_v=rb["reference_v"], divider_ratio_v_per_v=rb["divider_ratio_v_per_v"],
+            reference_tolerance_pct=rb["reference_tolerance_pct"], divider_tolerance_pct=rb["divider_tolerance_pct"],
+            offset_v=rb["offset_v"], filter_time_constant_s=rb["filter_time_constant_s"])
+        highest_v = min(hi_v, lim["max_bias_v"])
+        if bias_readback.full_scale_v < highest_v:
+            problems.append(raw.problem(
+                "bias_readback.divider_ratio_v_per_v",
+                f"the read-back saturates at {bias_readback.full_scale_v:.4g} V, below the highest output "
+                f"{highest_v:.4g} V the board can set"))
     if problems:
         raise ProfileError(problems)
     return BoardProfile(**_meta(raw), temperature=channel, supply=supply, control_rate_hz=ctl["rate_hz"],
                         min_temp_c=lim["min_temp_c"], max_temp_c=lim["max_temp_c"], max_bias_v=lim["max_bias_v"],
-                        safe_dac_code=int(safe), current_sense=current_sense)
+                        safe_dac_code=int(safe), current_sense=current_sense,
+                        bias_readback=bias_readback, electronics_ref_temp_c=el["ref_temp_c"],
+                        electronics_min_temp_c=el["min_temp_c"], electronics_max_temp_c=el["max_temp_c"])
 
 
 def _build_thermal(raw: RawProfile) -> ThermalProfile:
