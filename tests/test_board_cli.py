@@ -65,22 +65,33 @@ def test_set_bias_refused_with_reason_and_status_2(cli, sim_port, sipm_b):
     assert cli("board", "--port", path, "clear-faults").status == 0
 
 
-def test_upload_table_image_from_a_folder(cli, sim_port, tmp_path):
-    from compensator.board import build_board
-    from compensator.link.images import image_sha256, table_image
-    from compensator.profiles import load_board, load_sipm
+def test_upload_what_table_and_tune_write(cli, sim_port, tmp_path):
+    import hashlib
 
     path, _ = sim_port
-    firmware, _, _ = build_board(load_sipm(PROFILES / "hut-sipm-b.yaml"), load_board(PROFILES / "hut-board-pt1000.yaml"),
-                                 overvoltage_v=4.0)
-    image = table_image(firmware.table)
-    (tmp_path / "bias_table.image.json").write_bytes(image)
-    result = cli("board", "--port", path, "upload-table", tmp_path, "--json")
+    table_dir = tmp_path / "table"
+    made = cli("table", "--sipm", PROFILES / "hut-sipm-b.yaml", "--board", PROFILES / "hut-board-pt1000.yaml",
+               "--overvoltage-v", "4", "--max-gain-error-pct", "0.05", "--out", table_dir)
+    assert made.status == 0, made.stderr
+    image = (table_dir / "bias_dac_from_adc.image.json").read_bytes()
+    result = cli("board", "--port", path, "upload-table", table_dir, "--json")
     assert result.status == 0, result.stderr
     doc = json.loads(result.stdout)
-    assert doc["image_bytes"] == len(image) and doc["image_sha256"] == image_sha256(image)
-    result = cli("board", "--port", path, "upload-pid", tmp_path)
+    assert doc["image_bytes"] == len(image) and doc["image_sha256"] == hashlib.sha256(image).hexdigest()
+    pid_dir = tmp_path / "pid"
+    assert cli("tune", "--plant", PROFILES / "hut-cooler.yaml", "--method", "simc", "--emit-c", pid_dir).status == 0
+    result = cli("board", "--port", path, "upload-pid", pid_dir / "cooler_pid.image.json", "--json")
+    assert result.status == 0, result.stderr
+    assert json.loads(result.stdout)["image_sha256"] == hashlib.sha256(
+        (pid_dir / "cooler_pid.image.json").read_bytes()).hexdigest()
+    result = cli("board", "--port", path, "upload-pid", table_dir)
     assert result.status == 2 and "not pid coefficients" in result.stderr
+    result = cli("board", "--port", path, "upload-table", tmp_path)
+    assert result.status == 2 and "found 0" in result.stderr
+    huge = tmp_path / "huge.image.json"
+    huge.write_bytes(b" " * 20000)
+    result = cli("board", "--port", path, "upload-table", huge)
+    assert result.status == 2 and "20000 bytes" in result.stderr and "16384" in result.stderr
 
 
 def test_sigterm_ends_cleanly(sim_port):

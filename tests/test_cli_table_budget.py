@@ -76,7 +76,8 @@ def test_table_json_files_and_sweep(cli, profiles_dir, tmp_path, pair, layout):
                 "c_function", "files"):
         assert key in data
     assert data["c_function"] == "uint16_t bias_dac_from_adc(uint16_t adc_code)"
-    assert sorted(p.split("/")[-1] for p in data["files"]) == ["bias_dac_from_adc.c", "bias_dac_from_adc.h", "sweep.csv"]
+    assert sorted(p.split("/")[-1] for p in data["files"]) == ["bias_dac_from_adc.c", "bias_dac_from_adc.h",
+                                                                "bias_dac_from_adc.image.json", "sweep.csv"]
     assert data["max_gain_error_pct"] <= 0.05
     if layout == "uniform":
         assert data["table_bytes"] == data["uniform_table_bytes"]
@@ -112,7 +113,8 @@ def test_table_refuses_to_overwrite_without_force(cli, profiles_dir, tmp_path):
     forced = cli(*table_args(profiles_dir, out, "hut-sipm-a.yaml", "hut-board-ntc.yaml", "3", "0.02", "--force"))
     assert forced.status == 0, forced.stderr
     assert (out / "sweep.csv").read_text().startswith("adc_code,")
-    assert sorted(p.name for p in out.iterdir()) == ["bias_dac_from_adc.c", "bias_dac_from_adc.h", "sweep.csv"]
+    assert sorted(p.name for p in out.iterdir()) == ["bias_dac_from_adc.c", "bias_dac_from_adc.h",
+                                                     "bias_dac_from_adc.image.json", "sweep.csv"]
 
 
 @pytest.mark.parametrize("argv, words", [

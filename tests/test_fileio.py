@@ -35,7 +35,7 @@ def test_commands_create_their_output_folders(cli, profiles_dir, tmp_path):
     r = cli("tune", "--plant", profiles_dir / "hut-cooler.yaml", "--method", "simc", "--emit-c", fw,
             "--plot", tmp_path / "new" / "figs")
     assert r.status == 0, r.stderr
-    assert sorted(p.suffix for p in fw.iterdir()) == [".c", ".h"]
+    assert sorted(p.suffix for p in fw.iterdir()) == [".c", ".h", ".json"]   # the .image.json for upload-pid
     assert any((tmp_path / "new" / "figs").iterdir())
     (tmp_path / "taken").write_text("")
     r = cli("tune", "--plant", profiles_dir / "hut-cooler.yaml", "--method", "simc", "--emit-c", tmp_path / "taken")

@@ -227,6 +227,7 @@ class SimulatedBoard:
         self.unplugs = 0
         self._stop = False
         self._tick_wall_s = plant.tick_s / self.time_scale
+        self._last_host_wall = clock()
         self._plug()
 
     # ------------------------------------------------------------------ the terminal
@@ -321,7 +322,10 @@ class SimulatedBoard:
             return
         if self.line.drop_rate and self._rng.random() < self.line.drop_rate:
             return
+        before = self.firmware.requests
         self._send(self.firmware.receive(self._corrupt(data)), now, reply=True)
+        if self.firmware.requests != before:
+            self._last_host_wall = now
 
     # ------------------------------------------------------------------ time
     def step_ticks(self, count: int, now: float) -> None:
@@ -334,7 +338,11 @@ class SimulatedBoard:
             Wall-clock time, second (for the telemetry's departure).
         """
         faults = self.plant_faults
+        fw = self.firmware
+        silence_ms = int(round((now - self._last_host_wall) * 1000.0 * self.time_scale))
         for _ in range(count):
+            # the watchdog counts wall-clock silence (scaled to board time), even when the simulation lags
+            fw.last_host_ms = max(0, fw.now_ms - silence_ms)
             reading = self.plant.reading
             active = reading.time_s >= faults.at_s
             if faults.sensor is not None:
@@ -368,7 +376,7 @@ class SimulatedBoard:
             if replug_at is not None and now >= replug_at:
                 self._plug()
                 replug_at = None
-                self.firmware.last_host_ms = self.firmware.now_ms  # a fresh line: the watchdog starts over
+                self._last_host_wall = now  # a fresh line: the watchdog starts over
             due = min(MAX_CATCH_UP_TICKS, int((now - next_tick) / self._tick_wall_s) + 1) if now >= next_tick else 0
             if due:
                 self.step_ticks(due, now)

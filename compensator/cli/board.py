@@ -98,6 +98,11 @@ def run(args) -> int:
     image = None
     if action in ("upload-table", "upload-pid"):
         path = _image_path(args.path)
+        from compensator.link.protocol import MAX_IMAGE_BYTES
+
+        if path.stat().st_size > MAX_IMAGE_BYTES:
+            raise InputError(Problem(str(path), 0, "", f"{path.stat().st_size} bytes; the protocol carries images of "
+                                                       f"at most {MAX_IMAGE_BYTES} bytes"))
         try:
             image = path.read_bytes()
         except OSError as exc:

@@ -7,6 +7,7 @@ import sys
 from compensator.cli._common import add_json_flag, print_json
 from compensator.cli.budget import add_law_arguments, law_from_args
 from compensator.fileio import write_files_atomic
+from compensator.link.images import ImageError, table_image
 from compensator.firmware.table_c import (
     DEFAULT_FUNCTION_NAME,
     c_current_function_signature,
@@ -73,6 +74,10 @@ def run(args) -> int:
                 "photon_rate_hz": f"{law.photon_rate_hz:g}"}
     files = render_table_c(table, [sipm, board], name, settings)
     files["sweep.csv"] = render_sweep_csv(sweep)
+    try:  # the image `compensator board upload-table` sends to a board
+        files[f"{name}.image.json"] = table_image(table).decode("ascii")
+    except ImageError as exc:
+        print(f"compensator: note: no upload image: {exc}", file=sys.stderr)
 
     paths = write_files_atomic(args.out, files, overwrite=args.force, what="table output")
 

@@ -285,7 +285,8 @@ def _emit_settings(args, result, profile):
 def _targets(args, emit_name, stem):
     out = []
     if args.emit_c:
-        out += [Path(args.emit_c) / f"{emit_name}.h", Path(args.emit_c) / f"{emit_name}.c"]
+        out += [Path(args.emit_c) / f"{emit_name}.h", Path(args.emit_c) / f"{emit_name}.c",
+                Path(args.emit_c) / f"{emit_name}.image.json"]
     if args.plot:
         out += [Path(args.plot) / f"{stem}-{k}.png" for k in ("bode", "sensitivity", "step")]
     return out
@@ -338,7 +339,9 @@ def run(args) -> int:
 
 def _emit(args, result, pick, profile):
     from compensator.firmware.pid import PidSettings, quantise_pid
-    from compensator.firmware.pid_c import write_pid_c
+    from compensator.fileio import write_files_atomic
+    from compensator.firmware.pid_c import render_pid_c
+    from compensator.link.images import pid_image
 
     g, T = result.gains, result.sample_time_s
     settings = PidSettings(kp=g.kp, ki_per_s=g.ki_per_s, kd_s=g.kd_s, sample_time_s=T, out_min=pick["out_min"],
@@ -356,8 +359,10 @@ def _emit(args, result, pick, profile):
               "input_per_count": f"{pick['input_per_count']:.6g}",
               "output_per_count": f"{pick['output_per_count']:.6g}",
               "out_min": f"{pick['out_min']:.6g}", "out_max": f"{pick['out_max']:.6g}"}
-    written = write_pid_c(coeffs, args.emit_c, name=pick["name"], profiles=(profile,) if profile else (),
-                          settings=banner, overwrite=args.force)
+    name = pick["name"]
+    files = render_pid_c(coeffs, name=name, profiles=(profile,) if profile else (), settings=banner)
+    files[f"{name}.image.json"] = pid_image(coeffs).decode("ascii")  # what `compensator board upload-pid` sends
+    written = write_files_atomic(args.emit_c, files, overwrite=args.force, what="C output")
     return [str(p) for p in written]
 
 
