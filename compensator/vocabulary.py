@@ -216,7 +216,9 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("mean_abs_pct", "%", "mean absolute gain error over the Monte Carlo samples"),
         ("monte_carlo", "record", "seeded Monte Carlo of the whole chain (null when skipped)"),
         ("p99_abs_pct", "%", "99th percentile of the absolute gain error over the Monte Carlo samples"),
-        ("quantity", "text", "what the budget's figures are the error of: gain, or response (gain x PDE x crosstalk x light yield)"),
+        ("quantity", "text", "what the record's figures are of: for a budget gain or response (gain x PDE x "
+                             "crosstalk x light yield); for an Allan deviation or a fleet spread the logged "
+                             "quantity or figure, its unit in its name (gain_pct, bias_v, drift_pct_per_day)"),
         ("ramp_k_per_min", "K/min", "enclosure temperature ramp of the sensor-lag term"),
         ("rss_pct", "%", "root-sum-square of the terms (1 sigma), gain error over the operating range"),
         ("samples", "count", "number of samples: Monte Carlo draws, or telemetry rows of a logbook"),
@@ -401,7 +403,6 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("fault_changes", "count", "fault raised or cleared events the logger recorded"),
         ("fault_intervals", "list", "one record per stretch of samples with a live fault flag set"),
         ("fault_summary", "list", "one record per fault flag seen: intervals and total time"),
-        ("findings", "list", "findings of the analysis: code, severity and message"),
         ("gain_peak_to_peak_pct", "%", "peak-to-peak of the binned gain over the run, percent of the median"),
         ("gain_reference", "1", "median dark-peak gain the percentages are relative to, electrons "
                                 "(null when the overvoltage stands in)"),
@@ -426,7 +427,6 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
          "median overvoltage the gain percentages are relative to when it stands in for the gain (else null)"),
         ("parquet_files", "count", "Parquet files written (0 for CSV)"),
         ("partitions", "count", "(unit, day) partitions of a Parquet dataset (0 for CSV)"),
-        ("quantity", "text", "what the record describes, with its unit in the name (gain_pct, bias_v, temp_k, ...)"),
         ("residual_rms_pct", "%", "RMS of the drift fit's residuals (bin means), percent of the median gain"),
         ("residual_tempco_ci_pct_per_k", "%/K", "confidence interval (low, high) of residual_tempco_pct_per_k"),
         ("residual_tempco_err_pct_per_k", "%/K", "standard error of residual_tempco_pct_per_k (1 sigma, Newey-West)"),
