@@ -89,11 +89,19 @@ def test_resample_to_grid_places_jittered_samples_and_marks_missing_ones():
     t = 1000.0 + np.arange(50) * 2.0 + rng.uniform(-0.2, 0.2, 50)
     keep = np.ones(50, dtype=bool)
     keep[[10, 11, 30]] = False
-    grid = resample_to_grid(t[keep], np.arange(50.0)[keep])
+    values = np.arange(50.0)
+    values[5] = np.nan                                      # a sample without a value is left out too
+    grid = resample_to_grid(t[keep], values[keep])
+    assert grid.start_s == t[0]
+    assert np.isnan(grid.values[5])
+    values[5] = 5.0
     assert grid.tau0_s == pytest.approx(2.0, abs=0.1)
     assert grid.values.size == 50
     assert np.isnan(grid.values[[10, 11, 30]]).all()
+    keep[5] = False
     assert np.array_equal(grid.values[keep], np.arange(50.0)[keep])
+    late = resample_to_grid(t, np.where(np.arange(50) < 3, np.nan, 1.0))   # leading samples without a value
+    assert late.start_s == t[3] and late.values.size == 47
 
 
 def test_allan_curve_reports_the_averaging_time_of_the_minimum():

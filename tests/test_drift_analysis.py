@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from compensator.drift import GainSource, analyse_run, fit_hac, newey_west_lag
+from compensator.drift import GainSource, analyse_run, andrews_lag, fit_hac, newey_west_lag
 from compensator.drift.fleet import fleet_summary
 from compensator.drift.synthetic import START_UNIX_S, synthetic_run
 from compensator.errors import ModelError
@@ -168,3 +168,60 @@ def test_fleet_spread_is_the_spread_of_the_units():
     assert spread.mean_in_quantity_unit == pytest.approx(values.mean()) and spread.std_in_quantity_unit == pytest.approx(values.std(ddof=1))
     assert spread.largest_abs_unit == "hut-2"
     assert spread.minimum_in_quantity_unit == pytest.approx(values.min()) and spread.unit_count == 3
+
+
+def test_prewhitened_fit_is_generalised_least_squares_with_the_ar1_covariance():
+    # Independent computation: GLS with the AR(1) correlation matrix rho^|i-j| inverted by numpy
+    # (Prais and Winsten 1954 give the same estimate through their transform).
+    rng = np.random.default_rng(12)
+    n, rho_true = 400, 0.7
+    noise = np.zeros(n)
+    for i in range(1, n):
+        noise[i] = rho_true * noise[i - 1] + rng.normal()
+    x = np.column_stack([np.ones(n), np.sin(np.arange(n) / 9.0), np.linspace(-1, 1, n)])
+    y = x @ [0.5, 2.0, -1.0] + noise
+    fit = fit_hac(x, y)
+    assert fit.rho == pytest.approx(rho_true, abs=0.1)
+    omega = fit.rho ** np.abs(np.subtract.outer(np.arange(n), np.arange(n)))
+    w = np.linalg.inv(omega)
+    gls = np.linalg.solve(x.T @ w @ x, x.T @ w @ y)
+    assert np.allclose(fit.coef, gls, rtol=1e-8, atol=1e-10)
+    assert fit_hac(x, y, prewhiten=False).rho == 0.0
+
+
+def test_lag_rules():
+    # Newey and West (1994): floor(4 (n/100)^(2/9)).
+    assert [newey_west_lag(n) for n in (50, 100, 300, 1000, 10000)] == [3, 4, 5, 6, 11]
+    # Andrews (1991), one AR(1) column: alpha = 4 rho^2 / ((1 - rho)^2 (1 + rho)^2), lag floor(1.1447 (alpha n)^(1/3)).
+    rng = np.random.default_rng(1)
+    u = np.zeros(2000)
+    for i in range(1, u.size):
+        u[i] = 0.6 * u[i - 1] + rng.normal()
+    rho = np.dot(u[:-1], u[1:]) / np.dot(u[:-1], u[:-1])
+    alpha = 4 * rho ** 2 / ((1 - rho) ** 2 * (1 + rho) ** 2)
+    assert andrews_lag(u[:, None]) == int(np.floor(1.1447 * (alpha * u.size) ** (1 / 3)))
+    assert andrews_lag(np.zeros((10, 1))) == 0
+
+
+def test_fleet_findings_and_every_spread():
+    reports = []
+    for k, (unit, d, every) in enumerate([("hut-1", -0.02, 1), ("hut-2", -0.01, 0), ("hut-1", -0.04, 1)]):
+        run, _ = synthetic_run(days=3, rate_hz=1 / 120, drift_pct_per_day=d, dark_peak_every=every, unit_id=unit,
+                               seed=60 + k)
+        reports.append(analyse_run(run))
+    summary = fleet_summary(reports)
+    assert {f.code for f in summary.findings} == {"unit_repeated", "mixed_gain_sources"}
+    spread = {s.quantity: s for s in summary.spread}
+    allan = np.array([next(c.minimum_deviation_in_quantity_unit for c in r.allan if c.quantity == "gain_pct")
+                      for r in reports])
+    g = spread["gain_allan_minimum_pct"]
+    assert g.mean_in_quantity_unit == pytest.approx(allan.mean()) and g.maximum_in_quantity_unit == allan.max()
+    tempco = np.array([r.residual_tempco_pct_per_k for r in reports])
+    t = spread["residual_tempco_pct_per_k"]
+    assert t.minimum_in_quantity_unit == tempco.min() and t.maximum_in_quantity_unit == tempco.max()
+    assert t.unit_count == 3 and t.largest_abs_unit == reports[int(np.argmax(np.abs(tempco)))].unit_id
+    p2p = spread["gain_peak_to_peak_pct"]
+    assert p2p.std_in_quantity_unit == pytest.approx(np.std([r.gain_peak_to_peak_pct for r in reports], ddof=1))
+    single = fleet_summary(reports[:1])
+    assert np.isnan({s.quantity: s for s in single.spread}["drift_pct_per_day"].std_in_quantity_unit)
+    assert single.findings == ()

@@ -41,6 +41,8 @@ class RobustFit(NamedTuple):
         Newey-West truncation lag, rows.
     residual_rms : float
         RMS of the residuals.
+    rho : float
+        Lag-one autocorrelation removed by the prewhitening (0 without it).
     """
 
     coef: np.ndarray
@@ -49,6 +51,7 @@ class RobustFit(NamedTuple):
     dof: int
     lag: int
     residual_rms: float
+    rho: float = 0.0
 
 
 def newey_west_lag(rows: int) -> int:
@@ -169,4 +172,4 @@ def fit_hac(design, y, *, confidence: float = 0.95, lag: int | None = None, prew
     se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
     dof = n - k
     half = stats.t.ppf(0.5 + confidence / 2.0, dof) * se
-    return RobustFit(coef, se, half, dof, lag, float(np.sqrt(np.mean(resid ** 2))))
+    return RobustFit(coef, se, half, dof, lag, float(np.sqrt(np.mean(resid ** 2))), float(rho))
