@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from compensator.cli._common import add_json_flag, print_json
 
-ORDER = 74
+ORDER = 84
 COMMAND = "export"
 HELP = "export logbooks to CSV or to a Parquet dataset partitioned by unit and day"
 

@@ -17,7 +17,7 @@ from compensator.cli._common import (
     usage_error,
 )
 
-ORDER = 70
+ORDER = 80
 #: How long the logger keeps trying to open the port at the start (a board still booting or re-enumerating).
 CONNECT_WINDOW_S = 5.0
 COMMAND = "log"
