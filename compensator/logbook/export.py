@@ -20,7 +20,7 @@ from pathlib import Path
 
 from compensator.errors import InputError, Problem
 from compensator.logbook.schema import TELEMETRY_COLUMNS
-from compensator.logbook.store import _explain, open_for_reading
+from compensator.logbook.store import explain_sqlite_error, open_for_reading
 
 __all__ = ["ExportSummary", "EXPORT_COLUMNS", "export_csv", "export_parquet", "CHUNK_ROWS"]
 
@@ -70,7 +70,7 @@ def _chunks(path):
             yield rows
         conn.execute("COMMIT")
     except sqlite3.Error as exc:
-        raise _explain(path, exc) from None
+        raise explain_sqlite_error(path, exc) from None
     finally:
         conn.close()
 

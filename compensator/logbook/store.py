@@ -45,7 +45,7 @@ from compensator.logbook.schema import (
     create_statements,
 )
 
-__all__ = ["LogbookError", "LogbookWriter", "open_for_reading", "read_run", "read_sessions", "read_events",
+__all__ = ["LogbookError", "LogbookWriter", "explain_sqlite_error", "open_for_reading", "read_run", "read_sessions", "read_events",
            "count_rows", "TELEMETRY_FIELDS"]
 
 #: Telemetry fields stored per row (the columns after ``session_id`` and ``host_time_unix_s``).
@@ -70,7 +70,14 @@ class LogbookError(InputError):
         self.reason = reason
 
 
-def _explain(path, exc: sqlite3.Error) -> LogbookError:
+def explain_sqlite_error(path, exc: sqlite3.Error) -> LogbookError:
+    """The one-line :class:`LogbookError` for an SQLite error on ``path`` (locked, not a database, ...).
+
+    Parameters
+    ----------
+    path : str or path-like
+    exc : sqlite3.Error
+    """
     text = str(exc)
     if "locked" in text or "busy" in text:
         return LogbookError(path, "the database is locked by another program; try again when it has finished")
@@ -125,7 +132,7 @@ def open_for_reading(path) -> sqlite3.Connection:
     try:
         conn = sqlite3.connect(uri, uri=True, isolation_level=None, check_same_thread=False)
     except sqlite3.Error as exc:
-        raise _explain(path, exc) from None
+        raise explain_sqlite_error(path, exc) from None
     try:
         conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
         _check_logbook(path, conn)
@@ -134,7 +141,7 @@ def open_for_reading(path) -> sqlite3.Connection:
         raise
     except sqlite3.Error as exc:
         conn.close()
-        raise _explain(path, exc) from None
+        raise explain_sqlite_error(path, exc) from None
     return conn
 
 
@@ -220,7 +227,7 @@ def read_sessions(path) -> list[SessionRecord]:
     try:
         return _read_sessions(conn)[0]
     except sqlite3.Error as exc:
-        raise _explain(path, exc) from None
+        raise explain_sqlite_error(path, exc) from None
     finally:
         conn.close()
 
@@ -236,7 +243,7 @@ def read_events(path) -> list[EventRecord]:
     try:
         return _read_events(conn)
     except sqlite3.Error as exc:
-        raise _explain(path, exc) from None
+        raise explain_sqlite_error(path, exc) from None
     finally:
         conn.close()
 
@@ -252,7 +259,7 @@ def count_rows(path) -> int:
     try:
         return int(conn.execute("SELECT count(*) FROM telemetry").fetchone()[0])
     except sqlite3.Error as exc:
-        raise _explain(path, exc) from None
+        raise explain_sqlite_error(path, exc) from None
     finally:
         conn.close()
 
@@ -345,7 +352,7 @@ def read_run(path) -> RunSeries:
         events = _read_events(conn)
         conn.execute("COMMIT")
     except sqlite3.Error as exc:
-        raise _explain(path, exc) from None
+        raise explain_sqlite_error(path, exc) from None
     finally:
         conn.close()
     unit = next((s.unit_id for s in reversed(sessions) if s.rows), sessions[-1].unit_id)
@@ -441,7 +448,7 @@ class LogbookWriter:
             if not existed:
                 self.path.unlink(missing_ok=True)
             if isinstance(exc, sqlite3.Error):
-                raise _explain(self.path, exc) from None
+                raise explain_sqlite_error(self.path, exc) from None
             raise
 
     def _create(self) -> None:
@@ -503,7 +510,7 @@ class LogbookWriter:
             self._conn.execute("COMMIT")
         except sqlite3.Error as exc:
             self._rollback()
-            raise _explain(self.path, exc) from None
+            raise explain_sqlite_error(self.path, exc) from None
         return self.session_id
 
     def append(self, telemetry, *, host_time_unix_s: float) -> None:
@@ -618,7 +625,7 @@ class LogbookWriter:
                 self._conn.execute("COMMIT")
             except sqlite3.Error as exc:
                 self._rollback()
-                raise _explain(self.path, exc) from None
+                raise explain_sqlite_error(self.path, exc) from None
             self._rows, self._events, self._oldest_s = [], [], None
             self.rows_committed += len(rows)
             return len(rows)
