@@ -153,7 +153,8 @@ def test_fit_hac_coefficients_equal_least_squares_and_lag_rule():
     white = bread @ (x.T * resid ** 2) @ x @ bread * 300 / 297
     assert np.allclose(fit0.se, np.sqrt(np.diag(white)), rtol=1e-10)
     with pytest.raises(ModelError):
-        fit_hac(x[:4], y[:4])
+        fit_hac(x[:4], y[:4])                   # 4 rows, 3 coefficients: no error estimate
+    assert fit_hac(x[:5], y[:5], prewhiten=False).dof == 2
 
 
 def test_fleet_spread_is_the_spread_of_the_units():
@@ -222,6 +223,9 @@ def test_fleet_findings_and_every_spread():
     assert t.unit_count == 3 and t.largest_abs_unit == reports[int(np.argmax(np.abs(tempco)))].unit_id
     p2p = spread["gain_peak_to_peak_pct"]
     assert p2p.std_in_quantity_unit == pytest.approx(np.std([r.gain_peak_to_peak_pct for r in reports], ddof=1))
+    pair = {s.quantity: s for s in fleet_summary(reports[:2]).spread}["drift_pct_per_day"]
+    assert pair.std_in_quantity_unit == pytest.approx(abs(reports[0].drift_pct_per_day - reports[1].drift_pct_per_day)
+                                                      / np.sqrt(2))
     single = fleet_summary(reports[:1])
     assert np.isnan({s.quantity: s for s in single.spread}["drift_pct_per_day"].std_in_quantity_unit)
     assert single.findings == ()
