@@ -98,6 +98,7 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("code", "text", "stable machine-readable identifier of a finding (snake_case)"),
         ("file", "path", "input file, as given on the command line"),
         ("files", "list", "files written by the command, in order"),
+        ("findings", "list", "what a check found: one record each, with code, severity and message"),
         ("invalid", "count", "number of profile files with problems"),
         ("key", "text", "identifier of a budget term, or the key path or column at fault"),
         ("kind", "text", "what sort of thing the record describes (profile kind, budget term kind, plant kind)"),
@@ -127,8 +128,9 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("crosstalk_fraction", "1", "probability that an avalanche triggers prompt crosstalk (0 to 1)"),
         ("current_a", "A", "current (SiPM steady current, or cooler current at an operating point)"),
         ("dark_rate_hz", "Hz", "dark count rate"),
+        ("fixed_bias_gain_change_pct_per_k", "%/K",
+         "relative gain change per kelvin if the bias stayed fixed at that point: -(dVbd/dT)/Vov + alpha_C"),
         ("gain", "1", "SiPM gain: charge of one avalanche over the elementary charge"),
-        ("gain_change_pct_per_k", "%/K", "relative gain change per kelvin in the regime of the record"),
         ("overvoltage_v", "V", "overvoltage: bias minus breakdown voltage"),
         ("pde_fraction", "1", "photon detection efficiency (0 to 1)"),
         ("photon_rate_hz", "Hz", "steady photon rate on the sensor"),
@@ -209,7 +211,6 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("dominant", "text", "key of the largest term"),
         ("drop_correction", "text", "how the series-resistor drop is corrected: none, modelled or measured"),
         ("electronics_terms", "records", "budget terms of the electronics' drifts, static converter errors and sensor lag"),
-        ("findings", "records", "what a check found: code, severity and message"),
         ("law", "text", "compensation law: constant_gain or constant_overvoltage"),
         ("limit_pct", "%", "the term's limit (tolerance bound, half an LSB or 3 sigma), gain error"),
         ("max_abs_pct", "%", "largest absolute gain error over the Monte Carlo samples"),
@@ -454,15 +455,29 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
     )),
     ("Demo", _fields(
         ("budget", "record", "gain-error budget of the instrument's hardware"),
+        ("calibrated_dominant_name", "text", "the largest term after calibration, in words"),
         ("characterisation", "record", "breakdown and tempco recovered from synthetic bench I-V curves"),
+        ("codes_evaluated", "count", "number of ADC codes of the operating range the headline figures cover"),
         ("codes_verified", "count", "number of ADC codes the table was verified at"),
         ("curve_count", "count", "number of I-V curves"),
+        ("dominant_name", "text", "the largest term, in words"),
+        ("drift", "record", "gain error at fixed bias, with the law and through the firmware, against 25 C"),
         ("firmware_dac_code", "code", "DAC code the firmware's lookup table gives"),
+        ("firmware_gain_error_max_abs_pct", "%",
+         "largest absolute gain error through the integer path over every ADC code of the range"),
         ("firmware_gain_error_pct", "%", "gain error through the firmware's integer path, against 25 C"),
+        ("firmware_gain_error_ptp_pct", "%",
+         "peak-to-peak gain error through the integer path over every ADC code of the range"),
         ("fixed_bias_v", "V", "fixed bias that gives the law's overvoltage at 25 C"),
+        ("fixed_gain_error_max_abs_pct", "%",
+         "largest absolute gain error at the fixed bias over every ADC code of the range"),
         ("fixed_gain_error_pct", "%", "gain error at the fixed bias, against 25 C"),
+        ("fixed_gain_error_ptp_pct", "%", "peak-to-peak gain error at the fixed bias over every ADC code of the range"),
         ("instruments", "list", "one record per demo instrument"),
+        ("law_gain_error_max_abs_pct", "%",
+         "largest absolute gain error the law leaves over every ADC code of the range"),
         ("law_gain_error_pct", "%", "gain error the law leaves at the sensor, against 25 C"),
+        ("law_gain_error_ptp_pct", "%", "peak-to-peak gain error the law leaves over every ADC code of the range"),
         ("law_supply_v", "V", "supply output the law asks for"),
         ("light", "list", "largest gain error at each light level (null without a current-sense channel)"),
         ("loop", "text", "which loop: cooler or bias supply"),
@@ -563,7 +578,9 @@ def to_json_value(value):
     object
         Dicts, lists, strings, ints, bools, ``None`` and floats rounded by
         :func:`round_significant`. An enum becomes its value when that is a
-        string and its lower-case name otherwise.
+        string and its lower-case name otherwise (a flag: the list of its
+        members' names). A dataclass field with ``metadata={"json": False}``
+        (an internal object kept for the edge) is left out.
 
     Raises
     ------
@@ -588,7 +605,8 @@ def to_json_value(value):
     if isinstance(value, PurePath):
         return str(value)
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        return {f.name: to_json_value(getattr(value, f.name)) for f in dataclasses.fields(value)}
+        return {f.name: to_json_value(getattr(value, f.name)) for f in dataclasses.fields(value)
+                if f.metadata.get("json", True)}
     if isinstance(value, tuple) and hasattr(value, "_fields"):  # NamedTuple
         return {name: to_json_value(getattr(value, name)) for name in value._fields}
     if isinstance(value, Mapping):

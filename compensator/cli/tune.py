@@ -10,6 +10,7 @@ from compensator.cli._common import (
     EXIT_FAILURE,
     EXIT_OK,
     add_json_flag,
+    caution,
     finite_float,
     format_table,
     positive_float,
@@ -314,9 +315,9 @@ def run(args) -> int:
             if target.exists():
                 raise InputError(Problem(str(target), 0, "", "already exists; not overwriting (use --force to "
                                                              "replace it)"))
-    caution = _caution(result)
-    if caution:
-        print(f"compensator: {caution}", file=sys.stderr)
+    caution_text = _caution(result)
+    if caution_text:
+        caution(f"compensator: {caution_text}")  # printed when the command ends, never with a usage error
     files = []
     if emit:
         files += _emit(args, result, emit, profile)
