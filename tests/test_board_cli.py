@@ -106,11 +106,14 @@ def test_sigterm_ends_cleanly(sim_port):
 
 @pytest.mark.parametrize("argv, needle", [
     (["board", "--port", "/nonexistent/tty", "status"], "cannot open the port"),
-    (["board", "--port", "loop://", "set-bias", "nan"], "must be finite"),
+    (["board", "--port", "loop://", "set-bias", "nan"], "must be a finite number"),
     (["board-sim", "--sipm", "missing.yaml", "--board", "missing.yaml"], "missing.yaml"),
     (["board-sim", "--board", "x.yaml"], "needs --sipm and --board"),
-    (["board-sim", "--sipm", "a", "--board", "b", "--corrupt-rate", "1.5"], "probability"),
+    (["board-sim", "--sipm", "a", "--board", "b", "--corrupt-rate", "1.5"], "--corrupt-rate: must be at most 1"),
     (["board-code", "--out", "x", "--sipm", "a.yaml"], "--board"),
+    (["board-sim", "--sipm", "a", "--board", "b", "--seed", "-1"], "--seed: must be at least 0"),
+    (["board-sim", "--sipm", str(PROFILES / "hut-sipm-a.yaml"), "--board", str(PROFILES / "hut-board-ntc.yaml"),
+      "--overvoltage-v", "50"], "--overvoltage-v: 50 V is outside"),
 ])
 def test_bad_input_is_one_line_and_status_2(cli, argv, needle, tmp_path):
     result = cli(*argv)
@@ -123,7 +126,7 @@ def test_loop_url_times_out_with_one_line(cli):
     result = cli("board", "--port", "loop://", "status")
     assert result.status == 2
     lines = [line for line in result.stderr.splitlines() if line.startswith("compensator:")]
-    assert len(lines) == 1 and "read_status" in lines[0] and "5 attempts" in lines[0]
+    assert len(lines) == 1 and "read_status" in lines[0] and "11 attempts" in lines[0]
 
 
 @needs_cc

@@ -37,6 +37,11 @@ def running(sipm, board, thermal=None, *, line=None, plant_faults=None, time_sca
         sim.close()
 
 
+def _client(sim, **options):
+    """A client with retries to spare: the simulated board is a Python thread that a loaded machine may stall."""
+    return BoardClient.open(sim.path, retries=options.pop("retries", 30), **options)
+
+
 def _wait_until(predicate, timeout_s=10.0):
     end = time.monotonic() + timeout_s
     while time.monotonic() < end:
@@ -48,7 +53,7 @@ def _wait_until(predicate, timeout_s=10.0):
 
 
 def test_law_holds_the_overvoltage_against_the_physics(sipm_a, board_ntc):
-    with running(sipm_a, board_ntc, time_scale=60.0) as sim, BoardClient.open(sim.path) as board:
+    with running(sipm_a, board_ntc, time_scale=60.0) as sim, _client(sim) as board:
         ident = board.identify()
         assert ident.board_name == "hut-board-ntc" and ident.protocol_version == 1
         assert ident.table_sha256 == hashlib.sha256(table_image(sim.firmware.table)).hexdigest()
@@ -70,7 +75,7 @@ def test_law_holds_the_overvoltage_against_the_physics(sipm_a, board_ntc):
 
 
 def test_unsafe_requests_are_refused_with_the_limit(sipm_a, board_ntc):
-    with running(sipm_a, board_ntc) as sim, BoardClient.open(sim.path, ramp_down_on_exit=False) as board:
+    with running(sipm_a, board_ntc) as sim, _client(sim, ramp_down_on_exit=False) as board:
         temp_c = board.status().telemetry.sensor_temp_c
         ceiling_v = float(breakdown_v(sipm_a.device, temp_c)) + sipm_a.device.max_overvoltage_v  # physics.sipm
         with pytest.raises(BoardRefused) as info:
@@ -92,7 +97,7 @@ def test_unsafe_requests_are_refused_with_the_limit(sipm_a, board_ntc):
 
 def test_heartbeat_loss_reaches_the_safe_state(sipm_a, board_ntc):
     with running(sipm_a, board_ntc, heartbeat_timeout_s=0.3) as sim, \
-            BoardClient.open(sim.path, ramp_down_on_exit=False) as board:
+            _client(sim, ramp_down_on_exit=False) as board:
         board.set_bias(27.0)
         board.enable()
         _wait_until(lambda: board.status().bias_dac_code == int(board_ntc.supply.dac_code(27.0)))
@@ -114,7 +119,7 @@ def test_heartbeat_loss_reaches_the_safe_state(sipm_a, board_ntc):
 @pytest.mark.parametrize("fault, flag", [("open", "sensor_open"), ("short", "sensor_short")])
 def test_sensor_fault_reaches_the_safe_state(sipm_a, board_ntc, fault, flag):
     with running(sipm_a, board_ntc, plant_faults=PlantFaults(sensor=fault, at_s=5.0)) as sim, \
-            BoardClient.open(sim.path, ramp_down_on_exit=False) as board:
+            _client(sim, ramp_down_on_exit=False) as board:
         board.set_bias(27.0)
         board.enable()
         _wait_until(lambda: board.status().mode == "safe")
@@ -130,7 +135,7 @@ def test_hot_side_fault_and_cooler(sipm_a, board_ntc, cooler):
     # ambient 25 C: the cold plate stays above the dew point (13.9 C at 25 C, 50 % RH) plus the 3 K margin
     with running(sipm_a, board_ntc, cooler, plant_faults=PlantFaults(hot_side=True, at_s=30.0),
                  ambient_temp_c=25.0) as sim, \
-            BoardClient.open(sim.path, ramp_down_on_exit=False) as board:
+            _client(sim, ramp_down_on_exit=False) as board:
         board.set_overvoltage(3.0)
         board.enable()
         _wait_until(lambda: (board.status().telemetry.cooler_current_a or 0) != 0)
@@ -143,7 +148,7 @@ def test_hot_side_fault_and_cooler(sipm_a, board_ntc, cooler):
 
 
 def test_uploads_are_checked_and_atomic(sipm_a, board_ntc, cooler):
-    with running(sipm_a, board_ntc, cooler) as sim, BoardClient.open(sim.path, ramp_down_on_exit=False) as board:
+    with running(sipm_a, board_ntc, cooler) as sim, _client(sim, ramp_down_on_exit=False) as board:
         image = table_image(sim.firmware.table)
         assert board.upload(p.UploadTarget.TABLE, image) == len(image)
         assert board.identify().table_sha256 == hashlib.sha256(image).hexdigest()
@@ -167,7 +172,7 @@ def test_uploads_are_checked_and_atomic(sipm_a, board_ntc, cooler):
 def test_one_percent_corruption_every_command_succeeds_or_fails_never_twice(sipm_a, board_ntc):
     line = LineFaults(corrupt_rate=0.01, seed=11)
     with running(sipm_a, board_ntc, line=line) as sim, \
-            BoardClient.open(sim.path, ramp_down_on_exit=False, retries=8, first_seq=1) as board:
+            _client(sim, ramp_down_on_exit=False, first_seq=1) as board:
         supply = board_ntc.supply
         issued = ok = failed = 0
         for k in range(100):
@@ -191,7 +196,7 @@ def test_one_percent_corruption_every_command_succeeds_or_fails_never_twice(sipm
 def test_reconnects_after_an_unplug(sipm_a, board_ntc):
     line = LineFaults(disconnect_every_s=0.6, disconnect_s=0.2)
     with running(sipm_a, board_ntc, line=line) as sim, \
-            BoardClient.open(sim.path, ramp_down_on_exit=False, reconnect_timeout_s=5.0) as board:
+            _client(sim, ramp_down_on_exit=False, reconnect_timeout_s=5.0) as board:
         board.set_telemetry_period(0.5)
         items = list(board.stream(duration_s=1.6, heartbeat_s=0.1))
         events = [i for i in items if isinstance(i, LinkEvent)]
@@ -213,7 +218,7 @@ class ClientAgainstBoard(RuleBasedStateMachine):
     def start(self):
         self._ctx = running(self.sipm, self.board_profile, line=LineFaults(corrupt_rate=0.005, seed=5))
         self.sim = self._ctx.__enter__()
-        self.client = BoardClient.open(self.sim.path, ramp_down_on_exit=False, retries=8, first_seq=1)
+        self.client = _client(self.sim, ramp_down_on_exit=False, first_seq=1)
         self.client.__enter__()
         self.enabled = False
         self.fixed_code = None
@@ -268,3 +273,37 @@ def test_stateful_client_against_board(sipm_a, board_ntc):
     machine.settings = settings(max_examples=4, stateful_step_count=12, deadline=None, derandomize=True,
                                 database=None)
     machine().runTest()
+
+
+def test_board_from_a_scenario(tmp_path, profiles_dir):
+    from compensator.profiles.scenario import load_scenario
+
+    path = tmp_path / "hut-scenario.yaml"
+    path.write_text(f"""kind: scenario
+name: test-hut
+hardware:
+  sipm: {profiles_dir / 'hut-sipm-a.yaml'}
+  board: {profiles_dir / 'hut-board-ntc.yaml'}
+  thermal: {profiles_dir / 'hut-cooler.yaml'}
+  overvoltage_v: 3.0
+run:
+  duration_days: 1
+ambient:
+  mean_temp_c: 10
+thermal_path:
+  enclosure_time_constant_s: 3600
+  die_time_constant_s: 300
+strategies:
+  uncompensated: false
+  compensated: true
+  compensated_cooled: true
+""")
+    firmware, plant, findings = build_board(None, None, scenario=load_scenario(path))
+    assert plant.cooled and firmware.config.board_name == "hut-board-ntc"
+    assert [f.code for f in findings] == ["safe_state_above_breakdown"]   # hut-board-ntc cannot reach below 25.19 V
+    firmware.enabled, firmware.mode = True, p.Mode.LAW
+    for _ in range(50):
+        dac, cooler_a, _ = firmware.tick(plant.reading)
+        plant.step(dac, cooler_current_a=cooler_a)
+    assert plant.reading.outdoor_temp_c == pytest.approx(10.0)
+    assert cooler_a != 0.0 and plant.reading.time_s == pytest.approx(5.0)

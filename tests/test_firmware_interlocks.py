@@ -66,7 +66,8 @@ def test_slew_and_timeouts_from_the_profile(falling, board_ntc):
     # 2 V/s at 10 Hz is 0.2 V per tick; one level is lsb_v
     assert falling.slew_levels_per_tick == int(0.2 / board_ntc.supply.lsb_v)
     assert falling.tick_ms == 100 and falling.heartbeat_timeout_ms == 5000
-    assert falling.max_step_mdegc == 200            # 2 K/s over 0.1 s
+    # with the cooler: twice (S I T_hot + R I^2) / C = 2 (0.05*3*343.15 + 2*9) / 20 = 6.947 K/s, over 0.1 s
+    assert falling.max_step_mdegc == 695
     assert falling.over_current_na == 200_000       # hut-sipm-a max_current_a 2e-4 A
     assert falling.hot_side_max_mdegc == 70_000 and falling.dew_margin_mdegc == 3000  # hut-cooler limits
 
@@ -86,6 +87,14 @@ def test_bad_settings_are_named(sipm_a, board_ntc):
     with pytest.raises(ModelError) as info:
         build_interlock_limits(sipm_a, board_ntc, over_current_a=-1.0)
     assert info.value.key == "over_current_a"
+    with pytest.raises(ModelError) as info:
+        build_interlock_limits(sipm_a, board_ntc, max_rate_k_per_s=0.0)
+    assert info.value.key == "max_rate_k_per_s" and "must be a positive number" in str(info.value)
+    with pytest.raises(ModelError) as info:
+        build_interlock_limits(sipm_a, board_ntc, heartbeat_timeout_s=-1.0)
+    assert info.value.key == "heartbeat_timeout_s" and "must be a non-negative number" in str(info.value)
+    # the plain device model and the cooler parameters work as well as the profiles
+    assert build_interlock_limits(sipm_a.device, board_ntc) == build_interlock_limits(sipm_a, board_ntc)
 
 
 def test_safe_state_finding(falling, rising, board_ntc):
@@ -157,7 +166,9 @@ def test_trips_go_to_the_safe_state_at_once_and_latch(falling, board_ntc, change
     assert falling.level(out.dac_code) - falling.level(falling.safe_dac_code) == falling.slew_levels_per_tick
 
 
-def test_implausible_rate(falling, board_ntc):
+def test_implausible_rate(rising, board_pt1000):
+    falling, board_ntc = rising, board_pt1000    # no cooler: the default 2 K/s, 200 mK per 0.1 s tick
+    assert falling.max_step_mdegc == 200
     ilk = Interlocks(falling)
     base = _inputs(falling, board_ntc, 20.0, falling.safe_dac_code)
     ilk.step(base)
@@ -180,12 +191,13 @@ def test_heartbeat_loss_only_with_outputs_enabled(falling, board_ntc):
     assert wrapped.step(base._replace(now_ms=50, last_host_ms=(1 << 32) - 50)).faults_live == 0
 
 
-def test_dew_point_holds_the_cooler_off_but_not_the_bias(falling, board_ntc):
+def test_dew_point_stops_cooling_but_not_heating_nor_the_bias(falling, board_ntc):
     ilk = Interlocks(falling)
     base = _inputs(falling, board_ntc, 20.0, falling.safe_dac_code, cooler_request=800,
                    cold_side_mdegc=15_000, dew_point_mdegc=12_001)
     out = ilk.step(base)
     assert out.cooler_drive == 0 and out.faults_live == FaultFlag.DEW_POINT and out.state == STATE_RUN
+    assert ilk.step(base._replace(cooler_request=-800)).cooler_drive == -800   # heating is allowed
     assert ilk.step(base._replace(dew_point_mdegc=12_000)).cooler_drive == 800
     assert ilk.step(base._replace(dew_point_mdegc=ABSENT)).cooler_drive == 800
     assert not FaultFlag.DEW_POINT & TRIP_FLAGS
@@ -328,3 +340,53 @@ def test_render_is_deterministic_and_carries_the_caution(falling, sipm_a, board_
         render_interlocks_c(falling, name="Bad Name")
     paths = write_interlocks_c(falling, tmp_path / "out", name="ilk")
     assert sorted(p.name for p in paths) == ["ilk.c", "ilk.h"]
+
+
+@pytest.mark.parametrize("key, bad", [
+    ("tick_ms", 0), ("tick_ms", 60_001), ("dac_full_scale", 0), ("dac_full_scale", 1 << 31),
+    ("safe_dac_code", -1), ("safe_dac_code", 65536), ("bias_limit_level", -1), ("bias_limit_level", 65536),
+    ("slew_levels_per_tick", 0), ("slew_levels_per_tick", 65536), ("adc_fault_lo", -1), ("adc_fault_lo", 4000),
+    ("max_step_mdegc", -1), ("max_step_mdegc", 1 << 31), ("over_current_na", -1), ("over_current_na", 1 << 31),
+    ("heartbeat_timeout_ms", -1), ("heartbeat_timeout_ms", 1 << 31), ("ov_limit_slope_q", 1 << 31),
+    ("ov_limit_slope_q", -(1 << 31)), ("ov_limit_level_at_ref", 1 << 31), ("dew_margin_mdegc", -1),
+    ("dew_margin_mdegc", 100_001),
+])
+def test_limits_out_of_range_are_named(falling, key, bad):
+    import dataclasses
+
+    with pytest.raises(ModelError) as info:
+        dataclasses.replace(falling, **{key: bad})
+    assert info.value.key == key and repr(bad) in str(info.value)
+
+
+@pytest.mark.parametrize("key, edge", [
+    ("tick_ms", 1), ("tick_ms", 60_000), ("safe_dac_code", 0), ("safe_dac_code", 65535), ("bias_limit_level", 0),
+    ("bias_limit_level", 65535), ("slew_levels_per_tick", 1), ("slew_levels_per_tick", 65535),
+    ("adc_fault_lo", 0), ("max_step_mdegc", 0), ("over_current_na", 0), ("heartbeat_timeout_ms", 0),
+    ("ov_limit_slope_q", (1 << 31) - 1), ("ov_limit_slope_q", -(1 << 31) + 1), ("dew_margin_mdegc", 0),
+    ("dew_margin_mdegc", 100_000),
+])
+def test_limits_at_their_edges_are_accepted(falling, key, edge):
+    import dataclasses
+
+    assert getattr(dataclasses.replace(falling, **{key: edge}), key) == edge
+
+
+def test_limit_constants_against_independent_computations(falling, rising, sipm_a, board_ntc, sipm_b, board_pt1000):
+    # hut-board-ntc: feedback injection, output falls as the code rises; 36 V board maximum is above the
+    # network's highest output (code 0, 35.185 V), so every level is allowed by the board's maximum
+    s = board_ntc.supply
+    assert not falling.bias_rises_with_code and falling.bias_limit_level == 65535
+    assert falling.bias_v_at_level0 == pytest.approx(float(s.output_v(65535)), abs=1e-9)
+    assert falling.volts_per_level == pytest.approx(s.lsb_v, rel=1e-12)
+    # hut-board-pt1000: direct supply rising with the code; level of the 65 V board maximum
+    s2 = board_pt1000.supply
+    assert rising.bias_rises_with_code
+    assert rising.bias_limit_level == int(np.floor((min(65.0, s2.output_range_v()[1]) - s2.intercept_v)
+                                                   / s2.volts_per_code + 1e-9))
+    # the reference of the limit line is the coldest plausible temperature, -25 C less the 20 K margin
+    assert falling.ov_limit_ref_mdegc == -45_000 and rising.ov_limit_ref_mdegc == -45_000
+    # its slope: the breakdown tempco (21.5 mV/K for hut-sipm-a, a straight line) in levels per milli-kelvin
+    assert falling.ov_limit_slope_q == int(np.floor(0.0215 / 1000 / s.lsb_v * 2 ** 24))
+    assert falling.over_current_na == 200_000 and rising.over_current_na == 100_000
+    assert rising.hot_side_max_mdegc == 2**31 - 1 and rising.dew_margin_mdegc == 0

@@ -26,6 +26,7 @@ keeps a board running days of weather in minutes alive.
 
 from __future__ import annotations
 
+import dataclasses
 import errno
 import os
 import random
@@ -135,6 +136,7 @@ def build_board(sipm, board, thermal=None, *, scenario=None, overvoltage_v: floa
     findings : list of Finding
         Warnings about the safe state.
     """
+    from compensator.law.safety import safe_bias
     from compensator.physics.thermal import dew_point_c
     from compensator.sim.environment import Weather
     from compensator.sim.plant import FieldPlant
@@ -159,6 +161,9 @@ def build_board(sipm, board, thermal=None, *, scenario=None, overvoltage_v: floa
     cooler = setup.cooler
     limits = build_interlock_limits(setup.sipm, setup.board, cooler,
                                     heartbeat_timeout_s=heartbeat_timeout_s * time_scale)
+    # the safe state: the code whose worst-case output lies furthest below the coldest breakdown (law.safety)
+    safe = safe_bias(setup.law, setup.board)
+    limits = dataclasses.replace(limits, safe_dac_code=int(safe.dac_code), safe_margin_v=float(safe.margin_v))
     dew = None
     if cooler is not None and cooler.ambient_relative_humidity_pct > 0:
         dew = float(dew_point_c(cooler.ambient_temp_c, cooler.ambient_relative_humidity_pct))
@@ -172,7 +177,7 @@ def build_board(sipm, board, thermal=None, *, scenario=None, overvoltage_v: floa
     firmware = BoardFirmware(config, table=setup.table, pid=setup.pid if plant.cooled else None,
                              table_image=table_image(setup.table),
                              pid_image=pid_image(setup.pid) if setup.pid is not None and plant.cooled else b"")
-    return firmware, plant, limits.safe_findings
+    return firmware, plant, list(safe.findings)
 
 
 def scenario_has_cooler(scenario) -> bool:
@@ -182,10 +187,7 @@ def scenario_has_cooler(scenario) -> bool:
     ----------
     scenario : ScenarioProfile
     """
-    try:
-        return bool(scenario.section("profiles").get("thermal"))
-    except (KeyError, AttributeError):
-        return False
+    return getattr(scenario, "thermal", None) is not None
 
 
 class SimulatedBoard:

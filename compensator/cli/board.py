@@ -7,14 +7,21 @@ import json
 import sys
 from pathlib import Path
 
-from compensator.cli._common import EXIT_OK, add_json_flag, finite_float, non_negative_float, print_json, usage_error
+from compensator.cli._common import (EXIT_OK, add_json_flag, bounded_int, caution, finite_float, non_negative_float,
+                                     print_json)
 from compensator.errors import InputError, Problem
 
-ORDER = 70
+__all__ = ["register", "run"]
 
-CAUTION = ("caution: the board drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, IEC 61010-1) "
-           "and possibly a cooler; keep hardware limits that do not depend on software and follow local codes and "
-           "licensed practice.")
+ORDER = 70
+#: Re-sends of one command before giving up (a one-shot command can afford to wait a second or two).
+COMMAND_RETRIES = 10
+
+#: The caution every link command shows (board, board-sim, board-code).
+CAUTION = ("caution: a controller board drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, "
+           "IEC 61010-1) and possibly a cooler (an unsinked hot side runs away; a cold plate below the dew point "
+           "wets the electronics); a simulation is no evidence that hardware is safe. Keep limits in hardware that "
+           "does not depend on software and follow local codes and licensed practice.")
 
 
 def register(subparsers) -> None:
@@ -26,7 +33,7 @@ def register(subparsers) -> None:
                     "while a host keeps talking to it (`watch` does; a board with its heartbeat watchdog on goes "
                     "to its safe state after the timeout). " + CAUTION)
     parser.add_argument("--port", required=True, metavar="URL", help="device path, pty path or pyserial URL")
-    parser.add_argument("--baud", type=int, default=115200, metavar="N", help="line speed, baud (default 115200)")
+    parser.add_argument("--baud", type=bounded_int(1, 100_000_000), default=115200, metavar="N", help="line speed, baud (default 115200)")
     parser.add_argument("--hexdump", action="store_true", help="print the traffic in hex on stderr")
     sub = parser.add_subparsers(dest="action", metavar="ACTION")
     sub.required = True
@@ -90,11 +97,9 @@ def run(args) -> int:
     from compensator.link.protocol import UploadTarget
 
     hexdump = (lambda line: print(line, file=sys.stderr)) if args.hexdump else None
-    if args.baud <= 0:
-        raise usage_error("--baud", f"must be a positive integer, got {args.baud}")
     action = args.action
     if action in ("set-bias", "set-overvoltage", "enable"):
-        print(CAUTION, file=sys.stderr)
+        caution(CAUTION)
     image = None
     if action in ("upload-table", "upload-pid"):
         path = _image_path(args.path)
@@ -116,7 +121,7 @@ def run(args) -> int:
             raise InputError(Problem(str(path), 0, "image", f"holds {kind.replace('_', ' ')}, not "
                                                             f"{wanted.replace('_', ' ')}"))
     with BoardClient.open(args.port, baud_rate=args.baud, hexdump=hexdump, ramp_down_on_exit=False,
-                          reconnect_timeout_s=2.0) as board:
+                          reconnect_timeout_s=2.0, retries=COMMAND_RETRIES) as board:
         if action == "watch":
             return _watch(board, args)
         result = _act(board, action, args, image, UploadTarget)

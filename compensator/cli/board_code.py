@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import sys
 
-from compensator.cli._common import EXIT_OK, add_json_flag, non_negative_float, positive_float, print_json
+from compensator.cli.board import CAUTION
+from compensator.cli._common import EXIT_OK, add_json_flag, caution, non_negative_float, positive_float, print_json
+
+__all__ = ["register", "run"]
 
 ORDER = 74
 
-CAUTION = ("caution: this code drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, IEC 61010-1) "
-           "and possibly a cooler; keep hardware limits that do not depend on software and follow local codes and "
-           "licensed practice.")
 
 
 def register(subparsers) -> None:
@@ -44,7 +44,7 @@ def run(args) -> int:
     from compensator.link import protocol
     from compensator.profiles import load_board, load_sipm, load_thermal
 
-    print(CAUTION, file=sys.stderr)
+    caution(CAUTION)
     if bool(args.sipm) != bool(args.board):
         raise usage_error("--sipm" if args.board else "--board", "the interlocks need both --sipm and --board")
     if args.thermal and not args.sipm:

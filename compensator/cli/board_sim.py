@@ -5,24 +5,20 @@ from __future__ import annotations
 import signal
 import sys
 
-from compensator.cli._common import EXIT_OK, finite_float, non_negative_float, positive_float, usage_error
+from compensator.cli.board import CAUTION
+from compensator.cli._common import (EXIT_OK, bounded_float, caution, finite_float, non_negative_float, positive_float,
+                                     seed, usage_error)
+
+__all__ = ["register", "run"]
 
 ORDER = 72
 COMMAND = "board-sim"
 HELP = "run a simulated controller board on a pseudo-terminal (prints its path first)"
-
-CAUTION = ("caution: a simulated board is no evidence that real hardware is safe; real bias supplies of tens of "
-           "volts (above 60 V dc is hazardous live, IEC 61010-1) and coolers need hardware limits and local codes "
-           "and licensed practice.")
+#: argparse type: a probability.
+PROBABILITY = bounded_float(0.0, 1.0)
 
 
-def _probability(text: str) -> float:
-    import argparse
 
-    value = finite_float(text)
-    if not 0.0 <= value <= 1.0:
-        raise argparse.ArgumentTypeError(f"must be a probability between 0 and 1, got {text!r}")
-    return value
 
 
 def register(subparsers) -> None:
@@ -41,9 +37,9 @@ def register(subparsers) -> None:
                         help="law target the table is built for, volt (default: midway between the sensor's limits)")
     parser.add_argument("--ambient-c", type=finite_float, metavar="C",
                         help="constant outdoor temperature without a scenario, degree C")
-    parser.add_argument("--corrupt-rate", type=_probability, default=0.0, metavar="P",
+    parser.add_argument("--corrupt-rate", type=PROBABILITY, default=0.0, metavar="P",
                         help="probability that a byte on the line is corrupted (both directions)")
-    parser.add_argument("--drop-rate", type=_probability, default=0.0, metavar="P",
+    parser.add_argument("--drop-rate", type=PROBABILITY, default=0.0, metavar="P",
                         help="probability that a frame or read is lost")
     parser.add_argument("--delay-ms", type=non_negative_float, default=0.0, metavar="MS",
                         help="extra delay of every reply, millisecond")
@@ -55,12 +51,13 @@ def register(subparsers) -> None:
     parser.add_argument("--hot-side-fault", action="store_true", help="the cooler's hot side reads over its limit")
     parser.add_argument("--fault-at-s", type=non_negative_float, default=0.0, metavar="S",
                         help="board time from which injected plant faults hold, second")
-    parser.add_argument("--time-scale", type=positive_float, default=1.0, metavar="X",
+    parser.add_argument("--time-scale", type=bounded_float(0.0, 1e6, above=True), default=1.0, metavar="X",
                         help="board seconds per wall-clock second (e.g. 1000 runs days of weather in minutes)")
     parser.add_argument("--heartbeat-timeout-s", type=non_negative_float, default=10.0, metavar="S",
                         help="host silence (wall clock) after which the board goes to its safe state, second "
                              "(0: no watchdog; default 10)")
-    parser.add_argument("--seed", type=int, default=1, metavar="N", help="seed of the plant noise and line faults")
+    parser.add_argument("--seed", type=seed, default=1, metavar="N",
+                        help="seed of the plant noise and line faults (a non-negative integer)")
     parser.add_argument("--duration-s", type=positive_float, metavar="S", help="stop after this long (wall clock)")
     parser.set_defaults(handler=run)
 
@@ -74,11 +71,9 @@ def run(args) -> int:
         raise usage_error("--scenario", "give either --scenario or --sipm/--board/--thermal, not both")
     if args.scenario is None and not (args.sipm and args.board):
         raise usage_error("--sipm", "needs --sipm and --board (or --scenario)")
-    if args.time_scale > 1e6:
-        raise usage_error("--time-scale", f"must be at most 1e6, got {args.time_scale:g}")
     if args.thermal is None and args.scenario is None and args.hot_side_fault:
         raise usage_error("--hot-side-fault", "needs a cooler (--thermal)")
-    print(CAUTION, file=sys.stderr)
+    caution(CAUTION)
     scenario = sipm = board = thermal = None
     if args.scenario is not None:
         from compensator.profiles.scenario import load_scenario
@@ -95,7 +90,7 @@ def run(args) -> int:
                                                 heartbeat_timeout_s=args.heartbeat_timeout_s,
                                                 time_scale=args.time_scale, seed=args.seed)
     except ModelError as exc:
-        raise exc.at("<command line>") from None
+        raise exc.at("<command line>", key=f"--{exc.key.replace('_', '-')}" if exc.key else None) from None
     for finding in findings:
         print(f"{finding.severity.value}: {finding.message}", file=sys.stderr)
     sim = SimulatedBoard(firmware, plant, time_scale=args.time_scale, line=line,

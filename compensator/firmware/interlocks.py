@@ -23,8 +23,10 @@ The rules, in the order the step applies them:
 5. **Heartbeat lost**: outputs enabled and no valid host frame for more than
    ``heartbeat_timeout_ms`` (0 disables the watchdog).
 6. **Dew point**: the cold side below the dew point plus ``dew_margin_mdegc``
-   (only when the humidity, hence the dew point, is known): the cooler is
-   held off while it lasts; the bias is not touched.
+   (only when the humidity, hence the dew point, is known): the cooler may
+   not cool (a positive drive is held at zero; heating, which moves the
+   plate away from condensation, is allowed) while it lasts; the bias is not
+   touched.
 7. Any latched *trip* (:data:`~compensator.firmware.faults.TRIP_FLAGS`,
    rules 1-5) puts the outputs in the safe state at once: the bias at
    ``safe_dac_code`` (below breakdown at the coldest temperature of the
@@ -425,7 +427,7 @@ class Interlocks:
                 s.level -= slew
             else:
                 s.level = target
-        cooler = i.cooler_request if state == STATE_RUN and not dew else 0
+        cooler = i.cooler_request if state == STATE_RUN and not (dew and i.cooler_request > 0) else 0
         s.live = live
         for flag in sorted(values):
             self.latch(flag, i.now_ms, values[flag])
@@ -438,7 +440,7 @@ def _level_of_v(supply, volts, full: int, rises: bool) -> float:
 
 
 def build_interlock_limits(sipm, board, thermal=None, *, slew_v_per_s: float = DEFAULT_SLEW_V_PER_S,
-                           max_rate_k_per_s: float = DEFAULT_MAX_RATE_K_PER_S,
+                           max_rate_k_per_s: float | None = None,
                            fault_margin_k: float = DEFAULT_FAULT_MARGIN_K,
                            heartbeat_timeout_s: float = DEFAULT_HEARTBEAT_TIMEOUT_S,
                            over_current_a: float | None = None) -> InterlockLimits:
@@ -454,8 +456,13 @@ def build_interlock_limits(sipm, board, thermal=None, *, slew_v_per_s: float = D
         The cooler (``max_hot_temp_c`` and ``dew_margin_k``); ``None`` for a board without one.
     slew_v_per_s : float
         Bias slew limit, volt per second.
-    max_rate_k_per_s : float
-        Largest plausible rate of change of the temperature reading, kelvin per second.
+    max_rate_k_per_s : float, optional
+        Largest plausible rate of change of the temperature reading, kelvin
+        per second. Default: :data:`DEFAULT_MAX_RATE_K_PER_S` without a
+        cooler; with one, twice the fastest the cold plate can move (all the
+        heat the module can pump or dissipate at full current, Peltier plus
+        Joule at the hottest allowed hot side, into the plate's heat
+        capacity), if that is more.
     fault_margin_k : float
         Readings this far outside the operating range are sensor faults, kelvin.
     heartbeat_timeout_s : float
@@ -474,6 +481,13 @@ def build_interlock_limits(sipm, board, thermal=None, *, slew_v_per_s: float = D
     """
     device = getattr(sipm, "device", sipm)
     cooler = getattr(thermal, "cooler", thermal)
+    if max_rate_k_per_s is None:
+        max_rate_k_per_s = DEFAULT_MAX_RATE_K_PER_S
+        if cooler is not None:
+            i_a = cooler.max_current_a
+            heat_w = (cooler.seebeck_v_per_k * i_a * (cooler.max_hot_temp_c + 273.15)
+                      + cooler.resistance_ohm * i_a ** 2)
+            max_rate_k_per_s = max(max_rate_k_per_s, 2.0 * heat_w / cooler.cold_heat_capacity_j_per_k)
     for key, value, low in (("slew_v_per_s", slew_v_per_s, 0.0), ("max_rate_k_per_s", max_rate_k_per_s, 0.0),
                             ("fault_margin_k", fault_margin_k, -1e-300),
                             ("heartbeat_timeout_s", heartbeat_timeout_s, -1e-300)):

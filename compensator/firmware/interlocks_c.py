@@ -66,7 +66,7 @@ typedef struct {{
     int32_t hot_side_mdegc;     /* or {up}_ABSENT */
     int32_t cold_side_mdegc;    /* or {up}_ABSENT */
     int32_t dew_point_mdegc;    /* or {up}_ABSENT (humidity unknown) */
-    int32_t cooler_request;     /* cooler drive the loop asks for */
+    int32_t cooler_request;     /* cooler drive the loop asks for (positive cools) */
 }} {name}_inputs;
 
 typedef struct {{
@@ -275,7 +275,8 @@ void {name}_step({name}_state *s, const {name}_inputs *in, {name}_outputs *out)
             s->level = target;
         }}
     }}
-    out->cooler_drive = (state == {up}_STATE_RUN && !dew) ? in->cooler_request : 0;
+    /* near the dew point the cooler may heat (move away from condensation) but not cool */
+    out->cooler_drive = (state == {up}_STATE_RUN && !(dew && in->cooler_request > 0)) ? in->cooler_request : 0;
     s->live = live;
     for (b = 0; b < 16; ++b) {{
         if ((live >> b) & 1u) {{

@@ -39,15 +39,15 @@ _CTYPE = {"u8": "uint8_t", "u16": "uint16_t", "u32": "uint32_t", "u64": "uint64_
 _SIZE = {"u8": 1, "u16": 2, "u32": 4, "u64": 8, "i32": 4}
 
 
-def c_struct_name(cls) -> str:
+def c_struct_name(message_class) -> str:
     """Snake-case stem of a message class for C (``SetBias`` -> ``set_bias``).
 
     Parameters
     ----------
-    cls : type
+    message_class : type
         A message class of :mod:`compensator.link.protocol`.
     """
-    return p.message_name(cls)
+    return p.message_name(message_class)
 
 
 _ALL = (*p.MESSAGE_TYPES, p.Reply)

@@ -224,12 +224,12 @@ def encode_frame(kind: int, seq: int, payload: bytes, *, version: int = p.PROTOC
     return cobs.encode(body) + b"\x00"
 
 
-def decode_payload(cls, payload: bytes, *, seq: int = 0, kind: int | None = None) -> p.Message:
+def decode_payload(message_class, payload: bytes, *, seq: int = 0, kind: int | None = None) -> p.Message:
     """Build a message of class ``cls`` from its payload bytes.
 
     Parameters
     ----------
-    cls : type
+    message_class : type
         A message class of :mod:`compensator.link.protocol`.
     payload : bytes
         The payload as it came off the wire.
@@ -243,6 +243,7 @@ def decode_payload(cls, payload: bytes, *, seq: int = 0, kind: int | None = None
     RemoteProtocolError
         The payload does not match the layout (its length, a text field, a length byte).
     """
+    cls = message_class
     compiled = _STRUCTS[cls]
     if compiled is not None:
         if len(payload) != compiled.size:

@@ -14,6 +14,7 @@ defines its own binary image and keeps this protocol.
 from __future__ import annotations
 
 import dataclasses
+import enum
 import hashlib
 import json
 
@@ -33,15 +34,22 @@ class ImageError(LinkError, ValueError):
 
 
 def _plain(value):
+    """A JSON-ready form of a record's field: arrays, records, enums and sequences are tagged and nested."""
     if isinstance(value, np.ndarray):
         return {"ndarray": value.tolist(), "dtype": str(value.dtype)}
+    if isinstance(value, enum.Enum):
+        return {"enum": type(value).__name__, "value": _plain(value.value)}
     if isinstance(value, np.generic):
         return value.item()
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         return {"record": type(value).__name__,
                 "fields": {f.name: _plain(getattr(value, f.name)) for f in dataclasses.fields(value)}}
-    if hasattr(value, "value") and hasattr(type(value), "__members__"):  # enums
-        return value.value
+    if isinstance(value, tuple):
+        return {"tuple": [_plain(v) for v in value]}
+    if isinstance(value, list):
+        return [_plain(v) for v in value]
+    if isinstance(value, dict):
+        return {"mapping": [[_plain(k), _plain(v)] for k, v in value.items()]}
     return value
 
 
@@ -81,14 +89,23 @@ def pid_image(coefficients) -> bytes:
 
 
 def _revive(value, types):
-    if isinstance(value, dict) and "ndarray" in value:
+    if isinstance(value, list):
+        return [_revive(v, types) for v in value]
+    if not isinstance(value, dict):
+        return value
+    if "ndarray" in value:
         return np.asarray(value["ndarray"], dtype=value["dtype"])
-    if isinstance(value, dict) and "record" in value:
-        cls = types.get(value["record"])
-        if cls is None:
-            raise ImageError(f"unknown record {value['record']!r} in the image")
-        return cls(**{k: _revive(v, types) for k, v in value["fields"].items()})
-    return value
+    if "tuple" in value:
+        return tuple(_revive(v, types) for v in value["tuple"])
+    if "mapping" in value:
+        return {_revive(k, types): _revive(v, types) for k, v in value["mapping"]}
+    name = value.get("record", value.get("enum"))
+    cls = types.get(name)
+    if cls is None:
+        raise ImageError(f"unknown record {name!r} in the image")
+    if "enum" in value:
+        return cls(_revive(value["value"], types))
+    return cls(**{k: _revive(v, types) for k, v in value["fields"].items()})
 
 
 def read_image(data: bytes):
@@ -122,11 +139,13 @@ def read_image(data: bytes):
     cls = {"lookup_table": tables_module.LookupTable, "pid_coefficients": pid_module.FixedPidCoefficients}.get(kind)
     if cls is None:
         raise ImageError(f"unknown image kind {kind!r}")
-    types = {name: obj for module in (tables_module, pid_module) for name, obj in vars(module).items()
-             if isinstance(obj, type) and dataclasses.is_dataclass(obj)}
+    from compensator import findings as findings_module
+
+    types = {name: obj for module in (findings_module, pid_module, tables_module) for name, obj in vars(module).items()
+             if isinstance(obj, type) and (dataclasses.is_dataclass(obj) or issubclass(obj, enum.Enum))}
     try:
         return kind, cls(**{k: _revive(v, types) for k, v in fields.items()})
-    except (TypeError, ValueError) as exc:
+    except (TypeError, ValueError, KeyError) as exc:
         raise ImageError(f"the {kind.replace('_', ' ')} image does not hold a valid record: {exc}") from None
 
 
