@@ -6,6 +6,8 @@ import math
 
 from compensator.cli._common import add_json_flag, format_table, positive_float, print_json, usage_error
 
+__all__ = ["register", "run"]
+
 ORDER = 82
 COMMAND = "drift"
 HELP = "drift per day, residual temperature coefficient and Allan deviation of logbooks (one row per unit)"

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from compensator.cli._common import add_json_flag, print_json
 
+__all__ = ["register", "run"]
+
 ORDER = 84
 COMMAND = "export"
 HELP = "export logbooks to CSV or to a Parquet dataset partitioned by unit and day"

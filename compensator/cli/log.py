@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import signal
 import sys
 import time
 
@@ -11,11 +10,14 @@ from compensator.cli._common import (
     EXIT_INTERRUPTED,
     EXIT_OK,
     add_json_flag,
+    caution,
     non_negative_float,
     positive_float,
     print_json,
     usage_error,
 )
+
+__all__ = ["register", "run"]
 
 ORDER = 80
 #: How long the logger keeps trying to open the port at the start (a board still booting or re-enumerating).
@@ -69,10 +71,6 @@ class _StatusLine:
             self.stream.write("\n")
 
 
-def _sigterm_as_interrupt(signum, frame):
-    raise KeyboardInterrupt
-
-
 def _connect(client_type, port: str, window_s: float):
     """An opened client; retries for ``window_s``, then the link's one-line error."""
     from compensator.errors import LinkError
@@ -105,15 +103,16 @@ def run(args) -> int:
     if Path(args.db).exists():
         open_for_reading(args.db).close()   # not a logbook, newer schema, locked: say so before touching the board
     line = _StatusLine()
-    previous = signal.signal(signal.SIGTERM, _sigterm_as_interrupt)
     try:
         client = _connect(BoardClient, args.port, args.connect_window_s)
-        with client:
+        with client:   # SIGTERM arrives as KeyboardInterrupt (compensator.cli.main): the session ends cleanly
             result = run_logger(client, args.db, port=args.port, duration_s=args.duration_s, rate_hz=args.rate_hz,
                                 unit_id=args.unit, status=line)
     finally:
-        signal.signal(signal.SIGTERM, previous)
         line.end()
+    caution("caution: the logged board drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, "
+            "IEC 61010-1); the logger only listens, and work on the board follows local codes and licensed "
+            "practice")
     if args.json:
         print_json(result)
     else:

@@ -345,7 +345,7 @@ def _default_bin_s(duration_s: float, interval_s: float) -> float:
     return min(3600.0, max(duration_s / 48.0, 10.0 * (interval_s if np.isfinite(interval_s) else 1.0)))
 
 
-def bin_series(run: RunSeries, *, bin_s: float, breakdown_v=None, _used=None) -> BinnedSeries:
+def bin_series(run: RunSeries, *, bin_s: float, breakdown_v=None) -> BinnedSeries:
     """Bin means of gain and temperature over the samples a drift fit uses.
 
     Bins holding fewer than a tenth of the median bin's samples are dropped
@@ -363,7 +363,11 @@ def bin_series(run: RunSeries, *, bin_s: float, breakdown_v=None, _used=None) ->
     -------
     BinnedSeries
     """
-    gain_pct, used, _spoiled, _source, _reference = _used if _used is not None else _used_samples(run, breakdown_v)
+    return _bin_series(run, bin_s, _used_samples(run, breakdown_v))
+
+
+def _bin_series(run: RunSeries, bin_s: float, samples) -> BinnedSeries:
+    gain_pct, used, _spoiled, _source, _reference = samples
     t = run.time_unix_s[used]
     if t.size == 0:
         empty = np.zeros(0)
@@ -436,7 +440,7 @@ def analyse_run(run: RunSeries, *, bin_s: float | None = None, confidence: float
     width = _default_bin_s(duration_s, interval_s) if bin_s is None else float(bin_s)
     temp_min = float(np.min(run.temp_c[used])) if used.any() else float("nan")
     temp_max = float(np.max(run.temp_c[used])) if used.any() else float("nan")
-    binned = bin_series(run, bin_s=width, breakdown_v=breakdown_v, _used=samples)
+    binned = _bin_series(run, width, samples)
     bins = int(binned.samples.size)
     if bins >= MIN_BINS:
         g_bin, temp_bin = binned.gain_pct, binned.temp_c
