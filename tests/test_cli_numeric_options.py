@@ -67,6 +67,8 @@ BASE_ARGV = {
     "board-sim": ("board-sim", "--sipm", "{profiles}/hut-sipm-a.yaml", "--board", "{profiles}/hut-board-ntc.yaml"),
     "board": ("board", "--port", "loop://", "--hexdump"),
     "board watch": ("board", "--port", "loop://", "watch"),
+    "log": ("log", "--port", "loop://", "--db", "never-written.sqlite"),
+    "drift": ("drift", "never-read.sqlite"),
 }
 
 

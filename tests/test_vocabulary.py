@@ -47,7 +47,7 @@ def test_the_unit_of_a_name_matches_its_suffix():
 
 
 def test_percent_only_under_pct_names_and_fractions_under_fraction_names():
-    assert all(f.name.endswith(("_pct", "_pct_per_k")) for f in FIELDS.values() if f.unit.startswith("%"))
+    assert all(f.name.endswith(("_pct", "_pct_per_k", "_pct_per_day")) for f in FIELDS.values() if f.unit.startswith("%"))
     for bare in ("ki", "kd", "pde", "crosstalk", "dark_rate_khz"):
         assert bare not in FIELDS
 

@@ -27,7 +27,7 @@ DOC = REPO / "docs" / "json-fields.md"
 class Invocation:
     """One run of a command with ``--json``.
 
-    ``argv`` may hold ``{profiles}``, ``{demo}`` (seeded bench data),
+    ``argv`` may hold ``{profiles}``, ``{demo}`` (seeded bench data), ``{runs}`` (seeded logbooks),
     ``{loops}`` (seeded loop experiments) and ``{work}`` (a scratch folder);
     ``save_as`` keeps the JSON in ``{work}/NAME`` for a later invocation.
     """
@@ -84,6 +84,11 @@ INVOCATIONS: tuple[Invocation, ...] = (
                             ("enable", ()), ("disable", ()), ("faults", ()), ("clear-faults", ()),
                             ("upload-table", ("{work}/board.table.image.json",)),
                             ("upload-pid", ("{work}/board.pid.image.json",)))),
+    Invocation(command="log", argv=("log", "--port", "{board}", "--db", "{work}/logged.sqlite", "--duration-s", "1",
+                                    "--rate-hz", "10")),
+    Invocation(command="drift", argv=("drift", "{runs}/hut-03.sqlite")),
+    Invocation(command="drift", argv=("drift", "{runs}/hut-03.sqlite", "{runs}/hut-07.sqlite")),
+    Invocation(command="export", argv=("export", "{runs}/hut-03.sqlite", "--csv", "{work}/hut-03.csv")),
 )
 
 
@@ -116,6 +121,7 @@ def prepare(work: Path) -> dict:
     sys.path.insert(0, str(REPO / "tools"))
     try:
         import make_demo_data
+        import make_demo_logbook
         import make_loop_data
     finally:
         sys.path.pop(0)
@@ -125,8 +131,13 @@ def prepare(work: Path) -> dict:
     make_loop_data.make_step(loops / "hut-cooler-step.csv")
     make_loop_data.make_relay(loops / "hut-cooler-relay.csv")
     (work / "bad.yaml").write_text("kind: board\n")
+    runs = work / "runs"
+    runs.mkdir()
+    for k, (unit_id, drift, tempco) in enumerate(make_demo_logbook.UNITS[:2]):
+        make_demo_logbook.write_unit(runs / f"{unit_id}.sqlite", unit_id, days=2.0, rate_hz=1 / 60, drift=drift,
+                                     tempco=tempco, seed=k + 1)
     return {"profiles": str(REPO / "hardware_profiles"), "demo": str(demo), "loops": str(loops), "work": str(work),
-            "board": _start_board(work)}
+            "runs": str(runs), "board": _start_board(work)}
 
 
 def _start_board(work: Path) -> str:
