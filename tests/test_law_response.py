@@ -102,10 +102,15 @@ def test_response_law_budget(sipm_a, board_ntc):
     assert float(per_v) == pytest.approx(float(by_hand), rel=1e-6)
 
 
-def test_response_law_needs_a_crystal(sipm_a, board_ntc):
+def test_response_law_needs_a_crystal(sipm_a, sipm_b, board_ntc):
     from compensator.errors import ProfileError
     with pytest.raises(ProfileError, match="scintillator: missing section"):
-        build_law(sipm_a, board_ntc, 3.0, kind="constant_response")
+        build_law(replace(sipm_a, scintillator=None), board_ntc, 3.0, kind="constant_response")
+    # The bundled hut-sipm-a reads an invented crystal; hut-sipm-b reads none.
+    assert sipm_a.scintillator == Scintillator(ref_temp_c=25.0, light_yield_tempco_pct_per_k=-0.25,
+                                               light_yield_curvature_pct_per_k2=-0.002,
+                                               light_yield_tempco_err_pct_per_k=0.03)
+    assert sipm_b.scintillator is None
 
 
 def test_iv_breakdown_is_refused_without_an_offset(sipm_a, board_ntc):
