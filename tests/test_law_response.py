@@ -137,3 +137,10 @@ def test_iv_breakdown_is_refused_without_an_offset(sipm_a, board_ntc):
     # An explicit offset wins over the profile's.
     assert float(breakdown_v(build_law(known, board_ntc, 3.0, breakdown_offset_v=0.05).sipm, 25.0)) == \
         pytest.approx(24.55, abs=1e-12)
+
+
+def test_constant_response_law_shorthand(sipm_a, board_ntc):
+    from compensator.law import constant_response_law
+    law = constant_response_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    assert law.kind == "constant_response" and law.overvoltage_v == 3.0 and law.scintillator == sipm_a.scintillator
+    assert law.board_name == "hut-board-ntc" and law.sipm_name == "hut-sipm-a"

@@ -176,3 +176,55 @@ def test_ntc_tolerance_terms_by_hand():
     beta_only = S.NtcSensor(10_000.0, beta_k=3435.0, r25_tolerance_pct=0.0, beta_tolerance_pct=2.0)
     assert float(beta_only.tolerance_k(0.0)) == pytest.approx(2 * from_beta, rel=1e-6)
     assert float(beta_only.tolerance_k(25.0)) == pytest.approx(0.0, abs=1e-9)  # no Beta error at 25 C
+
+
+def test_rtd_tolerance_classes_aa_and_c_and_the_sensor_record():
+    # Classes AA and C of IEC 60751:2008, from memory: +-(0.1 + 0.0017|t|) and +-(0.6 + 0.01|t|).
+    assert S.rtd_tolerance_k(-100.0, "AA") == pytest.approx(0.27)
+    assert S.rtd_tolerance_k(200.0, "C") == pytest.approx(2.6)
+    # The sensor record uses its own class: class B at -50 C is 0.3 + 0.005 x 50 = 0.55 K (IEC 60751).
+    assert S.RtdSensor(r0_ohm=1000.0, tolerance_class="B").tolerance_k(-50.0) == pytest.approx(0.55)
+    with pytest.raises(ModelError) as info:
+        S.rtd_tolerance_k(0.0, "Z")
+    assert info.value.key == "tolerance_class" and info.value.reason == "must be one of AA, A, B, C"
+
+
+def test_steinhart_hart_fit_refuses_what_it_cannot_fit():
+    for temps, resistances in (([0.0, 25.0], [30_000.0, 10_000.0]), ([0.0, 25.0, 50.0], [30e3, 10e3])):
+        with pytest.raises(ModelError) as info:
+            S.fit_steinhart_hart(temps, resistances)
+        assert info.value.key == "temp_c"
+        assert info.value.reason == "needs at least three (temp_c, resistance_ohm) pairs of equal length"
+    for temps, resistances in (([0.0, 25.0, 50.0], [30e3, 0.0, 3e3]), ([-273.15, 25.0, 50.0], [30e3, 10e3, 3e3])):
+        with pytest.raises(ModelError) as info:
+            S.fit_steinhart_hart(temps, resistances)
+        assert info.value.key == "resistance_ohm"
+        assert info.value.reason == "resistances and absolute temperatures must be positive"
+
+
+def test_steinhart_hart_three_point_fit_at_any_scale():
+    # Three points fix a, b, c exactly whatever the units: resistances below 1 ohm, temperatures below 1 K.
+    for temps, resistances in (([-20.0, 25.0, 60.0], [0.96, 0.1, 0.0249]), ([-272.9, -272.5, -272.0], [9e3, 4e3, 2e3])):
+        sh = S.fit_steinhart_hart(temps, resistances)
+        np.testing.assert_allclose(S.steinhart_hart_temp_c(resistances, sh), temps, rtol=0, atol=1e-9)
+
+
+def test_front_end_codes_clip_to_the_converter_and_are_integers():
+    fe = S.FrontEnd("low", 10_000.0, 3.3, True, 12, 3.3)
+    codes = fe.adc_code([0.0, 10_000.0, 1e12])
+    # A shorted sensor reads code 0, an open one the full-scale code 4095 (clipped), 10 kohm code 2048.
+    assert codes.tolist() == [0, 2048, 4095] and codes.dtype == np.int64
+
+
+def test_channel_rails_and_code_range_by_hand(board_ntc):
+    from math import exp, floor
+    ch = board_ntc.temperature
+    # Only codes 0 and 4095 are rails: code 1 still reads a (very hot) temperature.
+    assert np.isfinite(ch.temp_c(1)) and np.isfinite(ch.temp_c(4094))
+    # Beta model (R25 10 kohm, B 3435 K) low in a 10 kohm divider, ratiometric 12 bits:
+    # code = floor(4096 R / (R + 10 kohm)), computed here independently.
+    def code(t_c):
+        r = 10_000.0 * exp(3435.0 * (1 / (t_c + 273.15) - 1 / 298.15))
+        return floor(4096 * r / (r + 10_000.0))
+    assert ch.code_range(-25.0, 45.0) == (code(45.0), code(-25.0))
+    assert ch.code_range(45.0, -25.0) == (code(45.0), code(-25.0))

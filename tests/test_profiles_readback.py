@@ -68,3 +68,16 @@ def test_board_without_readback_loads(tmp_path):
     path.write_text(text)
     assert load_board(path).bias_readback is None
     assert load_board(path).current_sense is not None
+
+
+def test_readback_code_with_every_error_and_the_current_channel_by_hand():
+    rb = BiasReadback(adc_bits=10, reference_v=2.048, divider_ratio_v_per_v=0.05)  # 40 mV per code
+    # 20 V is 500 codes; +2 % divider reads 510, +2 % reference 500/1.02 = 490.2 -> 490, +0.1 V offset 502.5 -> 503
+    # (rounded half up), all three 510.1 x ... computed by hand.
+    assert rb.adc_code(20.0, 0.02).tolist() == 510
+    assert rb.adc_code(20.0, 0.0, 0.02).tolist() == 490
+    assert rb.adc_code(20.0, 0.0, 0.0, 0.1).tolist() == 503
+    assert rb.adc_code(20.0, 0.02, 0.02, 0.1).tolist() == 503
+    from compensator.physics.current_sense import CurrentSense
+    sense = CurrentSense(adc_bits=12, reference_v=4.096, sense_gain_v_per_a=1e4)  # 0.1 uA per code
+    assert sense.current_a([0, 250]).tolist() == pytest.approx([0.0, 25e-6], rel=1e-12)
