@@ -10,6 +10,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+__all__ = ["CompensatorError", "Problem", "InputError", "ProfileError", "ModelError", "ModelTypeError", "LinkError"]
+
 
 class CompensatorError(Exception):
     """Base class of every error compensator raises on purpose."""

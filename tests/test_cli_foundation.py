@@ -71,7 +71,7 @@ def test_model_fixed_overvoltage_json(cli, profiles_dir):
     assert [p["temp_c"] for p in points] == [-25.0, 25.0, 45.0]
     assert points[1]["breakdown_v"] == pytest.approx(24.5)
     assert points[1]["gain"] == pytest.approx(160e-15 * 3 / 1.602176634e-19)
-    assert points[0]["gain_change_pct_per_k"] == pytest.approx(-100 * 0.0215 / 3)
+    assert points[0]["fixed_bias_gain_change_pct_per_k"] == pytest.approx(-100 * 0.0215 / 3)
     assert points[2]["dark_rate_hz"] > points[0]["dark_rate_hz"]
 
 
@@ -114,14 +114,22 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
     assert abs(char["tempco_mv_per_k"] / char["true_tempco_mv_per_k"] - 1) < 0.02
     assert [i["sipm"] for i in data["instruments"]] == ["hut-sipm-a", "hut-sipm-b", "hut-sipm-c"]
     for inst in data["instruments"]:
+        drift = inst["drift"]
         # Uncompensated, the gain swings by tens of percent over -25..45 C; the law removes it, and the
         # firmware's integer path stays within the table's bound plus half an ADC code.
-        assert max(inst["fixed_gain_error_pct"]) - min(inst["fixed_gain_error_pct"]) > 30
-        assert max(abs(x) for x in inst["law_gain_error_pct"]) < 0.01
-        assert max(abs(x) for x in inst["firmware_gain_error_pct"]) < 0.1
+        assert max(drift["fixed_gain_error_pct"]) - min(drift["fixed_gain_error_pct"]) > 30
+        assert max(abs(x) for x in drift["law_gain_error_pct"]) < 0.01
+        assert max(abs(x) for x in drift["firmware_gain_error_pct"]) < 0.1
+        # The headline figures cover every ADC code of the range, so they bound the printed rows.
+        assert drift["firmware_gain_error_max_abs_pct"] >= max(abs(x) for x in drift["firmware_gain_error_pct"])
+        assert drift["firmware_gain_error_max_abs_pct"] < 0.1 and drift["codes_evaluated"] > 2000
         assert inst["table"]["max_gain_error_pct"] <= inst["table"]["bound_pct"]
         assert inst["budget"]["calibrated_rss_pct"] < inst["budget"]["rss_pct"]
         assert len(inst["table"]["files"]) == 3
+    # hut-sipm-a: linear breakdown (21.5 mV/K), constant cell capacitance, 3 V: at fixed bias the gain moves by
+    # exactly tempco * dT / Vov, so over 70 K the swing is 21.5e-3 * 70 / 3 = 50.17 % (first-order physics,
+    # G = C (V - Vbd) / q); the codes at the ends of the range reach a little past -25 and 45 C.
+    assert data["instruments"][0]["drift"]["fixed_gain_error_ptp_pct"] == pytest.approx(50.17, abs=0.1)
     # Under light, the drop corrected from the measured current holds the gain; from the dark model it does not.
     light = data["instruments"][0]["light"]
     assert [r["photon_rate_hz"] for r in light] == [0, 1e6, 1e7, 1e8]
@@ -133,9 +141,16 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
         # Robust tuning holds Ms at 1.4 (Astrom and Hagglund's robustness measure, evaluated with python-control).
         assert lp["stable"] and lp["ms"] <= 1.4 * 1.001 and lp["gain_margin"] > 2
     assert loops["cooler"]["kp"] < 0  # more current cools
-    # A second run never overwrites what the first wrote.
-    again = cli("demo", "--profiles", profiles_dir, "--json", "--out", tmp_path / "fw")
-    assert again.status == 2 and "already exists" in again.stderr
+    # A second run never overwrites what the first wrote, and says so before writing anything.
+    before = {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")}
+    again = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw")
+    assert again.status == 2 and again.stderr.count("already exists") == 9
+    assert {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")} == before
+    forced = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw", "--force", "--step-c", "35")
+    assert forced.status == 0 and forced.stdout.count("wrote ") == 9
+    # The headline figures do not depend on the print step.
+    line = next(x for x in forced.stdout.splitlines() if x.startswith("gain error against 25 C"))
+    assert "at fixed bias 27.500 V 50.2 % peak-to-peak" in line and "2393 ADC codes" in line
 
 
 def test_demo_missing_profiles(cli, tmp_path):
@@ -171,3 +186,35 @@ def test_placeholders_list_every_command_with_its_full_help():
 
     full, lazy = helps(build_parser()), helps(build_parser(only=""))
     assert full == lazy and {"demo", "profile", "calibrate", "budget", "table", "tune", "identify"} <= set(full)
+
+
+def _cvd_ohm(t_c, r0_ohm):
+    # Callendar-Van Dusen with the IEC 60751 (ITS-90) coefficients, written out here independently of the library.
+    a, b, c = 3.9083e-3, -5.775e-7, (-4.183e-12 if t_c < 0 else 0.0)
+    return r0_ohm * (1 + a * t_c + b * t_c**2 + c * (t_c - 100) * t_c**3)
+
+
+def test_sensor_follows_iec_60751(cli, profiles_dir):
+    # IEC 60751 table: a Pt100 reads 138.5055 ohm at 100 C and 109.7347 ohm at 25 C; the board's Pt1000 reads ten
+    # times that. The command's code for a temperature must sit within one code of the published resistance, and
+    # the temperature it reads back from a code must be the IEC 60751 inverse of that code's resistance.
+    board = profiles_dir / "hut-board-pt1000.yaml"
+    result = cli("sensor", "--board", board, "--temp-c", "100", "25", "-25", "--json")
+    assert result.status == 0, result.stderr
+    points = json.loads(result.stdout)["points"]
+    for point, published_ohm in zip(points, (1385.055, 1097.347, _cvd_ohm(-25.0, 1000.0))):
+        ohm_per_code = 3.9 * point["k_per_code"]  # dR/dT of a Pt1000 is 3.8 to 3.9 ohm/K over -25..100 C
+        assert abs(point["resistance_ohm"] - published_ohm) < ohm_per_code
+        assert _cvd_ohm(point["read_temp_c"], 1000.0) == pytest.approx(point["resistance_ohm"], rel=1e-9)
+    assert points[0]["status"] == "outside operating range" and points[1]["status"] == "ok"
+    assert points[1]["sensor_tolerance_k"] == pytest.approx(0.15 + 0.002 * 25)  # IEC 60751 class A
+    text = cli("sensor", "--board", board, "--temp-c", "25").stdout
+    assert "platinum RTD, R0 1000 ohm" in text and "Sensor" not in text and "1097.3" in text
+
+
+def test_sensor_rejects_codes_beyond_the_adc_in_one_line(cli, profiles_dir):
+    for code in ("99999999999999999999999", "-1", "1.5"):
+        result = cli("sensor", "--board", profiles_dir / "hut-board-ntc.yaml", "--adc-code", code)
+        assert result.status == 2 and result.stderr.count("\n") == 1 and "--adc-code" in result.stderr
+    result = cli("sensor", "--board", profiles_dir / "hut-board-ntc.yaml", "--adc-code", "4096")
+    assert result.status == 2 and "outside the 12-bit ADC range 0..4095" in result.stderr

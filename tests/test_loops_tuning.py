@@ -161,3 +161,47 @@ def test_static_plant_behind_the_sample_delay(board_ntc):
         assert rep.stable and rep.margins.ms <= 1.4 * 1.001
     with pytest.raises(ModelError, match="static gain"):
         tuning.tune(plant, "simc", T)
+
+
+def test_amigo_pid_integral_time_is_pinned():
+    # AMIGO PID (Astrom and Hagglund, Advanced PID Control, 2006; from memory): Ti = L (0.4 L + 0.8 T) / (L + 0.1 T).
+    L, Tt = THETA, TAU
+    g = tuning.amigo(FopdtModel(K, TAU, THETA), pid=True)
+    ti = L * (0.4 * L + 0.8 * Tt) / (L + 0.1 * Tt)
+    assert g.ki_per_s == pytest.approx(g.kp / ti, rel=1e-12)
+    assert ti == pytest.approx(16.25, rel=1e-12)  # 5 (2 + 24) / 8 by hand
+
+
+def test_imc_pid_gain_derivative_time_and_default_lambda_are_pinned():
+    # Rivera, Morari and Skogestad, Ind. Eng. Chem. Process Des. Dev. 25, 252, 1986 (from memory), FOPDT PID:
+    # Kc = (2 tau + theta) / (K (2 lambda + theta)), Ti = tau + theta / 2, Td = tau theta / (2 tau + theta).
+    g, lam = tuning.imc(FopdtModel(K, TAU, THETA), pid=True, lambda_s=4.0)
+    kc = (2 * TAU + THETA) / (K * (2 * 4.0 + THETA))
+    assert (g.kp, g.ki_per_s, g.kd_s) == pytest.approx((kc, kc / (TAU + THETA / 2),
+                                                        kc * TAU * THETA / (2 * TAU + THETA)), rel=1e-12)
+    assert (kc, TAU * THETA / (2 * TAU + THETA)) == pytest.approx((65 / 26, 150 / 65), rel=1e-12)  # by hand
+    # Defaults: lambda = 1.7 theta (PI) and 0.8 theta (PID), at least 0.1 tau (the paper's lambda/theta > 1.7 and
+    # > 0.8 recommendations, from memory).
+    assert tuning.imc(FopdtModel(K, TAU, THETA))[1] == pytest.approx(8.5)
+    assert tuning.imc(FopdtModel(K, TAU, THETA), pid=True)[1] == pytest.approx(4.0)
+    assert tuning.imc(FopdtModel(K, 100.0, 1.0))[1] == pytest.approx(10.0)
+
+
+def test_ziegler_nichols_ultimate_pi_integral_time_is_pinned():
+    # Ziegler and Nichols, Trans. ASME 64, 759, 1942: PI kp = 0.45 Ku, Ti = Pu / 1.2.
+    g = tuning.ziegler_nichols_ultimate(-3.0, 12.0)
+    assert (g.kp, g.ki_per_s, g.kd_s) == pytest.approx((-1.35, -1.35 / 10.0, 0.0), rel=1e-12)
+
+
+def test_fopdt_from_the_ultimate_point_has_that_ultimate_point():
+    m = tuning.fopdt_from_ultimate(-4.2, -2.6, 7.0)
+    ku, pu = tuning.ultimate_point(plants.model_plant(m), None)  # independent phase-crossing search
+    assert (ku, pu) == pytest.approx((-2.6, 7.0), rel=1e-6)
+    with pytest.raises(ModelError, match="must exceed 1"):
+        tuning.fopdt_from_ultimate(4.2, -2.6, 7.0)
+
+
+def test_ms_bound_out_of_range_names_the_reason():
+    with pytest.raises(ModelError, match="at most 10") as info:
+        tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "robust", T, ms_max=1e9)
+    assert info.value.key == "ms_max"

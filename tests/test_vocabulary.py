@@ -43,7 +43,7 @@ def test_the_unit_of_a_name_matches_its_suffix():
     assert not wrong
     assert suffix_unit("tempco_mv_per_k") == "mV/K" and suffix_unit("dark_rate_hz") == "Hz"
     assert suffix_unit("k_per_code") is None and suffix_unit("gain") is None
-    assert suffix_unit("breakdown_err_v") == "V" and suffix_unit("gain_change_pct_per_k") == "%/K"
+    assert suffix_unit("breakdown_err_v") == "V" and suffix_unit("fixed_bias_gain_change_pct_per_k") == "%/K"
 
 
 def test_percent_only_under_pct_names_and_fractions_under_fraction_names():

@@ -8,7 +8,8 @@ Invented demo data (for examples and tests, never a reference):
   sensor noise 5 mK. Truth: the linearised plant's gain (dTc/dI).
 * ``hut-cooler-relay.csv`` -- relay-feedback experiment on the same cooler:
   the relay adds or removes 0.2 A around the setpoint current, sampled at
-  the profile's rate. Truth: the sampled linear plant's ultimate gain and period.
+  the profile's rate. Truth: the ultimate gain and period of the linear plant
+  with one more sample of dead time (hold and relay timing, see make_relay).
 * ``fopdt-step.csv`` -- an exact FOPDT step response (K = -2.5 K/A, tau = 40 s,
   theta = 3 s) with 2 mK noise: the two-point method and the fit recover it.
 
@@ -155,10 +156,15 @@ def make_step(path=None, step_a=0.3, step_time_s=20.0, duration_s=900.0, noise_k
 def make_relay(path=None, relay_a=0.2, duration_s=150.0, noise_k=0.0, overwrite=False):
     """Relay experiment on the demo cooler. Returns ``(time_s, current_a, temp_c, truth)``.
 
-    ``truth`` holds the ultimate gain and period of the linearised plant
-    sampled at the relay's rate (zero-order hold, exact dead time, no
-    computation delay: the relay acts on the sample it reads).
+    ``truth`` holds the ultimate gain and period of the linearised plant as
+    the sampled relay sees it: the continuous plant with one more sample of
+    dead time, half for the zero-order hold and half because the relay can
+    only switch at the first sample after the output crosses the setpoint
+    (on average half a period late; common practice). The relay acts on the
+    sample it reads (no computation delay).
     """
+    import dataclasses
+
     from compensator.loops.plants import cooler_operating_point, linearise_cooler
     from compensator.loops.verify import ultimate_point
 
@@ -172,12 +178,13 @@ def make_relay(path=None, relay_a=0.2, duration_s=150.0, noise_k=0.0, overwrite=
 
     t, u, y = simulate_cooler(params, controller, duration_s, noise_k=noise_k, seed=SEED + 1)
     plant = linearise_cooler(params, op)
-    ku, pu = ultimate_point(plant, 1.0 / params.control_rate_hz, computation_delay_samples=0)
+    sampled = dataclasses.replace(plant, dead_time_s=plant.dead_time_s + 1.0 / params.control_rate_hz)
+    ku, pu = ultimate_point(sampled, None)
     truth = {"ultimate_gain": abs(ku), "ultimate_period_s": pu, "relay_a": relay_a, "current_a": i0}
     if path is not None:
         _write_csv(path, t, u, y, ["invented demo data: relay experiment on the hut-cooler demo profile (simulated)",
                                    f"relay {i0:.4f} +- {relay_a} A around setpoint {sp} C; seed {SEED + 1}",
-                                   f"truth (linearised, sampled): Ku {abs(ku):.5f} A/K, Pu {pu:.4f} s"], overwrite)
+                                   f"truth (linearised, one sample more dead time): Ku {abs(ku):.5f} A/K, Pu {pu:.4f} s"], overwrite)
     return t, u, y, truth
 
 

@@ -10,7 +10,6 @@ column and the reason, so a batch can report it and go on.
 
 from __future__ import annotations
 
-import json
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -156,10 +155,9 @@ def read_breakdown_scan(path) -> BreakdownScan:
     """
     text = _read_text(path)
     if text.lstrip().startswith("{"):
-        try:
-            doc = json.loads(text)
-        except json.JSONDecodeError as exc:
-            _fail(path, exc.lineno, "", f"invalid JSON: {exc.msg}")
+        from compensator.fileio import loads_json
+
+        doc = loads_json(text, file=str(path))
         entries = None
         for key in ("curves", "scans"):
             if isinstance(doc, dict) and isinstance(doc.get(key), list):

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import argparse
 import math
 import sys
 from collections.abc import Sequence
@@ -10,6 +11,15 @@ import numpy as np
 
 from compensator.errors import InputError, Problem
 from compensator.vocabulary import dumps_json, to_json_value
+
+__all__ = [
+    "EXIT_OK", "EXIT_FAILURE", "EXIT_USAGE", "EXIT_NOTHING_ANALYSED", "EXIT_INTERRUPTED", "COMMAND_LINE",
+    "JSON_FIELDS_DOC", "MAX_MAGNITUDE", "MAX_TEMPERATURE_C", "usage_error", "caution", "flush_cautions",
+    "numerical_warning_lines", "print_json", "jsonable", "format_number", "format_table", "add_json_flag",
+    "bounded_float", "bounded_int", "finite_float", "positive_float", "non_negative_float", "temperature_c",
+    "percent", "positive_int", "non_negative_int", "seed", "code", "is_checked_number",
+    "LAW_FLAGS", "add_law_arguments", "drop_correction_from_args", "law_from_args", "locate_law_error",
+]
 
 #: Kept for callers of the old name: the one serialiser is :func:`compensator.vocabulary.to_json_value`.
 jsonable = to_json_value
@@ -42,6 +52,64 @@ def usage_error(flag: str, reason: str) -> InputError:
         What is wrong, in plain words, with the value given.
     """
     return InputError(Problem(COMMAND_LINE, 0, flag, reason))
+
+
+_CAUTIONS: list[str] = []
+
+
+def caution(text: str) -> None:
+    """Queue a safety caution; :func:`compensator.cli.main` prints it on stderr when the command ends.
+
+    A caution is never printed before, or together with, a usage error: the
+    user first sees what is wrong with the command line.
+
+    Parameters
+    ----------
+    text : str
+        The caution, one paragraph, starting with ``caution:``.
+    """
+    if text not in _CAUTIONS:
+        _CAUTIONS.append(text)
+
+
+def flush_cautions(*, show: bool = True, stream=None) -> None:
+    """Print the queued cautions (when ``show``) and empty the queue.
+
+    Parameters
+    ----------
+    show : bool, optional
+        Print them (false after a usage error).
+    stream : file-like, optional
+        Where to print (default ``sys.stderr``).
+    """
+    if show:
+        for text in _CAUTIONS:
+            print(text, file=stream or sys.stderr)
+    _CAUTIONS.clear()
+
+
+#: Warning categories meant for developers: never shown to a user of the command line.
+_DEVELOPER_WARNINGS = (DeprecationWarning, PendingDeprecationWarning, FutureWarning, ImportWarning, ResourceWarning)
+
+
+def numerical_warning_lines(caught) -> list[str]:
+    """One ``compensator: warning:`` line per distinct warning, without the library's file and line.
+
+    Parameters
+    ----------
+    caught : list of warnings.WarningMessage
+        As recorded by ``warnings.catch_warnings(record=True)``.
+    """
+    lines = []
+    for item in caught:
+        if issubclass(item.category, _DEVELOPER_WARNINGS):
+            continue
+        text = " ".join(str(item.message).split())
+        kind = "numerical problem" if issubclass(item.category, RuntimeWarning) else "note"
+        line = f"compensator: warning: {kind}: {text}"
+        if line not in lines:
+            lines.append(line)
+    return lines
 
 
 def print_json(value, stream=None) -> None:
@@ -117,47 +185,136 @@ def add_json_flag(parser) -> None:
                              f"meaning: {JSON_FIELDS_DOC}")
 
 
-def finite_float(text: str) -> float:
-    """argparse type: a finite number (no nan or inf)."""
-    import argparse
+#: Largest magnitude a command-line number may have: far beyond any physical value
+#: the tool handles, and small enough that sums and squares stay finite.
+MAX_MAGNITUDE = 1e12
 
+#: Highest temperature a command accepts, degree Celsius: beyond the rating of
+#: any SiPM, sensor or cooler the tool models.
+MAX_TEMPERATURE_C = 1000.0
+
+
+def _number(text: str) -> float:
     try:
         value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    except (ValueError, OverflowError):
+        raise argparse.ArgumentTypeError(f"expected a number, got {_shown(text)}") from None
     if not math.isfinite(value):
-        raise argparse.ArgumentTypeError(f"must be finite, got {text!r}")
+        raise argparse.ArgumentTypeError(f"must be a finite number, got {_shown(text)}")
+    if abs(value) > MAX_MAGNITUDE:
+        raise argparse.ArgumentTypeError(f"must lie within +-{MAX_MAGNITUDE:g}, got {_shown(text)}")
     return value
 
 
-def temperature_c(text: str) -> float:
-    """argparse type: a finite temperature above absolute zero, degree Celsius."""
-    import argparse
-
-    value = finite_float(text)
-    if value <= -273.15:
-        raise argparse.ArgumentTypeError(f"must be above absolute zero (-273.15 C), got {text!r}")
-    return value
+def _shown(text: str) -> str:
+    """The user's text, shortened for a one-line message."""
+    text = str(text)
+    return repr(text if len(text) <= 40 else text[:20] + "..." + text[-8:])
 
 
-def positive_float(text: str) -> float:
-    """argparse type: a finite number greater than zero."""
-    import argparse
+def bounded_float(minimum: float | None = None, maximum: float | None = None, *, above: bool = False,
+                  unit: str = ""):
+    """An argparse type: a finite number within bounds.
 
-    value = finite_float(text)
-    if value <= 0:
-        raise argparse.ArgumentTypeError(f"must be greater than 0, got {text!r}")
-    return value
+    Every number is also finite and within +-:data:`MAX_MAGNITUDE`.
+
+    Parameters
+    ----------
+    minimum : float, optional
+        Smallest value allowed (``None``: no lower bound).
+    maximum : float, optional
+        Largest value allowed (``None``: no upper bound).
+    above : bool, optional
+        When true, the value must be strictly greater than ``minimum``.
+    unit : str, optional
+        Unit shown in the message, e.g. ``"V"``.
+
+    Returns
+    -------
+    callable
+        ``type(text) -> float`` raising ``argparse.ArgumentTypeError``.
+    """
+    tail = f" {unit}" if unit else ""
+
+    def parse(text: str) -> float:
+        value = _number(text)
+        if minimum is not None and (value <= minimum if above else value < minimum):
+            word = "greater than" if above else "at least"
+            raise argparse.ArgumentTypeError(f"must be {word} {minimum:g}{tail}, got {_shown(text)}")
+        if maximum is not None and value > maximum:
+            raise argparse.ArgumentTypeError(f"must be at most {maximum:g}{tail}, got {_shown(text)}")
+        return value
+
+    parse.__name__ = "number"
+    parse.checked_number = True
+    return parse
 
 
-def non_negative_float(text: str) -> float:
-    """argparse type: a finite number at least zero."""
-    import argparse
+def bounded_int(minimum: int | None = 0, maximum: int | None = None):
+    """An argparse type: a whole number within bounds.
 
-    value = finite_float(text)
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"must be at least 0, got {text!r}")
-    return value
+    Parameters
+    ----------
+    minimum : int, optional
+        Smallest value allowed (default 0; ``None``: no lower bound).
+    maximum : int, optional
+        Largest value allowed (``None``: 2**63 - 1).
+
+    Returns
+    -------
+    callable
+        ``type(text) -> int`` raising ``argparse.ArgumentTypeError``.
+    """
+    top = 2**63 - 1 if maximum is None else maximum
+
+    def parse(text: str) -> int:
+        digits = str(text).strip()
+        if len(digits) > 20:
+            raise argparse.ArgumentTypeError(f"must be at most {top}, got {_shown(text)}")
+        try:
+            value = int(digits)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a whole number, got {_shown(text)}") from None
+        if minimum is not None and value < minimum:
+            raise argparse.ArgumentTypeError(f"must be at least {minimum}, got {_shown(text)}")
+        if value > top:
+            raise argparse.ArgumentTypeError(f"must be at most {top}, got {_shown(text)}")
+        return value
+
+    parse.__name__ = "whole number"
+    parse.checked_number = True
+    return parse
+
+
+#: argparse type: any finite number (within +-MAX_MAGNITUDE).
+finite_float = bounded_float()
+#: argparse type: a finite number greater than zero.
+positive_float = bounded_float(0.0, above=True)
+#: argparse type: a finite number at least zero.
+non_negative_float = bounded_float(0.0)
+#: argparse type: a temperature above absolute zero and at most MAX_TEMPERATURE_C, degree Celsius.
+temperature_c = bounded_float(-273.15, MAX_TEMPERATURE_C, above=True, unit="C")
+#: argparse type: a percentage from 0 to 100.
+percent = bounded_float(0.0, 100.0, unit="%")
+#: argparse type: a count of at least 1 (samples, points, files).
+positive_int = bounded_int(1)
+#: argparse type: a count of at least 0.
+non_negative_int = bounded_int(0)
+#: argparse type: a seed for the random generator, 0 to 2**32 - 1.
+seed = bounded_int(0, 2**32 - 1)
+#: argparse type: a raw ADC or DAC code, 0 to 2**32 - 1 (the command checks its own full scale).
+code = bounded_int(0, 2**32 - 1)
+
+
+def is_checked_number(type_) -> bool:
+    """Whether an argparse ``type`` is one of the checked number types of this module.
+
+    Parameters
+    ----------
+    type_ : callable or None
+        The ``type`` of an argparse action.
+    """
+    return bool(getattr(type_, "checked_number", False))
 
 
 # Arguments shared by the commands that build a compensation law (``budget``, ``table``).

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from compensator.cli._common import add_json_flag, format_table, print_json
+from compensator.cli._common import add_json_flag, caution, format_table, print_json
 
 ORDER = 30
 COMMAND = "calibrate"
@@ -320,7 +320,7 @@ def run_tempco(args) -> int:
             args.write_profile, base, fit, data_file=args.file, force=args.force, name=args.name,
             capacitance_f=cap_at_ref,
             capacitance_tempco_ppm_per_k=cg.capacitance_tempco_ppm_per_k if cg is not None else None)
-        print(CAUTION, file=sys.stderr)
+        caution(CAUTION)  # printed when the command ends
     if args.plot:
         from compensator.calibration.plots import plot_dir, plot_tempco
         plot_tempco(scan.temp_c, scan.breakdown_v, scan.breakdown_err_v, fit,

@@ -20,10 +20,20 @@ from pathlib import Path
 
 import numpy as np
 
-from compensator.cli._common import add_json_flag, format_table, positive_float, print_json
+from compensator.cli._common import (
+    EXIT_FAILURE,
+    EXIT_OK,
+    add_json_flag,
+    bounded_float,
+    caution,
+    format_number,
+    format_table,
+    print_json,
+)
 from compensator.errors import InputError, Problem
-from compensator.physics.sipm import evaluate, gain
 from compensator.profiles import load_board, load_sipm, load_thermal
+
+__all__ = ["register", "run", "DEMO_INSTRUMENTS", "DEMO_COOLER", "DEMO_SEED", "SAFETY"]
 
 ORDER = 1
 
@@ -34,8 +44,11 @@ DEMO_INSTRUMENTS = (
     ("hut-sipm-c.yaml", "hut-board-pt1000.yaml", 5.0),
 )
 DEMO_COOLER = "hut-cooler.yaml"
-DEMO_TABLE_BOUND_PCT = 0.05
 DEMO_SEED = 2026
+#: The enclosure's range in the scenario, degree Celsius (the rows printed span it).
+DEMO_RANGE_C = (-25.0, 45.0)
+#: Smallest print step, kelvin: at most 701 rows per table over the 70 K range.
+MIN_STEP_K = 0.1
 
 SAFETY = (
     "caution: SiPM bias supplies deliver tens of volts (above 60 V dc is hazardous live under IEC 61010-1 in dry "
@@ -48,148 +61,15 @@ def register(subparsers) -> None:
     parser = subparsers.add_parser("demo", help="run the main job end to end on the bundled demo profiles")
     parser.add_argument("--profiles", default="hardware_profiles", metavar="DIR",
                         help="directory holding the demo profiles (default: hardware_profiles)")
-    parser.add_argument("--step-c", type=positive_float, default=10.0, metavar="K",
-                        help="temperature step of the printed tables, kelvin (default 10)")
+    parser.add_argument("--step-c", type=bounded_float(MIN_STEP_K, 100.0, unit="K"), default=10.0, metavar="K",
+                        help=f"temperature step of the printed rows, kelvin ({MIN_STEP_K:g} to 100, default 10); "
+                             "the headline figures cover every ADC code of the range whatever the step")
     parser.add_argument("--out", metavar="DIR",
-                        help="also write each instrument's lookup table as C99 (DIR/<sipm>/) ; never overwrites")
+                        help="also write each instrument's lookup table as C99 and its sweep (DIR/<sipm>/); every "
+                             "target is checked before anything is written")
+    parser.add_argument("--force", action="store_true", help="replace existing files under --out")
     add_json_flag(parser)
     parser.set_defaults(handler=run)
-
-
-def instrument_model(law, sipm_profile, board_profile, table, temps_c) -> dict:
-    """Gain drift at fixed bias against the law and against the firmware's integer path, over temperature.
-
-    The fixed bias is the one giving the law's overvoltage at 25 C. The law's
-    supply output has the series-resistor drop added back. The firmware path
-    is the whole chain: temperature -> ADC code -> lookup table -> DAC code ->
-    supply output -> bias at the sensor after the filter resistor. Gains are
-    evaluated at the bias that really reaches the sensor.
-    """
-    from compensator.physics.supply import sipm_bias_v
-
-    device, supply = sipm_profile.device, board_profile.supply
-    temps_c = np.asarray(temps_c, dtype=float)
-    fixed_bias_v = float(device.breakdown.breakdown_v(25.0)) + law.overvoltage_v
-    nominal_gain = float(gain(device, fixed_bias_v, 25.0))
-    fixed = evaluate(device, temps_c, bias_v=fixed_bias_v)
-    supply_v = law.output_v(temps_c)
-    at_sensor_v = sipm_bias_v(supply, device, supply_v, temps_c)
-    adc_code = board_profile.temperature.adc_code(temps_c)
-    dac_code, _ = table.lookup(adc_code)
-    firmware_v = sipm_bias_v(supply, device, supply.output_v(dac_code), temps_c)
-    return {
-        "temp_c": temps_c,
-        "breakdown_v": device.breakdown.breakdown_v(temps_c),
-        "adc_code": adc_code,
-        "fixed_bias_v": fixed_bias_v,
-        "fixed_gain_error_pct": 100.0 * (fixed.gain / nominal_gain - 1.0),
-        "law_supply_v": supply_v,
-        "series_drop_mv": 1e3 * (supply_v - at_sensor_v),
-        "law_gain_error_pct": 100.0 * (gain(device, at_sensor_v, temps_c) / nominal_gain - 1.0),
-        "firmware_dac_code": dac_code,
-        "firmware_gain_error_pct": 100.0 * (gain(device, firmware_v, temps_c) / nominal_gain - 1.0),
-        "dark_rate_hz": evaluate(device, temps_c, bias_v=at_sensor_v).dark_rate_hz,
-    }
-
-
-def characterise(sipm_profile, seed: int = DEMO_SEED) -> dict:
-    """Recover breakdown and tempco from seeded synthetic I-V curves of the sensor type.
-
-    The profile's breakdown model is the truth; curves at -20..40 C carry 1 %
-    noise and a Geiger-probability bend, as a bench would give.
-    """
-    from compensator.calibration.iv import find_breakdown
-    from compensator.calibration.synthetic import simulate_iv
-    from compensator.calibration.tempco import fit_tempco
-
-    truth = sipm_profile.device.breakdown
-    rng = np.random.default_rng(seed)
-    temps_c = np.arange(-20.0, 40.1, 10.0)
-    true_v = truth.breakdown_v(temps_c)
-    bias_v = np.arange(true_v.min() - 1.5, true_v.max() + 3.0, 0.01)
-    current_a = simulate_iv(rng, bias_v, true_v, geiger_scale_v=0.8, relative_noise=0.01)
-    found = find_breakdown(bias_v, current_a)
-    fit = fit_tempco(temps_c, found.breakdown_v, found.breakdown_err_v, ref_temp_c=truth.ref_temp_c)
-    return {
-        "sipm": sipm_profile.name, "curve_count": int(temps_c.size), "temp_c": temps_c,
-        "breakdown_v": found.breakdown_v, "breakdown_err_v": found.breakdown_err_v, "true_breakdown_v": true_v,
-        "tempco_mv_per_k": fit.tempco_mv_per_k, "tempco_err_mv_per_k": fit.tempco_err_mv_per_k,
-        "true_tempco_mv_per_k": truth.tempco_mv_per_k,
-        "breakdown_v_at_ref": fit.breakdown_v_at_ref, "breakdown_err_v_at_ref": fit.breakdown_err_v,
-        "true_breakdown_v_at_ref": truth.breakdown_v_at_ref, "ref_temp_c": truth.ref_temp_c,
-    }
-
-
-def build_tables(law, board_profile):
-    """The optimised table at the demo bound and the smallest uniform one, as a baseline."""
-    from compensator.firmware.tables import build_table
-
-    return (build_table(law, board_profile, DEMO_TABLE_BOUND_PCT, layout="optimised"),
-            build_table(law, board_profile, DEMO_TABLE_BOUND_PCT, layout="uniform"))
-
-
-def table_summary(law, table, uniform, sipm_profile, board_profile, out_dir: Path | None) -> dict:
-    """Verify the table at every ADC code of the range; optionally write its C99 and sweep."""
-    from compensator.fileio import write_files_atomic
-    from compensator.firmware.table_c import render_sweep_csv, render_table_c
-    from compensator.firmware.tables import sweep_table
-
-    sweep = sweep_table(table, law, board_profile)
-    files = []
-    if out_dir is not None:
-        rendered = render_table_c(table, [sipm_profile, board_profile])
-        files = [str(p) for p in write_files_atomic(out_dir / sipm_profile.name,
-                                                    {**rendered, "sweep.csv": render_sweep_csv(sweep)},
-                                                    what="table output")]
-    return {
-        "bound_pct": DEMO_TABLE_BOUND_PCT,
-        "optimised_entries": table.entries, "optimised_table_bytes": table.table_bytes,
-        "uniform_entries": uniform.entries, "uniform_table_bytes": uniform.table_bytes,
-        "codes_verified": int(sweep.adc_code.size), "max_gain_error_pct": sweep.max_gain_error_pct,
-        "files": files,
-    }
-
-
-def loop_summaries(cooler_profile, board_profile) -> list[dict]:
-    """Tune (robust PI, Ms <= 1.4) and verify the cooler loop and one bias-supply loop at their firmware rates."""
-    from compensator.loops import plants, tuning, verify
-
-    point = plants.cooler_operating_point(cooler_profile.cooler)
-    loops = [("cooler", cooler_profile.name, plants.linearise_cooler(cooler_profile.cooler, point),
-              cooler_profile.cooler.control_rate_hz,
-              verify.cooler_operating_warnings(cooler_profile.cooler, point)),
-             ("bias supply", board_profile.name, plants.bias_supply_plant(board_profile.supply),
-              board_profile.control_rate_hz, [])]
-    out = []
-    for loop, source, plant, rate_hz, warnings in loops:
-        result = tuning.tune(plant, "robust", 1.0 / rate_hz)
-        report = verify.verify_loop(plant, result.gains, 1.0 / rate_hz)
-        out.append({
-            "loop": loop, "profile": source, "rate_hz": rate_hz, "kp": result.gains.kp, "ki_per_s": result.gains.ki_per_s,
-            "stable": report.stable, "gain_margin": report.margins.gain_margin,
-            "phase_margin_deg": report.margins.phase_margin_deg, "ms": report.margins.ms,
-            "settling_time_s": report.step.settling_time_s, "overshoot_pct": report.step.overshoot_pct,
-            "warnings": [*warnings, *report.warnings],
-        })
-    return out
-
-
-DEMO_LIGHT_HZ = (0.0, 1e6, 1e7, 1e8)
-
-
-def light_summary(sipm_profile, board_profile, overvoltage_v, temps_c) -> list[dict] | None:
-    """Largest gain error over temperature at several light levels, drop corrected from the modelled
-    (dark) current against the measured current; ``None`` when the board has no current sense."""
-    from compensator.law import build_law, gain_error_at_light_pct
-
-    if board_profile.current_sense is None:
-        return None
-    laws = {mode: build_law(sipm_profile, board_profile, overvoltage_v, kind="constant_gain", drop_correction=mode)
-            for mode in ("modelled", "measured")}
-    return [{"photon_rate_hz": rate,
-             **{f"{mode}_max_gain_error_pct": float(np.max(np.abs(
-                 gain_error_at_light_pct(law, board_profile, rate, temps_c)))) for mode, law in laws.items()}}
-            for rate in DEMO_LIGHT_HZ]
 
 
 def _require(root: Path, name: str) -> Path:
@@ -200,93 +80,120 @@ def _require(root: Path, name: str) -> Path:
     return path
 
 
+def _pct(value: float, spec: str = ".3f") -> str:
+    return f"{format_number(value, spec)} %"
+
+
 def run(args) -> int:
-    from compensator.law import build_law, electronics_terms, gain_error_budget
+    from compensator.fileio import write_file_set
+    from compensator.instrument import characterise_breakdown, evaluate_instrument, render_table_files, tune_loops
 
     root = Path(args.profiles)
-    out_dir = Path(args.out) if args.out else None
     say = (lambda *a: None) if args.json else print
-    print(SAFETY, file=sys.stderr)
-    lo_c, hi_c = -25.0, 45.0
+    lo_c, hi_c = DEMO_RANGE_C
     temps_c = np.arange(lo_c, hi_c + 1e-9, args.step_c)
     loaded = [(load_sipm(_require(root, s)), load_board(_require(root, b)), ov) for s, b, ov in DEMO_INSTRUMENTS]
+    cooler = load_thermal(_require(root, DEMO_COOLER))
+    caution(SAFETY)
 
     # 1. Characterise
-    char = characterise(loaded[0][0])
-    say(f"== 1. characterise {char['sipm']} from {char['curve_count']} synthetic bench I-V curves (-20..40 C, seed "
-        f"{DEMO_SEED})")
-    say(f"breakdown at {char['ref_temp_c']:g} C: {char['breakdown_v_at_ref']:.4f} +- {char['breakdown_err_v_at_ref']:.4f} V "
-        f"(truth {char['true_breakdown_v_at_ref']:g}); tempco {char['tempco_mv_per_k']:.2f} +- "
-        f"{char['tempco_err_mv_per_k']:.2f} mV/K (truth {char['true_tempco_mv_per_k']:g}); the errors are "
-        f"statistical only: the method's own shape bias is up to about 12 mV (tools/bench/bench_calibration.py)")
+    char = characterise_breakdown(loaded[0][0], seed=DEMO_SEED)
+    say(f"== 1. characterise {char.sipm} from {char.curve_count} synthetic bench I-V curves (-20..40 C, seed "
+        f"{char.seed})")
+    say(f"breakdown at {char.ref_temp_c:g} C: {char.breakdown_v_at_ref:.4f} +- {char.breakdown_err_v_at_ref:.4f} V "
+        f"(truth {char.true_breakdown_v_at_ref:g}); tempco {char.tempco_mv_per_k:.2f} +- "
+        f"{char.tempco_err_mv_per_k:.2f} mV/K (truth {char.true_tempco_mv_per_k:g}); the errors are statistical "
+        f"only (1 sigma): the method's own shape bias is up to about 12 mV (tools/bench/bench_calibration.py)")
 
-    report = {"scenario": "mountain-hut radiation monitors, enclosure -25 to +45 C", "characterisation": char,
-              "instruments": []}
+    # 2. and 3. Each instrument: drift, law, firmware path, budget, table, light
+    instruments, files = [], {}
     for sipm_profile, board_profile, ov in loaded:
-        device = sipm_profile.device
-        law = build_law(sipm_profile, board_profile, ov, kind="constant_gain")
-        table, uniform = build_tables(law, board_profile)
-        model = instrument_model(law, sipm_profile, board_profile, table, temps_c)
-        budget = gain_error_budget(law, board_profile, samples=2000)
-        tables = table_summary(law, table, uniform, sipm_profile, board_profile, out_dir)
-        report["instruments"].append({
-            "sipm": sipm_profile.name, "board": board_profile.name, "overvoltage_v": ov, **model,
-            "budget": {"rss_pct": budget.rss_pct, "worst_case_pct": budget.worst_case_pct,
-                       "calibrated_rss_pct": budget.calibrated_rss_pct,
-                       "calibrated_worst_case_pct": budget.calibrated_worst_case_pct,
-                       "dominant": budget.dominant, "calibrated_dominant": budget.calibrated_dominant,
-                       "monte_carlo_std_pct": budget.monte_carlo.std_pct if budget.monte_carlo else None,
-                       "electronics_terms": [{"key": t.key, "limit_pct": t.limit_pct,
-                                              "calibrated_limit_pct": t.calibrated_limit_pct}
-                                             for t in electronics_terms(budget)]},
-            "table": tables,
-        })
-        say(f"\n== 2. {sipm_profile.name} on {board_profile.name}: Vbd {device.breakdown.breakdown_v_at_ref:g} V at "
-            f"{device.breakdown.ref_temp_c:g} C, {device.breakdown.tempco_mv_per_k:g} mV/K, overvoltage {ov:g} V, "
-            f"constant-gain law")
-        say(format_table(
-            list(zip(model["temp_c"], model["breakdown_v"], model["fixed_gain_error_pct"], model["law_supply_v"],
-                     model["series_drop_mv"], model["law_gain_error_pct"], model["adc_code"].tolist(),
-                     model["firmware_dac_code"].tolist(), model["firmware_gain_error_pct"], model["dark_rate_hz"] / 1e3)),
-            ["temp_c", "breakdown_v", "fixed_bias_gain_%", "law_supply_v", "series_drop_mv", "law_gain_%",
-             "adc_code", "table_dac_code", "firmware_gain_%", "dark_khz"],
-            [".1f", ".3f", "+.2f", ".4f", ".2f", "+.3f", "d", "d", "+.3f", ".1f"]))
-        say(f"gain swing at fixed bias {model['fixed_bias_v']:.3f} V: {np.ptp(model['fixed_gain_error_pct']):.1f} % "
-            f"over {lo_c:g}..{hi_c:g} C; with the law: {np.ptp(model['law_gain_error_pct']):.3f} %; through the "
-            f"firmware's integer path: {np.ptp(model['firmware_gain_error_pct']):.3f} %")
-        say(f"budget of what the hardware adds: {budget.rss_pct:.2f} % (1 sigma) as built, dominated by "
-            f"{budget.dominant}; {budget.calibrated_rss_pct:.2f} % after a one-point calibration, dominated by "
-            f"{budget.calibrated_dominant}")
-        drift = sorted(electronics_terms(budget), key=lambda t: -t.calibrated_limit_pct)[:4]
-        say("electronics drift and lag after calibration (limit, largest over the range): " + "; ".join(
-            f"{t.name} {t.calibrated_limit_pct:.3f} %" for t in drift))
-        say(f"== 3. lookup table at {tables['bound_pct']:g} %: optimised {tables['optimised_entries']} entries "
-            f"({tables['optimised_table_bytes']} B), smallest uniform {tables['uniform_entries']} entries "
-            f"({tables['uniform_table_bytes']} B); {tables['codes_verified']} ADC codes verified, worst "
-            f"{tables['max_gain_error_pct']:.4f} %")
-        for f in tables["files"]:
-            say(f"wrote {f}")
-        light = light_summary(sipm_profile, board_profile, ov, temps_c)
-        report["instruments"][-1]["light"] = light
-        if light:
-            say("under light, largest gain error over the range through the integer path, drop corrected from the "
-                "modelled dark current vs from the measured current:")
-            say(format_table([(r["photon_rate_hz"], r["modelled_max_gain_error_pct"], r["measured_max_gain_error_pct"])
-                              for r in light], ["photon_rate_hz", "modelled_%", "measured_%"], [".0e", ".3f", ".3f"]))
-    cooler = load_thermal(_require(root, DEMO_COOLER))
-    report["loops"] = loop_summaries(cooler, loaded[0][1])
-    say("\n== 4. loops tuned for Ms <= 1.4 (robust PI) and verified with python-control at the firmware rate, "
-        "zero-order hold and one sample of computation delay")
+        inst = evaluate_instrument(sipm_profile, board_profile, overvoltage_v=ov, temps_c=temps_c)
+        instruments.append(inst)
+        if args.out:
+            for name, text in render_table_files(inst, sipm_profile, board_profile).items():
+                files[Path(args.out) / sipm_profile.name / name] = text
+        _print_instrument(say, inst, sipm_profile, (lo_c, hi_c))
+
+    # 4. Loops
+    loops = tune_loops(cooler, loaded[0][1])
+    say("\n== 4. loops tuned for Ms <= 1.4 (robust PI; the cooler at every ambient of -25..45 C) and verified with "
+        "python-control at the firmware rate, zero-order hold and one sample of computation delay")
+    closed = [lp for lp in loops if not lp.open_loop]
     say(format_table(
-        [(lp["loop"], lp["profile"], lp["rate_hz"], lp["kp"], lp["ki_per_s"], lp["gain_margin"], lp["phase_margin_deg"],
-          lp["ms"], lp["settling_time_s"], lp["overshoot_pct"], "yes" if lp["stable"] else "NO")
-         for lp in report["loops"]],
-        ["loop", "profile", "rate_hz", "kp", "ki_per_s", "gain_margin", "phase_margin_deg", "ms", "settling_s",
+        [(lp.loop, lp.profile, lp.rate_hz, f"{lp.kp:.4g} {lp.kp_unit}", f"{lp.ki_per_s:.4g} {lp.ki_unit}",
+          lp.gain_margin, lp.phase_margin_deg, lp.ms, lp.settling_time_s, lp.overshoot_pct,
+          "yes" if lp.stable else "NO") for lp in closed],
+        ["loop", "profile", "rate_hz", "kp", "ki", "gain_margin", "phase_margin_deg", "ms", "settling_s",
          "overshoot_%", "stable"],
-        ["", "", "g", ".4g", ".4g", ".2f", ".1f", ".3f", ".3g", ".1f", ""]))
-    for lp in report["loops"]:
-        for warning in lp["warnings"]:
-            print(f"warning: {lp['loop']}: {warning}", file=sys.stderr)
+        ["", "", "g", "", "", ".2f", ".1f", ".3f", ".3g", ".1f", ""]))
+    for lp in loops:
+        if lp.ambient_check:
+            say(f"{lp.loop} over the ambient range (Ms above is the largest over it):")
+            say(format_table([(c.ambient_temp_c, c.ms, c.hot_temp_c, c.dew_point_c, "YES" if c.condensation else "no")
+                              for c in lp.ambient_check],
+                             ["ambient_c", "ms", "hot_side_c", "dew_point_c", "condensation"],
+                             ["g", ".3f", ".1f", ".1f", ""]))
+        if lp.open_loop:
+            say(f"{lp.loop} ({lp.profile}): set open-loop, no read-back channel")
+
+    if files:
+        written = write_file_set(files, overwrite=args.force)
+        by_sipm = {}
+        for path in written:
+            by_sipm.setdefault(path.parent.name, []).append(str(path))
+        instruments = [_with_files(inst, tuple(by_sipm.get(inst.sipm, ()))) for inst in instruments]
+        for path in written:
+            say(f"wrote {path}")
+    for inst in instruments:
+        for finding in inst.findings:
+            print(f"compensator: warning: {inst.sipm} on {inst.board}: {finding.message}", file=sys.stderr)
+    for lp in loops:
+        for finding in lp.findings:
+            if finding.severity.value != "info":
+                print(f"compensator: {finding.severity.value}: {lp.loop}: {finding.message}", file=sys.stderr)
     if args.json:
-        print_json(report)
-    return 0 if all(lp["stable"] for lp in report["loops"]) else 1
+        print_json({"scenario": "mountain-hut radiation monitors, enclosure -25 to +45 C", "characterisation": char,
+                    "instruments": instruments, "loops": loops})
+    return EXIT_OK if all(lp.stable for lp in loops) else EXIT_FAILURE
+
+
+def _with_files(inst, paths):
+    from dataclasses import replace
+
+    return replace(inst, table=replace(inst.table, files=paths))
+
+
+def _print_instrument(say, inst, sipm_profile, range_c) -> None:
+    bd = sipm_profile.device.breakdown
+    d, b, t = inst.drift, inst.budget, inst.table
+    lo_c, hi_c = range_c
+    say(f"\n== 2. {inst.sipm} on {inst.board}: Vbd {bd.breakdown_v_at_ref:g} V at {bd.ref_temp_c:g} C, "
+        f"{bd.tempco_mv_per_k:g} mV/K, overvoltage {inst.overvoltage_v:g} V, constant-gain law")
+    say(format_table(
+        list(zip(d.temp_c, d.breakdown_v, d.fixed_gain_error_pct, d.law_supply_v, d.series_drop_mv,
+                 d.law_gain_error_pct, d.adc_code.tolist(), d.firmware_dac_code.tolist(), d.firmware_gain_error_pct,
+                 d.dark_rate_hz / 1e3)),
+        ["temp_c", "breakdown_v", "fixed_bias_gain_%", "law_supply_v", "series_drop_mv", "law_gain_%",
+         "adc_code", "table_dac_code", "firmware_gain_%", "dark_khz"],
+        [".1f", ".3f", "+.2f", ".4f", ".2f", "+.3f", "d", "d", "+.3f", ".1f"]))
+    say(f"gain error against 25 C over every one of the {d.codes_evaluated} ADC codes of {lo_c:g}..{hi_c:g} C "
+        f"(whatever the rows printed): at fixed bias {d.fixed_bias_v:.3f} V {_pct(d.fixed_gain_error_ptp_pct, '.1f')} "
+        f"peak-to-peak; with the law {_pct(d.law_gain_error_ptp_pct)} peak-to-peak (largest absolute "
+        f"{_pct(d.law_gain_error_max_abs_pct)}); through the firmware's integer path "
+        f"{_pct(d.firmware_gain_error_ptp_pct)} peak-to-peak (largest absolute "
+        f"{_pct(d.firmware_gain_error_max_abs_pct)})")
+    say(f"budget of what the hardware adds: {_pct(b.rss_pct, '.2f')} (1 sigma, root-sum-square) as built, dominated "
+        f"by {b.dominant}; {_pct(b.calibrated_rss_pct, '.2f')} after a one-point calibration, dominated by "
+        f"{b.calibrated_dominant}")
+    if b.electronics_terms:
+        say("electronics drift and lag after calibration (limit, largest over the range): " + "; ".join(
+            f"{t.name} {_pct(t.calibrated_limit_pct)}" for t in b.electronics_terms[:4]))
+    say(f"== 3. lookup table at {t.bound_pct:g} %: optimised {t.optimised_entries} entries "
+        f"({t.optimised_table_bytes} B), smallest uniform {t.uniform_entries} entries ({t.uniform_table_bytes} B); "
+        f"{t.codes_verified} ADC codes verified, largest absolute gain error {_pct(t.max_gain_error_pct, '.4f')}")
+    if inst.light:
+        say("under light, largest absolute gain error over the range through the integer path, drop corrected from "
+            "the modelled dark current vs from the measured current:")
+        say(format_table([(r.photon_rate_hz, r.modelled_max_gain_error_pct, r.measured_max_gain_error_pct)
+                          for r in inst.light], ["photon_rate_hz", "modelled_%", "measured_%"], [".0e", ".3f", ".3f"]))

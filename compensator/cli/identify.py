@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import sys
 from dataclasses import asdict
 from pathlib import Path
@@ -40,8 +41,11 @@ def run(args) -> int:
     from compensator.loops import identify
     from compensator.loops.measurements import read_loop_csv
 
-    if args.hysteresis < 0:
-        raise InputError(Problem("<command line>", 0, "--hysteresis", f"must be >= 0, got {args.hysteresis:g}"))
+    if not args.hysteresis >= 0 or not math.isfinite(args.hysteresis):
+        raise InputError(Problem("<command line>", 0, "--hysteresis", f"must be a finite number >= 0, got "
+                                                                      f"{args.hysteresis:g}"))
+    if args.hysteresis and args.model != "relay":
+        raise InputError(Problem("<command line>", 0, "--hysteresis", "applies to --model relay only"))
     record = read_loop_csv(args.file)
     stem = Path(args.file).stem
     try:
@@ -54,7 +58,9 @@ def run(args) -> int:
     files = []
     if args.model == "relay":
         out = {"model": "relay", "file": args.file, **asdict(result)}
+        out["signed_ultimate_gain"] = result.signed_ultimate_gain
         out["warnings"] = list(result.warnings)
+        out["tune_args"] = ["--ultimate", f"{result.signed_ultimate_gain:.6g}", f"{result.ultimate_period_s:.6g}"]
         if args.plot:
             from compensator.loops.plots import plot_relay
 
@@ -65,6 +71,7 @@ def run(args) -> int:
                "standard_errors": _named(result.standard_errors), "smith_start": _named(asdict(result.start)),
                "baseline": result.baseline, "step_time_s": result.step_time_s, "input_step": result.input_step,
                "residual_rms": result.residual_rms, "r_squared": result.r_squared,
+               "standard_error_scale": result.standard_error_scale,
                "warnings": list(result.warnings)}
         if args.model == "fopdt":
             out["tune_args"] = ["--fopdt", f"{model.gain:.6g}", f"{model.time_constant_s:.6g}",
@@ -96,18 +103,24 @@ def _named(params: dict) -> dict:
 
 def _print_human(out):
     if out["model"] == "relay":
-        rows = [("ultimate gain Ku", out["ultimate_gain"], "input per output unit"),
+        rows = [("ultimate gain Ku", out["signed_ultimate_gain"], "input per output unit"),
                 ("ultimate period Pu", out["ultimate_period_s"], "s"),
                 ("relay amplitude d", out["relay_amplitude"], "input units"),
                 ("oscillation amplitude a", out["oscillation_amplitude"], "output units")]
         print(format_table(rows, ["quantity", "value", "unit"], ["", ".5g", ""]))
-        print(f"{out['cycles']} cycles; period spread {out['period_std_s']:.3g} s")
+        print(f"{out['cycles']} cycles; period spread {out['period_std_s']:.3g} s; Ku from the output's fundamental "
+              f"{out['fundamental_ultimate_gain']:.5g}: the describing function's sine assumption moves Ku by "
+              f"{out['describing_function_error_pct']:.2g} % here (sign from the data: "
+              f"{'reverse' if out['process_sign'] < 0 else 'direct'} acting)")
+        print("next: compensator tune " + " ".join(out["tune_args"]) + " --method zn-cycle --rate-hz R "
+              "(or --method robust; add --static-gain K to verify on a model)")
     else:
         se = out["standard_errors"]
         keys = [k for k in ("process_gain", "time_constant_s", "time_constant2_s", "dead_time_s") if k in out]
         rows = [(k, out[k], se.get(k, float("nan")), out["smith_start"].get(k, float("nan"))) for k in keys]
         print(format_table(rows, ["parameter", "fit", "std error", "Smith start"], ["", ".5g", ".2g", ".5g"]))
-        print(f"R^2 {out['r_squared']:.5f}, residual rms {out['residual_rms']:.3g}")
+        print(f"R^2 {out['r_squared']:.5f}, residual rms {out['residual_rms']:.3g}; standard errors scaled by "
+              f"{out['standard_error_scale']:.3g} for correlated residuals (lack of fit)")
         print("next: compensator tune " + " ".join(out["tune_args"]) + " --method simc --rate-hz R")
     for f in out["files"]:
         print(f"wrote {f}")

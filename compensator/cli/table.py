@@ -2,9 +2,7 @@
 
 from __future__ import annotations
 
-import sys
-
-from compensator.cli._common import add_json_flag, add_law_arguments, law_from_args, print_json
+from compensator.cli._common import add_json_flag, add_law_arguments, caution, law_from_args, print_json
 from compensator.fileio import write_files_atomic
 from compensator.firmware.table_c import (
     DEFAULT_FUNCTION_NAME,
@@ -57,7 +55,7 @@ def register(subparsers) -> None:
 
 
 def run(args) -> int:
-    print(CAUTION, file=sys.stderr)
+    caution(CAUTION)  # printed when the command ends, never with a usage error
     name = check_function_name(args.name)
     sipm, board, law = law_from_args(args)
     table = build_table(law, board, args.max_gain_error_pct, args.layout, args.fault_margin_k)

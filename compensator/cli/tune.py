@@ -2,10 +2,22 @@
 
 from __future__ import annotations
 
+import math
 import sys
 from pathlib import Path
 
-from compensator.cli._common import add_json_flag, format_table, print_json
+from compensator.cli._common import (
+    EXIT_FAILURE,
+    EXIT_OK,
+    add_json_flag,
+    caution,
+    finite_float,
+    format_table,
+    positive_float,
+    print_json,
+    temperature_c,
+    usage_error,
+)
 from compensator.errors import InputError, ModelError, Problem
 from compensator.fileio import output_dir
 
@@ -17,9 +29,25 @@ HELP = "tune a PI/PID loop (cooler or bias supply) and verify it on the sampled 
 COOLER_INPUT_PER_COUNT_K = 0.01
 COOLER_OUTPUT_PER_COUNT_A = 0.001
 
+_THERMAL_ONLY = ("setpoint_temp_c", "ambient_temp_c", "current_a", "ambient_range", "relative_humidity_pct")
+_EMIT_ONLY = ("name", "input_per_count", "output_per_count", "out_min", "out_max")
+
+
+def _flag(dest: str) -> str:
+    return "--" + dest.replace("_", "-")
+
+
+def _humidity(text: str) -> float:
+    import argparse
+
+    value = finite_float(text)
+    if not 0 < value <= 100:
+        raise argparse.ArgumentTypeError(f"must be above 0 and at most 100 percent, got {text!r}")
+    return value
+
 
 def register(subparsers) -> None:
-    from compensator.loops.tuning import DEFAULT_MS, METHODS
+    from compensator.loops.choices import DEFAULT_MS, METHODS
 
     p = subparsers.add_parser(
         COMMAND,
@@ -27,50 +55,71 @@ def register(subparsers) -> None:
         description=(
             "Tune PI (or PID with --pid) gains in parallel form u = kp e + ki integral(e) + kd de/dt for the "
             "thermoelectric-cooler loop (--plant THERMAL_PROFILE, linearised at its setpoint), the bias supply "
-            "loop (--plant BOARD_PROFILE) or a given model (--fopdt / --sopdt), then verify gain and phase "
-            "margin, Ms and the closed-loop step on the loop discretised at the firmware rate (zero-order "
-            "hold, exact dead time, one sample of computation delay). The rules see the model's dead time "
-            "plus 1.5 samples for the hold and computation delay unless --ignore-sampling-delay. Exit status "
-            "1 when the verified loop is unstable."),
+            "loop (--plant BOARD_PROFILE with a bias_readback channel), a given model (--fopdt / --sopdt) or a "
+            "relay result (--ultimate KU PU), then verify gain and phase margin, Ms and the closed-loop step on "
+            "the loop discretised at the firmware rate (zero-order hold, exact dead time, one sample of "
+            "computation delay). --verify checks gains you already have instead of tuning. Gains carry units: "
+            "A/K, A/(K s), A s/K for the cooler; DAC code/V ... for the bias loop. Exit status 1 when the "
+            "verified loop is unstable (at any ambient of --ambient-range) or misses the Ms bound there. JSON "
+            "fields: kp, ki_per_s, kd_s with kp_unit, ki_unit, kd_unit; margins; step; ambient_check (one record "
+            "per ambient with dew_point_c and hot_temp_c); findings (code, severity, message); ok."),
     )
     src = p.add_mutually_exclusive_group(required=True)
     src.add_argument("--plant", metavar="FILE", help="a thermal profile (cooler loop) or board profile (bias loop)")
-    src.add_argument("--fopdt", nargs=3, type=float, metavar=("K", "TAU_S", "DEAD_TIME_S"),
+    src.add_argument("--fopdt", nargs=3, type=finite_float, metavar=("K", "TAU_S", "DEAD_TIME_S"),
                      help="first order plus dead time: gain, time constant (s), dead time (s)")
-    src.add_argument("--sopdt", nargs=4, type=float, metavar=("K", "TAU1_S", "TAU2_S", "DEAD_TIME_S"),
+    src.add_argument("--sopdt", nargs=4, type=finite_float, metavar=("K", "TAU1_S", "TAU2_S", "DEAD_TIME_S"),
                      help="second order plus dead time (needed for SIMC PID)")
-    p.add_argument("--method", required=True, choices=METHODS,
+    src.add_argument("--ultimate", nargs=2, type=finite_float, metavar=("KU", "PU_S"),
+                     help="ultimate gain (signed like the process) and period (s) from a relay experiment "
+                          "(identify --model relay)")
+    p.add_argument("--method", choices=METHODS,
                    help="simc, amigo, imc, zn (step-response rule), zn-cycle (ultimate-cycle rule) or robust "
-                        "(largest integral gain with Ms <= --ms)")
+                        "(largest integral gain with Ms <= --ms); required unless --verify")
     p.add_argument("--pid", action="store_true", help="tune a PID instead of a PI")
-    p.add_argument("--ms", type=float, default=DEFAULT_MS, help=f"Ms bound for --method robust (default {DEFAULT_MS})")
-    p.add_argument("--rate-hz", type=float, help="firmware loop rate, hertz (default: the profile's control.rate_hz)")
-    p.add_argument("--tau-c", type=float, metavar="SECONDS",
+    p.add_argument("--ms", type=finite_float, help=f"Ms bound for --method robust (default {DEFAULT_MS})")
+    p.add_argument("--rate-hz", type=positive_float,
+                   help="firmware loop rate, hertz (default: the profile's control.rate_hz)")
+    p.add_argument("--tau-c", type=positive_float, metavar="SECONDS",
                    help="closed-loop time constant: tau_c for simc (default: the dead time), lambda for imc")
     p.add_argument("--ignore-sampling-delay", action="store_true",
                    help="apply the rules to the continuous model as given (no 1.5-sample allowance)")
+    p.add_argument("--static-gain", type=finite_float, metavar="K",
+                   help="with --ultimate: the process's static gain, to build an FOPDT with the same ultimate "
+                        "point and verify on it")
+    ver = p.add_argument_group("verify gains you already have (--verify)")
+    ver.add_argument("--verify", action="store_true", help="verify --kp/--ki/--kd instead of tuning")
+    ver.add_argument("--kp", type=finite_float, help="proportional gain (signed like the plant gain)")
+    ver.add_argument("--ki", type=finite_float, metavar="KI_PER_S", help="integral gain, per second")
+    ver.add_argument("--kd", type=finite_float, metavar="KD_S", default=None, help="derivative gain, second")
     op = p.add_argument_group("operating point (thermal profiles)")
-    op.add_argument("--setpoint-temp-c", type=float, help="cold-plate setpoint, degree C (default: the profile's)")
-    op.add_argument("--ambient-temp-c", type=float, help="ambient, degree C (default: the profile's)")
-    op.add_argument("--current-a", type=float,
+    op.add_argument("--setpoint-temp-c", type=temperature_c, help="cold-plate setpoint, degree C (default: the "
+                                                                  "profile's)")
+    op.add_argument("--ambient-temp-c", type=temperature_c, help="ambient, degree C (default: the profile's)")
+    op.add_argument("--current-a", type=finite_float,
                     help="linearise at this current instead of the setpoint's (to study other operating points)")
-    op.add_argument("--ambient-range", nargs=2, type=float, metavar=("MIN_C", "MAX_C"),
-                    help="re-verify the gains with the cooler linearised at ambients across this range (field "
-                         "enclosures: -25 45); with --method robust the Ms bound must hold at every one")
-    p.add_argument("--regulator-tau-s", type=float,
+    op.add_argument("--ambient-range", nargs=2, type=temperature_c, metavar=("MIN_C", "MAX_C"),
+                    help="tune for the worst case over this ambient range (field enclosures: -25 45): the robust "
+                         "method holds its Ms bound at every ambient checked; every method is reported per ambient "
+                         "with the dew point and hot-side temperature")
+    op.add_argument("--relative-humidity-pct", type=_humidity,
+                    help="relative humidity of the ambient air for the dew point, percent (default: the profile's "
+                         "ambient.relative_humidity_pct)")
+    p.add_argument("--regulator-tau-s", type=positive_float,
                    help="bias regulator time constant, s (board profiles; default: the profile's "
                         "supply.regulator_time_constant_s)")
     em = p.add_argument_group("C emission (--emit-c)")
     em.add_argument("--emit-c", metavar="DIR", help="write the fixed-point PID as C99 header and source into DIR")
     em.add_argument("--name", help="C symbol prefix and file stem (default: cooler_pid, bias_pid or loop_pid)")
-    em.add_argument("--input-per-count", type=float,
+    em.add_argument("--input-per-count", type=finite_float,
                     help=f"measurement units per input count (cooler default {COOLER_INPUT_PER_COUNT_K} K; "
-                         "board default one DAC step of bias, volt)")
-    em.add_argument("--output-per-count", type=float,
+                         "board default one read-back ADC code, volt)")
+    em.add_argument("--output-per-count", type=finite_float,
                     help=f"actuator units per output count (cooler default {COOLER_OUTPUT_PER_COUNT_A} A; "
                          "board default 1 DAC code)")
-    em.add_argument("--out-min", type=float, help="lowest actuator value (default: -max current, or DAC code 0)")
-    em.add_argument("--out-max", type=float,
+    em.add_argument("--out-min", type=finite_float, help="lowest actuator value (default: the strongest stable "
+                                                         "heating current, or DAC code 0)")
+    em.add_argument("--out-max", type=finite_float,
                     help="highest actuator value (default: the current of maximum cooling, or the full-scale code)")
     p.add_argument("--plot", metavar="DIR", help="write Bode, sensitivity and step figures (PNG) into DIR")
     p.add_argument("--force", action="store_true", help="replace existing plot and C files")
@@ -78,80 +127,160 @@ def register(subparsers) -> None:
     p.set_defaults(handler=run)
 
 
-def _check_arguments(args):
-    def bad(flag, reason):
-        raise InputError(Problem("<command line>", 0, flag, reason))
+def _check_arguments(args, kind):
+    from compensator.loops.choices import DEFAULT_MS
 
-    if not args.ms > 1:
-        bad("--ms", f"must exceed 1, got {args.ms:g}")
-    for name in ("rate_hz", "tau_c", "regulator_tau_s"):
-        value = getattr(args, name)
-        if value is not None and not value > 0:
-            bad(f"--{name.replace('_', '-')}", f"must be positive, got {value:g}")
-    for name in ("input_per_count", "output_per_count"):
-        if getattr(args, name) == 0:
-            bad(f"--{name.replace('_', '-')}", "must be nonzero")
+    if args.verify:
+        if args.kp is None or args.ki is None:
+            raise usage_error("--verify", "needs --kp and --ki (and --kd for a PID)")
+        if args.kind_source == "ultimate" and args.static_gain is None:
+            raise usage_error("--verify", "Ku and Pu alone give no model to verify on: add --static-gain")
+    else:
+        for flag in ("kp", "ki", "kd"):
+            if getattr(args, flag) is not None:
+                raise usage_error(_flag(flag), "applies with --verify only")
+        if args.method is None:
+            raise usage_error("--method", "required (or --verify with --kp and --ki)")
+    if args.ms is not None and (args.verify or args.method != "robust"):
+        raise usage_error("--ms", "applies to --method robust only")
+    args.ms = DEFAULT_MS if args.ms is None else args.ms
+    if args.tau_c is not None and (args.verify or args.method not in ("simc", "imc")):
+        raise usage_error("--tau-c", "applies to --method simc or imc only")
+    if args.static_gain is not None and kind != "ultimate":
+        raise usage_error("--static-gain", "applies with --ultimate only")
+    if kind != "thermal":
+        for dest in _THERMAL_ONLY:
+            if getattr(args, dest) is not None:
+                raise usage_error(_flag(dest), "applies to a thermal profile only")
+    if kind != "board" and args.regulator_tau_s is not None:
+        raise usage_error("--regulator-tau-s", "applies to a board profile only")
+    if args.setpoint_temp_c is not None and args.current_a is not None:
+        raise usage_error("--current-a", "linearises at a current, so --setpoint-temp-c would be ignored: give one")
+    if not args.emit_c:
+        for dest in _EMIT_ONLY:
+            if getattr(args, dest) is not None:
+                raise usage_error(_flag(dest), "applies with --emit-c only")
+    for dest in ("input_per_count", "output_per_count"):
+        if getattr(args, dest) == 0:
+            raise usage_error(_flag(dest), "must be nonzero")
+    if args.ms is not None and not 1 < args.ms <= 10:
+        raise usage_error("--ms", f"must exceed 1 and be at most 10 (1.4 is robust, 2 aggressive; a larger bound no "
+                                  f"longer restrains the loop), got {args.ms:g}")
 
 
-def _caution_thermal(cooler, point) -> str:
-    from compensator.physics.thermal import dew_point_c
+def _source_kind(args, profile):
+    from compensator.profiles import BoardProfile, ThermalProfile
 
-    dew = float(dew_point_c(point.ambient_temp_c, cooler.ambient_relative_humidity_pct))
-    return (f"caution: a thermoelectric cooler whose hot side is not on its heat sink heats without limit "
-            f"(thermal runaway) and can burn people and parts: never power it unsinked, and cut the current above "
-            f"{cooler.max_hot_temp_c:g} C on the hot side. Keep the cold plate above the dew point plus a margin "
-            f"(dew point {dew:.1f} C at {point.ambient_temp_c:g} C and {cooler.ambient_relative_humidity_pct:g} % RH; "
-            f"margin {cooler.dew_margin_k:g} K) or condensation will wet the electronics. Local codes and licensed "
-            f"practice take precedence over these notes.")
+    if args.fopdt is not None:
+        return "fopdt"
+    if args.sopdt is not None:
+        return "sopdt"
+    if args.ultimate is not None:
+        return "ultimate"
+    if isinstance(profile, ThermalProfile):
+        return "thermal"
+    if isinstance(profile, BoardProfile):
+        return "board"
+    raise InputError(Problem(args.plant, 0, "kind", "tune needs a thermal or board profile, got a sipm profile"))
 
 
-CAUTION_BIAS = ("caution: SiPM bias supplies deliver tens of volts; above 60 V dc a circuit counts as hazardous live "
-                "(IEC 61010-1). Test the loop at low voltage first, keep the output limits in hardware, and follow "
-                "local codes and licensed practice.")
+_OPTION_OF_KEY = {"setpoint_temp_c": "--setpoint-temp-c", "current_a": "--current-a", "ambient_temp_c":
+                  "--ambient-temp-c", "ms_max": "--ms", "rate_hz": "--rate-hz", "pid": "--pid", "method": "--method",
+                  "static_gain": "--static-gain", "ultimate_gain": "--ultimate", "ultimate_period_s": "--ultimate",
+                  "ambient_range_c": "--ambient-range", "relative_humidity_pct": "--relative-humidity-pct",
+                  "kp": "--kp", "ki_per_s": "--ki", "kd_s": "--kd"}
 
 
-def _load_plant(args):
-    """Return (plant, profile or None, kind, defaults dict for emission, extra warnings, caution text)."""
-    from compensator.loops import plants
+def _design(args, profile, kind):
+    """Call the one library function for this loop; locate its errors at the option or profile key at fault."""
+    from compensator.loops import design, plants
+    from compensator.loops.verify import PidGains
 
-    if args.fopdt is not None or args.sopdt is not None:
-        flag = "--fopdt" if args.fopdt is not None else "--sopdt"
+    gains = PidGains(args.kp, args.ki, args.kd or 0.0) if args.verify else None
+    common = dict(method=None if args.verify else args.method, gains=gains, rate_hz=args.rate_hz, pid=args.pid,
+                  ms_max=args.ms, tau_c_s=args.tau_c, include_sampling_delay=not args.ignore_sampling_delay)
+    try:
+        if kind == "thermal":
+            return design.design_cooler_loop(
+                profile.cooler, setpoint_temp_c=args.setpoint_temp_c, ambient_temp_c=args.ambient_temp_c,
+                current_a=args.current_a, ambient_range_c=args.ambient_range,
+                relative_humidity_pct=args.relative_humidity_pct, **common)
+        if kind == "board":
+            return design.design_bias_loop(profile, regulator_time_constant_s=args.regulator_tau_s, **common)
+        if args.rate_hz is None:
+            raise usage_error("--rate-hz", f"required with --{kind}")
+        if kind == "ultimate":
+            common.pop("gains")
+            if gains is not None:
+                from compensator.loops.tuning import fopdt_from_ultimate
+
+                model = fopdt_from_ultimate(args.static_gain, *args.ultimate)
+                common.pop("rate_hz")
+                return design.design_model_loop(model, rate_hz=args.rate_hz, gains=gains, kind="ultimate", **common)
+            return design.design_ultimate_loop(*args.ultimate, static_gain=args.static_gain, **common)
         try:
-            if args.fopdt is not None:
-                k, tau, theta = args.fopdt
-                model = plants.FopdtModel(k, tau, theta)
+            if kind == "fopdt":
+                model = plants.FopdtModel(*args.fopdt)
             else:
                 k, t1, t2, theta = args.sopdt
                 model = plants.SopdtModel(k, max(t1, t2), min(t1, t2), theta)
-            plant = plants.model_plant(model)
+            plants.model_plant(model)
         except ModelError as exc:
-            raise InputError(Problem("<command line>", 0, flag, str(exc))) from None
-        return plant, None, flag[2:], model, {}, [], None
-    from compensator.profiles import BoardProfile, ThermalProfile, load_profile
+            raise exc.at("<command line>", key=f"--{kind}") from None
+        common.pop("rate_hz")
+        return design.design_model_loop(model, rate_hz=args.rate_hz, **common)
+    except ModelError as exc:
+        option = _OPTION_OF_KEY.get(exc.key)
+        if option is not None and (option != "--setpoint-temp-c" or args.setpoint_temp_c is not None):
+            raise exc.at("<command line>", key=option) from None
+        if args.plant and kind in ("thermal", "board"):
+            key = {"setpoint_temp_c": "control.setpoint_temp_c", "": ""}.get(exc.key, exc.key)
+            raise exc.at(args.plant, key=key) from None
+        raise exc.at("<command line>", key=f"--{kind}" if kind in ("fopdt", "sopdt", "ultimate") else "") from None
 
-    profile = load_profile(args.plant)
-    if isinstance(profile, ThermalProfile):
-        from compensator.loops.verify import cooler_operating_warnings
 
-        c = profile.cooler
-        try:
-            point = plants.cooler_operating_point(c, args.setpoint_temp_c, args.current_a, args.ambient_temp_c)
-        except ModelError as exc:
-            key = "--current-a" if args.current_a is not None else "control.setpoint_temp_c"
-            raise InputError(Problem(args.plant, 0, key, str(exc))) from None
-        plant = plants.linearise_cooler(c, point)
-        out_min, out_max = plants.cooler_current_limits_a(c, point.ambient_temp_c)
-        emit = dict(name="cooler_pid", input_per_count=COOLER_INPUT_PER_COUNT_K,
-                    output_per_count=COOLER_OUTPUT_PER_COUNT_A, out_min=out_min, out_max=out_max,
-                    rate_hz=c.control_rate_hz)
-        return plant, profile, "thermal", None, emit, cooler_operating_warnings(c, point), _caution_thermal(c, point)
-    if isinstance(profile, BoardProfile):
-        sup = profile.supply
-        plant = plants.bias_supply_plant(sup, args.regulator_tau_s)  # None: the profile's own
-        emit = dict(name="bias_pid", input_per_count=sup.lsb_v, output_per_count=1.0, out_min=0.0,
-                    out_max=float(sup.dac.full_scale_code), rate_hz=profile.control_rate_hz)
-        return plant, profile, "board", None, emit, [], CAUTION_BIAS
-    raise InputError(Problem(args.plant, 0, "kind", "tune needs a thermal or board profile, got a sipm profile"))
+def _caution(result) -> str:
+    if result.kind == "board":
+        return ("caution: SiPM bias supplies deliver tens of volts; above 60 V dc a circuit counts as hazardous live "
+                "(IEC 61010-1). Test the loop at low voltage first, keep the output limits in hardware, and follow "
+                "local codes and licensed practice.")
+    c = result.conditions
+    if c is None:
+        return ""
+    return (f"caution: a thermoelectric cooler whose hot side is not on its heat sink heats without limit (thermal "
+            f"runaway) and can burn people and parts: never power it unsinked, and cut the current above "
+            f"{c.max_hot_temp_c:g} C on the hot side. Keep the cold plate above the dew point plus a margin (dew "
+            f"point {c.dew_point_c:.1f} C at {c.point.ambient_temp_c:g} C and {c.relative_humidity_pct:g} % RH; "
+            f"margin {c.dew_margin_k:g} K) or condensation will wet the electronics. Local codes and licensed "
+            f"practice take precedence over these notes.")
+
+
+def _emit_defaults(result, profile):
+    if result.kind == "thermal":
+        return dict(name="cooler_pid", input_per_count=COOLER_INPUT_PER_COUNT_K,
+                    output_per_count=COOLER_OUTPUT_PER_COUNT_A, out_min=result.conditions.out_min_a,
+                    out_max=result.conditions.out_max_a)
+    if result.kind == "board":
+        return dict(name="bias_pid", input_per_count=profile.bias_readback.lsb_v, output_per_count=1.0,
+                    out_min=0.0, out_max=float(profile.supply.dac.full_scale_code))
+    return dict(name="loop_pid")
+
+
+def _emit_settings(args, result, profile):
+    """The scales and limits for --emit-c, refused when they leave no output range."""
+    emit = _emit_defaults(result, profile)
+    pick = {k: (getattr(args, k) if getattr(args, k) is not None else emit.get(k))
+            for k in ("input_per_count", "output_per_count", "out_min", "out_max")}
+    for key, value in pick.items():
+        if value is None:
+            raise usage_error(_flag(key), f"required with --emit-c for a --{result.kind} model")
+    lo, hi = sorted((pick["out_min"] / pick["output_per_count"], pick["out_max"] / pick["output_per_count"]))
+    if math.floor(hi) - math.ceil(lo) < 1:
+        raise usage_error("--output-per-count", (
+            f"at {pick['output_per_count']:g} per count the output range {pick['out_min']:g}..{pick['out_max']:g} "
+            f"spans fewer than two whole output counts: the PID could only output one value"))
+    pick["name"] = args.name or emit["name"]
+    return pick
 
 
 def _targets(args, emit_name, stem):
@@ -164,132 +293,124 @@ def _targets(args, emit_name, stem):
 
 
 def run(args) -> int:
-    from compensator.loops import tuning, verify
+    profile = None
+    if args.plant:
+        from compensator.profiles import load_profile
 
-    _check_arguments(args)
-    plant, profile, kind, model, emit, extra_warnings, caution = _load_plant(args)
-    if args.ambient_range is not None and kind != "thermal":
-        raise InputError(Problem("<command line>", 0, "--ambient-range", "applies to a thermal profile only"))
-    rate = args.rate_hz or emit.get("rate_hz")
-    if rate is None:
-        raise InputError(Problem("<command line>", 0, "--rate-hz", "required with --fopdt or --sopdt"))
-    if caution:
-        print(f"compensator: {caution}", file=sys.stderr)
-    T = 1.0 / rate
-    emit_name = args.name or emit.get("name", "loop_pid")
-    stem = f"{plant.name.replace(' ', '-')}-{args.method}{'-pid' if args.pid else ''}"
+        profile = load_profile(args.plant)
+    kind = _source_kind(args, profile)
+    args.kind_source = kind
+    _check_arguments(args, kind)
     if args.emit_c:
         output_dir(args.emit_c, "C output")
-        for key in ("input_per_count", "output_per_count", "out_min", "out_max"):
-            if getattr(args, key) is None and key not in emit:
-                raise InputError(Problem("<command line>", 0, f"--{key.replace('_', '-')}",
-                                         "required with --emit-c for a --fopdt/--sopdt model"))
+    result = _design(args, profile, kind)
+    method = "verify" if result.tuning is None else result.tuning.method
+    stem = f"{(result.plant.name if result.plant else 'ultimate').replace(' ', '-')}-{method}{'-pid' if args.pid else ''}"
+    emit = _emit_settings(args, result, profile) if args.emit_c else None
+    if result.plant is None and args.plot:
+        raise usage_error("--plot", "Ku and Pu alone give no model to plot: add --static-gain")
     if not args.force:
-        for target in _targets(args, emit_name, stem):
+        for target in _targets(args, emit["name"] if emit else "", stem):
             if target.exists():
                 raise InputError(Problem(str(target), 0, "", "already exists; not overwriting (use --force to "
                                                              "replace it)"))
-    ambients, others = _ambient_plants(args, profile, extra_warnings) if args.ambient_range else ([], [])
-    result = tuning.tune(plant, args.method, T, pid=args.pid, ms_max=args.ms, tau_c_s=args.tau_c, model=model,
-                         include_sampling_delay=not args.ignore_sampling_delay, also_plants=others)
-    report = verify.verify_loop(plant, result.gains, T, ms_limit=args.ms if args.method == "robust" else None)
-    warnings = list(extra_warnings) + list(report.warnings)
-    checks = []
-    if ambients:
-        checks = verify.check_cooler_ambient_range(profile.cooler, result.gains, T, ambients, args.setpoint_temp_c)
-        for c in checks:
-            if not c.reachable:
-                continue
-            if not c.stable:
-                warnings.append(f"at ambient {c.ambient_temp_c:g} C the loop is UNSTABLE with these gains")
-            elif c.ms > verify.POOR_MS:
-                warnings.append(f"at ambient {c.ambient_temp_c:g} C Ms is {c.ms:.2f}: fragile")
+    caution_text = _caution(result)
+    if caution_text:
+        caution(f"compensator: {caution_text}")  # printed when the command ends, never with a usage error
     files = []
-    if args.emit_c:
-        files += _emit(args, result, T, emit, emit_name, profile)
+    if emit:
+        files += _emit(args, result, emit, profile)
     if args.plot:
         from compensator.loops.plots import plot_loop
 
-        files += [str(f) for f in plot_loop(args.plot, stem, plant, result.gains, report, overwrite=args.force)]
-    out = _summary(args, plant, profile, kind, result, report, rate, warnings, files)
-    if checks:
-        from dataclasses import asdict
-
-        out["ambient_check"] = [asdict(c) for c in checks]
-    for w in warnings:
-        print(f"compensator: warning: {w}", file=sys.stderr)
+        files += [str(f) for f in plot_loop(args.plot, stem, result.plant, result.gains, result.report,
+                                            overwrite=args.force)]
+    out = _summary(result, profile, files)
+    for f in result.findings:
+        print(f"compensator: {f.severity.value}: {f.message}", file=sys.stderr)
     if args.json:
         print_json(out)
     else:
         _print_human(out)
-    return 0 if report.stable and all(c.stable for c in checks if c.reachable) else 1
+    if result.report is None:
+        return EXIT_OK
+    return EXIT_OK if result.ok else EXIT_FAILURE
 
 
-def _ambient_plants(args, profile, warnings):
-    """Ambient temperatures to check (the range in 5 steps plus the nominal) and the reachable plants there."""
-    import numpy as np
-
-    from compensator.loops.plants import linearise_cooler_over_ambient
-
-    lo, hi = sorted(args.ambient_range)
-    c = profile.cooler
-    nominal = c.ambient_temp_c if args.ambient_temp_c is None else args.ambient_temp_c
-    ambients = sorted({*(float(v) for v in np.linspace(lo, hi, 5)), float(nominal)})
-    others, unreachable = linearise_cooler_over_ambient(c, [t for t in ambients if t != nominal], args.setpoint_temp_c)
-    warnings.extend(unreachable)
-    return ambients, others
-
-
-def _emit(args, result, T, emit, name, profile):
+def _emit(args, result, pick, profile):
     from compensator.firmware.pid import PidSettings, quantise_pid
     from compensator.firmware.pid_c import write_pid_c
 
-    g = result.gains
-    pick = {k: (getattr(args, k) if getattr(args, k) is not None else emit.get(k))
-            for k in ("input_per_count", "output_per_count", "out_min", "out_max")}
+    g, T = result.gains, result.sample_time_s
     settings = PidSettings(kp=g.kp, ki_per_s=g.ki_per_s, kd_s=g.kd_s, sample_time_s=T, out_min=pick["out_min"],
                            out_max=pick["out_max"], derivative_filter_n=g.derivative_filter_n,
                            setpoint_weight=g.setpoint_weight)
-    coeffs = quantise_pid(settings, input_per_count=pick["input_per_count"],
-                          output_per_count=pick["output_per_count"])
-    banner = {"method": result.method, "controller": "PID" if result.pid else "PI", "rate_hz": f"{1.0 / T:g}",
-              "kp": f"{g.kp:.6g}", "ki_per_s": f"{g.ki_per_s:.6g}", "kd_s": f"{g.kd_s:.6g}",
+    try:
+        coeffs = quantise_pid(settings, input_per_count=pick["input_per_count"],
+                              output_per_count=pick["output_per_count"])
+    except ModelError as exc:
+        raise exc.at("<command line>", key=_flag(exc.key.split("/")[0]) if exc.key else "--emit-c") from None
+    method = "verify" if result.tuning is None else result.tuning.method
+    banner = {"method": method, "controller": "PID" if g.kd_s else "PI", "rate_hz": f"{1.0 / T:g}",
+              "kp": f"{g.kp:.6g} {result.units.kp_unit}", "ki_per_s": f"{g.ki_per_s:.6g} {result.units.ki_unit}",
+              "kd_s": f"{g.kd_s:.6g} {result.units.kd_unit}",
               "input_per_count": f"{pick['input_per_count']:.6g}",
               "output_per_count": f"{pick['output_per_count']:.6g}",
               "out_min": f"{pick['out_min']:.6g}", "out_max": f"{pick['out_max']:.6g}"}
-    written = write_pid_c(coeffs, args.emit_c, name=name, profiles=(profile,) if profile else (), settings=banner,
-                          overwrite=args.force)
+    written = write_pid_c(coeffs, args.emit_c, name=pick["name"], profiles=(profile,) if profile else (),
+                          settings=banner, overwrite=args.force)
     return [str(p) for p in written]
 
 
-def _summary(args, plant, profile, kind, result, report, rate, warnings, files):
+def _summary(result, profile, files) -> dict:
+    """The JSON record of a :class:`~compensator.loops.design.LoopDesign`."""
     from dataclasses import asdict
 
-    g, m, s = result.gains, report.margins, report.step
-    plant_info = {"kind": kind, "name": profile.name if profile else plant.name,
-                  "source": profile.source if profile else None, "input": plant.input_label,
-                  "output": plant.output_label, "dc_gain": plant.dc_gain, "dead_time_s": plant.dead_time_s}
-    if plant.operating_point is not None:
-        plant_info["operating_point"] = asdict(plant.operating_point)
-    if result.model is not None:
-        plant_info["process_model"] = _process_model(result.model)
-    return {
-        "method": result.method, "controller": "PID" if result.pid else "PI",
+    g, r, t, u = result.gains, result.report, result.tuning, result.units
+    plant = result.plant
+    plant_info = {"kind": result.kind, "name": profile.name if profile else (plant.name if plant else "ultimate"),
+                  "source": profile.source if profile else None}
+    if plant is not None:
+        plant_info.update({"input": plant.input_label, "output": plant.output_label, "dc_gain": plant.dc_gain,
+                           "dead_time_s": plant.dead_time_s})
+        if plant.operating_point is not None:
+            plant_info["operating_point"] = asdict(plant.operating_point)
+    if t is not None and t.model is not None:
+        plant_info["process_model"] = _process_model(t.model)
+    out = {
+        "method": "verify" if t is None else t.method, "controller": "PID" if g.kd_s else "PI",
         "kp": g.kp, "ki_per_s": g.ki_per_s, "kd_s": g.kd_s,
+        "kp_unit": u.kp_unit, "ki_unit": u.ki_unit, "kd_unit": u.kd_unit,
         "derivative_filter_n": g.derivative_filter_n, "setpoint_weight": g.setpoint_weight,
-        "rate_hz": rate, "sample_time_s": 1.0 / rate,
-        "rule_dead_time_s": result.rule_dead_time_s if result.method not in ("robust", "zn-cycle") else None,
-        "tau_c_s": result.closed_loop_time_constant_s,
-        "ultimate_gain": result.ultimate_gain, "ultimate_period_s": result.ultimate_period_s,
-        "ms_target": result.ms_target,
-        "margins": {"gain_margin": m.gain_margin, "phase_margin_deg": m.phase_margin_deg, "ms": m.ms,
-                    "crossover_rad_s": m.crossover_rad_s, "phase_crossover_rad_s": m.phase_crossover_rad_s,
-                    "delay_margin_s": m.delay_margin_s},
-        "step": {"rise_time_s": s.rise_time_s, "settling_time_s": s.settling_time_s,
-                 "overshoot_pct": s.overshoot_pct, "peak_time_s": s.peak_time_s,
-                 "peak_actuator_per_unit": s.peak_actuator, "load_iae": s.load_iae},
-        "stable": report.stable, "plant": plant_info, "warnings": warnings, "files": files,
+        "rate_hz": 1.0 / result.sample_time_s, "sample_time_s": result.sample_time_s,
+        "rule_dead_time_s": t.rule_dead_time_s if t is not None and t.method not in ("robust", "zn-cycle") else None,
+        "tau_c_s": t.closed_loop_time_constant_s if t is not None else None,
+        "ultimate_gain": t.ultimate_gain if t is not None else None,
+        "ultimate_period_s": t.ultimate_period_s if t is not None else None,
+        "ms_target": t.ms_target if t is not None else None,
+        "plant": plant_info, "ok": result.ok, "verified": r is not None,
+        "findings": [{"code": f.code, "severity": f.severity.value, "message": f.message} for f in result.findings],
+        "files": files,
     }
+    if r is not None:
+        m, s = r.margins, r.step
+        out.update({
+            "margins": {"gain_margin": m.gain_margin, "phase_margin_deg": m.phase_margin_deg, "ms": m.ms,
+                        "crossover_rad_s": m.crossover_rad_s, "phase_crossover_rad_s": m.phase_crossover_rad_s,
+                        "delay_margin_s": m.delay_margin_s},
+            "step": {"rise_time_s": s.rise_time_s, "settling_time_s": s.settling_time_s,
+                     "overshoot_pct": s.overshoot_pct, "peak_time_s": s.peak_time_s,
+                     "peak_actuator_per_setpoint_unit": s.peak_actuator_per_setpoint_unit, "load_iae": s.load_iae},
+            "stable": r.stable, "analysis_period_s": r.analysis_period_s,
+        })
+    if result.conditions is not None:
+        c = result.conditions
+        out["conditions"] = {"relative_humidity_pct": c.relative_humidity_pct, "dew_point_c": c.dew_point_c,
+                             "hot_temp_c": c.point.hot_temp_c, "out_min_a": c.out_min_a, "out_max_a": c.out_max_a}
+    if result.ambient is not None:
+        out["ambient_check"] = [asdict(c) for c in result.ambient.checks]
+        out["worst_ms"] = result.ambient.worst_ms
+    return out
 
 
 def _process_model(model) -> dict:
@@ -307,24 +428,32 @@ def _fmt(v, spec=".4g"):
 
 def _print_human(out):
     p = out["plant"]
-    print(f"{out['controller']} by {out['method']} for {p['name']} ({p['input']} -> {p['output']}), "
-          f"{out['rate_hz']:g} Hz")
-    rows = [("kp", _fmt(out["kp"]), "per output unit"), ("ki", _fmt(out["ki_per_s"]), "per output unit per s"),
-            ("kd", _fmt(out["kd_s"]), "per output unit times s")]
-    print(format_table(rows, ["gain", "value", "unit (actuator units)"]))
-    m, s = out["margins"], out["step"]
-    print(f"margins: gain {_fmt(m['gain_margin'], '.3g')}, phase {_fmt(m['phase_margin_deg'], '.1f')} deg, "
-          f"Ms {_fmt(m['ms'], '.3f')}, crossover {_fmt(m['crossover_rad_s'], '.3g')} rad/s")
-    if out["stable"]:
-        print(f"setpoint step: rise {_fmt(s['rise_time_s'], '.3g')} s, settling {_fmt(s['settling_time_s'], '.3g')} s, "
-              f"overshoot {_fmt(s['overshoot_pct'], '.1f')} %, peak actuator {_fmt(s['peak_actuator_per_unit'])} "
-              "per unit step")
+    what = f"{p['name']} ({p['input']} -> {p['output']})" if "input" in p else p["name"]
+    print(f"{out['controller']} by {out['method']} for {what}, {out['rate_hz']:g} Hz")
+    rows = [("kp", _fmt(out["kp"]), out["kp_unit"]), ("ki_per_s", _fmt(out["ki_per_s"]), out["ki_unit"]),
+            ("kd_s", _fmt(out["kd_s"]), out["kd_unit"])]
+    print(format_table(rows, ["gain", "value", "unit"]))
+    if out["ultimate_gain"] is not None:
+        print(f"from Ku {out['ultimate_gain']:.4g}, Pu {out['ultimate_period_s']:.4g} s")
+    if not out["verified"]:
+        print("not verified: Ku and Pu alone give no model (add --static-gain K)")
     else:
-        print("closed loop UNSTABLE: do not use these gains")
+        m, s = out["margins"], out["step"]
+        print(f"margins: gain {_fmt(m['gain_margin'], '.3g')}, phase {_fmt(m['phase_margin_deg'], '.1f')} deg, "
+              f"Ms {_fmt(m['ms'], '.3f')}, crossover {_fmt(m['crossover_rad_s'], '.3g')} rad/s")
+        if out["stable"]:
+            print(f"setpoint step: rise {_fmt(s['rise_time_s'], '.3g')} s, settling "
+                  f"{_fmt(s['settling_time_s'], '.3g')} s, overshoot {_fmt(s['overshoot_pct'], '.1f')} %, peak "
+                  f"actuator {_fmt(s['peak_actuator_per_setpoint_unit'])} {out['kp_unit']} per unit step")
+        else:
+            print("closed loop UNSTABLE: do not use these gains")
     if out.get("ambient_check"):
         rows = [(f"{c['ambient_temp_c']:g}", "yes" if c["reachable"] else "no", _fmt(c["current_a"], ".3f"),
+                 _fmt(c["hot_temp_c"], ".1f"), _fmt(c["dew_point_c"], ".1f"), "YES" if c["condensation"] else "no",
                  _fmt(c["ms"], ".3f"), _fmt(c["gain_margin"], ".3g"), _fmt(c["phase_margin_deg"], ".1f"),
                  "yes" if c["stable"] else "NO") for c in out["ambient_check"]]
-        print(format_table(rows, ["ambient C", "reachable", "current A", "Ms", "GM", "PM deg", "stable"]))
+        print(format_table(rows, ["ambient C", "reachable", "current A", "hot side C", "dew point C", "condensation",
+                                  "Ms", "GM", "PM deg", "stable"]))
+        print(f"worst Ms over the range: {_fmt(out['worst_ms'], '.3f')}")
     for f in out["files"]:
         print(f"wrote {f}")

@@ -15,6 +15,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -42,7 +43,8 @@ class StepFit:
     start : FopdtModel
         Smith's two-point estimate the fit started from.
     standard_errors : dict
-        One standard error per model field (same units), from the Jacobian.
+        One standard error per model field (same units), from the Jacobian,
+        scaled by :attr:`standard_error_scale`.
     baseline : float
         Fitted output before the step (output units).
     step_time_s : float
@@ -54,6 +56,9 @@ class StepFit:
     r_squared : float
         Fraction of the output variance the model explains.
     warnings : tuple of str
+    standard_error_scale : float
+        The lack-of-fit factor the Jacobian's errors were multiplied by
+        (:func:`lack_of_fit_factor`; 1 for white residuals).
     """
 
     model: object
@@ -65,6 +70,7 @@ class StepFit:
     residual_rms: float
     r_squared: float
     warnings: tuple = field(default_factory=tuple)
+    standard_error_scale: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -89,6 +95,16 @@ class RelayResult:
     period_std_s, amplitude_std : float
         Cycle-to-cycle standard deviation of the period and amplitude.
     warnings : tuple of str
+    process_sign : int
+        +1 when more input raises the output (the relay switched up as the
+        output fell), -1 when it lowers it (a cooler).
+    fundamental_ultimate_gain : float
+        ``4 d / (pi a1)`` with ``a1`` the amplitude of the output's
+        fundamental (Fourier coefficient over the whole cycles).
+    describing_function_error_pct : float
+        ``100 |Ku - Ku1| / Ku1``: how far the output's harmonics move the
+        describing-function estimate, which assumes a sine (a measured
+        indicator of the method's own error).
     """
 
     ultimate_gain: float
@@ -100,6 +116,14 @@ class RelayResult:
     period_std_s: float
     amplitude_std: float
     warnings: tuple = field(default_factory=tuple)
+    process_sign: int = 1
+    fundamental_ultimate_gain: float = float("nan")
+    describing_function_error_pct: float = float("nan")
+
+    @property
+    def signed_ultimate_gain(self) -> float:
+        """Ku with the process's sign, as ``tune --ultimate`` takes it."""
+        return self.process_sign * self.ultimate_gain
 
 
 # ---------------------------------------------------------------- step shapes
@@ -217,17 +241,46 @@ def smith_two_point(time_s, output, step_time_s, baseline, final, input_step) ->
 
 
 # ---------------------------------------------------------------- least squares
+def lack_of_fit_factor(residuals) -> float:
+    """Factor by which correlated residuals inflate least-squares standard errors.
+
+    With lag-one autocorrelation ``rho > 0`` of the residuals (a model that
+    misses part of the response leaves runs of same-signed residuals), the
+    effective number of independent samples is ``n (1 - rho) / (1 + rho)``
+    (an AR(1) error model; common practice), so the standard errors grow by
+    ``sqrt((1 + rho) / (1 - rho))``. White residuals give 1.
+
+    Parameters
+    ----------
+    residuals : array_like
+        Fit residuals in time order.
+
+    Returns
+    -------
+    float
+        At least 1.
+    """
+    r = np.asarray(residuals, dtype=float)
+    r = r - np.mean(r)
+    den = float(r @ r)
+    if r.size < 3 or den == 0:
+        return 1.0
+    rho = min(float(r[1:] @ r[:-1]) / den, 0.999)
+    return float(math.sqrt((1.0 + rho) / (1.0 - rho))) if rho > 0 else 1.0
+
+
 def _fit_stats(res, names):
     n, p = res.fun.size, res.x.size
     ssr = float(res.fun @ res.fun)
     dof = max(n - p, 1)
     jac = res.jac
+    factor = lack_of_fit_factor(res.fun)
     try:
         cov = np.linalg.pinv(jac.T @ jac) * ssr / dof
-        se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+        se = factor * np.sqrt(np.clip(np.diag(cov), 0.0, None))
     except np.linalg.LinAlgError:
         se = np.full(p, np.nan)
-    return dict(zip(names, (float(v) for v in se))), float(np.sqrt(ssr / n))
+    return dict(zip(names, (float(v) for v in se))), float(np.sqrt(ssr / n)), factor
 
 
 def fit_step(record: LoopRecord, model: str = "fopdt", min_dead_time_s: float = 0.0) -> StepFit:
@@ -254,35 +307,46 @@ def fit_step(record: LoopRecord, model: str = "fopdt", min_dead_time_s: float = 
         raise ModelError(f"model must be 'fopdt' or 'sopdt', got {model!r}")
     t, u, y = record.time_s, record.input, record.output
     t0, y0, y_end, u_step, j = _step_geometry(record)
-    start = smith_two_point(t, y, t0, y0, y_end, u_step)
-    sup = _Superposer(t, u)
+    # Fit in normalised units (input step 1, output change about 1) so that values of any magnitude (1e-16 or
+    # 1e16) give the optimiser the same well-scaled problem; results are scaled back.
+    u_scale = abs(u_step)
+    y_scale = max(abs(y_end - y0), float(np.std(y)), np.finfo(float).tiny)
+    if not (np.isfinite(u_scale) and np.isfinite(y_scale) and u_scale > 0):
+        raise ModelError(f"{record.source or 'record'}: the input or output values are too large to fit")
+    un, yn = (u - u[0]) / u_scale, (y - y0) / y_scale
+    start_n = smith_two_point(t, yn, t0, 0.0, (y_end - y0) / y_scale, float(np.sign(u_step)))
+    start = FopdtModel(start_n.gain * y_scale / u_scale, start_n.time_constant_s, start_n.dead_time_s)
+    sup = _Superposer(t, un)
     span = float(t[-1] - t[0])
     dt_min = float(np.min(np.diff(t)))
     warnings = []
     tail = max(3, t.size // 10)
-    slope = np.polyfit(t[-tail:], y[-tail:], 1)[0] * (t[-1] - t[-tail])
-    if abs(slope) > 0.02 * abs(y_end - y0):
+    slope = np.polyfit(t[-tail:] - t[-tail], yn[-tail:], 1)[0] * (t[-1] - t[-tail])
+    if abs(slope) > 0.02 * abs(y_end - y0) / y_scale:
         warnings.append("the output is still moving at the end of the record; the gain is uncertain "
                         "(record for longer)")
 
-    def run(x0, lower, upper, shape, names):
+    def run(x0, lower, upper, shape):
         def resid(x):
-            return x[-1] + x[0] * sup.response(lambda s: shape(s, *x[1:-1])) - y
-        return least_squares(resid, x0, bounds=(lower, upper), x_scale="jac", method="trf", max_nfev=400)
+            return x[-1] + x[0] * sup.response(lambda s: shape(s, *x[1:-1])) - yn
+        try:
+            return least_squares(resid, x0, bounds=(lower, upper), x_scale="jac", method="trf", max_nfev=400)
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError) as exc:
+            raise ModelError(f"{record.source or 'record'}: the least-squares fit failed ({exc})") from None
 
     big = 100.0 * span
-    kmag = max(abs(start.gain) * 100.0, 1e-300)
+    kmag = max(abs(start_n.gain) * 100.0, 1e-6)
     tau_min = dt_min * 1e-3
     if model == "fopdt":
         names = ("gain", "time_constant_s", "dead_time_s", "baseline")
-        x0 = np.array([start.gain, max(start.time_constant_s, tau_min * 10), start.dead_time_s, y0])
+        x0 = np.array([start_n.gain, max(start.time_constant_s, tau_min * 10), start.dead_time_s, 0.0])
         lower = [-kmag, tau_min, min_dead_time_s, -np.inf]
         upper = [kmag, big, span, np.inf]
         x0 = np.clip(x0, np.array(lower) + 1e-12, np.array(upper) - 1e-12)
-        res = run(x0, lower, upper, _unit_step_fopdt, names)
-        se, rms = _fit_stats(res, names)
+        res = run(x0, lower, upper, _unit_step_fopdt)
+        se, rms, factor = _fit_stats(res, names)
         k, tau, theta, base = res.x
-        fitted = FopdtModel(float(k), float(tau), float(theta))
+        fitted = FopdtModel(float(k * y_scale / u_scale), float(tau), float(theta))
     else:
         names = ("gain", "time_constant_s", "time_constant2_s", "dead_time_s", "baseline")
         lower = [-kmag, tau_min, 0.0, min_dead_time_s, -np.inf]
@@ -290,28 +354,34 @@ def fit_step(record: LoopRecord, model: str = "fopdt", min_dead_time_s: float = 
         best = None
         for frac in (0.05, 0.2, 0.4, 0.7):
             tau2 = frac * start.time_constant_s
-            x0 = np.array([start.gain, max(start.time_constant_s - tau2 / 2, tau_min * 10), tau2,
-                           max(start.dead_time_s - tau2 / 2, min_dead_time_s), y0])
+            x0 = np.array([start_n.gain, max(start.time_constant_s - tau2 / 2, tau_min * 10), tau2,
+                           max(start.dead_time_s - tau2 / 2, min_dead_time_s), 0.0])
             x0 = np.clip(x0, np.array(lower) + 1e-12, np.array(upper) - 1e-12)
-            res = run(x0, lower, upper, _unit_step_sopdt, names)
+            res = run(x0, lower, upper, _unit_step_sopdt)
             if best is None or res.cost < best.cost:
                 best = res
         res = best
-        se, rms = _fit_stats(res, names)
+        se, rms, factor = _fit_stats(res, names)
         k, t1, t2, theta, base = res.x
         if t2 > t1:
             t1, t2 = t2, t1
             se["time_constant_s"], se["time_constant2_s"] = se["time_constant2_s"], se["time_constant_s"]
-        fitted = SopdtModel(float(k), float(t1), float(t2), float(theta))
+        fitted = SopdtModel(float(k * y_scale / u_scale), float(t1), float(t2), float(theta))
     se.pop("baseline", None)
-    var = float(np.var(y))
+    se["gain"] *= y_scale / u_scale
+    rms *= y_scale
+    var = float(np.var(yn)) * y_scale ** 2
     r2 = 1.0 - rms ** 2 / var if var > 0 else 1.0
+    values = [*(getattr(fitted, f) for f in fitted.__dataclass_fields__), *se.values(), rms]
+    if not all(np.isfinite(v) for v in values):
+        raise ModelError(f"{record.source or 'record'}: the fit gave non-finite values; the record cannot be fitted")
     if not res.success:
         warnings.append(f"least squares did not converge: {res.message}")
     if r2 < 0.9:
         warnings.append(f"the model explains only {r2:.0%} of the output variance; the record may not be a "
                         "clean step test")
-    return StepFit(fitted, start, se, float(base), float(t0), u_step, rms, r2, tuple(warnings))
+    return StepFit(fitted, start, se, float(y0 + base * y_scale), float(t0), u_step, rms, r2, tuple(warnings),
+                   factor)
 
 
 def model_response(model, record: LoopRecord, baseline: float):
@@ -365,6 +435,9 @@ def relay_experiment(record: LoopRecord, hysteresis: float = 0.0, skip_cycles: i
     if hysteresis < 0:
         raise ModelError("hysteresis must be >= 0")
     t, u, y = record.time_s, record.input, record.output
+    if not (np.all(np.isfinite(y)) and np.all(np.isfinite(u))):
+        raise ModelError(f"{record.source or 'record'}: the relay record gives no finite ultimate gain and period "
+                         "(non-finite samples)")
     u_hi, u_lo = float(np.max(u)), float(np.min(u))
     if u_hi == u_lo:
         raise ModelError(f"{record.source or 'record'}: the input never changes; not a relay experiment")
@@ -397,7 +470,23 @@ def relay_experiment(record: LoopRecord, hysteresis: float = 0.0, skip_cycles: i
     dt = float(np.median(np.diff(t)))
     if dt > pu / 20:
         warnings.append(f"only {pu / dt:.0f} samples per cycle; the period and amplitude are coarse")
-    return RelayResult(float(ku), pu, d, a, float(hysteresis), int(periods.size), p_std, a_std, tuple(warnings))
+    # The fundamental of the output over the whole cycles used (one Fourier coefficient).
+    a0, b0 = idx[0], idx[-1]
+    seg_t, seg_y = t[a0:b0], y[a0:b0]
+    w = np.gradient(seg_t)
+    a1 = float(np.abs(2.0 * np.sum(w * (seg_y - np.average(seg_y, weights=w)) *
+                                   np.exp(-2j * np.pi * seg_t / pu)) / np.sum(w)))
+    ku1 = 4.0 * d / (np.pi * np.sqrt(max(a1 * a1 - hysteresis * hysteresis, 0.0))) if a1 > hysteresis else np.nan
+    # Sign: a direct-acting process makes the relay switch up while the output falls (u = d sign(r - y)).
+    slope = float(np.mean(y[np.minimum(rising, y.size - 1)] - y[rising - 1]))
+    sign = -1 if slope > 0 else 1
+    df_err = float(100.0 * abs(ku - ku1) / ku1) if np.isfinite(ku1) and ku1 > 0 else float("nan")
+    values = (ku, pu, a, p_std, a_std)
+    if not all(np.isfinite(v) for v in values) or ku <= 0 or pu <= 0:
+        raise ModelError(f"{record.source or 'record'}: the relay record gives no finite ultimate gain and period "
+                         f"(Ku {ku!r}, Pu {pu!r})")
+    return RelayResult(float(ku), pu, d, a, float(hysteresis), int(periods.size), p_std, a_std, tuple(warnings),
+                       sign, float(ku1), df_err)
 
 
 # ---------------------------------------------------------------- model reduction

@@ -45,18 +45,24 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from compensator.errors import ModelError
-from compensator.loops.plants import FopdtModel, Plant, SopdtModel, discrete_frequency_response
+from compensator.loops.choices import DEFAULT_MS, METHODS
+from compensator.loops.plants import FopdtModel, Plant, SopdtModel
+from compensator.loops.sampled import discrete_frequency_response
 from compensator.loops.verify import (
     PidGains,
+    closed_loop_stable,
     controller_frequency_response,
-    _closed_loop,
     frequency_grid,
+    loop_frequency_grid,
     max_sensitivity,
     ultimate_point,
 )
 
-METHODS = ("simc", "amigo", "imc", "zn", "zn-cycle", "robust")
-DEFAULT_MS = 1.4
+__all__ = [
+    "METHODS", "DEFAULT_MS", "TuningResult", "sampling_dead_time_s", "simc", "amigo", "imc",
+    "ziegler_nichols_step", "ziegler_nichols_ultimate", "ms_point_ultimate", "fopdt_from_ultimate", "robust",
+    "tune",
+]
 
 
 @dataclass(frozen=True)
@@ -91,6 +97,16 @@ class TuningResult:
     ms_target: float | None = None
 
 
+#: Largest Ms bound accepted: above it the bound no longer restrains the loop (common practice: 1.2 to 2).
+MAX_MS = 10.0
+
+
+def _check_ms(ms_max):
+    if not (np.isfinite(ms_max) and 1.0 < ms_max <= MAX_MS):
+        raise ModelError(f"must exceed 1 and be at most {MAX_MS:g} (1.4 is robust, 2 aggressive; a larger bound no "
+                         f"longer restrains the loop), got {ms_max:g}", key="ms_max")
+
+
 def sampling_dead_time_s(sample_time_s: float, computation_delay_samples: int = 1) -> float:
     """Dead time a ZOH plus computation delay add: ``T / 2 + n T`` (common practice), second."""
     return sample_time_s * (0.5 + computation_delay_samples)
@@ -111,7 +127,7 @@ def _check_model(model):
         raise ModelError("the model time constant must be positive")
 
 
-def simc(model, pid: bool = False, tau_c_s: float | None = None) -> tuple[PidGains, float]:
+def simc(model, *, pid: bool = False, tau_c_s: float | None = None) -> tuple[PidGains, float]:
     """SIMC gains (Skogestad, J. Process Control 13, 291, 2003).
 
     Parameters
@@ -146,7 +162,7 @@ def simc(model, pid: bool = False, tau_c_s: float | None = None) -> tuple[PidGai
     return PidGains(kc, kc / ti), tc
 
 
-def amigo(model, pid: bool = False) -> PidGains:
+def amigo(model, *, pid: bool = False) -> PidGains:
     """AMIGO gains (Astrom and Hagglund, J. Process Control 14, 635, 2004).
 
     Parameters
@@ -174,7 +190,7 @@ def amigo(model, pid: bool = False) -> PidGains:
     return PidGains(k, k / ti)
 
 
-def imc(model, pid: bool = False, lambda_s: float | None = None) -> tuple[PidGains, float]:
+def imc(model, *, pid: bool = False, lambda_s: float | None = None) -> tuple[PidGains, float]:
     """IMC gains for a FOPDT (Rivera, Morari and Skogestad 1986, from memory).
 
     Parameters
@@ -205,7 +221,7 @@ def imc(model, pid: bool = False, lambda_s: float | None = None) -> tuple[PidGai
     return PidGains(kc, kc / ti), lam
 
 
-def ziegler_nichols_step(model, pid: bool = False) -> PidGains:
+def ziegler_nichols_step(model, *, pid: bool = False) -> PidGains:
     """Ziegler-Nichols step-response rule (Trans. ASME 64, 759, 1942) with ``a = K theta / tau``."""
     _check_model(model)
     f = _as_fopdt(model)
@@ -220,7 +236,7 @@ def ziegler_nichols_step(model, pid: bool = False) -> PidGains:
     return PidGains(k, k / (3.0 * L))
 
 
-def ziegler_nichols_ultimate(ultimate_gain: float, ultimate_period_s: float, pid: bool = False) -> PidGains:
+def ziegler_nichols_ultimate(ultimate_gain: float, ultimate_period_s: float, *, pid: bool = False) -> PidGains:
     """Ziegler-Nichols ultimate-cycle rule (1942): PI 0.45 Ku, Pu/1.2; PID 0.6 Ku, Pu/2, Pu/8.
 
     Parameters
@@ -242,6 +258,86 @@ def ziegler_nichols_ultimate(ultimate_gain: float, ultimate_period_s: float, pid
         return PidGains(k, k / (ultimate_period_s / 2.0), k * ultimate_period_s / 8.0)
     k = 0.45 * ultimate_gain
     return PidGains(k, k / (ultimate_period_s / 1.2))
+
+
+def ms_point_ultimate(ultimate_gain: float, ultimate_period_s: float, ms_max: float = DEFAULT_MS) -> PidGains:
+    """A PI from Ku and Pu alone that puts the loop's ultimate point on the Ms circle.
+
+    The Ziegler-Nichols PI (``Ti = Pu / 1.2``) keeps its integral time; its
+    gain is lowered so that the loop at the ultimate frequency,
+    ``L = -(kp / Ku) (1 - j / (omega_u Ti))``, lies on ``|1 + L| = 1 / Ms``
+    (moving one point of the Nyquist curve, as the modified Ziegler-Nichols
+    method does; Astrom and Hagglund, PID Controllers, 1995, from memory).
+    With ``r = 1 / (omega_u Ti)`` and ``x = kp / Ku``,
+    ``(1 + r^2) x^2 - 2 x + 1 - 1 / Ms^2 = 0``, smaller root. One point only:
+    the bound holds at the ultimate frequency, not necessarily elsewhere;
+    verify on a model.
+
+    Parameters
+    ----------
+    ultimate_gain : float
+        Ku, signed like the plant gain.
+    ultimate_period_s : float
+        Pu, second.
+    ms_max : float
+        Ms bound (> 1).
+
+    Returns
+    -------
+    PidGains
+    """
+    if not (np.isfinite(ultimate_gain) and ultimate_gain != 0 and np.isfinite(ultimate_period_s)
+            and ultimate_period_s > 0):
+        raise ModelError("the ultimate gain must be finite and nonzero and the ultimate period positive")
+    _check_ms(ms_max)
+    ti = ultimate_period_s / 1.2
+    r = ultimate_period_s / (2.0 * math.pi * ti)
+    q = 1.0 + r * r
+    x = (1.0 - math.sqrt(1.0 - q * (1.0 - 1.0 / ms_max ** 2))) / q
+    kp = x * ultimate_gain
+    return PidGains(kp, kp / ti)
+
+
+def fopdt_from_ultimate(static_gain: float, ultimate_gain: float, ultimate_period_s: float) -> FopdtModel:
+    """The FOPDT ``K exp(-theta s) / (tau s + 1)`` whose ultimate point is (Ku, Pu).
+
+    At ``omega_u = 2 pi / Pu`` the FOPDT has ``|G| = 1 / |Ku|`` and phase
+    -180 degrees: ``K Ku = sqrt(1 + (omega_u tau)^2)`` and
+    ``omega_u theta + atan(omega_u tau) = pi``.
+
+    Parameters
+    ----------
+    static_gain : float
+        K, output units per input unit.
+    ultimate_gain : float
+        Ku, input units per output unit, same sign as K.
+    ultimate_period_s : float
+        Pu, second.
+
+    Returns
+    -------
+    FopdtModel
+
+    Raises
+    ------
+    ModelError
+        The signs differ, or ``|K Ku| <= 1`` (no FOPDT reaches -180 degrees with that gain).
+    """
+    for key, value in (("static_gain", static_gain), ("ultimate_gain", ultimate_gain),
+                       ("ultimate_period_s", ultimate_period_s)):
+        if not np.isfinite(value) or value == 0:
+            raise ModelError(f"must be finite and nonzero, got {value!r}", key=key)
+    if ultimate_period_s <= 0:
+        raise ModelError(f"must be positive, got {ultimate_period_s!r}", key="ultimate_period_s")
+    kk = static_gain * ultimate_gain
+    if kk <= 1.0:
+        raise ModelError(f"K Ku = {kk:.4g} must exceed 1 (same sign, and a loop gain that needs more than K to "
+                         "oscillate); check the signs and units of the static and ultimate gains",
+                         key="static_gain")
+    wu = 2.0 * math.pi / ultimate_period_s
+    tau = math.sqrt(kk * kk - 1.0) / wu
+    theta = (math.pi - math.atan(wu * tau)) / wu
+    return FopdtModel(float(static_gain), tau, theta)
 
 
 # ---------------------------------------------------------------- robust optimiser
@@ -283,12 +379,7 @@ def _max_ki(p_resp, w, T, kp, kd, n, sign, ms_max, ki_hi):
     return np.where(ok_lo, np.exp(lo), 0.0)
 
 
-def _stable(plant, gains, T, delay):
-    a_cl = _closed_loop(plant, gains, T, delay)[0]
-    return float(np.max(np.abs(np.linalg.eigvals(a_cl)))) < 1.0
-
-
-def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: bool = False,
+def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, *, pid: bool = False,
            computation_delay_samples: int = 1, derivative_filter_n: float = 10.0,
            reference: PidGains | None = None, also_plants=()) -> PidGains:
     """Gains that maximise the integral gain subject to ``Ms <= ms_max`` on the discretised loop.
@@ -319,14 +410,13 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
     -------
     PidGains
     """
-    if not ms_max > 1.0:
-        raise ModelError(f"the Ms bound must exceed 1, got {ms_max}")
+    _check_ms(ms_max)
     T = float(sample_time_s)
     sign = 1.0 if plant.dc_gain >= 0 else -1.0
     every = (plant, *also_plants)
     if any((p.dc_gain >= 0) != (sign > 0) for p in every):
         raise ModelError("the plants disagree in the sign of their gain: no single controller suits them all")
-    w = np.append(frequency_grid(T, 700, 6.0), math.pi / T)  # include Nyquist, where sampled loops often cross
+    w = np.append(loop_frequency_grid(plant, T, 700, 6.0), math.pi / T)  # include Nyquist, where sampled loops often cross
     p_resp = np.array([discrete_frequency_response(p, T, w, computation_delay_samples) for p in every])
     # The grid of proportional gains spans up to the smallest ultimate gain.
     kp_grid_max = min(abs(ultimate_point(p, T, computation_delay_samples)[0]) for p in every)
@@ -372,13 +462,13 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
         cand = None
         for j in np.argsort(kif, axis=None)[::-1][:5]:
             trial = PidGains(float(kpf.flat[j]), float(sign * kif.flat[j]), float(kdf.flat[j]), derivative_filter_n)
-            if kif.flat[j] > 0 and all(_stable(p, trial, T, computation_delay_samples) for p in every):
+            if kif.flat[j] > 0 and all(closed_loop_stable(p, trial, T, computation_delay_samples=computation_delay_samples) for p in every):
                 cand = trial
                 break
         if cand is None:
             continue
         # Confirm on the dense grid; shrink ki until the bound holds there too.
-        dense = frequency_grid(T, 20000, 7.0)
+        dense = loop_frequency_grid(plant, T, 20000, 7.0)
         for _ in range(60):
             ms = max(max_sensitivity(p, cand, T, computation_delay_samples, dense)[0] for p in every)
             if ms <= ms_max * (1 + 1e-6):
@@ -390,7 +480,7 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, pid: 
 
 
 # ---------------------------------------------------------------- one entry point
-def tune(plant: Plant, method: str, sample_time_s: float, pid: bool = False, ms_max: float = DEFAULT_MS,
+def tune(plant: Plant, method: str, sample_time_s: float, *, pid: bool = False, ms_max: float = DEFAULT_MS,
          tau_c_s: float | None = None, model=None, include_sampling_delay: bool = True,
          computation_delay_samples: int = 1, also_plants=()) -> TuningResult:
     """Tune a PI or PID controller for ``plant`` with one method.
@@ -423,16 +513,19 @@ def tune(plant: Plant, method: str, sample_time_s: float, pid: bool = False, ms_
     """
     if method not in METHODS:
         raise ModelError(f"method must be one of {', '.join(METHODS)}, got {method!r}")
+    if method == "robust":
+        _check_ms(ms_max)
     T = float(sample_time_s)
     if not T > 0:
         raise ModelError("the sample time must be positive")
     extra = sampling_dead_time_s(T, computation_delay_samples) if include_sampling_delay else 0.0
     if method == "robust":
-        gains = robust(plant, T, ms_max, pid, computation_delay_samples, also_plants=also_plants)
+        gains = robust(plant, T, ms_max, pid=pid, computation_delay_samples=computation_delay_samples,
+                       also_plants=also_plants)
         return TuningResult(gains, method, pid, model, extra, ms_target=ms_max)
     if method == "zn-cycle":
         ku, pu = ultimate_point(plant, T if include_sampling_delay else None, computation_delay_samples)
-        return TuningResult(ziegler_nichols_ultimate(ku, pu, pid), method, pid, model, extra,
+        return TuningResult(ziegler_nichols_ultimate(ku, pu, pid=pid), method, pid, model, extra,
                             ultimate_gain=ku, ultimate_period_s=pu)
     if model is None:
         from compensator.loops.identify import approximate_plant
@@ -441,11 +534,11 @@ def tune(plant: Plant, method: str, sample_time_s: float, pid: bool = False, ms_
     rule_model = _with_dead_time(model, extra)
     tc = None
     if method == "simc":
-        gains, tc = simc(rule_model, pid, tau_c_s)
+        gains, tc = simc(rule_model, pid=pid, tau_c_s=tau_c_s)
     elif method == "amigo":
-        gains = amigo(rule_model, pid)
+        gains = amigo(rule_model, pid=pid)
     elif method == "imc":
-        gains, tc = imc(rule_model, pid, tau_c_s)
+        gains, tc = imc(rule_model, pid=pid, lambda_s=tau_c_s)
     else:
-        gains = ziegler_nichols_step(rule_model, pid)
+        gains = ziegler_nichols_step(rule_model, pid=pid)
     return TuningResult(gains, method, pid, model, rule_model.dead_time_s, tc)

@@ -28,14 +28,24 @@ import control
 import numpy as np
 
 from compensator.errors import ModelError
-from compensator.loops.plants import (
-    CoolerOperatingPoint,
-    Plant,
+from compensator.findings import Finding, Severity
+from compensator.loops.plants import Plant
+from compensator.loops.sampled import (
+    analysis_plant,
     continuous_frequency_response,
+    discrete_frequency_evaluator,
     discrete_frequency_response,
-    discrete_response_function,
     discretise,
+    state_space_arrays,
 )
+
+__all__ = [
+    "POOR_GAIN_MARGIN", "POOR_PHASE_MARGIN_DEG", "POOR_MS", "PidGains", "Margins", "StepData", "LoopReport",
+    "LoopFigures", "controller_tf", "controller_frequency_response", "frequency_grid", "loop_frequency_grid",
+    "max_sensitivity", "ultimate_point", "loop_figures", "verify_loop", "closed_loop_stable",
+    # older names, kept for their import paths (now in compensator.loops.cooler)
+    "AmbientCheck", "check_cooler_ambient_range", "cooler_operating_warnings", "cooler_warnings",
+]
 
 # Common practice: Ms 1.4 is robust, 2.0 aggressive; GM >= 2 and PM >= 30 degrees are the usual minimums.
 POOR_GAIN_MARGIN = 2.0
@@ -116,8 +126,9 @@ class StepData:
         10-90 % rise, 2 % settling, time of the peak, second.
     overshoot_pct : float
         Percent of the final value.
-    peak_actuator : float
-        Largest actuator excursion per unit setpoint step.
+    peak_actuator_per_setpoint_unit : float
+        Largest actuator excursion per unit setpoint step: actuator units
+        (ampere, DAC code ...) per output unit (kelvin, volt ...).
     load_iae : float
         Integrated absolute error after a unit step load at the plant input
         (output units times second).
@@ -127,8 +138,13 @@ class StepData:
     settling_time_s: float
     overshoot_pct: float
     peak_time_s: float
-    peak_actuator: float
+    peak_actuator_per_setpoint_unit: float
     load_iae: float
+
+    @property
+    def peak_actuator(self) -> float:
+        """Older name of :attr:`peak_actuator_per_setpoint_unit`."""
+        return self.peak_actuator_per_setpoint_unit
 
 
 @dataclass(frozen=True)
@@ -144,7 +160,14 @@ class LoopReport:
     spectral_radius : float
         Largest closed-loop pole magnitude.
     sample_time_s : float
-    warnings : tuple of str
+        Firmware period, second.
+    findings : tuple of Finding
+        Instability, poor margins, Ms above the bound, unsettled step,
+        cooler gain reversal, an approximated delay.
+    analysis_period_s : float
+        Period of the time-domain analysis (poles, step): the firmware
+        period, or a multiple of it when the dead time is long (see
+        :func:`compensator.loops.sampled.analysis_plant`).
     time_s, output, actuator : ndarray
         The setpoint step response (for plots).
     """
@@ -154,10 +177,16 @@ class LoopReport:
     stable: bool
     spectral_radius: float
     sample_time_s: float
-    warnings: tuple = field(default_factory=tuple)
+    findings: tuple = field(default_factory=tuple)
+    analysis_period_s: float = float("nan")
     time_s: np.ndarray = field(default=None, repr=False, compare=False)
     output: np.ndarray = field(default=None, repr=False, compare=False)
     actuator: np.ndarray = field(default=None, repr=False, compare=False)
+
+    @property
+    def warnings(self) -> tuple:
+        """The findings' messages (older interface), in order."""
+        return tuple(f.message for f in self.findings)
 
 
 # ---------------------------------------------------------------- controller
@@ -260,6 +289,40 @@ def frequency_grid(sample_time_s: float, points: int = 4000, decades: float = 6.
     return np.logspace(math.log10(nyq) - decades, math.log10(nyq * 0.9999), points)
 
 
+def loop_frequency_grid(plant: Plant, sample_time_s: float, points: int = 6000, decades: float = 7.0):
+    """Like :func:`frequency_grid`, extended downwards to cover the plant's slowest dynamics.
+
+    The grid reaches at least a hundredth of ``1 / (dead time + time constants)``
+    so that slow plants sampled fast keep their crossover on the grid; the
+    density per decade stays that of ``points`` over ``decades``.
+
+    Parameters
+    ----------
+    plant : Plant
+    sample_time_s : float
+        Period T, second.
+    points : int
+        Points over ``decades`` decades.
+    decades : float
+        Least span below the Nyquist frequency.
+
+    Returns
+    -------
+    ndarray
+        Angular frequencies, rad/s.
+    """
+    a = state_space_arrays(plant.system)[0]
+    poles = np.linalg.eigvals(a) if a.size else np.array([])
+    slow = plant.dead_time_s + float(np.sum(1.0 / np.abs(poles[np.abs(poles) > 0]))) if poles.size else \
+        plant.dead_time_s
+    nyq = math.pi / sample_time_s
+    span = decades
+    if slow > 0:
+        span = max(decades, math.log10(nyq * slow / 0.01))
+    span = min(span, 3.0 * decades)
+    return frequency_grid(sample_time_s, int(points * span / decades), span)
+
+
 def max_sensitivity(plant: Plant, gains: PidGains, sample_time_s: float, computation_delay_samples: int = 1,
                     omega_rad_s=None):
     """Ms = 1 / min |1 + L| over a dense grid, and the frequency of the peak.
@@ -271,14 +334,14 @@ def max_sensitivity(plant: Plant, gains: PidGains, sample_time_s: float, computa
     sample_time_s : float
     computation_delay_samples : int
     omega_rad_s : array_like, optional
-        Grid (default: :func:`frequency_grid` with 4000 points).
+        Grid (default: :func:`loop_frequency_grid` with 4000 points per 6 decades).
 
     Returns
     -------
     ms : float
     omega_peak_rad_s : float
     """
-    w = frequency_grid(sample_time_s) if omega_rad_s is None else np.asarray(omega_rad_s, dtype=float)
+    w = loop_frequency_grid(plant, sample_time_s, 4000, 6.0) if omega_rad_s is None else np.asarray(omega_rad_s, dtype=float)
     p = discrete_frequency_response(plant, sample_time_s, w, computation_delay_samples)
     dist = np.abs(1.0 + controller_frequency_response(gains, sample_time_s, w) * p)
     k = int(np.argmin(dist))
@@ -315,7 +378,7 @@ def ultimate_point(plant: Plant, sample_time_s: float | None = None, computation
         w = np.logspace(math.log10(hi) - 8, math.log10(hi), 20000)
     else:
         w = frequency_grid(sample_time_s, 20000, 8.0)
-        raw = discrete_response_function(plant, sample_time_s, computation_delay_samples)
+        raw = discrete_frequency_evaluator(plant, sample_time_s, computation_delay_samples)
 
         def resp(w):
             return sign * raw(w)
@@ -379,10 +442,11 @@ def _closed_loop(plant: Plant, gains: PidGains, T: float, delay: int):
     """State space of the sampled loop: inputs (setpoint, load at the plant input), outputs (output, actuator).
 
     ``u = Cr r - C y``, ``y = P (u + load)``; the plant part must be strictly
-    proper (it is with one sample of computation delay).
+    proper (it is with one sample of computation delay). The delay line is
+    as long as the dead time asks: use :func:`_bounded_closed_loop` for analysis.
     """
     P = discretise(plant, T, delay)
-    ap, bp, cp, dp = (np.atleast_2d(np.asarray(m, float)) for m in (P.A, P.B, P.C, P.D))
+    ap, bp, cp, dp = state_space_arrays(P)
     if np.any(dp != 0):
         raise ModelError("the sampled plant has direct feedthrough: use at least one sample of computation delay")
     ak, bkr, bky, ck, dkr, dky = _controller_realisation(gains, T)
@@ -404,7 +468,141 @@ def _closed_loop(plant: Plant, gains: PidGains, T: float, delay: int):
     return a, b, c, d
 
 
-def verify_loop(plant: Plant, gains: PidGains, sample_time_s: float, computation_delay_samples: int = 1,
+def _bounded_closed_loop(plant: Plant, gains: PidGains, T: float, delay: int):
+    """:func:`_closed_loop` with the delay line bounded (see :func:`compensator.loops.sampled.analysis_plant`).
+
+    Returns the four matrices and the analysis period, second.
+    """
+    p, ta = analysis_plant(plant, T, delay)
+    return (*_closed_loop(p, gains, ta, delay), ta)
+
+
+def closed_loop_stable(plant: Plant, gains: PidGains, sample_time_s: float, *,
+                       computation_delay_samples: int = 1) -> bool:
+    """Whether every closed-loop pole of the sampled loop lies inside the unit circle.
+
+    Parameters
+    ----------
+    plant : Plant
+    gains : PidGains
+    sample_time_s : float
+        Firmware period, second.
+    computation_delay_samples : int
+
+    Returns
+    -------
+    bool
+    """
+    a_cl = _bounded_closed_loop(plant, gains, sample_time_s, computation_delay_samples)[0]
+    return bool(np.max(np.abs(np.linalg.eigvals(a_cl))) < 1.0)
+
+
+@dataclass(frozen=True, kw_only=True)
+class LoopFigures:
+    """The robustness figures of one loop, without the time response.
+
+    Attributes
+    ----------
+    stable : bool
+        All closed-loop poles inside the unit circle.
+    spectral_radius : float
+        Largest closed-loop pole magnitude.
+    margins : Margins
+    analysis_period_s : float
+        Period the poles were computed at, second.
+    """
+
+    stable: bool
+    spectral_radius: float
+    margins: Margins
+    analysis_period_s: float
+
+    @property
+    def ms(self) -> float:
+        """Maximum sensitivity."""
+        return self.margins.ms
+
+    @property
+    def gain_margin(self) -> float:
+        """Gain margin, factor."""
+        return self.margins.gain_margin
+
+    @property
+    def phase_margin_deg(self) -> float:
+        """Phase margin, degree."""
+        return self.margins.phase_margin_deg
+
+
+def _finite_or(value, default):
+    return float(value) if value is not None and np.isfinite(value) else default
+
+
+#: Loop gains below this are not searched for phase crossovers (gain margins above 1/0.01 = 100 count as inf).
+_GM_FLOOR = 0.01
+
+
+def _margins(plant, gains, T, delay):
+    w = loop_frequency_grid(plant, T, 6000, 7.0)
+    loop = controller_frequency_response(gains, T, w) * discrete_frequency_response(plant, T, w, delay)
+    dist = np.abs(1.0 + loop)
+    k = int(np.argmin(dist))
+    ms, w_ms = float(1.0 / dist[k]), float(w[k])
+    # python-control computes the margins from our exact frequency response of the sampled loop (its
+    # polynomial method loses accuracy on high-order or stiff sampled loops).
+    # Beyond the last frequency where |L| >= 0.01 a phase crossover would mean a gain margin above 100; a long
+    # dead time wraps the phase there thousands of times, so those frequencies are left out (such margins are
+    # reported as inf).
+    big = np.flatnonzero(np.abs(loop) >= _GM_FLOOR)
+    stop = min(int(big[-1]) + 4, loop.size) if big.size else 0
+    coarse = slice(None, stop, 3)
+    phase_deg = np.degrees(np.unwrap(np.angle(loop[coarse])))
+    with warnings_module.catch_warnings():
+        warnings_module.simplefilter("ignore")
+        if stop > 6:
+            gm, pm, _sm, wpc, wgc, _wms = control.stability_margins((np.abs(loop[coarse]), phase_deg, w[coarse]))
+        else:
+            gm = pm = wpc = wgc = None
+    inf, nan = float("inf"), float("nan")
+    gm, pm, wgc, wpc = _finite_or(gm, inf), _finite_or(pm, inf), _finite_or(wgc, nan), _finite_or(wpc, nan)
+    delay_margin = math.radians(pm) / wgc if np.isfinite(pm) and np.isfinite(wgc) and wgc > 0 else inf
+    return Margins(gm, pm, ms, wgc, wpc, w_ms, delay_margin)
+
+
+def loop_figures(plant: Plant, gains: PidGains, sample_time_s: float, *,
+                 computation_delay_samples: int = 1) -> LoopFigures:
+    """Stability, margins and Ms of the sampled loop (no step response: see :func:`verify_loop`).
+
+    Parameters
+    ----------
+    plant : Plant
+    gains : PidGains
+    sample_time_s : float
+        Firmware period, second.
+    computation_delay_samples : int
+
+    Returns
+    -------
+    LoopFigures
+    """
+    T = float(sample_time_s)
+    a_cl, *_, ta = _bounded_closed_loop(plant, gains, T, computation_delay_samples)
+    radius = float(np.max(np.abs(np.linalg.eigvals(a_cl))))
+    return LoopFigures(stable=radius < 1.0, spectral_radius=radius,
+                       margins=_margins(plant, gains, T, computation_delay_samples), analysis_period_s=ta)
+
+
+def _simulate(a, b, c, d, n):
+    """Outputs of ``x+ = A x + B u``, ``y = C x + D u`` for a unit step on each input (the state count is bounded)."""
+    a_op = np.ascontiguousarray(a)
+    x = np.zeros((a.shape[0], b.shape[1]))
+    out = np.empty((n, c.shape[0], b.shape[1]))
+    for k in range(n):
+        out[k] = c @ x + d
+        x = a_op @ x + b
+    return out
+
+
+def verify_loop(plant: Plant, gains: PidGains, sample_time_s: float, *, computation_delay_samples: int = 1,
                 ms_limit: float | None = None, horizon_s: float | None = None) -> LoopReport:
     """Margins, Ms and closed-loop step data of the discretised loop.
 
@@ -418,57 +616,53 @@ def verify_loop(plant: Plant, gains: PidGains, sample_time_s: float, computation
     computation_delay_samples : int
         Samples between reading the input and applying the output (1).
     ms_limit : float, optional
-        Requested Ms bound: exceeding it is warned about.
+        Requested Ms bound: exceeding it is a finding.
     horizon_s : float, optional
-        Length of the simulated step (default: 12 slowest closed-loop time constants).
+        Length of the simulated step (default: 10 slowest closed-loop time constants).
 
     Returns
     -------
     LoopReport
+
+    Examples
+    --------
+    >>> from compensator.loops.plants import fopdt_plant
+    >>> report = verify_loop(fopdt_plant(2.0, 30.0, 5.0), PidGains(1.4, 0.05), 0.1)
+    >>> report.stable, round(report.margins.ms, 2)
+    (True, 1.57)
     """
     T = float(sample_time_s)
+    if not (np.isfinite(T) and T > 0):
+        raise ModelError(f"must be positive and finite, got {sample_time_s!r}", key="sample_time_s")
+    for key in ("kp", "ki_per_s", "kd_s"):
+        if not np.isfinite(getattr(gains, key)):
+            raise ModelError(f"must be finite, got {getattr(gains, key)!r}", key=key)
     if computation_delay_samples < 1 and np.any(np.asarray(plant.system.D) != 0):
         raise ModelError("a plant with direct feedthrough needs at least one sample of computation delay")
-    warnings = []
-    a_cl, b_cl, c_cl, d_cl = _closed_loop(plant, gains, T, computation_delay_samples)
+    findings = []
+    a_cl, b_cl, c_cl, d_cl, ta = _bounded_closed_loop(plant, gains, T, computation_delay_samples)
+    if ta != T:
+        findings.append(Finding(code="delay_approximated", severity=Severity.INFO, message=(
+            f"the dead time of {plant.dead_time_s:g} s is {plant.dead_time_s / T:.0f} samples at {1 / T:g} Hz: the "
+            f"closed-loop poles and step response are computed at a {ta:g} s analysis period (dead time shortened to "
+            f"keep the loop's phase; about 0.15 degree at crossover); margins and Ms are exact at the firmware rate")))
     poles = np.linalg.eigvals(a_cl)
     radius = float(np.max(np.abs(poles)))
     stable = radius < 1.0
+    margins = _margins(plant, gains, T, computation_delay_samples)
+    gm, pm, ms = margins.gain_margin, margins.phase_margin_deg, margins.ms
 
-    w = frequency_grid(T, 6000, 7.0)
-    loop = controller_frequency_response(gains, T, w) * discrete_frequency_response(
-        plant, T, w, computation_delay_samples)
-    dist = np.abs(1.0 + loop)
-    k = int(np.argmin(dist))
-    ms, w_ms = float(1.0 / dist[k]), float(w[k])
-    # python-control computes the margins from our exact frequency response of the sampled loop (its
-    # polynomial method loses accuracy on high-order or stiff sampled loops).
-    coarse = slice(None, None, 3)
-    phase_deg = np.degrees(np.unwrap(np.angle(loop[coarse])))
-    with warnings_module.catch_warnings():
-        warnings_module.simplefilter("ignore")
-        gm, pm, _sm, wpc, wgc, _wms = control.stability_margins((np.abs(loop[coarse]), phase_deg, w[coarse]))
-    gm = float(gm) if gm is not None and np.isfinite(gm) else float("inf")
-    pm = float(pm) if pm is not None and np.isfinite(pm) else float("inf")
-    wgc = float(wgc) if wgc is not None and np.isfinite(wgc) else float("nan")
-    wpc = float(wpc) if wpc is not None and np.isfinite(wpc) else float("nan")
-    delay_margin = math.radians(pm) / wgc if np.isfinite(pm) and np.isfinite(wgc) and wgc > 0 else float("inf")
-    margins = Margins(gm, pm, ms, wgc, wpc, w_ms, delay_margin)
-
-    n = int(round(horizon_s / T)) + 1 if horizon_s else _settle_horizon(poles, T)
+    n = int(round(horizon_s / ta)) + 1 if horizon_s else _settle_horizon(poles, ta)
     if not stable:
         n = min(n, 400)
-    t = np.arange(n) * T
-    # Two copies of the closed loop: one driven by the setpoint, one by a load at the plant input.
-    sys_r = control.ss(a_cl, b_cl[:, [0]], c_cl, d_cl[:, [0]], T)
-    sys_d = control.ss(a_cl, b_cl[:, [1]], c_cl, d_cl[:, [1]], T)
-    resp = control.forced_response(control.append(sys_r, sys_d), t, np.ones((2, n))).outputs
-    y, u, y_load = resp[0], resp[1], resp[2]
+    t = np.arange(n) * ta
+    resp = _simulate(a_cl, b_cl, c_cl, d_cl, n)  # (time, [output, actuator], [setpoint, load])
+    y, u, y_load = resp[:, 0, 0], resp[:, 1, 0], resp[:, 0, 1]
+    nan = float("nan")
     if stable:
         dc = plant.dc_gain
         b = gains.setpoint_weight
         yfinal = 1.0 if gains.ki_per_s != 0 else dc * b * gains.kp / (1.0 + dc * gains.kp)
-        nan = float("nan")
         try:
             info = control.step_info(y, T=t, yfinal=yfinal)
         except IndexError:  # python-control cannot find the 90 % crossing: the response never gets there
@@ -476,150 +670,52 @@ def verify_loop(plant: Plant, gains: PidGains, sample_time_s: float, computation
         settling = float(info["SettlingTime"])
         if abs(y[-1] - yfinal) > 0.02 * abs(yfinal):
             settling = nan
-            warnings.append(f"the step has not settled within the simulated {t[-1]:.4g} s; settling time unknown")
+            findings.append(Finding(code="step_not_settled", severity=Severity.WARNING, message=(
+                f"the step has not settled within the simulated {t[-1]:.4g} s; settling time unknown")))
         step = StepData(float(info["RiseTime"]), settling, float(info["Overshoot"]),
-                        float(info["PeakTime"]), float(np.max(np.abs(u))), float(np.sum(np.abs(y_load)) * T))
+                        float(info["PeakTime"]), float(np.max(np.abs(u))), float(np.sum(np.abs(y_load)) * ta))
         if gm < POOR_GAIN_MARGIN:
-            warnings.append(f"poor gain margin {gm:.2f} (below {POOR_GAIN_MARGIN:g}, i.e. 6 dB)")
+            findings.append(Finding(code="poor_gain_margin", severity=Severity.WARNING, message=(
+                f"poor gain margin {gm:.2f} (below {POOR_GAIN_MARGIN:g}, i.e. 6 dB)")))
         if pm < POOR_PHASE_MARGIN_DEG:
-            warnings.append(f"poor phase margin {pm:.1f} deg (below {POOR_PHASE_MARGIN_DEG:g} deg)")
+            findings.append(Finding(code="poor_phase_margin", severity=Severity.WARNING, message=(
+                f"poor phase margin {pm:.1f} deg (below {POOR_PHASE_MARGIN_DEG:g} deg)")))
         if ms > POOR_MS:
-            warnings.append(f"Ms {ms:.2f} above {POOR_MS:g}: an aggressive, fragile loop")
+            findings.append(Finding(code="fragile_ms", severity=Severity.WARNING, message=(
+                f"Ms {ms:.2f} above {POOR_MS:g}: an aggressive, fragile loop")))
         if ms_limit is not None and ms > ms_limit * 1.005:
-            warnings.append(f"Ms {ms:.3f} exceeds the requested {ms_limit:g}")
+            findings.append(Finding(code="ms_above_bound", severity=Severity.WARNING, message=(
+                f"Ms {ms:.3f} exceeds the requested {ms_limit:g}")))
     else:
-        nan = float("nan")
         step = StepData(nan, nan, nan, nan, float(np.max(np.abs(u))), float("inf"))
-        warnings.append(f"the closed loop is UNSTABLE (largest pole magnitude {radius:.4f} >= 1); do not use "
-                        "these gains")
-    warnings.extend(cooler_warnings(plant))
-    return LoopReport(margins, step, bool(stable), radius, T, tuple(warnings), t, y, u)
+        findings.append(Finding(code="unstable", severity=Severity.DANGER, message=(
+            f"the closed loop is UNSTABLE (largest pole magnitude {radius:.4f} >= 1); do not use these gains")))
+    from compensator.loops.cooler import cooler_gain_findings
+
+    findings.extend(cooler_gain_findings(plant.operating_point))
+    return LoopReport(margins, step, bool(stable), radius, T, tuple(findings), ta, t, y, u)
 
 
-def cooler_operating_warnings(params, point: CoolerOperatingPoint) -> list[str]:
-    """Safety warnings about a cooler operating point: condensation and hot-side temperature.
-
-    Parameters
-    ----------
-    params : CoolerParams
-    point : CoolerOperatingPoint
-
-    Returns
-    -------
-    list of str
-        Condensation risk (cold plate below the dew point plus the margin;
-        Magnus formula, Alduchov and Eskridge 1996), hot side above its limit
-        at the operating point or at the upper current limit.
-    """
-    from compensator.loops.plants import cooler_current_limits_a, cooler_steady_state
-    from compensator.physics.thermal import dew_point_c
-
-    out = []
-    dew = float(dew_point_c(point.ambient_temp_c, params.ambient_relative_humidity_pct))
-    if point.cold_temp_c < dew + params.dew_margin_k:
-        out.append(f"CONDENSATION RISK: the cold plate at {point.cold_temp_c:.1f} C is below the dew point "
-                   f"{dew:.1f} C plus the {params.dew_margin_k:g} K margin")
-    if point.hot_temp_c > params.max_hot_temp_c:
-        out.append(f"the hot side at the operating point ({point.hot_temp_c:.1f} C) exceeds limits.max_hot_temp_c "
-                   f"{params.max_hot_temp_c:g} C")
-    out_max = cooler_current_limits_a(params, point.ambient_temp_c)[1]
-    hot_at_max = float(cooler_steady_state(params, out_max, point.ambient_temp_c)[1])
-    if hot_at_max > params.max_hot_temp_c:
-        out.append(f"at the output limit {out_max:.3g} A the hot side settles at {hot_at_max:.1f} C, above "
-                   f"limits.max_hot_temp_c {params.max_hot_temp_c:g} C: lower the limit or improve the heat sink")
-    return out
-
-
+# ---------------------------------------------------------------- older names
 def cooler_warnings(plant: Plant) -> list[str]:
-    """Warnings about the cooler's operating point (gain reversal, little headroom)."""
-    op = plant.operating_point
-    if not isinstance(op, CoolerOperatingPoint):
-        return []
-    out = []
-    if op.beyond_optimum or op.gain_k_per_a > 0:
-        out.append(f"the cooler loop gain REVERSES SIGN: {op.current_a:.3f} A is above the current of maximum "
-                   f"cooling {op.optimum_current_a:.3f} A, where more current warms the plate; a loop tuned here "
-                   "runs away once it crosses the optimum; clamp the current below the optimum")
-    elif op.current_a > 0.85 * op.optimum_current_a and op.current_a > 0:
-        out.append(f"the operating current {op.current_a:.3f} A is within 15 % of the current of maximum cooling "
-                   f"{op.optimum_current_a:.3f} A: little headroom and a loop gain that collapses near the optimum")
-    return out
+    """Older interface of :func:`compensator.loops.cooler.cooler_gain_findings`: the messages only."""
+    from compensator.loops.cooler import cooler_gain_findings
+
+    return [f.message for f in cooler_gain_findings(plant.operating_point)]
 
 
-@dataclass(frozen=True)
-class AmbientCheck:
-    """The same gains re-verified with the cooler linearised at another ambient temperature.
+def cooler_operating_warnings(params, point) -> list[str]:
+    """Older interface of :func:`compensator.loops.cooler.cooler_safety_findings`: the messages only."""
+    from compensator.loops.cooler import cooler_safety_findings
 
-    Attributes
-    ----------
-    ambient_temp_c : float
-        Degree Celsius.
-    reachable : bool
-        Whether the setpoint can be held at this ambient (else the other fields are nan).
-    current_a : float
-        Operating current (negative: heating), ampere.
-    gain_k_per_a : float
-        Steady-state plant gain there, kelvin per ampere.
-    stable : bool
-    ms, gain_margin, phase_margin_deg : float
-    """
-
-    ambient_temp_c: float
-    reachable: bool
-    current_a: float
-    gain_k_per_a: float
-    stable: bool
-    ms: float
-    gain_margin: float
-    phase_margin_deg: float
+    return [f.message for f in cooler_safety_findings(params, point)]
 
 
-def check_cooler_ambient_range(params, gains: PidGains, sample_time_s: float, ambient_temps_c,
-                               setpoint_temp_c: float | None = None,
-                               computation_delay_samples: int = 1) -> tuple[AmbientCheck, ...]:
-    """Re-verify fixed gains with the cooler linearised at each ambient temperature.
+def __getattr__(name):
+    # AmbientCheck and check_cooler_ambient_range moved to compensator.loops.cooler (imported lazily: cooler
+    # uses this module).
+    if name in ("AmbientCheck", "check_cooler_ambient_range"):
+        from compensator.loops import cooler
 
-    The plant gain and time constants move with the operating current (and
-    the loop changes from cooling to heating below the setpoint), so gains
-    tuned at one ambient must be checked over the field range.
-
-    Parameters
-    ----------
-    params : CoolerParams
-    gains : PidGains
-    sample_time_s : float
-        Firmware period, second.
-    ambient_temps_c : array_like
-        Ambient temperatures to check, degree Celsius.
-    setpoint_temp_c : float, optional
-        Cold-plate setpoint (default: the profile's).
-    computation_delay_samples : int
-
-    Returns
-    -------
-    tuple of AmbientCheck
-    """
-    from compensator.loops.plants import cooler_operating_point, linearise_cooler
-
-    out = []
-    nan = float("nan")
-    for ta in np.atleast_1d(np.asarray(ambient_temps_c, dtype=float)):
-        try:
-            op = cooler_operating_point(params, setpoint_temp_c, None, float(ta))
-        except ModelError:
-            out.append(AmbientCheck(float(ta), False, nan, nan, False, nan, nan, nan))
-            continue
-        plant = linearise_cooler(params, op)
-        a_cl = _closed_loop(plant, gains, sample_time_s, computation_delay_samples)[0]
-        stable = bool(np.max(np.abs(np.linalg.eigvals(a_cl))) < 1.0)
-        ms, _ = max_sensitivity(plant, gains, sample_time_s, computation_delay_samples)
-        w = frequency_grid(sample_time_s, 4000, 7.0)
-        loop = controller_frequency_response(gains, sample_time_s, w) * discrete_frequency_response(
-            plant, sample_time_s, w, computation_delay_samples)
-        with warnings_module.catch_warnings():
-            warnings_module.simplefilter("ignore")
-            gm, pm, *_ = control.stability_margins((np.abs(loop), np.degrees(np.unwrap(np.angle(loop))), w))
-        out.append(AmbientCheck(float(ta), True, op.current_a, op.gain_k_per_a, stable, ms,
-                                float(gm) if gm is not None and np.isfinite(gm) else float("inf"),
-                                float(pm) if pm is not None and np.isfinite(pm) else float("inf")))
-    return tuple(out)
+        return getattr(cooler, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
