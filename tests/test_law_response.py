@@ -144,3 +144,39 @@ def test_constant_response_law_shorthand(sipm_a, board_ntc):
     law = constant_response_law(sipm_a, board_ntc, 3.0, drop_correction="none")
     assert law.kind == "constant_response" and law.overvoltage_v == 3.0 and law.scintillator == sipm_a.scintillator
     assert law.board_name == "hut-board-ntc" and law.sipm_name == "hut-sipm-a"
+
+
+def test_light_yield_error_and_zero_light():
+    # Y = 1 + 0.01 dT (a + e + b dT): an error e = +0.1 %/K at -25 C (dT = -50 K) lowers Y by 0.05.
+    y = float(relative_light_yield(CRYSTAL, -25.0, 0.1))
+    assert y == pytest.approx(1 + 0.01 * (-50) * (-0.3 + 0.1 - 0.002 * -50), rel=1e-12)
+    # a = -2 %/K takes the light to exactly zero 50 K above the reference: refused.
+    dark = Scintillator(light_yield_tempco_pct_per_k=-2.0)
+    with pytest.raises(ModelError) as info:
+        relative_light_yield(dark, [25.0, 75.0])
+    assert info.value.key == "light_yield_tempco_pct_per_k"
+    assert info.value.reason == "the light yield falls to zero inside the temperature range"
+
+
+def test_response_per_photon_by_hand(sipm_a):
+    # R = C (Vov) / q x PDE x 1/(1 - p) x Y, hut-sipm-a at 25 C (Y = 1): 160 fF, PDE 0.5 (1 - exp(-Vov/2.3 V)),
+    # p = 1 - 0.92^((Vov/3 V)^2) (hand calculation of the model's formulas).
+    from math import exp
+    dev = sipm_a.device
+    for ov in (0.5, 3.0):
+        p = 1 - 0.92 ** ((ov / 3.0) ** 2)
+        by_hand = 160e-15 * ov / 1.602176634e-19 * 0.5 * (1 - exp(-ov / 2.3)) / (1 - p)
+        assert float(response_per_photon(dev, CRYSTAL, ov, 25.0)) == pytest.approx(by_hand, rel=1e-12)
+    assert float(response_per_photon(dev, CRYSTAL, -1.0, 25.0)) == 0.0
+
+
+def test_overvoltage_for_response_meets_its_tolerance(sipm_a):
+    # Bisection on [0, 8 V] to a 0.1 V bracket: the answer lies within 0.05 V of the root. The root 3.001 V sits
+    # just above a multiple of 1/8 V, where a bisection stopped two steps early would be 0.06 V off.
+    from compensator.physics.scintillator import overvoltage_for_response
+    dev = sipm_a.device
+    target = response_per_photon(dev, CRYSTAL, 3.001, 25.0)
+    ov = float(overvoltage_for_response(dev, CRYSTAL, target, 25.0, max_overvoltage_v=8.0, tol_v=0.1))
+    assert abs(ov - 3.001) <= 0.05
+    exact = overvoltage_for_response(dev, CRYSTAL, target, [25.0, 25.0], max_overvoltage_v=8.0)
+    np.testing.assert_allclose(exact, 3.001, rtol=0, atol=1e-9)

@@ -87,3 +87,12 @@ def test_operating_point_options(sipm_a, board_ntc):
     with pytest.raises(ModelError) as info:
         sipm_bias_v(supply, dev, 27.5, 25.0, photon_rate_hz=1e8, max_iter=1)
     assert info.value.key == "series_resistor_ohm"
+
+
+def test_supply_refuses_unknown_topology_and_a_code_independent_network():
+    with pytest.raises(ModelError) as info:
+        BiasSupply(Dac(12, 2.5), "boost")
+    assert info.value.key == "topology" and info.value.reason == "must be 'feedback_injection' or 'direct', got 'boost'"
+    with pytest.raises(ModelError) as info:
+        BiasSupply(Dac(12, 2.5), "feedback_injection", r1_ohm=0.0)
+    assert info.value.key == "topology" and info.value.reason == "the supply network does not depend on the DAC code"

@@ -2,6 +2,7 @@
 
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from compensator.errors import ModelError, ProfileError
@@ -81,3 +82,15 @@ def test_readback_code_with_every_error_and_the_current_channel_by_hand():
     from compensator.physics.current_sense import CurrentSense
     sense = CurrentSense(adc_bits=12, reference_v=4.096, sense_gain_v_per_a=1e4)  # 0.1 uA per code
     assert sense.current_a([0, 250]).tolist() == pytest.approx([0.0, 25e-6], rel=1e-12)
+
+
+def test_current_sense_reading_with_every_error_by_hand():
+    from compensator.physics.current_sense import CurrentSense, centred_adc_code
+    sense = CurrentSense(adc_bits=12, reference_v=4.096, sense_gain_v_per_a=1e4)  # 0.1 uA per code
+    # 20 uA is 200 codes; +2 % sense gain reads 204, +2 % reference 200/1.02, +0.5 uA offset 205 (hand calculation).
+    assert sense.continuous_code(20e-6) == pytest.approx(200.0, rel=1e-12)
+    assert sense.continuous_code(20e-6, gain_error=0.02) == pytest.approx(204.0, rel=1e-12)
+    assert sense.continuous_code(20e-6, reference_error=0.02) == pytest.approx(200.0 / 1.02, rel=1e-12)
+    assert sense.continuous_code(20e-6, offset_a=0.5e-6) == pytest.approx(205.0, rel=1e-12)
+    codes = centred_adc_code([-3.0, 0.49, 0.5, 5000.0], 4095)
+    assert codes.tolist() == [0, 0, 1, 4095] and codes.dtype == np.int64
