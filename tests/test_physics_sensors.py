@@ -32,7 +32,7 @@ def test_pt100_inverse_to_1_millikelvin():
 
 def test_rtd_round_trip_dense_and_scalar():
     temps = np.linspace(-200, 850, 10001)
-    np.testing.assert_allclose(S.rtd_temp_c(S.rtd_resistance_ohm(temps, 1000.0), 1000.0), temps, atol=1e-9)
+    np.testing.assert_allclose(S.rtd_temp_c(S.rtd_resistance_ohm(temps, 1000.0), 1000.0), temps, rtol=0, atol=1e-9)
     assert float(S.rtd_temp_c(S.rtd_resistance_ohm(-37.5, 100.0), 100.0)) == pytest.approx(-37.5, abs=1e-9)
 
 
@@ -228,3 +228,44 @@ def test_channel_rails_and_code_range_by_hand(board_ntc):
         return floor(4096 * r / (r + 10_000.0))
     assert ch.code_range(-25.0, 45.0) == (code(45.0), code(-25.0))
     assert ch.code_range(45.0, -25.0) == (code(45.0), code(-25.0))
+
+
+def test_rtd_range_edges_and_messages():
+    # IEC 60751 defines the curve from -200 to 850 C: half a kelvin beyond either end is refused.
+    for t in (-200.5, 850.5):
+        with pytest.raises(ModelError) as info:
+            S.rtd_resistance_ohm(t)
+        assert info.value.key == "temp_c" and info.value.reason == "outside the IEC 60751 range -200 to 850 C"
+    assert S.rtd_resistance_ohm([-200.0, 850.0]) == pytest.approx([18.5201, 390.4811], abs=1e-4)  # IEC 60751 table
+    for r in (18.5201 * 0.999, 390.4811 * 1.001):
+        with pytest.raises(ModelError) as info:
+            S.rtd_temp_c(r)
+        assert info.value.key == "resistance_ohm" and info.value.reason == "outside the IEC 60751 range (-200 to 850 C)"
+
+
+def test_rtd_between_0_and_1_c_uses_no_c_term():
+    # Above 0 C the Callendar-Van Dusen C term is zero (IEC 60751): R(0.5 C) = 100 (1 + A 0.5 + B 0.25) exactly,
+    # and the inverse returns 0.5 C to 1e-12 K (the C term there would shift it by about 1e-8 K).
+    r = 100.0 * (1 + 3.9083e-3 * 0.5 - 5.775e-7 * 0.25)
+    assert float(S.rtd_resistance_ohm(0.5)) == pytest.approx(r, rel=1e-15)
+    assert float(S.rtd_temp_c(r)) == pytest.approx(0.5, abs=1e-12)
+
+
+def test_kelvin_bound_and_the_steinhart_hart_sensor():
+    # Any temperature above absolute zero is a temperature: 0.65 K with a Beta of 1 K gives R25 exp(1/0.65 - 1/298.15).
+    from math import exp
+    assert float(S.ntc_beta_resistance_ohm(-272.5, 10_000.0, 1.0)) == pytest.approx(
+        10_000.0 * exp(1 / 0.65 - 1 / 298.15), rel=1e-9)
+    with pytest.raises(ModelError) as info:
+        S.ntc_beta_resistance_ohm(-273.15, 10_000.0, 3435.0)
+    assert info.value.key == "temp_c" and info.value.reason == "must be above absolute zero (-273.15 C)"
+    # Without the cubic term Steinhart-Hart is 1/T = a + b ln R: R = exp((1/T - a)/b), solved here by hand.
+    sh2 = S.SteinhartHart(1.0e-3, 2.5e-4, 0.0)
+    r_by_hand = exp((1 / 298.15 - 1.0e-3) / 2.5e-4)
+    assert float(S.steinhart_hart_resistance_ohm(25.0, sh2)) == pytest.approx(r_by_hand, rel=1e-12)
+    # An NTC described by Steinhart-Hart coefficients: the widely used 10 kohm set maps 10 kohm to 25 C (to 2 mK).
+    sh = S.SteinhartHart(1.129148e-3, 2.34125e-4, 8.76741e-8)
+    ntc = S.NtcSensor(10_000.0, steinhart_hart=sh)
+    assert float(ntc.temp_c(10_000.0)) == pytest.approx(25.0, abs=2e-3)
+    assert float(ntc.resistance_ohm(25.0)) == pytest.approx(10_000.0, rel=1e-3)
+    assert float(ntc.temp_c(ntc.resistance_ohm(-20.0))) == pytest.approx(-20.0, abs=1e-9)

@@ -116,9 +116,13 @@ def test_evaluate_equals_the_individual_functions(name, request):
     vbd0 = dev.breakdown.breakdown_v_at_ref
     bias = rng.uniform(vbd0 - 2, vbd0 + 8, 40_000)  # spans below breakdown too, across several blocks
     photons = rng.uniform(0, 1e7, 40_000)
+    # A first call with other inputs of the same size: a block left unwritten would show its stale values.
+    M.evaluate(dev, temps[::-1], bias_v=bias + 1.0, photon_rate_hz=photons[::-1])
     s = M.evaluate(dev, temps, bias_v=bias, photon_rate_hz=photons)
     ov = bias - M.breakdown_v(dev, temps)
     np.testing.assert_allclose(s.breakdown_v, M.breakdown_v(dev, temps), rtol=1e-14)
+    np.testing.assert_array_equal(s.temp_c, temps)
+    np.testing.assert_array_equal(s.bias_v, bias)
     np.testing.assert_allclose(s.gain, M.gain(dev, bias, temps), rtol=1e-12)
     np.testing.assert_allclose(s.pde_fraction, M.pde(dev, ov), rtol=1e-12)
     np.testing.assert_allclose(s.dark_rate_hz, M.dark_rate_hz(dev, temps, ov), rtol=1e-12)
