@@ -115,3 +115,13 @@ def test_monte_carlo_agrees_with_first_order_on_the_drifting_board(sipm_a, board
     rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in budget.terms if t.kind == "random"))
     ratio = budget.monte_carlo.std_pct_by_temp / rss
     assert np.all((ratio > 0.92) & (ratio < 1.08)), ratio
+
+
+def test_monte_carlo_calibration_keeps_the_lag(sipm_b, board_pt1000):
+    # A one-point calibration is made at steady state: it removes constant offsets but not the sensor's lag under
+    # a ramp. At 6 K/min the lag is a large part of what is left, and the Monte Carlo's spread after calibration
+    # must still match the first-order figure (it would fall well short if the calibration saw the lag).
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_gain")
+    budget = gain_error_budget(law, board_pt1000, samples=1500, seed=5, ramp_k_per_min=6.0)
+    assert budget.term("sensor_lag").calibrated_std_pct > 0.5 * budget.calibrated_rss_pct
+    assert budget.monte_carlo.calibrated_std_pct / budget.calibrated_rss_pct == pytest.approx(1.0, abs=0.08)

@@ -95,6 +95,7 @@ def test_feedback_injection_worst_corner_of_the_bundled_board_by_hand(sipm_a, bo
     (finding,) = safe.findings
     assert finding.code == "safe_state_above_breakdown"
     assert f"{by_hand:.3f} V" in finding.message and "23.290 V at -25 C" in finding.message
+    assert finding.message.endswith("a hardware enable or shutdown line that removes the bias is needed")
 
 
 def test_direct_supply_worst_corner_by_hand(sipm_b, board_pt1000):
