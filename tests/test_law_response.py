@@ -209,3 +209,23 @@ def test_constant_response_table_meets_its_bound_in_response_terms(sipm_a, board
     # Sized with the gain's 100/Vov the same bound would allow 1.65 times the error (hand calculation at 3 V:
     # d ln R/dV = 1/3 + 0.162 (PDE) + 0.056 (crosstalk) = 0.551 per volt, against 0.333 for the gain).
     assert float(law.error_pct_per_v(25.0)) == pytest.approx(55.1, rel=2e-3)
+
+
+def _refused_crystal(field, value):
+    with pytest.raises(ModelError) as info:
+        replace(CRYSTAL, **{field: value})
+    assert info.value.key == field
+    return info.value.reason
+
+
+@pytest.mark.parametrize("field", ["ref_temp_c", "light_yield_tempco_pct_per_k", "light_yield_curvature_pct_per_k2",
+                                   "light_yield_tempco_err_pct_per_k"])
+def test_scintillator_fields_are_finite(field):
+    for bad in (float("nan"), float("inf")):
+        assert _refused_crystal( field, bad) == f"must be finite, got {bad!r}"
+
+
+def test_scintillator_uncertainty_is_non_negative():
+    for fine in (0.0, 0.5, 2.0):
+        assert replace(CRYSTAL, light_yield_tempco_err_pct_per_k=fine).light_yield_tempco_err_pct_per_k == fine
+    assert _refused_crystal( "light_yield_tempco_err_pct_per_k", -0.01) == "must be non-negative"

@@ -107,11 +107,6 @@ def test_ntc_tolerance_grows_away_from_25c():
     assert tol[0] > tol[1] and tol[2] > tol[1]
 
 
-def test_ntc_needs_exactly_one_model():
-    with pytest.raises(ModelError):
-        S.NtcSensor(10_000.0)
-
-
 @pytest.mark.parametrize("position", ["low", "high"])
 @pytest.mark.parametrize("ratiometric", [True, False])
 def test_front_end_code_resistance_round_trip(position, ratiometric):
@@ -269,3 +264,12 @@ def test_kelvin_bound_and_the_steinhart_hart_sensor():
     assert float(ntc.temp_c(10_000.0)) == pytest.approx(25.0, abs=2e-3)
     assert float(ntc.resistance_ohm(25.0)) == pytest.approx(10_000.0, rel=1e-3)
     assert float(ntc.temp_c(ntc.resistance_ohm(-20.0))) == pytest.approx(-20.0, abs=1e-9)
+
+
+def test_ntc_needs_exactly_one_model():
+    sh = S.SteinhartHart(1.129148e-3, 2.34125e-4, 8.76741e-8)
+    for kwargs in ({}, {"beta_k": 3435.0, "steinhart_hart": sh}):
+        with pytest.raises(ModelError) as info:
+            S.NtcSensor(10_000.0, **kwargs)
+        assert info.value.key == "beta_k"
+        assert info.value.reason == "an NTC needs exactly one of beta_k and steinhart_hart"
