@@ -183,10 +183,11 @@ def python_int_value(table, n):
     return rnd(acc, g)
 
 
-@pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
+@pytest.mark.parametrize("pair, bound", [(p, 0.05) for p in PAIRS] + [(PAIRS[1], 0.01)],
+                         ids=lambda v: v[0] if isinstance(v, tuple) else str(v))
 @pytest.mark.parametrize("layout", T.LAYOUTS)
-def test_layout_arithmetic_matches_plain_integers(built, pair, layout):
-    law, board, table = built(*pair, layout, 0.05)
+def test_layout_arithmetic_matches_plain_integers(built, pair, bound, layout):
+    law, board, table = built(*pair, layout, bound)
     codes = np.unique(np.linspace(table.code_lo, table.code_hi, 257).astype(np.int64))
     expected = [python_int_value(table, int(n)) for n in codes]
     assert np.array_equal(table.interpolate(codes), expected)
@@ -299,3 +300,52 @@ def test_floor_shift_matches_floor_division():
     p = np.arange(-70, 71)
     for k in range(0, 6):
         assert np.array_equal(T.floor_shift(p, k), np.floor_divide(p, 2 ** k))
+
+
+def test_layout_bytes_by_hand(sipm_b, board_pt1000):
+    # uniform: 2 bytes per node; segmented: 2 per node plus 1 per segment width; optimised: 2 + 2 + slope bytes
+    # per breakpoint; polynomial: the widths of its coefficients.
+    report = T.compare_layouts(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
+    t = report.tables
+    assert t["uniform"].table_bytes == 2 * t["uniform"].y.size == 26
+    assert t["segmented"].table_bytes == 2 * t["segmented"].y.size + t["segmented"].segment_shift.size == 38
+    assert t["optimised"].table_bytes == t["optimised"].x.size * (4 + t["optimised"].slope_type_bits // 8)
+    assert t["polynomial"].table_bytes == sum(t["polynomial"].coeff_type_bits) // 8 == 10
+    assert all(isinstance(c.table_bytes, int) for c in report.candidates)
+    assert report.tables["polynomial"] is report.table
+
+
+def test_a_layout_that_cannot_meet_the_bound_is_reported(sipm_b, board_pt1000, monkeypatch):
+    import compensator.firmware.tables as tables_module
+
+    def refusing(what):
+        def refuse(*args, **kwargs):
+            raise TableError("DAC quantisation", f"no {what} table meets the bound")
+        return refuse
+
+    monkeypatch.setattr(tables_module, "size_polynomial", refusing("polynomial"))
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    report = T.compare_layouts(law, board_pt1000, 0.05)
+    failed = report.candidates[-1]
+    assert failed.layout == "polynomial" and failed.table_bytes is None and failed.entries is None
+    assert failed.within_bound is False and "no polynomial table" in failed.reason
+    assert [c.entries for c in report.candidates[:3]] == [t.entries for t in report.tables.values()]
+    assert report.table.layout == "uniform" and report.table.table_bytes == 26  # ties go to the simpler layout
+    (finding,) = report.findings
+    assert "uniform 26 B, segmented 38 B, optimised 36 B, polynomial: " in finding.message
+    for name in ("uniform", "segmented", "optimised"):
+        monkeypatch.setattr(tables_module, f"size_{name}", refusing(name))
+    with pytest.raises(TableError, match="no uniform table"):  # the first layout's reason
+        T.compare_layouts(law, board_pt1000, 0.05)
+
+
+def test_target_extrapolates_linearly_beyond_the_range(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    target = T._target(law, board_pt1000, 0.05)
+    lo, hi = int(target.codes[0]), int(target.codes[-1])
+    assert target.at([lo - 3])[0] == pytest.approx(target.exact[0] - 3 * target.ext_lo, abs=1e-9)
+    assert target.at([hi + 5])[0] == pytest.approx(target.exact[-1] + 5 * target.ext_hi, abs=1e-9)
+    assert np.array_equal(target.at(target.codes[[0, 7, -1]]), target.exact[[0, 7, -1]])
+    # the extrapolation slope is the law's own slope there: DAC codes per ADC code from the law one code outside
+    f = T.ideal_dac_code(law, board_pt1000.temperature.temp_at(np.array([hi - 0.5, hi + 1.5])))
+    assert target.ext_hi == pytest.approx((f[1] - f[0]) / 2, rel=1e-9)

@@ -122,7 +122,7 @@ def register(subparsers) -> None:
                                                          "heating current, or DAC code 0)")
     em.add_argument("--out-max", type=finite_float,
                     help="highest actuator value (default: the current of maximum cooling, or the full-scale code)")
-    em.add_argument("--c-word-bits", type=bounded_int(32, 64), choices=(64, 32), default=64,
+    em.add_argument("--c-word-bits", type=bounded_int(0, 64), choices=(64, 32), default=64,
                     help="64 (default): 64-bit products (library calls on cores without a 64-bit multiply); "
                          "32: 32-bit operations only, when the Q formats allow it (else exit 2 with the figure "
                          "that does not fit); inputs then saturate at --c-input-limit-count")
