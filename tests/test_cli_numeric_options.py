@@ -99,7 +99,7 @@ def test_negative_values_where_the_type_forbids_them(cli, profiles_dir, monkeypa
     monkeypatch.chdir(profiles_dir.parent)
     refused = 0
     for command, action in CHECKED:
-        if action.type("1") is None or action.type.__name__ not in ("number", "whole number"):
+        if action.type.__name__ not in ("number", "whole number"):  # (a type may refuse "1": --c-word-bits)
             continue
         try:
             action.type("-1")

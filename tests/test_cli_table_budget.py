@@ -44,7 +44,9 @@ def test_budget_text(cli, profiles_dir):
     (("--overvoltage-v", "3", "--calibration-temp-c", "90"), "--calibration-temp-c: 90 C is outside"),
     (("--overvoltage-v", "3", "--calibration-temp-c", "-300"), "--calibration-temp-c"),
     (("--overvoltage-v", "nan"), "--overvoltage-v"),
-    (("--overvoltage-v", "3", "--seed", "-1"), "--seed: must be 0 or more, got -1"),
+    (("--overvoltage-v", "3", "--seed", "-1"), "--seed: must be at least 0, got '-1'"),
+    (("--overvoltage-v", "3", "--samples", "1.5"), "--samples: expected a whole number, got '1.5'"),
+    (("--overvoltage-v", "3", "--current-uncertainty-pct", "120"), "--current-uncertainty-pct: must be at most 100 %"),
     (("--overvoltage-v", "3", "--ramp-k-per-min", "inf"), "--ramp-k-per-min"),
 ])
 def test_budget_bad_input_exits_2(cli, profiles_dir, argv, words):

@@ -115,3 +115,49 @@ def test_monte_carlo_agrees_with_first_order_on_the_drifting_board(sipm_a, board
     rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in budget.terms if t.kind == "random"))
     ratio = budget.monte_carlo.std_pct_by_temp / rss
     assert np.all((ratio > 0.92) & (ratio < 1.08)), ratio
+
+
+def test_monte_carlo_calibration_keeps_the_lag(sipm_b, board_pt1000):
+    # A one-point calibration is made at steady state: it removes constant offsets but not the sensor's lag under
+    # a ramp. At 6 K/min the lag is a large part of what is left, and the Monte Carlo's spread after calibration
+    # must still match the first-order figure (it would fall well short if the calibration saw the lag).
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_gain")
+    budget = gain_error_budget(law, board_pt1000, samples=1500, seed=5, ramp_k_per_min=6.0)
+    assert budget.term("sensor_lag").calibrated_std_pct > 0.5 * budget.calibrated_rss_pct
+    assert budget.monte_carlo.calibrated_std_pct / budget.calibrated_rss_pct == pytest.approx(1.0, abs=0.08)
+
+
+def _converters_only(board, *, adc_inl_lsb, dac_inl_lsb):
+    """The board with every tolerance, drift, lag and the series resistor taken out: converters only."""
+    ch = board.temperature
+    sensor = replace(ch.sensor, r25_tolerance_pct=0.0, beta_tolerance_pct=0.0, self_heating_k=0.0, sensor_to_die_k=0.0,
+                     time_constant_s=0.0, die_to_sensor_time_constant_s=0.0)
+    fe = replace(ch.front_end, reference_resistor_tolerance_pct=0.0, adc_reference_tolerance_pct=0.0,
+                 excitation_tolerance_pct=0.0, reference_resistor_tempco_ppm_per_k=0.0,
+                 adc_reference_tempco_ppm_per_k=0.0, excitation_tempco_ppm_per_k=0.0, adc_offset_lsb=0.0,
+                 adc_gain_error_pct=0.0, adc_inl_lsb=adc_inl_lsb)
+    dac = replace(board.supply.dac, reference_tolerance_pct=0.0, reference_tempco_ppm_per_k=0.0, offset_lsb=0.0,
+                  gain_error_pct=0.0, inl_lsb=dac_inl_lsb)
+    supply = replace(board.supply, dac=dac, resistor_tolerance_pct=0.0, resistor_tempco_ppm_per_k=0.0,
+                     feedback_tolerance_pct=0.0, feedback_tempco_ppm_per_k=0.0, series_resistor_ohm=0.0)
+    return replace(board, temperature=replace(ch, sensor=sensor, front_end=fe), supply=supply)
+
+
+def test_monte_carlo_of_converter_non_linearity(sipm_a, board_ntc):
+    # Only the converters' INL (2 LSB ADC, 8 LSB DAC, drawn anew at every code) and quantisation are left: the
+    # Monte Carlo's spread must match the analytic first-order terms (rectangular, u = a / sqrt(3)) at every
+    # temperature, before and after calibration, and its mean stay near zero (the draws are centred).
+    board = _converters_only(board_ntc, adc_inl_lsb=2.0, dac_inl_lsb=8.0)
+    bd = sipm_a.device.breakdown
+    sipm = replace(sipm_a, device=replace(sipm_a.device, breakdown=replace(bd, breakdown_err_v=0.0,
+                                                                          tempco_err_mv_per_k=0.0)))
+    law = build_law(sipm, board, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
+    assert {t.key for t in budget.terms if t.limit_pct > 0} == {"adc_quantisation", "adc_inl", "dac_quantisation",
+                                                                 "dac_inl"}
+    rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in budget.terms if t.kind == "random"))
+    mc = budget.monte_carlo
+    ratio = mc.std_pct_by_temp / rss
+    assert np.all((ratio > 0.92) & (ratio < 1.08)), ratio
+    assert np.all(np.abs(mc.mean_pct_by_temp) < 0.15 * rss)
+    assert mc.calibrated_std_pct / budget.calibrated_rss_pct == pytest.approx(1.0, abs=0.08)

@@ -91,3 +91,88 @@ def test_continuous_codes_round_trip(board_name, request):
     codes = np.floor(x).astype(np.int64)
     assert np.array_equal(codes, channel.adc_code(TEMPS_C))
     assert np.allclose(channel.temp_at(codes + 0.5), channel.temp_c(codes), atol=1e-9)
+
+
+def test_out_of_range_message_by_hand(sipm_b, board_ntc):
+    # hut-sipm-b (38.2 V at 25 C, 34 mV/K, 0.02 mV/K^2) at 4 V on a supply that stops at 36 V: the law needs
+    # 38.2 - 1.7 + 0.05 + 4 = 40.550 V at -25 C and 38.2 + 0.68 + 0.008 + 4 = 42.888 V at 45 C (hand calculation).
+    law = constant_overvoltage_law(sipm_b, board_ntc, 4.0, drop_correction="none")
+    with pytest.raises(ModelError) as info:
+        check_law_in_range(law, step_k=0.5)
+    assert info.value.key == "overvoltage_v"
+    assert info.value.reason == ("the law needs 40.550 to 42.888 V from -25 to 45 C, beyond the supply maximum "
+                                 "output; lower --overvoltage-v or use another board")
+
+
+def test_limits_by_hand(sipm_a, sipm_b, board_ntc, board_pt1000):
+    # hut-sipm-a (27.5 V at 3 V) on the 30 to 65 V board: below the supply's minimum everywhere.
+    low = constant_overvoltage_law(sipm_a, board_pt1000, 3.0, drop_correction="none")
+    assert set(low.limiting(TEMPS_C)) == {"supply minimum output"}
+    assert np.all(low.output_v(TEMPS_C) == 30.0)
+    # Lower limit: the supply's lowest output, at the highest DAC code of the feedback-injection network,
+    # 1.25 (1 + 1e6/43.2e3 + 1e6/250e3) - 2.5 x 65535/65536 x 4 = 25.1853 V. Upper limit: the tightest of the
+    # supply (36 V), max_bias_v (36 V) and Vbd + max_overvoltage (24.5 + 7 V at 25 C, 21.5 mV/K) -- here 31.5 V
+    # at 25 C and 30.425 V at -25 C (hand calculation).
+    law = constant_overvoltage_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    lo, hi = law.output_limits_v([-25.0, 25.0])
+    floor_v = 1.25 * (1 + 1e6 / 43.2e3 + 4.0) - 2.5 * 65535 / 65536 * 4.0
+    assert lo == pytest.approx([floor_v, floor_v], abs=1e-12) and hi == pytest.approx([30.425, 31.5], abs=1e-12)
+    # Slope of the constant-overvoltage law without drop: the breakdown's, 34 + 2 x 0.02 (T - 25) mV/K for
+    # hut-sipm-b: 34.8 mV/K at 45 C (exact for a quadratic by central differences).
+    assert constant_overvoltage_law(sipm_b, board_pt1000, 4.0, drop_correction="none").slope_v_per_k(45.0) == \
+        pytest.approx(0.0348, rel=1e-9)
+    # The gain laws hold the gain: their response is the gain, and 100/Vov percent per volt.
+    assert float(law.response(law.sipm, 27.5, 25.0)) == pytest.approx(float(gain(law.sipm, 27.5, 25.0)), rel=1e-15)
+    assert law.quantity == "gain" and law.correct_drop is False
+    assert float(law.error_pct_per_v(25.0)) == pytest.approx(100.0 / 3.0, rel=1e-12)
+
+
+def test_measured_output_is_clamped(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="measured")
+    # A wrong reading of 1 mA would add 10 V: the output stops at Vbd + max_overvoltage = 31.5 V at 25 C.
+    assert float(law.measured_output_v(25.0, 1e-3)) == pytest.approx(31.5, abs=1e-12)
+    assert law.correct_drop is True
+
+
+def test_offsets_between_breakdown_definitions(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, breakdown_offset_v=0.05)
+    (finding,) = law.findings
+    assert finding.code == "breakdown_offset_applied"
+    assert finding.message == "the law adds +50.0 mV to hut-sipm-a's gain-intercept breakdown (given)"
+    assert law.breakdown_offset_v == 0.05 and law.breakdown_offset_err_v == 0.0
+    assert build_law(sipm_a, board_ntc, 3.0).findings == ()
+    for bad in (5.5, -5.5, float("nan")):
+        with pytest.raises(ModelError) as info:
+            build_law(sipm_a, board_ntc, 3.0, breakdown_offset_v=bad)
+        assert info.value.key == "breakdown_offset_v" and info.value.reason == f"must be a number within +-5 V, got {bad!r}"
+    assert build_law(sipm_a, board_ntc, 3.0, breakdown_offset_v=-5.0).breakdown_offset_v == -5.0
+
+
+def test_messages_of_refused_targets(sipm_a, board_ntc):
+    cases = ((dict(overvoltage_v=7.5), "overvoltage_v", "7.5 V is outside hut-sipm-a's limits 1 to 7 V"),
+             (dict(overvoltage_v=3.0, kind="constant_current"), "kind",
+              "must be one of constant_overvoltage, constant_gain, constant_response, got 'constant_current'"),
+             (dict(overvoltage_v=3.0, drop_correction="guessed"), "drop_correction",
+              "must be one of none, modelled, measured, got 'guessed'"),
+             (dict(overvoltage_v=3.0, photon_rate_hz=float("inf")), "photon_rate_hz",
+              "must be a non-negative number, got inf"))
+    for kwargs, key, reason in cases:
+        ov = kwargs.pop("overvoltage_v")
+        with pytest.raises(ModelError) as info:
+            build_law(sipm_a, board_ntc, ov, **kwargs)
+        assert (info.value.key, info.value.reason) == (key, reason)
+    # Both ends of the device's range are allowed.
+    assert build_law(sipm_a, board_ntc, 1.0).overvoltage_v == 1.0
+    assert build_law(sipm_a, board_ntc, 7.0, drop_correction="none").overvoltage_v == 7.0
+    # The record itself refuses what build_law would.
+    law = build_law(sipm_a, board_ntc, 3.0)
+    for field, value, reason in (
+            ("kind", "x", "must be one of constant_overvoltage, constant_gain, constant_response, got 'x'"),
+            ("drop_correction", "x", "must be one of none, modelled, measured, got 'x'"),
+            ("drop_correction", "measured", None), ("kind", "constant_response", None)):
+        bare = replace(law, current_sense=None, scintillator=None) if reason is None else law
+        with pytest.raises(ModelError) as info:
+            replace(bare, **{field: value})
+        assert info.value.key == ("scintillator" if value == "constant_response" else field)
+        if reason:
+            assert info.value.reason == reason

@@ -141,3 +141,15 @@ def test_measured_current_holds_gain_at_every_light_level(sipm_a, board_ntc, cap
         if rate >= 1e7:
             assert meas_worst < mod / 10
     assert rows[-1][1] > 5.0  # 20 uA through 10 kOhm uncorrected: 0.2 V of 3 V
+
+
+def test_gain_error_at_light_defaults_and_refusals(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    # By default the firmware's integer path is included: the same as quantise=True, not the continuous chain.
+    default = gain_error_at_light_pct(law, board_ntc, 0.0, TEMPS_C)
+    assert np.array_equal(default, gain_error_at_light_pct(law, board_ntc, 0.0, TEMPS_C, quantise=True))
+    assert not np.array_equal(default, gain_error_at_light_pct(law, board_ntc, 0.0, TEMPS_C, quantise=False))
+    for bad in (-1.0, float("nan")):
+        with pytest.raises(ModelError) as info:
+            gain_error_at_light_pct(law, board_ntc, bad, TEMPS_C)
+        assert info.value.key == "photon_rate_hz" and info.value.reason == f"must be a non-negative number, got {bad!r}"

@@ -5,6 +5,7 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
+from compensator.errors import ModelError
 from compensator.findings import Severity
 from compensator.law import build_law, lowest_breakdown_v, safe_bias
 from compensator.physics.supply import Dac
@@ -74,3 +75,88 @@ def test_every_tolerance_of_the_bundled_board_counts(sipm_a, board_ntc):
     full = safe_bias(law, board_ntc).highest_output_v
     plain = safe_bias(build_law(sipm_a, _plain(board_ntc), 3.0), _plain(board_ntc)).highest_output_v
     assert full - plain > 0.17
+
+
+def test_feedback_injection_worst_corner_of_the_bundled_board_by_hand(sipm_a, board_ntc):
+    # Every tolerance and drift of hut-board-ntc at its worst corner, computed here by hand. The electronics sit
+    # at -20 to 55 C, tolerances hold at 25 C: the largest distance is 45 K.
+    #   DAC: reference 0.05 % + gain error 0.05 % + 10 ppm/K x 45 K = 0.145 %, offset 2 + INL 2 = 4 LSB (low);
+    #   resistors 0.1 % + 25 ppm/K x 45 K = 0.2125 % each (R1 and R3 high, R2 low);
+    #   regulator reference 0.5 % + 30 ppm/K x 45 K = 0.635 % (high).
+    law = build_law(sipm_a, board_ntc, 3.0)
+    vdac = (65535 - 4) * 2.5 / 65536 * (1 - 0.00145)
+    r1, r2, r3 = 1e6 * 1.002125, 43.2e3 * 0.997875, 250e3 * 1.002125
+    by_hand = 1.25 * 1.00635 * (1 + r1 / r2 + r1 / r3) - vdac * r1 / r3
+    safe = safe_bias(law, board_ntc)
+    assert safe.dac_code == 65535
+    assert safe.highest_output_v == pytest.approx(by_hand, abs=1e-9)
+    assert safe.coldest_temp_c == -25.0 and safe.lowest_breakdown_v == pytest.approx(23.290, abs=1e-9)
+    assert safe.margin_v == pytest.approx(23.290 - by_hand, abs=1e-9) and not safe.below_breakdown
+    (finding,) = safe.findings
+    assert finding.code == "safe_state_above_breakdown"
+    assert f"{by_hand:.3f} V" in finding.message and "23.290 V at -25 C" in finding.message
+    assert finding.message.endswith("a hardware enable or shutdown line that removes the bias is needed")
+
+
+def test_direct_supply_worst_corner_by_hand(sipm_b, board_pt1000):
+    # hut-board-pt1000: Vout = 30 V + 14 (1 + e) Vdac; the lowest output is code 0, where only the DAC's offset
+    # and INL (1 + 1 LSB) leave a voltage: 2 x 2.5 V / 65536, raised by the DAC's reference and gain error and
+    # drift (0.05 % + 0.02 % + 5 ppm/K x 50 K = 0.095 %) and by the amplifier's gain: 0.1 % tolerance plus each
+    # resistor's share of the drift (the network tracks to 2 ppm/K: 1 ppm/K each, two resistors) over 50 K,
+    # 0.1 % + 2 x 1e-6 x 50 = 0.11 % (hand calculation; the board's electronics follow the SiPM, -25 to 45 C).
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    by_hand = 30.0 + 14.0 * 1.0011 * 2 * 2.5 / 65536 * 1.00095
+    safe = safe_bias(law, board_pt1000)
+    assert safe.dac_code == 0 and safe.nominal_output_v == 30.0
+    assert safe.highest_output_v == pytest.approx(by_hand, abs=1e-12)
+
+
+def test_a_small_positive_margin_is_safe(sipm_b, board_pt1000):
+    # Breakdown lowered until the coldest one, three sigma under, sits 0.4 V above the 30 V floor: still safe.
+    board = _plain(board_pt1000)
+    law = build_law(sipm_b, board, 4.0)
+    floor_v, _ = lowest_breakdown_v(law)
+    bd = law.sipm.breakdown
+    lowered = replace(law, sipm=replace(law.sipm, breakdown=replace(
+        bd, breakdown_v_at_ref=bd.breakdown_v_at_ref - (floor_v - 30.4))))
+    safe = safe_bias(lowered, board)
+    assert safe.margin_v == pytest.approx(0.4, abs=1e-9)
+    assert safe.below_breakdown and safe.findings == ()
+
+
+def test_sigmas_reach_the_safe_bias(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    # Zero sigmas: the nominal breakdown at -25 C, 24.5 - 0.0215 x 50 = 23.425 V (hand calculation).
+    assert safe_bias(law, board_ntc, sigmas=0.0).lowest_breakdown_v == pytest.approx(23.425, abs=1e-9)
+    for bad in (-1.0, float("nan")):
+        with pytest.raises(ModelError) as info:
+            lowest_breakdown_v(law, sigmas=bad)
+        assert info.value.key == "sigmas" and "non-negative" in info.value.reason
+
+
+def test_coldest_breakdown_inside_the_range_by_hand(sipm_a, board_ntc):
+    # With curvature the lowest breakdown (three sigma under) is inside the range: Vbd(T) - 3 (u_V + u_a |dT|),
+    # dT = T - 25 C, is lowest where 21.5 + 2 b dT + 3 x 0.3 = 0 (below T0): dT = -22.4 / (2 b); with
+    # b = 0.5 mV/K^2, dT = -22.4 K, T = 2.6 C, and the breakdown there is
+    # 24.5 + 1e-3 (21.5 dT + 0.5 dT^2) - 3 (0.030 + 0.0003 x 22.4) (hand calculation).
+    law = build_law(sipm_a, board_ntc, 3.0)
+    bd = law.sipm.breakdown
+    curved = replace(law, sipm=replace(law.sipm, breakdown=replace(bd, curvature_mv_per_k2=0.5)))
+    dt = -22.4
+    by_hand = 24.5 + 1e-3 * (21.5 * dt + 0.5 * dt * dt) - 3 * (0.030 + 0.0003 * 22.4)
+    floor_v, at_c = lowest_breakdown_v(curved)
+    assert at_c == pytest.approx(2.6, abs=1e-9)
+    assert floor_v == pytest.approx(by_hand, abs=1e-9)
+
+
+def test_shifted_breakdown_definitions_count_against_the_safe_state(sipm_a, board_ntc):
+    # An I-V breakdown 120 mV below the gain intercept (+-20 mV): the law works 120 mV higher, but the safe state
+    # keeps the lower of the two and adds the offset's uncertainty: 23.425 - 3 (0.030 + 0.020 + 0.015) V at
+    # -25 C (hand calculation).
+    bd = sipm_a.device.breakdown
+    iv = replace(sipm_a, device=replace(sipm_a.device, breakdown=replace(
+        bd, definition="iv_inverse_log_derivative", definition_offset_v=0.12, definition_offset_err_v=0.02)))
+    law = build_law(iv, board_ntc, 3.0)
+    floor_v, at_c = lowest_breakdown_v(law)
+    assert at_c == -25.0
+    assert floor_v == pytest.approx(23.425 - 3 * (0.030 + 0.020 + 0.015), abs=1e-9)

@@ -1,5 +1,7 @@
 """SiPM device model."""
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
@@ -114,9 +116,13 @@ def test_evaluate_equals_the_individual_functions(name, request):
     vbd0 = dev.breakdown.breakdown_v_at_ref
     bias = rng.uniform(vbd0 - 2, vbd0 + 8, 40_000)  # spans below breakdown too, across several blocks
     photons = rng.uniform(0, 1e7, 40_000)
+    # A first call with other inputs of the same size: a block left unwritten would show its stale values.
+    M.evaluate(dev, temps[::-1], bias_v=bias + 1.0, photon_rate_hz=photons[::-1])
     s = M.evaluate(dev, temps, bias_v=bias, photon_rate_hz=photons)
     ov = bias - M.breakdown_v(dev, temps)
     np.testing.assert_allclose(s.breakdown_v, M.breakdown_v(dev, temps), rtol=1e-14)
+    np.testing.assert_array_equal(s.temp_c, temps)
+    np.testing.assert_array_equal(s.bias_v, bias)
     np.testing.assert_allclose(s.gain, M.gain(dev, bias, temps), rtol=1e-12)
     np.testing.assert_allclose(s.pde_fraction, M.pde(dev, ov), rtol=1e-12)
     np.testing.assert_allclose(s.dark_rate_hz, M.dark_rate_hz(dev, temps, ov), rtol=1e-12)
@@ -126,3 +132,45 @@ def test_evaluate_equals_the_individual_functions(name, request):
     np.testing.assert_allclose(s.gain_change_pct_per_k[above],
                                100 * M.relative_gain_change_per_k(dev, ov[above], temps[above]), rtol=1e-12)
     assert np.all(np.isnan(s.gain_change_pct_per_k[~above]))
+
+
+def test_evaluate_with_branching_crosstalk_odd_exponents_and_no_crosstalk(sipm_c):
+    # The block-wise model equals the individual functions also for the branching Poisson crosstalk model, a cubic
+    # dark-rate exponent, a cubic crosstalk exponent and a device without crosstalk.
+    rng = np.random.default_rng(5)
+    base = sipm_c.device
+    temps = rng.uniform(-30, 50, 3000)
+    bias = rng.uniform(base.breakdown.breakdown_v_at_ref - 1, base.breakdown.breakdown_v_at_ref + 6, 3000)
+    photons = rng.uniform(0, 1e7, 3000)
+    variants = (
+        replace(base, crosstalk_model="branching_poisson"),
+        replace(base, dark_overvoltage_exponent=3.0, crosstalk_overvoltage_exponent=3.0),
+        replace(base, crosstalk_probability=0.0, dark_overvoltage_exponent=0.0),
+    )
+    for dev in variants:
+        s = M.evaluate(dev, temps, bias_v=bias, photon_rate_hz=photons)
+        ov = bias - M.breakdown_v(dev, temps)
+        np.testing.assert_allclose(s.dark_rate_hz, M.dark_rate_hz(dev, temps, ov), rtol=1e-12)
+        np.testing.assert_allclose(s.crosstalk_probability, M.crosstalk_probability(dev, ov), rtol=1e-12, atol=1e-300)
+        np.testing.assert_allclose(s.current_a, M.steady_current_a(dev, bias, temps, photons), rtol=1e-12,
+                                   atol=1e-300)
+
+
+def test_evaluate_shapes_and_the_breakdown_point(sipm_a):
+    dev = sipm_a.device
+    temps = np.linspace(-25, 45, 5)
+    # Each argument may carry the shape: temperatures, biases or photon rates.
+    assert M.evaluate(dev, temps, bias_v=27.5).gain.shape == (5,)
+    assert M.evaluate(dev, 25.0, bias_v=np.linspace(25, 30, 4)).gain.shape == (4,)
+    lit = M.evaluate(dev, 25.0, bias_v=27.5, photon_rate_hz=np.array([0.0, 1e6, 1e7]))
+    assert lit.current_a.shape == (3,) and np.all(np.diff(lit.current_a) > 0)
+    assert lit.temp_c.shape == (3,) and lit.bias_v.tolist() == [27.5] * 3
+    # Exactly at breakdown the relative gain change is undefined (zero gain): NaN, not infinity.
+    at_bd = M.evaluate(dev, 25.0, bias_v=24.5)
+    assert at_bd.gain == 0.0 and np.isnan(at_bd.gain_change_pct_per_k)
+    with pytest.raises(ModelError) as info:
+        M.evaluate(dev, 25.0, bias_v=27.5, overvoltage_v=3.0)
+    assert info.value.key == "bias_v" and info.value.reason == "give exactly one of bias_v and overvoltage_v"
+    with pytest.raises(ModelError) as info:
+        M.relative_gain_change_per_k(dev, [3.0, -1.0])
+    assert info.value.key == "overvoltage_v" and info.value.reason == "must be positive for a relative gain change"

@@ -58,3 +58,41 @@ def test_series_resistor_drop_operating_point(sipm_a, board_ntc):
 def test_network_must_depend_on_code():
     with pytest.raises(ModelError):
         BiasSupply(Dac(12, 2.5), "direct", gain_v_per_v=0.0)
+
+
+def test_dac_voltage_and_integer_codes(board_pt1000):
+    # An ideal 16-bit DAC at 2.5 V: code n gives n x 2.5 / 65536 V; mid-scale 1.25 V.
+    dac = Dac(16, 2.5)
+    assert dac.voltage_v([0, 32768, 65535]).tolist() == pytest.approx([0.0, 1.25, 2.5 * 65535 / 65536], rel=1e-15)
+    codes = board_pt1000.supply.dac_code([31.0, 40.0])
+    assert codes.dtype == np.int64
+    with pytest.raises(ModelError) as info:
+        board_pt1000.supply.dac_code(40.0, "banker")
+    assert info.value.key == "rounding" and info.value.reason == "must be one of nearest, floor, ceil, got 'banker'"
+
+
+def test_operating_point_options(sipm_a, board_ntc):
+    from compensator.physics.sipm import steady_current_a
+    dev, supply = sipm_a.device, board_ntc.supply
+    r = supply.series_resistor_ohm
+    # Light adds current, so more drop: at 1e8 photons/s the drop is larger than in the dark.
+    dark = sipm_bias_v(supply, dev, 27.5, 25.0)
+    lit = sipm_bias_v(supply, dev, 27.5, 25.0, photon_rate_hz=1e8)
+    assert lit == pytest.approx(27.5 - r * steady_current_a(dev, lit, 25.0, 1e8), abs=1e-9) and lit < dark - 0.01
+    # A loose tolerance stops after the first step, V1 = Vs - R I(Vs), which is within 0.5 V of Vs; a tight one
+    # goes on to the fixed point, some 20 mV away (the iteration alternates about it).
+    v1 = 27.5 - r * steady_current_a(dev, 27.5, 25.0, 1e8)
+    assert sipm_bias_v(supply, dev, 27.5, 25.0, photon_rate_hz=1e8, tol_v=0.5) == v1
+    assert abs(v1 - lit) > 0.01
+    with pytest.raises(ModelError) as info:
+        sipm_bias_v(supply, dev, 27.5, 25.0, photon_rate_hz=1e8, max_iter=1)
+    assert info.value.key == "series_resistor_ohm"
+
+
+def test_supply_refuses_unknown_topology_and_a_code_independent_network():
+    with pytest.raises(ModelError) as info:
+        BiasSupply(Dac(12, 2.5), "boost")
+    assert info.value.key == "topology" and info.value.reason == "must be 'feedback_injection' or 'direct', got 'boost'"
+    with pytest.raises(ModelError) as info:
+        BiasSupply(Dac(12, 2.5), "feedback_injection", r1_ohm=0.0)
+    assert info.value.key == "topology" and info.value.reason == "the supply network does not depend on the DAC code"

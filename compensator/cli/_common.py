@@ -18,6 +18,7 @@ __all__ = [
     "numerical_warning_lines", "print_json", "jsonable", "format_number", "format_table", "add_json_flag",
     "bounded_float", "bounded_int", "finite_float", "positive_float", "non_negative_float", "temperature_c",
     "percent", "positive_int", "non_negative_int", "seed", "code", "is_checked_number",
+    "LAW_FLAGS", "add_law_arguments", "drop_correction_from_args", "law_from_args", "locate_law_error",
 ]
 
 #: Kept for callers of the old name: the one serialiser is :func:`compensator.vocabulary.to_json_value`.

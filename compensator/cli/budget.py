@@ -13,7 +13,10 @@ from compensator.cli._common import (
     law_from_args,
     locate_law_error,
     non_negative_float,
+    non_negative_int,
+    percent,
     print_json,
+    seed,
     temperature_c,
     usage_error,
 )
@@ -52,15 +55,15 @@ def register(subparsers) -> None:
     parser.add_argument("--calibration-temp-c", type=temperature_c, default=None, metavar="T",
                         help="temperature of the one-point gain calibration, degree Celsius "
                              "(default: the breakdown reference temperature)")
-    parser.add_argument("--current-uncertainty-pct", type=non_negative_float, default=None,
+    parser.add_argument("--current-uncertainty-pct", type=percent, default=None,
                         metavar="P", help="accuracy of the modelled current for --drop-correction modelled, percent "
                                           f"(default {DEFAULT_CURRENT_UNCERTAINTY_PCT:g})")
     parser.add_argument("--ramp-k-per-min", type=non_negative_float, default=DEFAULT_RAMP_K_PER_MIN, metavar="R",
                         help="enclosure temperature ramp for the sensor-lag term, kelvin per minute "
                              f"(default {DEFAULT_RAMP_K_PER_MIN:g}, an assumption: give the instrument's own)")
-    parser.add_argument("--samples", type=int, default=DEFAULT_SAMPLES, metavar="N",
+    parser.add_argument("--samples", type=non_negative_int, default=DEFAULT_SAMPLES, metavar="N",
                         help=f"Monte Carlo samples (default {DEFAULT_SAMPLES}; 0 skips it)")
-    parser.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="N",
+    parser.add_argument("--seed", type=seed, default=DEFAULT_SEED, metavar="N",
                         help=f"Monte Carlo seed (default {DEFAULT_SEED}; 0 or more)")
     add_json_flag(parser)
     parser.set_defaults(handler=run)
@@ -91,8 +94,6 @@ def _as_dict(budget, sipm, board, law) -> dict:
 
 
 def run(args) -> int:
-    if args.seed < 0:
-        raise usage_error("--seed", f"must be 0 or more, got {args.seed}")
     sipm, board, law = law_from_args(args)
     if args.current_uncertainty_pct is not None and law.drop_correction != "modelled":
         raise usage_error("--current-uncertainty-pct",

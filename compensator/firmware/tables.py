@@ -423,7 +423,8 @@ def ideal_dac_code(law: CompensationLaw, temp_c):
 
 
 def _gain_pct_per_lsb(law: CompensationLaw, temp_c):
-    return 100.0 * law.supply.lsb_v / law.target_overvoltage_v(temp_c)
+    # What the law holds (gain, or gain x PDE x crosstalk x light yield) moves by error_pct_per_v per volt.
+    return law.supply.lsb_v * law.error_pct_per_v(temp_c)
 
 
 def _target(law, board, max_gain_error_pct) -> Target:
@@ -481,10 +482,12 @@ def adc_quantisation_gain_pct(law: CompensationLaw, channel, temp_c):
     Returns
     -------
     ndarray
-        ``100 |dV/dT| (K per code) / 2 / Vov(T)``, percent.
+        ``|dV/dT| (K per code) / 2`` times the law's sensitivity
+        (:meth:`~compensator.law.CompensationLaw.error_pct_per_v`: ``100 / Vov(T)``
+        for the gain laws), percent.
     """
     t = np.asarray(temp_c, dtype=float)
-    return 100.0 * np.abs(law.slope_v_per_k(t)) * 0.5 * channel.temp_per_code_k(t) / law.target_overvoltage_v(t)
+    return np.abs(law.slope_v_per_k(t)) * 0.5 * channel.temp_per_code_k(t) * law.error_pct_per_v(t)
 
 
 def _fault_band(law, board, fault_margin_k: float) -> tuple[int, int]:
@@ -728,7 +731,7 @@ def sweep_table(table: LookupTable, law: CompensationLaw, board) -> TableSweep:
     exact = (ideal_v - law.supply.intercept_v) / law.supply.volts_per_code
     dac, _ = table.lookup(codes)
     table_v = law.supply.output_v(dac)
-    gain_pct = 100.0 * (table_v - ideal_v) / law.target_overvoltage_v(temps)
+    gain_pct = (table_v - ideal_v) * law.error_pct_per_v(temps)
     err_lsb = np.abs(dac - exact)
     worst = int(np.argmax(np.abs(gain_pct)))
     max_gain = float(np.abs(gain_pct).max())
