@@ -205,3 +205,51 @@ def test_ms_bound_out_of_range_names_the_reason():
     with pytest.raises(ModelError, match="at most 10") as info:
         tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "robust", T, ms_max=1e9)
     assert info.value.key == "ms_max"
+
+
+def test_feasibility_test_against_a_direct_computation():
+    # Ms <= bound and no crossing of the negative real axis left of -1, computed directly (interpolated crossing
+    # points, |1 + L| by abs) on random loops; the search's division-free form must agree on every controller.
+    rng = np.random.default_rng(7)
+    # Nyquist-like spirals L = g exp(-j 3 pi x) / (1 + 4 x) with a random gain g per controller, and noise.
+    x = np.linspace(0.0, 1.0, 60)
+    gain = rng.uniform(0.1, 2.0, (40, 1, 1))
+    fixed = 1.0 + gain * np.exp(-3j * np.pi * x) / (1.0 + 4.0 * x) + 0.02 * rng.normal(size=(40, 3, 60))
+    per_ki = 0.02 * (rng.normal(size=(3, 60)) + 1j * rng.normal(size=(3, 60)))
+    ki = rng.uniform(0.0, 2.0, 40)
+    parts = tuning._LoopParts(fixed.real.copy(), fixed.imag.copy(), per_ki.real.copy(), per_ki.imag.copy())
+    ours = tuning._feasible_batch(parts, ki, 1.4)
+    loop = fixed + ki[:, None, None] * per_ki - 1.0  # L itself
+    expected = []
+    for c in range(40):
+        ok = True
+        for p in range(3):
+            curve = loop[c, p]
+            if np.min(np.abs(1.0 + curve)) < 1.0 / 1.4 or curve[-1].real < -1.0:
+                ok = False
+            for a, b in zip(curve[:-1], curve[1:]):
+                if a.imag * b.imag <= 0 and a.imag != b.imag:
+                    x = a.real + a.imag / (a.imag - b.imag) * (b.real - a.real)
+                    ok &= not x < -1.0
+        expected.append(ok)
+    assert list(ours) == expected
+    assert 0 < sum(expected) < 40  # both outcomes occur
+
+
+def test_robust_search_returns_the_same_gains_without_the_shortcut():
+    # The search bisects only controllers feasible at the smallest ki; bisecting every controller must give the
+    # same largest ki (the shortcut drops nothing that could win).
+    plant = plants.fopdt_plant(2.0, 30.0, 5.0)
+    w = np.append(verify.loop_frequency_grid(plant, T, 700, 6.0), np.pi / T)
+    p_resp = plants.discrete_frequency_response(plant, T, w)[None, :]
+    kp = np.linspace(0.05, 2.0, 12)
+    ours = tuning._max_ki(p_resp, w, T, kp, np.zeros_like(kp), 10.0, 1.0, 1.4, 100.0)
+    parts = tuning._loop_parts(p_resp, w, T, kp, np.zeros_like(kp), 10.0)
+    lo, hi = np.full(12, np.log(100.0) - 30.0), np.full(12, np.log(100.0))
+    ok_lo = tuning._feasible_batch(parts, np.exp(lo), 1.4)
+    for _ in range(tuning._BISECTION_STEPS):
+        mid = 0.5 * (lo + hi)
+        ok = tuning._feasible_batch(parts, np.exp(mid), 1.4)
+        lo, hi = np.where(ok, mid, lo), np.where(ok, hi, mid)
+    assert np.array_equal(ours, np.where(ok_lo, np.exp(lo), 0.0))
+    assert np.count_nonzero(ours == 0) >= 1 and np.count_nonzero(ours) >= 4
