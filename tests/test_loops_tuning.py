@@ -253,3 +253,86 @@ def test_robust_search_returns_the_same_gains_without_the_shortcut():
         lo, hi = np.where(ok, mid, lo), np.where(ok, hi, mid)
     assert np.array_equal(ours, np.where(ok_lo, np.exp(lo), 0.0))
     assert np.count_nonzero(ours == 0) >= 1 and np.count_nonzero(ours) >= 4
+
+
+@pytest.mark.parametrize("call, key, reason", [
+    (lambda: tuning.simc(FopdtModel(0.0, 30.0, 5.0)), "", "the model gain must be finite and nonzero"),
+    (lambda: tuning.amigo(FopdtModel(float("nan"), 30.0, 5.0)), "", "the model gain must be finite and nonzero"),
+    (lambda: tuning.imc(FopdtModel(2.0, 0.0, 5.0)), "", "the model time constant must be positive"),
+    (lambda: tuning.simc(FopdtModel(2.0, 30.0, 5.0), pid=True), "",
+     "SIMC PID needs a second-order model (tau2 > 0): give --sopdt, or tune a PI"),
+    (lambda: tuning.simc(SopdtModel(2.0, 30.0, 0.0, 5.0), pid=True), "",
+     "SIMC PID needs a second-order model (tau2 > 0): give --sopdt, or tune a PI"),
+    (lambda: tuning.simc(FopdtModel(2.0, 30.0, 0.0)), "",
+     "SIMC needs tau_c + theta > 0: the model has no dead time, give --tau-c"),
+    (lambda: tuning.amigo(FopdtModel(2.0, 30.0, 0.0)), "", "AMIGO needs a positive dead time"),
+    (lambda: tuning.imc(FopdtModel(2.0, 30.0, 5.0), lambda_s=0.0), "", "IMC lambda must be positive"),
+    (lambda: tuning.imc(FopdtModel(2.0, 30.0, 0.0), lambda_s=-1.0), "", "IMC lambda must be positive"),
+    (lambda: tuning.ziegler_nichols_step(FopdtModel(2.0, 30.0, 0.0)), "",
+     "the Ziegler-Nichols step rule needs a positive dead time"),
+    (lambda: tuning.ziegler_nichols_ultimate(0.0, 7.0), "",
+     "the ultimate gain must be nonzero and the ultimate period positive"),
+    (lambda: tuning.ziegler_nichols_ultimate(2.0, 0.0), "",
+     "the ultimate gain must be nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(0.0, 7.0), "",
+     "the ultimate gain must be finite and nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(float("inf"), 7.0), "",
+     "the ultimate gain must be finite and nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(2.0, 0.0), "",
+     "the ultimate gain must be finite and nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(2.0, float("nan")), "",
+     "the ultimate gain must be finite and nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(2.0, 7.0, 1.0), "ms_max",
+     "must exceed 1 and be at most 10 (1.4 is robust, 2 aggressive; a larger bound no longer restrains the loop), "
+     "got 1"),
+    (lambda: tuning.ms_point_ultimate(2.0, 7.0, 10.5), "ms_max",
+     "must exceed 1 and be at most 10 (1.4 is robust, 2 aggressive; a larger bound no longer restrains the loop), "
+     "got 10.5"),
+    (lambda: tuning.fopdt_from_ultimate(0.0, 2.0, 7.0), "static_gain", "must be finite and nonzero, got 0.0"),
+    (lambda: tuning.fopdt_from_ultimate(2.0, float("nan"), 7.0), "ultimate_gain",
+     "must be finite and nonzero, got nan"),
+    (lambda: tuning.fopdt_from_ultimate(2.0, 2.0, 0.0), "ultimate_period_s", "must be finite and nonzero, got 0.0"),
+    (lambda: tuning.fopdt_from_ultimate(2.0, 2.0, -7.0), "ultimate_period_s", "must be positive, got -7.0"),
+    (lambda: tuning.fopdt_from_ultimate(2.0, 0.5, 7.0), "static_gain",
+     "K Ku = 1 must exceed 1 (same sign, and a loop gain that needs more than K to oscillate); check the signs and "
+     "units of the static and ultimate gains"),
+    (lambda: tuning.fopdt_from_ultimate(-2.0, 2.0, 7.0), "static_gain",
+     "K Ku = -4 must exceed 1 (same sign, and a loop gain that needs more than K to oscillate); check the signs and "
+     "units of the static and ultimate gains"),
+    (lambda: tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "simc", 0.0), "", "the sample time must be positive"),
+    (lambda: tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "simc", float("nan")), "",
+     "the sample time must be positive"),
+    (lambda: tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "pid", 0.1), "",
+     "method must be one of simc, amigo, imc, zn, zn-cycle, robust, got 'pid'"),
+    (lambda: tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "robust", 0.1, ms_max=1.0), "ms_max",
+     "must exceed 1 and be at most 10 (1.4 is robust, 2 aggressive; a larger bound no longer restrains the loop), "
+     "got 1"),
+])
+def test_every_refusal_names_its_key_and_reason(call, key, reason):
+    with pytest.raises(ModelError) as info:
+        call()
+    assert (info.value.key, info.value.reason) == (key, reason)
+
+
+def test_the_edges_of_the_accepted_inputs():
+    # Values just inside every bound are accepted (a mutated bound would refuse them).
+    assert tuning.ziegler_nichols_ultimate(2.0, 0.5).ki_per_s == pytest.approx(0.9 / (0.5 / 1.2))
+    assert tuning.ziegler_nichols_ultimate(-2.0, 7.0, pid=True).kp == pytest.approx(-1.2)
+    assert tuning.ms_point_ultimate(2.0, 7.0, 10.0).kp > 0
+    assert tuning.ms_point_ultimate(2.0, 0.5, 1.0001).kp > 0
+    m = tuning.fopdt_from_ultimate(1.0, 1.0001, 7.0)
+    assert m.gain == 1.0 and m.time_constant_s > 0
+    m = tuning.fopdt_from_ultimate(2.0, 1.0, 7.0)  # a Ku of exactly 1 is a valid ultimate gain
+    assert m.time_constant_s == pytest.approx(math.sqrt(3.0) * 7.0 / (2.0 * math.pi), rel=1e-12)
+    assert tuning.imc(FopdtModel(2.0, 30.0, 0.0), lambda_s=1e-3)[1] == 1e-3
+    assert tuning.simc(FopdtModel(2.0, 30.0, 0.0), tau_c_s=1e-3)[1] == 1e-3
+    assert tuning.sampling_dead_time_s(0.1) == pytest.approx(0.15) and tuning.sampling_dead_time_s(0.1, 2) == 0.25
+
+
+def test_a_loose_ms_bound_from_ku_and_pu_takes_the_point_closest_to_minus_one():
+    # With Ti = Pu / 1.2, r = 1.2 / (2 pi): the ray L = -x (1 - j r) comes no closer to -1 than r / sqrt(1 + r^2)
+    # (at x = 1 / (1 + r^2)); a bound looser than that (Ms 10) takes that point, a traceback before.
+    r = 1.2 / (2.0 * math.pi)
+    g = tuning.ms_point_ultimate(2.0, 7.0, 10.0)
+    assert g.kp == pytest.approx(2.0 / (1.0 + r * r), rel=1e-12)
+    assert tuning.ms_point_ultimate(2.0, 7.0, 5.0).kp < g.kp

@@ -271,7 +271,9 @@ def ms_point_ultimate(ultimate_gain: float, ultimate_period_s: float, ms_max: fl
     (moving one point of the Nyquist curve, as the modified Ziegler-Nichols
     method does; Astrom and Hagglund, PID Controllers, 1995, from memory).
     With ``r = 1 / (omega_u Ti)`` and ``x = kp / Ku``,
-    ``(1 + r^2) x^2 - 2 x + 1 - 1 / Ms^2 = 0``, smaller root. One point only:
+    ``(1 + r^2) x^2 - 2 x + 1 - 1 / Ms^2 = 0``, smaller root (for a bound
+    so loose that the ray never comes within ``1 / Ms`` of -1, Ms above
+    ``sqrt(1 + r^2) / r``, about 5.3, the point closest to -1). One point only:
     the bound holds at the ultimate frequency, not necessarily elsewhere;
     verify on a model.
 
@@ -295,7 +297,8 @@ def ms_point_ultimate(ultimate_gain: float, ultimate_period_s: float, ms_max: fl
     ti = ultimate_period_s / 1.2
     r = ultimate_period_s / (2.0 * math.pi * ti)
     q = 1.0 + r * r
-    x = (1.0 - math.sqrt(1.0 - q * (1.0 - 1.0 / ms_max ** 2))) / q
+    # Below zero the ray never comes within 1 / Ms of -1 (Ms above sqrt(q) / r, about 5.3): the closest point, x = 1 / q.
+    x = (1.0 - math.sqrt(max(1.0 - q * (1.0 - 1.0 / ms_max ** 2), 0.0))) / q
     kp = x * ultimate_gain
     return PidGains(kp, kp / ti)
 
