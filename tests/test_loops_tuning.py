@@ -336,3 +336,28 @@ def test_a_loose_ms_bound_from_ku_and_pu_takes_the_point_closest_to_minus_one():
     g = tuning.ms_point_ultimate(2.0, 7.0, 10.0)
     assert g.kp == pytest.approx(2.0 / (1.0 + r * r), rel=1e-12)
     assert tuning.ms_point_ultimate(2.0, 7.0, 5.0).kp < g.kp
+
+
+def test_tune_records_how_each_method_got_its_gains():
+    model = FopdtModel(2.0, 30.0, 5.0)
+    plant = plants.model_plant(model)
+    rob = tuning.tune(plant, "robust", T, ms_max=1.6)
+    assert rob.gains == tuning.robust(plant, T, 1.6)
+    assert (rob.method, rob.pid, rob.model, rob.ms_target) == ("robust", False, None, 1.6)
+    assert rob.rule_dead_time_s == pytest.approx(1.5 * T)
+    cyc = tuning.tune(plant, "zn-cycle", T, pid=True, computation_delay_samples=2)
+    ku, pu = tuning.ultimate_point(plant, T, 2)  # the sampled loop with two samples of computation delay
+    assert (cyc.ultimate_gain, cyc.ultimate_period_s) == (ku, pu)
+    assert cyc.gains == tuning.ziegler_nichols_ultimate(ku, pu, pid=True)
+    assert (cyc.method, cyc.pid, cyc.rule_dead_time_s) == ("zn-cycle", True, pytest.approx(2.5 * T))
+    cont = tuning.tune(plant, "zn-cycle", T, include_sampling_delay=False)
+    assert (cont.ultimate_gain, cont.ultimate_period_s) == tuning.ultimate_point(plant, None)
+    assert cont.rule_dead_time_s == 0.0
+    # The rules see the model's dead time plus T/2 + n T for n samples of computation delay.
+    two = tuning.tune(plant, "simc", T, model=model, computation_delay_samples=2)
+    assert two.rule_dead_time_s == pytest.approx(5.0 + 2.5 * T) and two.model == model
+    assert two.closed_loop_time_constant_s == pytest.approx(5.0 + 2.5 * T)
+    assert tuning.tune(plant, "imc", T, model=model, tau_c_s=7.0).closed_loop_time_constant_s == 7.0
+    assert tuning.tune(plant, "zn", T, model=model).closed_loop_time_constant_s is None
+    amigo_pid = tuning.tune(plant, "amigo", T, model=model, pid=True)
+    assert amigo_pid.gains == tuning.amigo(dataclasses.replace(model, dead_time_s=5.0 + 1.5 * T), pid=True)
