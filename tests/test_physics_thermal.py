@@ -69,3 +69,44 @@ def test_old_import_paths_still_work(params):
     hot = dataclasses.replace(params, sink_resistance_k_per_w=50.0, max_current_a=10.0)
     with pytest.raises(ModelError, match="thermal runaway"):
         plants.cooler_steady_state(hot, 9.0)
+
+
+def test_dew_point_refuses_humidity_outside_0_to_100_percent_with_its_key():
+    for rh in (0.0, -5.0, 100.5, float("nan")):
+        with pytest.raises(ModelError) as info:
+            thermal.dew_point_c(20.0, rh)
+        assert (info.value.key, info.value.reason) == ("relative_humidity_pct", "must be in (0, 100] percent")
+    assert thermal.dew_point_c(20.0, 100.0) == pytest.approx(20.0, abs=1e-12)  # saturated air: Td = T
+
+
+def test_derivatives_by_hand_at_another_ambient_and_without_sensor_lag(params):
+    # The two heat balances written out (Peltier module, common practice): C_c dTc/dt = P + G (Ta - Tc) - Qc,
+    # C_h dTh/dt = Qh - (Th - Ta) / R_sink, with Qc = S I Tc[K] - I^2 R / 2 - K (Th - Tc), Qh = Qc + I (S (Th - Tc) + I R).
+    p = params
+    tc, th, ts, i, ta = 18.0, 33.0, 19.5, 1.2, 40.0
+    qc = p.seebeck_v_per_k * i * (tc + 273.15) - i * i * p.resistance_ohm / 2 - p.conductance_w_per_k * (th - tc)
+    qh = qc + i * (p.seebeck_v_per_k * (th - tc) + i * p.resistance_ohm)
+    dtc, dth, dts = thermal.cooler_derivatives(p, tc, th, ts, i, ambient_temp_c=ta)
+    assert dtc == pytest.approx((p.cold_heat_load_w + p.cold_leak_conductance_w_per_k * (ta - tc) - qc)
+                                / p.cold_heat_capacity_j_per_k, rel=1e-12)
+    assert dth == pytest.approx((qh - (th - ta) / p.sink_resistance_k_per_w) / p.hot_heat_capacity_j_per_k, rel=1e-12)
+    assert dts == pytest.approx((tc - ts) / p.sensor_time_constant_s, rel=1e-12)
+    assert float(thermal.heat_released_w(p, i, tc, th)) == pytest.approx(qh, rel=1e-12)
+    instant = dataclasses.replace(p, sensor_time_constant_s=0.0)
+    _, _, dts = thermal.cooler_derivatives(instant, np.array([tc, tc]), th, ts, i)
+    assert np.array_equal(dts, [0.0, 0.0])
+
+
+def test_current_limits_are_the_stable_heating_edge_and_the_optimum(params):
+    # Upper limit: the current of maximum cooling of an ideal module, I = S Tc[K] / R at the coldest point
+    # (dQc/dI = 0; common practice), checked against the steady state on a fine grid; lower limit: the strongest
+    # heating current whose fixed-current heat balance is still stable (both eigenvalues in the left half plane).
+    lo, hi = thermal.cooler_current_limits_a(params, 10.0)
+    grid = np.linspace(0.0, params.max_current_a, 20001)
+    tc, _ = thermal.cooler_steady_state(params, grid, 10.0)
+    assert hi == pytest.approx(grid[np.argmin(tc)], abs=2 * params.max_current_a / 20000)
+    assert hi == pytest.approx(thermal.cooler_optimum_current_a(params, 10.0), rel=1e-12)
+    assert hi < params.max_current_a and hi != thermal.cooler_current_limits_a(params, 40.0)[1]
+    assert lo == thermal.stable_current_range_a(params)[0] and -params.max_current_a <= lo < 0
+    limited = dataclasses.replace(params, max_current_a=0.5 * hi)
+    assert thermal.cooler_current_limits_a(limited, 10.0)[1] == 0.5 * hi  # the module's limit comes first
