@@ -110,3 +110,53 @@ def test_current_limits_are_the_stable_heating_edge_and_the_optimum(params):
     assert lo == thermal.stable_current_range_a(params)[0] and -params.max_current_a <= lo < 0
     limited = dataclasses.replace(params, max_current_a=0.5 * hi)
     assert thermal.cooler_current_limits_a(limited, 10.0)[1] == 0.5 * hi  # the module's limit comes first
+
+
+def test_operating_point_at_another_ambient_holds_the_setpoint_and_both_heat_balances(params):
+    ta = 40.0
+    op = thermal.cooler_operating_point(params, 25.0, ambient_temp_c=ta)
+    assert op.cold_temp_c == pytest.approx(25.0, abs=1e-9) and op.ambient_temp_c == ta
+    # Steady state at that ambient, by hand: no heat flows into either node.
+    p, i, tc, th = params, op.current_a, op.cold_temp_c, op.hot_temp_c
+    qc = p.seebeck_v_per_k * i * (tc + 273.15) - i * i * p.resistance_ohm / 2 - p.conductance_w_per_k * (th - tc)
+    qh = qc + i * (p.seebeck_v_per_k * (th - tc) + i * p.resistance_ohm)
+    assert p.cold_heat_load_w + p.cold_leak_conductance_w_per_k * (ta - tc) - qc == pytest.approx(0.0, abs=1e-9)
+    assert qh - (th - ta) / p.sink_resistance_k_per_w == pytest.approx(0.0, abs=1e-9)
+    assert op.optimum_current_a == pytest.approx(thermal.cooler_optimum_current_a(p, ta), rel=1e-12)
+    assert op.coldest_temp_c == pytest.approx(float(thermal.cooler_steady_state(p, op.optimum_current_a, ta)[0]))
+    # The gain dTc/dI by a central difference of the steady state.
+    h = 1e-5
+    slope = (float(thermal.cooler_steady_state(p, i + h, ta)[0]) - float(thermal.cooler_steady_state(p, i - h, ta)[0]))
+    assert op.gain_k_per_a == pytest.approx(slope / (2 * h), rel=1e-5)
+    # Exactly the coldest reachable temperature is held at the current of maximum cooling.
+    coldest = thermal.cooler_operating_point(p, op.coldest_temp_c, ambient_temp_c=ta)
+    assert coldest.current_a == op.optimum_current_a
+    # At the module's limit current the point exists (the limit itself is allowed).
+    assert thermal.cooler_operating_point(p, current_a=p.max_current_a).current_a == p.max_current_a
+
+
+def test_operating_point_refusals_name_key_and_reason(params):
+    p, ta = params, 40.0
+    cases = [(dict(current_a=float("nan")), "current_a", "must be finite, got nan"),
+             (dict(setpoint_temp_c=float("inf")), "setpoint_temp_c", "must be finite, got inf"),
+             (dict(ambient_temp_c=float("nan")), "ambient_temp_c", "must be finite, got nan"),
+             (dict(current_a=p.max_current_a * 1.5), "current_a",
+              f"current {p.max_current_a * 1.5:g} A exceeds the module's max_current_a {p.max_current_a:g} A")]
+    for kwargs, key, reason in cases:
+        with pytest.raises(ModelError) as info:
+            thermal.cooler_operating_point(p, **kwargs)
+        assert (info.value.key, info.value.reason) == (key, reason)
+    i_opt = thermal.cooler_optimum_current_a(p, ta)
+    t_cold = float(thermal.cooler_steady_state(p, i_opt, ta)[0])
+    with pytest.raises(ModelError) as info:
+        thermal.cooler_operating_point(p, t_cold - 1.0, ambient_temp_c=ta)
+    assert info.value.key == "setpoint_temp_c"
+    assert info.value.reason == (f"setpoint {t_cold - 1.0:g} C is below the coldest reachable {t_cold:.2f} C at "
+                                 f"ambient 40 C (current of maximum cooling {i_opt:.3f} A)")
+    i_warm = thermal.stable_current_range_a(p)[0]
+    t_warm = float(thermal.cooler_steady_state(p, i_warm, ta)[0])
+    with pytest.raises(ModelError) as info:
+        thermal.cooler_operating_point(p, t_warm + 1.0, ambient_temp_c=ta)
+    assert info.value.key == "setpoint_temp_c"
+    assert info.value.reason == (f"setpoint {t_warm + 1.0:g} C is above the warmest reachable {t_warm:.2f} C at "
+                                 f"ambient 40 C (heating at {i_warm:.3g} A)")
