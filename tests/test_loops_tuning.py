@@ -361,3 +361,34 @@ def test_tune_records_how_each_method_got_its_gains():
     assert tuning.tune(plant, "zn", T, model=model).closed_loop_time_constant_s is None
     amigo_pid = tuning.tune(plant, "amigo", T, model=model, pid=True)
     assert amigo_pid.gains == tuning.amigo(dataclasses.replace(model, dead_time_s=5.0 + 1.5 * T), pid=True)
+
+
+def test_rules_fit_their_own_model_and_simc_pid_converts_any_positive_tau2():
+    plant = plants.sopdt_plant(2.0, 30.0, 4.0, 5.0)
+    # Without a model the rules fit one: an FOPDT for every rule but the SIMC PID, which needs the SOPDT.
+    from compensator.loops.identify import approximate_plant
+
+    fopdt = approximate_plant(plant, "fopdt")
+    res = tuning.tune(plant, "amigo", T)
+    assert res.model == fopdt and res.pid is False
+    assert res.gains == tuning.amigo(dataclasses.replace(fopdt, dead_time_s=fopdt.dead_time_s + 1.5 * T))
+    assert tuning.tune(plant, "simc", T, pid=True).model == approximate_plant(plant, "sopdt")
+    # Skogestad (2003) SIMC PID in series form, Kc (1 + Td / Ti), Kc / Ti, Kc Td in parallel form, for tau2 < 1 s too.
+    g, tc = tuning.simc(SopdtModel(2.0, 30.0, 0.5, 5.0), pid=True)
+    kc, ti = 30.0 / (2.0 * 10.0), 30.0
+    assert (g.kp, g.ki_per_s, g.kd_s) == pytest.approx((kc * (1 + 0.5 / ti), kc / ti, kc * 0.5), rel=1e-12)
+
+
+def test_loop_parts_are_one_plus_the_controller_times_the_plant():
+    # fixed + ki per_ki must equal 1 + C(exp(j w T)) P for a PID with any derivative filter N (python-control's
+    # frequency response of the controller transfer function is the reference).
+    plant = plants.fopdt_plant(2.0, 30.0, 5.0)
+    w = verify.loop_frequency_grid(plant, T, 300, 5.0)
+    p = plants.discrete_frequency_response(plant, T, w)
+    kp, ki, kd, n = np.array([0.8, 1.1]), np.array([0.03, 0.05]), np.array([2.0, 4.0]), 5.0
+    parts = tuning._loop_parts(p[None, :], w, T, kp, kd, n)
+    for j in range(2):
+        c = verify.controller_tf(verify.PidGains(kp[j], ki[j], kd[j], n), T)
+        ref = 1.0 + c(np.exp(1j * w * T)) * p
+        got = parts.fixed_re[j, 0] + ki[j] * parts.per_ki_re[0] + 1j * (parts.fixed_im[j, 0] + ki[j] * parts.per_ki_im[0])
+        assert np.allclose(got, ref, rtol=1e-9, atol=1e-12)
