@@ -160,3 +160,30 @@ def test_operating_point_refusals_name_key_and_reason(params):
     assert info.value.key == "setpoint_temp_c"
     assert info.value.reason == (f"setpoint {t_warm + 1.0:g} C is above the warmest reachable {t_warm:.2f} C at "
                                  f"ambient 40 C (heating at {i_warm:.3g} A)")
+
+
+def _stable_by_hand(p, i):
+    # Both eigenvalues of the fixed-current two-node heat balance in the left half plane: trace < 0, det > 0.
+    m11 = -(p.cold_leak_conductance_w_per_k + p.seebeck_v_per_k * i + p.conductance_w_per_k)
+    m22 = p.seebeck_v_per_k * i - p.conductance_w_per_k - 1.0 / p.sink_resistance_k_per_w
+    k = p.conductance_w_per_k
+    return m11 / p.cold_heat_capacity_j_per_k + m22 / p.hot_heat_capacity_j_per_k < 0 and m11 * m22 - k * k > 0
+
+
+def test_stable_current_range_against_a_scan_when_strong_cooling_runs_the_hot_side_away(params):
+    # A strong module on a poor heat sink: S I outgrows K + 1 / R_sink below 1 A, so the cooling edge is unstable too.
+    p = dataclasses.replace(params, seebeck_v_per_k=0.2, conductance_w_per_k=0.01, sink_resistance_k_per_w=10.0)
+    lo, hi = thermal.stable_current_range_a(p)
+    grid = np.linspace(-p.max_current_a, p.max_current_a, 600001)
+    stable = np.array([_stable_by_hand(p, i) for i in grid[::100]])
+    edges = grid[::100][stable]
+    assert 0.0 < hi < 1.0 and -p.max_current_a <= lo < 0.0
+    assert hi == pytest.approx(edges.max(), abs=2 * p.max_current_a / 6000)
+    assert lo == pytest.approx(edges.min(), abs=2 * p.max_current_a / 6000)
+    assert _stable_by_hand(p, hi) and not _stable_by_hand(p, hi * (1 + 1e-6))
+    # With no leak and no module conductance even zero current has no stable state.
+    dead = dataclasses.replace(params, conductance_w_per_k=0.0, cold_leak_conductance_w_per_k=0.0)
+    with pytest.raises(ModelError) as info:
+        thermal.stable_current_range_a(dataclasses.replace(dead, max_current_a=3.0, seebeck_v_per_k=0.2,
+                                                           sink_resistance_k_per_w=10.0))
+    assert info.value.reason == "the module has no stable steady state even at zero current"
