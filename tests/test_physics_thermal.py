@@ -187,3 +187,17 @@ def test_stable_current_range_against_a_scan_when_strong_cooling_runs_the_hot_si
         thermal.stable_current_range_a(dataclasses.replace(dead, max_current_a=3.0, seebeck_v_per_k=0.2,
                                                            sink_resistance_k_per_w=10.0))
     assert info.value.reason == "the module has no stable steady state even at zero current"
+
+
+def test_optimum_current_inside_the_range_against_a_fine_scan(params):
+    # A module with a large resistance has its maximum cooling well inside +-max_current_a (an ideal module peaks
+    # near S Tc / R; common practice): the search must find the coldest steady state of a fine scan, at any ambient.
+    p = dataclasses.replace(params, resistance_ohm=20.0)
+    for ta in (-20.0, 25.0, 45.0):
+        grid = np.linspace(0.0, p.max_current_a, 300001)
+        tc, _ = thermal.cooler_steady_state(p, grid, ta)
+        best = grid[np.argmin(tc)]
+        assert 0.1 < best < 0.9 * p.max_current_a
+        assert thermal.cooler_optimum_current_a(p, ta) == pytest.approx(best, abs=2e-5)
+    # At the module's limit the limit itself is returned, exactly.
+    assert thermal.cooler_optimum_current_a(params, 25.0) == thermal.stable_current_range_a(params)[1]
