@@ -201,3 +201,13 @@ def test_optimum_current_inside_the_range_against_a_fine_scan(params):
         assert thermal.cooler_optimum_current_a(p, ta) == pytest.approx(best, abs=2e-5)
     # At the module's limit the limit itself is returned, exactly.
     assert thermal.cooler_optimum_current_a(params, 25.0) == thermal.stable_current_range_a(params)[1]
+
+
+def test_heat_balance_matrix_by_hand_also_for_a_whole_number_current(params):
+    p = params
+    for current in (0, 2, np.array([0, 1])):  # whole numbers must not truncate the conductances
+        m11, m12, m21, m22 = thermal.heat_balance_matrix_w_per_k(p, current)
+        i = np.asarray(current, dtype=float)
+        assert np.allclose(m11, -(p.cold_leak_conductance_w_per_k + p.seebeck_v_per_k * i + p.conductance_w_per_k))
+        assert np.allclose(m12, p.conductance_w_per_k) and np.allclose(m21, p.conductance_w_per_k)
+        assert np.allclose(m22, p.seebeck_v_per_k * i - p.conductance_w_per_k - 1.0 / p.sink_resistance_k_per_w)
