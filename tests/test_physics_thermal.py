@@ -211,3 +211,34 @@ def test_heat_balance_matrix_by_hand_also_for_a_whole_number_current(params):
         assert np.allclose(m11, -(p.cold_leak_conductance_w_per_k + p.seebeck_v_per_k * i + p.conductance_w_per_k))
         assert np.allclose(m12, p.conductance_w_per_k) and np.allclose(m21, p.conductance_w_per_k)
         assert np.allclose(m22, p.seebeck_v_per_k * i - p.conductance_w_per_k - 1.0 / p.sink_resistance_k_per_w)
+
+
+def test_steady_state_refusals_name_key_and_reason(params):
+    with pytest.raises(ModelError) as info:
+        thermal.cooler_steady_state(params, [1.0, float("nan")])
+    assert (info.value.key, info.value.reason) == ("current_a", "must be finite, got nan")
+    strong = dataclasses.replace(params, seebeck_v_per_k=0.2, conductance_w_per_k=0.01, sink_resistance_k_per_w=10.0)
+    with pytest.raises(ModelError) as info:
+        thermal.cooler_steady_state(strong, 3.0)
+    assert info.value.reason == (
+        "the module has no stable steady state at 3 A: the Peltier and Joule heat outgrow what the heat sink and "
+        "leaks carry away (thermal runaway); lower the current or improve the heat sink")
+
+
+def test_edges_of_humidity_setpoint_and_sensor_lag(params):
+    assert np.isfinite(thermal.dew_point_c(20.0, 0.5))  # dry air, below 1 %, is still air
+    # The warmest reachable setpoint itself is held, at the strongest stable heating current.
+    i_warm = thermal.stable_current_range_a(params)[0]
+    t_warm = float(thermal.cooler_steady_state(params, i_warm, 25.0)[0])
+    assert thermal.cooler_operating_point(params, t_warm, ambient_temp_c=25.0).current_a == pytest.approx(i_warm)
+    # A sensor lag below a second still lags.
+    quick = dataclasses.replace(params, sensor_time_constant_s=0.5)
+    assert thermal.cooler_derivatives(quick, 20.0, 30.0, 21.0, 1.0)[2] == pytest.approx(-2.0, rel=1e-12)
+    # The optimum current follows the ambient where it lies inside the range (a 20 ohm module).
+    big_r = dataclasses.replace(params, resistance_ohm=20.0)
+    op = thermal.cooler_operating_point(big_r, 40.0, ambient_temp_c=40.0)
+    assert op.optimum_current_a == pytest.approx(thermal.cooler_optimum_current_a(big_r, 40.0), rel=1e-9)
+    assert op.optimum_current_a != pytest.approx(thermal.cooler_optimum_current_a(big_r, -20.0), rel=1e-3)
+    # The matrix entries keep the shape of the current.
+    m = thermal.heat_balance_matrix_w_per_k(params, np.array([0.0, 1.0, 2.0]))
+    assert [np.shape(e) for e in m] == [(3,)] * 4
