@@ -6,6 +6,7 @@ import dataclasses
 
 import numpy as np
 import pytest
+from scipy.optimize import minimize_scalar
 
 from compensator.errors import ModelError
 from compensator.physics import thermal
@@ -199,6 +200,10 @@ def test_optimum_current_inside_the_range_against_a_fine_scan(params):
         best = grid[np.argmin(tc)]
         assert 0.1 < best < 0.9 * p.max_current_a
         assert thermal.cooler_optimum_current_a(p, ta) == pytest.approx(best, abs=2e-5)
+        # scipy's bounded Brent search to 1e-12 A over the whole range is the reference to 1e-7 A.
+        ref = minimize_scalar(lambda x: float(thermal.cooler_steady_state(p, x, ta)[0]), bounds=(0.0, p.max_current_a),
+                              method="bounded", options={"xatol": 1e-12}).x
+        assert thermal.cooler_optimum_current_a(p, ta) == pytest.approx(ref, abs=1e-7)
     # At the module's limit the limit itself is returned, exactly.
     assert thermal.cooler_optimum_current_a(params, 25.0) == thermal.stable_current_range_a(params)[1]
 
