@@ -125,6 +125,7 @@ def test_robust_pid_on_the_cooler_is_stable_and_meets_ms(cooler):
         assert rep.stable and rep.margins.ms <= 1.4 * 1.001 and not rep.warnings
         assert g.kp < 0  # more current cools: reverse acting
     assert abs(pid.ki_per_s) > abs(pi.ki_per_s)  # the extra freedom buys integral gain
+    assert pid.derivative_filter_n == 10.0 and pid.kd_s < 0  # the firmware PID's default filter, N = 10
 
 
 def test_robust_reports_infeasible_bounds():
