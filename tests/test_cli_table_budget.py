@@ -119,7 +119,7 @@ def test_table_refuses_to_overwrite_without_force(cli, profiles_dir, tmp_path):
     (("hut-sipm-b.yaml", "hut-board-pt1000.yaml", "4", "0.005"), "DAC quantisation"),
     (("hut-sipm-a.yaml", "hut-board-ntc.yaml", "3", "0.01"), "ADC quantisation"),
     (("hut-sipm-b.yaml", "hut-board-ntc.yaml", "4", "0.05"), "output limit (supply maximum output)"),
-    (("hut-sipm-a.yaml", "hut-board-ntc.yaml", "3", "-1"), "max_gain_error_pct"),
+    (("hut-sipm-a.yaml", "hut-board-ntc.yaml", "3", "-1"), "max-gain-error-pct"),
 ])
 def test_table_cannot_meet_the_bound(cli, profiles_dir, tmp_path, argv, words):
     out = tmp_path / "out"

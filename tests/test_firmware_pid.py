@@ -92,15 +92,15 @@ def test_float_pid_default_times():
     # PID: Tt = sqrt(Ti Td) = sqrt((2/0.5)(0.4/2)) = sqrt(0.8); Tf = 0.4/(2*10) = 0.02
     d = discretise_pid(settings())
     assert d.tracking_time_s == pytest.approx(math.sqrt(0.8))
-    assert d.filter_time_s == pytest.approx(0.02)
+    assert d.derivative_filter_s == pytest.approx(0.02)
     # PI: Tt = Ti; kp = 0: Tf = Tt = h
     assert discretise_pid(settings(kd_s=0.0)).tracking_time_s == pytest.approx(4.0)
     d0 = discretise_pid(settings(kp=0.0))
-    assert d0.filter_time_s == pytest.approx(0.1) and d0.tracking_time_s == pytest.approx(0.1)
+    assert d0.derivative_filter_s == pytest.approx(0.1) and d0.tracking_time_s == pytest.approx(0.1)
     # Tt never shorter than h; no tracking without integral action or with clamping
-    assert discretise_pid(settings(tracking_time_s=0.01)).ao == pytest.approx(1.0)
-    assert discretise_pid(settings(ki_per_s=0.0)).ao == 0.0
-    assert discretise_pid(settings(anti_windup="clamping")).ao == 0.0
+    assert discretise_pid(settings(tracking_time_s=0.01)).track == pytest.approx(1.0)
+    assert discretise_pid(settings(ki_per_s=0.0)).track == 0.0
+    assert discretise_pid(settings(anti_windup="clamping")).track == 0.0
     # no filter: N = inf gives the plain backward difference kd/h
     dn = discretise_pid(settings(derivative_filter_n=math.inf))
     assert dn.ad == 0.0 and dn.bd == pytest.approx(4.0)
@@ -452,3 +452,16 @@ def test_public_api_has_numpydoc_docstrings():
     for cls in (FloatPid, FixedPid):
         for method in ("step", "run", "reset"):
             assert "Parameters\n----------" in inspect.getdoc(getattr(cls, method)), (cls, method)
+
+
+def test_old_names_and_settings_from_gains():
+    from compensator.loops.verify import PidGains
+
+    d = discretise_pid(settings())
+    assert d.ao == d.track and d.filter_time_s == d.derivative_filter_s
+    g = PidGains(2.0, 0.5, 0.4, 8.0, 0.7)
+    s = PidSettings.from_gains(g, sample_time_s=0.1, out_min=-1.0, out_max=2.0, rate_limit_per_s=3.0)
+    assert (s.kp, s.ki_per_s, s.kd_s, s.derivative_filter_n, s.setpoint_weight) == (2.0, 0.5, 0.4, 8.0, 0.7)
+    assert (s.sample_time_s, s.out_min, s.out_max, s.rate_limit_per_s) == (0.1, -1.0, 2.0, 3.0)
+    # the same Tf by both names: kd / (kp N) = 0.4 / 16
+    assert discretise_pid(s).derivative_filter_s == pytest.approx(g.derivative_filter_s) == pytest.approx(0.025)

@@ -20,7 +20,8 @@ from compensator.firmware.pid import (
     PidSettings,
     quantise_pid,
 )
-from compensator.firmware.pid_c import render_pid_c, write_pid_c
+from compensator.fileio import write_files_atomic
+from compensator.firmware.pid_c import render_pid_c
 from cbuild import CC, build, needs_cc
 
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion",
@@ -273,13 +274,18 @@ def test_rendering_is_deterministic_and_carries_the_banner(sipm_a, board_ntc):
     assert "conditional integration" in clamped and "TRACK_MANT * (u - v)" not in clamped
 
 
-@pytest.mark.parametrize("name", ["", "1pid", "Cooler", "cooler-pid", "a" * 32, "x y"])
+@pytest.mark.parametrize("name", ["", "1pid", "Cooler", "cooler-pid", "a" * 32, "x y", "abs", "exit", "int"])
 def test_bad_names_are_refused(name):
     with pytest.raises(ModelError, match="name"):
         render_pid_c(coefficients("cooler_pid"), name=name)
 
 
-def test_write_pid_c_refuses_to_overwrite_and_writes_nothing(tmp_path):
+def write_pid_c(coeffs, directory, *, name, overwrite=False):
+    """The PID renderer's text through the one file-set writer (the command line's edge does this)."""
+    return write_files_atomic(directory, render_pid_c(coeffs, name=name), overwrite=overwrite, what="C output")
+
+
+def test_written_pid_c_refuses_to_overwrite_and_writes_nothing(tmp_path):
     coeffs = coefficients("cooler_pid")
     (tmp_path / "cooler_pid.c").write_text("keep me")
     with pytest.raises(InputError, match="cooler_pid.c: already exists"):
@@ -366,6 +372,24 @@ static void init_at_{n}(int32_t o) {{ {n}_init_at(&st_{n}, o); }}""")
     return "\n".join(parts)
 
 
+def check_multi_bit_exact(tmp_path, configs: dict, files: dict, seed: int) -> set:
+    """Compile every controller into one program, run each over a seeded schedule, compare bit for bit with
+    its Python reference; return the product shifts the configurations used."""
+    exe = compile_c(tmp_path, files, {"multi.c": multi_harness(list(configs))},
+                    STRICT + ["-O1"] + sanitizer_flags(tmp_path))
+    shifts = set()
+    for index, (name, coeffs) in enumerate(configs.items()):
+        sched = random_schedule(np.random.default_rng(seed + index), 3000, coeffs)
+        result = subprocess.run([str(exe), str(index)], input=c_commands(sched), capture_output=True, text=True)
+        assert result.returncode == 0 and result.stderr == "", (name, result.stderr)
+        got = [tuple(int(v) for v in line.split()) for line in result.stdout.splitlines()]
+        expected = run_python(coeffs, sched)
+        first_bad = next((k for k, (a, b) in enumerate(zip(got, expected)) if a != b), None)
+        assert len(got) == len(expected) and first_bad is None, (name, coeffs, first_bad)
+        shifts |= {coeffs.p_shift, coeffs.ki_shift, coeffs.bd_shift, coeffs.track_shift, coeffs.ad_shift}
+    return shifts
+
+
 @needs_cc
 def test_random_configurations_are_bit_exact(tmp_path):
     rng = np.random.default_rng(515)
@@ -381,18 +405,7 @@ def test_random_configurations_are_bit_exact(tmp_path):
     files = {}
     for name, coeffs in configs.items():
         files.update(render_pid_c(coeffs, name=name))
-    exe = compile_c(tmp_path, files, {"multi.c": multi_harness(list(configs))},
-                    STRICT + ["-O1"] + sanitizer_flags(tmp_path))
-    shifts = set()
-    for index, (name, coeffs) in enumerate(configs.items()):
-        sched = random_schedule(np.random.default_rng(index), 3000, coeffs)
-        result = subprocess.run([str(exe), str(index)], input=c_commands(sched), capture_output=True, text=True)
-        assert result.returncode == 0 and result.stderr == "", (name, result.stderr)
-        got = [tuple(int(v) for v in line.split()) for line in result.stdout.splitlines()]
-        expected = run_python(coeffs, sched)
-        first_bad = next((k for k, (a, b) in enumerate(zip(got, expected)) if a != b), None)
-        assert len(got) == len(expected) and first_bad is None, (name, coeffs, first_bad)
-        shifts |= {coeffs.p_shift, coeffs.ki_shift, coeffs.bd_shift, coeffs.track_shift, coeffs.ad_shift}
+    shifts = check_multi_bit_exact(tmp_path, configs, files, seed=0)
     assert len(shifts) > 15  # the coefficients cover a wide range of formats
 
 

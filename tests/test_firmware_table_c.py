@@ -1,9 +1,9 @@
 """Generated C: compiled with the real compiler, run over every input, bit-exact with the Python reference.
 
-Set COMPENSATOR_UPDATE_GOLDEN=1 to rewrite the golden files after an intended change.
+The golden files are never rewritten by a test; after an intended change regenerate them with
+``python tests/golden/update.py`` and review the diff.
 """
 
-import os
 import shutil
 import subprocess
 from dataclasses import replace
@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from compensator.errors import ModelError
-from compensator.firmware.table_c import check_function_name, render_sweep_csv, render_table_c
+from compensator.firmware.table_c import check_function_name, check_prefix, render_sweep_csv, render_table_c
 from compensator.firmware.tables import build_table, sweep_table
 from compensator.law import build_law
 from compensator.profiles import load_board, load_sipm
@@ -64,6 +64,11 @@ CASES = [
     ("sipm_c", "board_pt1000", 5.0, "optimised", 0.05, False),
     ("sipm_a", "board_ntc", 3.0, "uniform", 0.05, True),
     ("sipm_b", "board_pt1000", 4.0, "optimised", 0.05, True),
+    ("sipm_a", "board_ntc", 3.0, "segmented", 0.05, False),
+    ("sipm_b", "board_pt1000", 4.0, "segmented", 0.01, True),  # 32-bit nodes, codes reversed
+    ("sipm_a", "board_ntc", 3.0, "polynomial", 0.05, False),
+    ("sipm_b", "board_pt1000", 4.0, "polynomial", 0.05, True),
+    ("sipm_c", "board_pt1000", 5.0, "polynomial", 0.02, False),
 ]
 
 
@@ -79,7 +84,7 @@ def test_c_is_bit_exact_with_the_reference(case, request, tmp_path):
     if flip and layout == "optimised":
         assert np.all(table.slope < 0)  # the negative branch of the floor shift is exercised
     files = render_table_c(table, [sipm, board], settings={"case": case})
-    dac, status = run_c(tmp_path, table, files, flags=PEDANTIC if layout == "optimised" else STRICT)
+    dac, status = run_c(tmp_path, table, files, flags=PEDANTIC if layout in ("optimised", "polynomial") else STRICT)
     ref_dac, ref_status = table.lookup(np.arange(1 << table.code_type_bits))
     assert np.array_equal(dac, ref_dac)
     assert np.array_equal(status, ref_status)
@@ -112,8 +117,10 @@ def test_static_asserts_catch_a_tampered_table(sipm_a, board_ntc, tmp_path):
     table = build_table(law, board_ntc, 0.05, "optimised")
     files = render_table_c(table, [sipm_a, board_ntc])
     header = files["bias_dac_from_adc.h"]
-    files["bias_dac_from_adc.h"] = header.replace(f"ENTRIES             {table.entries}u",
-                                                  f"ENTRIES             {table.entries + 1}u")
+    import re
+
+    files["bias_dac_from_adc.h"] = re.sub(r"(BIAS_DAC_FROM_ADC_ENTRIES +)(\d+)u",
+                                          lambda m: f"{m.group(1)}{table.entries + 1}u", header)
     assert files["bias_dac_from_adc.h"] != header
     (tmp_path / "bias_dac_from_adc.h").write_text(files["bias_dac_from_adc.h"])
     (tmp_path / "bias_dac_from_adc.c").write_text(files["bias_dac_from_adc.c"])
@@ -127,24 +134,26 @@ def golden_inputs():
     return load_sipm(inputs / "hut-sipm-a.yaml"), load_board(inputs / "hut-board-ntc.yaml")
 
 
-@pytest.mark.parametrize("layout", ["uniform", "optimised"])
-def test_golden_files(layout):
+def golden_files(layout):
+    """The files the golden test compares (also what ``tests/golden/update.py`` writes)."""
     sipm, board = golden_inputs()
     law = build_law(sipm, board, 3.0)
     table = build_table(law, board, 0.05, layout)
     settings = {"layout": layout, "max_gain_error_pct": "0.05", "overvoltage_v": "3"}
-    files = render_table_c(table, [sipm, board], settings=settings)
-    again = render_table_c(build_table(law, board, 0.05, layout), [sipm, board], settings=settings)
-    assert files == again
-    sweep = sweep_table(table, law, board)
-    assert render_sweep_csv(sweep) == render_sweep_csv(sweep_table(table, law, board))
+    return render_table_c(table, [sipm, board], settings=settings)
+
+
+GOLDEN_LAYOUTS = ["uniform", "optimised", "segmented", "polynomial"]
+
+
+@pytest.mark.parametrize("layout", GOLDEN_LAYOUTS)
+def test_golden_files(layout):
+    files = golden_files(layout)
+    assert files == golden_files(layout)  # deterministic
     directory = GOLDEN / layout
-    if os.environ.get("COMPENSATOR_UPDATE_GOLDEN"):
-        directory.mkdir(parents=True, exist_ok=True)
-        for fname, text in files.items():
-            (directory / fname).write_bytes(text.encode())
     for fname, text in files.items():
-        assert (directory / fname).read_bytes() == text.encode(), f"{fname} differs from the golden file"
+        assert (directory / fname).read_bytes() == text.encode(), (
+            f"{fname} differs from the golden file; if the change is intended, run tests/golden/update.py")
 
 
 def test_banner_and_contents(sipm_a, board_ntc):
@@ -162,10 +171,65 @@ def test_banner_and_contents(sipm_a, board_ntc):
     assert "/" not in files["hut_bias.c"].split("floor_shift")[-1].replace("/*", "").replace("*/", "")  # no division
 
 
-@pytest.mark.parametrize("bad", ["", "1abc", "int", "a-b", "x" * 41, "__reserved"])
+@pytest.mark.parametrize("bad", ["", "1abc", "int", "a-b", "x" * 41, "__reserved", "_Reserved", "abs", "malloc",
+                                 "exit", "uint16_t", "main", "static"])
 def test_function_name_must_be_a_c_identifier(bad):
     with pytest.raises(ModelError, match="C identifier"):
         check_function_name(bad)
+
+
+@pytest.mark.parametrize("good", ["bias", "hut_bias_v2", "Abs", "x" * 40])
+def test_function_names_that_are_fine(good):
+    assert check_function_name(good) == good
+
+
+@pytest.mark.parametrize("bad", ["1x", "a-b", "__x", "_X", "a b"])
+def test_prefix_must_start_an_identifier(bad):
+    with pytest.raises(ModelError, match="prefix"):
+        check_prefix(bad)
+
+
+def test_prefix_and_name_too_long(sipm_b, board_pt1000):
+    table = build_table(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05, "uniform")
+    with pytest.raises(ModelError, match="exceed 40"):
+        render_table_c(table, [], "x" * 30, prefix="y" * 11)
+
+
+@needs_cc
+def test_prefix_namespaces_every_symbol_and_rom_hook_reads_every_table(sipm_a, board_ntc, tmp_path):
+    import re
+
+    law = build_law(sipm_a, board_ntc, 3.0)
+    for layout in ("uniform", "segmented", "optimised", "polynomial"):
+        table = build_table(law, board_ntc, 0.05, layout)
+        files = render_table_c(table, [sipm_a, board_ntc], "bias", prefix="hut_")
+        assert set(files) == {"hut_bias.h", "hut_bias.c"}
+        code = "".join(files.values())
+        stripped = re.sub(r"/\*.*?\*/", "", code, flags=re.S)
+        defined = set(re.findall(r"#define\s+(\w+)", stripped))
+        defined |= set(re.findall(r"^(?:static )?\w+ (\w+)\(", stripped, flags=re.M))  # functions
+        defined |= set(re.findall(r"static const \w+ (\w+)", stripped))
+        defined |= set(re.findall(r"typedef \w+ (\w+);", stripped))
+        assert defined and all(s.startswith(("hut_bias", "HUT_BIAS")) for s in defined), sorted(defined)
+        # The placement hook: route every const read through a counting routine (a stand-in for a
+        # program-memory read) and check the values and that the data really goes through it.
+        kinds = sorted(set(re.findall(r"HUT_BIAS_ROM_READ_(\w+)\(", files["hut_bias.c"])))
+        assert kinds
+        cfg = ["#include <stdint.h>", "extern unsigned long rom_reads;"]
+        for kind in kinds:
+            ctype = kind.replace("U", "uint").replace("I", "int") + "_t"
+            cfg.append(f"#define HUT_BIAS_ROM_READ_{kind}(a) (rom_reads++, *(const volatile {ctype} *)(a))")
+        cfg.append("#define HUT_BIAS_ROM __attribute__((section(\".rodata.hut_rom\")))")
+        harness = ('#include <stdio.h>\n#include "hut_bias.h"\nunsigned long rom_reads = 0;\n'
+                   "int main(void)\n{\n"
+                   f"    unsigned v = (unsigned)hut_bias({table.code_lo + 7}u);\n"
+                   '    printf("%u %lu\\n", v, rom_reads);\n    return 0;\n}\n')
+        (tmp_path / "rom.h").write_text("\n".join(cfg) + "\n")
+        exe = build(tmp_path, {**files, "main.c": harness}, [*STRICT, "-include", str(tmp_path / "rom.h")],
+                    output=f"rom-{layout}")
+        value, reads = map(int, subprocess.run([str(exe)], capture_output=True, text=True, check=True).stdout.split())
+        assert value == int(table.lookup([table.code_lo + 7])[0][0])
+        assert reads >= 2
 
 
 def test_sweep_csv_columns(sipm_b, board_pt1000):

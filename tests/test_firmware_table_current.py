@@ -106,7 +106,8 @@ def test_fault_gives_the_safe_code_never_a_corrected_one(sipm_a, board_ntc):
 
 def test_without_current_the_plain_path_is_unchanged(sipm_a, board_ntc):
     _, table = measured_table(sipm_a, board_ntc, 3.0)
-    plain = build_table(build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none"), board_ntc, 0.05)
+    plain = build_table(build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none"), board_ntc,
+                        0.05, "optimised")
     codes = np.arange(4096)
     assert np.array_equal(table.lookup(codes)[0], plain.lookup(codes)[0])
     assert np.array_equal(table.lookup_with_current(codes, 0)[0], plain.lookup(codes)[0])

@@ -1,5 +1,6 @@
 """Integer lookup tables: sizing against the bound, the firmware path, faults and the error bound."""
 
+import os
 from dataclasses import replace
 
 import numpy as np
@@ -8,11 +9,10 @@ import pytest
 from compensator.errors import ModelError
 from compensator.firmware import tables as T
 from compensator.firmware.tables import (
-    STATUS_ABOVE_RANGE,
-    STATUS_BELOW_RANGE,
     STATUS_OK,
     STATUS_SENSOR_FAULT,
     TableError,
+    TableStatus,
     build_table,
     sweep_table,
 )
@@ -23,11 +23,14 @@ PAIRS = [("sipm_a", "board_ntc", 3.0), ("sipm_b", "board_pt1000", 4.0), ("sipm_c
 
 @pytest.fixture(scope="module")
 def built(request):
+    """Tables built once per module; under mutation testing every test builds its own, so that each test is
+    known to exercise the code it checks."""
     cache = {}
+    fresh = bool(os.environ.get("MUTANT_UNDER_TEST"))
 
     def get(sipm_name, board_name, ov, layout, bound):
         key = (sipm_name, board_name, ov, layout, bound)
-        if key not in cache:
+        if fresh or key not in cache:
             sipm, board = request.getfixturevalue(sipm_name), request.getfixturevalue(board_name)
             law = build_law(sipm, board, ov)
             cache[key] = (law, board, build_table(law, board, bound, layout))
@@ -36,7 +39,7 @@ def built(request):
 
 
 @pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
-@pytest.mark.parametrize("layout", ["uniform", "optimised"])
+@pytest.mark.parametrize("layout", T.LAYOUTS)
 @pytest.mark.parametrize("bound", [0.05, 0.02])
 def test_every_code_within_the_bound(built, pair, layout, bound):
     law, board, table = built(*pair, layout, bound)
@@ -90,29 +93,129 @@ def test_optimised_beats_uniform_where_curvature_varies(built):
     assert optimised.table_bytes < uniform.table_bytes
 
 
-@pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
-def test_breakpoints_respect_the_interpolation_error_bound(built, pair):
-    # Standard numerical-analysis result: linear interpolation of f between nodes h apart errs by at most
-    # h^2 max|f''| / 8. f is the law's exact DAC code against the ADC code; f'' from second differences.
-    law, board, table = built(*pair, "optimised", 0.05)
+def exact_and_curvature(law, board, table):
+    """The law's exact DAC code at every code of the range and |f''| from second differences (independent of
+    the tool's own target)."""
     codes = np.arange(table.code_lo - 1, table.code_hi + 2)
     f = (law.output_v(board.temperature.temp_at(codes + 0.5)) - board.supply.intercept_v) \
         / board.supply.volts_per_code
-    f2 = np.abs(f[2:] - 2 * f[1:-1] + f[:-2])  # at codes code_lo .. code_hi
-    fc = f[1:-1]
-    nodes = np.append(table.x, table.code_hi) - table.code_lo
+    return f[1:-1], np.abs(f[2:] - 2 * f[1:-1] + f[:-2])
+
+
+def bound_lsb(law, board, table, bound_pct):
+    temps = board.temperature.temp_at(np.arange(table.code_lo, table.code_hi + 1) + 0.5)
+    return bound_pct / (100 * board.supply.lsb_v / law.target_overvoltage_v(temps))
+
+
+@pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
+def test_uniform_spacing_is_as_wide_as_the_interpolation_bound_allows(built, pair):
+    # Standard numerical-analysis result: linear interpolation of f between nodes h apart errs by at most
+    # h^2 max|f''| / 8; node and interpolation rounding add at most 1 LSB. So every power-of-two spacing h with
+    # h^2 max|f''| / 8 + 1 <= bound works, and the tool, keeping the widest spacing that works, must not pick a
+    # narrower one. Its nodes are the exact law rounded to the nearest DAC code.
+    law, board, table = built(*pair, "uniform", 0.05)
+    f, f2 = exact_and_curvature(law, board, table)
+    bound = bound_lsb(law, board, table, 0.05).min()
+    h = 1
+    while (2 * h) ** 2 * f2.max() * 1.02 / 8 + 1 <= bound:
+        h *= 2
+    assert (1 << table.shift) >= h >= 4
+    assert table.node_frac_bits == 0
+    inner = np.arange(table.entries - 1) << table.shift  # nodes inside the range
+    assert np.array_equal(table.y[:-1], np.rint(f[inner]).astype(np.int64))
+
+
+@pytest.mark.parametrize("pair", PAIRS, ids=lambda p: p[0])
+def test_optimised_segments_are_as_long_as_the_interpolation_bound_allows(built, pair):
+    # A segment of L codes (an interval of L - 1) is fitted with a line within h^2 max|f''| / 8 of f (the
+    # interpolation bound, h = L - 1), off by at most 1 LSB of node and interpolation rounding and by h 2^-(F+1)
+    # of slope rounding. Every L meeting the bound with all that is feasible, so each of the tool's greedy
+    # segments (but the last) must be at least that long: a tool with more breakpoints than needed fails here.
+    law, board, table = built(*pair, "optimised", 0.05)
+    f, f2 = exact_and_curvature(law, board, table)
+    bound = bound_lsb(law, board, table, 0.05)
+    starts = table.x - table.code_lo
+    lengths = np.diff(np.append(starts, table.code_hi - table.code_lo + 1))
     checked = 0
-    for a, b in zip(nodes[:-1], nodes[1:]):
-        if b - a < 2:
-            continue
-        h = b - a
-        d = np.arange(h + 1)
-        line = fc[a] + (fc[b] - fc[a]) * d / h
-        err = np.abs(fc[a:b + 1] - line).max()
-        bound = h * h * f2[a:b + 1].max() / 8
-        assert err <= bound * 1.02 + 1e-9, (a, b, err, bound)
+    for a, length in zip(starts[:-1], lengths[:-1]):
+        need = 2
+        while True:
+            h = need  # try L = need + 1
+            stop = a + h + 1
+            if stop > f.size:
+                break
+            if h * h * f2[a:stop].max() * 1.02 / 8 + 1 + h * 2.0 ** -(table.slope_frac_bits + 1) > bound[a:stop].min():
+                break
+            need += 1
+        assert length >= need, (a, length, need)
         checked += 1
     assert checked >= 2
+
+
+def python_int_value(table, n):
+    """Each layout's arithmetic written again with Python integers and floor division (not the tool's shifts)."""
+    def fdiv(p, k):
+        return p // (2 ** k)
+
+    def rnd(p, k):
+        return fdiv(p + (2 ** k) // 2, k)
+
+    y = [int(v) for v in table.y]
+    g = table.node_frac_bits
+    if table.layout == "uniform":
+        d = n - table.code_lo
+        i, r = d // 2 ** table.shift, d % 2 ** table.shift
+        return rnd(y[i] + rnd((y[i + 1] - y[i]) * r, table.shift), g)
+    if table.layout == "segmented":
+        d, i = n - table.code_lo, 0
+        while d >= 2 ** int(table.segment_shift[i]):
+            d -= 2 ** int(table.segment_shift[i])
+            i += 1
+        k = int(table.segment_shift[i])
+        return rnd(y[i] + rnd((y[i + 1] - y[i]) * d, k), g)
+    if table.layout == "optimised":
+        i = max(j for j in range(table.entries) if table.x[j] <= n)
+        return y[i] + rnd(int(table.slope[i]) * (n - int(table.x[i])), table.slope_frac_bits)
+    x = n - table.center_code
+    acc = y[-1]
+    for j in range(len(y) - 2, -1, -1):
+        acc = y[j] + fdiv(acc * x, int(table.coeff_shift[j]))
+    return rnd(acc, g)
+
+
+@pytest.mark.parametrize("pair, bound", [(p, 0.05) for p in PAIRS] + [(PAIRS[1], 0.01)],
+                         ids=lambda v: v[0] if isinstance(v, tuple) else str(v))
+@pytest.mark.parametrize("layout", T.LAYOUTS)
+def test_layout_arithmetic_matches_plain_integers(built, pair, bound, layout):
+    law, board, table = built(*pair, layout, bound)
+    codes = np.unique(np.linspace(table.code_lo, table.code_hi, 257).astype(np.int64))
+    expected = [python_int_value(table, int(n)) for n in codes]
+    assert np.array_equal(table.interpolate(codes), expected)
+
+
+def test_smallest_layout_is_at_most_half_the_uniform_table(sipm_a, sipm_b, sipm_c, board_ntc, board_pt1000):
+    # The target of the table sizing: on every bundled pair at 0.05 %, the chosen table needs at most half
+    # the bytes of the smallest uniform table; every candidate was checked at every code.
+    for sipm, board, ov in ((sipm_a, board_ntc, 3.0), (sipm_b, board_pt1000, 4.0), (sipm_c, board_pt1000, 5.0)):
+        law = build_law(sipm, board, ov)
+        report = T.compare_layouts(law, board, 0.05)
+        assert [c.layout for c in report.candidates] == list(T.LAYOUTS)
+        sizes = {c.layout: c.table_bytes for c in report.candidates}
+        assert report.table.table_bytes == min(v for v in sizes.values() if v is not None)
+        assert 2 * report.table.table_bytes <= sizes["uniform"] == report.uniform_bytes
+        assert all(c.within_bound and c.max_gain_error_pct <= 0.05 for c in report.candidates)
+        assert report.findings == ()
+        assert sweep_table(report.table, law, board).within_bound
+        assert build_table(law, board, 0.05).table_bytes == report.table.table_bytes
+
+
+def test_smallest_explains_when_it_cannot_halve_the_uniform_table(sipm_b, board_pt1000):
+    # At a loose bound three uniform nodes (6 bytes) cover the range and no layout can store it in 3 bytes.
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    report = T.compare_layouts(law, board_pt1000, 5.0)
+    assert report.uniform_bytes == 6 and report.table.table_bytes == 6  # two 16-bit nodes do not reach
+    (finding,) = report.findings
+    assert finding.code == "table_not_half_of_uniform" and f"{report.uniform_bytes} B" in finding.message
 
 
 def test_greedy_placement_equalises_error(built):
@@ -138,8 +241,10 @@ def test_lookup_statuses_and_safe_code(built, board_ntc):
     below = (codes >= table.fault_lo) & (codes < table.code_lo)
     above = (codes > table.code_hi) & (codes <= table.fault_hi)
     assert below.any() and above.any()
-    assert np.all(status[below] == STATUS_BELOW_RANGE) and np.all(dac[below] == dac[table.code_lo])
-    assert np.all(status[above] == STATUS_ABOVE_RANGE) and np.all(dac[above] == dac[table.code_hi])
+    # NTC on the low side of the divider: its resistance and so the code fall as it warms, so codes below the
+    # range are hotter than it and codes above it colder.
+    assert np.all(status[below] == TableStatus.HOTTER_THAN_RANGE) and np.all(dac[below] == dac[table.code_lo])
+    assert np.all(status[above] == TableStatus.COLDER_THAN_RANGE) and np.all(dac[above] == dac[table.code_hi])
     # The fault band sits the margin (20 K) outside the operating range.
     t_band = board.temperature.temp_at(np.array([table.fault_lo, table.fault_hi]) + 0.5)
     assert sorted(t_band) == pytest.approx([-45.0, 65.0], abs=0.1)  # NTC on the low side: code falls as T rises
@@ -195,3 +300,52 @@ def test_floor_shift_matches_floor_division():
     p = np.arange(-70, 71)
     for k in range(0, 6):
         assert np.array_equal(T.floor_shift(p, k), np.floor_divide(p, 2 ** k))
+
+
+def test_layout_bytes_by_hand(sipm_b, board_pt1000):
+    # uniform: 2 bytes per node; segmented: 2 per node plus 1 per segment width; optimised: 2 + 2 + slope bytes
+    # per breakpoint; polynomial: the widths of its coefficients.
+    report = T.compare_layouts(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
+    t = report.tables
+    assert t["uniform"].table_bytes == 2 * t["uniform"].y.size == 26
+    assert t["segmented"].table_bytes == 2 * t["segmented"].y.size + t["segmented"].segment_shift.size == 38
+    assert t["optimised"].table_bytes == t["optimised"].x.size * (4 + t["optimised"].slope_type_bits // 8)
+    assert t["polynomial"].table_bytes == sum(t["polynomial"].coeff_type_bits) // 8 == 10
+    assert all(isinstance(c.table_bytes, int) for c in report.candidates)
+    assert report.tables["polynomial"] is report.table
+
+
+def test_a_layout_that_cannot_meet_the_bound_is_reported(sipm_b, board_pt1000, monkeypatch):
+    import compensator.firmware.tables as tables_module
+
+    def refusing(what):
+        def refuse(*args, **kwargs):
+            raise TableError("DAC quantisation", f"no {what} table meets the bound")
+        return refuse
+
+    monkeypatch.setattr(tables_module, "size_polynomial", refusing("polynomial"))
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    report = T.compare_layouts(law, board_pt1000, 0.05)
+    failed = report.candidates[-1]
+    assert failed.layout == "polynomial" and failed.table_bytes is None and failed.entries is None
+    assert failed.within_bound is False and "no polynomial table" in failed.reason
+    assert [c.entries for c in report.candidates[:3]] == [t.entries for t in report.tables.values()]
+    assert report.table.layout == "uniform" and report.table.table_bytes == 26  # ties go to the simpler layout
+    (finding,) = report.findings
+    assert "uniform 26 B, segmented 38 B, optimised 36 B, polynomial: " in finding.message
+    for name in ("uniform", "segmented", "optimised"):
+        monkeypatch.setattr(tables_module, f"size_{name}", refusing(name))
+    with pytest.raises(TableError, match="no uniform table"):  # the first layout's reason
+        T.compare_layouts(law, board_pt1000, 0.05)
+
+
+def test_target_extrapolates_linearly_beyond_the_range(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    target = T._target(law, board_pt1000, 0.05)
+    lo, hi = int(target.codes[0]), int(target.codes[-1])
+    assert target.at([lo - 3])[0] == pytest.approx(target.exact[0] - 3 * target.ext_lo, abs=1e-9)
+    assert target.at([hi + 5])[0] == pytest.approx(target.exact[-1] + 5 * target.ext_hi, abs=1e-9)
+    assert np.array_equal(target.at(target.codes[[0, 7, -1]]), target.exact[[0, 7, -1]])
+    # the extrapolation slope is the law's own slope there: DAC codes per ADC code from the law one code outside
+    f = T.ideal_dac_code(law, board_pt1000.temperature.temp_at(np.array([hi - 0.5, hi + 1.5])))
+    assert target.ext_hi == pytest.approx((f[1] - f[0]) / 2, rel=1e-9)

@@ -314,3 +314,113 @@ def is_checked_number(type_) -> bool:
         The ``type`` of an argparse action.
     """
     return bool(getattr(type_, "checked_number", False))
+
+
+# Arguments shared by the commands that build a compensation law (``budget``, ``table``).
+
+#: Library argument names of :func:`compensator.law.build_law` -> the command-line flags that carry them.
+LAW_FLAGS = {"overvoltage_v": "--overvoltage-v", "photon_rate_hz": "--photon-rate-hz", "kind": "--law",
+             "drop_correction": "--drop-correction", "breakdown_offset_v": "--breakdown-offset-v"}
+
+
+def add_law_arguments(parser) -> None:
+    """Add the arguments that choose the profiles and the compensation law.
+
+    ``--sipm``, ``--board``, ``--overvoltage-v``, ``--law``,
+    ``--drop-correction`` (or ``--no-drop-correction``), ``--photon-rate-hz``
+    and ``--breakdown-offset-v``; :func:`law_from_args` builds the law from them.
+
+    Parameters
+    ----------
+    parser : argparse.ArgumentParser
+        The command's parser.
+    """
+    from compensator.law.laws import DROP_CORRECTIONS, LAW_KINDS
+
+    parser.add_argument("--sipm", required=True, metavar="FILE", help="sipm profile")
+    parser.add_argument("--board", required=True, metavar="FILE", help="board profile")
+    parser.add_argument("--overvoltage-v", required=True, type=finite_float, metavar="V",
+                        help="target overvoltage at the breakdown reference temperature, volt")
+    parser.add_argument("--law", choices=LAW_KINDS, default="constant_gain",
+                        help="compensation law (default constant_gain; equal to constant_overvoltage when the "
+                             "cell capacitance has no temperature coefficient; constant_response holds gain x PDE x "
+                             "crosstalk x the scintillator's light yield and needs the sipm profile's scintillator "
+                             "section)")
+    drop = parser.add_mutually_exclusive_group()
+    drop.add_argument("--drop-correction", choices=DROP_CORRECTIONS, default=None,
+                      help="series-resistor drop: none; modelled (the law adds the drop of the modelled current at "
+                           "--photon-rate-hz; the default); measured (the table holds the zero-current law and the "
+                           "firmware adds the drop of the current read through the board's current_sense channel)")
+    drop.add_argument("--no-drop-correction", action="store_true",
+                      help="the same as --drop-correction none")
+    parser.add_argument("--photon-rate-hz", type=non_negative_float, default=0.0, metavar="R",
+                        help="photon rate assumed for the modelled current (with measured: the light level the "
+                             "budget assumes), hertz (default 0: dark)")
+    parser.add_argument("--breakdown-offset-v", type=finite_float, default=None, metavar="V",
+                        help="volts to add to the profile's breakdown to reach the gain-intercept definition "
+                             "(default: the profile's breakdown.definition_offset_v when it holds an I-V breakdown)")
+
+
+def drop_correction_from_args(args) -> str:
+    """The drop-correction mode chosen on the command line (``--no-drop-correction`` means ``"none"``).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed by a parser that has :func:`add_law_arguments`.
+    """
+    if args.drop_correction is not None:
+        return args.drop_correction
+    return "none" if args.no_drop_correction else "modelled"
+
+
+def locate_law_error(exc, sipm_path: str, flags=None):
+    """A model error located where its value came from: a flag, or the sipm profile.
+
+    Parameters
+    ----------
+    exc : compensator.errors.ModelError
+        The library's error, with its ``key``.
+    sipm_path : str
+        The ``--sipm`` file (for keys of the profile, ``breakdown.*``).
+    flags : dict, optional
+        Library argument names -> flags (default :data:`LAW_FLAGS`).
+
+    Returns
+    -------
+    CompensatorError
+        The error to raise: an :class:`~compensator.errors.InputError` when the key is located, else ``exc``.
+    """
+    flags = LAW_FLAGS if flags is None else flags
+    if exc.key in flags:
+        return exc.at(COMMAND_LINE, key=flags[exc.key])
+    if exc.key.startswith("breakdown."):
+        return exc.at(sipm_path)
+    return exc
+
+
+def law_from_args(args):
+    """Load the profiles and build the law the arguments of :func:`add_law_arguments` describe.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed arguments.
+
+    Returns
+    -------
+    (SipmProfile, BoardProfile, CompensationLaw)
+    """
+    from compensator.errors import ModelError
+    from compensator.law.laws import build_law
+    from compensator.profiles import load_board, load_sipm
+
+    sipm = load_sipm(args.sipm)
+    board = load_board(args.board)
+    try:
+        law = build_law(sipm, board, args.overvoltage_v, kind=args.law, photon_rate_hz=args.photon_rate_hz,
+                        drop_correction=drop_correction_from_args(args),
+                        breakdown_offset_v=getattr(args, "breakdown_offset_v", None))
+    except ModelError as exc:
+        raise locate_law_error(exc, args.sipm) from None
+    return sipm, board, law

@@ -5,94 +5,37 @@ from __future__ import annotations
 import sys
 
 from compensator.cli._common import (
-    COMMAND_LINE,
     EXIT_OK,
+    LAW_FLAGS,
     add_json_flag,
-    finite_float,
+    add_law_arguments,
     format_table,
+    law_from_args,
+    locate_law_error,
     non_negative_float,
     print_json,
     temperature_c,
     usage_error,
 )
 from compensator.errors import ModelError
-from compensator.law import LAW_KINDS, build_law, gain_error_budget
+from compensator.law import gain_error_budget
 from compensator.law.budget import (
     DEFAULT_CURRENT_UNCERTAINTY_PCT,
     DEFAULT_RAMP_K_PER_MIN,
     DEFAULT_SAMPLES,
     DEFAULT_SEED,
 )
-from compensator.law.laws import DROP_CORRECTIONS
-from compensator.profiles import load_board, load_sipm
 
-__all__ = ["ORDER", "add_law_arguments", "drop_correction_from_args", "law_from_args", "register", "run"]
+__all__ = ["HAZARDOUS_DC_V", "ORDER", "register", "run"]
 
 ORDER = 40
 
 #: IEC 61010-1 treats more than 60 V dc as hazardous live in normal dry conditions.
 HAZARDOUS_DC_V = 60.0
 
-#: Library argument names -> the command-line flags that carry them.
-_FLAGS = {"overvoltage_v": "--overvoltage-v", "photon_rate_hz": "--photon-rate-hz", "kind": "--law",
-          "drop_correction": "--drop-correction", "breakdown_offset_v": "--breakdown-offset-v",
-          "calibration_temp_c": "--calibration-temp-c", "samples": "--samples", "seed": "--seed",
+#: Library argument names of the budget -> the command-line flags that carry them (the law's flags included).
+_FLAGS = {**LAW_FLAGS, "calibration_temp_c": "--calibration-temp-c", "samples": "--samples", "seed": "--seed",
           "current_uncertainty_pct": "--current-uncertainty-pct", "ramp_k_per_min": "--ramp-k-per-min"}
-
-
-def add_law_arguments(parser) -> None:
-    """Arguments that choose the profiles and the compensation law (shared with ``table``)."""
-    parser.add_argument("--sipm", required=True, metavar="FILE", help="sipm profile")
-    parser.add_argument("--board", required=True, metavar="FILE", help="board profile")
-    parser.add_argument("--overvoltage-v", required=True, type=finite_float, metavar="V",
-                        help="target overvoltage at the breakdown reference temperature, volt")
-    parser.add_argument("--law", choices=LAW_KINDS, default="constant_gain",
-                        help="compensation law (default constant_gain; equal to constant_overvoltage when the "
-                             "cell capacitance has no temperature coefficient; constant_response holds gain x PDE x "
-                             "crosstalk x the scintillator's light yield and needs the sipm profile's scintillator "
-                             "section)")
-    drop = parser.add_mutually_exclusive_group()
-    drop.add_argument("--drop-correction", choices=DROP_CORRECTIONS, default=None,
-                      help="series-resistor drop: none; modelled (the law adds the drop of the modelled current at "
-                           "--photon-rate-hz; the default); measured (the table holds the zero-current law and the "
-                           "firmware adds the drop of the current read through the board's current_sense channel)")
-    drop.add_argument("--no-drop-correction", action="store_true",
-                      help="the same as --drop-correction none")
-    parser.add_argument("--photon-rate-hz", type=non_negative_float, default=0.0, metavar="R",
-                        help="photon rate assumed for the modelled current (with measured: the light level the "
-                             "budget assumes), hertz (default 0: dark)")
-    parser.add_argument("--breakdown-offset-v", type=finite_float, default=None, metavar="V",
-                        help="volts to add to the profile's breakdown to reach the gain-intercept definition "
-                             "(default: the profile's breakdown.definition_offset_v when it holds an I-V breakdown)")
-
-
-def drop_correction_from_args(args) -> str:
-    """The drop-correction mode chosen on the command line (``--no-drop-correction`` means "none")."""
-    if args.drop_correction is not None:
-        return args.drop_correction
-    return "none" if args.no_drop_correction else "modelled"
-
-
-def _located(exc: ModelError, sipm_path: str):
-    """A model error located where its value came from: a flag, or the sipm profile."""
-    if exc.key in _FLAGS:
-        return exc.at(COMMAND_LINE, key=_FLAGS[exc.key])
-    if exc.key.startswith("breakdown."):
-        return exc.at(sipm_path)
-    return exc
-
-
-def law_from_args(args):
-    """Load the profiles and build the law; returns ``(sipm_profile, board_profile, law)``."""
-    sipm = load_sipm(args.sipm)
-    board = load_board(args.board)
-    try:
-        law = build_law(sipm, board, args.overvoltage_v, kind=args.law, photon_rate_hz=args.photon_rate_hz,
-                        drop_correction=drop_correction_from_args(args),
-                        breakdown_offset_v=getattr(args, "breakdown_offset_v", None))
-    except ModelError as exc:
-        raise _located(exc, args.sipm) from None
-    return sipm, board, law
 
 
 def register(subparsers) -> None:
@@ -161,7 +104,7 @@ def run(args) -> int:
                                    seed=args.seed, current_uncertainty_pct=current_uncertainty_pct,
                                    ramp_k_per_min=args.ramp_k_per_min)
     except ModelError as exc:
-        raise _located(exc, args.sipm) from None
+        raise locate_law_error(exc, args.sipm, _FLAGS) from None
     for finding in budget.findings:
         print(f"compensator: {finding}", file=sys.stderr)
     if args.json:

@@ -11,6 +11,7 @@ from compensator.cli._common import (
     EXIT_OK,
     add_json_flag,
     bounded_float,
+    bounded_int,
     caution,
     finite_float,
     format_table,
@@ -119,6 +120,12 @@ def register(subparsers) -> None:
                                                          "heating current, or DAC code 0)")
     em.add_argument("--out-max", type=finite_float,
                     help="highest actuator value (default: the current of maximum cooling, or the full-scale code)")
+    em.add_argument("--c-word-bits", type=bounded_int(0, 64), choices=(64, 32), default=64,
+                    help="64 (default): 64-bit products (library calls on cores without a 64-bit multiply); "
+                         "32: 32-bit operations only, when the Q formats allow it (else exit 2 with the figure "
+                         "that does not fit); inputs then saturate at --c-input-limit-count")
+    em.add_argument("--c-input-limit-count", type=bounded_int(1, 1 << 24), default=None, metavar="N",
+                    help="inputs are saturated to +-N counts (default 2^24; 2^16 with --c-word-bits 32)")
     p.add_argument("--plot", metavar="DIR", help="write Bode, sensitivity and step figures (PNG) into DIR")
     p.add_argument("--force", action="store_true", help="replace existing plot and C files")
     add_json_flag(p)
@@ -336,18 +343,20 @@ def run(args) -> int:
 
 
 def _emit(args, result, pick, profile):
+    from compensator.fileio import write_files_atomic
     from compensator.firmware.pid import PidSettings, quantise_pid
-    from compensator.firmware.pid_c import write_pid_c
+    from compensator.firmware.pid_c import render_pid_c
 
     g, T = result.gains, result.sample_time_s
-    settings = PidSettings(kp=g.kp, ki_per_s=g.ki_per_s, kd_s=g.kd_s, sample_time_s=T, out_min=pick["out_min"],
-                           out_max=pick["out_max"], derivative_filter_n=g.derivative_filter_n,
-                           setpoint_weight=g.setpoint_weight)
+    settings = PidSettings.from_gains(g, sample_time_s=T, out_min=pick["out_min"], out_max=pick["out_max"])
     try:
         coeffs = quantise_pid(settings, input_per_count=pick["input_per_count"],
-                              output_per_count=pick["output_per_count"])
+                              output_per_count=pick["output_per_count"], word_bits=args.c_word_bits,
+                              input_limit_count=args.c_input_limit_count)
     except ModelError as exc:
-        raise exc.at("<command line>", key=_flag(exc.key.split("/")[0]) if exc.key else "--emit-c") from None
+        key = exc.key.split("/")[0] if exc.key else ""
+        flag = {"word_bits": "--c-word-bits", "input_limit_count": "--c-input-limit-count"}.get(key)
+        raise exc.at("<command line>", key=flag or (_flag(key) if key else "--emit-c")) from None
     method = "verify" if result.tuning is None else result.tuning.method
     banner = {"method": method, "controller": "PID" if g.kd_s else "PI", "rate_hz": f"{1.0 / T:g}",
               "kp": f"{g.kp:.6g} {result.units.kp_unit}", "ki_per_s": f"{g.ki_per_s:.6g} {result.units.ki_unit}",
@@ -355,8 +364,8 @@ def _emit(args, result, pick, profile):
               "input_per_count": f"{pick['input_per_count']:.6g}",
               "output_per_count": f"{pick['output_per_count']:.6g}",
               "out_min": f"{pick['out_min']:.6g}", "out_max": f"{pick['out_max']:.6g}"}
-    written = write_pid_c(coeffs, args.emit_c, name=pick["name"], profiles=(profile,) if profile else (),
-                          settings=banner, overwrite=args.force)
+    files = render_pid_c(coeffs, name=pick["name"], profiles=(profile,) if profile else (), settings=banner)
+    written = write_files_atomic(args.emit_c, files, overwrite=args.force, what="C output")
     return [str(p) for p in written]
 
 

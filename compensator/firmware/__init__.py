@@ -1,1 +1,44 @@
-"""Firmware artefacts: integer tables, fixed-point PID, C99 code and their bit-exact Python references."""
+"""Firmware artefacts: integer tables, fixed-point PID, C99 code and their bit-exact Python references.
+
+The public names of the submodules are re-exported here, loaded on first use
+(so that importing a light submodule such as ``faults`` stays cheap).
+"""
+
+from __future__ import annotations
+
+import importlib
+
+_EXPORTS = {
+    "tables": ("LookupTable", "TableStatus", "TableSweep", "TableError", "LayoutCandidate", "LayoutReport",
+               "build_table", "compare_layouts", "sweep_table", "ideal_dac_code", "adc_quantisation_gain_pct",
+               "DEFAULT_FAULT_MARGIN_K"),
+    "layouts": ("LAYOUTS", "LAYOUT_CHOICES"),
+    "current": ("CurrentCorrection", "build_current_correction"),
+    "safe_state": ("SafeState", "safe_state"),
+    "table_c": ("render_table_c", "render_sweep_csv", "c_function_signature", "c_current_function_signature",
+                "default_sweep_mode", "SWEEP_MODES"),
+    "c_names": ("check_function_name", "check_prefix"),
+    "table_files": ("TableFiles", "prepare_table_files"),
+    "integer_path": ("IntegerPathGainError", "integer_path_gain_error"),
+    "pid": ("PidSettings", "DiscretePid", "discretise_pid", "FloatPid", "PidRun", "ANTI_WINDUP_MODES"),
+    "pid_fixed": ("FixedPidCoefficients", "FixedPidState", "FixedPid", "quantise_pid", "agreement_bound_count"),
+    "pid_c": ("render_pid_c",),
+    "fixed_point": ("floor_shift", "rshift_round", "saturate"),
+}
+
+_WHERE = {name: module for module, names in _EXPORTS.items() for name in names}
+
+__all__ = sorted(_WHERE)
+
+
+def __getattr__(name: str):
+    module = _WHERE.get(name)
+    if module is None:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(importlib.import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(__all__))

@@ -9,13 +9,13 @@ Both controllers run the same algorithm, once per sample period ``h``:
     v = P + I + D                                 unlimited output
     u = clip(v, out_min, out_max)                 (manual mode: u = manual target)
     u = clip(u, u_prev - du, u_prev + du)         rate limit, du = rate_limit_per_s h
-    I = I + bi (r - y) + ao (u - v)               back-calculation anti-windup
+    I = I + bi (r - y) + track (u - v)            back-calculation anti-windup
       | I + bi (r - y) unless it drives further into the limit   (clamping)
       | I + bi (r - y)                                            (none)
       | u - P - D                                                 (manual: tracking)
 
 with ``ad = Tf / (Tf + h)``, ``bd = kd / (Tf + h)`` (backward difference, stable for
-every ``Tf >= 0``), ``bi = ki h`` (forward Euler) and ``ao = h / Tt``. This is the
+every ``Tf >= 0``), ``bi = ki h`` (forward Euler) and ``track = h / Tt``. This is the
 textbook discretisation of the two-degree-of-freedom PID with derivative filter
 and tracking anti-windup (Astrom and Hagglund, "PID Controllers: Theory, Design,
 and Tuning", ISA 1995, section 3.7; from memory).
@@ -28,8 +28,8 @@ Choices stated once
 * Tracking time (back-calculation) default: ``Tt = sqrt(Ti Td)`` for a PID and
   ``Tt = Ti`` for a PI, where ``Ti = kp / ki`` and ``Td = kd / kp`` (a rule of
   thumb from the same book, from memory); ``Tt = h`` when ``kp == 0``. ``Tt``
-  is never shorter than ``h`` so that ``ao <= 1`` and tracking cannot overshoot.
-  Without integral action (``ki == 0``) there is no tracking (``ao = 0``): the
+  is never shorter than ``h`` so that ``track <= 1`` and tracking cannot overshoot.
+  Without integral action (``ki == 0``) there is no tracking (``track = 0``): the
   integrator then holds the manual reset value set by bumpless transfer.
 * Manual mode: the output goes to the operator's target, clipped to the output
   limits and approached at the rate limit (the rate limit protects hardware in
@@ -53,7 +53,7 @@ Fixed-point formats (:class:`FixedPid`, and the C code rendered from it)
   right shift ``s`` (0..62): a product ``m x`` is formed in 64 bits and shifted
   by ``s`` with rounding into Q.F. For count coefficients (kp, kp b, ki h,
   kd/(Tf+h)) ``m 2^-s`` approximates ``c 2^F``; for the state coefficients
-  (``ad``, ``ao``) it approximates ``c``. All products stay below 2^63 by the
+  (``ad``, ``track``) it approximates ``c``. All products stay below 2^63 by the
   bounds above, so no 64-bit overflow can happen.
 * Rounding is defined once: ``rshift_round(x, s) = floor((x + 2^(s-1)) / 2^s)``,
   i.e. round half up (ties toward +infinity). Python's ``>>`` is a floor
@@ -61,6 +61,17 @@ Fixed-point formats (:class:`FixedPid`, and the C code rendered from it)
   negative number.
 * Saturation: ``v``, ``I`` and ``D`` saturate to the int32 range; the output
   is ``rshift_round(u, F)``, which lies inside the integer output limits.
+
+The 32-bit-only variant (``quantise_pid(..., word_bits=32)``)
+-------------------------------------------------------------
+The same algorithm with no 64-bit operation: mantissas of at most 15 bits and
+shifts of at most 46; inputs saturated to ``+-input_limit_count`` (default
+2^16); ``F`` lowered where a gain or the range of P, D or the integrator
+increment needs it, so that each stays within ``+-2^28`` and the integrator
+saturates at ``+-2^28``; then every sum of them fits 32 bits. The C code forms
+each product ``m x`` from 16-bit halves of ``x`` and floors the low part into
+the high part, which equals ``rshift_round(m x, s)`` exactly, so the Python
+reference is :class:`FixedPid` with those limits.
 
 Agreement between the two
 -------------------------
@@ -73,12 +84,13 @@ for the assumptions.
 from __future__ import annotations
 
 import math
-import operator
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
 from compensator.errors import ModelError
+from compensator.firmware.fixed_point import INT32_MAX, INT32_MIN, rshift_round  # noqa: F401 (old import path)
 
 __all__ = [
     "ANTI_WINDUP_MODES", "INPUT_LIMIT_COUNT", "PidSettings", "DiscretePid", "discretise_pid", "PidRun",
@@ -100,9 +112,6 @@ MAX_SHIFT = 62
 
 MAX_STATE_FRAC_BITS = 24
 """Upper cap on the number of fraction bits of the state format."""
-
-INT32_MIN = -(1 << 31)
-INT32_MAX = (1 << 31) - 1
 
 
 # ---------------------------------------------------------------------------
@@ -199,8 +208,42 @@ class PidSettings:
         if self.kp == 0 and self.ki_per_s == 0 and self.kd_s == 0:
             raise ModelError("PID settings kp, ki_per_s, kd_s: at least one gain must be non-zero")
 
+    @classmethod
+    def from_gains(cls, gains, *, sample_time_s: float, out_min: float, out_max: float,
+                   rate_limit_per_s: float | None = None, anti_windup: str = "back_calculation",
+                   tracking_time_s: float | None = None) -> "PidSettings":
+        """The settings of a tuned controller (:class:`compensator.loops.verify.PidGains`) run by the firmware.
 
-@dataclass(frozen=True)
+        The gains (``kp``, ``ki_per_s``, ``kd_s``, ``derivative_filter_n``,
+        ``setpoint_weight``) are the tuning; everything else says how the
+        firmware runs it.
+
+        Parameters
+        ----------
+        gains : PidGains
+            Any object with the five gain fields.
+        sample_time_s : float
+            Controller sample period, second.
+        out_min, out_max : float
+            Output limits (output unit).
+        rate_limit_per_s : float or None
+            Largest output change per second.
+        anti_windup : {"back_calculation", "clamping", "none"}
+            Anti-windup mode.
+        tracking_time_s : float or None
+            Back-calculation time constant, second.
+
+        Returns
+        -------
+        PidSettings
+        """
+        return cls(kp=gains.kp, ki_per_s=gains.ki_per_s, kd_s=gains.kd_s, sample_time_s=sample_time_s,
+                   out_min=out_min, out_max=out_max, derivative_filter_n=gains.derivative_filter_n,
+                   setpoint_weight=gains.setpoint_weight, rate_limit_per_s=rate_limit_per_s,
+                   anti_windup=anti_windup, tracking_time_s=tracking_time_s)
+
+
+@dataclass(frozen=True, kw_only=True)
 class DiscretePid:
     """The per-sample coefficients of :class:`PidSettings` (physical units).
 
@@ -214,10 +257,12 @@ class DiscretePid:
         Derivative filter pole, ``Tf / (Tf + h)`` (dimensionless, in [0, 1)).
     bd : float
         Derivative gain per unit measurement step, ``kd / (Tf + h)``.
-    ao : float
-        Tracking gain per sample, ``h / Tt`` (0 without back-calculation).
-    filter_time_s, tracking_time_s : float
-        ``Tf`` and ``Tt`` in seconds (``Tt`` is ``inf`` when not tracking).
+    track : float
+        Tracking (back-calculation) gain per sample, ``h / Tt`` (0 without
+        back-calculation); the same name as the fixed-point ``track_mant``.
+    derivative_filter_s, tracking_time_s : float
+        ``Tf`` and ``Tt`` in seconds (``Tt`` is ``inf`` when not tracking);
+        ``derivative_filter_s`` is the name the loop tools use for ``Tf`` too.
     rate_step : float or None
         Largest output change per sample (output unit), ``rate_limit_per_s h``.
     """
@@ -227,10 +272,20 @@ class DiscretePid:
     bi: float
     ad: float
     bd: float
-    ao: float
-    filter_time_s: float
+    track: float
+    derivative_filter_s: float
     tracking_time_s: float
     rate_step: float | None
+
+    @property
+    def ao(self) -> float:
+        """Old name of :attr:`track`."""
+        return self.track
+
+    @property
+    def filter_time_s(self) -> float:
+        """Old name of :attr:`derivative_filter_s`."""
+        return self.derivative_filter_s
 
 
 def discretise_pid(settings: PidSettings) -> DiscretePid:
@@ -273,8 +328,8 @@ def discretise_pid(settings: PidSettings) -> DiscretePid:
         bi=ki * h,
         ad=tf / (tf + h),
         bd=kd / (tf + h),
-        ao=0.0 if math.isinf(tt) else h / tt,
-        filter_time_s=tf,
+        track=0.0 if math.isinf(tt) else h / tt,
+        derivative_filter_s=tf,
         tracking_time_s=tt,
         rate_step=None if s.rate_limit_per_s is None else float(s.rate_limit_per_s) * h,
     )
@@ -308,7 +363,7 @@ def _schedule(setpoint, measurement, manual, manual_output, dtype):
     return r.astype(dtype).tolist(), y.astype(dtype).tolist(), m.tolist(), mo.astype(dtype).tolist()
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class PidRun:
     """The record of a run over a sequence.
 
@@ -343,12 +398,28 @@ def _run_steps(pid, r, y, m, mo, dtype) -> PidRun:
         out.append(step(r[k], y[k]))
         integ.append(pid._i)
         deriv.append(pid._d)
-    return PidRun(np.array(out, dtype=dtype), np.array(integ, dtype=dtype), np.array(deriv, dtype=dtype))
+    return PidRun(output=np.array(out, dtype=dtype), integrator=np.array(integ, dtype=dtype),
+                  derivative=np.array(deriv, dtype=dtype))
 
 
 # ---------------------------------------------------------------------------
 # Floating-point reference
 # ---------------------------------------------------------------------------
+
+
+class _FloatConstants(NamedTuple):
+    """The per-step constants of :class:`FloatPid`, in the order its step unpacks them."""
+
+    kpb: float
+    kp: float
+    ad: float
+    bd: float
+    bi: float
+    track: float
+    rate_step: float | None
+    anti_windup_code: int
+    out_min: float
+    out_max: float
 
 
 class FloatPid:
@@ -372,8 +443,8 @@ class FloatPid:
         self.settings = settings
         self.discrete = c = discretise_pid(settings)
         self._mode = ANTI_WINDUP_MODES.index(settings.anti_windup)
-        self._k = (c.kpb, c.kp, c.ad, c.bd, c.bi, c.ao, c.rate_step, self._mode,
-                   float(settings.out_min), float(settings.out_max))
+        self._constants = _FloatConstants(c.kpb, c.kp, c.ad, c.bd, c.bi, c.track, c.rate_step, self._mode,
+                                          float(settings.out_min), float(settings.out_max))
         self.reset()
 
     def reset(self, output: float | None = None) -> None:
@@ -462,7 +533,7 @@ class FloatPid:
 
     def _step(self, r: float, y: float) -> float:
         # the same algorithm as FixedPid._step, in floating point
-        kpb, kp, ad, bd, bi, ao, rate, mode, lo, hi = self._k
+        kpb, kp, ad, bd, bi, track, rate, mode, lo, hi = self._constants
         primed, manual, have_output = self._primed, self._manual, self._have_output
         y_prev = self._y_prev if primed else y
         p = kpb * r - kp * y
@@ -484,7 +555,7 @@ class FloatPid:
         else:
             inc = bi * (r - y)
             if mode == 0:  # back-calculation
-                i += inc + ao * (u - v)
+                i += inc + track * (u - v)
             elif mode == 1:  # clamping: hold while limited and the error drives further
                 if not ((v > u and inc > 0) or (v < u and inc < 0)):
                     i += inc
@@ -526,587 +597,11 @@ class FloatPid:
         return _run_steps(self, r, y, m, mo, float)
 
 
-# ---------------------------------------------------------------------------
-# Fixed-point coefficients
-# ---------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class FixedPidCoefficients:
-    """Pre-multiplied integer coefficients and limits of the fixed-point PID.
-
-    State values (integrator, derivative, output) are int32 in Q(31-F).F
-    output counts with ``F = state_frac_bits``. A product of a mantissa ``m``
-    with a value ``x`` is formed in 64 bits and shifted right with rounding
-    (round half up) by the matching shift.
-
-    Attributes
-    ----------
-    state_frac_bits : int
-        ``F``.
-    kp_mant, kpb_mant, p_shift : int
-        ``P = rshift_round(kpb_mant r - kp_mant y, p_shift)`` with ``r``, ``y``
-        in input counts.
-    ki_mant, ki_shift : int
-        Integrator increment ``rshift_round(ki_mant (r - y), ki_shift)``.
-    ad_mant, ad_shift : int
-        Derivative pole: ``rshift_round(ad_mant D, ad_shift)``.
-    bd_mant, bd_shift : int
-        Derivative gain: ``rshift_round(bd_mant (y - y_prev), bd_shift)``.
-    track_mant, track_shift : int
-        Back-calculation: ``rshift_round(track_mant (u - v), track_shift)``.
-    out_min_count, out_max_count : int
-        Output limits in counts (inside the physical limits).
-    rate_step_q : int
-        Largest output change per step in Q.F; 0 for no rate limit.
-    anti_windup : str
-        One of :data:`ANTI_WINDUP_MODES`.
-    input_per_count, output_per_count, sample_time_s : float
-        The scaling these coefficients were made for.
-    kp_count, kpb_count, ki_count, bd_count : float
-        The exact count-domain coefficients (output counts per input count).
-    ad, track : float
-        The exact dimensionless coefficients.
-    rate_step_count : float
-        The exact rate step in output counts (0 for none).
-    out_min_exact_count, out_max_exact_count : float
-        The exact physical limits divided by ``output_per_count``.
-    """
-
-    state_frac_bits: int
-    kp_mant: int
-    kpb_mant: int
-    p_shift: int
-    ki_mant: int
-    ki_shift: int
-    ad_mant: int
-    ad_shift: int
-    bd_mant: int
-    bd_shift: int
-    track_mant: int
-    track_shift: int
-    out_min_count: int
-    out_max_count: int
-    rate_step_q: int
-    anti_windup: str
-    input_per_count: float
-    output_per_count: float
-    sample_time_s: float
-    kp_count: float
-    kpb_count: float
-    ki_count: float
-    bd_count: float
-    ad: float
-    track: float
-    rate_step_count: float
-    out_min_exact_count: float
-    out_max_exact_count: float
-
-    def __post_init__(self):
-        # the invariants the overflow-free arithmetic relies on (the C code asserts them too)
-        f = self.state_frac_bits
-        if not 0 <= f <= MAX_STATE_FRAC_BITS:
-            raise ModelError(f"state_frac_bits: {f} is outside 0..{MAX_STATE_FRAC_BITS}")
-        for key in ("kp", "kpb", "ki", "ad", "bd", "track"):
-            mant = getattr(self, f"{key}_mant")
-            if abs(mant) > MANTISSA_LIMIT:
-                raise ModelError(f"{key}_mant: {mant} exceeds 2^30 in magnitude")
-        for key in ("p", "ki", "ad", "bd", "track"):
-            shift = getattr(self, f"{key}_shift")
-            if not 0 <= shift <= MAX_SHIFT:
-                raise ModelError(f"{key}_shift: {shift} is outside 0..{MAX_SHIFT}")
-        if not self.out_min_count <= self.out_max_count:
-            raise ModelError(f"out_min_count/out_max_count: {self.out_min_count} is above {self.out_max_count}")
-        if max(abs(self.out_min_count), abs(self.out_max_count)) > INT32_MAX >> f:
-            raise ModelError(f"out_min_count/out_max_count: the limits do not fit Q{31 - f}.{f}")
-        if not 0 <= self.rate_step_q <= INT32_MAX:
-            raise ModelError(f"rate_step_q: {self.rate_step_q} is outside 0..2^31-1")
-        if self.anti_windup not in ANTI_WINDUP_MODES:
-            raise ModelError(f"anti_windup: must be one of {', '.join(ANTI_WINDUP_MODES)}, got {self.anti_windup!r}")
-
-    @property
-    def anti_windup_code(self) -> int:
-        """0 back-calculation, 1 clamping, 2 none (the value used in C)."""
-        return ANTI_WINDUP_MODES.index(self.anti_windup)
-
-    def represented(self) -> dict[str, float]:
-        """The real value each quantised coefficient stands for (counts domain)."""
-        f = self.state_frac_bits
-        return {
-            "kp_count": self.kp_mant * 2.0 ** -(self.p_shift + f),
-            "kpb_count": self.kpb_mant * 2.0 ** -(self.p_shift + f),
-            "ki_count": self.ki_mant * 2.0 ** -(self.ki_shift + f),
-            "bd_count": self.bd_mant * 2.0 ** -(self.bd_shift + f),
-            "ad": self.ad_mant * 2.0 ** -self.ad_shift,
-            "track": self.track_mant * 2.0 ** -self.track_shift,
-            "rate_step_count": self.rate_step_q * 2.0 ** -f,
-        }
-
-    @property
-    def integrator_deadband_count(self) -> float:
-        """Smallest error (input counts) whose integrator increment rounds to a non-zero value.
-
-        ``inf`` without integral action.
-        """
-        if self.ki_mant == 0:
-            return math.inf
-        return 0.5 * 2.0 ** self.ki_shift / abs(self.ki_mant)
-
-
-def _quantise(value: float, name: str) -> tuple[int, int]:
-    """Mantissa and right shift with ``mantissa 2^-shift ~= value`` and ``|mantissa| <= 2^30``."""
-    if value == 0:
-        return 0, 0
-    if abs(value) > MANTISSA_LIMIT:
-        raise ModelError(f"{name}: {value:.6g} is too large for the fixed-point format "
-                         f"(more than 2^30 state units); scale the inputs or outputs differently")
-    shift = max(0, min(MAX_SHIFT, 29 - math.frexp(abs(value))[1] + 1))
-    while shift < MAX_SHIFT and abs(math.floor(abs(value) * 2.0 ** (shift + 1) + 0.5)) <= MANTISSA_LIMIT:
-        shift += 1
-    while shift > 0 and math.floor(abs(value) * 2.0 ** shift + 0.5) > MANTISSA_LIMIT:
-        shift -= 1
-    mant = int(math.copysign(math.floor(abs(value) * 2.0 ** shift + 0.5), value))
-    if abs(mant) < (1 << 10):
-        raise ModelError(f"{name}: {value:.6g} is too small for the fixed-point format "
-                         f"(would keep fewer than 10 significant bits)")
-    return mant, shift
-
-
-def _limit_counts(lo: float, hi: float) -> tuple[int, int]:
-    def near_int(x):
-        return abs(x - round(x)) <= 1e-9 * max(1.0, abs(x))
-    lo_c = round(lo) if near_int(lo) else math.ceil(lo)
-    hi_c = round(hi) if near_int(hi) else math.floor(hi)
-    return int(lo_c), int(hi_c)
-
-
-def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_count: float) -> FixedPidCoefficients:
-    """Convert PID settings into fixed-point coefficients.
-
-    Parameters
-    ----------
-    settings : PidSettings
-        Gains and limits in physical units.
-    input_per_count : float
-        Physical input unit per input count (e.g. kelvin per ADC code or per
-        temperature count); may be negative for a reversing front end.
-    output_per_count : float
-        Physical output unit per output count (e.g. volt per DAC code); may be
-        negative for a reversing actuator (the limits are then swapped).
-
-    Returns
-    -------
-    FixedPidCoefficients
-
-    Raises
-    ------
-    ModelError
-        A scale is zero or not finite, the integer limits are empty or too
-        large, a coefficient does not fit the format, or the rate limit is
-        below one state LSB per step.
-    """
-    if not isinstance(settings, PidSettings):
-        raise ModelError(f"settings: need a PidSettings, got {type(settings).__name__}")
-    for key, value in (("input_per_count", input_per_count), ("output_per_count", output_per_count)):
-        if not isinstance(value, (int, float, np.integer, np.floating)) or not math.isfinite(value) or value == 0:
-            raise ModelError(f"{key}: must be a finite non-zero number, got {value!r}")
-    ipc, opc = float(input_per_count), float(output_per_count)
-    disc = discretise_pid(settings)
-    lo_exact, hi_exact = sorted((settings.out_min / opc, settings.out_max / opc))
-    lo_c, hi_c = _limit_counts(lo_exact, hi_exact)
-    if lo_c > hi_c:
-        raise ModelError(f"out_min/out_max: the limits {settings.out_min!r}..{settings.out_max!r} contain no "
-                         f"whole output count at output_per_count {opc!r}")
-    largest = max(abs(lo_c), abs(hi_c), 1)
-    frac = min(MAX_STATE_FRAC_BITS, 27 - largest.bit_length())
-    if frac < 0:
-        raise ModelError(f"out_min/out_max: limits of {largest} counts exceed the fixed-point range (2^27 counts)")
-    scale = ipc / opc
-    kp_c, kpb_c, ki_c, bd_c = disc.kp * scale, disc.kpb * scale, disc.bi * scale, disc.bd * scale
-    two_f = 2.0 ** frac
-    # kp and kp b share one shift so that P = kp (b r - y) is formed with one rounding
-    big = max(abs(kp_c), abs(kpb_c))
-    if big == 0:
-        kp_m = kpb_m = p_s = 0
-    else:
-        _, p_s = _quantise(big * two_f, "kp")
-        kp_m = int(math.copysign(math.floor(abs(kp_c) * two_f * 2.0 ** p_s + 0.5), kp_c))
-        kpb_m = int(math.copysign(math.floor(abs(kpb_c) * two_f * 2.0 ** p_s + 0.5), kpb_c))
-    ki_m, ki_s = _quantise(ki_c * two_f, "ki_per_s")
-    bd_m, bd_s = _quantise(bd_c * two_f, "kd_s")
-    ad_m, ad_s = _quantise(disc.ad, "derivative filter") if disc.ad else (0, 0)
-    tr_m, tr_s = _quantise(disc.ao, "tracking_time_s") if disc.ao else (0, 0)
-    if disc.rate_step is None:
-        rate_q, rate_c = 0, 0.0
-    else:
-        rate_c = disc.rate_step / abs(opc)
-        rate_q = min(INT32_MAX, math.floor(rate_c * two_f + 0.5))
-        if rate_q < 1:
-            raise ModelError(f"rate_limit_per_s: {settings.rate_limit_per_s!r} per second is below the "
-                             f"fixed-point resolution (2^-{frac} count per step)")
-    return FixedPidCoefficients(
-        state_frac_bits=frac,
-        kp_mant=kp_m, kpb_mant=kpb_m, p_shift=p_s,
-        ki_mant=ki_m, ki_shift=ki_s,
-        ad_mant=ad_m, ad_shift=ad_s,
-        bd_mant=bd_m, bd_shift=bd_s,
-        track_mant=tr_m, track_shift=tr_s,
-        out_min_count=lo_c, out_max_count=hi_c,
-        rate_step_q=rate_q,
-        anti_windup=settings.anti_windup,
-        input_per_count=ipc, output_per_count=opc, sample_time_s=float(settings.sample_time_s),
-        kp_count=kp_c, kpb_count=kpb_c, ki_count=ki_c, bd_count=bd_c,
-        ad=disc.ad, track=disc.ao, rate_step_count=rate_c,
-        out_min_exact_count=lo_exact, out_max_exact_count=hi_exact,
-    )
-
-
-# ---------------------------------------------------------------------------
-# Fixed-point reference
-# ---------------------------------------------------------------------------
-
-
-def rshift_round(x: int, shift: int) -> int:
-    """``floor((x + 2^(shift-1)) / 2^shift)``: a right shift rounding half up (toward +infinity).
-
-    Parameters
-    ----------
-    x : int
-        Signed value.
-    shift : int
-        Non-negative shift; 0 returns ``x``.
-    """
-    if shift == 0:
-        return x
-    return (x + (1 << (shift - 1))) >> shift
-
-
-def _sat32(x: int) -> int:
-    return INT32_MIN if x < INT32_MIN else INT32_MAX if x > INT32_MAX else x
-
-
-def _as_int32(value, name: str) -> int:
-    try:
-        v = operator.index(value)
-    except TypeError:
-        raise ModelError(f"{name}: need an integer count, got {value!r}") from None
-    if not INT32_MIN <= v <= INT32_MAX:
-        raise ModelError(f"{name}: {v} is outside the int32 range")
-    return v
-
-
-@dataclass(frozen=True)
-class FixedPidState:
-    """A snapshot of the fixed-point controller state (the fields of the C state struct).
-
-    Attributes
-    ----------
-    integrator_q, derivative_q, output_q, manual_target_q : int
-        Q.F output counts (int32).
-    last_measurement_count : int
-        Previous measurement (input counts).
-    manual, primed, have_output : bool
-        Mode and start-up flags.
-    """
-
-    integrator_q: int
-    derivative_q: int
-    output_q: int
-    manual_target_q: int
-    last_measurement_count: int
-    manual: bool
-    primed: bool
-    have_output: bool
-
-
-class FixedPid:
-    """Bit-exact fixed-point PID reference (the generated C does exactly this).
-
-    Parameters
-    ----------
-    coeffs : FixedPidCoefficients
-        From :func:`quantise_pid`.
-
-    Notes
-    -----
-    Inputs are int32 counts, saturated to ``+-2^24``; arithmetic is done on
-    Python integers with explicit saturation to int32 where the C code
-    saturates, so the two agree bit for bit.
-    """
-
-    def __init__(self, coeffs: FixedPidCoefficients):
-        if not isinstance(coeffs, FixedPidCoefficients):
-            raise ModelError(f"coeffs: need FixedPidCoefficients, got {type(coeffs).__name__}")
-        self.coeffs = coeffs
-        c = coeffs
-
-        def half(shift):  # rshift_round(x, s) == (x + half(s)) >> s, also for s == 0
-            return (1 << (shift - 1)) if shift else 0
-
-        f = c.state_frac_bits
-        self._k = (
-            c.kpb_mant, c.kp_mant, c.p_shift, half(c.p_shift),
-            c.ad_mant, c.ad_shift, half(c.ad_shift),
-            c.bd_mant, c.bd_shift, half(c.bd_shift),
-            c.ki_mant, c.ki_shift, half(c.ki_shift),
-            c.track_mant, c.track_shift, half(c.track_shift),
-            c.rate_step_q, c.anti_windup_code, f, half(f),
-            c.out_min_count << f, c.out_max_count << f,
-        )
-        self.reset()
-
-    def reset(self, output_count: int | None = None) -> None:
-        """Clear the state and return to automatic mode.
-
-        Parameters
-        ----------
-        output_count : int, optional
-            When given (clipped to the limits), the first step outputs exactly
-            this count (bumpless start) and the rate limit applies from it.
-        """
-        self._i = 0
-        self._d = 0
-        self._y_prev = 0
-        self._manual = False
-        self._target = 0
-        self._primed = False
-        if output_count is None:
-            self._u = 0
-            self._have_output = False
-        else:
-            self._u = self._clip_count(_as_int32(output_count, "output_count"))
-            self._have_output = True
-
-    def _clip_count(self, count: int) -> int:
-        c = self.coeffs
-        return min(max(count, c.out_min_count), c.out_max_count) << c.state_frac_bits
-
-    def set_manual(self, output_count: int) -> None:
-        """Switch to manual mode with an output target in counts (clipped to the limits)."""
-        self._target = self._clip_count(_as_int32(output_count, "output_count"))
-        self._manual = True
-
-    def set_auto(self) -> None:
-        """Return to automatic mode (bumpless)."""
-        self._manual = False
-
-    @property
-    def manual(self) -> bool:
-        """True in manual mode."""
-        return self._manual
-
-    @property
-    def output_count(self) -> int:
-        """The last output in counts."""
-        return rshift_round(self._u, self.coeffs.state_frac_bits)
-
-    @property
-    def state(self) -> FixedPidState:
-        """A snapshot of the state."""
-        return FixedPidState(self._i, self._d, self._u, self._target, self._y_prev,
-                             self._manual, self._primed, self._have_output)
-
-    def step(self, setpoint_count: int, measurement_count: int) -> int:
-        """Advance one sample period.
-
-        Parameters
-        ----------
-        setpoint_count, measurement_count : int
-            Reference and measurement in input counts (int32; saturated to
-            +-2^24).
-
-        Returns
-        -------
-        int
-            The output in counts, within ``[out_min_count, out_max_count]``.
-        """
-        r = _as_int32(setpoint_count, "setpoint_count")
-        y = _as_int32(measurement_count, "measurement_count")
-        return self._step(r, y)
-
-    def _step(self, r: int, y: int) -> int:
-        # One implementation for step() and run(); the shifts are written out as
-        # (x + half) >> s, which is rshift_round(x, s) (Python's >> floors).
-        (kpb, kp, ps, ph, ad, ads, adh, bd, bds, bdh, ki, kis, kih, tr, trs, trh,
-         rate, mode, f, fh, lo_q, hi_q) = self._k
-        lim = INPUT_LIMIT_COUNT
-        r = -lim if r < -lim else lim if r > lim else r
-        y = -lim if y < -lim else lim if y > lim else y
-        primed, manual, have_output = self._primed, self._manual, self._have_output
-        y_prev = self._y_prev if primed else y
-        p = (kpb * r - kp * y + ph) >> ps
-        d = ((ad * self._d + adh) >> ads) - ((bd * (y - y_prev) + bdh) >> bds)
-        d = INT32_MIN if d < INT32_MIN else INT32_MAX if d > INT32_MAX else d
-        u_prev = self._u
-        i = self._i
-        if not primed and have_output and not manual:
-            i = _sat32(u_prev - p - d)  # bumpless start from reset(output_count)
-        v = p + i + d
-        v = INT32_MIN if v < INT32_MIN else INT32_MAX if v > INT32_MAX else v
-        if manual:
-            u = self._target
-        else:
-            u = lo_q if v < lo_q else hi_q if v > hi_q else v
-        if rate and have_output:
-            lo, hi = u_prev - rate, u_prev + rate
-            u = lo if u < lo else hi if u > hi else u
-        if manual:
-            i = _sat32(u - p - d)  # tracking for a bumpless return to automatic
-        else:
-            inc = (ki * (r - y) + kih) >> kis
-            if mode == 0:  # back-calculation
-                i = _sat32(i + inc + ((tr * (u - v) + trh) >> trs))
-            elif mode == 1:  # clamping: hold while limited and the error drives further
-                if not ((v > u and inc > 0) or (v < u and inc < 0)):
-                    i = _sat32(i + inc)
-            else:
-                i = _sat32(i + inc)
-        self._i = i
-        self._d = d
-        self._u = u
-        self._y_prev = y
-        self._primed = True
-        self._have_output = True
-        return (u + fh) >> f
-
-    def run(self, setpoint_count, measurement_count, *, manual=None, manual_output_count=None) -> PidRun:
-        """Run over whole sequences of counts, continuing from the present state.
-
-        Parameters
-        ----------
-        setpoint_count : array_like of int or int
-            Reference at each step (input counts); a scalar is held.
-        measurement_count : array_like of int
-            Measurement at each step (input counts), shape ``(n,)``.
-        manual : array_like of bool, optional
-            Manual mode at each step (switches as in :meth:`FloatPid.run`).
-        manual_output_count : array_like of int, optional
-            Manual output target at each step (counts).
-
-        Returns
-        -------
-        PidRun
-            Output counts and raw Q.F integrator and derivative after each step (int64).
-        """
-        r, y, m, mo = _schedule(setpoint_count, measurement_count, manual, manual_output_count, np.int64)
-        for name, seq in (("setpoint_count", r), ("measurement_count", y), ("manual_output_count", mo)):
-            if seq and (min(seq) < INT32_MIN or max(seq) > INT32_MAX):
-                raise ModelError(f"{name}: values outside the int32 range")
-        return _run_steps(self, r, y, m, mo, np.int64)
-
-
-# ---------------------------------------------------------------------------
-# Agreement bound
-# ---------------------------------------------------------------------------
-
-
-def agreement_bound_count(coeffs: FixedPidCoefficients, n_steps: int, *, max_input_count: float,
-                          manual=None, max_output_count: float | None = None) -> float:
-    """Worst-case difference between the fixed-point and the float output after ``n_steps``.
-
-    The bound is on ``|FixedPid output - FloatPid output / output_per_count|``
-    (output counts) when both see the same inputs (``count * input_per_count``
-    for the float controller) and the same mode switches.
-
-    Derivation. Let ``eta = 2^-F`` (one state LSB in counts); each rounding
-    right shift errs by at most ``eta/2``; a quantised coefficient ``c`` errs
-    by ``dc`` (known exactly from its mantissa). With ``|r|, |y| <= X``
-    (``X = max_input_count``), ``|y - y_prev| <= 2X``, ``|r - y| <= 2X`` and
-    ``|D| <= Dmax = |bd| 2X / (1 - ad)``, per step:
-
-    * ``eP <= (|dkpb| + |dkp|) X + eta/2`` (one rounding);
-    * ``eD' <= ad eD + |dad| Dmax + |dbd| 2X + eta`` (two roundings); from
-      ``eD = 0`` it never exceeds its fixed point ``eD* = (...) / (1 - ad)``;
-    * ``ev <= eP + eI + eD*``. Clipping to the limits is 1-Lipschitz; the rate
-      limit, a clip to ``u_prev +- du``, adds ``eu_prev + |ddu|``; the
-      integer limits differ from the exact ones by at most ``L =
-      max(|out_min_count - out_min_exact|, |out_max_count - out_max_exact|)``
-      (they lie inside them), and a clip is 1-Lipschitz in the value and its
-      bounds together: so ``eu <= max(ev, L, eu_prev + |ddu|)`` in automatic
-      mode and ``eu <= max(L, eu_prev + |ddu|)`` in manual mode (the target
-      is the same number for both; without a rate limit drop the
-      ``eu_prev`` terms);
-    * back-calculation: ``I' = (1 - ao) I + ao (u - P - D) + bi e`` with
-      ``0 <= ao <= 1``, so ``eI' <= (1 - ao) eI + ao (eu + eP + eD*) + |dao|
-      |u - v| + |dbi| 2X + eta`` with ``|u - v| <= 2^(32-F)`` counts (int32
-      state); clamping and none: ``eI' <= eI + |dbi| 2X + eta/2``; manual
-      tracking ``I = u - P - D``: ``eI' <= eu + eP + eD* + eta``. The first
-      step after ``reset(output)`` sets ``I`` the same way, so the recurrence
-      starts from ``eI = eP + eD* + eta``.
-
-    The output error is ``eu + 1/2`` (the fixed output is rounded to a whole
-    count). The integrator does not forget, so in automatic mode the bound grows about
-    linearly with the number of steps; it is therefore stated for a run
-    length.
-
-    Assumptions: ``P``, ``I``, ``D`` and ``P + I + D`` stay inside the int32
-    state range (``+-2^(31-F)`` counts, at least sixteen times the largest
-    limit), so no int32 saturation happens; the inputs stay within
-    ``X <= 2^24`` counts; in clamping mode the integrate/hold decisions of
-    both controllers coincide (the decision is discontinuous: right at a limit
-    the two may differ by one whole increment, which then persists in open
-    loop and is corrected in closed loop).
-
-    Parameters
-    ----------
-    coeffs : FixedPidCoefficients
-    n_steps : int
-        Number of steps since the last reset.
-    max_input_count : float
-        Largest magnitude of setpoint and measurement (input counts).
-    manual : array_like of bool, optional
-        Manual mode at each step (length ``n_steps``); default automatic
-        throughout.
-    max_output_count : float, optional
-        Largest magnitude of ``u`` and ``v`` (counts) for the tracking-gain
-        error; default the whole int32 state range.
-
-    Returns
-    -------
-    float
-        The bound in output counts.
-    """
-    if n_steps < 0:
-        raise ModelError(f"n_steps: must be non-negative, got {n_steps!r}")
-    n_steps = int(n_steps)
-    if manual is None:
-        modes = [False] * n_steps
-    else:
-        modes = np.broadcast_to(np.asarray(manual, dtype=bool), (n_steps,)).tolist()
-    c = coeffs
-    eta = 2.0 ** -c.state_frac_bits
-    q = c.represented()
-    x = float(min(max_input_count, INPUT_LIMIT_COUNT))
-    d_kp = abs(q["kp_count"] - c.kp_count)
-    d_kpb = abs(q["kpb_count"] - c.kpb_count)
-    d_ki = abs(q["ki_count"] - c.ki_count)
-    d_bd = abs(q["bd_count"] - c.bd_count)
-    d_ad = abs(q["ad"] - c.ad)
-    d_tr = abs(q["track"] - c.track)
-    d_rate = abs(q["rate_step_count"] - c.rate_step_count)
-    uv_max = 2.0 ** (32 - c.state_frac_bits) if max_output_count is None else 2.0 * max_output_count
-    e_p = (d_kpb + d_kp) * x + (eta / 2 if c.p_shift else 0.0)
-    if c.bd_mant:
-        d_max = abs(c.bd_count) * 2 * x / (1 - c.ad)
-        e_d = (d_ad * d_max + d_bd * 2 * x + eta) / (1 - c.ad)
-    else:
-        e_d = 0.0
-    tracking = c.anti_windup == "back_calculation" and c.track_mant != 0
-    ao = c.track
-    lim = max(abs(c.out_min_count - c.out_min_exact_count), abs(c.out_max_count - c.out_max_exact_count))
-    e_i = e_p + e_d + eta
-    e_u = 0.0
-    for is_manual in modes:
-        if is_manual:
-            # the target is the same number for both, clipped to limits that differ by up to lim
-            e_u = max(lim, e_u + d_rate) if c.rate_step_q else lim
-            e_i = e_u + e_p + e_d + eta
-            continue
-        e_v = e_p + e_i + e_d
-        e_clip = max(e_v, lim)  # clip(v, lo, hi) is 1-Lipschitz in v, lo and hi together
-        e_u = max(e_clip, e_u + d_rate) if c.rate_step_q else e_clip
-        if tracking:
-            e_i = (1 - ao) * e_i + ao * (e_u + e_p + e_d) + d_tr * uv_max + d_ki * 2 * x + eta
-        else:
-            e_i = e_i + d_ki * 2 * x + eta / 2
-    return e_u + 0.5
+# The fixed-point half lives in its own module; its names stay importable from here.
+from compensator.firmware.pid_fixed import (  # noqa: E402
+    FixedPid,
+    FixedPidCoefficients,
+    FixedPidState,
+    agreement_bound_count,
+    quantise_pid,
+)

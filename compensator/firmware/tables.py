@@ -8,271 +8,149 @@ The integer path, for an ADC code ``n``:
 
 1. ``n < fault_lo`` or ``n > fault_hi``: the sensor is open, shorted or
    reads a temperature more than ``fault_margin_k`` outside the operating
-   range. Return the board's ``safe_dac_code``, status ``STATUS_SENSOR_FAULT``.
-   Rail codes (0 and full scale) are always faults.
+   range. Return ``safe_dac_code`` (see :mod:`compensator.firmware.safe_state`:
+   below breakdown at the coldest temperature when the supply can reach that),
+   status ``SENSOR_FAULT``. Rail codes (0 and full scale) are always faults.
 2. ``n < code_lo`` or ``n > code_hi`` (a plausible reading just outside the
    operating range): return the table's own value at the nearer end of the
-   range (never an extrapolated bias), status ``STATUS_BELOW_RANGE`` or
-   ``STATUS_ABOVE_RANGE`` (in ADC-code terms; with an NTC on the low side a
-   code above the range is a temperature *below* it).
-3. Otherwise interpolate (status ``STATUS_OK``):
+   range (never an extrapolated bias), status ``COLDER_THAN_RANGE`` or
+   ``HOTTER_THAN_RANGE``: which side of the codes is cold depends on the
+   sensor and its wiring (with an NTC on the low side of the divider a code
+   above the range is a temperature *below* it), and the table records it.
+3. Otherwise interpolate by the table's layout (status ``OK``); the layouts
+   and their integer arithmetic are in :mod:`compensator.firmware.layouts`
+   (``uniform``, ``segmented``, ``optimised``, ``polynomial``).
+4. Clamp to ``[dac_min, dac_max]``: the DAC codes whose output lies within
+   the supply's limits and the board's ``max_bias_v``.
 
-   * ``uniform``: nodes every ``2^shift`` codes from ``code_lo``, stored
-     with ``G`` fractional bits (``G`` = 0: plain DAC codes);
-     ``d = n - code_lo``, ``i = d >> shift``, ``r = d & (2^shift - 1)``,
-     ``v = Y[i] + floor(((Y[i+1] - Y[i]) r + 2^(shift-1)) / 2^shift)``,
-     ``y = floor((v + 2^(G-1)) / 2^G)`` (no half-terms when the shift is 0).
-   * ``optimised``: breakpoints ``X[0] = code_lo < X[1] < ...``; a binary
-     search finds the largest ``i`` with ``X[i] <= n``; ``d = n - X[i]``,
-     ``y = Y[i] + floor((S[i] d + 2^(F-1)) / 2^F)`` with the stored slope
-     ``S[i]`` in DAC codes per ADC code scaled by ``2^F``.
+With the *measured* drop correction a second entry point also adds the drop
+of the measured SiPM current (:mod:`compensator.firmware.current`).
 
-   The ``floor`` of a signed value divided by ``2^k`` is computed without
-   relying on the sign behaviour of ``>>`` in C:
-   ``p >= 0 ? p >> k : -((-p + 2^k - 1) >> k)``; Python's ``>>`` floors.
-   So rounding is "half up" (towards plus infinity) in both.
-4. Clamp ``y`` to ``[dac_min, dac_max]``: the DAC codes whose output lies
-   within the supply's limits and the board's ``max_bias_v``.
-
-With the *measured* series-resistor drop correction the table holds the law
-for zero current and a second entry point also takes the raw code ``c`` of
-the SiPM current ADC (:meth:`LookupTable.lookup_with_current`):
-
-5. A sensor fault (step 1) returns ``safe_dac_code``, uncorrected.
-6. ``c`` is limited to ``current_code_max`` (the smallest of the ADC's full
-   scale, the code of the SiPM's ``max_current_a`` and the code whose drop
-   would take the SiPM past ``max_overvoltage_v`` if the current were not
-   really flowing), then
-   ``delta = floor((K c + 2^(Q-1)) / 2^Q)``: ``K`` is the exact
-   correction ``R (Vref_I / 2^bits_I) / sense_gain / (volts per DAC code)``
-   in DAC codes per current code, scaled by ``2^Q`` and rounded, signed (it is
-   negative for the feedback-injection supply, whose output falls as the code
-   rises). ``Q`` is chosen so the rounding of ``K`` moves ``delta`` by at most
-   1/64 LSB over the whole current range; no division at run time.
-7. The result of steps 2-4 plus ``delta``, clamped again to ``[dac_min, dac_max]``.
-
-Node values are the law's exact DAC codes rounded to nearest; uniform sizing
-tries every power-of-two spacing and keeps the widest that meets the bound,
-verified at every code; optimised placement is greedy: each segment is made
-as long as it can be while every code in it still meets the bound (checked
-with the integer arithmetic above), which equalises the error across
-segments. The error is measured at the centre of each ADC code against the
-law evaluated there; a change of ``dV`` in the supply output is taken as a
-gain error ``dV / Vov(T)``, which slightly overstates the error at the SiPM
-(the series resistor returns a fraction ``R dI/dV`` of it).
+Node values are the law's exact DAC codes rounded to nearest. The error is
+measured at the centre of each ADC code against the law evaluated there; a
+change of ``dV`` in the supply output is taken as a gain error ``dV / Vov(T)``,
+which slightly overstates the error at the SiPM (the series resistor returns a
+fraction ``R dI/dV`` of it). Every table is checked at every ADC code of the
+range with the integer arithmetic before it is returned.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from enum import IntEnum
 
 import numpy as np
 
 from compensator.errors import ModelError
+from compensator.findings import Finding, Severity
+from compensator.firmware.current import CURRENT_FACTOR_SLACK_BITS, CurrentCorrection, build_current_correction
+from compensator.firmware.fixed_point import floor_shift, uint_bits
+from compensator.firmware.layouts import (
+    LAYOUT_CHOICES,
+    LAYOUTS,
+    UNIFORM_NODE_FRAC_BITS,
+    LayoutFit,
+    Target,
+    TableError,
+    layout_bytes,
+    optimised_value,
+    polynomial_value,
+    segmented_value,
+    size_optimised,
+    size_polynomial,
+    size_segmented,
+    size_uniform,
+    uniform_candidate,
+    uniform_value,
+)
+from compensator.firmware.safe_state import SafeState, safe_state
 from compensator.law.laws import CompensationLaw, check_law_in_range
 from compensator.physics.sipm import breakdown_v
 
-LAYOUTS = ("uniform", "optimised")
+__all__ = [
+    "LAYOUTS", "LAYOUT_CHOICES", "TableStatus", "STATUS_OK", "STATUS_SENSOR_FAULT", "STATUS_NAMES",
+    "DEFAULT_FAULT_MARGIN_K", "CURRENT_FACTOR_SLACK_BITS", "CurrentCorrection", "build_current_correction",
+    "TableError", "floor_shift", "LookupTable", "TableSweep", "LayoutCandidate", "LayoutReport", "ideal_dac_code",
+    "adc_quantisation_gain_pct", "build_table", "compare_layouts", "sweep_table", "UNIFORM_NODE_FRAC_BITS",
+]
 
-STATUS_OK = 0
-STATUS_BELOW_RANGE = 1
-STATUS_ABOVE_RANGE = 2
-STATUS_SENSOR_FAULT = 3
-STATUS_NAMES = {STATUS_OK: "ok", STATUS_BELOW_RANGE: "below_range", STATUS_ABOVE_RANGE: "above_range",
-                STATUS_SENSOR_FAULT: "sensor_fault"}
+
+class TableStatus(IntEnum):
+    """What the table did with an ADC code (the values of ``NAME_status()`` in C)."""
+
+    OK = 0
+    COLDER_THAN_RANGE = 1
+    HOTTER_THAN_RANGE = 2
+    SENSOR_FAULT = 3
+
+
+STATUS_OK = TableStatus.OK
+STATUS_SENSOR_FAULT = TableStatus.SENSOR_FAULT
+STATUS_NAMES = {s: s.name.lower() for s in TableStatus}
 
 #: Default distance beyond the operating range at which a reading counts as a sensor fault, kelvin.
 DEFAULT_FAULT_MARGIN_K = 20.0
 
 
-#: The rounding of the correction factor may move the correction by at most 1/2^CURRENT_FACTOR_SLACK_BITS DAC LSB.
-CURRENT_FACTOR_SLACK_BITS = 6
+
+def _empty() -> np.ndarray:
+    return np.zeros(0, dtype=np.int64)
 
 
-@dataclass(frozen=True)
-class CurrentCorrection:
-    """The run-time series-resistor drop correction from the measured SiPM current.
-
-    Attributes
-    ----------
-    current_bits : int
-        Resolution of the current ADC, bits.
-    current_type_bits : int
-        Width of the unsigned C argument that carries the current code.
-    current_code_max : int
-        Larger current codes are limited to this.
-    factor : int
-        ``K``: DAC codes per current code, times ``2^shift`` (signed).
-    shift : int
-        ``Q``, bits.
-    acc_type_bits : int
-        Width of the signed accumulator of ``K c``.
-    dac_codes_per_current_code : float
-        The exact (unrounded) factor, DAC codes per current code.
-    lsb_a : float
-        SiPM current per current code, ampere.
-    series_resistor_ohm : float
-    limit_reason : str
-        What sets ``current_code_max``.
-    """
-
-    current_bits: int
-    current_type_bits: int
-    current_code_max: int
-    factor: int
-    shift: int
-    acc_type_bits: int
-    dac_codes_per_current_code: float
-    lsb_a: float
-    series_resistor_ohm: float
-    limit_reason: str = ""
-
-    @property
-    def max_correction_v(self) -> float:
-        """Largest drop the correction adds, volt."""
-        return self.series_resistor_ohm * self.current_code_max * self.lsb_a
-
-    def delta(self, current_code):
-        """Correction in DAC codes for raw current codes (the integer path, bit-exact reference).
-
-        Parameters
-        ----------
-        current_code : array_like of int
-            Raw current ADC codes, ``0 .. 2^current_type_bits - 1``.
-
-        Returns
-        -------
-        ndarray of int64
-            Signed DAC codes to add to the table's value.
-        """
-        c = np.minimum(np.asarray(current_code, dtype=np.int64), self.current_code_max)
-        return floor_shift(self.factor * c + ((1 << self.shift) >> 1), self.shift)
-
-
-def build_current_correction(law: CompensationLaw, fault_margin_k: float = 0.0) -> CurrentCorrection:
-    """The integer drop correction of a law with ``drop_correction="measured"``.
-
-    Parameters
-    ----------
-    law : CompensationLaw
-        Must carry a ``current_sense`` channel.
-    fault_margin_k : float
-        The table's fault margin, kelvin: readings just below the range keep
-        the end value while the die may be this much colder, which uses up
-        overvoltage headroom.
-
-    Returns
-    -------
-    CurrentCorrection
-
-    Raises
-    ------
-    ModelError
-        The law has no current channel, or no headroom is left for any correction.
-    """
-    sense = law.current_sense
-    if sense is None:
-        raise ModelError("the measured drop correction needs the board's current_sense channel")
-    supply = law.supply
-    r_ohm = float(supply.series_resistor_ohm)
-    exact = r_ohm * sense.lsb_a / supply.volts_per_code
-    limits = [(sense.full_scale_code, "current ADC full scale"),
-              (int(sense.adc_code(law.sipm.max_current_a)), "sipm max_current_a")]
-    if r_ohm > 0:
-        temps = np.linspace(law.min_temp_c, law.max_temp_c, 141)
-        ov0 = float(np.max(law.output_v(temps) - breakdown_v(law.sipm, temps)))
-        t_lo = law.min_temp_c
-        ov_margin = float(law.output_v(t_lo) - breakdown_v(law.sipm, t_lo - fault_margin_k))
-        headroom_v = law.sipm.max_overvoltage_v - max(ov0, ov_margin)
-        if headroom_v <= 0:
-            raise ModelError(f"the law already reaches max_overvoltage_v {law.sipm.max_overvoltage_v:g} V: no "
-                             "headroom is left for the measured drop correction; lower the overvoltage")
-        limits.append((int(np.floor(headroom_v / (r_ohm * sense.lsb_a))), "sipm max_overvoltage_v headroom"))
-    code_max, reason = min(limits, key=lambda p: p[0])
-    code_max = max(int(code_max), 0)
-    shift = max(0, int(np.ceil(np.log2(max(code_max, 1) * (1 << (CURRENT_FACTOR_SLACK_BITS - 1))))))
-    factor = int(np.rint(exact * (1 << shift)))
-    acc_max = abs(factor) * code_max + (1 << shift)
-    current_type_bits = max(16, _uint_bits(sense.full_scale_code))
-    return CurrentCorrection(sense.adc_bits, current_type_bits, code_max, factor, shift,
-                             32 if _int_bits(acc_max) <= 32 else 64, float(exact), float(sense.lsb_a), r_ohm,
-                             reason)
-
-
-class TableError(ModelError):
-    """The gain-error bound cannot be met; ``term`` names the budget term that prevents it."""
-
-    def __init__(self, term: str, message: str):
-        self.term = term
-        super().__init__(f"{term}: {message}")
-
-
-def _uint_bits(max_value: int) -> int:
-    for bits in (8, 16, 32):
-        if max_value < (1 << bits):
-            return bits
-    return 64
-
-
-def _int_bits(max_abs: int) -> int:
-    for bits in (16, 32):
-        if max_abs < (1 << (bits - 1)):
-            return bits
-    return 64
-
-
-def floor_shift(p, k: int):
-    """``floor(p / 2^k)`` for signed integers (numpy ``>>`` is arithmetic, so it floors).
-
-    Parameters
-    ----------
-    p : array_like of int
-    k : int
-        Shift, bits.
-
-    Returns
-    -------
-    ndarray of int64
-    """
-    return np.asarray(p, dtype=np.int64) >> np.int64(k)
-
-
-@dataclass(frozen=True, eq=False)
+@dataclass(frozen=True, eq=False, kw_only=True)
 class LookupTable:
     """An integer lookup table and the constants of its firmware path.
 
     Attributes
     ----------
-    layout : {"uniform", "optimised"}
+    layout : {"uniform", "segmented", "optimised", "polynomial"}
+        How the law is stored (:mod:`compensator.firmware.layouts`).
     adc_bits, dac_bits : int
+        Resolutions of the temperature ADC and the bias DAC.
     code_lo, code_hi : int
         ADC codes of the operating range (inclusive).
     fault_lo, fault_hi : int
         Plausible ADC codes (inclusive); anything outside is a sensor fault.
     dac_min, dac_max : int
         Output clamp, DAC codes.
-    safe_dac_code, below_dac_code, above_dac_code : int
-        DAC codes for faults and for readings just outside the range.
+    safe_dac_code : int
+        DAC code for a sensor fault.
+    below_dac_code, above_dac_code : int
+        DAC codes for readings just below and just above the range of codes.
+    below_status, above_status : TableStatus
+        ``COLDER_THAN_RANGE`` or ``HOTTER_THAN_RANGE``: what a code below
+        (above) the range means for this sensor and wiring.
     shift : int
-        Uniform: log2 of the node spacing in ADC codes (0 for optimised).
-    node_frac_bits : int
-        Uniform: fractional bits ``G`` of the stored nodes (0 for optimised).
+        Uniform: log2 of the node spacing in ADC codes (0 otherwise).
     slope_frac_bits : int
-        Optimised: fractional bits ``F`` of the stored slopes (0 for uniform).
+        Optimised: fractional bits ``F`` of the stored slopes (0 otherwise).
     x : ndarray of int64
-        Optimised: breakpoints (ADC codes); uniform: empty.
+        Optimised: breakpoints (ADC codes); empty otherwise.
     y : ndarray of int64
-        Node values, DAC codes.
+        Node values (uniform, segmented: times ``2^node_frac_bits``; optimised:
+        DAC codes) or polynomial coefficients ``C_0 .. C_m``.
     slope : ndarray of int64
-        Optimised: slopes scaled by ``2^F``; uniform: empty.
+        Optimised: slopes scaled by ``2^F``; empty otherwise.
+    segment_shift : ndarray of int64
+        Segmented: log2 of each segment's width; empty otherwise.
+    center_code : int
+        Polynomial: the ADC code where ``x = 0``.
+    coeff_shift : ndarray of int64
+        Polynomial: the Horner shifts ``Q_(j+1) - Q_j``.
+    coeff_type_bits : tuple of int
+        Polynomial: C width of each coefficient (16 or 32).
     code_type_bits, value_type_bits, slope_type_bits, acc_type_bits : int
         Widths of the C types (unsigned code and value, signed slope and accumulator).
     node_type_bits : int
-        Width of the stored uniform nodes (unsigned).
+        Width of the stored nodes (unsigned; uniform and segmented).
+    node_frac_bits : int
+        Fractional bits ``G`` of the stored nodes (``Q_0`` for a polynomial).
     max_gain_error_pct : float
         The bound the table was sized for, percent.
     current : CurrentCorrection or None
         The run-time drop correction from the measured current, if any.
+    safe_state : SafeState or None
+        What ``safe_dac_code`` does to the SiPM.
     """
 
     layout: str
@@ -287,11 +165,17 @@ class LookupTable:
     safe_dac_code: int
     below_dac_code: int
     above_dac_code: int
-    shift: int
-    slope_frac_bits: int
-    x: np.ndarray = field(repr=False)
-    y: np.ndarray = field(repr=False)
-    slope: np.ndarray = field(repr=False)
+    below_status: TableStatus = TableStatus.COLDER_THAN_RANGE
+    above_status: TableStatus = TableStatus.HOTTER_THAN_RANGE
+    shift: int = 0
+    slope_frac_bits: int = 0
+    x: np.ndarray = field(default_factory=_empty, repr=False)
+    y: np.ndarray = field(default_factory=_empty, repr=False)
+    slope: np.ndarray = field(default_factory=_empty, repr=False)
+    segment_shift: np.ndarray = field(default_factory=_empty, repr=False)
+    center_code: int = 0
+    coeff_shift: np.ndarray = field(default_factory=_empty, repr=False)
+    coeff_type_bits: tuple = ()
     code_type_bits: int = 16
     value_type_bits: int = 16
     slope_type_bits: int = 32
@@ -300,23 +184,37 @@ class LookupTable:
     node_frac_bits: int = 0
     node_type_bits: int = 16
     current: CurrentCorrection | None = None
+    safe_state: SafeState | None = None
+
+    def __post_init__(self):
+        if self.layout not in LAYOUTS:
+            raise ModelError(f"layout must be one of {', '.join(LAYOUTS)}, got {self.layout!r}")
+        object.__setattr__(self, "below_status", TableStatus(self.below_status))
+        object.__setattr__(self, "above_status", TableStatus(self.above_status))
 
     @property
     def entries(self) -> int:
-        """Number of table rows (nodes for uniform, breakpoints for optimised)."""
+        """Number of table rows (nodes, breakpoints or polynomial coefficients)."""
         return int(self.y.size)
 
     @property
     def entry_bytes(self) -> int:
-        """Bytes per row in the generated const arrays."""
+        """Bytes per row in the generated const arrays (rounded down where rows differ)."""
         if self.layout == "uniform":
             return self.node_type_bits // 8
-        return (self.code_type_bits + self.value_type_bits + self.slope_type_bits) // 8
+        if self.layout == "optimised":
+            return (self.code_type_bits + self.value_type_bits + self.slope_type_bits) // 8
+        return self.table_bytes // max(self.entries, 1)
 
     @property
     def table_bytes(self) -> int:
         """Bytes of const data in the generated arrays."""
-        return self.entries * self.entry_bytes
+        return layout_bytes(self, self.code_type_bits)
+
+    @property
+    def coeff(self) -> np.ndarray:
+        """Polynomial coefficients ``C_0 .. C_m`` (the same array as ``y``)."""
+        return self.y
 
     def interpolate(self, adc_code):
         """Interpolated DAC code for in-range ADC codes (before the output clamp).
@@ -330,16 +228,7 @@ class LookupTable:
         -------
         ndarray of int64
         """
-        n = np.asarray(adc_code, dtype=np.int64)
-        if self.layout == "uniform":
-            d = n - self.code_lo
-            i = d >> self.shift
-            r = d & ((1 << self.shift) - 1)
-            return _uniform_value(self.y, i, r, self.shift, self.node_frac_bits)
-        i = np.searchsorted(self.x, n, side="right") - 1
-        d = n - self.x[i]
-        half = (1 << self.slope_frac_bits) >> 1
-        return self.y[i] + floor_shift(self.slope[i] * d + half, self.slope_frac_bits)
+        return _interpolate(self, self.code_lo, adc_code)
 
     def lookup(self, adc_code):
         """The firmware path for any ADC codes: DAC code and status (bit-exact reference).
@@ -354,7 +243,7 @@ class LookupTable:
         -------
         dac_code : ndarray of int64
         status : ndarray of int64
-            ``STATUS_OK``, ``STATUS_BELOW_RANGE``, ``STATUS_ABOVE_RANGE`` or ``STATUS_SENSOR_FAULT``.
+            :class:`TableStatus` values.
         """
         n = np.asarray(adc_code, dtype=np.int64)
         if np.any((n < 0) | (n >= (1 << self.code_type_bits))):
@@ -363,12 +252,12 @@ class LookupTable:
         y = np.zeros(n.shape, dtype=np.int64)
         if np.any(inside):
             y[inside] = np.clip(self.interpolate(n[inside]), self.dac_min, self.dac_max)
-        status = np.full(n.shape, STATUS_OK, dtype=np.int64)
+        status = np.full(n.shape, int(TableStatus.OK), dtype=np.int64)
         below, above = n < self.code_lo, n > self.code_hi
         fault = (n < self.fault_lo) | (n > self.fault_hi)
-        y[below], status[below] = self.below_dac_code, STATUS_BELOW_RANGE
-        y[above], status[above] = self.above_dac_code, STATUS_ABOVE_RANGE
-        y[fault], status[fault] = self.safe_dac_code, STATUS_SENSOR_FAULT
+        y[below], status[below] = self.below_dac_code, int(self.below_status)
+        y[above], status[above] = self.above_dac_code, int(self.above_status)
+        y[fault], status[fault] = self.safe_dac_code, int(TableStatus.SENSOR_FAULT)
         return y, status
 
     def lookup_with_current(self, adc_code, current_code):
@@ -403,16 +292,30 @@ class LookupTable:
             raise ModelError(f"current_code outside the range of the {self.current.current_type_bits}-bit argument")
         y, status = self.lookup(n)
         out = np.clip(y + self.current.delta(c), self.dac_min, self.dac_max)
-        return np.where(status == STATUS_SENSOR_FAULT, self.safe_dac_code, out), status
+        return np.where(status == TableStatus.SENSOR_FAULT, self.safe_dac_code, out), status
 
 
-@dataclass(frozen=True, eq=False)
+def _interpolate(f, code_lo: int, adc_code):
+    """The in-range value of a layout (``f``: a :class:`LookupTable` or a :class:`LayoutFit`)."""
+    n = np.asarray(adc_code, dtype=np.int64)
+    if f.layout == "uniform":
+        d = n - code_lo
+        return uniform_value(f.y, d >> f.shift, d & ((1 << f.shift) - 1), f.shift, f.node_frac_bits)
+    if f.layout == "segmented":
+        return segmented_value(f.y, f.segment_shift, n - code_lo, f.node_frac_bits)
+    if f.layout == "optimised":
+        return optimised_value(f.x, f.y, f.slope, n, f.slope_frac_bits)
+    return polynomial_value(f.y, f.coeff_shift, n - f.center_code, f.node_frac_bits)
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
 class TableSweep:
     """A table checked at every ADC code of the operating range.
 
     Attributes
     ----------
     adc_code : ndarray of int64
+        Every code of the range.
     temp_c : ndarray
         Temperature read at the centre of each code, degree Celsius.
     ideal_bias_v : ndarray
@@ -420,15 +323,17 @@ class TableSweep:
     ideal_dac_code : ndarray
         Exact (fractional) DAC code for it.
     table_dac_code : ndarray of int64
+        What the table gives.
     table_bias_v : ndarray
         Supply output at the table's DAC code, volt.
     gain_error_pct : ndarray
         ``100 (table_bias_v - ideal_bias_v) / Vov(T)``.
     max_gain_error_pct : float
-        Largest absolute gain error, percent.
+        Largest absolute gain error over every code of the range, percent.
     max_error_dac_lsb : float
-        Largest absolute difference from the exact DAC code, LSB.
+        Largest absolute difference from the exact DAC code over every code, LSB.
     worst_adc_code : int
+        Where the largest absolute gain error sits.
     within_bound : bool
         Whether every code meets the table's bound.
     """
@@ -446,27 +351,58 @@ class TableSweep:
     within_bound: bool
 
 
-@dataclass(frozen=True, eq=False)
-class _Target:
-    """The function to tabulate over the operating range, plus the bound per code."""
+@dataclass(frozen=True, kw_only=True)
+class LayoutCandidate:
+    """One layout built for the bound and checked at every code.
 
-    codes: np.ndarray
-    temp_c: np.ndarray
-    exact: np.ndarray          # fractional DAC code at each in-range code
-    bound_lsb: np.ndarray      # allowed |error| in DAC LSB at each code
-    ext_lo: float              # slope for extrapolation below code_lo (DAC codes per ADC code)
-    ext_hi: float              # and above code_hi
-    dac_full: int
+    Attributes
+    ----------
+    layout : str
+        The layout's name.
+    table_bytes : int or None
+        Bytes of const data (None when the layout cannot meet the bound).
+    entries : int or None
+        Nodes, breakpoints or coefficients.
+    max_gain_error_pct : float or None
+        Largest absolute gain error over every ADC code of the range, percent.
+    within_bound : bool
+        Whether every code meets the bound.
+    reason : str
+        Why the layout failed (empty when it was built).
+    """
 
-    def at(self, code):
-        """Exact DAC code at integer codes, extrapolated linearly beyond the range."""
-        c = np.asarray(code, dtype=np.int64)
-        lo, hi = int(self.codes[0]), int(self.codes[-1])
-        inner = np.clip(c, lo, hi)
-        out = self.exact[inner - lo]
-        out = np.where(c > hi, self.exact[-1] + (c - hi) * self.ext_hi, out)
-        return np.where(c < lo, self.exact[0] + (c - lo) * self.ext_lo, out)
+    layout: str
+    table_bytes: int | None
+    entries: int | None
+    max_gain_error_pct: float | None
+    within_bound: bool
+    reason: str = ""
 
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class LayoutReport:
+    """Every layout built for one bound, and the one chosen.
+
+    Attributes
+    ----------
+    table : LookupTable
+        The chosen table (the smallest that meets the bound).
+    tables : dict of str to LookupTable
+        Every layout that was built and met the bound.
+    candidates : tuple of LayoutCandidate
+        Every layout tried, in :data:`LAYOUTS` order.
+    uniform_bytes : int
+        Bytes of the smallest uniform table, the baseline.
+    findings : tuple of Finding
+        An ``info`` finding when the chosen table is not at most half the
+        uniform baseline, explaining with numbers why.
+    """
+
+    table: LookupTable
+    tables: dict
+    candidates: tuple
+    uniform_bytes: int
+    findings: tuple = ()
 
 def ideal_dac_code(law: CompensationLaw, temp_c):
     """Exact (fractional) DAC code that gives the law's output at ``temp_c``.
@@ -490,7 +426,7 @@ def _gain_pct_per_lsb(law: CompensationLaw, temp_c):
     return 100.0 * law.supply.lsb_v / law.target_overvoltage_v(temp_c)
 
 
-def _target(law, board, max_gain_error_pct) -> _Target:
+def _target(law, board, max_gain_error_pct) -> Target:
     channel = board.temperature
     code_lo, code_hi = channel.code_range(law.min_temp_c, law.max_temp_c)
     codes = np.arange(code_lo, code_hi + 1, dtype=np.int64)
@@ -498,16 +434,18 @@ def _target(law, board, max_gain_error_pct) -> _Target:
     if not np.all(np.isfinite(temps)):
         raise ModelError(f"{board.name}: some ADC codes of the operating range do not map to a temperature")
     exact = ideal_dac_code(law, temps)
-    bound = max_gain_error_pct / _gain_pct_per_lsb(law, temps)
+    per_lsb = _gain_pct_per_lsb(law, temps)
+    bound = max_gain_error_pct / per_lsb
     ext = []
     for end in (code_lo, code_hi):
         t2 = channel.temp_at(np.array([end - 0.5, end + 1.5]))
         e2 = (law.unclamped_output_v(t2) - law.supply.intercept_v) / law.supply.volts_per_code
         ext.append(float((e2[1] - e2[0]) / 2.0))
-    return _Target(codes, temps, exact, bound, ext[0], ext[1], law.supply.dac.full_scale_code)
+    return Target(codes=codes, temp_c=temps, exact=exact, bound_lsb=bound, gain_pct_per_lsb=per_lsb, ext_lo=ext[0],
+                  ext_hi=ext[1], dac_full=law.supply.dac.full_scale_code)
 
 
-def _check_feasible(law, board, target: _Target, max_gain_error_pct: float) -> None:
+def _check_feasible(law, board, target: Target, max_gain_error_pct: float) -> None:
     if not np.isfinite(max_gain_error_pct) or max_gain_error_pct <= 0:
         raise ModelError(f"max_gain_error_pct must be a positive number, got {max_gain_error_pct!r}")
     try:
@@ -589,148 +527,81 @@ def _dac_clamp(law, board) -> tuple[int, int]:
     return lo, hi
 
 
-def _round_nodes(values, dac_full):
-    return np.clip(np.rint(values), 0, dac_full).astype(np.int64)
+
+def _temperature_direction(board, code_lo: int, code_hi: int) -> tuple[TableStatus, TableStatus]:
+    """Statuses of codes below and above the range: colder or hotter, by the sensor's slope."""
+    t = board.temperature.temp_at(np.array([code_lo + 0.5, code_hi + 0.5]))
+    if t[1] >= t[0]:
+        return TableStatus.COLDER_THAN_RANGE, TableStatus.HOTTER_THAN_RANGE
+    return TableStatus.HOTTER_THAN_RANGE, TableStatus.COLDER_THAN_RANGE
 
 
-def _uniform_value(y, i, r, shift: int, node_frac_bits: int):
-    """The uniform interpolation: nodes ``y`` (with ``node_frac_bits``), index ``i``, remainder ``r``."""
-    v = y[i] + floor_shift((y[i + 1] - y[i]) * r + ((1 << shift) >> 1), shift)
-    return floor_shift(v + ((1 << node_frac_bits) >> 1), node_frac_bits)
+def _fit_layout(layout: str, target: Target, code_bits: int, value_bits: int) -> LayoutFit:
+    if layout == "uniform":
+        return size_uniform(target, value_bits)
+    if layout == "segmented":
+        return size_segmented(target, value_bits)
+    if layout == "optimised":
+        return size_optimised(target, code_bits, value_bits)
+    return size_polynomial(target, value_bits)
 
 
-def _uniform_candidate(target: _Target, shift: int, node_frac_bits: int = 0) -> tuple[np.ndarray, bool, float]:
-    code_lo, code_hi = int(target.codes[0]), int(target.codes[-1])
-    span = code_hi - code_lo
-    nodes = code_lo + (np.arange((span >> shift) + 2, dtype=np.int64) << shift)
-    scale = 1 << node_frac_bits
-    y = np.clip(np.rint(target.at(nodes) * scale), 0, target.dac_full * scale).astype(np.int64)
-    d = target.codes - code_lo
-    got = _uniform_value(y, d >> shift, d & ((1 << shift) - 1), shift, node_frac_bits)
-    err = np.abs(got - target.exact)
-    return y, bool(np.all(err <= target.bound_lsb)), float(err.max())
+class _Frame:
+    """Everything a table needs besides its layout (computed once per law, board and bound)."""
+
+    def __init__(self, law, board, max_gain_error_pct: float, fault_margin_k: float):
+        max_gain_error_pct = float(max_gain_error_pct)
+        if not np.isfinite(max_gain_error_pct) or max_gain_error_pct <= 0:
+            raise ModelError(f"max_gain_error_pct must be a positive number, got {max_gain_error_pct!r}",
+                             key="max_gain_error_pct")
+        self.bound_pct = max_gain_error_pct
+        self.target = _target(law, board, max_gain_error_pct)
+        _check_feasible(law, board, self.target, max_gain_error_pct)
+        self.fault_lo, self.fault_hi = _fault_band(law, board, fault_margin_k)
+        _check_margin_overvoltage(law, fault_margin_k)
+        self.dac_min, self.dac_max = _dac_clamp(law, board)
+        self.adc_bits = board.temperature.front_end.adc_bits
+        self.dac_bits = law.supply.dac.bits
+        self.code_bits = max(16, uint_bits((1 << self.adc_bits) - 1))
+        self.value_bits = max(16, uint_bits((1 << self.dac_bits) - 1))
+        self.code_lo, self.code_hi = int(self.target.codes[0]), int(self.target.codes[-1])
+        self.below_status, self.above_status = _temperature_direction(board, self.code_lo, self.code_hi)
+        self.current = build_current_correction(law, fault_margin_k) if law.drop_correction == "measured" else None
+        self.safe = safe_state(law, board)
+
+    def table(self, fit: LayoutFit) -> LookupTable:
+        """The complete table of a layout fit, computed fully before construction."""
+        ends = np.clip(_interpolate(fit, self.code_lo, [self.code_lo, self.code_hi]), self.dac_min, self.dac_max)
+        return LookupTable(
+            layout=fit.layout, adc_bits=self.adc_bits, dac_bits=self.dac_bits, code_lo=self.code_lo,
+            code_hi=self.code_hi, fault_lo=self.fault_lo, fault_hi=self.fault_hi, dac_min=self.dac_min,
+            dac_max=self.dac_max, safe_dac_code=self.safe.dac_code, below_dac_code=int(ends[0]),
+            above_dac_code=int(ends[1]), below_status=self.below_status, above_status=self.above_status,
+            shift=fit.shift, slope_frac_bits=fit.slope_frac_bits, x=fit.x, y=fit.y, slope=fit.slope,
+            segment_shift=fit.segment_shift, center_code=fit.center_code, coeff_shift=fit.coeff_shift,
+            coeff_type_bits=tuple(fit.coeff_type_bits), code_type_bits=self.code_bits,
+            value_type_bits=self.value_bits, slope_type_bits=fit.slope_type_bits, acc_type_bits=fit.acc_type_bits,
+            max_gain_error_pct=self.bound_pct, node_frac_bits=fit.node_frac_bits,
+            node_type_bits=fit.node_type_bits, current=self.current, safe_state=self.safe)
+
+    def verify(self, table: LookupTable) -> tuple[float, bool]:
+        """Largest absolute gain error over every code of the range (percent) and whether it meets the bound."""
+        dac, _ = table.lookup(self.target.codes)
+        gain_pct = np.abs(dac - self.target.exact) * self.target.gain_pct_per_lsb
+        worst = float(gain_pct.max())
+        return worst, bool(np.all(np.abs(dac - self.target.exact) <= self.target.bound_lsb))
+
+    def build(self, layout: str) -> LookupTable:
+        table = self.table(_fit_layout(layout, self.target, self.code_bits, self.value_bits))
+        _, ok = self.verify(table)
+        if not ok:  # every sizing routine checks every code; this would be a bug
+            raise RuntimeError(f"{layout} table misses its bound")
+        return table
 
 
-#: Fractional node bits tried for uniform tables: plain DAC codes, or 32-bit nodes with 8 extra bits.
-UNIFORM_NODE_FRAC_BITS = (0, 8)
-
-
-def _size_uniform(target: _Target, value_bits: int) -> tuple[int, int, int, np.ndarray]:
-    """Widest power-of-two spacing for each node format; keep the one with fewer bytes.
-
-    Returns (shift, node_frac_bits, node_type_bits, nodes).
-    """
-    span = int(target.codes[-1] - target.codes[0])
-    top = max(1, int(span).bit_length())
-    best = None
-    for frac in UNIFORM_NODE_FRAC_BITS:
-        node_bits = max(value_bits, _uint_bits(((target.dac_full + 1) << frac) - 1))
-        for shift in range(top, -1, -1):
-            y, ok, _ = _uniform_candidate(target, shift, frac)
-            if ok:
-                nbytes = y.size * node_bits // 8
-                if best is None or nbytes < best[0]:
-                    best = (nbytes, shift, frac, node_bits, y)
-                break
-    if best is None:
-        raise TableError("DAC quantisation", "no uniform table meets the bound even with one node per ADC code")
-    return best[1:]
-
-
-def _segment_ok(target: _Target, start: int, end: int, last: bool, frac_bits: int, slope_max: int):
-    """Whether one segment meets the bound; returns (ok, y0, slope).
-
-    The segment covers indices ``start .. end - 1`` (``.. end`` when it is the
-    last one). Its line is the best uniform (minimax) fit of a convex or
-    concave stretch: the chord's slope, shifted by half the largest deviation
-    so the error swings equally both ways; then it is rounded to the integer
-    node and fixed-point slope and checked with the firmware's arithmetic.
-    """
-    stop = end + 1 if last else end
-    f = target.exact[start:stop]
-    d = np.arange(stop - start, dtype=np.int64)
-    chord = (f[-1] - f[0]) / d[-1] if d[-1] > 0 else 0.0
-    resid = f - (f[0] + chord * d)
-    y0 = int(_round_nodes(f[0] + 0.5 * (resid.max() + resid.min()), target.dac_full))
-    s = int(np.rint(chord * (1 << frac_bits)))
-    if abs(s) > slope_max:
-        return False, y0, s
-    got = y0 + floor_shift(s * d + ((1 << frac_bits) >> 1), frac_bits)
-    return bool(np.all(np.abs(got - f) <= target.bound_lsb[start:stop])), y0, s
-
-
-def _place_optimised(target: _Target, frac_bits: int, slope_max: int):
-    """Greedy breakpoints: every segment as long as the bound allows (indices into target.codes)."""
-    n = target.codes.size
-    xs, ys, ss = [], [], []
-    start = 0
-    while True:
-        if start == n - 1:  # a single code left: a flat segment
-            y0 = int(_round_nodes(target.exact[start], target.dac_full))
-            if abs(y0 - target.exact[start]) > target.bound_lsb[start]:
-                raise TableError("DAC quantisation", "a single code cannot meet the bound")
-            xs.append(start), ys.append(y0), ss.append(0)
-            break
-        ok_last, y0, s = _segment_ok(target, start, n - 1, True, frac_bits, slope_max)
-        if ok_last:
-            xs.append(start), ys.append(y0), ss.append(s)
-            break
-        # Gallop, then bisect, for the furthest next node `end` with [start, end) feasible.
-        good, step = start + 1, 1
-        ok, y_good, s_good = _segment_ok(target, start, good, False, frac_bits, slope_max)
-        if not ok:
-            raise TableError("DAC quantisation", "a one-code segment cannot meet the bound")
-        bad = None
-        while True:
-            step *= 2
-            cand = start + step
-            if cand >= n - 1:
-                bad = n - 1
-                break
-            ok, y_c, s_c = _segment_ok(target, start, cand, False, frac_bits, slope_max)
-            if not ok:
-                bad = cand
-                break
-            good, y_good, s_good = cand, y_c, s_c
-        while bad - good > 1:
-            mid = (good + bad) // 2
-            ok, y_c, s_c = _segment_ok(target, start, mid, False, frac_bits, slope_max)
-            if ok:
-                good, y_good, s_good = mid, y_c, s_c
-            else:
-                bad = mid
-        xs.append(start), ys.append(y_good), ss.append(s_good)
-        start = good
-    codes = target.codes[np.asarray(xs, dtype=np.int64)]
-    return codes, np.asarray(ys, dtype=np.int64), np.asarray(ss, dtype=np.int64)
-
-
-def _optimised(target: _Target, code_bits: int, value_bits: int):
-    """Try 16- and 32-bit slopes; keep the layout with fewer bytes."""
-    span = int(target.codes[-1] - target.codes[0])
-    max_slope = float(np.max(np.abs(np.diff(target.exact)))) if target.codes.size > 1 else 0.0
-    best = None
-    for slope_bits in (16, 32):
-        slope_max = (1 << (slope_bits - 1)) - 1
-        room = int(np.floor(np.log2(slope_max / (2.0 * max_slope + 1.0))))  # headroom for steeper chords
-        frac_bits = min(room, max(span, 1).bit_length() + 2)
-        if frac_bits < 1:
-            continue
-        try:
-            x, y, s = _place_optimised(target, frac_bits, slope_max)
-        except TableError:
-            continue
-        nbytes = x.size * (code_bits + value_bits + slope_bits) // 8
-        if best is None or nbytes < best[0]:
-            best = (nbytes, slope_bits, frac_bits, x, y, s)
-    if best is None:
-        raise TableError("DAC quantisation", "no breakpoint layout meets the bound")
-    return best[1:]
-
-
-def build_table(law: CompensationLaw, board, max_gain_error_pct: float, layout: str = "optimised",
+def build_table(law: CompensationLaw, board, max_gain_error_pct: float, layout: str = "smallest", *,
                 fault_margin_k: float = DEFAULT_FAULT_MARGIN_K) -> LookupTable:
-    """Build the smallest table of a layout that meets a gain-error bound.
+    """Build the smallest table of a layout (or of every layout) that meets a gain-error bound.
 
     Parameters
     ----------
@@ -742,9 +613,10 @@ def build_table(law: CompensationLaw, board, max_gain_error_pct: float, layout: 
         Temperature channel, supply and ``safe_dac_code``.
     max_gain_error_pct : float
         Bound on the gain error at every ADC code of the range, percent.
-    layout : {"uniform", "optimised"}
-        Power-of-two node spacing indexed by shift, or non-uniform breakpoints
-        found by binary search with stored slopes.
+    layout : {"smallest", "uniform", "segmented", "optimised", "polynomial"}
+        One layout (:mod:`compensator.firmware.layouts`), or ``"smallest"``:
+        build each, check each at every ADC code and keep the one with the
+        fewest bytes (:func:`compare_layouts` also reports the others).
     fault_margin_k : float
         Readings further than this outside the operating range are sensor faults, kelvin.
 
@@ -758,42 +630,80 @@ def build_table(law: CompensationLaw, board, max_gain_error_pct: float, layout: 
         The bound cannot be met; ``.term`` names the budget term at fault.
     ModelError
         Bad arguments.
+
+    Examples
+    --------
+    >>> from compensator.profiles import load_sipm, load_board
+    >>> from compensator.law import build_law
+    >>> sipm = load_sipm("hardware_profiles/hut-sipm-b.yaml")
+    >>> board = load_board("hardware_profiles/hut-board-pt1000.yaml")
+    >>> table = build_table(build_law(sipm, board, 4.0), board, 0.05, "uniform")
+    >>> table.layout, table.entries, table.table_bytes
+    ('uniform', 13, 26)
     """
-    if layout not in LAYOUTS:
-        raise ModelError(f"layout must be one of {', '.join(LAYOUTS)}, got {layout!r}")
-    max_gain_error_pct = float(max_gain_error_pct)
-    if not np.isfinite(max_gain_error_pct) or max_gain_error_pct <= 0:
-        raise ModelError(f"max_gain_error_pct must be a positive number, got {max_gain_error_pct!r}")
-    target = _target(law, board, max_gain_error_pct)
-    _check_feasible(law, board, target, max_gain_error_pct)
-    fault_lo, fault_hi = _fault_band(law, board, fault_margin_k)
-    _check_margin_overvoltage(law, fault_margin_k)
-    dac_min, dac_max = _dac_clamp(law, board)
-    adc_bits = board.temperature.front_end.adc_bits
-    dac_bits = law.supply.dac.bits
-    code_bits = max(16, _uint_bits((1 << adc_bits) - 1))
-    value_bits = max(16, _uint_bits((1 << dac_bits) - 1))
-    code_lo, code_hi = int(target.codes[0]), int(target.codes[-1])
-    if layout == "uniform":
-        shift, node_frac, node_bits, y = _size_uniform(target, value_bits)
-        x = slope = np.zeros(0, dtype=np.int64)
-        frac_bits, slope_bits = 0, 0
-        max_delta = int(np.max(np.abs(np.diff(y)))) if y.size > 1 else 0
-        acc_max = max(max_delta * ((1 << shift) - 1) + (1 << shift), int(y.max()) + (1 << node_frac))
-    else:
-        shift, node_frac, node_bits = 0, 0, value_bits
-        slope_bits, frac_bits, x, y, slope = _optimised(target, code_bits, value_bits)
-        lengths = np.diff(np.append(x, code_hi + 1))
-        acc_max = int(np.max(np.abs(slope) * lengths)) + (1 << frac_bits)
-    acc_bits = 32 if _int_bits(acc_max) <= 32 else 64
-    current = build_current_correction(law, fault_margin_k) if law.drop_correction == "measured" else None
-    # Values just outside the range: the table's own end values.
-    table = LookupTable(layout, adc_bits, dac_bits, code_lo, code_hi, fault_lo, fault_hi, dac_min, dac_max,
-                        int(board.safe_dac_code), 0, 0, shift, frac_bits, x, y, slope, code_bits, value_bits,
-                        slope_bits, acc_bits, max_gain_error_pct, node_frac, node_bits, current)
-    ends = np.clip(table.interpolate([code_lo, code_hi]), dac_min, dac_max)
-    from dataclasses import replace
-    return replace(table, below_dac_code=int(ends[0]), above_dac_code=int(ends[1]))
+    if layout not in LAYOUT_CHOICES:
+        raise ModelError(f"layout must be one of {', '.join(LAYOUT_CHOICES)}, got {layout!r}", key="layout")
+    if layout == "smallest":
+        return compare_layouts(law, board, max_gain_error_pct, fault_margin_k=fault_margin_k).table
+    return _Frame(law, board, max_gain_error_pct, fault_margin_k).build(layout)
+
+
+def compare_layouts(law: CompensationLaw, board, max_gain_error_pct: float, *,
+                    fault_margin_k: float = DEFAULT_FAULT_MARGIN_K) -> LayoutReport:
+    """Build every layout for a bound, check each at every ADC code, and choose the smallest.
+
+    Parameters
+    ----------
+    law : CompensationLaw
+        As for :func:`build_table`.
+    board : BoardProfile
+        As for :func:`build_table`.
+    max_gain_error_pct : float
+        Bound on the gain error at every ADC code of the range, percent.
+    fault_margin_k : float
+        Readings further than this outside the operating range are sensor faults, kelvin.
+
+    Returns
+    -------
+    LayoutReport
+        The chosen table, every candidate with its bytes and largest error,
+        and a finding when the choice is not at most half the uniform baseline.
+        Ties go to the simpler layout (the order of :data:`LAYOUTS`).
+
+    Raises
+    ------
+    TableError
+        No layout meets the bound.
+    """
+    frame = _Frame(law, board, max_gain_error_pct, fault_margin_k)
+    tables, candidates, errors = {}, [], []
+    for layout in LAYOUTS:
+        try:
+            table = frame.build(layout)
+        except TableError as exc:
+            errors.append(exc)
+            candidates.append(LayoutCandidate(layout=layout, table_bytes=None, entries=None, max_gain_error_pct=None,
+                                              within_bound=False, reason=exc.reason if hasattr(exc, "reason")
+                                              else str(exc)))
+            continue
+        worst, ok = frame.verify(table)
+        tables[layout] = table
+        candidates.append(LayoutCandidate(layout=layout, table_bytes=table.table_bytes, entries=table.entries,
+                                          max_gain_error_pct=worst, within_bound=ok))
+    if not tables:
+        raise errors[0]
+    chosen = min(tables.values(), key=lambda t: (t.table_bytes, LAYOUTS.index(t.layout)))
+    uniform_bytes = tables["uniform"].table_bytes if "uniform" in tables else 0
+    findings = []
+    if uniform_bytes and 2 * chosen.table_bytes > uniform_bytes:
+        sizes = ", ".join(f"{c.layout} {c.table_bytes} B" if c.table_bytes is not None else f"{c.layout}: {c.reason}"
+                          for c in candidates)
+        findings.append(Finding(code="table_not_half_of_uniform", severity=Severity.INFO, message=(
+            f"the smallest table ({chosen.layout}, {chosen.table_bytes} B) is more than half of the smallest uniform "
+            f"table ({uniform_bytes} B): {sizes}. A uniform table needs at least two nodes and a polynomial at "
+            f"least two coefficients, so no layout stores the law in fewer bytes at this bound")))
+    return LayoutReport(table=chosen, tables=tables, candidates=tuple(candidates), uniform_bytes=uniform_bytes,
+                        findings=tuple(findings))
 
 
 def sweep_table(table: LookupTable, law: CompensationLaw, board) -> TableSweep:
@@ -802,8 +712,11 @@ def sweep_table(table: LookupTable, law: CompensationLaw, board) -> TableSweep:
     Parameters
     ----------
     table : LookupTable
+        The table to check.
     law : CompensationLaw
+        The law it was built from.
     board : BoardProfile
+        The board it was built for.
 
     Returns
     -------
@@ -819,5 +732,12 @@ def sweep_table(table: LookupTable, law: CompensationLaw, board) -> TableSweep:
     err_lsb = np.abs(dac - exact)
     worst = int(np.argmax(np.abs(gain_pct)))
     max_gain = float(np.abs(gain_pct).max())
-    return TableSweep(codes, temps, ideal_v, exact, dac, table_v, gain_pct, max_gain, float(err_lsb.max()),
-                      int(codes[worst]), bool(max_gain <= table.max_gain_error_pct * (1 + 1e-9)))
+    return TableSweep(adc_code=codes, temp_c=temps, ideal_bias_v=ideal_v, ideal_dac_code=exact, table_dac_code=dac,
+                      table_bias_v=table_v, gain_error_pct=gain_pct, max_gain_error_pct=max_gain,
+                      max_error_dac_lsb=float(err_lsb.max()), worst_adc_code=int(codes[worst]),
+                      within_bound=bool(max_gain <= table.max_gain_error_pct * (1 + 1e-9)))
+
+
+# Old private names the tests of the sizing rules use.
+_Target = Target
+_uniform_candidate = uniform_candidate

@@ -21,7 +21,7 @@ from compensator.law.laws import CompensationLaw
 from compensator.physics.sipm import breakdown_v
 from compensator.physics.supply import network_output_v
 
-__all__ = ["SafeBias", "lowest_breakdown_v", "safe_bias"]
+__all__ = ["SafeBias", "lowest_breakdown_v", "safe_bias", "highest_output_v"]
 
 #: Calibration uncertainties are taken at this many sigmas against the safe state.
 DEFAULT_SAFE_SIGMAS = 3.0
@@ -150,3 +150,18 @@ def safe_bias(law: CompensationLaw, board, *, sigmas: float = DEFAULT_SAFE_SIGMA
     return SafeBias(coldest_temp_c=cold_c, lowest_breakdown_v=floor_v, dac_code=int(code), nominal_output_v=nominal,
                     highest_output_v=highest, margin_v=float(margin), below_breakdown=bool(margin > 0),
                     findings=findings)
+
+
+def highest_output_v(law: CompensationLaw, board, dac_code: int) -> float:
+    """Output at ``dac_code`` with every tolerance and drift of the supply pushing it up (worst corner), volt.
+
+    Parameters
+    ----------
+    law : CompensationLaw
+        Gives the supply and the operating range.
+    board : BoardProfile
+        Gives the electronics' temperature range for the drifts.
+    dac_code : int
+        The DAC code.
+    """
+    return _highest_output_v(law, board, int(dac_code))

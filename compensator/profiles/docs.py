@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from compensator.profiles import schema as S
 
+__all__ = ["keys_markdown"]
+
 
 def _bounds(key: S.Key) -> str:
     parts = []

@@ -12,6 +12,11 @@ from typing import Any
 
 from compensator.physics.sipm import CROSSTALK_MODELS
 
+__all__ = [
+    "BOARD", "BOOL", "BREAKDOWN_DEFINITIONS", "CHOICE", "FLOAT", "INT", "KINDS", "SIPM", "STR", "THERMAL", "TOP_KEYS",
+    "Key", "KindSchema", "Section",
+]
+
 FLOAT, INT, BOOL, STR, CHOICE = "float", "int", "bool", "str", "choice"
 
 #: The definitions a breakdown voltage can carry, from bench to firmware.

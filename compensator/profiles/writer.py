@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from compensator.profiles import schema as S
 
+__all__ = ["render_profile"]
+
 
 def _scalar(value) -> str:
     if isinstance(value, bool):

@@ -1,28 +1,36 @@
-"""Benchmark: lookup-table bytes against the gain-error bound, and the time to build and verify a table.
+"""Benchmark: lookup-table bytes of every layout against the gain-error bound, and build+verify times.
 
-Usage: python tools/bench/bench_tables.py [--bounds 0.2 0.1 0.05 0.02 0.01] [--repeats 3]
+Usage: python tools/bench/bench_tables.py [--bounds 0.2 0.1 0.05 0.02 0.01] [--repeats 3] [--no-24-bit]
 
-1. For each bundled sipm/board pair, the smallest table of each layout that
-   meets each bound: the uniform power-of-two table is the baseline, the
-   optimised (equal-error breakpoints, stored slopes) layout is printed beside
-   it with the ratio of bytes. Goal: optimised <= 0.5 x uniform at 0.05 %.
-2. On the 16-bit ADC board: time to build the table and to verify all 65,536
+1. For each bundled sipm/board pair and bound, the bytes of every layout
+   (uniform, segmented, optimised, polynomial), each checked at every ADC code
+   of the range; the smallest uniform power-of-two table is the baseline and
+   the smallest layout (what ``--layout smallest`` keeps) is printed beside it
+   with the ratio. Target at 0.05 %: smallest <= 0.5 x uniform on every pair.
+2. On the 16-bit ADC board: time to build each layout and to verify all 65,536
    ADC codes through the integer reference (lookup of every code plus the
    gain-error check of every code in range), beside a plain Python loop doing
    the same lookups one code at a time (the baseline), in the same run.
-   Target: all 65,536 codes verified in <= 1 s.
+   Target: build and verify in <= 1 s.
+3. The same board with a 24-bit ADC (1.46 million codes in range): the time
+   of ``--layout smallest`` (every layout built and checked at every code)
+   beside the uniform layout alone (the baseline), and the size of the
+   summary sweep against the full one.
 """
 
 from __future__ import annotations
 
 import argparse
 import math
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 
 from compensator.errors import CompensatorError
-from compensator.firmware.tables import build_table, sweep_table
+from compensator.firmware.layouts import LAYOUTS
+from compensator.firmware.table_c import render_sweep_csv
+from compensator.firmware.tables import build_table, compare_layouts, sweep_table
 from compensator.law import build_law
 from compensator.profiles import load_board, load_sipm
 
@@ -34,9 +42,9 @@ PAIRS = [("hut-sipm-a", "hut-board-ntc", 3.0), ("hut-sipm-b", "hut-board-pt1000"
 
 
 def loop_lookup(table, codes):
-    """The firmware path one code at a time in plain Python integers (the baseline)."""
+    """The firmware path one code at a time in plain Python integers (the baseline), for any layout."""
     out = []
-    x, y, s = table.x.tolist(), table.y.tolist(), table.slope.tolist()
+    y = table.y.tolist()
     for n in codes:
         if n < table.fault_lo or n > table.fault_hi:
             out.append(table.safe_dac_code)
@@ -45,63 +53,54 @@ def loop_lookup(table, codes):
         elif n > table.code_hi:
             out.append(table.above_dac_code)
         else:
-            if table.layout == "uniform":
-                d = n - table.code_lo
-                i, r = d >> table.shift, d & ((1 << table.shift) - 1)
-                v = y[i] + (((y[i + 1] - y[i]) * r + ((1 << table.shift) >> 1)) >> table.shift)
-            else:
-                lo, hi = 0, len(x) - 1
-                while lo < hi:
-                    mid = (lo + hi + 1) >> 1
-                    if x[mid] <= n:
-                        lo = mid
-                    else:
-                        hi = mid - 1
-                v = y[lo] + ((s[lo] * (n - x[lo]) + ((1 << table.slope_frac_bits) >> 1)) >> table.slope_frac_bits)
+            v = int(table.interpolate([n])[0]) if table.layout != "uniform" else _uniform(table, y, n)
             out.append(min(max(v, table.dac_min), table.dac_max))
     return out
 
 
+def _uniform(table, y, n):
+    d = n - table.code_lo
+    i, r = d >> table.shift, d & ((1 << table.shift) - 1)
+    v = y[i] + (((y[i + 1] - y[i]) * r + ((1 << table.shift) >> 1)) >> table.shift)
+    g = table.node_frac_bits
+    return (v + ((1 << g) >> 1)) >> g
 
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--bounds", type=float, nargs="+", default=[0.2, 0.1, 0.05, 0.02, 0.01])
     parser.add_argument("--repeats", type=int, default=3)
+    parser.add_argument("--no-24-bit", action="store_true", help="skip part 3 (about a minute)")
     args = parser.parse_args(argv)
 
-    print("1. table bytes against the bound (baseline: smallest uniform power-of-two table)")
-    print(f"{'pair':32s} {'bound_%':>8s} {'uniform':>16s} {'optimised':>16s} {'ratio':>6s}")
+    print("1. table bytes of every layout against the bound (baseline: smallest uniform power-of-two table)")
+    print(f"{'pair':32s} {'bound_%':>8s} " + " ".join(f"{k:>10s}" for k in LAYOUTS) + f" {'smallest':>10s} {'ratio':>6s}")
     goal = []
     for sipm_name, board_name, ov in PAIRS:
         sipm, board = load_sipm(PROFILES / f"{sipm_name}.yaml"), load_board(PROFILES / f"{board_name}.yaml")
         law = build_law(sipm, board, ov)
+        label = f"{sipm_name}+{board_name} @{ov:g}V"
         for bound in args.bounds:
-            cells = []
-            for layout in ("uniform", "optimised"):
-                try:
-                    t = build_table(law, board, bound, layout)
-                    cells.append((t.entries, t.table_bytes))
-                except CompensatorError as exc:
-                    cells.append((None, str(getattr(exc, "term", exc))))
-            label = f"{sipm_name}+{board_name} @{ov:g}V"
-            if cells[0][0] is None:
-                print(f"{label:32s} {bound:8.3f} {'cannot: ' + cells[0][1]:>34s}")
+            try:
+                report = compare_layouts(law, board, bound)
+            except CompensatorError as exc:
+                print(f"{label:32s} {bound:8.3f} cannot: {getattr(exc, 'term', exc)}")
                 continue
-            ratio = cells[1][1] / cells[0][1]
-            print(f"{label:32s} {bound:8.3f} {cells[0][0]:5d} e {cells[0][1]:6d} B {cells[1][0]:5d} e "
-                  f"{cells[1][1]:6d} B {ratio:6.2f}")
+            cells = [f"{c.table_bytes:>8d} B" if c.table_bytes is not None else f"{'-':>10s}"
+                     for c in report.candidates]
+            ratio = report.table.table_bytes / report.uniform_bytes
+            print(f"{label:32s} {bound:8.3f} " + " ".join(cells) + f" {report.table.layout:>10s} {ratio:6.2f}")
             if math.isclose(bound, 0.05):
-                goal.append((label, ratio))
-    for label, ratio in goal:
-        print(f"goal at 0.05 %: optimised/uniform bytes <= 0.5 for {label}: {ratio:.2f} "
-              f"({'met' if ratio <= 0.5 else 'NOT met'})")
+                goal.append((label, report.table.layout, report.table.table_bytes, report.uniform_bytes, ratio))
+    for label, layout, nbytes, ubytes, ratio in goal:
+        print(f"target at 0.05 %: smallest/uniform bytes <= 0.5 for {label}: {layout} {nbytes} B / {ubytes} B = "
+              f"{ratio:.2f} ({'met' if ratio <= 0.5 else 'NOT met'})")
 
-    print("\n2. build and verify a table for the 16-bit ADC (hut-sipm-b + hut-board-pt1000, 0.05 %)")
+    print("\n2. build and verify each layout for the 16-bit ADC (hut-sipm-b + hut-board-pt1000, 0.05 %)")
     sipm, board = load_sipm(PROFILES / "hut-sipm-b.yaml"), load_board(PROFILES / "hut-board-pt1000.yaml")
     law = build_law(sipm, board, 4.0)
     all_codes = np.arange(1 << 16)
-    for layout in ("uniform", "optimised"):
+    for layout in LAYOUTS:
         t_build, table = best_of(lambda: build_table(law, board, 0.05, layout), args.repeats)
 
         def verify():
@@ -113,9 +112,25 @@ def main(argv=None) -> int:
         t_verify, dac = best_of(verify, args.repeats)
         t_loop, loop = best_of(lambda: loop_lookup(table, all_codes.tolist()), 1)
         assert loop == dac.tolist(), "loop baseline disagrees with the reference"
-        print(f"{layout:9s}: build {t_build * 1e3:7.1f} ms, verify 65,536 codes {t_verify * 1e3:7.1f} ms "
+        print(f"{layout:10s}: build {t_build * 1e3:7.1f} ms, verify 65,536 codes {t_verify * 1e3:7.1f} ms "
               f"(target <= 1000 ms: {'met' if t_build + t_verify <= 1.0 else 'NOT met'}); "
-              f"baseline plain-Python loop lookup {t_loop * 1e3:7.1f} ms ({t_loop / t_verify:5.1f}x slower)")
+              f"baseline plain-Python loop lookup {t_loop * 1e3:8.1f} ms ({t_loop / t_verify:6.1f}x slower)")
+    t_all, report = best_of(lambda: compare_layouts(law, board, 0.05), 1)
+    print(f"--layout smallest (every layout built and checked at every code): {t_all * 1e3:.0f} ms")
+
+    if not args.no_24_bit:
+        print("\n3. the same pair with a 24-bit ADC")
+        channel = board.temperature
+        b24 = replace(board, temperature=replace(channel, front_end=replace(channel.front_end, adc_bits=24)))
+        law24 = build_law(sipm, b24, 4.0)
+        t_uni, uni = best_of(lambda: build_table(law24, b24, 0.05, "uniform"), 1)
+        t_small, rep = best_of(lambda: compare_layouts(law24, b24, 0.05), 1)
+        sweep = sweep_table(rep.table, law24, b24)
+        summary = render_sweep_csv(sweep, mode="summary")
+        full_bytes = sum(len(line) + 1 for line in render_sweep_csv(sweep, mode="full").splitlines())
+        print(f"{sweep.adc_code.size} codes in range; baseline uniform alone {t_uni:.1f} s ({uni.table_bytes} B); "
+              f"smallest {t_small:.1f} s ({rep.table.layout}, {rep.table.table_bytes} B); sweep.csv summary "
+              f"{len(summary) / 1e3:.0f} kB against full {full_bytes / 1e6:.0f} MB")
     return 0
 
 

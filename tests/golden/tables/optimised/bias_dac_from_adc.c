@@ -19,15 +19,15 @@
 typedef int32_t bias_dac_from_adc_acc_t;
 
 /* Breakpoints (ADC codes), values at them (DAC codes) and slopes (DAC codes per ADC code, times 2^10). */
-static const uint16_t bias_dac_from_adc_x[9] = {
+static const uint16_t bias_dac_from_adc_x[9] BIAS_DAC_FROM_ADC_ROM = {
     1337, 1544, 1821, 2237, 2912, 3208, 3422, 3581,
     3703
 };
-static const uint16_t bias_dac_from_adc_y[9] = {
+static const uint16_t bias_dac_from_adc_y[9] BIAS_DAC_FROM_ADC_ROM = {
     47335, 48325, 49474, 50989, 53393, 54567, 55548, 56410,
     57214
 };
-static const int16_t bias_dac_from_adc_slope[9] = {
+static const int16_t bias_dac_from_adc_slope[9] BIAS_DAC_FROM_ADC_ROM = {
     4897, 4249, 3776, 3646, 4062, 4691, 5546, 6667,
     7561
 };
@@ -56,10 +56,10 @@ uint8_t bias_dac_from_adc_status(uint16_t adc_code)
         return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_SENSOR_FAULT;
     }
     if (adc_code < BIAS_DAC_FROM_ADC_ADC_CODE_LO) {
-        return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_BELOW_RANGE;
+        return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_HOTTER_THAN_RANGE;
     }
     if (adc_code > BIAS_DAC_FROM_ADC_ADC_CODE_HI) {
-        return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_ABOVE_RANGE;
+        return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_COLDER_THAN_RANGE;
     }
     return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_OK;
 }
@@ -71,24 +71,24 @@ uint16_t bias_dac_from_adc(uint16_t adc_code)
         return (uint16_t)BIAS_DAC_FROM_ADC_SAFE_DAC_CODE;
     }
     if (adc_code < BIAS_DAC_FROM_ADC_ADC_CODE_LO) {
-        return (uint16_t)47335u; /* value at the low end of the range */
+        return (uint16_t)47335u; /* value at the low-code end of the range */
     }
     if (adc_code > BIAS_DAC_FROM_ADC_ADC_CODE_HI) {
-        return (uint16_t)57406u; /* value at the high end of the range */
+        return (uint16_t)57406u; /* value at the high-code end of the range */
     }
     {
         /* Largest i with x[i] <= adc_code (x[0] is the first code of the range). */
         uint32_t lo = 0u, hi = BIAS_DAC_FROM_ADC_ENTRIES - 1u;
         while (lo < hi) {
             const uint32_t mid = (lo + hi + 1u) >> 1;
-            if (bias_dac_from_adc_x[mid] <= adc_code) {
+            if (BIAS_DAC_FROM_ADC_ROM_READ_U16(&bias_dac_from_adc_x[mid]) <= adc_code) {
                 lo = mid;
             } else {
                 hi = mid - 1u;
             }
         }
-        y = (bias_dac_from_adc_acc_t)bias_dac_from_adc_y[lo] + bias_dac_from_adc_floor_shift(
-            (bias_dac_from_adc_acc_t)bias_dac_from_adc_slope[lo] * (bias_dac_from_adc_acc_t)(adc_code - bias_dac_from_adc_x[lo]) + 512, 10u);
+        y = (bias_dac_from_adc_acc_t)BIAS_DAC_FROM_ADC_ROM_READ_U16(&bias_dac_from_adc_y[lo]) + bias_dac_from_adc_floor_shift(
+            (bias_dac_from_adc_acc_t)BIAS_DAC_FROM_ADC_ROM_READ_I16(&bias_dac_from_adc_slope[lo]) * (bias_dac_from_adc_acc_t)(adc_code - BIAS_DAC_FROM_ADC_ROM_READ_U16(&bias_dac_from_adc_x[lo])) + 512, 10u);
     }
     if (y < (bias_dac_from_adc_acc_t)BIAS_DAC_FROM_ADC_DAC_MIN) {
         y = (bias_dac_from_adc_acc_t)BIAS_DAC_FROM_ADC_DAC_MIN;

@@ -19,7 +19,7 @@
 typedef int32_t bias_dac_from_adc_acc_t;
 
 /* Nodes every 2^6 ADC codes from BIAS_DAC_FROM_ADC_ADC_CODE_LO, DAC codes. */
-static const uint16_t bias_dac_from_adc_y[39] = {
+static const uint16_t bias_dac_from_adc_y[39] BIAS_DAC_FROM_ADC_ROM = {
     47326, 47648, 47955, 48248, 48531, 48803, 49067, 49323,
     49573, 49818, 50058, 50294, 50527, 50756, 50984, 51210,
     51435, 51659, 51884, 52108, 52334, 52561, 52790, 53022,
@@ -50,10 +50,10 @@ uint8_t bias_dac_from_adc_status(uint16_t adc_code)
         return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_SENSOR_FAULT;
     }
     if (adc_code < BIAS_DAC_FROM_ADC_ADC_CODE_LO) {
-        return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_BELOW_RANGE;
+        return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_HOTTER_THAN_RANGE;
     }
     if (adc_code > BIAS_DAC_FROM_ADC_ADC_CODE_HI) {
-        return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_ABOVE_RANGE;
+        return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_COLDER_THAN_RANGE;
     }
     return (uint8_t)BIAS_DAC_FROM_ADC_STATUS_OK;
 }
@@ -65,17 +65,18 @@ uint16_t bias_dac_from_adc(uint16_t adc_code)
         return (uint16_t)BIAS_DAC_FROM_ADC_SAFE_DAC_CODE;
     }
     if (adc_code < BIAS_DAC_FROM_ADC_ADC_CODE_LO) {
-        return (uint16_t)47326u; /* value at the low end of the range */
+        return (uint16_t)47326u; /* value at the low-code end of the range */
     }
     if (adc_code > BIAS_DAC_FROM_ADC_ADC_CODE_HI) {
-        return (uint16_t)57409u; /* value at the high end of the range */
+        return (uint16_t)57409u; /* value at the high-code end of the range */
     }
     {
         const uint32_t d = (uint32_t)adc_code - BIAS_DAC_FROM_ADC_ADC_CODE_LO;
         const uint32_t i = d >> 6;
         const bias_dac_from_adc_acc_t r = (bias_dac_from_adc_acc_t)(d & 63u);
-        const bias_dac_from_adc_acc_t delta = (bias_dac_from_adc_acc_t)bias_dac_from_adc_y[i + 1u] - (bias_dac_from_adc_acc_t)bias_dac_from_adc_y[i];
-        y = (bias_dac_from_adc_acc_t)bias_dac_from_adc_y[i] + bias_dac_from_adc_floor_shift(delta * r + 32, 6u);
+        const bias_dac_from_adc_acc_t y0 = (bias_dac_from_adc_acc_t)BIAS_DAC_FROM_ADC_ROM_READ_U16(&bias_dac_from_adc_y[i]);
+        const bias_dac_from_adc_acc_t delta = (bias_dac_from_adc_acc_t)BIAS_DAC_FROM_ADC_ROM_READ_U16(&bias_dac_from_adc_y[i + 1u]) - y0;
+        y = y0 + bias_dac_from_adc_floor_shift(delta * r + 32, 6u);
     }
     if (y < (bias_dac_from_adc_acc_t)BIAS_DAC_FROM_ADC_DAC_MIN) {
         y = (bias_dac_from_adc_acc_t)BIAS_DAC_FROM_ADC_DAC_MIN;

@@ -19,28 +19,51 @@
  * connecting a sensor, and follow local codes and licensed practice.
  *
  * bias_dac_from_adc(adc_code) returns the DAC code for a raw temperature ADC code:
- *   codes 1337..3729 (the operating range) are interpolated;
- *   codes 834..1336 and 3730..3979 (just outside it) are
- *   clamped to the value at the nearer end of the range;
+ *   codes 1337..3729 (the operating range) are interpolated (uniform layout);
+ *   codes 834..1336 (hotter than the range) and 3730..3979 (colder) are
+ *   held at the value of the nearer end of the range;
  *   any other code (open or shorted sensor, rail) gives BIAS_DAC_FROM_ADC_SAFE_DAC_CODE.
- * bias_dac_from_adc_status(adc_code) tells which case applies.
+ * bias_dac_from_adc_status(adc_code) tells which case applies (BIAS_DAC_FROM_ADC_STATUS_*).
+ *
+ * WARNING: NO SAFE DAC CODE. The supply's lowest output is up to
+ *   25.248 V, 1.958 V above the SiPM breakdown of 23.290 V at -25 C,
+ *   so BIAS_DAC_FROM_ADC_SAFE_DAC_CODE does NOT switch the SiPM off. The board needs
+ *   a hardware enable (shutdown) input on the bias regulator, or a load
+ *   switch in the bias line, that the firmware drives off whenever the
+ *   table reports a sensor fault and that defaults to off at power-up
+ *   and reset
+ *   (BIAS_DAC_FROM_ADC_STATUS_SENSOR_FAULT from bias_dac_from_adc_status()).
+ *
+ * Const data is declared with BIAS_DAC_FROM_ADC_ROM after the declarator and read with
+ *   BIAS_DAC_FROM_ADC_ROM_READ_<type>(address); both default to plain C. On a Harvard-architecture
+ *   microcontroller define them, before this header is included, as the attribute that
+ *   places data in program memory and the routines that read it from there.
  */
 
-#define BIAS_DAC_FROM_ADC_STATUS_OK           0u /* reading inside the operating range */
-#define BIAS_DAC_FROM_ADC_STATUS_BELOW_RANGE  1u /* code below the range: output clamped */
-#define BIAS_DAC_FROM_ADC_STATUS_ABOVE_RANGE  2u /* code above the range: output clamped */
-#define BIAS_DAC_FROM_ADC_STATUS_SENSOR_FAULT 3u /* open/short sensor: safe DAC code */
-#define BIAS_DAC_FROM_ADC_ADC_BITS            12u /* temperature ADC resolution */
-#define BIAS_DAC_FROM_ADC_DAC_BITS            16u /* bias DAC resolution */
-#define BIAS_DAC_FROM_ADC_ADC_CODE_LO         1337u /* first ADC code of the operating range */
-#define BIAS_DAC_FROM_ADC_ADC_CODE_HI         3729u /* last ADC code of the operating range */
-#define BIAS_DAC_FROM_ADC_ADC_FAULT_LO        834u /* codes below this are sensor faults */
-#define BIAS_DAC_FROM_ADC_ADC_FAULT_HI        3979u /* codes above this are sensor faults */
-#define BIAS_DAC_FROM_ADC_SAFE_DAC_CODE       65535u /* DAC code for a sensor fault */
-#define BIAS_DAC_FROM_ADC_DAC_MIN             0u /* lowest DAC code the function returns in range */
-#define BIAS_DAC_FROM_ADC_DAC_MAX             65535u /* highest DAC code the function returns in range */
-#define BIAS_DAC_FROM_ADC_ENTRIES             39u /* table rows */
-#define BIAS_DAC_FROM_ADC_TABLE_BYTES         78u /* bytes of const table data */
+#define BIAS_DAC_FROM_ADC_STATUS_OK                      0u /* reading inside the operating range */
+#define BIAS_DAC_FROM_ADC_STATUS_COLDER_THAN_RANGE       1u /* reading colder than the range: output held at its cold end */
+#define BIAS_DAC_FROM_ADC_STATUS_HOTTER_THAN_RANGE       2u /* reading hotter than the range: output held at its hot end */
+#define BIAS_DAC_FROM_ADC_STATUS_SENSOR_FAULT            3u /* open/short sensor: safe DAC code */
+#define BIAS_DAC_FROM_ADC_ADC_BITS                       12u /* temperature ADC resolution */
+#define BIAS_DAC_FROM_ADC_DAC_BITS                       16u /* bias DAC resolution */
+#define BIAS_DAC_FROM_ADC_ADC_CODE_LO                    1337u /* first ADC code of the operating range */
+#define BIAS_DAC_FROM_ADC_ADC_CODE_HI                    3729u /* last ADC code of the operating range */
+#define BIAS_DAC_FROM_ADC_ADC_FAULT_LO                   834u /* codes below this are sensor faults */
+#define BIAS_DAC_FROM_ADC_ADC_FAULT_HI                   3979u /* codes above this are sensor faults */
+#define BIAS_DAC_FROM_ADC_SAFE_DAC_CODE                  65535u /* DAC code for a sensor fault */
+#define BIAS_DAC_FROM_ADC_SAFE_STATE_NEEDS_SHUTDOWN_LINE 1u /* 1: no DAC code holds the SiPM below breakdown */
+#define BIAS_DAC_FROM_ADC_DAC_MIN                        0u /* lowest DAC code the function returns in range */
+#define BIAS_DAC_FROM_ADC_DAC_MAX                        65535u /* highest DAC code the function returns in range */
+#define BIAS_DAC_FROM_ADC_ENTRIES                        39u /* table rows (nodes) */
+#define BIAS_DAC_FROM_ADC_TABLE_BYTES                    78u /* bytes of const table data */
+
+/* Placement hook for the const tables (see above). */
+#ifndef BIAS_DAC_FROM_ADC_ROM
+#define BIAS_DAC_FROM_ADC_ROM
+#endif
+#ifndef BIAS_DAC_FROM_ADC_ROM_READ_U16
+#define BIAS_DAC_FROM_ADC_ROM_READ_U16(address) (*(address))
+#endif
 
 #ifdef __cplusplus
 extern "C" {

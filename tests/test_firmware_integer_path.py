@@ -1,0 +1,67 @@
+"""The integer-path gain error over every ADC code: independent of any print step, statistics named."""
+
+import numpy as np
+import pytest
+
+from compensator.firmware.integer_path import integer_path_gain_error
+from compensator.firmware.tables import build_table
+from compensator.law import build_law
+
+
+@pytest.fixture
+def path(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain")
+    return law, TABLES.setdefault("a", build_table(law, board_ntc, 0.05, "optimised")), None
+
+
+TABLES = {}
+
+
+@pytest.fixture
+def result_of(path, board_ntc):
+    law, table, _ = path
+    return integer_path_gain_error(table, law, board_ntc)
+
+
+def test_every_code_of_the_range(path, result_of):
+    law, table, _ = path
+    result = result_of
+    assert result.adc_code.size == table.code_hi - table.code_lo + 1 == 2393
+    assert result.max_abs_gain_error_pct == pytest.approx(np.abs(result.gain_error_pct).max())
+    assert result.peak_to_peak_gain_error_pct == pytest.approx(np.ptp(result.gain_error_pct))
+    assert result.max_abs_gain_error_pct <= result.peak_to_peak_gain_error_pct + abs(result.gain_error_pct).min()
+
+
+def test_a_code_by_hand(path, result_of, sipm_a, board_ntc):
+    # One code through the chain with scalar steps: temperature at the code centre, the table's DAC code, the
+    # supply formula, the drop of the dark current across 10 kohm solved by fixed point, and G = C (V - Vbd) / q
+    # against the gain at 3 V over the breakdown at 25 C (so the ratio is the overvoltage ratio, C constant).
+    from compensator.physics.sipm import breakdown_v, steady_current_a
+
+    law, table, _ = path
+    result = result_of
+    k = 1234
+    code = int(result.adc_code[k])
+    t = float(board_ntc.temperature.temp_at(code + 0.5))
+    dac = int(table.lookup([code])[0][0])
+    out_v = board_ntc.supply.intercept_v + board_ntc.supply.volts_per_code * dac
+    v = out_v
+    for _ in range(50):
+        v = out_v - 1e4 * float(steady_current_a(sipm_a.device, v, t))
+    expected = 100 * ((v - float(breakdown_v(sipm_a.device, t))) / 3.0 - 1)
+    assert result.temp_c[k] == pytest.approx(t) and result.dac_code[k] == dac
+    assert result.gain_error_pct[k] == pytest.approx(expected, abs=1e-6)
+
+
+def test_the_figure_does_not_depend_on_a_print_step(result_of, board_ntc):
+    # Sampling the same path at printed temperatures can only see less of it than every code does.
+    result = result_of
+    for step_c in (5.0, 2.5, 0.7):
+        temps = np.arange(-25.0, 45.0 + 1e-9, step_c)
+        codes = board_ntc.temperature.adc_code(temps)
+        inside = np.isin(result.adc_code, codes)
+        assert np.abs(result.gain_error_pct[inside]).max() <= result.max_abs_gain_error_pct
+    assert result.max_abs_gain_error_pct < 0.1
+    assert result.worst_adc_code == int(result.adc_code[np.argmax(np.abs(result.gain_error_pct))])
+    assert result.reference_temp_c == 25.0 and result.adc_code.dtype == np.int64
+    assert np.all(np.isfinite(result.temp_c)) and np.all(result.sipm_bias_v > 25.0)
