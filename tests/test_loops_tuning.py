@@ -393,3 +393,26 @@ def test_loop_parts_are_one_plus_the_controller_times_the_plant():
         ref = 1.0 + c(np.exp(1j * w * T)) * p
         got = parts.fixed_re[j, 0] + ki[j] * parts.per_ki_re[0] + 1j * (parts.fixed_im[j, 0] + ki[j] * parts.per_ki_im[0])
         assert np.allclose(got, ref, rtol=1e-9, atol=1e-12)
+
+
+def test_tune_passes_every_option_to_the_robust_search_and_checks_ms_only_there():
+    model = FopdtModel(2.0, 30.0, 5.0)
+    plant = plants.model_plant(model)
+    two = tuning.tune(plant, "robust", T, computation_delay_samples=2, model=model)
+    assert two.gains == tuning.robust(plant, T, 1.4, computation_delay_samples=2) and two.model == model
+    assert tuning.tune(plant, "robust", T, pid=True).gains == tuning.robust(plant, T, 1.4, pid=True)
+    # The Ms bound is the robust method's: the rules ignore a value the robust method would refuse.
+    assert tuning.tune(plant, "simc", T, ms_max=20.0, model=model).gains == tuning.tune(plant, "simc", T, model=model).gains
+
+
+def test_rules_accept_dead_times_below_a_second():
+    # AMIGO (Astrom and Hagglund 2004) PI with K = 2, T = 30 s, L = 0.5 s, and the Ziegler-Nichols step rule.
+    k_, t_, l_ = 2.0, 30.0, 0.5
+    g = tuning.amigo(FopdtModel(k_, t_, l_))
+    kp = 0.15 / k_ + (0.35 - l_ * t_ / (l_ + t_) ** 2) * t_ / (k_ * l_)
+    ti = 0.35 * l_ + 13.0 * l_ * t_ ** 2 / (t_ ** 2 + 12.0 * l_ * t_ + 7.0 * l_ ** 2)
+    assert (g.kp, g.ki_per_s) == pytest.approx((kp, kp / ti), rel=1e-12)
+    z = tuning.ziegler_nichols_step(FopdtModel(k_, t_, l_))
+    assert (z.kp, z.ki_per_s) == pytest.approx((0.9 * t_ / (k_ * l_), 0.9 * t_ / (k_ * l_) / (3.0 * l_)), rel=1e-12)
+    m = tuning.fopdt_from_ultimate(2.0, 3.0, 0.5)
+    assert tuning.ultimate_point(plants.model_plant(m), None)[1] == pytest.approx(0.5, rel=1e-6)
