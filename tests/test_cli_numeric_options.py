@@ -26,10 +26,6 @@ sys.path.pop(0)
 # already checked does no harm.
 PENDING_OPTIONS = {
     "budget --samples", "budget --seed", "table --max-gain-error-pct", "table --fault-margin-k",
-    "tune --fopdt", "tune --sopdt", "tune --ms", "tune --rate-hz", "tune --tau-c", "tune --setpoint-temp-c",
-    "tune --ambient-temp-c", "tune --current-a", "tune --ambient-range", "tune --regulator-tau-s",
-    "tune --input-per-count", "tune --output-per-count", "tune --out-min", "tune --out-max",
-    "identify --hysteresis",
     "calibrate iv --temp-c", "calibrate iv --jobs", "calibrate spectrum --fit-range", "calibrate spectrum --jobs",
     "calibrate gain-scan --bias-v", "calibrate gain-scan --charge-per-unit-c", "calibrate gain-scan --temp-c",
     "calibrate gain-scan --jobs", "calibrate tempco --ref-temp-c", "calibrate tempco --overvoltage-v",

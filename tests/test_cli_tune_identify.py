@@ -308,7 +308,7 @@ def test_tune_long_dead_time_at_a_high_rate_is_bounded(cli):
     (["--plant", "COOLER", "--method", "simc", "--ambient-temp-c", "nan"], "--ambient-temp-c: must be a finite number"),
     (["--plant", "COOLER", "--method", "simc", "--ambient-range", "nan", 45], "--ambient-range: must be a finite number"),
     (["--plant", "COOLER", "--method", "simc", "--current-a", "nan"], "--current-a: must be a finite number"),
-    (["--plant", "COOLER", "--method", "simc", "--relative-humidity-pct", 0], "must be above 0"),
+    (["--plant", "COOLER", "--method", "simc", "--relative-humidity-pct", 0], "must be greater than 0 %, got '0'"),
     (["--fopdt", 2, 30, 5, "--method", "robust", "--ms", 1e9, "--rate-hz", 10], "--ms: must exceed 1 and be at most 10"),
     (["--fopdt", 2, 30, 5, "--method", "simc", "--rate-hz", 10, "--name", "x"], "--name: applies with --emit-c only"),
     (["--fopdt", 2, 30, 5, "--method", "simc", "--rate-hz", 10, "--ambient-temp-c", 5],

@@ -125,6 +125,7 @@ def test_robust_pid_on_the_cooler_is_stable_and_meets_ms(cooler):
         assert rep.stable and rep.margins.ms <= 1.4 * 1.001 and not rep.warnings
         assert g.kp < 0  # more current cools: reverse acting
     assert abs(pid.ki_per_s) > abs(pi.ki_per_s)  # the extra freedom buys integral gain
+    assert pid.derivative_filter_n == 10.0 and pid.kd_s < 0  # the firmware PID's default filter, N = 10
 
 
 def test_robust_reports_infeasible_bounds():
@@ -205,3 +206,213 @@ def test_ms_bound_out_of_range_names_the_reason():
     with pytest.raises(ModelError, match="at most 10") as info:
         tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "robust", T, ms_max=1e9)
     assert info.value.key == "ms_max"
+
+
+def test_feasibility_test_against_a_direct_computation():
+    # Ms <= bound and no crossing of the negative real axis left of -1, computed directly (interpolated crossing
+    # points, |1 + L| by abs) on random loops; the search's division-free form must agree on every controller.
+    rng = np.random.default_rng(7)
+    # Nyquist-like spirals L = g exp(-j 3 pi x) / (1 + 4 x) with a random gain g per controller, and noise.
+    x = np.linspace(0.0, 1.0, 60)
+    gain = rng.uniform(0.1, 2.0, (40, 1, 1))
+    fixed = 1.0 + gain * np.exp(-3j * np.pi * x) / (1.0 + 4.0 * x) + 0.02 * rng.normal(size=(40, 3, 60))
+    per_ki = 0.02 * (rng.normal(size=(3, 60)) + 1j * rng.normal(size=(3, 60)))
+    ki = rng.uniform(0.0, 2.0, 40)
+    parts = tuning._LoopParts(fixed.real.copy(), fixed.imag.copy(), per_ki.real.copy(), per_ki.imag.copy())
+    ours = tuning._feasible_batch(parts, ki, 1.4)
+    loop = fixed + ki[:, None, None] * per_ki - 1.0  # L itself
+    expected = []
+    for c in range(40):
+        ok = True
+        for p in range(3):
+            curve = loop[c, p]
+            if np.min(np.abs(1.0 + curve)) < 1.0 / 1.4 or curve[-1].real < -1.0:
+                ok = False
+            for a, b in zip(curve[:-1], curve[1:]):
+                if a.imag * b.imag <= 0 and a.imag != b.imag:
+                    x = a.real + a.imag / (a.imag - b.imag) * (b.real - a.real)
+                    ok &= not x < -1.0
+        expected.append(ok)
+    assert list(ours) == expected
+    assert 0 < sum(expected) < 40  # both outcomes occur
+
+
+def test_robust_search_returns_the_same_gains_without_the_shortcut():
+    # The search bisects only controllers feasible at the smallest ki; bisecting every controller must give the
+    # same largest ki (the shortcut drops nothing that could win).
+    plant = plants.fopdt_plant(2.0, 30.0, 5.0)
+    w = np.append(verify.loop_frequency_grid(plant, T, 700, 6.0), np.pi / T)
+    p_resp = plants.discrete_frequency_response(plant, T, w)[None, :]
+    kp = np.linspace(0.05, 2.0, 12)
+    ours = tuning._max_ki(p_resp, w, T, kp, np.zeros_like(kp), 10.0, 1.0, 1.4, 100.0)
+    parts = tuning._loop_parts(p_resp, w, T, kp, np.zeros_like(kp), 10.0)
+    lo, hi = np.full(12, np.log(100.0) - 30.0), np.full(12, np.log(100.0))
+    ok_lo = tuning._feasible_batch(parts, np.exp(lo), 1.4)
+    for _ in range(tuning._BISECTION_STEPS):
+        mid = 0.5 * (lo + hi)
+        ok = tuning._feasible_batch(parts, np.exp(mid), 1.4)
+        lo, hi = np.where(ok, mid, lo), np.where(ok, hi, mid)
+    assert np.array_equal(ours, np.where(ok_lo, np.exp(lo), 0.0))
+    assert np.count_nonzero(ours == 0) >= 1 and np.count_nonzero(ours) >= 4
+
+
+@pytest.mark.parametrize("call, key, reason", [
+    (lambda: tuning.simc(FopdtModel(0.0, 30.0, 5.0)), "", "the model gain must be finite and nonzero"),
+    (lambda: tuning.amigo(FopdtModel(float("nan"), 30.0, 5.0)), "", "the model gain must be finite and nonzero"),
+    (lambda: tuning.imc(FopdtModel(2.0, 0.0, 5.0)), "", "the model time constant must be positive"),
+    (lambda: tuning.simc(FopdtModel(2.0, 30.0, 5.0), pid=True), "",
+     "SIMC PID needs a second-order model (tau2 > 0): give --sopdt, or tune a PI"),
+    (lambda: tuning.simc(SopdtModel(2.0, 30.0, 0.0, 5.0), pid=True), "",
+     "SIMC PID needs a second-order model (tau2 > 0): give --sopdt, or tune a PI"),
+    (lambda: tuning.simc(FopdtModel(2.0, 30.0, 0.0)), "",
+     "SIMC needs tau_c + theta > 0: the model has no dead time, give --tau-c"),
+    (lambda: tuning.amigo(FopdtModel(2.0, 30.0, 0.0)), "", "AMIGO needs a positive dead time"),
+    (lambda: tuning.imc(FopdtModel(2.0, 30.0, 5.0), lambda_s=0.0), "", "IMC lambda must be positive"),
+    (lambda: tuning.imc(FopdtModel(2.0, 30.0, 0.0), lambda_s=-1.0), "", "IMC lambda must be positive"),
+    (lambda: tuning.ziegler_nichols_step(FopdtModel(2.0, 30.0, 0.0)), "",
+     "the Ziegler-Nichols step rule needs a positive dead time"),
+    (lambda: tuning.ziegler_nichols_ultimate(0.0, 7.0), "",
+     "the ultimate gain must be nonzero and the ultimate period positive"),
+    (lambda: tuning.ziegler_nichols_ultimate(2.0, 0.0), "",
+     "the ultimate gain must be nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(0.0, 7.0), "",
+     "the ultimate gain must be finite and nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(float("inf"), 7.0), "",
+     "the ultimate gain must be finite and nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(2.0, 0.0), "",
+     "the ultimate gain must be finite and nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(2.0, float("nan")), "",
+     "the ultimate gain must be finite and nonzero and the ultimate period positive"),
+    (lambda: tuning.ms_point_ultimate(2.0, 7.0, 1.0), "ms_max",
+     "must exceed 1 and be at most 10 (1.4 is robust, 2 aggressive; a larger bound no longer restrains the loop), "
+     "got 1"),
+    (lambda: tuning.ms_point_ultimate(2.0, 7.0, 10.5), "ms_max",
+     "must exceed 1 and be at most 10 (1.4 is robust, 2 aggressive; a larger bound no longer restrains the loop), "
+     "got 10.5"),
+    (lambda: tuning.fopdt_from_ultimate(0.0, 2.0, 7.0), "static_gain", "must be finite and nonzero, got 0.0"),
+    (lambda: tuning.fopdt_from_ultimate(2.0, float("nan"), 7.0), "ultimate_gain",
+     "must be finite and nonzero, got nan"),
+    (lambda: tuning.fopdt_from_ultimate(2.0, 2.0, 0.0), "ultimate_period_s", "must be finite and nonzero, got 0.0"),
+    (lambda: tuning.fopdt_from_ultimate(2.0, 2.0, -7.0), "ultimate_period_s", "must be positive, got -7.0"),
+    (lambda: tuning.fopdt_from_ultimate(2.0, 0.5, 7.0), "static_gain",
+     "K Ku = 1 must exceed 1 (same sign, and a loop gain that needs more than K to oscillate); check the signs and "
+     "units of the static and ultimate gains"),
+    (lambda: tuning.fopdt_from_ultimate(-2.0, 2.0, 7.0), "static_gain",
+     "K Ku = -4 must exceed 1 (same sign, and a loop gain that needs more than K to oscillate); check the signs and "
+     "units of the static and ultimate gains"),
+    (lambda: tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "simc", 0.0), "", "the sample time must be positive"),
+    (lambda: tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "simc", float("nan")), "",
+     "the sample time must be positive"),
+    (lambda: tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "pid", 0.1), "",
+     "method must be one of simc, amigo, imc, zn, zn-cycle, robust, got 'pid'"),
+    (lambda: tuning.tune(plants.fopdt_plant(1.0, 1.0, 0.1), "robust", 0.1, ms_max=1.0), "ms_max",
+     "must exceed 1 and be at most 10 (1.4 is robust, 2 aggressive; a larger bound no longer restrains the loop), "
+     "got 1"),
+])
+def test_every_refusal_names_its_key_and_reason(call, key, reason):
+    with pytest.raises(ModelError) as info:
+        call()
+    assert (info.value.key, info.value.reason) == (key, reason)
+
+
+def test_the_edges_of_the_accepted_inputs():
+    # Values just inside every bound are accepted (a mutated bound would refuse them).
+    assert tuning.ziegler_nichols_ultimate(2.0, 0.5).ki_per_s == pytest.approx(0.9 / (0.5 / 1.2))
+    assert tuning.ziegler_nichols_ultimate(-2.0, 7.0, pid=True).kp == pytest.approx(-1.2)
+    assert tuning.ms_point_ultimate(2.0, 7.0, 10.0).kp > 0
+    assert tuning.ms_point_ultimate(2.0, 0.5, 1.0001).kp > 0
+    m = tuning.fopdt_from_ultimate(1.0, 1.0001, 7.0)
+    assert m.gain == 1.0 and m.time_constant_s > 0
+    m = tuning.fopdt_from_ultimate(2.0, 1.0, 7.0)  # a Ku of exactly 1 is a valid ultimate gain
+    assert m.time_constant_s == pytest.approx(math.sqrt(3.0) * 7.0 / (2.0 * math.pi), rel=1e-12)
+    assert tuning.imc(FopdtModel(2.0, 30.0, 0.0), lambda_s=1e-3)[1] == 1e-3
+    assert tuning.simc(FopdtModel(2.0, 30.0, 0.0), tau_c_s=1e-3)[1] == 1e-3
+    assert tuning.sampling_dead_time_s(0.1) == pytest.approx(0.15) and tuning.sampling_dead_time_s(0.1, 2) == 0.25
+
+
+def test_a_loose_ms_bound_from_ku_and_pu_takes_the_point_closest_to_minus_one():
+    # With Ti = Pu / 1.2, r = 1.2 / (2 pi): the ray L = -x (1 - j r) comes no closer to -1 than r / sqrt(1 + r^2)
+    # (at x = 1 / (1 + r^2)); a bound looser than that (Ms 10) takes that point, a traceback before.
+    r = 1.2 / (2.0 * math.pi)
+    g = tuning.ms_point_ultimate(2.0, 7.0, 10.0)
+    assert g.kp == pytest.approx(2.0 / (1.0 + r * r), rel=1e-12)
+    assert tuning.ms_point_ultimate(2.0, 7.0, 5.0).kp < g.kp
+
+
+def test_tune_records_how_each_method_got_its_gains():
+    model = FopdtModel(2.0, 30.0, 5.0)
+    plant = plants.model_plant(model)
+    rob = tuning.tune(plant, "robust", T, ms_max=1.6)
+    assert rob.gains == tuning.robust(plant, T, 1.6)
+    assert (rob.method, rob.pid, rob.model, rob.ms_target) == ("robust", False, None, 1.6)
+    assert rob.rule_dead_time_s == pytest.approx(1.5 * T)
+    cyc = tuning.tune(plant, "zn-cycle", T, pid=True, computation_delay_samples=2)
+    ku, pu = tuning.ultimate_point(plant, T, 2)  # the sampled loop with two samples of computation delay
+    assert (cyc.ultimate_gain, cyc.ultimate_period_s) == (ku, pu)
+    assert cyc.gains == tuning.ziegler_nichols_ultimate(ku, pu, pid=True)
+    assert (cyc.method, cyc.pid, cyc.rule_dead_time_s) == ("zn-cycle", True, pytest.approx(2.5 * T))
+    cont = tuning.tune(plant, "zn-cycle", T, include_sampling_delay=False)
+    assert (cont.ultimate_gain, cont.ultimate_period_s) == tuning.ultimate_point(plant, None)
+    assert cont.rule_dead_time_s == 0.0
+    # The rules see the model's dead time plus T/2 + n T for n samples of computation delay.
+    two = tuning.tune(plant, "simc", T, model=model, computation_delay_samples=2)
+    assert two.rule_dead_time_s == pytest.approx(5.0 + 2.5 * T) and two.model == model
+    assert two.closed_loop_time_constant_s == pytest.approx(5.0 + 2.5 * T)
+    assert tuning.tune(plant, "imc", T, model=model, tau_c_s=7.0).closed_loop_time_constant_s == 7.0
+    assert tuning.tune(plant, "zn", T, model=model).closed_loop_time_constant_s is None
+    amigo_pid = tuning.tune(plant, "amigo", T, model=model, pid=True)
+    assert amigo_pid.gains == tuning.amigo(dataclasses.replace(model, dead_time_s=5.0 + 1.5 * T), pid=True)
+
+
+def test_rules_fit_their_own_model_and_simc_pid_converts_any_positive_tau2():
+    plant = plants.sopdt_plant(2.0, 30.0, 4.0, 5.0)
+    # Without a model the rules fit one: an FOPDT for every rule but the SIMC PID, which needs the SOPDT.
+    from compensator.loops.identify import approximate_plant
+
+    fopdt = approximate_plant(plant, "fopdt")
+    res = tuning.tune(plant, "amigo", T)
+    assert res.model == fopdt and res.pid is False
+    assert res.gains == tuning.amigo(dataclasses.replace(fopdt, dead_time_s=fopdt.dead_time_s + 1.5 * T))
+    assert tuning.tune(plant, "simc", T, pid=True).model == approximate_plant(plant, "sopdt")
+    # Skogestad (2003) SIMC PID in series form, Kc (1 + Td / Ti), Kc / Ti, Kc Td in parallel form, for tau2 < 1 s too.
+    g, tc = tuning.simc(SopdtModel(2.0, 30.0, 0.5, 5.0), pid=True)
+    kc, ti = 30.0 / (2.0 * 10.0), 30.0
+    assert (g.kp, g.ki_per_s, g.kd_s) == pytest.approx((kc * (1 + 0.5 / ti), kc / ti, kc * 0.5), rel=1e-12)
+
+
+def test_loop_parts_are_one_plus_the_controller_times_the_plant():
+    # fixed + ki per_ki must equal 1 + C(exp(j w T)) P for a PID with any derivative filter N (python-control's
+    # frequency response of the controller transfer function is the reference).
+    plant = plants.fopdt_plant(2.0, 30.0, 5.0)
+    w = verify.loop_frequency_grid(plant, T, 300, 5.0)
+    p = plants.discrete_frequency_response(plant, T, w)
+    kp, ki, kd, n = np.array([0.8, 1.1]), np.array([0.03, 0.05]), np.array([2.0, 4.0]), 5.0
+    parts = tuning._loop_parts(p[None, :], w, T, kp, kd, n)
+    for j in range(2):
+        c = verify.controller_tf(verify.PidGains(kp[j], ki[j], kd[j], n), T)
+        ref = 1.0 + c(np.exp(1j * w * T)) * p
+        got = parts.fixed_re[j, 0] + ki[j] * parts.per_ki_re[0] + 1j * (parts.fixed_im[j, 0] + ki[j] * parts.per_ki_im[0])
+        assert np.allclose(got, ref, rtol=1e-9, atol=1e-12)
+
+
+def test_tune_passes_every_option_to_the_robust_search_and_checks_ms_only_there():
+    model = FopdtModel(2.0, 30.0, 5.0)
+    plant = plants.model_plant(model)
+    two = tuning.tune(plant, "robust", T, computation_delay_samples=2, model=model)
+    assert two.gains == tuning.robust(plant, T, 1.4, computation_delay_samples=2) and two.model == model
+    assert tuning.tune(plant, "robust", T, pid=True).gains == tuning.robust(plant, T, 1.4, pid=True)
+    # The Ms bound is the robust method's: the rules ignore a value the robust method would refuse.
+    assert tuning.tune(plant, "simc", T, ms_max=20.0, model=model).gains == tuning.tune(plant, "simc", T, model=model).gains
+
+
+def test_rules_accept_dead_times_below_a_second():
+    # AMIGO (Astrom and Hagglund 2004) PI with K = 2, T = 30 s, L = 0.5 s, and the Ziegler-Nichols step rule.
+    k_, t_, l_ = 2.0, 30.0, 0.5
+    g = tuning.amigo(FopdtModel(k_, t_, l_))
+    kp = 0.15 / k_ + (0.35 - l_ * t_ / (l_ + t_) ** 2) * t_ / (k_ * l_)
+    ti = 0.35 * l_ + 13.0 * l_ * t_ ** 2 / (t_ ** 2 + 12.0 * l_ * t_ + 7.0 * l_ ** 2)
+    assert (g.kp, g.ki_per_s) == pytest.approx((kp, kp / ti), rel=1e-12)
+    z = tuning.ziegler_nichols_step(FopdtModel(k_, t_, l_))
+    assert (z.kp, z.ki_per_s) == pytest.approx((0.9 * t_ / (k_ * l_), 0.9 * t_ / (k_ * l_) / (3.0 * l_)), rel=1e-12)
+    m = tuning.fopdt_from_ultimate(2.0, 3.0, 0.5)
+    assert tuning.ultimate_point(plants.model_plant(m), None)[1] == pytest.approx(0.5, rel=1e-6)

@@ -127,3 +127,46 @@ def test_cooler_operating_warnings_and_limits(cooler):
     big = dataclasses.replace(c, max_current_a=12.0)
     lo, hi = plants.cooler_current_limits_a(big)
     assert hi == pytest.approx(plants.cooler_optimum_current_a(big)) and -12.0 < lo < 0
+
+
+@pytest.mark.filterwarnings("ignore:stability_margins")
+def test_margins_of_a_long_dead_time_match_python_control_over_the_whole_grid():
+    # The margins are searched only where a gain or phase crossover can set them; python-control's
+    # stability_margins on every grid point with |L| >= 0.01 (the reference) must find the same values.
+    plant = plants.fopdt_plant(2.0, 300.0, 60.0)
+    for g in (PidGains(0.7, 0.004), PidGains(0.7, 0.004, 25.0), PidGains(1.6, 0.012)):
+        ours = verify._margins(plant, g, 1.0, 1)
+        w = verify.loop_frequency_grid(plant, 1.0, 6000, 7.0)
+        loop = verify.controller_frequency_response(g, 1.0, w) * plants.discrete_frequency_response(plant, 1.0, w)
+        big = np.flatnonzero(np.abs(loop) >= 0.01)
+        every = slice(None, big[-1] + 4, 3)
+        gm, pm, _, wpc, wgc, _ = control.stability_margins(
+            (np.abs(loop[every]), np.degrees(np.unwrap(np.angle(loop[every]))), w[every]))
+        assert ours.gain_margin == pytest.approx(gm, rel=1e-6)
+        assert ours.phase_margin_deg == pytest.approx(pm, rel=1e-6)
+        assert ours.phase_crossover_rad_s == pytest.approx(wpc, rel=1e-6)
+        assert ours.crossover_rad_s == pytest.approx(wgc, rel=1e-6)
+
+
+def test_margin_search_span_holds_every_crossover_that_can_set_a_margin():
+    # A loop drawn by hand: |L| = 4, 2, 0.5, 0.3, 0.02 ... with phase crossovers at |L| = 0.5 and 0.02.
+    loop = np.array([4 - 1j, 2 - 1j, 0.8 - 0.2j, -0.5 - 0.1j, -0.5 + 0.1j, -0.3 + 0.1j, 0.1 + 0.1j, 0.05 - 0.05j,
+                     -0.02 - 0.001j, -0.02 + 0.001j, 0.001 + 0.001j] + [1e-4] * 20)
+    span = verify._margin_search_span(loop)
+    # The gain crossover lies between points 1 and 2; the crossover at |L| = 0.5 between 3 and 4 sets the gain
+    # margin (2); the one at |L| = 0.02 (GM 50) is 25 times farther from 1 and is left out.
+    assert span == slice(0, 3 + 5)
+    assert verify._margin_search_span(np.full(10, 0.5 + 0j)) == slice(0, 0)  # no crossover at all
+    assert verify._margin_search_span(np.full(10, 1e-3 + 0j)) == slice(0, 0)
+
+
+def test_one_blas_thread_inside_and_the_limits_restored_after():
+    from threadpoolctl import threadpool_info
+
+    from compensator.loops._blas import one_blas_thread
+
+    before = [lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"]
+    with one_blas_thread():
+        inside = [lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"]
+    after = [lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"]
+    assert inside == [1] * len(before) and after == before

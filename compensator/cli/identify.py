@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-import math
 import sys
 from dataclasses import asdict
 from pathlib import Path
 
-from compensator.cli._common import add_json_flag, format_table, print_json
-from compensator.errors import InputError, Problem
+from compensator.cli._common import EXIT_OK, add_json_flag, format_table, non_negative_float, print_json, usage_error
+
+__all__ = ["ORDER", "COMMAND", "HELP", "register", "run"]
 
 ORDER = 55
 COMMAND = "identify"
@@ -28,7 +28,7 @@ def register(subparsers) -> None:
     p.add_argument("file", metavar="FILE", help="CSV with time_s,input,output")
     p.add_argument("--model", choices=("fopdt", "sopdt", "relay"), default="fopdt",
                    help="what to identify (default fopdt)")
-    p.add_argument("--hysteresis", type=float, default=0.0,
+    p.add_argument("--hysteresis", type=non_negative_float, default=0.0,
                    help="relay hysteresis in output units (relay only; default 0)")
     p.add_argument("--plot", metavar="DIR", help="write a figure of the data and the fit (PNG) into DIR")
     p.add_argument("--force", action="store_true", help="replace an existing figure")
@@ -41,11 +41,8 @@ def run(args) -> int:
     from compensator.loops import identify
     from compensator.loops.measurements import read_loop_csv
 
-    if not args.hysteresis >= 0 or not math.isfinite(args.hysteresis):
-        raise InputError(Problem("<command line>", 0, "--hysteresis", f"must be a finite number >= 0, got "
-                                                                      f"{args.hysteresis:g}"))
     if args.hysteresis and args.model != "relay":
-        raise InputError(Problem("<command line>", 0, "--hysteresis", "applies to --model relay only"))
+        raise usage_error("--hysteresis", "applies to --model relay only")
     record = read_loop_csv(args.file)
     stem = Path(args.file).stem
     try:
@@ -54,7 +51,7 @@ def run(args) -> int:
         else:
             result = identify.fit_step(record, args.model)
     except ModelError as exc:
-        raise InputError(Problem(args.file, 0, "", str(exc).removeprefix(f"{args.file}: "))) from None
+        raise exc.at(args.file) from None
     files = []
     if args.model == "relay":
         out = {"model": "relay", "file": args.file, **asdict(result)}
@@ -93,7 +90,7 @@ def run(args) -> int:
         print_json(out)
     else:
         _print_human(out)
-    return 0
+    return EXIT_OK
 
 
 def _named(params: dict) -> dict:

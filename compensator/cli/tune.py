@@ -10,6 +10,7 @@ from compensator.cli._common import (
     EXIT_FAILURE,
     EXIT_OK,
     add_json_flag,
+    bounded_float,
     bounded_int,
     caution,
     finite_float,
@@ -21,6 +22,8 @@ from compensator.cli._common import (
 )
 from compensator.errors import InputError, ModelError, Problem
 from compensator.fileio import output_dir
+
+__all__ = ["ORDER", "COMMAND", "HELP", "COOLER_INPUT_PER_COUNT_K", "COOLER_OUTPUT_PER_COUNT_A", "register", "run"]
 
 ORDER = 50
 COMMAND = "tune"
@@ -38,13 +41,8 @@ def _flag(dest: str) -> str:
     return "--" + dest.replace("_", "-")
 
 
-def _humidity(text: str) -> float:
-    import argparse
-
-    value = finite_float(text)
-    if not 0 < value <= 100:
-        raise argparse.ArgumentTypeError(f"must be above 0 and at most 100 percent, got {text!r}")
-    return value
+#: argparse type: relative humidity, above 0 and at most 100 percent.
+_humidity_pct = bounded_float(0.0, 100.0, above=True, unit="%")
 
 
 def register(subparsers) -> None:
@@ -103,7 +101,7 @@ def register(subparsers) -> None:
                     help="tune for the worst case over this ambient range (field enclosures: -25 45): the robust "
                          "method holds its Ms bound at every ambient checked; every method is reported per ambient "
                          "with the dew point and hot-side temperature")
-    op.add_argument("--relative-humidity-pct", type=_humidity,
+    op.add_argument("--relative-humidity-pct", type=_humidity_pct,
                     help="relative humidity of the ambient air for the dew point, percent (default: the profile's "
                          "ambient.relative_humidity_pct)")
     p.add_argument("--regulator-tau-s", type=positive_float,

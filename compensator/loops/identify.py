@@ -26,6 +26,11 @@ from compensator.errors import ModelError
 from compensator.loops.measurements import LoopRecord
 from compensator.loops.plants import FopdtModel, Plant, SopdtModel, step_response
 
+__all__ = [
+    "SMITH_LOW", "SMITH_HIGH", "StepFit", "RelayResult", "smith_two_point", "lack_of_fit_factor", "fit_step",
+    "model_response", "relay_experiment", "approximate_plant",
+]
+
 #: The two levels: 1 - exp(-1/3) and 1 - exp(-1) (published rounded as 28.3 % and 63.2 %); with the exact
 #: levels the method is exact on a true FOPDT: t28 = theta + tau/3, t63 = theta + tau.
 SMITH_LOW = float(-np.expm1(-1.0 / 3.0))
@@ -178,7 +183,7 @@ def _step_geometry(record: LoopRecord):
     scale = max(np.max(np.abs(u)), 1e-300)
     moves = np.flatnonzero(np.abs(du) > 1e-12 * scale)
     if moves.size == 0:
-        raise ModelError(f"{record.source or 'record'}: the input never changes; not a step test")
+        raise ModelError("the input never changes; not a step test")
     j = moves[0] + 1
     t0 = t[j]
     n = t.size
@@ -187,7 +192,7 @@ def _step_geometry(record: LoopRecord):
     y_end = float(np.mean(y[-tail:]))
     u_step = float(np.mean(u[-tail:]) - u[0])
     if u_step == 0:
-        raise ModelError(f"{record.source or 'record'}: the input returns to its start; no net step to identify")
+        raise ModelError("the input returns to its start; no net step to identify")
     return t0, y0, y_end, u_step, j
 
 
@@ -312,7 +317,7 @@ def fit_step(record: LoopRecord, model: str = "fopdt", min_dead_time_s: float = 
     u_scale = abs(u_step)
     y_scale = max(abs(y_end - y0), float(np.std(y)), np.finfo(float).tiny)
     if not (np.isfinite(u_scale) and np.isfinite(y_scale) and u_scale > 0):
-        raise ModelError(f"{record.source or 'record'}: the input or output values are too large to fit")
+        raise ModelError("the input or output values are too large to fit")
     un, yn = (u - u[0]) / u_scale, (y - y0) / y_scale
     start_n = smith_two_point(t, yn, t0, 0.0, (y_end - y0) / y_scale, float(np.sign(u_step)))
     start = FopdtModel(start_n.gain * y_scale / u_scale, start_n.time_constant_s, start_n.dead_time_s)
@@ -332,7 +337,7 @@ def fit_step(record: LoopRecord, model: str = "fopdt", min_dead_time_s: float = 
         try:
             return least_squares(resid, x0, bounds=(lower, upper), x_scale="jac", method="trf", max_nfev=400)
         except (ValueError, FloatingPointError, np.linalg.LinAlgError) as exc:
-            raise ModelError(f"{record.source or 'record'}: the least-squares fit failed ({exc})") from None
+            raise ModelError(f"the least-squares fit failed ({exc})") from None
 
     big = 100.0 * span
     kmag = max(abs(start_n.gain) * 100.0, 1e-6)
@@ -374,7 +379,7 @@ def fit_step(record: LoopRecord, model: str = "fopdt", min_dead_time_s: float = 
     r2 = 1.0 - rms ** 2 / var if var > 0 else 1.0
     values = [*(getattr(fitted, f) for f in fitted.__dataclass_fields__), *se.values(), rms]
     if not all(np.isfinite(v) for v in values):
-        raise ModelError(f"{record.source or 'record'}: the fit gave non-finite values; the record cannot be fitted")
+        raise ModelError("the fit gave non-finite values; the record cannot be fitted")
     if not res.success:
         warnings.append(f"least squares did not converge: {res.message}")
     if r2 < 0.9:
@@ -436,21 +441,21 @@ def relay_experiment(record: LoopRecord, hysteresis: float = 0.0, skip_cycles: i
         raise ModelError("hysteresis must be >= 0")
     t, u, y = record.time_s, record.input, record.output
     if not (np.all(np.isfinite(y)) and np.all(np.isfinite(u))):
-        raise ModelError(f"{record.source or 'record'}: the relay record gives no finite ultimate gain and period "
+        raise ModelError("the relay record gives no finite ultimate gain and period "
                          "(non-finite samples)")
     u_hi, u_lo = float(np.max(u)), float(np.min(u))
     if u_hi == u_lo:
-        raise ModelError(f"{record.source or 'record'}: the input never changes; not a relay experiment")
+        raise ModelError("the input never changes; not a relay experiment")
     mid = 0.5 * (u_hi + u_lo)
     tol = 1e-6 * (u_hi - u_lo)
     if np.any((np.abs(u - u_hi) > tol) & (np.abs(u - u_lo) > tol)):
-        raise ModelError(f"{record.source or 'record'}: input: a relay experiment has exactly two input levels")
+        raise ModelError("a relay experiment has exactly two input levels", key="input")
     d = 0.5 * (u_hi - u_lo)
     high = u > mid
     rising = np.flatnonzero(~high[:-1] & high[1:]) + 1
     rises = t[rising]
     if rises.size - skip_cycles < 3:
-        raise ModelError(f"{record.source or 'record'}: only {max(rises.size - 1, 0)} whole relay cycles; at least "
+        raise ModelError(f"only {max(rises.size - 1, 0)} whole relay cycles; at least "
                          f"{2 + skip_cycles} needed (the first {skip_cycles} discarded as transient)")
     rises = rises[skip_cycles:]
     idx = rising[skip_cycles:]
@@ -483,7 +488,7 @@ def relay_experiment(record: LoopRecord, hysteresis: float = 0.0, skip_cycles: i
     df_err = float(100.0 * abs(ku - ku1) / ku1) if np.isfinite(ku1) and ku1 > 0 else float("nan")
     values = (ku, pu, a, p_std, a_std)
     if not all(np.isfinite(v) for v in values) or ku <= 0 or pu <= 0:
-        raise ModelError(f"{record.source or 'record'}: the relay record gives no finite ultimate gain and period "
+        raise ModelError("the relay record gives no finite ultimate gain and period "
                          f"(Ku {ku!r}, Pu {pu!r})")
     return RelayResult(float(ku), pu, d, a, float(hysteresis), int(periods.size), p_std, a_std, tuple(warnings),
                        sign, float(ku1), df_err)

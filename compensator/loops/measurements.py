@@ -14,6 +14,8 @@ import numpy as np
 from compensator.csvio import read_table
 from compensator.errors import InputError, Problem
 
+__all__ = ["COLUMNS", "MIN_ROWS", "LoopRecord", "read_loop_csv"]
+
 COLUMNS = ("time_s", "input", "output")
 MIN_ROWS = 10
 

@@ -143,7 +143,7 @@ def _check_finite(**values):
             raise ModelError(f"{name} must be finite, got {value!r}")
 
 
-def fopdt_plant(gain: float, time_constant_s: float, dead_time_s: float, name: str = "fopdt") -> Plant:
+def fopdt_plant(gain: float, time_constant_s: float, dead_time_s: float, *, name: str = "fopdt") -> Plant:
     """The FOPDT plant ``K exp(-theta s) / (tau s + 1)``.
 
     Parameters
@@ -154,6 +154,8 @@ def fopdt_plant(gain: float, time_constant_s: float, dead_time_s: float, name: s
         tau > 0, second.
     dead_time_s : float
         theta >= 0, second.
+    name : str, optional
+        Label of the plant in reports and figures.
 
     Returns
     -------
@@ -171,7 +173,7 @@ def fopdt_plant(gain: float, time_constant_s: float, dead_time_s: float, name: s
 
 
 def sopdt_plant(gain: float, time_constant_s: float, time_constant2_s: float, dead_time_s: float,
-                name: str = "sopdt") -> Plant:
+                *, name: str = "sopdt") -> Plant:
     """The SOPDT plant ``K exp(-theta s) / ((tau1 s + 1)(tau2 s + 1))``.
 
     Parameters
@@ -182,6 +184,8 @@ def sopdt_plant(gain: float, time_constant_s: float, time_constant2_s: float, de
         tau1 > 0 and tau2 >= 0, second (a zero tau2 gives the FOPDT).
     dead_time_s : float
         theta >= 0, second.
+    name : str, optional
+        Label of the plant in reports and figures.
 
     Returns
     -------
@@ -190,7 +194,7 @@ def sopdt_plant(gain: float, time_constant_s: float, time_constant2_s: float, de
     _check_finite(time_constant2_s=time_constant2_s)
     if time_constant2_s < 0:
         raise ModelError(f"time_constant2_s must be >= 0, got {time_constant2_s}")
-    first = fopdt_plant(gain, time_constant_s, dead_time_s, name)
+    first = fopdt_plant(gain, time_constant_s, dead_time_s, name=name)
     if time_constant2_s == 0:
         return first
     t1, t2 = time_constant_s, time_constant2_s
@@ -200,12 +204,23 @@ def sopdt_plant(gain: float, time_constant_s: float, time_constant2_s: float, de
     return Plant(sys, float(dead_time_s), name)
 
 
-def model_plant(model, name: str | None = None) -> Plant:
-    """The :class:`Plant` of a :class:`FopdtModel` or :class:`SopdtModel`."""
+def model_plant(model, *, name: str | None = None) -> Plant:
+    """The :class:`Plant` of a :class:`FopdtModel` or :class:`SopdtModel`.
+
+    Parameters
+    ----------
+    model : FopdtModel or SopdtModel
+    name : str, optional
+        Label of the plant (default ``fopdt`` or ``sopdt``).
+
+    Returns
+    -------
+    Plant
+    """
     if isinstance(model, SopdtModel):
         return sopdt_plant(model.gain, model.time_constant_s, model.time_constant2_s, model.dead_time_s,
-                           name or "sopdt")
-    return fopdt_plant(model.gain, model.time_constant_s, model.dead_time_s, name or "fopdt")
+                           name=name or "sopdt")
+    return fopdt_plant(model.gain, model.time_constant_s, model.dead_time_s, name=name or "fopdt")
 
 
 # ---------------------------------------------------------------- the cooler

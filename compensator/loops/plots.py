@@ -18,12 +18,14 @@ from compensator.loops.verify import controller_frequency_response, frequency_gr
 from compensator.plotting import plt
 from compensator.plotting import save_figure as _save
 
+__all__ = ["plot_loop", "plot_step_fit", "plot_relay"]
+
 
 def _check_dir(directory) -> Path:
     return output_dir(directory, "plot")
 
 
-def plot_loop(directory, stem: str, plant, gains, report, overwrite: bool = False,
+def plot_loop(directory, stem: str, plant, gains, report, *, overwrite: bool = False,
               computation_delay_samples: int = 1) -> list[Path]:
     """Bode diagram with margins, sensitivity magnitude, and the closed-loop step with the actuator.
 
@@ -39,6 +41,9 @@ def plot_loop(directory, stem: str, plant, gains, report, overwrite: bool = Fals
         From :func:`compensator.loops.verify.verify_loop`.
     overwrite : bool
         Replace existing files.
+    computation_delay_samples : int
+        Samples between reading the measurement and applying the output (1),
+        as in :func:`compensator.loops.verify.verify_loop`.
 
     Returns
     -------
@@ -105,7 +110,7 @@ def plot_loop(directory, stem: str, plant, gains, report, overwrite: bool = Fals
     return written
 
 
-def plot_step_fit(directory, stem: str, record, fitted_output, title: str, overwrite: bool = False) -> list[Path]:
+def plot_step_fit(directory, stem: str, record, fitted_output, title: str, *, overwrite: bool = False) -> list[Path]:
     """Recorded step test with the fitted model's response, and the residuals.
 
     Parameters
@@ -140,7 +145,7 @@ def plot_step_fit(directory, stem: str, record, fitted_output, title: str, overw
     return [_save(fig, d / f"{stem}-fit.png", overwrite)]
 
 
-def plot_relay(directory, stem: str, record, result, overwrite: bool = False) -> list[Path]:
+def plot_relay(directory, stem: str, record, result, *, overwrite: bool = False) -> list[Path]:
     """Relay experiment: relay output and the process limit cycle with its amplitude and period.
 
     Parameters

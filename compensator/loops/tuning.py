@@ -41,10 +41,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
+from typing import NamedTuple
 
 import numpy as np
 
 from compensator.errors import ModelError
+from compensator.loops._blas import one_blas_thread
 from compensator.loops.choices import DEFAULT_MS, METHODS
 from compensator.loops.plants import FopdtModel, Plant, SopdtModel
 from compensator.loops.sampled import discrete_frequency_response
@@ -269,7 +271,9 @@ def ms_point_ultimate(ultimate_gain: float, ultimate_period_s: float, ms_max: fl
     (moving one point of the Nyquist curve, as the modified Ziegler-Nichols
     method does; Astrom and Hagglund, PID Controllers, 1995, from memory).
     With ``r = 1 / (omega_u Ti)`` and ``x = kp / Ku``,
-    ``(1 + r^2) x^2 - 2 x + 1 - 1 / Ms^2 = 0``, smaller root. One point only:
+    ``(1 + r^2) x^2 - 2 x + 1 - 1 / Ms^2 = 0``, smaller root (for a bound
+    so loose that the ray never comes within ``1 / Ms`` of -1, Ms above
+    ``sqrt(1 + r^2) / r``, about 5.3, the point closest to -1). One point only:
     the bound holds at the ultimate frequency, not necessarily elsewhere;
     verify on a model.
 
@@ -293,7 +297,8 @@ def ms_point_ultimate(ultimate_gain: float, ultimate_period_s: float, ms_max: fl
     ti = ultimate_period_s / 1.2
     r = ultimate_period_s / (2.0 * math.pi * ti)
     q = 1.0 + r * r
-    x = (1.0 - math.sqrt(1.0 - q * (1.0 - 1.0 / ms_max ** 2))) / q
+    # Below zero the ray never comes within 1 / Ms of -1 (Ms above sqrt(q) / r, about 5.3): the closest point, x = 1 / q.
+    x = (1.0 - math.sqrt(max(1.0 - q * (1.0 - 1.0 / ms_max ** 2), 0.0))) / q
     kp = x * ultimate_gain
     return PidGains(kp, kp / ti)
 
@@ -341,42 +346,94 @@ def fopdt_from_ultimate(static_gain: float, ultimate_gain: float, ultimate_perio
 
 
 # ---------------------------------------------------------------- robust optimiser
-def _feasible_batch(p_resp, w, T, kp, ki, kd, n, ms_max):
-    """Whether each controller (arrays kp, ki, kd of one shape) keeps Ms <= ms_max on grid ``w``.
+class _LoopParts(NamedTuple):
+    """``1 + L = fixed + ki * per_ki`` for a batch of controllers, as real and imaginary parts."""
 
-    ``p_resp`` has shape ``(plants, len(w))``: a controller must meet the
-    bound on every plant. The Ms bound alone admits some unstable loops (a
-    Nyquist curve can pass far outside -1 on the wrong side), so a controller
-    is also rejected when its loop crosses the negative real axis left of -1
-    (the grid must end at the Nyquist frequency).
+    fixed_re: np.ndarray
+    fixed_im: np.ndarray
+    per_ki_re: np.ndarray
+    per_ki_im: np.ndarray
+
+
+def _loop_parts(p_resp, w, T, kp, kd, n) -> _LoopParts:
+    """``1 + L`` of controllers (arrays kp, kd of one shape) split as ``fixed + ki * per_ki``.
+
+    ``p_resp`` has shape ``(plants, len(w))``. The integral term of the
+    discrete PID is ``ki T q / (1 - q)`` (``q = exp(-j omega T)``), linear in
+    ki, so a bisection on ki reuses ``fixed`` (one plus the proportional and
+    derivative terms times the plant, shape ``kp.shape + p_resp.shape``) and
+    ``per_ki`` (shape ``p_resp.shape``).
     """
-    gains = PidGains(kp, ki, kd, n)
-    loop = controller_frequency_response(gains, T, w)[..., None, :] * p_resp
-    ms_ok = np.min(np.abs(1.0 + loop), axis=-1) >= 1.0 / ms_max
-    im, re = loop.imag, loop.real
-    cross = (im[..., :-1] * im[..., 1:] <= 0) & (im[..., :-1] != im[..., 1:])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        frac = np.where(cross, im[..., :-1] / (im[..., :-1] - im[..., 1:]), 0.0)
-    re_cross = re[..., :-1] + frac * (re[..., 1:] - re[..., :-1])
-    outside = np.any(cross & (re_cross < -1.0), axis=-1)
+    gains = PidGains(kp, np.zeros_like(kp), kd, n)
+    fixed = 1.0 + controller_frequency_response(gains, T, w)[..., None, :] * p_resp
+    q = np.exp(-1j * np.asarray(w, dtype=float) * T)
+    per_ki = (T * q / (1.0 - q)) * p_resp
+    return _LoopParts(np.ascontiguousarray(fixed.real), np.ascontiguousarray(fixed.imag),
+                      np.ascontiguousarray(per_ki.real), np.ascontiguousarray(per_ki.imag))
+
+
+def _feasible_batch(parts: _LoopParts, ki, ms_max):
+    """Whether each controller keeps Ms <= ms_max on every plant (see :func:`_loop_parts`).
+
+    ``ki`` has the controllers' shape. The Ms bound alone admits some
+    unstable loops (a Nyquist curve can pass far outside -1 on the wrong
+    side), so a controller is also rejected when its loop crosses the
+    negative real axis left of -1 (the grid must end at the Nyquist
+    frequency).
+
+    With ``a = 1 + L`` the bound is ``min |a|^2 >= 1 / Ms^2``. Between two
+    grid points where ``Im a`` changes sign the chord meets the real axis at
+    ``Re a = (Im a0 Re a1 - Im a1 Re a0) / (Im a0 - Im a1)``, left of -1 on
+    the ``L`` plane when that is negative: the sign of the product of
+    numerator and denominator decides, without a division.
+    """
+    k = np.asarray(ki, dtype=float)[..., None, None]
+    re = parts.per_ki_re * k
+    re += parts.fixed_re
+    im = parts.per_ki_im * k
+    im += parts.fixed_im
+    dist2 = re * re
+    dist2 += im * im
+    ms_ok = np.min(dist2, axis=-1) >= 1.0 / (ms_max * ms_max)
+    im0, im1, re0, re1 = im[..., :-1], im[..., 1:], re[..., :-1], re[..., 1:]
+    cross = im0 * im1 <= 0
+    side = im0 * re1
+    side -= im1 * re0
+    side *= im0 - im1
+    cross &= side < 0
+    outside = np.any(cross, axis=-1)
     # The Nyquist curve of a sampled loop meets the real axis again at the Nyquist frequency (the last point).
-    outside |= re[..., -1] < -1.0
+    outside |= re[..., -1] < 0.0
     return np.all(ms_ok & ~outside, axis=-1)
 
 
+#: Bisection steps on ln(ki) over a span of 30: the largest ki is found to within 30 / 2**17, 0.023 %.
+_BISECTION_STEPS = 17
+
+
 def _max_ki(p_resp, w, T, kp, kd, n, sign, ms_max, ki_hi):
-    """Largest |ki| (bisection in log space, vectorised) with Ms <= ms_max for each (kp, kd); 0 if none."""
+    """Largest |ki| (bisection in log space, vectorised) with Ms <= ms_max for each (kp, kd); 0 if none.
+
+    Controllers that miss the bound even at the smallest ki searched get 0 at
+    once; only the others are bisected (on a PID grid most are out).
+    """
     kp = np.asarray(kp, float)
     kd = np.asarray(kd, float)
-    lo = np.full(kp.shape, math.log(ki_hi) - 30.0)
-    hi = np.full(kp.shape, math.log(ki_hi))
-    ok_lo = _feasible_batch(p_resp, w, T, kp, sign * np.exp(lo), kd, n, ms_max)
-    for _ in range(26):
+    shape = kp.shape
+    parts = _loop_parts(p_resp, w, T, kp.ravel(), kd.ravel(), n)
+    top = math.log(ki_hi)
+    live = np.flatnonzero(_feasible_batch(parts, np.full(kp.size, sign * math.exp(top - 30.0)), ms_max))
+    parts = parts._replace(fixed_re=parts.fixed_re[live], fixed_im=parts.fixed_im[live])
+    lo = np.full(live.size, top - 30.0)
+    hi = np.full(live.size, top)
+    for _ in range(_BISECTION_STEPS):
         mid = 0.5 * (lo + hi)
-        ok = _feasible_batch(p_resp, w, T, kp, sign * np.exp(mid), kd, n, ms_max)
+        ok = _feasible_batch(parts, sign * np.exp(mid), ms_max)
         lo = np.where(ok, mid, lo)
         hi = np.where(ok, hi, mid)
-    return np.where(ok_lo, np.exp(lo), 0.0)
+    best = np.zeros(kp.size)
+    best[live] = np.exp(lo)
+    return best.reshape(shape)
 
 
 def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, *, pid: bool = False,
@@ -510,6 +567,24 @@ def tune(plant: Plant, method: str, sample_time_s: float, *, pid: bool = False, 
     Returns
     -------
     TuningResult
+
+    Examples
+    --------
+    SIMC on an FOPDT with ``K = 2``, ``tau = 30 s``, ``theta = 5 s`` and
+    ``tau_c = theta``: ``Kc = tau / (K 2 theta) = 1.5`` and
+    ``Ti = min(tau, 8 theta) = 30 s`` (Skogestad 2003), so ``ki = Kc / Ti``:
+
+    >>> from compensator.loops.plants import FopdtModel, model_plant
+    >>> model = FopdtModel(2.0, 30.0, 5.0)
+    >>> result = tune(model_plant(model), "simc", 0.1, model=model, include_sampling_delay=False)
+    >>> result.gains.kp, result.gains.ki_per_s
+    (1.5, 0.05)
+
+    Sampled at 10 Hz the rule sees 1.5 samples more dead time:
+
+    >>> result = tune(model_plant(model), "simc", 0.1, model=model)
+    >>> result.rule_dead_time_s, round(result.gains.kp, 4)
+    (5.15, 1.4563)
     """
     if method not in METHODS:
         raise ModelError(f"method must be one of {', '.join(METHODS)}, got {method!r}")
@@ -518,27 +593,28 @@ def tune(plant: Plant, method: str, sample_time_s: float, *, pid: bool = False, 
     T = float(sample_time_s)
     if not T > 0:
         raise ModelError("the sample time must be positive")
-    extra = sampling_dead_time_s(T, computation_delay_samples) if include_sampling_delay else 0.0
-    if method == "robust":
-        gains = robust(plant, T, ms_max, pid=pid, computation_delay_samples=computation_delay_samples,
-                       also_plants=also_plants)
-        return TuningResult(gains, method, pid, model, extra, ms_target=ms_max)
-    if method == "zn-cycle":
-        ku, pu = ultimate_point(plant, T if include_sampling_delay else None, computation_delay_samples)
-        return TuningResult(ziegler_nichols_ultimate(ku, pu, pid=pid), method, pid, model, extra,
-                            ultimate_gain=ku, ultimate_period_s=pu)
-    if model is None:
-        from compensator.loops.identify import approximate_plant
+    with one_blas_thread():  # small dense problems: see compensator.loops._blas
+        extra = sampling_dead_time_s(T, computation_delay_samples) if include_sampling_delay else 0.0
+        if method == "robust":
+            gains = robust(plant, T, ms_max, pid=pid, computation_delay_samples=computation_delay_samples,
+                           also_plants=also_plants)
+            return TuningResult(gains, method, pid, model, extra, ms_target=ms_max)
+        if method == "zn-cycle":
+            ku, pu = ultimate_point(plant, T if include_sampling_delay else None, computation_delay_samples)
+            return TuningResult(ziegler_nichols_ultimate(ku, pu, pid=pid), method, pid, model, extra,
+                                ultimate_gain=ku, ultimate_period_s=pu)
+        if model is None:
+            from compensator.loops.identify import approximate_plant
 
-        model = approximate_plant(plant, "sopdt" if (pid and method == "simc") else "fopdt")
-    rule_model = _with_dead_time(model, extra)
-    tc = None
-    if method == "simc":
-        gains, tc = simc(rule_model, pid=pid, tau_c_s=tau_c_s)
-    elif method == "amigo":
-        gains = amigo(rule_model, pid=pid)
-    elif method == "imc":
-        gains, tc = imc(rule_model, pid=pid, lambda_s=tau_c_s)
-    else:
-        gains = ziegler_nichols_step(rule_model, pid=pid)
-    return TuningResult(gains, method, pid, model, rule_model.dead_time_s, tc)
+            model = approximate_plant(plant, "sopdt" if (pid and method == "simc") else "fopdt")
+        rule_model = _with_dead_time(model, extra)
+        tc = None
+        if method == "simc":
+            gains, tc = simc(rule_model, pid=pid, tau_c_s=tau_c_s)
+        elif method == "amigo":
+            gains = amigo(rule_model, pid=pid)
+        elif method == "imc":
+            gains, tc = imc(rule_model, pid=pid, lambda_s=tau_c_s)
+        else:
+            gains = ziegler_nichols_step(rule_model, pid=pid)
+        return TuningResult(gains, method, pid, model, rule_model.dead_time_s, tc)

@@ -29,6 +29,7 @@ import numpy as np
 
 from compensator.errors import ModelError
 from compensator.findings import Finding, Severity
+from compensator.loops._blas import one_blas_thread
 from compensator.loops.plants import Plant
 from compensator.loops.sampled import (
     analysis_plant,
@@ -541,6 +542,33 @@ def _finite_or(value, default):
 _GM_FLOOR = 0.01
 
 
+def _margin_search_span(loop) -> slice:
+    """The stretch of the grid python-control searches for the margins.
+
+    It holds every gain crossover (``|L|`` passes through 1 between two grid
+    points) and every phase crossover that could set the gain margin:
+    python-control reports the one whose ``|log |L||`` is least, so crossovers
+    (located on the grid: ``Im L`` changes sign with ``Re L < 0``) farther
+    than a factor of 2 from that one, and those with ``|L|`` below
+    :data:`_GM_FLOOR`, are left out, and so is the grid below and above them.
+    A long dead time wraps the phase hundreds of times beyond the crossover;
+    each wrap costs python-control a root search and a minimisation.
+    """
+    mag = np.abs(loop)
+    above = mag >= 1.0
+    ends = list(np.flatnonzero(above[:-1] != above[1:]))
+    im = loop.imag
+    at = np.flatnonzero((im[:-1] * im[1:] <= 0) & (loop.real[:-1] < 0))
+    gain = np.maximum(mag[at], mag[at + 1])
+    at, gain = at[gain >= _GM_FLOOR], gain[gain >= _GM_FLOOR]
+    if at.size:
+        distance = np.abs(np.log(gain))
+        ends += list(at[distance <= np.min(distance) + math.log(2.0)])
+    if not ends:
+        return slice(0, 0)
+    return slice(max(int(min(ends)) - 4, 0), min(int(max(ends)) + 5, loop.size))
+
+
 def _margins(plant, gains, T, delay):
     w = loop_frequency_grid(plant, T, 6000, 7.0)
     loop = controller_frequency_response(gains, T, w) * discrete_frequency_response(plant, T, w, delay)
@@ -548,17 +576,14 @@ def _margins(plant, gains, T, delay):
     k = int(np.argmin(dist))
     ms, w_ms = float(1.0 / dist[k]), float(w[k])
     # python-control computes the margins from our exact frequency response of the sampled loop (its
-    # polynomial method loses accuracy on high-order or stiff sampled loops).
-    # Beyond the last frequency where |L| >= 0.01 a phase crossover would mean a gain margin above 100; a long
-    # dead time wraps the phase there thousands of times, so those frequencies are left out (such margins are
-    # reported as inf).
-    big = np.flatnonzero(np.abs(loop) >= _GM_FLOOR)
-    stop = min(int(big[-1]) + 4, loop.size) if big.size else 0
-    coarse = slice(None, stop, 3)
+    # polynomial method loses accuracy on high-order or stiff sampled loops), over the stretch of the grid
+    # that can hold them (gain margins above 100 are reported as inf).
+    span = _margin_search_span(loop)
+    coarse = slice(span.start, span.stop, 3)
     phase_deg = np.degrees(np.unwrap(np.angle(loop[coarse])))
     with warnings_module.catch_warnings():
         warnings_module.simplefilter("ignore")
-        if stop > 6:
+        if span.stop - span.start > 6:
             gm, pm, _sm, wpc, wgc, _wms = control.stability_margins((np.abs(loop[coarse]), phase_deg, w[coarse]))
         else:
             gm = pm = wpc = wgc = None
@@ -585,10 +610,11 @@ def loop_figures(plant: Plant, gains: PidGains, sample_time_s: float, *,
     LoopFigures
     """
     T = float(sample_time_s)
-    a_cl, *_, ta = _bounded_closed_loop(plant, gains, T, computation_delay_samples)
-    radius = float(np.max(np.abs(np.linalg.eigvals(a_cl))))
-    return LoopFigures(stable=radius < 1.0, spectral_radius=radius,
-                       margins=_margins(plant, gains, T, computation_delay_samples), analysis_period_s=ta)
+    with one_blas_thread():  # small dense problems: see compensator.loops._blas
+        a_cl, *_, ta = _bounded_closed_loop(plant, gains, T, computation_delay_samples)
+        radius = float(np.max(np.abs(np.linalg.eigvals(a_cl))))
+        margins = _margins(plant, gains, T, computation_delay_samples)
+    return LoopFigures(stable=radius < 1.0, spectral_radius=radius, margins=margins, analysis_period_s=ta)
 
 
 def _simulate(a, b, c, d, n):
@@ -639,24 +665,24 @@ def verify_loop(plant: Plant, gains: PidGains, sample_time_s: float, *, computat
             raise ModelError(f"must be finite, got {getattr(gains, key)!r}", key=key)
     if computation_delay_samples < 1 and np.any(np.asarray(plant.system.D) != 0):
         raise ModelError("a plant with direct feedthrough needs at least one sample of computation delay")
+    with one_blas_thread():  # small dense problems: see compensator.loops._blas
+        a_cl, b_cl, c_cl, d_cl, ta = _bounded_closed_loop(plant, gains, T, computation_delay_samples)
+        poles = np.linalg.eigvals(a_cl)
+        margins = _margins(plant, gains, T, computation_delay_samples)
+        radius = float(np.max(np.abs(poles)))
+        stable = radius < 1.0
+        n = int(round(horizon_s / ta)) + 1 if horizon_s else _settle_horizon(poles, ta)
+        if not stable:
+            n = min(n, 400)
+        resp = _simulate(a_cl, b_cl, c_cl, d_cl, n)  # (time, [output, actuator], [setpoint, load])
     findings = []
-    a_cl, b_cl, c_cl, d_cl, ta = _bounded_closed_loop(plant, gains, T, computation_delay_samples)
     if ta != T:
         findings.append(Finding(code="delay_approximated", severity=Severity.INFO, message=(
             f"the dead time of {plant.dead_time_s:g} s is {plant.dead_time_s / T:.0f} samples at {1 / T:g} Hz: the "
             f"closed-loop poles and step response are computed at a {ta:g} s analysis period (dead time shortened to "
             f"keep the loop's phase; about 0.15 degree at crossover); margins and Ms are exact at the firmware rate")))
-    poles = np.linalg.eigvals(a_cl)
-    radius = float(np.max(np.abs(poles)))
-    stable = radius < 1.0
-    margins = _margins(plant, gains, T, computation_delay_samples)
     gm, pm, ms = margins.gain_margin, margins.phase_margin_deg, margins.ms
-
-    n = int(round(horizon_s / ta)) + 1 if horizon_s else _settle_horizon(poles, ta)
-    if not stable:
-        n = min(n, 400)
     t = np.arange(n) * ta
-    resp = _simulate(a_cl, b_cl, c_cl, d_cl, n)  # (time, [output, actuator], [setpoint, load])
     y, u, y_load = resp[:, 0, 0], resp[:, 1, 0], resp[:, 0, 1]
     nan = float("nan")
     if stable:
