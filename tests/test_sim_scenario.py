@@ -88,7 +88,8 @@ def test_scenario_errors_name_file_line_key_and_reason(tmp_path, profiles_dir, c
     ("time_s,temp_c\n0,1\n60,2\n9000,3\n", 4, "gap of 8940 s"),
     ("time_s,temp_c\n0,1\n60,\n", 3, "empty cell"),
     ("time_s,temp_c\n0,1\n60,nan\n", 3, "not a finite number"),
-    ("time,temp\n0,1\n", 1, "missing column"),
+    ("time,temp\n0,1\n", 1, "no unit"),
+    ("when_s,temp_c\n0,1\n", 1, "missing column"),
 ])
 def test_ambient_recording_errors_are_located_in_the_recording(tmp_path, profiles_dir, body, line, reason):
     csv = tmp_path / "rec.csv"
