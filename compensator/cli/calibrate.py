@@ -23,6 +23,9 @@ from compensator.cli._common import (
     usage_error,
 )
 
+__all__ = ["CAUTION", "COMMAND", "EXIT_NONE_ANALYSED", "HELP", "ORDER", "PLAUSIBLE_BREAKDOWN_V", "register",
+           "run_gain_scan", "run_iv", "run_spectrum", "run_tempco"]
+
 ORDER = 30
 COMMAND = "calibrate"
 HELP = "breakdown, gain and temperature coefficients from bench measurements"
