@@ -21,7 +21,8 @@ _EXPORTS = {
     "table_files": ("TableFiles", "prepare_table_files"),
     "integer_path": ("IntegerPathGainError", "integer_path_gain_error"),
     "pid": ("PidSettings", "DiscretePid", "discretise_pid", "FloatPid", "PidRun", "ANTI_WINDUP_MODES"),
-    "pid_fixed": ("FixedPidCoefficients", "FixedPidState", "FixedPid", "quantise_pid", "agreement_bound_count"),
+    "pid_coefficients": ("FixedPidCoefficients", "quantise_pid"),
+    "pid_fixed": ("FixedPidState", "FixedPid", "agreement_bound_count"),
     "pid_c": ("render_pid_c",),
     "fixed_point": ("floor_shift", "rshift_round", "saturate"),
 }

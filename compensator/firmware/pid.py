@@ -597,11 +597,18 @@ class FloatPid:
         return _run_steps(self, r, y, m, mo, float)
 
 
-# The fixed-point half lives in its own module; its names stay importable from here.
-from compensator.firmware.pid_fixed import (  # noqa: E402
-    FixedPid,
-    FixedPidCoefficients,
-    FixedPidState,
-    agreement_bound_count,
-    quantise_pid,
-)
+# The fixed-point half lives in its own modules (which import this one); its names stay importable from here,
+# loaded on first use so that any of the three modules can be imported first.
+_FIXED_HOME = {"FixedPidCoefficients": "pid_coefficients", "quantise_pid": "pid_coefficients",
+               "FixedPidState": "pid_fixed", "FixedPid": "pid_fixed", "agreement_bound_count": "pid_fixed"}
+
+
+def __getattr__(name: str):
+    home = _FIXED_HOME.get(name)
+    if home is None:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(f"compensator.firmware.{home}"), name)
+    globals()[name] = value
+    return value
