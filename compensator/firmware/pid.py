@@ -89,6 +89,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from compensator._lazy import lazy_exports
 from compensator.errors import ModelError
 from compensator.firmware.fixed_point import INT32_MAX, INT32_MIN, rshift_round  # noqa: F401 (old import path)
 
@@ -599,16 +600,10 @@ class FloatPid:
 
 # The fixed-point half lives in its own modules (which import this one); its names stay importable from here,
 # loaded on first use so that any of the three modules can be imported first.
-_FIXED_HOME = {"FixedPidCoefficients": "pid_coefficients", "quantise_pid": "pid_coefficients",
-               "FixedPidState": "pid_fixed", "FixedPid": "pid_fixed", "agreement_bound_count": "pid_fixed"}
-
-
-def __getattr__(name: str):
-    home = _FIXED_HOME.get(name)
-    if home is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    import importlib
-
-    value = getattr(importlib.import_module(f"compensator.firmware.{home}"), name)
-    globals()[name] = value
-    return value
+__getattr__ = lazy_exports(globals(), {
+    "FixedPidCoefficients": "compensator.firmware.pid_coefficients",
+    "quantise_pid": "compensator.firmware.pid_coefficients",
+    "FixedPidState": "compensator.firmware.pid_fixed",
+    "FixedPid": "compensator.firmware.pid_fixed",
+    "agreement_bound_count": "compensator.firmware.pid_fixed",
+})

@@ -10,7 +10,7 @@ build its help) does not load python-control and scipy.
 
 from __future__ import annotations
 
-import importlib
+from compensator._lazy import lazy_exports
 
 #: Public name -> the module that defines it.
 _HOME = {
@@ -35,13 +35,7 @@ _HOME = {
 __all__ = sorted(_HOME)
 
 
-def __getattr__(name):
-    home = _HOME.get(name)
-    if home is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    value = getattr(importlib.import_module(f"{__name__}.{home}"), name)
-    globals()[name] = value
-    return value
+__getattr__ = lazy_exports(globals(), {name: f"{__name__}.{home}" for name, home in _HOME.items()})
 
 
 def __dir__():
