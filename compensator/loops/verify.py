@@ -25,6 +25,7 @@ from dataclasses import dataclass, field
 import control
 import numpy as np
 
+from compensator._lazy import lazy_exports
 from compensator.errors import ModelError
 from compensator.findings import Finding, Severity
 from compensator.loops._blas import one_blas_thread
@@ -464,11 +465,7 @@ def cooler_operating_warnings(params, point) -> list[str]:
     return [f.message for f in cooler_safety_findings(params, point)]
 
 
-def __getattr__(name):
-    # AmbientCheck and check_cooler_ambient_range moved to compensator.loops.cooler (imported lazily: cooler
-    # uses this module).
-    if name in ("AmbientCheck", "check_cooler_ambient_range"):
-        from compensator.loops import cooler
-
-        return getattr(cooler, name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+# AmbientCheck and check_cooler_ambient_range moved to compensator.loops.cooler (imported lazily: cooler uses
+# this module).
+__getattr__ = lazy_exports(globals(), dict.fromkeys(("AmbientCheck", "check_cooler_ambient_range"),
+                                                    "compensator.loops.cooler"))
