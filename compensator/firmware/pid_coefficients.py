@@ -251,10 +251,17 @@ def quantise_pid(settings: PidSettings, *, input_per_count: float, output_per_co
 
     Examples
     --------
+    kp = 0.5 output count per input count is 0.5 x 2^15 = 16384 in the Q.15
+    state, with no shift; ki T = 0.05 /s x 0.1 s = 0.005 per step is
+    0.005 x 2^(7 + 15) = 20971.52, rounded to the mantissa 20972 with a shift
+    of 7 (0.0023 % high).
+
     >>> s = PidSettings(kp=0.5, ki_per_s=0.05, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=4095.0)
     >>> c = quantise_pid(s, input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=4096)
     >>> c.word_bits, c.state_frac_bits, c.kp_mant, c.p_shift
     (32, 15, 16384, 0)
+    >>> c.ki_mant, c.ki_shift
+    (20972, 7)
     """
     if word_bits not in WORD_BITS:
         raise ModelError(f"word_bits: must be 64 or 32, got {word_bits!r}", key="word_bits")
