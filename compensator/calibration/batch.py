@@ -23,6 +23,9 @@ from compensator.calibration.iv import DEFAULT_METHOD, DEFINITIONS, find_breakdo
 from compensator.calibration.measurements import read_iv, read_spectrum
 from compensator.errors import CompensatorError, InputError, Problem
 
+__all__ = ["Progress", "IvRecord", "SpectrumRecord", "analyse_iv_files", "analyse_spectrum_files",
+    "channel_from_name", "default_jobs"]
+
 
 class Progress:
     """A small text progress bar on stderr (shown only on a terminal unless ``enabled``).

@@ -13,11 +13,18 @@ from compensator.cli._common import (
     EXIT_OK,
     add_json_flag,
     caution,
+    finite_float,
     format_table,
+    non_negative_int,
+    positive_float,
     print_json,
+    significance_level,
     temperature_c,
     usage_error,
 )
+
+__all__ = ["CAUTION", "COMMAND", "EXIT_NONE_ANALYSED", "HELP", "ORDER", "PLAUSIBLE_BREAKDOWN_V", "register",
+           "run_gain_scan", "run_iv", "run_spectrum", "run_tempco"]
 
 ORDER = 30
 COMMAND = "calibrate"
@@ -65,7 +72,7 @@ def register(subparsers) -> None:
     sp.add_argument("--amplitudes", choices=AMPLITUDE_MODELS, default="gpoisson",
                     help="peak amplitudes: generalised Poisson with crosstalk (default), free, or borel for "
                          "self-triggered dark-count spectra without a pedestal")
-    sp.add_argument("--fit-range", type=float, nargs=2, metavar=("LO", "HI"),
+    sp.add_argument("--fit-range", type=finite_float, nargs=2, metavar=("LO", "HI"),
                     help="fit only charges in [LO, HI] (in the file's charge unit), e.g. to leave out an overflow bin")
     _batch_flags(sp)
     sp.set_defaults(handler=run_spectrum)
@@ -76,13 +83,13 @@ def register(subparsers) -> None:
                                     "spectra with --spectra and one --bias-v per file, or a --manifest.")
     gs.add_argument("files", nargs="*", metavar="FILE", help="gain tables, or spectra with --spectra")
     gs.add_argument("--spectra", action="store_true", help="FILEs are charge spectra taken at the biases given by --bias-v")
-    gs.add_argument("--bias-v", type=float, nargs="+", metavar="V", help="bias of each spectrum, volt (with --spectra)")
+    gs.add_argument("--bias-v", type=positive_float, nargs="+", metavar="V", help="bias of each spectrum, volt (with --spectra)")
     gs.add_argument("--manifest", metavar="FILE", help="CSV file,bias_v[,temp_c] listing spectra (one scan per temperature)")
-    gs.add_argument("--charge-per-unit-c", type=float, metavar="C",
+    gs.add_argument("--charge-per-unit-c", type=positive_float, metavar="C",
                     help="coulomb per charge unit of the spectra (e.g. 1e-12 for pC), for the capacitance")
-    gs.add_argument("--temp-c", type=float, metavar="T", help="temperature of scans without one, degree Celsius")
+    gs.add_argument("--temp-c", type=temperature_c, metavar="T", help="temperature of scans without one, degree Celsius")
     add_json_flag(gs)
-    gs.add_argument("--jobs", type=int, default=1, metavar="N", help="worker processes for spectrum fits (default 1)")
+    gs.add_argument("--jobs", type=non_negative_int, default=1, metavar="N", help="worker processes for spectrum fits (default 1)")
     gs.add_argument("--plot", metavar="DIR", help="write spectrum plots into DIR")
     gs.add_argument("--force", action="store_true", help="replace existing plots in DIR")
     gs.set_defaults(handler=run_gain_scan)
@@ -93,11 +100,11 @@ def register(subparsers) -> None:
                                     "'calibrate gain-scan'.",
                         epilog=CAUTION)
     tc.add_argument("file", metavar="FILE", help="breakdown scan (CSV or calibrate JSON)")
-    tc.add_argument("--ref-temp-c", type=float, metavar="T",
+    tc.add_argument("--ref-temp-c", type=temperature_c, metavar="T",
                     help="reference temperature, degree Celsius (default: the base profile's, else 25)")
-    tc.add_argument("--overvoltage-v", type=float, default=3.0, metavar="V",
+    tc.add_argument("--overvoltage-v", type=positive_float, default=3.0, metavar="V",
                     help="overvoltage that sets the gain held for the constant-gain bias slope (default 3)")
-    tc.add_argument("--alpha", type=float, default=0.05, metavar="P",
+    tc.add_argument("--alpha", type=significance_level, default=0.05, metavar="P",
                     help="significance level for keeping the quadratic term (default 0.05)")
     tc.add_argument("--write-profile", metavar="NEW.yaml", help="write a calibrated sipm profile (needs --base)")
     tc.add_argument("--base", metavar="BASE.yaml", help="sipm profile whose other sections the new profile keeps")
@@ -120,7 +127,7 @@ def _batch_flags(parser) -> None:
     add_json_flag(parser)
     parser.add_argument("--plot", metavar="DIR", help="write one plot per file into DIR (created if missing)")
     parser.add_argument("--force", action="store_true", help="replace existing plots in DIR")
-    parser.add_argument("--jobs", type=int, default=1, metavar="N",
+    parser.add_argument("--jobs", type=non_negative_int, default=1, metavar="N",
                         help="worker processes (default 1; 0 = one per CPU)")
     parser.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
                         help="progress bar on stderr (default: on a terminal, for more than one file)")
