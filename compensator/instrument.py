@@ -379,8 +379,8 @@ def characterise_breakdown(sipm_profile, *, seed: int, temps_c=(-20.0, -10.0, 0.
         tempco_err_mv_per_k=fit.tempco_err_mv_per_k, true_tempco_mv_per_k=truth.tempco_mv_per_k, seed=seed)
 
 
-def _gain_errors_pct(law, sipm_profile, board_profile, table, temps_c, adc_code):
-    """Gain error (percent, against 25 C) at fixed bias, with the law and through the table, per point."""
+def _gain_errors_pct(law, sipm_profile, board_profile, temps_c):
+    """Gain error (percent, against 25 C) at fixed bias and with the law, per temperature."""
     from compensator.physics.sipm import evaluate, gain
     from compensator.physics.supply import sipm_bias_v
 
@@ -390,16 +390,12 @@ def _gain_errors_pct(law, sipm_profile, board_profile, table, temps_c, adc_code)
     fixed = evaluate(device, temps_c, bias_v=fixed_bias_v)
     supply_v = law.output_v(temps_c)
     at_sensor_v = sipm_bias_v(supply, device, supply_v, temps_c)
-    dac_code, _ = table.lookup(adc_code)
-    firmware_v = sipm_bias_v(supply, device, supply.output_v(dac_code), temps_c)
     return dict(
         fixed_bias_v=fixed_bias_v,
         fixed=100.0 * (fixed.gain / nominal - 1.0),
         supply_v=supply_v,
         at_sensor_v=at_sensor_v,
         law=100.0 * (gain(device, at_sensor_v, temps_c) / nominal - 1.0),
-        dac_code=dac_code,
-        firmware=100.0 * (gain(device, firmware_v, temps_c) / nominal - 1.0),
     )
 
 
@@ -408,10 +404,11 @@ def gain_drift(law, sipm_profile, board_profile, table, *, temps_c) -> GainDrift
 
     The fixed bias is the one giving the law's overvoltage at 25 C. The
     law's supply output has the series-resistor drop added back as the law
-    says. The firmware path is the whole chain: temperature -> ADC code ->
-    lookup table -> DAC code -> supply output -> bias at the sensor after
-    the filter resistor. Gains are evaluated at the bias that really reaches
-    the sensor.
+    says. The firmware path is the whole chain
+    (:func:`compensator.firmware.integer_path.integer_path_gain_error`):
+    temperature -> ADC code -> lookup table -> DAC code -> supply output ->
+    bias at the sensor after the filter resistor. Gains are evaluated at the
+    bias that really reaches the sensor.
 
     Parameters
     ----------
@@ -431,19 +428,18 @@ def gain_drift(law, sipm_profile, board_profile, table, *, temps_c) -> GainDrift
     -------
     GainDrift
     """
+    from compensator.firmware.integer_path import integer_path_gain_error, integer_path_points
     from compensator.physics.sipm import evaluate
 
     device = sipm_profile.device
-    channel = board_profile.temperature
     temps_c = np.asarray(temps_c, dtype=float)
-    adc_code = channel.adc_code(temps_c)
-    rows = _gain_errors_pct(law, sipm_profile, board_profile, table, temps_c, adc_code)
-    # Every ADC code of the range, at both edges of its interval: the gain error is monotonic in temperature
-    # while the code (and so the DAC code) stays put, so its extremes within a code are at the edges.
-    code_lo, code_hi = channel.code_range(law.min_temp_c, law.max_temp_c)
-    codes = np.arange(code_lo, code_hi + 1, dtype=np.int64)
-    edge_temps_c = np.concatenate([channel.temp_at(codes.astype(float)), channel.temp_at(codes + 1.0)])
-    every = _gain_errors_pct(law, sipm_profile, board_profile, table, edge_temps_c, np.concatenate([codes, codes]))
+    adc_code = board_profile.temperature.adc_code(temps_c)
+    rows = _gain_errors_pct(law, sipm_profile, board_profile, temps_c)
+    firmware_rows = integer_path_points(table, law, board_profile, temps_c, adc_code, reference_temp_c=NOMINAL_TEMP_C)
+    # Every ADC code of the range, at both edges of its interval: there the firmware path's extremes sit (the DAC
+    # code stays put within a code), and the same temperatures span the range for the fixed bias and the law.
+    path = integer_path_gain_error(table, law, board_profile, within_code="edges", reference_temp_c=NOMINAL_TEMP_C)
+    every = _gain_errors_pct(law, sipm_profile, board_profile, path.temp_c)
 
     def ptp(x):
         return float(np.ptp(x))
@@ -455,13 +451,13 @@ def gain_drift(law, sipm_profile, board_profile, table, *, temps_c) -> GainDrift
         fixed_bias_v=rows["fixed_bias_v"], temp_c=temps_c, breakdown_v=device.breakdown.breakdown_v(temps_c),
         adc_code=adc_code, fixed_gain_error_pct=rows["fixed"], law_supply_v=rows["supply_v"],
         series_drop_mv=1e3 * (rows["supply_v"] - rows["at_sensor_v"]), law_gain_error_pct=rows["law"],
-        firmware_dac_code=rows["dac_code"], firmware_gain_error_pct=rows["firmware"],
+        firmware_dac_code=firmware_rows.dac_code, firmware_gain_error_pct=firmware_rows.gain_error_pct,
         dark_rate_hz=evaluate(device, temps_c, bias_v=rows["at_sensor_v"]).dark_rate_hz,
-        codes_evaluated=int(codes.size),
+        codes_evaluated=path.codes_evaluated,
         fixed_gain_error_ptp_pct=ptp(every["fixed"]), fixed_gain_error_max_abs_pct=max_abs(every["fixed"]),
         law_gain_error_ptp_pct=ptp(every["law"]), law_gain_error_max_abs_pct=max_abs(every["law"]),
-        firmware_gain_error_ptp_pct=ptp(every["firmware"]),
-        firmware_gain_error_max_abs_pct=max_abs(every["firmware"]))
+        firmware_gain_error_ptp_pct=path.peak_to_peak_gain_error_pct,
+        firmware_gain_error_max_abs_pct=path.max_abs_gain_error_pct)
 
 
 def _budget_summary(law, board_profile, *, samples: int) -> BudgetSummary:

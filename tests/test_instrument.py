@@ -52,3 +52,15 @@ def test_firmware_figure_includes_the_adc_quantisation(chain, sipm_a, board_ntc)
     drift = gain_drift(law, sipm_a, board_ntc, table, temps_c=[25.0])
     k_per_code = float(np.max(board_ntc.temperature.temp_per_code_k(np.array([-25.0, 45.0]))))
     assert 0.05 < drift.firmware_gain_error_max_abs_pct <= 0.05 + 100 * 21.5e-3 * k_per_code / 3.0 + 1e-6
+
+
+def test_the_firmware_figure_is_the_integer_path_at_the_edges_of_every_code(chain, sipm_a, board_ntc):
+    # One implementation of the figure: the demo's is the firmware module's, taken at both edges of every code.
+    from compensator.firmware.integer_path import integer_path_gain_error
+
+    law, table = chain
+    drift = gain_drift(law, sipm_a, board_ntc, table, temps_c=[-25.0, 25.0])
+    path = integer_path_gain_error(table, law, board_ntc, within_code="edges")
+    assert drift.firmware_gain_error_max_abs_pct == path.max_abs_gain_error_pct
+    assert drift.firmware_gain_error_ptp_pct == path.peak_to_peak_gain_error_pct
+    assert drift.codes_evaluated == path.codes_evaluated == 2393
