@@ -69,9 +69,14 @@ class Characterisation:
     ref_temp_c : float
         Reference temperature of the fit, degree Celsius.
     breakdown_v_at_ref, breakdown_err_v_at_ref, true_breakdown_v_at_ref : float
-        Breakdown at the reference temperature, its error and the truth, volt.
+        Breakdown at the reference temperature, its 1-sigma error and the truth, volt.
+    breakdown_stat_err_v_at_ref, breakdown_sys_err_v_at_ref : float
+        The two parts of ``breakdown_err_v_at_ref`` (added in quadrature), volt:
+        the fit's statistical error, and the breakdown method's systematic
+        error, common to every curve, which does not average down.
     tempco_mv_per_k, tempco_err_mv_per_k, true_tempco_mv_per_k : float
-        Temperature coefficient, its error and the truth, mV/K.
+        Temperature coefficient, its 1-sigma error (statistical: a part common
+        to every curve does not move the slope) and the truth, mV/K.
     seed : int
         Seed of the synthetic curves.
     """
@@ -85,6 +90,8 @@ class Characterisation:
     ref_temp_c: float
     breakdown_v_at_ref: float
     breakdown_err_v_at_ref: float
+    breakdown_stat_err_v_at_ref: float
+    breakdown_sys_err_v_at_ref: float
     true_breakdown_v_at_ref: float
     tempco_mv_per_k: float
     tempco_err_mv_per_k: float
@@ -375,6 +382,8 @@ def characterise_breakdown(sipm_profile, *, seed: int, temps_c=(-20.0, -10.0, 0.
         sipm=sipm_profile.name, curve_count=int(temps_c.size), temp_c=temps_c, breakdown_v=found.breakdown_v,
         breakdown_err_v=found.breakdown_err_v, true_breakdown_v=true_v, ref_temp_c=truth.ref_temp_c,
         breakdown_v_at_ref=fit.breakdown_v_at_ref, breakdown_err_v_at_ref=fit.breakdown_err_v,
+        breakdown_stat_err_v_at_ref=float(np.sqrt(max(fit.breakdown_err_v ** 2 - fit.breakdown_sys_err_v ** 2, 0.0))),
+        breakdown_sys_err_v_at_ref=fit.breakdown_sys_err_v,
         true_breakdown_v_at_ref=truth.breakdown_v_at_ref, tempco_mv_per_k=fit.tempco_mv_per_k,
         tempco_err_mv_per_k=fit.tempco_err_mv_per_k, true_tempco_mv_per_k=truth.tempco_mv_per_k, seed=seed)
 

@@ -35,7 +35,7 @@ from compensator.cli._common import (
 from compensator.errors import InputError, Problem
 from compensator.profiles import load_board, load_sipm, load_thermal
 
-__all__ = ["register", "run", "DEMO_INSTRUMENTS", "DEMO_COOLER", "DEMO_SEED", "SAFETY"]
+__all__ = ["register", "run", "characterisation_line", "DEMO_INSTRUMENTS", "DEMO_COOLER", "DEMO_SEED", "SAFETY"]
 
 ORDER = 1
 
@@ -105,10 +105,7 @@ def run(args) -> int:
     char = characterise_breakdown(loaded[0][0], seed=DEMO_SEED)
     say(f"== 1. characterise {char.sipm} from {char.curve_count} synthetic bench I-V curves (-20..40 C, seed "
         f"{char.seed})")
-    say(f"breakdown at {char.ref_temp_c:g} C: {char.breakdown_v_at_ref:.4f} +- {char.breakdown_err_v_at_ref:.4f} V "
-        f"(truth {char.true_breakdown_v_at_ref:g}); tempco {char.tempco_mv_per_k:.2f} +- "
-        f"{char.tempco_err_mv_per_k:.2f} mV/K (truth {char.true_tempco_mv_per_k:g}); one sigma, the breakdown's "
-        f"with the method's systematic part (common to all curves)")
+    say(characterisation_line(char))
 
     # 2. and 3. Each instrument: drift, law, firmware path, budget, table, light
     instruments, files = [], {}
@@ -168,6 +165,21 @@ def run(args) -> int:
         print_json({"scenario": "mountain-hut radiation monitors, enclosure -25 to +45 C", "characterisation": char,
                     "instruments": instruments, "loops": loops, "simulation": week})
     return EXIT_OK if all(lp.stable for lp in loops) else EXIT_FAILURE
+
+
+def characterisation_line(char) -> str:
+    """The characterisation's figures with their one-sigma errors, the breakdown's in its two parts.
+
+    Parameters
+    ----------
+    char : Characterisation
+        From :func:`compensator.instrument.characterise_breakdown`.
+    """
+    return (f"breakdown at {char.ref_temp_c:g} C: {char.breakdown_v_at_ref:.4f} +- {char.breakdown_err_v_at_ref:.4f} V "
+            f"(truth {char.true_breakdown_v_at_ref:g}; {char.breakdown_stat_err_v_at_ref:.4f} V statistical and "
+            f"{char.breakdown_sys_err_v_at_ref:.4f} V the method's systematic part, common to all curves, in "
+            f"quadrature); tempco {char.tempco_mv_per_k:.2f} +- {char.tempco_err_mv_per_k:.2f} mV/K (truth "
+            f"{char.true_tempco_mv_per_k:g}; statistical: the common part does not move the slope); one sigma")
 
 
 def _with_files(inst, paths):
