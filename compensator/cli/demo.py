@@ -60,6 +60,8 @@ SAFETY = (
 
 
 def register(subparsers) -> None:
+    from compensator.cli.simulate import simulated_days
+
     parser = subparsers.add_parser("demo", help="run the main job end to end on the bundled demo profiles")
     parser.add_argument("--profiles", default=None, metavar="DIR",
                         help="directory holding the demo profiles and scenario (default: the bundled ones)")
@@ -71,6 +73,9 @@ def register(subparsers) -> None:
                              "simulated week's figures and report (DIR/simulation/); every target is checked before "
                              "anything is written")
     parser.add_argument("--force", action="store_true", help="replace existing files under --out")
+    parser.add_argument("--days", type=simulated_days(), default=None, metavar="D",
+                        help="length of the simulated stretch of weather, days (default: the scenario's "
+                             "run.duration_days, a week)")
     add_json_flag(parser)
     parser.set_defaults(handler=run)
 
@@ -81,6 +86,24 @@ def _require(root: Path, name: str) -> Path:
         raise InputError(Problem(str(path), 0, "", "demo profile not found (run from the project's top folder "
                                                   "or pass --profiles DIR)"))
     return path
+
+
+def _refuse_existing(out: Path, root: Path, sipm_names, *, overwrite: bool) -> None:
+    """Refuse the run before its long work when a file it will write is in the way (checked again at writing)."""
+    from compensator.fileio import check_targets
+    from compensator.firmware.table_c import DEFAULT_FUNCTION_NAME
+    from compensator.profiles import load_scenario
+    from compensator.profiles.bundled import DEMO_SCENARIO
+    from compensator.sim.report import FIGURES
+
+    scenario = load_scenario(_require(root, DEMO_SCENARIO))
+    figures = FIGURES if scenario.section("monte_carlo")["units"] else FIGURES[:3]
+    targets = [out / name / f for name in sipm_names
+               for f in (f"{DEFAULT_FUNCTION_NAME}.h", f"{DEFAULT_FUNCTION_NAME}.c", "sweep.csv")]
+    targets += [out / "simulation" / f for f in (*figures, "report.html")]
+    problems = check_targets(targets, overwrite=overwrite)
+    if problems:
+        raise InputError(problems)
 
 
 def _pct(value: float, spec: str = ".3f") -> str:
@@ -99,6 +122,8 @@ def run(args) -> int:
     temps_c = np.arange(lo_c, hi_c + 1e-9, args.step_c)
     loaded = [(load_sipm(_require(root, s)), load_board(_require(root, b)), ov) for s, b, ov in DEMO_INSTRUMENTS]
     cooler = load_thermal(_require(root, DEMO_COOLER))
+    if args.out:
+        _refuse_existing(Path(args.out), root, [sipm.name for sipm, _, _ in loaded], overwrite=args.force)
     caution(SAFETY)
 
     # 1. Characterise
@@ -143,7 +168,7 @@ def run(args) -> int:
     from compensator.cli.simulate import simulated_week
 
     say("\n== 5. a simulated week in the hut's weather, firmware in the loop, strategies side by side")
-    week, week_files = simulated_week(root, Path(args.out) / "simulation" if args.out else None, say)
+    week, week_files = simulated_week(root, Path(args.out) / "simulation" if args.out else None, say, days=args.days)
     files.update(week_files)
 
     if files:
