@@ -227,7 +227,8 @@ def _print_instrument(say, inst, sipm_profile, range_c) -> None:
          "adc_code", "table_dac_code", "firmware_gain_%", "dark_khz"],
         [".1f", ".3f", "+.2f", ".4f", ".2f", "+.3f", "d", "d", "+.3f", ".1f"]))
     say(f"gain error against 25 C over every one of the {d.codes_evaluated} ADC codes of {lo_c:g}..{hi_c:g} C, "
-        f"at both edges of each code (whatever the rows printed): at fixed bias {d.fixed_bias_v:.3f} V {_pct(d.fixed_gain_error_ptp_pct, '.1f')} "
+        f"at both edges of each code (whatever the rows printed): at fixed bias {d.fixed_bias_v:.3f} V "
+        f"{_pct(d.fixed_gain_error_ptp_pct, '.1f')} "
         f"peak-to-peak; with the law {_pct(d.law_gain_error_ptp_pct)} peak-to-peak (largest absolute "
         f"{_pct(d.law_gain_error_max_abs_pct)}); through the firmware's integer path "
         f"{_pct(d.firmware_gain_error_ptp_pct)} peak-to-peak (largest absolute "

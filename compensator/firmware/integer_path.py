@@ -121,7 +121,8 @@ def integer_path_points(table, law, board, temp_c, adc_code, *, reference_temp_c
     bias = sipm_bias_v(supply, device, supply.output_v(dac), temps, photon_rate_hz)
     ref_bias = float(breakdown_v(device, reference_temp_c)) + law.overvoltage_v
     ref_gain = float(gain(device, ref_bias, reference_temp_c))
-    return PathPoints(dac_code=dac, sipm_bias_v=bias, gain_error_pct=100.0 * (gain(device, bias, temps) / ref_gain - 1.0))
+    err = 100.0 * (gain(device, bias, temps) / ref_gain - 1.0)
+    return PathPoints(dac_code=dac, sipm_bias_v=bias, gain_error_pct=err)
 
 
 def integer_path_gain_error(table, law, board, *, within_code: str = "centre", reference_temp_c: float = 25.0,
