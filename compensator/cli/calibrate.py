@@ -5,12 +5,14 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 
 from compensator.cli._common import (
     EXIT_NOTHING_ANALYSED,
     EXIT_OK,
+    EXIT_USAGE,
     add_json_flag,
     caution,
     format_table,
@@ -140,6 +142,14 @@ def _report_errors(records) -> None:
             print(f"compensator: {rec.error_line}", file=sys.stderr)
 
 
+def _exit_status(records) -> int:
+    """0 when anything was analysed; 2 when nothing was and a file failed on input; 3 when every input was valid."""
+    from compensator.calibration.batch import BatchStatus, batch_status
+
+    return {BatchStatus.ANALYSED: EXIT_OK, BatchStatus.BAD_INPUT: EXIT_USAGE,
+            BatchStatus.NOTHING_ANALYSED: EXIT_NOTHING_ANALYSED}[batch_status(records)]
+
+
 def _fmt(x, spec):
     return "-" if x is None or not np.isfinite(x) else format(x, spec)
 
@@ -202,7 +212,7 @@ def run_iv(args) -> int:
             ["", "", "", ".4f", ".1f", ".1f", "", "", ""]))
         print(f"{len(ok)} of {len(records)} curves analysed ({args.method}: breakdown definition "
               f"{DEFINITIONS[args.method]})")
-    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
+    return _exit_status(records)
 
 
 def run_spectrum(args) -> int:
@@ -228,7 +238,7 @@ def run_spectrum(args) -> int:
             ["", "", ".5g", ".2g", ".4g", ".4f", ".4f", ".4f", ""]))
         print(f"{len(ok)} of {len(records)} spectra fitted (xt_lambda: crosstalk branching ratio; xt_fraction: "
               "probability of at least one crosstalk avalanche, 1 - exp(-xt_lambda), the profile's crosstalk.probability)")
-    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
+    return _exit_status(records)
 
 
 def _plot_spectra(records, plot_dir):
@@ -249,36 +259,51 @@ def _scan_summary(file, fit, extra=None) -> dict:
     return out
 
 
+class _ScanOutcome(NamedTuple):
+    """Whether one gain scan was analysed, and if not, whether its input was at fault."""
+
+    ok: bool
+    failed_on_input: bool
+
+
 def run_gain_scan(args) -> int:
     from compensator.calibration.gainscan import fit_gain_scan
     from compensator.calibration.measurements import read_gain_scan
     from compensator.errors import CompensatorError, InputError
 
-    scans, errors = [], []
+    scans, outcomes, errors = [], [], []
     if args.manifest or args.spectra:
         if args.manifest and (args.files or args.spectra):
             raise InputError("--manifest: give either a manifest or spectrum files with --spectra, not both")
         groups = _spectrum_groups(args)
         for label, temp_c, entries in groups:
+            records = _fit_spectra(args, [f for f, _ in entries], errors)
             try:
-                scans.append(_scan_from_spectra(args, label, temp_c, entries, errors))
+                scans.append(_scan_from_spectra(args, temp_c, entries, records, label))
+                outcomes.append(_ScanOutcome(True, False))
             except CompensatorError as exc:
                 msg = str(exc).splitlines()[0]
                 errors.append(f"{label}: {msg}")
                 scans.append({"file": label, "ok": False, "reason": msg, "temp_c": temp_c})
+                # A scan is the user's mistake only when every one of its spectra failed on input.
+                outcomes.append(_ScanOutcome(False, all(r.failed_on_input for r in records)))
     else:
         if not args.files:
             raise InputError("gain-scan: give gain tables (FILE...), spectra with --spectra --bias-v, or --manifest")
         for path in args.files:
+            on_input = True
             try:
                 data = read_gain_scan(path, args.temp_c)
+                on_input = False
                 fit = fit_gain_scan(data.bias_v, data.gain, data.gain_err, temp_c=data.temp_c)
                 scans.append(_scan_summary(path, fit))
+                outcomes.append(_ScanOutcome(True, False))
             except CompensatorError as exc:
                 msg = str(exc).splitlines()[0]
                 line = msg if msg.startswith(str(path)) else f"{path}: {msg}"
                 errors.append(line)
                 scans.append({"file": path, "ok": False, "reason": line, "temp_c": None})
+                outcomes.append(_ScanOutcome(False, on_input))
     for line in errors:
         print(f"compensator: {line}", file=sys.stderr)
     ok = [s for s in scans if s["ok"]]
@@ -291,7 +316,7 @@ def run_gain_scan(args) -> int:
               f"{s['chi2']:.1f}/{s['ndf']}") for s in ok],
             ["file", "temp_c", "breakdown_v", "err_mv", "capacitance_ff", "err_ff", "chi2/ndf"],
             ["", "", ".4f", ".1f", "", "", ""]))
-    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
+    return _exit_status(outcomes)
 
 
 def _spectrum_groups(args):
@@ -316,17 +341,22 @@ def _spectrum_groups(args):
     return [(args.files[0], args.temp_c, list(zip(args.files, args.bias_v)))]
 
 
-def _scan_from_spectra(args, label, temp_c, entries, errors):
+def _fit_spectra(args, files, errors):
+    """Fit the spectra of one scan (their failures go to ``errors``; plots when asked)."""
     from compensator.calibration.batch import Progress, analyse_spectrum_files
-    from compensator.calibration.gainscan import gain_scan_from_fits
 
-    files = [f for f, _ in entries]
     with Progress(len(files), "spectra", enabled=None) as bar:
         records = analyse_spectrum_files(files, jobs=_jobs(args.jobs), progress=bar)
     errors.extend(rec.error_line for rec in records if not rec.ok)
     if args.plot:
         from compensator.calibration.plots import plot_dir
         _plot_spectra(records, plot_dir(args.plot))
+    return records
+
+
+def _scan_from_spectra(args, temp_c, entries, records, label):
+    from compensator.calibration.gainscan import gain_scan_from_fits
+
     units = {rec.charge_unit for rec in records if rec.ok}
     result = gain_scan_from_fits([b for _, b in entries], [rec.fit if rec.ok else None for rec in records],
                                  [rec.reason or "" for rec in records], temp_c=temp_c,
@@ -404,7 +434,9 @@ def run_tempco(args) -> int:
                                   definition=scan.definition, common_err_v=scan.breakdown_sys_err_v,
                                   definition_offset=offset)
     except ModelError as exc:
-        raise exc.at(args.file) from None
+        # The file was read: a fit it cannot carry is "nothing analysed" (3), as for the batch subcommands.
+        print(f"compensator: {exc.at(args.file)}", file=sys.stderr)
+        return EXIT_NOTHING_ANALYSED
     fit, cg, cap_at_ref = result.fit, result.constant_gain, result.capacitance_f_at_ref
     for finding in result.findings:
         print(f"compensator: warning: {args.file}: {finding.message}", file=sys.stderr)
