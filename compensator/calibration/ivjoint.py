@@ -119,41 +119,55 @@ def _window(grid, ln_i, start_v, below_v, above_v) -> _Window:
 
 
 def _residuals(win: _Window, params, jacobian):
-    """Residuals of ln I, their sum of squares per curve and (optionally) the Jacobian columns."""
-    vb, c, k, g, la, b = params.T[:_N_PARAMS]
-    h = params[:, _N_PARAMS] if params.shape[1] > _N_PARAMS else None
-    xr = win.bias_v - vb[:, None]
+    """Residuals of ln I, their sum of squares per curve and (optionally) the Jacobian, shape (curves, params, points).
+
+    The Jacobian holds d ln I / d(Vbd, c, k, g, a, b[, h]) (the residual's
+    derivative is minus these), zero outside each curve's window.
+    """
+    vb, c, k, g, la, b = (params[:, i, None] for i in range(_N_PARAMS))
+    h = params[:, _N_PARAMS, None] if params.shape[1] > _N_PARAMS else None
+    xr = win.bias_v - vb
     above = xr > 0
     x = np.where(above, xr, 1.0)
     lx = np.log(x)
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        leak = np.exp(la[:, None] + b[:, None] * xr)
-        bend = g[:, None] if h is None else g[:, None] + h[:, None] * x
-        aval = np.exp(c[:, None] + k[:, None] * lx + bend * x) * above
+        leak = b * xr
+        leak += la
+        np.exp(leak, out=leak)
+        bend = g if h is None else g + h * x
+        aval = k * lx
+        aval += c
+        aval += bend * x
+        np.exp(aval, out=aval)
+        aval *= above
         total = leak + aval
-        r = (win.ln_current - np.log(total)) * win.mask
+        r = np.log(total)
+        np.subtract(win.ln_current, r, out=r)
+        r *= win.mask
     cost = np.einsum("ij,ij->i", r, r)
     if not jacobian:
         return r, cost, None
+    jac = np.empty((params.shape[0], params.shape[1], x.shape[1]))
     with np.errstate(invalid="ignore", divide="ignore"):
-        fa = aval / total * win.mask
-        fl = leak / total * win.mask
-    # d ln I / d(Vbd, c, k, g, a, b); the residual's derivative is minus these.
-    slope = k[:, None] / x + (g[:, None] if h is None else g[:, None] + 2.0 * h[:, None] * x)
-    cols = (-fa * slope, fa, fa * lx, fa * x, fl, fl * xr) + (() if h is None else (fa * x * x,))
-    return r, cost, cols
+        fa = np.divide(aval, total, out=aval)  # the avalanche's share of the current
+        fa *= win.mask
+        slope = k / x
+        slope += bend if h is None else g + 2.0 * h * x  # d ln I_av / dx
+    np.multiply(fa, slope, out=jac[:, 0])
+    np.negative(jac[:, 0], out=jac[:, 0])
+    jac[:, 1] = fa
+    np.multiply(fa, lx, out=jac[:, 2])
+    np.multiply(fa, x, out=jac[:, 3])
+    np.subtract(win.mask, fa, out=jac[:, 4])  # the leakage's share
+    np.multiply(jac[:, 4], xr, out=jac[:, 5])
+    if h is not None:
+        np.multiply(jac[:, 3], x, out=jac[:, 6])
+    return r, cost, jac
 
 
-def _normal(cols, r):
+def _normal(jac, r):
     """Normal matrix J^T J and gradient J^T r of every curve."""
-    m, p = r.shape[0], len(cols)
-    a = np.empty((m, p, p))
-    g = np.empty((m, p))
-    for i in range(p):
-        g[:, i] = np.einsum("ij,ij->i", cols[i], r)
-        for j in range(i, p):
-            a[:, i, j] = a[:, j, i] = np.einsum("ij,ij->i", cols[i], cols[j])
-    return a, g
+    return jac @ jac.transpose(0, 2, 1), (jac @ r[:, :, None])[:, :, 0]
 
 
 def _solve(win: _Window, params, max_iterations) -> _Solution:
@@ -171,11 +185,11 @@ def _solve(win: _Window, params, max_iterations) -> _Solution:
     normal = np.full((m, p, p), np.nan)
     final_cost = np.full(m, np.nan)
     sub = win
-    r, cost, cols = _residuals(win, params, True)
+    r, cost, jac = _residuals(win, params, True)
     for _ in range(max_iterations):
         if not active.size:
             break
-        a, g = _normal(cols, r)
+        a, g = _normal(jac, r)
         normal[active] = a
         diag = np.einsum("mii->mi", a)
         lhs = a + (damping[active, None] * np.maximum(diag, 1e-12))[:, :, None] * eye
@@ -184,13 +198,12 @@ def _solve(win: _Window, params, max_iterations) -> _Solution:
         g[bad] = 0.0
         step = np.linalg.solve(lhs, g[:, :, None])[:, :, 0]
         trial = params[active] + step
-        r_t, cost_t, cols_t = _residuals(sub, trial, True)
+        r_t, cost_t, jac_t = _residuals(sub, trial, True)
         better = np.isfinite(cost_t) & (cost_t < cost)
         params[active[better]] = trial[better]
         r[better] = r_t[better]
         cost[better] = cost_t[better]
-        for c, c_t in zip(cols, cols_t):
-            c[better] = c_t[better]
+        jac[better] = jac_t[better]
         damping[active] = np.where(better, damping[active] * 0.2, damping[active] * 10.0)
         # Converged: an accepted step below ten microvolts, or no step that lowers the cost any more.
         done = (better & (np.abs(step[:, 0]) < 1e-5)) | (damping[active] > 1e8)
@@ -200,9 +213,9 @@ def _solve(win: _Window, params, max_iterations) -> _Solution:
         if not keep.all():
             active = active[keep]
             sub = _Window(sub.bias_v[keep], sub.ln_current[keep], sub.mask[keep])
-            r, cost, cols = r[keep], cost[keep], tuple(c[keep] for c in cols)
+            r, cost, jac = r[keep], cost[keep], jac[keep]
     if active.size:  # out of iterations: the normal matrix where they stopped
-        normal[active] = _normal(cols, r)[0]
+        normal[active] = _normal(jac, r)[0]
         final_cost[active] = cost
     # A curve that converged keeps the normal matrix of its last iteration
     # (its final step moved it by less than ten microvolts).
