@@ -135,6 +135,48 @@ def test_joint_fit_is_exact_on_its_model_from_a_poor_start():
     assert nan_start.ok.tolist() == [True, False, True] and np.isnan(nan_start.breakdown_v[1])
 
 
+def test_joint_fit_finds_the_least_squares_optimum_of_scipy():
+    # The compiled Levenberg-Marquardt loop against scipy.optimize.least_squares (MINPACK's LM) on the same
+    # model and window, from the same start, on noisy bent curves with leakage: the same optimum, to the
+    # convergence tolerance of ten microvolts; the second-order model (the systematic part) likewise.
+    from scipy.optimize import least_squares
+
+    from compensator.calibration.ivjoint import _solve, _window
+
+    rng = np.random.default_rng(11)
+    truth = np.array([24.2, 24.5, 24.8, 24.4])
+    leak = leakage_at_crossing_a(0.1, exponent=2.0, leakage_slope_per_v=0.5)
+    current = simulate_iv(rng, GRID_V, truth, leakage_a=leak, leakage_slope_per_v=0.5, relative_noise=0.01,
+                          geiger_scale_v=1.0)
+    win = _window(np.broadcast_to(GRID_V, current.shape), np.log(current), truth + 0.01, 3.0, 2.0)
+    start = np.column_stack([truth + 0.01, np.full(4, np.log(1e-6)), np.full(4, 2.0), np.zeros(4),
+                             np.full(4, np.log(leak)), np.full(4, 0.5)])
+
+    def residuals(theta, bias, ln_i):
+        vb, c, k, g, la, b = theta[:6]
+        h = theta[6] if theta.size > 6 else 0.0
+        xr = bias - vb
+        x = np.where(xr > 0, xr, 1.0)
+        aval = np.where(xr > 0, np.exp(c + k * np.log(x) + (g + h * x) * x), 0.0)
+        return ln_i - np.log(np.exp(la + b * xr) + aval)
+
+    # The second-order model's optimum lies in a long flat valley, where a step below ten microvolts may stop
+    # short of it by a few tenths of a millivolt (at a cost a few parts per million above the optimum).
+    for params, tol_v, rel in ((start, 2e-5, 1e-6), (np.column_stack([start, np.zeros(4)]), 5e-4, 1e-4)):
+        ours = _solve(win, params, 200)
+        assert ours.converged.all()
+        for i in range(4):
+            n = int(win.mask[i].sum())
+            ref = least_squares(residuals, params[i], method="lm", xtol=1e-12, ftol=1e-12,
+                                args=(win.bias_v[i, :n], win.ln_current[i, :n]))
+            assert ours.params[i, 0] == pytest.approx(ref.x[0], abs=tol_v)
+            assert 2 * ref.cost * (1 - 1e-9) <= ours.cost[i] <= 2 * ref.cost * (1 + rel)  # scipy's is half the sum
+            if params.shape[1] == 7:
+                continue
+            assert ours.params[i, 2] == pytest.approx(ref.x[2], abs=1e-3)  # the exponent k
+            assert ours.params[i, 4] == pytest.approx(ref.x[4], abs=1e-3)  # ln of the leakage at breakdown
+
+
 @pytest.mark.parametrize("crossing_v", [0.05, 0.1, 0.2, 0.3])
 @pytest.mark.parametrize("k", [1.5, 2.0, 3.0])
 def test_leakage_subtraction_is_exact_on_exponential_plus_power_law(crossing_v, k):

@@ -52,9 +52,6 @@ JOINT_BELOW_V = 3.0
 JOINT_SPAN_V = 2.0
 #: Most Levenberg-Marquardt iterations per curve.
 JOINT_MAX_ITERATIONS = 40
-#: Parameters: breakdown, ln A, exponent k, bending g, leakage ln I at breakdown, leakage slope
-#: (and the second-order bending h of the model for the systematic part).
-_N_PARAMS = 6
 #: A fitted breakdown further than this from its start value is not trusted, volt.
 _MAX_SHIFT_V = 0.25
 
@@ -118,108 +115,23 @@ def _window(grid, ln_i, start_v, below_v, above_v) -> _Window:
     return _Window(np.take_along_axis(grid, index, axis=1), np.take_along_axis(ln_i, index, axis=1), mask)
 
 
-def _residuals(win: _Window, params, jacobian):
-    """Residuals of ln I, their sum of squares per curve and (optionally) the Jacobian, shape (curves, params, points).
-
-    The Jacobian holds d ln I / d(Vbd, c, k, g, a, b[, h]) (the residual's
-    derivative is minus these), zero outside each curve's window.
-    """
-    vb, c, k, g, la, b = (params[:, i, None] for i in range(_N_PARAMS))
-    h = params[:, _N_PARAMS, None] if params.shape[1] > _N_PARAMS else None
-    xr = win.bias_v - vb
-    above = xr > 0
-    x = np.where(above, xr, 1.0)
-    lx = np.log(x)
-    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        leak = b * xr
-        leak += la
-        np.exp(leak, out=leak)
-        bend = g if h is None else g + h * x
-        aval = k * lx
-        aval += c
-        aval += bend * x
-        np.exp(aval, out=aval)
-        aval *= above
-        total = leak + aval
-        r = np.log(total)
-        np.subtract(win.ln_current, r, out=r)
-        r *= win.mask
-    cost = np.einsum("ij,ij->i", r, r)
-    if not jacobian:
-        return r, cost, None
-    jac = np.empty((params.shape[0], params.shape[1], x.shape[1]))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        fa = np.divide(aval, total, out=aval)  # the avalanche's share of the current
-        fa *= win.mask
-        slope = k / x
-        slope += bend if h is None else g + 2.0 * h * x  # d ln I_av / dx
-    np.multiply(fa, slope, out=jac[:, 0])
-    np.negative(jac[:, 0], out=jac[:, 0])
-    jac[:, 1] = fa
-    np.multiply(fa, lx, out=jac[:, 2])
-    np.multiply(fa, x, out=jac[:, 3])
-    np.subtract(win.mask, fa, out=jac[:, 4])  # the leakage's share
-    np.multiply(jac[:, 4], xr, out=jac[:, 5])
-    if h is not None:
-        np.multiply(jac[:, 3], x, out=jac[:, 6])
-    return r, cost, jac
-
-
-def _normal(jac, r):
-    """Normal matrix J^T J and gradient J^T r of every curve."""
-    return jac @ jac.transpose(0, 2, 1), (jac @ r[:, :, None])[:, :, 0]
-
-
 def _solve(win: _Window, params, max_iterations) -> _Solution:
-    """Levenberg-Marquardt iterations over the curves still moving.
+    """Levenberg-Marquardt iterations of every curve, compiled (numba).
 
-    The residuals and Jacobian of every trial are kept when the trial is
-    accepted, so each iteration evaluates the model once.
+    Each curve starts with damping 1e-3 (relative to the diagonal of J^T J),
+    divides it by 5 after a step that lowers the cost and multiplies it by 10
+    after one that does not; it has converged after an accepted step in the
+    breakdown below ten microvolts, or when the damping passes 1e8. A curve
+    that converged keeps the normal matrix of its last iteration (its final
+    step moved it by less than ten microvolts). The residuals and normal
+    equations of every trial are kept when the trial is accepted, so each
+    iteration evaluates the model once.
     """
-    m, p = params.shape
-    params = params.copy()
-    damping = np.full(m, 1e-3)
-    eye = np.eye(p)
-    active = np.arange(m)
-    converged = np.zeros(m, dtype=bool)
-    normal = np.full((m, p, p), np.nan)
-    final_cost = np.full(m, np.nan)
-    sub = win
-    r, cost, jac = _residuals(win, params, True)
-    for _ in range(max_iterations):
-        if not active.size:
-            break
-        a, g = _normal(jac, r)
-        normal[active] = a
-        diag = np.einsum("mii->mi", a)
-        lhs = a + (damping[active, None] * np.maximum(diag, 1e-12))[:, :, None] * eye
-        bad = ~(np.all(np.isfinite(lhs), axis=(1, 2)) & np.all(np.isfinite(g), axis=1))
-        lhs[bad] = eye
-        g[bad] = 0.0
-        step = np.linalg.solve(lhs, g[:, :, None])[:, :, 0]
-        trial = params[active] + step
-        r_t, cost_t, jac_t = _residuals(sub, trial, True)
-        better = np.isfinite(cost_t) & (cost_t < cost)
-        params[active[better]] = trial[better]
-        r[better] = r_t[better]
-        cost[better] = cost_t[better]
-        jac[better] = jac_t[better]
-        damping[active] = np.where(better, damping[active] * 0.2, damping[active] * 10.0)
-        # Converged: an accepted step below ten microvolts, or no step that lowers the cost any more.
-        done = (better & (np.abs(step[:, 0]) < 1e-5)) | (damping[active] > 1e8)
-        converged[active[done]] = True
-        keep = ~(done | bad)
-        final_cost[active] = cost
-        if not keep.all():
-            active = active[keep]
-            sub = _Window(sub.bias_v[keep], sub.ln_current[keep], sub.mask[keep])
-            r, cost, jac = r[keep], cost[keep], jac[keep]
-    if active.size:  # out of iterations: the normal matrix where they stopped
-        normal[active] = _normal(jac, r)[0]
-        final_cost[active] = cost
-    # A curve that converged keeps the normal matrix of its last iteration
-    # (its final step moved it by less than ten microvolts).
-    return _Solution(params, normal, final_cost, converged)
+    from compensator.calibration.ivkernel import levenberg_marquardt  # numba: compiled on first use, then cached
+
+    count = np.asarray(win.mask.sum(axis=1), dtype=np.int64)
+    return _Solution(*levenberg_marquardt(np.ascontiguousarray(win.bias_v), np.ascontiguousarray(win.ln_current),
+                                           count, np.ascontiguousarray(params, dtype=float), int(max_iterations)))
 
 
 def _variance(sol: _Solution, mask):
