@@ -367,3 +367,38 @@ def test_joint_fit_window_cut_by_the_end_of_the_sweep():
     # (or the end of the sweep); the start values lie within 20 mV of the truth
     np.testing.assert_allclose(r.fit_lo_v, [21.55, 20.45], atol=1e-9)
     np.testing.assert_allclose(r.fit_hi_v, [25.7, 25.4], atol=1e-9)
+
+
+def test_peak_vertex_and_its_error_against_numpy_polyfit():
+    # The peak methods' refinement: the vertex of a parabola weighted by 1/sigma^2 through the points within
+    # hw = clip(half window, 2, 6) of the sample peak, its error by the delta method, scaled by
+    # sqrt(max(chi2/ndf, 1)) and by the correlation factor; against numpy.polyfit's weighted fit and covariance.
+    from compensator.calibration.ivpeaks import _fit_peak
+
+    rng = np.random.default_rng(5)
+    grid = np.broadcast_to(np.round(np.arange(20.0, 22.0001, 0.05), 4), (4, 41)).copy()
+    top = np.array([20.93, 21.04, 20.61, 21.2])
+    values = 3.0 - 40.0 * (grid - top[:, None]) ** 2 + 0.05 * rng.standard_normal(grid.shape)
+    values[3] = 1.0 + 40.0 * (grid[3] - 21.2) ** 2  # convex: no vertex, the sample point stands
+    p = np.argmin(np.abs(grid - top[:, None]), axis=1)
+    half = np.array([1, 4, 9, 3])  # hw = 2, 4, 6, 3
+    sigma = np.array([0.05, 0.05, 0.2, 0.05])
+    corr = np.array([1.0, 2.0, 1.5, 1.0])
+    out = {k: np.full(4, np.nan) for k in ("breakdown_v", "breakdown_stat_err_v", "breakdown_sys_err_v",
+                                          "fit_lo_v", "fit_hi_v")}
+    _fit_peak(grid, values, p, half, sigma, corr, out)
+    for i, hw in enumerate((2, 4, 6)):
+        sl = slice(p[i] - hw, p[i] + hw + 1)
+        x, y = grid[i, sl] - grid[i, p[i]], values[i, sl]
+        coef, cov = np.polyfit(x, y, 2, w=np.full(x.size, 1 / sigma[i]), cov="unscaled")
+        c2, c1 = coef[0], coef[1]
+        vertex = -c1 / (2 * c2)
+        g = np.array([c1 / (2 * c2 ** 2), -1 / (2 * c2)])  # d vertex / d(c2, c1)
+        chi2 = np.sum(((y - np.polyval(coef, x)) / sigma[i]) ** 2)
+        err = np.sqrt(g @ cov[:2, :2] @ g) * np.sqrt(max(chi2 / (x.size - 3), 1.0)) * corr[i]
+        assert out["breakdown_v"][i] == pytest.approx(grid[i, p[i]] + vertex, abs=1e-9)
+        assert out["breakdown_stat_err_v"][i] == pytest.approx(err, rel=1e-6)
+        assert (out["fit_lo_v"][i], out["fit_hi_v"][i]) == pytest.approx((grid[i, p[i] - hw], grid[i, p[i] + hw]))
+        assert out["breakdown_v"][i] == pytest.approx(top[i], abs=0.01)
+    assert out["breakdown_v"][3] == grid[3, p[3]] and out["breakdown_stat_err_v"][3] == pytest.approx(0.05 / 12 ** 0.5)
+    np.testing.assert_allclose(out["breakdown_sys_err_v"], 0.025)
