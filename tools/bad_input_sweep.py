@@ -52,6 +52,7 @@ def cases(work: Path) -> list[Case]:
     (work / "cols.csv").write_text("voltage_v,amps\n20,1e-9\n")
     (work / "gain_nan.csv").write_text("bias_v,gain\n26,1e6\n27,nan\n28,3e6\n")
     (work / "plots").mkdir()
+    (work / "taken.yaml").write_text("keep")
     (work / "plots" / "binary-spectrum.png").write_text("keep")
     (work / "deep.json").write_text('{"scans": ' + "[" * 50_000 + "]" * 50_000 + "}")
     w = str(work)
@@ -72,6 +73,11 @@ def cases(work: Path) -> list[Case]:
         Case("I-V without its columns", ("calibrate", "iv", f"{w}/cols.csv", f"{w}/binary.csv")),
         Case("binary spectrum", ("calibrate", "spectrum", f"{w}/binary.csv", "--json")),
         Case("existing spectrum plot", ("calibrate", "spectrum", f"{w}/binary.csv", "--plot", f"{w}/plots")),
+        Case("existing crosstalk profile", ("calibrate", "spectrum", f"{w}/binary.csv", "--write-profile",
+                                            f"{w}/taken.yaml", "--base", f"{H}/hut-sipm-a.yaml", "--overvoltage-v",
+                                            "3")),
+        Case("NaN overvoltage", ("calibrate", "spectrum", f"{w}/binary.csv", "--write-profile", f"{w}/new.yaml",
+                                 "--base", f"{H}/hut-sipm-a.yaml", "--overvoltage-v", "nan")),
         Case("NaN in a gain table", ("calibrate", "gain-scan", f"{w}/gain_nan.csv")),
         Case("spectra of a scan missing", ("calibrate", "gain-scan", "--spectra", f"{w}/a.csv", f"{w}/b.csv",
                                            f"{w}/c.csv", "--bias-v", "26", "27", "28")),

@@ -65,7 +65,7 @@ def register(subparsers) -> None:
 
     sp = sub.add_parser("spectrum", help="gain, pedestal, mean photoelectrons and crosstalk from charge spectra",
                         description="Fit charge spectra: histogram charge,counts or an event list with one charge column "
-                                    "(any charge unit; results come back in the same unit).")
+                                    "(any charge unit; results come back in the same unit).", epilog=CAUTION)
     sp.add_argument("files", nargs="+", metavar="FILE", help="spectra: CSV with charge[_UNIT],counts or charge[_UNIT]")
     sp.add_argument("--amplitudes", choices=AMPLITUDE_MODELS, default="gpoisson",
                     help="peak amplitudes: generalised Poisson with crosstalk (default), free, or borel for "
