@@ -371,25 +371,31 @@ def test_joint_fit_window_cut_by_the_end_of_the_sweep():
 
 def test_peak_vertex_and_its_error_against_numpy_polyfit():
     # The peak methods' refinement: the vertex of a parabola weighted by 1/sigma^2 through the points within
-    # hw = clip(half window, 2, 6) of the sample peak, its error by the delta method, scaled by
-    # sqrt(max(chi2/ndf, 1)) and by the correlation factor; against numpy.polyfit's weighted fit and covariance.
+    # hw = clip(half window, 2, 6) of the sample peak (cut at the ends of the sweep), its error by the delta
+    # method, scaled by sqrt(max(chi2/ndf, 1)) and by the correlation factor; against numpy.polyfit's weighted
+    # fit and covariance. Curves: errors claimed 5x too small (the chi2 scale acts), a wide window with a
+    # correlation factor, windows cut at both ends of the sweep (an asymmetric fit: the covariance of the
+    # linear and quadratic terms counts), a slightly convex curve and a vertex beyond the window (both keep
+    # the sample point with a uniform error of one step / sqrt(12)).
     from compensator.calibration.ivpeaks import _fit_peak
 
     rng = np.random.default_rng(5)
-    grid = np.broadcast_to(np.round(np.arange(20.0, 22.0001, 0.05), 4), (4, 41)).copy()
-    top = np.array([20.93, 21.04, 20.61, 21.2])
+    grid = np.broadcast_to(np.round(np.arange(20.0, 22.0001, 0.05), 4), (6, 41)).copy()
+    n = grid.shape[1]
+    top = np.array([20.93, 21.04, 20.07, 21.21, 21.0, 21.97])
     values = 3.0 - 40.0 * (grid - top[:, None]) ** 2 + 0.05 * rng.standard_normal(grid.shape)
-    values[3] = 1.0 + 40.0 * (grid[3] - 21.2) ** 2  # convex: no vertex, the sample point stands
+    values[3] = 1.0 + 0.5 * (grid[3] - top[3]) ** 2  # convex (0 < c2 < 1)
     p = np.argmin(np.abs(grid - top[:, None]), axis=1)
-    half = np.array([1, 4, 9, 3])  # hw = 2, 4, 6, 3
-    sigma = np.array([0.05, 0.05, 0.2, 0.05])
-    corr = np.array([1.0, 2.0, 1.5, 1.0])
-    out = {k: np.full(4, np.nan) for k in ("breakdown_v", "breakdown_stat_err_v", "breakdown_sys_err_v",
+    p[4] += 12  # the sample peak 0.6 V from the vertex
+    half = np.array([1, 4, 9, 3, 1, 4])  # hw = 2, 4, 6, 3, 2, 4
+    sigma = np.array([0.01, 0.05, 0.2, 0.05, 0.05, 0.05])
+    corr = np.array([1.0, 2.0, 1.5, 1.0, 1.0, 1.0])
+    out = {k: np.full(6, np.nan) for k in ("breakdown_v", "breakdown_stat_err_v", "breakdown_sys_err_v",
                                           "fit_lo_v", "fit_hi_v")}
     _fit_peak(grid, values, p, half, sigma, corr, out)
-    for i, hw in enumerate((2, 4, 6)):
-        sl = slice(p[i] - hw, p[i] + hw + 1)
-        x, y = grid[i, sl] - grid[i, p[i]], values[i, sl]
+    for i, hw in ((0, 2), (1, 4), (2, 6), (5, 4)):
+        lo, hi = max(p[i] - hw, 0), min(p[i] + hw, n - 1)
+        x, y = grid[i, lo:hi + 1] - grid[i, p[i]], values[i, lo:hi + 1]
         coef, cov = np.polyfit(x, y, 2, w=np.full(x.size, 1 / sigma[i]), cov="unscaled")
         c2, c1 = coef[0], coef[1]
         vertex = -c1 / (2 * c2)
@@ -398,7 +404,24 @@ def test_peak_vertex_and_its_error_against_numpy_polyfit():
         err = np.sqrt(g @ cov[:2, :2] @ g) * np.sqrt(max(chi2 / (x.size - 3), 1.0)) * corr[i]
         assert out["breakdown_v"][i] == pytest.approx(grid[i, p[i]] + vertex, abs=1e-9)
         assert out["breakdown_stat_err_v"][i] == pytest.approx(err, rel=1e-6)
-        assert (out["fit_lo_v"][i], out["fit_hi_v"][i]) == pytest.approx((grid[i, p[i] - hw], grid[i, p[i] + hw]))
-        assert out["breakdown_v"][i] == pytest.approx(top[i], abs=0.01)
-    assert out["breakdown_v"][3] == grid[3, p[3]] and out["breakdown_stat_err_v"][3] == pytest.approx(0.05 / 12 ** 0.5)
+        assert (out["fit_lo_v"][i], out["fit_hi_v"][i]) == pytest.approx((grid[i, lo], grid[i, hi]))
+        assert out["breakdown_v"][i] == pytest.approx(top[i], abs=0.02)
+    assert (p[2] - 6 < 0 and p[5] + 4 > n - 1) and out["fit_lo_v"][2] == 20.0 and out["fit_hi_v"][5] == 22.0
+    for i in (3, 4):
+        assert out["breakdown_v"][i] == grid[i, p[i]]
+        assert out["breakdown_stat_err_v"][i] == pytest.approx(0.05 / 12 ** 0.5, rel=1e-12)
     np.testing.assert_allclose(out["breakdown_sys_err_v"], 0.025)
+
+
+def test_second_derivative_needs_a_maximum_below_the_knee():
+    # A breakdown 0.1 V above the start of the sweep leaves no maximum of d2 ln I/dV2 below the knee (it sits
+    # within half a filter window of the start): a failed curve with its reason; 0.3 V above, the maximum is
+    # found, below the breakdown (the onset of the knee, within one 50 mV step).
+    grid = np.round(np.arange(20.0, 31.0001, 0.05), 4)
+    truth = np.array([20.1, 20.3, 24.5])
+    current = iv_current_a(grid[None, :], truth[:, None], exponent=2.0, leakage_a=1e-12, leakage_slope_per_v=0.05)
+    r = find_breakdown(grid, current, "second-derivative")
+    assert r.reason[0] == "no breakdown in range: no maximum of d2 ln I/dV2 below the knee"
+    assert np.isnan(r.breakdown_v[0]) and not r.ok[0]
+    assert r.ok[1:].all() and r.reason[1:] == ("", "")
+    assert np.all(r.breakdown_v[1:] <= truth[1:]) and np.all(r.breakdown_v[1:] >= truth[1:] - 0.05)
