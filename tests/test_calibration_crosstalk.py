@@ -173,3 +173,61 @@ def test_profile_options_without_write_profile_and_a_failed_spectrum(cli, demo, 
     doc = json.loads(r.stdout)
     assert doc["written_profile"] is None and doc["profile_crosstalk"] is None
     assert doc["spectra"][0]["crosstalk_branching_ratio"] == pytest.approx(0.08, abs=0.005)
+
+
+@pytest.mark.parametrize("kwargs, key, fragment", [
+    ({"branching_ratio": [0.0]}, "branching_ratio", "a branching ratio of 0 measures no crosstalk"),
+    ({"branching_ratio": [1.0]}, "branching_ratio", "a branching ratio of 1 measures no crosstalk"),
+    ({"branching_ratio": [-0.1]}, "branching_ratio", "a branching ratio of -0.1 measures no crosstalk of the model "
+                                                     "(it must lie between 0 and 1)"),
+    ({"branching_ratio": [1.5]}, "branching_ratio", "a branching ratio of 1.5 measures"),
+    ({"branching_ratio": [0.5, 1.2], "overvoltage_v": [3.0, 3.0], "branching_ratio_err": [0.01, 0.01]},
+     "branching_ratio", "a branching ratio of 1.2 measures"),  # the first bad one is named
+    ({"overvoltage_v": [0.5, -1.0], "branching_ratio": [0.1, 0.1], "branching_ratio_err": [0.01, 0.01]},
+     "overvoltage_v", "overvoltages must be positive, got -1 V"),
+    ({"branching_ratio_err": [0.01, 0.02]}, "branching_ratio",
+     "one branching ratio, error and overvoltage per spectrum (got 1, 2, 1)"),
+    ({"branching_ratio_err": [np.inf]}, "branching_ratio_err", "branching-ratio errors must be finite and positive"),
+    ({"overvoltage_v": [0.0]}, "overvoltage_v", "overvoltages must be positive, got 0 V"),
+    ({"ref_overvoltage_v": 0.0}, "ref_overvoltage_v", "must be positive, got 0.0"),
+    ({"ref_overvoltage_v": np.inf}, "ref_overvoltage_v", "must be positive, got inf"),
+    # 0.5 at 2 V scaled to 3 V with n = 2 is 1.125: beyond the branching model
+    ({"branching_ratio": [0.5], "overvoltage_v": [2.0]}, "branching_ratio",
+     "the branching ratio at the reference overvoltage 3 V comes out at 1.125, outside the model's range (0 to 1)"),
+])
+def test_refusals_say_why(kwargs, key, fragment):
+    args = {"branching_ratio": [0.1], "overvoltage_v": [3.0], "branching_ratio_err": [0.01], "ref_overvoltage_v": 3.0,
+            "overvoltage_exponent": 2.0} | kwargs
+    with pytest.raises(ModelError) as exc:
+        calibrate_crosstalk(args.pop("branching_ratio"), args.pop("overvoltage_v"), **args)
+    assert exc.value.key == key and exc.value.reason.startswith(fragment), exc.value.reason
+
+
+def test_small_overvoltages_and_a_scattered_fit():
+    # Overvoltages below 1 V are accepted; 2.0 and 2.3 V are two overvoltages (the exponent is fitted); with more
+    # scatter than the errors claim, the errors are scaled by sqrt(chi2/ndf) as scipy.optimize.curve_fit does
+    # without absolute_sigma.
+    from scipy.optimize import curve_fit
+
+    low = calibrate_crosstalk([0.01], [0.5], branching_ratio_err=[0.001], ref_overvoltage_v=0.8,
+                              overvoltage_exponent=2.0)
+    assert low.branching_ratio_at_ref == pytest.approx(0.01 * (0.8 / 0.5) ** 2, rel=1e-12)
+    two = calibrate_crosstalk([0.05, 0.07], [2.0, 2.3], branching_ratio_err=[0.001, 0.001], ref_overvoltage_v=3.0,
+                              overvoltage_exponent=9.0)
+    assert two.exponent_fitted and two.overvoltage_exponent == pytest.approx(math.log(1.4) / math.log(1.15), rel=1e-9)
+    ov = np.array([2.0, 2.5, 3.0, 3.5, 4.0])
+    lam = 0.08 * (ov / 3.0) ** 2 * np.array([1.05, 0.96, 1.02, 0.97, 1.04])
+    cal = calibrate_crosstalk(lam, ov, branching_ratio_err=0.002 * lam, ref_overvoltage_v=3.0, overvoltage_exponent=2.0)
+    x, y = np.log(ov / 3.0), np.log(lam)
+    popt, pcov = curve_fit(lambda x, a, n: a + n * x, x, y, sigma=np.full(5, 0.002), absolute_sigma=False)
+    assert cal.chi2 / cal.ndf > 1 and cal.overvoltage_exponent == pytest.approx(popt[1], rel=1e-9)
+    assert cal.overvoltage_exponent_err == pytest.approx(math.sqrt(pcov[1, 1]), rel=1e-6)
+    assert cal.branching_ratio_err_at_ref == pytest.approx(math.exp(popt[0]) * math.sqrt(pcov[0, 0]), rel=1e-6)
+
+
+def test_profile_values_at_another_reference(sipm_a):
+    cal = calibrate_crosstalk([0.1], [2.5], branching_ratio_err=[0.01], ref_overvoltage_v=2.5, overvoltage_exponent=2.0)
+    values = crosstalk_values(sipm_a.values, cal)
+    assert values["crosstalk"]["ref_overvoltage_v"] == 2.5 and values["name"] == "hut-sipm-a-calibrated"
+    assert values["description"] == "hut-sipm-a with crosstalk calibrated from charge spectra"
+    assert values["crosstalk"]["overvoltage_exponent"] == sipm_a.values["crosstalk"]["overvoltage_exponent"]
