@@ -425,3 +425,41 @@ def test_second_derivative_needs_a_maximum_below_the_knee():
     assert np.isnan(r.breakdown_v[0]) and not r.ok[0]
     assert r.ok[1:].all() and r.reason[1:] == ("", "")
     assert np.all(r.breakdown_v[1:] <= truth[1:]) and np.all(r.breakdown_v[1:] >= truth[1:] - 0.05)
+
+
+def test_second_derivative_point_errors_are_the_filter_noise_gain(monkeypatch):
+    # The second-derivative method weights its parabola by the noise of the smoothed d2 ln I/dV2: the noise of
+    # ln I times the norm of the Savitzky-Golay coefficients of the chosen window (scipy.signal.savgol_coeffs,
+    # cubic, second derivative, step dV), and scales the vertex error by sqrt(window / 2) for the correlation
+    # of neighbouring smoothed points.
+    from scipy.signal import savgol_coeffs
+
+    import compensator.calibration.ivpeaks as peaks
+    from compensator.calibration.ivsignal import estimate_log_noise
+
+    seen = {}
+    real_fit, real_d2 = peaks._fit_peak, peaks._second_derivative
+
+    def spy_fit(grid, values, p, half, sigma, corr, out):
+        seen.update(half=half.copy(), sigma=sigma.copy(), corr=corr.copy())
+        return real_fit(grid, values, p, half, sigma, corr, out)
+
+    def spy_d2(grid, ln_i, knee, step_v, out, reasons):
+        seen.update(ln_i=ln_i.copy(), step_v=step_v)
+        return real_d2(grid, ln_i, knee, step_v, out, reasons)
+
+    monkeypatch.setattr(peaks, "_fit_peak", spy_fit)
+    import compensator.calibration.iv as iv_module
+    monkeypatch.setattr(iv_module, "_second_derivative", spy_d2)
+    rng = np.random.default_rng(9)
+    current = simulate_iv(rng, GRID_V, np.array([24.2, 24.8]), relative_noise=0.01, geiger_scale_v=1.0)
+    find_breakdown(GRID_V, current, "second-derivative")
+    windows = 2 * seen["half"] + 1
+    noise = estimate_log_noise(seen["ln_i"])  # of the curve the method analyses (its leakage growth removed)
+    step = seen["step_v"]
+    assert step == pytest.approx(GRID_V[1] - GRID_V[0])
+    for i, w in enumerate(windows):
+        gain = np.linalg.norm(savgol_coeffs(int(w), 3, deriv=2, delta=step))
+        assert seen["sigma"][i] == pytest.approx(noise[i] * gain, rel=1e-9)
+        assert seen["corr"][i] == pytest.approx(np.sqrt(max(w / 2.0, 1.0)), rel=1e-12)
+    assert np.all(windows >= 5)
