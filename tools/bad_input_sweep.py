@@ -49,6 +49,11 @@ def cases(work: Path) -> list[Case]:
     (work / "taken").mkdir()
     (work / "taken" / "bias_dac_from_adc.h").write_text("keep")
     (work / "dir.yaml").mkdir()
+    (work / "cols.csv").write_text("voltage_v,amps\n20,1e-9\n")
+    (work / "gain_nan.csv").write_text("bias_v,gain\n26,1e6\n27,nan\n28,3e6\n")
+    (work / "plots").mkdir()
+    (work / "taken.yaml").write_text("keep")
+    (work / "plots" / "binary-spectrum.png").write_text("keep")
     (work / "deep.json").write_text('{"scans": ' + "[" * 50_000 + "]" * 50_000 + "}")
     w = str(work)
     return [
@@ -65,6 +70,17 @@ def cases(work: Path) -> list[Case]:
         Case("huge I-V file", ("calibrate", "iv", f"{w}/huge.csv")),
         Case("binary I-V file", ("calibrate", "iv", f"{w}/binary.csv")),
         Case("NaN in I-V file", ("calibrate", "iv", f"{w}/nan.csv")),
+        Case("I-V without its columns", ("calibrate", "iv", f"{w}/cols.csv", f"{w}/binary.csv")),
+        Case("binary spectrum", ("calibrate", "spectrum", f"{w}/binary.csv", "--json")),
+        Case("existing spectrum plot", ("calibrate", "spectrum", f"{w}/binary.csv", "--plot", f"{w}/plots")),
+        Case("existing crosstalk profile", ("calibrate", "spectrum", f"{w}/binary.csv", "--write-profile",
+                                            f"{w}/taken.yaml", "--base", f"{H}/hut-sipm-a.yaml", "--overvoltage-v",
+                                            "3")),
+        Case("NaN overvoltage", ("calibrate", "spectrum", f"{w}/binary.csv", "--write-profile", f"{w}/new.yaml",
+                                 "--base", f"{H}/hut-sipm-a.yaml", "--overvoltage-v", "nan")),
+        Case("NaN in a gain table", ("calibrate", "gain-scan", f"{w}/gain_nan.csv")),
+        Case("spectra of a scan missing", ("calibrate", "gain-scan", "--spectra", f"{w}/a.csv", f"{w}/b.csv",
+                                           f"{w}/c.csv", "--bias-v", "26", "27", "28")),
         Case("deep JSON", ("calibrate", "tempco", f"{w}/deep.json")),
         Case("missing loop file", ("identify", f"{w}/none.csv")),
         Case("nan tune model", ("tune", "--fopdt", "nan", "30", "5", "--method", "simc", "--rate-hz", "10")),
