@@ -24,8 +24,8 @@ from compensator.calibration.iv import DEFAULT_METHOD, DEFINITIONS, find_breakdo
 from compensator.calibration.measurements import read_iv, read_spectrum
 from compensator.errors import CompensatorError, InputError, Problem
 
-__all__ = ["Progress", "IvRecord", "BatchStatus", "batch_status", "SpectrumRecord", "analyse_iv_files", "analyse_spectrum_files",
-    "channel_from_name", "default_jobs"]
+__all__ = ["Progress", "IvRecord", "BatchStatus", "batch_status", "SpectrumRecord", "analyse_iv_files",
+           "analyse_spectrum_files", "channel_from_name", "default_jobs"]
 
 
 class Progress:
