@@ -146,3 +146,27 @@ def test_board_code_writes_c_that_compiles(cli, tmp_path):
         assert compiled.returncode == 0 and compiled.stderr == ""
     again = cli("board-code", "--out", out)
     assert again.status == 2 and "already exists" in again.stderr
+
+
+@pytest.mark.parametrize("argv, needle", [
+    (["--name", "my link;"], "--name: 'my link;' must be a C identifier of at most 24"),
+    (["--name", ""], "--name: '' must be a C identifier of at most 24"),
+    (["--sipm", str(PROFILES / "hut-sipm-a.yaml")], "--board: the interlocks need both --sipm and --board"),
+])
+def test_board_code_refuses_in_a_fresh_process(argv, needle, tmp_path):
+    # A fresh process loads the interlocks' C renderer before anything else of the firmware package; that once
+    # met the PID modules' import cycle and ended in a traceback.
+    proc = subprocess.run([sys.executable, "-m", "compensator", "board-code", "--out", str(tmp_path / "c"), *argv],
+                          capture_output=True, text=True, timeout=120)
+    lines = proc.stderr.strip().splitlines()
+    assert proc.returncode == 2 and len(lines) == 1 and lines[0].startswith(f"compensator: <command line>: {needle}"
+                                                                            ), proc.stderr
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("first", ["pid_fixed", "pid_c", "interlocks_c", "pid"])
+def test_firmware_modules_import_in_any_order(first):
+    code = (f"import compensator.firmware.{first}; from compensator.firmware.pid import FixedPid, quantise_pid; "
+            "from compensator.firmware.pid_fixed import FixedPid as F; print(FixedPid is F, quantise_pid.__name__)")
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.stdout.split() == ["True", "quantise_pid"], proc.stderr

@@ -597,11 +597,14 @@ class FloatPid:
         return _run_steps(self, r, y, m, mo, float)
 
 
-# The fixed-point half lives in its own module; its names stay importable from here.
-from compensator.firmware.pid_fixed import (  # noqa: E402
-    FixedPid,
-    FixedPidCoefficients,
-    FixedPidState,
-    agreement_bound_count,
-    quantise_pid,
-)
+# The fixed-point half lives in its own module (which imports this one); its names stay importable from here,
+# loaded on first use so that either module may be imported first.
+_FIXED_NAMES = ("FixedPid", "FixedPidCoefficients", "FixedPidState", "agreement_bound_count", "quantise_pid")
+
+
+def __getattr__(name):
+    if name in _FIXED_NAMES:
+        from compensator.firmware import pid_fixed
+
+        return getattr(pid_fixed, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
