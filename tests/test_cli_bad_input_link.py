@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pytest
 
 from compensator.drift.synthetic import synthetic_run
@@ -59,3 +61,13 @@ def test_export_never_writes_over_a_logbook_it_reads(cli, logbook):
     assert result.status == 2 and result.stderr.strip() == (
         f"compensator: {logbook}: is one of the logbooks read; choose another output")
     assert logbook.read_bytes() == before
+
+
+def test_simulate_prints_no_caution_with_a_usage_error(cli, tmp_path):
+    # A scheduler nobody runs: the error alone, not the planning caution before it.
+    from compensator.cli.simulate import CAUTION
+
+    scenario = Path(__file__).resolve().parent.parent / "hardware_profiles" / "hut-week-scenario.yaml"
+    result = cli("simulate", scenario, "--days", "0.1", "--units", "2", "--scheduler", "tcp://127.0.0.1:1")
+    lines = result.stderr.strip().splitlines()
+    assert result.status == 2 and len(lines) == 1 and "127.0.0.1:1" in lines[0] and CAUTION not in result.stderr
