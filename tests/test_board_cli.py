@@ -146,6 +146,20 @@ def test_board_code_writes_c_that_compiles(cli, tmp_path):
         assert compiled.returncode == 0 and compiled.stderr == ""
     again = cli("board-code", "--out", out)
     assert again.status == 2 and "already exists" in again.stderr
+    assert "#define SUPPLY_FAULT_TICKS 3u" in (out / "interlocks.c").read_text()
+
+
+def test_board_code_states_the_supply_check(cli, tmp_path):
+    # hut-board-ntc reads its bias back (one code is 3.3 V / 4096 / 0.08 = 10.07 mV of output); hut-board-pt1000
+    # does not, and says that a supply fault cannot be detected there.
+    ntc = cli("board-code", "--out", tmp_path / "a", "--sipm", PROFILES / "hut-sipm-a.yaml", "--board",
+              PROFILES / "hut-board-ntc.yaml")
+    assert "supply check: bias read-back within 84 codes of the set value, else supply_fault after 3 ticks" \
+        in ntc.stdout
+    pt = cli("board-code", "--out", tmp_path / "b", "--sipm", PROFILES / "hut-sipm-b.yaml", "--board",
+             PROFILES / "hut-board-pt1000.yaml")
+    assert "a supply fault cannot be detected" in pt.stdout
+    assert "cannot be detected" in (tmp_path / "b" / "interlocks.h").read_text()
 
 
 @pytest.mark.parametrize("argv, needle", [

@@ -211,6 +211,7 @@ def link_cases(work: Path) -> list[Case]:
         Case("board-sim: negative heartbeat", (*sim, "--heartbeat-timeout-s", "-1")),
         Case("board-sim: negative seed", (*sim, "--seed", "-1")),
         Case("board-sim: fault at NaN", (*sim, "--sensor-fault", "open", "--fault-at-s", "nan")),
+        Case("board-sim: unknown supply fault", (*sim, "--supply-fault", "sideways")),
         Case("board-sim: no profiles", ("board-sim", "--duration-s", "1")),
         Case("board-sim: missing scenario", ("board-sim", "--scenario", f"{w}/none.yaml", "--duration-s", "1")),
         Case("board-sim: NaN scenario", ("board-sim", "--scenario", f"{w}/scen/nan.yaml", "--duration-s", "1")),
