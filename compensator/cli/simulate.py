@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
-from compensator.cli._common import add_json_flag, format_table, print_json, usage_error
+from compensator.cli._common import add_json_flag, caution, format_table, print_json, usage_error
 
 __all__ = ["ORDER", "COMMAND", "HELP", "register", "run", "render_json", "render_text", "simulated_week",
            "simulated_days"]
@@ -109,7 +108,7 @@ def run(args) -> int:
         raise usage_error("--workers", "give either --scheduler (a Dask cluster) or --workers (local processes)")
     _refuse_existing(args)
     scenario = load_scenario(args.scenario)
-    print(CAUTION, file=sys.stderr)
+    caution(CAUTION)  # printed when the command ends, never with a usage error
     days = args.days if args.days is not None else scenario.section("run")["duration_days"]
     rate = scenario.section("run")["control_rate_hz"] or scenario.board.control_rate_hz
     ticks = int(round(days * 86400.0 * rate))
