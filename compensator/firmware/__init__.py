@@ -9,9 +9,9 @@ from __future__ import annotations
 from compensator._lazy import lazy_exports
 
 _EXPORTS = {
-    "tables": ("LookupTable", "TableStatus", "TableSweep", "TableError", "LayoutCandidate", "LayoutReport",
-               "build_table", "compare_layouts", "sweep_table", "ideal_dac_code", "adc_quantisation_gain_pct",
-               "DEFAULT_FAULT_MARGIN_K"),
+    "lookup_table": ("LookupTable", "TableStatus", "DEFAULT_FAULT_MARGIN_K"),
+    "tables": ("TableSweep", "TableError", "LayoutCandidate", "LayoutReport", "build_table", "compare_layouts",
+               "sweep_table", "ideal_dac_code", "adc_quantisation_gain_pct"),
     "layouts": ("LAYOUTS", "LAYOUT_CHOICES"),
     "current": ("CurrentCorrection", "build_current_correction"),
     "safe_state": ("SafeState", "safe_state"),
