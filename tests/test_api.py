@@ -170,7 +170,8 @@ def test_every_example_in_the_package_runs():
 #: interpreter (a re-export at the bottom of the old module once made ``import compensator.firmware.pid_fixed``
 #: fail with a circular ImportError).
 SPLIT_MODULES = ("compensator.firmware.pid_fixed", "compensator.firmware.pid_coefficients",
-                 "compensator.logbook.reader", "compensator.law.error_chain", "compensator.firmware.lookup_table")
+                 "compensator.logbook.reader", "compensator.law.error_chain", "compensator.firmware.lookup_table",
+                 "compensator.loops.robust_search")
 
 
 @pytest.mark.parametrize("name", SPLIT_MODULES)
