@@ -46,19 +46,14 @@ from compensator.errors import ModelError
 from compensator.findings import Finding, Severity
 from compensator.firmware.current import CURRENT_FACTOR_SLACK_BITS, CurrentCorrection, build_current_correction
 from compensator.firmware.fixed_point import floor_shift, uint_bits
-from compensator.firmware.layouts import (
-    LAYOUT_CHOICES,
-    LAYOUTS,
-    UNIFORM_NODE_FRAC_BITS,
-    LayoutFit,
-    Target,
-    TableError,
+from compensator.firmware.layout_sizing import (
     size_optimised,
     size_polynomial,
     size_segmented,
     size_uniform,
     uniform_candidate,
 )
+from compensator.firmware.layouts import LAYOUT_CHOICES, LAYOUTS, UNIFORM_NODE_FRAC_BITS, LayoutFit, Target, TableError
 from compensator.firmware.lookup_table import (
     DEFAULT_FAULT_MARGIN_K,
     STATUS_NAMES,
