@@ -171,7 +171,8 @@ def test_every_example_in_the_package_runs():
 #: fail with a circular ImportError).
 SPLIT_MODULES = ("compensator.firmware.pid_fixed", "compensator.firmware.pid_coefficients",
                  "compensator.logbook.reader", "compensator.law.error_chain", "compensator.firmware.lookup_table",
-                 "compensator.loops.robust_search", "compensator.firmware.layout_sizing")
+                 "compensator.loops.robust_search", "compensator.firmware.layout_sizing",
+                 "compensator.firmware.pid_settings")
 
 
 @pytest.mark.parametrize("name", SPLIT_MODULES)
