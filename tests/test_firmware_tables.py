@@ -349,3 +349,46 @@ def test_target_extrapolates_linearly_beyond_the_range(sipm_b, board_pt1000):
     # the extrapolation slope is the law's own slope there: DAC codes per ADC code from the law one code outside
     f = T.ideal_dac_code(law, board_pt1000.temperature.temp_at(np.array([hi - 0.5, hi + 1.5])))
     assert target.ext_hi == pytest.approx((f[1] - f[0]) / 2, rel=1e-9)
+
+
+def small_target(exact, *, ext, dac_full, bound_lsb):
+    """A hand-made target over ADC codes 100 .. 100 + len(exact) - 1, extrapolated with slope ``ext``."""
+    exact = np.asarray(exact, dtype=float)
+    n = exact.size
+    return T.Target(codes=np.arange(100, 100 + n, dtype=np.int64), temp_c=np.zeros(n), exact=exact,
+                    bound_lsb=np.full(n, bound_lsb), gain_pct_per_lsb=np.ones(n), ext_lo=ext, ext_hi=ext,
+                    dac_full=dac_full)
+
+
+@pytest.mark.parametrize("frac", [0, 2])
+def test_uniform_nodes_are_clipped_to_the_dac_range(frac):
+    # The line 10 (n - 100) - 20.25 DAC codes runs from below code 0 to above full scale (50). Nodes every 2 codes
+    # from 100 to 110 (the last one beyond the range, on the same line), rounded half to even (Python's round,
+    # like numpy's rint) at 2^frac steps, then held inside 0 .. 50 x 2^frac: plain Python.
+    target = small_target([10 * k - 20.25 for k in range(9)], ext=10.0, dac_full=50, bound_lsb=100.0)
+    nodes, _, _ = T.uniform_candidate(target, 1, frac)
+    scale = 2 ** frac
+    expected = [min(max(round((10 * (n - 100) - 20.25) * scale), 0), 50 * scale) for n in range(100, 111, 2)]
+    assert expected[:2] == [0, 0] and expected[-2:] == [50 * scale] * 2  # both ends are clipped
+    assert nodes.tolist() == expected and nodes.dtype == np.int64
+
+
+def test_uniform_error_equal_to_the_bound_meets_it():
+    # Exact values 0, 0.5, 1 at codes 100 .. 102; nodes at 100, 102 (and 104, extrapolated) hold 0, 1 (and 2) as
+    # plain DAC codes by default. At code 101 the firmware gives 0 + floor((1 x 1 + 1) / 2) = 1 (half rounds up):
+    # an error of exactly 0.5 LSB, which meets a bound of 0.5 LSB.
+    target = small_target([0.0, 0.5, 1.0], ext=0.5, dac_full=4095, bound_lsb=0.5)
+    nodes, ok, worst = T.uniform_candidate(target, 1)
+    assert nodes.tolist() == [0, 1, 2] and worst == 0.5 and ok is True
+    nodes, ok, worst = T.uniform_candidate(replace(target, bound_lsb=np.full(3, 0.49)), 1)
+    assert worst == 0.5 and ok is False
+
+
+def test_target_takes_codes_of_any_integer_type(sipm_b, board_pt1000):
+    # Codes read from a 16-bit ADC buffer (uint16) extrapolate as Python integers do, also below the range.
+    target = T._target(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
+    lo, hi = int(target.codes[0]), int(target.codes[-1])
+    got = target.at(np.array([lo - 3, lo, hi, hi + 5], dtype=np.uint16))
+    expected = [target.exact[0] - 3 * target.ext_lo, target.exact[0], target.exact[-1],
+                target.exact[-1] + 5 * target.ext_hi]
+    assert got == pytest.approx(expected, abs=1e-9)
