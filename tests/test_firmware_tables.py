@@ -392,3 +392,6 @@ def test_target_takes_codes_of_any_integer_type(sipm_b, board_pt1000):
     expected = [target.exact[0] - 3 * target.ext_lo, target.exact[0], target.exact[-1],
                 target.exact[-1] + 5 * target.ext_hi]
     assert got == pytest.approx(expected, abs=1e-9)
+    # Further below the range than the range is wide, too.
+    far = lo - target.codes.size - 5
+    assert target.at([far])[0] == pytest.approx(target.exact[0] - (target.codes.size + 5) * target.ext_lo, abs=1e-9)
