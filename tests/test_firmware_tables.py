@@ -395,3 +395,11 @@ def test_target_takes_codes_of_any_integer_type(sipm_b, board_pt1000):
     # Further below the range than the range is wide, too.
     far = lo - target.codes.size - 5
     assert target.at([far])[0] == pytest.approx(target.exact[0] - (target.codes.size + 5) * target.ext_lo, abs=1e-9)
+
+
+def test_layout_bytes_refuses_an_unknown_layout():
+    from compensator.firmware.layouts import _fit
+
+    with pytest.raises(ModelError) as exc:
+        T.layout_bytes(_fit("bogus"), 12)
+    assert exc.value.reason == "unknown layout 'bogus'"
