@@ -84,3 +84,12 @@ def test_a_code_by_hand_under_light(path, sipm_a, board_ntc):
     assert out_v - v > 0.01  # the light matters
     assert result.gain_error_pct[k] == pytest.approx(100 * ((v - float(breakdown_v(sipm_a.device, t))) / 3.0 - 1),
                                                      abs=1e-6)
+
+
+def test_the_default_is_a_dark_sipm(path, result_of, board_ntc):
+    # photon_rate_hz defaults to 0 Hz: the same figures as an explicit 0, not those of any light at all.
+    law, table, _ = path
+    dark = integer_path_gain_error(table, law, board_ntc, photon_rate_hz=0.0)
+    assert np.array_equal(result_of.sipm_bias_v, dark.sipm_bias_v)
+    assert not np.array_equal(result_of.sipm_bias_v,
+                              integer_path_gain_error(table, law, board_ntc, photon_rate_hz=1.0).sipm_bias_v)

@@ -403,3 +403,43 @@ def test_layout_bytes_refuses_an_unknown_layout():
     with pytest.raises(ModelError) as exc:
         T.layout_bytes(_fit("bogus"), 12)
     assert exc.value.reason == "unknown layout 'bogus'"
+
+
+def test_segmented_value_with_fractional_nodes_by_hand():
+    # Nodes 0, 5, 15 DAC codes held with one fractional bit (0, 10, 30); segments 2 and 4 codes wide. Offsets
+    # 0 .. 5 lie on 0, 2.5, 5, 7.5, 10, 12.5 DAC codes; the firmware rounds each half up: plain floor division.
+    y, shifts = np.array([0, 10, 30], dtype=np.int64), np.array([1, 2], dtype=np.int64)
+    expected = []
+    for d in range(6):
+        i, start = (0, 0) if d < 2 else (1, 2)
+        k = int(shifts[i])
+        v = int(y[i]) + ((int(y[i + 1] - y[i])) * (d - start) + (2 ** k) // 2) // 2 ** k
+        expected.append((v + 1) // 2)
+    assert expected == [0, 3, 5, 8, 10, 13]
+    assert T.segmented_value(y, shifts, np.arange(6), 1).tolist() == expected
+
+
+def test_every_layout_after_a_failed_one_is_still_built(sipm_b, board_pt1000, monkeypatch):
+    import compensator.firmware.tables as tables_module
+
+    def refuse(*args, **kwargs):
+        raise TableError("DAC quantisation", "no segmented table meets the bound")
+
+    monkeypatch.setattr(tables_module, "size_segmented", refuse)
+    report = T.compare_layouts(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
+    assert [c.layout for c in report.candidates] == list(T.LAYOUTS)
+    assert sorted(report.tables) == sorted(set(T.LAYOUTS) - {"segmented"})
+    assert report.candidates[1].table_bytes is None and report.candidates[2].table_bytes == 36
+
+
+def test_without_a_uniform_table_there_is_no_baseline(sipm_b, board_pt1000, monkeypatch):
+    # The half-of-uniform finding needs the uniform table: without one there is no baseline and no finding.
+    import compensator.firmware.tables as tables_module
+
+    def refuse(*args, **kwargs):
+        raise TableError("DAC quantisation", "no uniform table meets the bound")
+
+    monkeypatch.setattr(tables_module, "size_uniform", refuse)
+    report = T.compare_layouts(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
+    assert report.uniform_bytes == 0 and report.findings == ()
+    assert report.table.layout == "polynomial" and report.table.table_bytes == 10
