@@ -25,3 +25,72 @@ def test_check_curve_names_each_defect_exactly():
     neg[[2, 7]] = [0.0, -1e-9]  # first at 20 + 2 x 10/19 = 21.05 V
     assert iv.check_curve(bias_v, neg) == ("2 current value(s) are zero or negative (first at 21.05 V); give the "
                                            "reverse current as a positive magnitude")
+
+
+def test_check_curve_names_where_a_sweep_reverses():
+    # The first step sets the direction; the reason names the bias after the first step against it.
+    down = np.linspace(30.0, 20.0, 20)  # steps of -10/19 V
+    current_a = np.full(20, 1e-9)
+    assert iv.check_curve(down, current_a) == ""
+    back = down.copy()
+    back[6] = back[4]  # 30 - 4 x 10/19 = 27.89 V again: the step to index 6 goes up
+    assert iv.check_curve(back, current_a) == ("bias is not strictly monotonic (sweep reverses or repeats at "
+                                               "27.89 V)")
+    repeat = down.copy()
+    repeat[9] = repeat[8]  # a repeat in a downward sweep: 30 - 8 x 10/19 = 25.79 V
+    assert iv.check_curve(repeat, current_a) == ("bias is not strictly monotonic (sweep reverses or repeats at "
+                                                 "25.79 V)")
+    first = np.concatenate(([20.0, 19.9], np.linspace(20.1, 22.0, 18)))  # the very first step goes back
+    assert iv.check_curve(first, current_a) == ("bias is not strictly monotonic (sweep reverses or repeats at "
+                                                "20.1 V)")
+    flat = np.full(20, 25.0)
+    assert iv.check_curve(flat, current_a) == "bias is not strictly monotonic (sweep reverses or repeats at 25 V)"
+
+
+def power_law_a(bias_v, breakdown_v):
+    """Exponential leakage plus a power law of exponent 2 (the docstring example of find_breakdown)."""
+    x = np.clip(bias_v - breakdown_v, 0.0, None)
+    return 1e-11 * np.exp(0.1 * (bias_v - breakdown_v)) + 1e-6 * x ** 2
+
+
+GRID_V = np.arange(20.0, 30.0, 0.05)
+
+
+def test_each_curve_on_its_own_grid_up_or_down():
+    # Noise-free curves of the joint fit's own model: it returns the generating breakdown to 1 uV. Each curve
+    # has its own bias row: the first upward, the second 13 mV higher and swept downward; a third row with a
+    # zero current is refused without stopping the analysis of the rows after it.
+    up, down = GRID_V, (GRID_V + 0.013)[::-1]
+    bias = np.vstack([GRID_V, up, down])
+    bad = power_law_a(GRID_V, 24.5)
+    bad[10] = 0.0  # at 20.5 V
+    current = np.vstack([bad, power_law_a(up, 24.5), power_law_a(down, 24.8)])
+    r = iv.find_breakdown(bias, current)
+    assert r.reason == ("1 current value(s) are zero or negative (first at 20.5 V); give the reverse current as a "
+                        "positive magnitude", "", "")
+    assert r.breakdown_v[1:] == pytest.approx([24.5, 24.8], abs=1e-6) and np.isnan(r.breakdown_v[0])
+    assert r.bias_v[2, 0] == pytest.approx(20.013, abs=1e-12)  # analysed upward on its own grid
+
+
+def test_a_shared_grid_swept_downward():
+    current = np.vstack([power_law_a(GRID_V, 24.5), power_law_a(GRID_V, 24.8)])
+    r = iv.find_breakdown(GRID_V[::-1], current[:, ::-1])
+    assert r.breakdown_v == pytest.approx([24.5, 24.8], abs=1e-6) and r.reason == ("", "")
+    assert r.bias_v[0, 0] == pytest.approx(20.0, abs=1e-12)
+
+
+@pytest.mark.parametrize("call, key, reason", [
+    (lambda: iv.find_breakdown(GRID_V, power_law_a(GRID_V, 24.5), "knee"), "method",
+     "method must be one of inverse-log-derivative, log-derivative-peak, second-derivative; got 'knee'"),
+    (lambda: iv.find_breakdown(GRID_V, np.ones((1, 1, 200))), "current_a",
+     "current_a must be 1-D or 2-D (curves x points)"),
+    (lambda: iv.find_breakdown(GRID_V[:150], np.ones(200)), "bias_v", "bias_v has 150 points but current_a has 200"),
+    (lambda: iv.find_breakdown(np.ones((3, 200)), np.ones((2, 200))), "bias_v",
+     "bias_v shape (3, 200) does not match current_a shape (2, 200)"),
+])
+def test_find_breakdown_refusals_name_their_key(call, key, reason):
+    from compensator.errors import ModelError
+
+    with pytest.raises(ModelError) as exc:
+        call()
+    assert (exc.value.key, exc.value.reason) == (key, reason)
