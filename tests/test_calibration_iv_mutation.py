@@ -118,3 +118,12 @@ def test_a_curve_too_short_below_breakdown_for_a_leakage_model():
     assert r.ok.all() and r.leakage_points[0] == 0
     assert np.isnan(r.leakage_slope_per_v[0]) and np.isnan(r.leakage_current_a[0])
     assert r.breakdown_v[0] == pytest.approx(20.8, abs=0.005)
+
+
+def test_a_zero_current_on_a_shared_grid_is_named():
+    current = np.vstack([power_law_a(GRID_V, 24.5), power_law_a(GRID_V, 24.5)])
+    current[1, 4] = 0.0  # at 20.2 V
+    r = iv.find_breakdown(GRID_V, current)
+    assert r.reason[1] == ("1 current value(s) are zero or negative (first at 20.2 V); give the reverse current as "
+                           "a positive magnitude")
+    assert r.reason[0] == "" and r.breakdown_v[0] == pytest.approx(24.5, abs=1e-6)
