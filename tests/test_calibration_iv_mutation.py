@@ -127,3 +127,23 @@ def test_a_zero_current_on_a_shared_grid_is_named():
     assert r.reason[1] == ("1 current value(s) are zero or negative (first at 20.2 V); give the reverse current as "
                            "a positive magnitude")
     assert r.reason[0] == "" and r.breakdown_v[0] == pytest.approx(24.5, abs=1e-6)
+
+
+@pytest.mark.parametrize("method, joint_fit", [("inverse-log-derivative", False), ("log-derivative-peak", True),
+                                               ("second-derivative", True)])
+def test_leakage_current_at_each_methods_breakdown(method, joint_fit):
+    # Below breakdown the curve is exactly 1e-11 exp(0.1 (V - 24.5)) A, so the straight line through ln I is
+    # exact, and the leakage at the breakdown a method reports is that exponential there.
+    r = iv.find_breakdown(GRID_V, power_law_a(GRID_V, 24.5), method, joint_fit=joint_fit)
+    assert r.ok.all() and r.leakage_slope_per_v[0] == pytest.approx(0.1, rel=1e-6)
+    assert r.leakage_current_a[0] == pytest.approx(1e-11 * np.exp(0.1 * (r.breakdown_v[0] - 24.5)), rel=1e-6)
+
+
+def test_a_curve_without_a_breakdown_is_refused_with_its_rise():
+    # The current rises 1.5-fold from 20 V to 29.95 V: less than MIN_CURRENT_RATIO (20). Nothing of a refused
+    # curve is reported, and its flags are down.
+    current = np.vstack([power_law_a(GRID_V, 24.5), 1e-9 * (1.0 + 0.5 * (GRID_V - 20.0) / 9.95)])
+    r = iv.find_breakdown(GRID_V, current)
+    assert r.reason[1] == "no breakdown in range: the current rises only 1.5-fold between 20 V and 29.95 V"
+    assert r.joint_fit.tolist() == [True, False] and not r.leakage_limited[1]
+    assert all(np.isnan(getattr(r, name)[1]) for name in iv._FLOAT_FIELDS)
