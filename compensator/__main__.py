@@ -1,14 +1,12 @@
-"""Allow ``python -m compensator``; Ctrl-C even while the libraries load is one line and exit status 130."""
+"""Allow ``python -m compensator`` (the same as the ``compensator`` program, :func:`compensator.cli.run`)."""
 
 import sys
 
 __all__: list[str] = []
 
 try:
-    from compensator.cli import main
-
-    status = main()
-except KeyboardInterrupt:
+    from compensator.cli import run
+except KeyboardInterrupt:  # in the few milliseconds before run() takes charge of Ctrl-C
     print("compensator: interrupted", file=sys.stderr)
-    status = 130
-sys.exit(status)
+    sys.exit(130)
+run()

@@ -97,8 +97,8 @@ def check_targets(paths, *, overwrite: bool = False) -> list[Problem]:
 def terminate_as_interrupt():
     """Within the block, SIGTERM raises :class:`KeyboardInterrupt` so that clean-up code runs.
 
-    Outside the main thread (where signal handlers cannot be set) the block
-    runs unchanged.
+    Outside the main thread (where signal handlers cannot be set), and when
+    SIGTERM is already ignored or handled, the block runs unchanged.
     """
     if threading.current_thread() is not threading.main_thread():
         yield
@@ -107,6 +107,9 @@ def terminate_as_interrupt():
     def interrupt(signum, frame):
         raise KeyboardInterrupt(f"signal {signum}")
 
+    if signal.getsignal(signal.SIGTERM) not in (signal.SIG_DFL, None):
+        yield  # ignored, or already handled (compensator.cli.main's handler raises KeyboardInterrupt once)
+        return
     try:
         previous = signal.signal(signal.SIGTERM, interrupt)
     except (ValueError, OSError):  # not settable here
@@ -282,7 +285,8 @@ def write_files_atomic(directory, files: dict, overwrite: bool = False, what: st
     Parameters
     ----------
     directory : str or path-like
-        Created with its parents when missing.
+        Created with its parents when missing (and removed again when the
+        set is not written).
     files : dict
         File name -> content (str or bytes), in writing order.
     overwrite : bool
@@ -307,8 +311,15 @@ def write_files_atomic(directory, files: dict, overwrite: bool = False, what: st
     problems = check_targets(targets, overwrite=overwrite)
     if problems:
         raise InputError(problems)
-    output_dir(directory, what)
-    return write_file_set(targets, overwrite=overwrite, make_dirs=False)
+    missing = [p for p in (directory, *directory.parents) if not p.exists()]  # innermost first
+    try:
+        output_dir(directory, what)
+        return write_file_set(targets, overwrite=overwrite, make_dirs=False)
+    except BaseException:  # including Ctrl-C and SIGTERM: the folders this call made go again
+        for folder in missing:
+            with contextlib.suppress(OSError):
+                folder.rmdir()
+        raise
 
 
 class _JsonLimit(ValueError):

@@ -6,6 +6,7 @@ import contextlib
 import io
 from dataclasses import dataclass
 from pathlib import Path
+from typing import NamedTuple
 
 import pytest
 from hypothesis import settings
@@ -42,6 +43,20 @@ def run_cli(*argv) -> CliResult:
 def cli():
     """The in-process command-line runner."""
     return run_cli
+
+
+class DemoRun(NamedTuple):
+    """One run of ``compensator demo --json --out DIR`` on the bundled profiles."""
+
+    result: CliResult
+    out_dir: Path
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory) -> DemoRun:
+    """The demo run once for the whole suite (it is the most expensive command): its JSON and the folder it wrote."""
+    out = tmp_path_factory.mktemp("demo-run") / "fw"
+    return DemoRun(run_cli("demo", "--profiles", PROFILES, "--json", "--out", out), out)
 
 
 @pytest.fixture(scope="session")

@@ -146,3 +146,41 @@ def test_board_code_writes_c_that_compiles(cli, tmp_path):
         assert compiled.returncode == 0 and compiled.stderr == ""
     again = cli("board-code", "--out", out)
     assert again.status == 2 and "already exists" in again.stderr
+    assert "#define SUPPLY_FAULT_TICKS 3u" in (out / "interlocks.c").read_text()
+
+
+def test_board_code_states_the_supply_check(cli, tmp_path):
+    # hut-board-ntc reads its bias back (one code is 3.3 V / 4096 / 0.08 = 10.07 mV of output); hut-board-pt1000
+    # does not, and says that a supply fault cannot be detected there.
+    ntc = cli("board-code", "--out", tmp_path / "a", "--sipm", PROFILES / "hut-sipm-a.yaml", "--board",
+              PROFILES / "hut-board-ntc.yaml")
+    assert "supply check: bias read-back within 84 codes of the set value, else supply_fault after 3 ticks" \
+        in ntc.stdout
+    pt = cli("board-code", "--out", tmp_path / "b", "--sipm", PROFILES / "hut-sipm-b.yaml", "--board",
+             PROFILES / "hut-board-pt1000.yaml")
+    assert "a supply fault cannot be detected" in pt.stdout
+    assert "cannot be detected" in (tmp_path / "b" / "interlocks.h").read_text()
+
+
+@pytest.mark.parametrize("argv, needle", [
+    (["--name", "my link;"], "--name: 'my link;' must be a C identifier of at most 24"),
+    (["--name", ""], "--name: '' must be a C identifier of at most 24"),
+    (["--sipm", str(PROFILES / "hut-sipm-a.yaml")], "--board: the interlocks need both --sipm and --board"),
+])
+def test_board_code_refuses_in_a_fresh_process(argv, needle, tmp_path):
+    # A fresh process loads the interlocks' C renderer before anything else of the firmware package; that once
+    # met the PID modules' import cycle and ended in a traceback.
+    proc = subprocess.run([sys.executable, "-m", "compensator", "board-code", "--out", str(tmp_path / "c"), *argv],
+                          capture_output=True, text=True, timeout=120)
+    lines = proc.stderr.strip().splitlines()
+    assert proc.returncode == 2 and len(lines) == 1 and lines[0].startswith(f"compensator: <command line>: {needle}"
+                                                                            ), proc.stderr
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("first", ["pid_fixed", "pid_c", "interlocks_c", "pid"])
+def test_firmware_modules_import_in_any_order(first):
+    code = (f"import compensator.firmware.{first}; from compensator.firmware.pid import FixedPid, quantise_pid; "
+            "from compensator.firmware.pid_fixed import FixedPid as F; print(FixedPid is F, quantise_pid.__name__)")
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.stdout.split() == ["True", "quantise_pid"], proc.stderr

@@ -307,3 +307,55 @@ strategies:
         plant.step(dac, cooler_current_a=cooler_a)
     assert plant.reading.outdoor_temp_c == pytest.approx(10.0)
     assert cooler_a != 0.0 and plant.reading.time_s == pytest.approx(5.0)
+
+
+@pytest.mark.parametrize("kind", ["stuck", "high"])
+def test_a_supply_that_stops_following_its_dac_latches_supply_fault(sipm_a, board_ntc, kind):
+    # From board time 2 s the supply ignores its DAC: stuck at the safe output it holds then (unseen until the set
+    # value moves away), or failed high (seen at once). The host sees the latched flag and the safe state over the
+    # pty; the recorded value is the read-back minus the expected code, beyond the limit (84 codes on this board).
+    with running(sipm_a, board_ntc, plant_faults=PlantFaults(supply=kind, at_s=2.0)) as sim, \
+            _client(sim, ramp_down_on_exit=False) as board:
+        lim = sim.firmware.config.limits
+        _wait_until(lambda: sim.plant.reading.time_s > 3.0)
+        if kind == "stuck":
+            assert board.faults().latched == []
+            board.set_bias(28.0)
+            board.enable()
+        _wait_until(lambda: "supply_fault" in board.faults().latched)
+        s = board.status()
+        assert s.mode == "safe" and s.bias_dac_code == lim.safe_dac_code
+        trip = next(t for t in board.faults().trips if t.fault == "supply_fault")
+        assert abs(trip.trip_value) > lim.supply_fault_codes == 84
+        assert (trip.trip_value < 0) == (kind == "stuck")   # stuck reads low (the set bias rose), high reads high
+        with pytest.raises(BoardRefused) as info:
+            board.enable()
+        assert info.value.result == p.Result.REFUSED_FAULT
+        if kind == "high":
+            # the measured bias shows what the supply gives, well above the set (safe) value; the cause holds
+            assert s.telemetry.bias_measured_v > s.telemetry.bias_set_v + 1.0
+            assert "supply_fault" in board.clear_faults()
+        else:
+            # back at the safe code the stuck supply agrees again: the cause has gone and the fault clears
+            _wait_until(lambda: board.clear_faults() == [], timeout_s=2.0)
+
+
+def test_a_healthy_supply_never_raises_supply_fault(sipm_a, board_ntc):
+    # A full ramp up and down at the slew limit with the unit's drawn tolerances: no supply fault.
+    with running(sipm_a, board_ntc, time_scale=60.0) as sim, _client(sim) as board:
+        board.set_bias(30.0)
+        board.enable()
+        _wait_until(lambda: board.status().bias_dac_code == int(board_ntc.supply.dac_code(30.0)))
+        board.disable()
+        _wait_until(lambda: board.status().mode == "off")
+        assert "supply_fault" not in board.faults().latched and sim.firmware.config.readback is not None
+
+
+def test_without_a_readback_channel_a_supply_fault_goes_unseen(sipm_b, board_pt1000):
+    # hut-board-pt1000 has no bias read-back: the firmware cannot tell (the documented limit of the check).
+    with running(sipm_b, board_pt1000, plant_faults=PlantFaults(supply="high")) as sim, \
+            _client(sim, ramp_down_on_exit=False) as board:
+        board.set_bias(float(board_pt1000.supply.output_range_v()[0]) + 0.5)
+        board.enable()
+        _wait_until(lambda: sim.plant.reading.time_s > 5.0)
+        assert "supply_fault" not in board.faults().latched and board.status().mode == "fixed"

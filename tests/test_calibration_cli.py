@@ -14,7 +14,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tools"))
 import make_demo_data  # noqa: E402
 
 from compensator.calibration.batch import Progress  # noqa: E402
-from compensator.cli._common import EXIT_NOTHING_ANALYSED  # noqa: E402
+from compensator.cli._common import EXIT_NOTHING_ANALYSED, EXIT_OK, EXIT_USAGE  # noqa: E402
 from compensator.profiles import load_sipm  # noqa: E402
 
 
@@ -76,8 +76,9 @@ def test_iv_bad_files_one_line_each_and_batch_goes_on(cli, demo, tmp_path):
     assert [c["ok"] for c in doc["curves"]] == [False, False, True, False, False]
     assert doc["curves"][2]["breakdown_v"] is not None
     assert "Traceback" not in r.stderr
+    # Every file failed on input (the user's mistake): exit 2, one located line per file.
     none = cli("calibrate", "iv", missing, no_column)
-    assert none.status == EXIT_NOTHING_ANALYSED == 3 and len(none.stderr.strip().splitlines()) == 2
+    assert none.status == EXIT_USAGE == 2 and len(none.stderr.strip().splitlines()) == 2
 
 
 def test_iv_temperature_from_option_and_plot(cli, demo, tmp_path):
@@ -115,8 +116,8 @@ def test_spectrum_json_contract_and_plot(cli, demo, truth, tmp_path):
     assert (tmp_path / f"{Path(spec['file']).stem}-spectrum.png").exists()
     bad = tmp_path / "empty.csv"
     bad.write_text("charge,counts\n0.1,0\n0.2,0\n")
-    r = cli("calibrate", "spectrum", bad)
-    assert r.status == EXIT_NOTHING_ANALYSED == 3 and r.stderr.count("\n") == 1 and str(bad) in r.stderr
+    r = cli("calibrate", "spectrum", bad)  # refused by the reader: the user's mistake
+    assert r.status == EXIT_USAGE == 2 and r.stderr.count("\n") == 1 and f"{bad}: counts: " in r.stderr
 
 
 def test_spectrum_fit_range_and_amplitude_models(cli, demo, truth):
@@ -203,8 +204,9 @@ def test_tempco_csv_and_bad_input(cli, demo, tmp_path):
     assert r.status == 0 and "mV/K" in r.stdout
     one = tmp_path / "one.csv"
     one.write_text("temp_c,breakdown_v\n25,24.5\n25,24.51\n")
-    r = cli("calibrate", "tempco", one)
-    assert r.status == 2 and r.stderr.startswith(f"compensator: {one}: ") and r.stderr.count("\n") == 1
+    r = cli("calibrate", "tempco", one)  # read, but one temperature carries no coefficient: nothing analysed
+    assert r.status == EXIT_NOTHING_ANALYSED == 3 and r.stderr.startswith(f"compensator: {one}: ")
+    assert "2 distinct temperatures, got 1" in r.stderr and r.stderr.count("\n") == 1 and r.stdout == ""
     junk = tmp_path / "junk.json"
     junk.write_text("{not json")
     r = cli("calibrate", "tempco", junk)
@@ -259,7 +261,7 @@ def test_csv_reader_names_file_line_column_and_reason(cli, tmp_path, text, fragm
     path = tmp_path / "bad.csv"
     path.write_text(text)
     r = cli("calibrate", "iv", path)
-    assert r.status == EXIT_NOTHING_ANALYSED == 3
+    assert r.status == EXIT_USAGE == 2
     assert r.stderr.startswith(f"compensator: {path}") and fragment in r.stderr
     assert r.stderr.count("\n") == 1
 
@@ -268,7 +270,7 @@ def test_gain_table_checks_and_manifest_paths(cli, demo, tmp_path):
     bad = tmp_path / "g.csv"
     bad.write_text("bias_v,gain,gain_err\n26,1e6,0\n27,2e6,1e4\n28,3e6,1e4\n")
     r = cli("calibrate", "gain-scan", bad)
-    assert r.status == EXIT_NOTHING_ANALYSED == 3 and f"{bad}:2: gain_err: gain errors must be positive" in r.stderr
+    assert r.status == EXIT_USAGE == 2 and f"{bad}:2: gain_err: gain errors must be positive" in r.stderr
     manifest = tmp_path / "m.csv"
     lines = (demo / "spectra" / "manifest.csv").read_text().splitlines()
     rows = [lines[0]] + [f"{demo / 'spectra' / ln.split(',')[0]},{ln.split(',', 1)[1]}" for ln in lines[1:4]]
@@ -388,10 +390,87 @@ def test_iv_bench_export_with_column_map_and_notes(cli, demo, tmp_path, truth):
     assert curve["breakdown_v"] == pytest.approx(expected, abs=3 * curve["breakdown_err_v"] + 0.005)
     assert "converted from microampere to ampere" in r.stderr and "decimal commas" in r.stderr
     bad = cli("calibrate", "iv", path, "--columns", "bias=nope")
-    assert bad.status == EXIT_NOTHING_ANALYSED and "nope" in bad.stderr and bad.stderr.count("\n") == 1
+    assert bad.status == EXIT_USAGE and "nope" in bad.stderr and bad.stderr.count("\n") == 1
 
 
 def test_write_profile_to_a_directory_is_named_as_such(cli, demo, tmp_path, profiles_dir):
     r = cli("calibrate", "tempco", demo / "breakdown_scan.csv", "--write-profile", tmp_path,
             "--base", profiles_dir / "hut-sipm-a.yaml")
     assert r.status == 2 and "is a directory" in r.stderr and r.stderr.count("\n") == 1
+
+
+def _flat_iv(path):
+    """A readable I-V curve with no breakdown in it (an ohmic leak only): read, then not analysable."""
+    bias = np.linspace(20.0, 30.0, 101)
+    path.write_text("bias_v,current_a\n" + "".join(f"{v:.3f},{1e-9 * (1 + 0.01 * v):.6e}\n" for v in bias))
+    return path
+
+
+def test_exit_status_rule_of_every_subcommand(cli, demo, truth, tmp_path):
+    """Exit 2 when every file failed on input, 3 when inputs were valid but nothing was analysed, else 0."""
+    binary = tmp_path / "binary.csv"
+    binary.write_bytes(bytes(range(256)) * 64)
+    nan = tmp_path / "nan.csv"
+    nan.write_text("bias_v,current_a\nnan,nan\n1,2\n")
+    flat = _flat_iv(tmp_path / "flat.csv")
+    good = demo / "iv" / "ch01_p20C.csv"
+    # iv: bad input only -> 2, one located line per file
+    r = cli("calibrate", "iv", binary, nan)
+    assert r.status == EXIT_USAGE == 2 and r.stderr.splitlines() == [
+        f"compensator: {binary}:1: not a text file (a NUL byte); export the data as CSV text",
+        f"compensator: {nan}:2: bias_v: not a finite number: 'nan'"]
+    # iv: read but not analysable -> 3, with the reason and its numbers
+    r = cli("calibrate", "iv", flat, "--json")
+    assert r.status == EXIT_NOTHING_ANALYSED == 3
+    curve = json.loads(r.stdout)["curves"][0]
+    assert curve["ok"] is False and "1.08-fold between 20 V and 30 V" in curve["reason"]
+    # iv: bad input and an analysis failure, nothing analysed -> 2 (not every input was valid)
+    assert cli("calibrate", "iv", flat, nan).status == 2
+    # iv: one good curve among failures -> 0; the failures are in the JSON with ok false and a reason
+    r = cli("calibrate", "iv", binary, flat, good, "--json")
+    assert r.status == EXIT_OK == 0 and r.stderr.count("\n") == 2
+    c = json.loads(r.stdout)["curves"]
+    assert [x["ok"] for x in c] == [False, False, True] and all(x["reason"] for x in c[:2]) and c[2]["reason"] is None
+    expected = {x["file"]: x["breakdown_v"] for x in truth["iv_curves"]}["iv/ch01_p20C.csv"]
+    assert c[2]["breakdown_v"] == pytest.approx(expected, abs=0.03)
+
+    # spectrum: bad input -> 2; a readable spectrum whose fit fails -> 3 (test_spectrum_fit_range...); mixed -> 0
+    spec = truth["spectra_files"][2]
+    assert cli("calibrate", "spectrum", binary).status == 2
+    r = cli("calibrate", "spectrum", binary, demo / spec["file"], "--json")
+    assert r.status == 0 and [s["ok"] for s in json.loads(r.stdout)["spectra"]] == [False, True]
+    assert json.loads(r.stdout)["spectra"][1]["gain_in_charge_unit"] == pytest.approx(spec["gain_pc"], rel=0.005)
+
+    # gain-scan: a table refused by the reader -> 2; a table read whose gain falls with bias -> 3; mixed -> 0
+    falling = tmp_path / "falling.csv"
+    falling.write_text("bias_v,gain\n26,3e6\n27,2e6\n28,1e6\n")
+    assert cli("calibrate", "gain-scan", binary).status == 2
+    r = cli("calibrate", "gain-scan", falling, "--json")
+    assert r.status == 3 and "gain does not rise with bias" in r.stderr and r.stderr.count("\n") == 1
+    assert json.loads(r.stdout)["scans"][0]["ok"] is False
+    gain_file = demo / truth["gain_scans"][0]["file"]
+    r = cli("calibrate", "gain-scan", falling, gain_file, "--json")
+    scan = json.loads(r.stdout)["scans"][1]
+    assert r.status == 0 and scan["breakdown_v"] == pytest.approx(truth["gain_scans"][0]["breakdown_v"],
+                                                                  abs=3 * scan["breakdown_err_v"])
+    # gain-scan from spectra: every spectrum missing -> 2 (one line per file plus the scan's)
+    r = cli("calibrate", "gain-scan", "--spectra", tmp_path / "a.csv", tmp_path / "b.csv", tmp_path / "c.csv",
+            "--bias-v", "26", "27", "28")
+    assert r.status == 2 and r.stderr.count("no such file") == 3
+
+    # tempco: one file; refused by the reader -> 2, read but no coefficient in it -> 3 (test_tempco_csv_and_bad_input)
+    assert cli("calibrate", "tempco", binary).status == 2
+
+
+def test_batch_status_classifies_a_batch():
+    from types import SimpleNamespace as R
+
+    from compensator.calibration.batch import BatchStatus, batch_status
+
+    good, bad_input, failed = R(ok=True, failed_on_input=False), R(ok=False, failed_on_input=True), \
+        R(ok=False, failed_on_input=False)
+    assert batch_status([bad_input, failed, good]) is BatchStatus.ANALYSED
+    assert batch_status([bad_input, bad_input]) is BatchStatus.BAD_INPUT
+    assert batch_status([bad_input, failed]) is BatchStatus.BAD_INPUT
+    assert batch_status([failed, failed]) is BatchStatus.NOTHING_ANALYSED
+    assert batch_status([]) is BatchStatus.BAD_INPUT

@@ -135,6 +135,48 @@ def test_joint_fit_is_exact_on_its_model_from_a_poor_start():
     assert nan_start.ok.tolist() == [True, False, True] and np.isnan(nan_start.breakdown_v[1])
 
 
+def test_joint_fit_finds_the_least_squares_optimum_of_scipy():
+    # The compiled Levenberg-Marquardt loop against scipy.optimize.least_squares (MINPACK's LM) on the same
+    # model and window, from the same start, on noisy bent curves with leakage: the same optimum, to the
+    # convergence tolerance of ten microvolts; the second-order model (the systematic part) likewise.
+    from scipy.optimize import least_squares
+
+    from compensator.calibration.ivjoint import _solve, _window
+
+    rng = np.random.default_rng(11)
+    truth = np.array([24.2, 24.5, 24.8, 24.4])
+    leak = leakage_at_crossing_a(0.1, exponent=2.0, leakage_slope_per_v=0.5)
+    current = simulate_iv(rng, GRID_V, truth, leakage_a=leak, leakage_slope_per_v=0.5, relative_noise=0.01,
+                          geiger_scale_v=1.0)
+    win = _window(np.broadcast_to(GRID_V, current.shape), np.log(current), truth + 0.01, 3.0, 2.0)
+    start = np.column_stack([truth + 0.01, np.full(4, np.log(1e-6)), np.full(4, 2.0), np.zeros(4),
+                             np.full(4, np.log(leak)), np.full(4, 0.5)])
+
+    def residuals(theta, bias, ln_i):
+        vb, c, k, g, la, b = theta[:6]
+        h = theta[6] if theta.size > 6 else 0.0
+        xr = bias - vb
+        x = np.where(xr > 0, xr, 1.0)
+        aval = np.where(xr > 0, np.exp(c + k * np.log(x) + (g + h * x) * x), 0.0)
+        return ln_i - np.log(np.exp(la + b * xr) + aval)
+
+    # The second-order model's optimum lies in a long flat valley, where a step below ten microvolts may stop
+    # short of it by a few tenths of a millivolt (at a cost a few parts per million above the optimum).
+    for params, tol_v, rel in ((start, 2e-5, 1e-6), (np.column_stack([start, np.zeros(4)]), 5e-4, 1e-4)):
+        ours = _solve(win, params, 200)
+        assert ours.converged.all()
+        for i in range(4):
+            n = int(win.mask[i].sum())
+            ref = least_squares(residuals, params[i], method="lm", xtol=1e-12, ftol=1e-12,
+                                args=(win.bias_v[i, :n], win.ln_current[i, :n]))
+            assert ours.params[i, 0] == pytest.approx(ref.x[0], abs=tol_v)
+            assert 2 * ref.cost * (1 - 1e-9) <= ours.cost[i] <= 2 * ref.cost * (1 + rel)  # scipy's is half the sum
+            if params.shape[1] == 7:
+                continue
+            assert ours.params[i, 2] == pytest.approx(ref.x[2], abs=1e-3)  # the exponent k
+            assert ours.params[i, 4] == pytest.approx(ref.x[4], abs=1e-3)  # ln of the leakage at breakdown
+
+
 @pytest.mark.parametrize("crossing_v", [0.05, 0.1, 0.2, 0.3])
 @pytest.mark.parametrize("k", [1.5, 2.0, 3.0])
 def test_leakage_subtraction_is_exact_on_exponential_plus_power_law(crossing_v, k):
@@ -325,3 +367,99 @@ def test_joint_fit_window_cut_by_the_end_of_the_sweep():
     # (or the end of the sweep); the start values lie within 20 mV of the truth
     np.testing.assert_allclose(r.fit_lo_v, [21.55, 20.45], atol=1e-9)
     np.testing.assert_allclose(r.fit_hi_v, [25.7, 25.4], atol=1e-9)
+
+
+def test_peak_vertex_and_its_error_against_numpy_polyfit():
+    # The peak methods' refinement: the vertex of a parabola weighted by 1/sigma^2 through the points within
+    # hw = clip(half window, 2, 6) of the sample peak (cut at the ends of the sweep), its error by the delta
+    # method, scaled by sqrt(max(chi2/ndf, 1)) and by the correlation factor; against numpy.polyfit's weighted
+    # fit and covariance. Curves: errors claimed 5x too small (the chi2 scale acts), a wide window with a
+    # correlation factor, windows cut at both ends of the sweep (an asymmetric fit: the covariance of the
+    # linear and quadratic terms counts), a slightly convex curve and a vertex beyond the window (both keep
+    # the sample point with a uniform error of one step / sqrt(12)).
+    from compensator.calibration.ivpeaks import _fit_peak
+
+    rng = np.random.default_rng(5)
+    grid = np.broadcast_to(np.round(np.arange(20.0, 22.0001, 0.05), 4), (6, 41)).copy()
+    n = grid.shape[1]
+    top = np.array([20.93, 21.04, 20.07, 21.21, 21.0, 21.97])
+    values = 3.0 - 40.0 * (grid - top[:, None]) ** 2 + 0.05 * rng.standard_normal(grid.shape)
+    values[3] = 1.0 + 0.5 * (grid[3] - top[3]) ** 2  # convex (0 < c2 < 1)
+    p = np.argmin(np.abs(grid - top[:, None]), axis=1)
+    p[4] += 12  # the sample peak 0.6 V from the vertex
+    half = np.array([1, 4, 9, 3, 1, 4])  # hw = 2, 4, 6, 3, 2, 4
+    sigma = np.array([0.01, 0.05, 0.2, 0.05, 0.05, 0.05])
+    corr = np.array([1.0, 2.0, 1.5, 1.0, 1.0, 1.0])
+    out = {k: np.full(6, np.nan) for k in ("breakdown_v", "breakdown_stat_err_v", "breakdown_sys_err_v",
+                                          "fit_lo_v", "fit_hi_v")}
+    _fit_peak(grid, values, p, half, sigma, corr, out)
+    for i, hw in ((0, 2), (1, 4), (2, 6), (5, 4)):
+        lo, hi = max(p[i] - hw, 0), min(p[i] + hw, n - 1)
+        x, y = grid[i, lo:hi + 1] - grid[i, p[i]], values[i, lo:hi + 1]
+        coef, cov = np.polyfit(x, y, 2, w=np.full(x.size, 1 / sigma[i]), cov="unscaled")
+        c2, c1 = coef[0], coef[1]
+        vertex = -c1 / (2 * c2)
+        g = np.array([c1 / (2 * c2 ** 2), -1 / (2 * c2)])  # d vertex / d(c2, c1)
+        chi2 = np.sum(((y - np.polyval(coef, x)) / sigma[i]) ** 2)
+        err = np.sqrt(g @ cov[:2, :2] @ g) * np.sqrt(max(chi2 / (x.size - 3), 1.0)) * corr[i]
+        assert out["breakdown_v"][i] == pytest.approx(grid[i, p[i]] + vertex, abs=1e-9)
+        assert out["breakdown_stat_err_v"][i] == pytest.approx(err, rel=1e-6)
+        assert (out["fit_lo_v"][i], out["fit_hi_v"][i]) == pytest.approx((grid[i, lo], grid[i, hi]))
+        assert out["breakdown_v"][i] == pytest.approx(top[i], abs=0.02)
+    assert (p[2] - 6 < 0 and p[5] + 4 > n - 1) and out["fit_lo_v"][2] == 20.0 and out["fit_hi_v"][5] == 22.0
+    for i in (3, 4):
+        assert out["breakdown_v"][i] == grid[i, p[i]]
+        assert out["breakdown_stat_err_v"][i] == pytest.approx(0.05 / 12 ** 0.5, rel=1e-12)
+    np.testing.assert_allclose(out["breakdown_sys_err_v"], 0.025)
+
+
+def test_second_derivative_needs_a_maximum_below_the_knee():
+    # A breakdown 0.1 V above the start of the sweep leaves no maximum of d2 ln I/dV2 below the knee (it sits
+    # within half a filter window of the start): a failed curve with its reason; 0.3 V above, the maximum is
+    # found, below the breakdown (the onset of the knee, within one 50 mV step).
+    grid = np.round(np.arange(20.0, 31.0001, 0.05), 4)
+    truth = np.array([20.1, 20.3, 24.5])
+    current = iv_current_a(grid[None, :], truth[:, None], exponent=2.0, leakage_a=1e-12, leakage_slope_per_v=0.05)
+    r = find_breakdown(grid, current, "second-derivative")
+    assert r.reason[0] == "no breakdown in range: no maximum of d2 ln I/dV2 below the knee"
+    assert np.isnan(r.breakdown_v[0]) and not r.ok[0]
+    assert r.ok[1:].all() and r.reason[1:] == ("", "")
+    assert np.all(r.breakdown_v[1:] <= truth[1:]) and np.all(r.breakdown_v[1:] >= truth[1:] - 0.05)
+
+
+def test_second_derivative_point_errors_are_the_filter_noise_gain(monkeypatch):
+    # The second-derivative method weights its parabola by the noise of the smoothed d2 ln I/dV2: the noise of
+    # ln I times the norm of the Savitzky-Golay coefficients of the chosen window (scipy.signal.savgol_coeffs,
+    # cubic, second derivative, step dV), and scales the vertex error by sqrt(window / 2) for the correlation
+    # of neighbouring smoothed points.
+    from scipy.signal import savgol_coeffs
+
+    import compensator.calibration.ivpeaks as peaks
+    from compensator.calibration.ivsignal import estimate_log_noise
+
+    seen = {}
+    real_fit, real_d2 = peaks._fit_peak, peaks._second_derivative
+
+    def spy_fit(grid, values, p, half, sigma, corr, out):
+        seen.update(half=half.copy(), sigma=sigma.copy(), corr=corr.copy())
+        return real_fit(grid, values, p, half, sigma, corr, out)
+
+    def spy_d2(grid, ln_i, knee, step_v, out, reasons):
+        seen.update(ln_i=ln_i.copy(), step_v=step_v)
+        return real_d2(grid, ln_i, knee, step_v, out, reasons)
+
+    monkeypatch.setattr(peaks, "_fit_peak", spy_fit)
+    import compensator.calibration.iv as iv_module
+    monkeypatch.setattr(iv_module, "_second_derivative", spy_d2)
+    rng = np.random.default_rng(9)
+    current = simulate_iv(rng, GRID_V, np.array([24.2, 24.8]), relative_noise=0.01, geiger_scale_v=1.0)
+    find_breakdown(GRID_V, current, "second-derivative")
+    windows = 2 * seen["half"] + 1
+    noise = estimate_log_noise(seen["ln_i"])  # of the curve the method analyses (its leakage growth removed)
+    step = seen["step_v"]
+    assert step == pytest.approx(GRID_V[1] - GRID_V[0])
+    for i, w in enumerate(windows):
+        gain = np.linalg.norm(savgol_coeffs(int(w), 3, deriv=2, delta=step))
+        assert seen["sigma"][i] == pytest.approx(noise[i] * gain, rel=1e-9)
+        assert seen["corr"][i] == pytest.approx(np.sqrt(max(w / 2.0, 1.0)), rel=1e-12)
+    assert np.all(windows >= 5)

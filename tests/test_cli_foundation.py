@@ -103,8 +103,8 @@ def test_sensor_both_directions(cli, profiles_dir):
     assert bad.status == 2 and "outside the 16-bit ADC range" in bad.stderr
 
 
-def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
-    result = cli("demo", "--profiles", profiles_dir, "--json", "--out", tmp_path / "fw")
+def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, demo_run):
+    result, out_dir = demo_run
     assert result.status == 0, result.stderr
     data = json.loads(result.stdout)
     assert "caution" in result.stderr and "IEC 61010-1" in result.stderr
@@ -141,17 +141,30 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, tmp_path):
         # Robust tuning holds Ms at 1.4 (Astrom and Hagglund's robustness measure, evaluated with python-control).
         assert lp["stable"] and lp["ms"] <= 1.4 * 1.001 and lp["gain_margin"] > 2
     assert loops["cooler"]["kp"] < 0  # more current cools
-    # A second run never overwrites what the first wrote, and says so before writing anything.
-    before = {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")}
-    again = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw")
+    # The simulated week (7 days at 0.5 Hz) on the bundled scenario: the table holds the gain far better than a
+    # fixed bias, and the week's figures and report were written.
+    week = data["simulation"]
+    assert week["ticks"] == 7 * 86400 // 2 and week["comparison"]["uncompensated_over_compensated"] > 20
+    assert sorted(p.name for p in (out_dir / "simulation").iterdir()) == [
+        "report.html", "sim-bias.png", "sim-gain.png", "sim-temperatures.png", "sim-yield.png"]
+    # A second run never overwrites what the first wrote, and says so before its long work (no caution printed).
+    before = {p: p.stat().st_mtime_ns for p in out_dir.rglob("*")}
+    again = cli("demo", "--profiles", profiles_dir, "--out", out_dir)
     # 9 table files and the simulated week's 4 figures and report
-    assert again.status == 2 and again.stderr.count("already exists") == 9 + 5
-    assert {p: p.stat().st_mtime_ns for p in (tmp_path / "fw").rglob("*")} == before
-    forced = cli("demo", "--profiles", profiles_dir, "--out", tmp_path / "fw", "--force", "--step-c", "35")
+    assert again.status == 2 and again.stderr.count("already exists") == 9 + 5 and "caution" not in again.stderr
+    assert {p: p.stat().st_mtime_ns for p in out_dir.rglob("*")} == before
+    # Forced, with another print step and a shorter simulated stretch (0.25 days: 10800 ticks at 0.5 Hz).
+    forced = cli("demo", "--profiles", profiles_dir, "--out", out_dir, "--force", "--step-c", "35", "--days", "0.25")
     assert forced.status == 0 and forced.stdout.count("wrote ") == 9 + 5
-    # The headline figures do not depend on the print step.
-    line = next(x for x in forced.stdout.splitlines() if x.startswith("gain error against 25 C"))
-    assert "at fixed bias 27.500 V 50.2 % peak-to-peak" in line and "2393 ADC codes" in line
+    assert "0.25 days, tick 2 s" in forced.stdout
+    # The headline figures do not depend on the print step: the text at 35 K gives the JSON's at 10 K.
+    lines = [x for x in forced.stdout.splitlines() if x.startswith("gain error against 25 C")]
+    assert "at fixed bias 27.500 V 50.2 % peak-to-peak" in lines[0] and "2393 ADC codes" in lines[0]
+    for line, inst in zip(lines, data["instruments"], strict=True):
+        d = inst["drift"]
+        assert (f"through the firmware's integer path {d['firmware_gain_error_ptp_pct']:.3f} % peak-to-peak "
+                f"(largest absolute {d['firmware_gain_error_max_abs_pct']:.3f} %)") in line
+        assert f"with the law {d['law_gain_error_ptp_pct']:.3f} % peak-to-peak" in line
 
 
 def test_demo_missing_profiles(cli, tmp_path):

@@ -93,3 +93,60 @@ def test_the_default_is_a_dark_sipm(path, result_of, board_ntc):
     assert np.array_equal(result_of.sipm_bias_v, dark.sipm_bias_v)
     assert not np.array_equal(result_of.sipm_bias_v,
                               integer_path_gain_error(table, law, board_ntc, photon_rate_hz=1.0).sipm_bias_v)
+
+
+def _by_hand_pct(sipm_a, board_ntc, table, temps_c, codes):
+    """The path with plain steps: table DAC code, supply line, dark-current drop across 10 kohm solved by fixed
+    point, and G = C (V - Vbd) / q with C constant (hut-sipm-a.yaml), against 3 V over breakdown at 25 C."""
+    from compensator.physics.sipm import breakdown_v, steady_current_a
+
+    dac = table.lookup(np.asarray(codes, dtype=np.int64))[0]
+    out_v = board_ntc.supply.intercept_v + board_ntc.supply.volts_per_code * dac
+    v = out_v
+    for _ in range(50):
+        v = out_v - 1e4 * steady_current_a(sipm_a.device, v, temps_c)
+    return 100 * ((v - breakdown_v(sipm_a.device, temps_c)) / 3.0 - 1)
+
+
+def test_edges_are_the_extremes_over_every_temperature_of_the_range(path, sipm_a, board_ntc):
+    # Independent check: sample the whole range every 0.5 mK, read each temperature as the board's ADC does and
+    # push it through the path by hand; the edge figure bounds all of it and is reached to within one sample's
+    # worth of gain change (tempco / Vov = 0.72 %/K, so 0.5 mK moves the gain by 4e-4 %).
+    law, table, _ = path
+    edges = integer_path_gain_error(table, law, board_ntc, within_code="edges")
+    centre = integer_path_gain_error(table, law, board_ntc, within_code="centre")
+    channel = board_ntc.temperature
+    ends_c = channel.temp_at(np.array([table.code_lo, table.code_hi + 1.0]))
+    temps = np.arange(ends_c.min() + 1e-7, ends_c.max() - 1e-7, 5e-4)
+    codes = channel.adc_code(temps)
+    keep = (codes >= table.code_lo) & (codes <= table.code_hi)
+    dense = _by_hand_pct(sipm_a, board_ntc, table, temps[keep], codes[keep])
+    assert edges.codes_evaluated == centre.codes_evaluated == 2393 and edges.adc_code.size == 2 * 2393
+    assert np.abs(dense).max() <= edges.max_abs_gain_error_pct + 1e-9
+    assert np.abs(dense).max() >= edges.max_abs_gain_error_pct - 4e-4
+    assert np.ptp(dense) <= edges.peak_to_peak_gain_error_pct + 1e-9
+    assert np.ptp(dense) >= edges.peak_to_peak_gain_error_pct - 8e-4
+    # the centre sees less: the table meets its 0.05 % bound there, the edges add up to half a code's worth
+    assert centre.max_abs_gain_error_pct < edges.max_abs_gain_error_pct
+    assert edges.within_code == "edges" and centre.within_code == "centre"
+
+
+def test_an_edge_by_hand(path, sipm_a, board_ntc):
+    law, table, _ = path
+    edges = integer_path_gain_error(table, law, board_ntc, within_code="edges")
+    n, k = edges.codes_evaluated, 777
+    code = table.code_lo + k
+    lo_c, hi_c = board_ntc.temperature.temp_at(np.array([code, code + 1.0]))
+    assert edges.adc_code[k] == edges.adc_code[n + k] == code
+    assert edges.temp_c[k] == pytest.approx(lo_c) and edges.temp_c[n + k] == pytest.approx(hi_c)
+    expected = _by_hand_pct(sipm_a, board_ntc, table, np.array([lo_c, hi_c]), [code, code])
+    assert edges.gain_error_pct[[k, n + k]] == pytest.approx(expected, abs=1e-6)
+
+
+def test_within_code_must_be_known(path, board_ntc):
+    from compensator.errors import ModelError
+
+    law, table, _ = path
+    with pytest.raises(ModelError) as caught:
+        integer_path_gain_error(table, law, board_ntc, within_code="middle")
+    assert caught.value.key == "within_code"

@@ -35,8 +35,16 @@ def falling(sipm_a, board_ntc, cooler):
 
 @pytest.fixture(scope="module")
 def rising(sipm_b, board_pt1000):
-    """Direct supply: the bias rises with the code; no cooler."""
+    """Direct supply: the bias rises with the code; no cooler; no bias read-back (no supply check)."""
     return build_interlock_limits(sipm_b, board_pt1000)
+
+
+@pytest.fixture(scope="module")
+def rising_readback(sipm_b, board_pt1000, board_ntc):
+    """The direct supply with the other board's bias read-back channel fitted."""
+    import dataclasses
+
+    return build_interlock_limits(sipm_b, dataclasses.replace(board_pt1000, bias_readback=board_ntc.bias_readback))
 
 
 def _inputs(lim, board, temp_c, request_code, *, now_ms=0, enabled=1, last_host_ms=None, **extra):
@@ -215,17 +223,18 @@ int main(void)
     ilk_inputs in;
     ilk_outputs out;
     char op;
-    long long a[11];
+    long long a[12];
     int b;
     ilk_init(&s);
     while (scanf(" %c", &op) == 1) {
         if (op == 's') {
-            for (b = 0; b < 11; ++b) if (scanf("%lld", &a[b]) != 1) return 1;
+            for (b = 0; b < 12; ++b) if (scanf("%lld", &a[b]) != 1) return 1;
             in.now_ms = (uint32_t)a[0]; in.adc_code = (uint32_t)a[1]; in.temp_mdegc = (int32_t)a[2];
             in.request_dac_code = (uint32_t)a[3]; in.outputs_enabled = (uint8_t)a[4];
             in.last_host_ms = (uint32_t)a[5]; in.sipm_current_na = (int32_t)a[6];
             in.hot_side_mdegc = (int32_t)a[7]; in.cold_side_mdegc = (int32_t)a[8];
             in.dew_point_mdegc = (int32_t)a[9]; in.cooler_request = (int32_t)a[10];
+            in.bias_readback_code = (int32_t)a[11];
             ilk_step(&s, &in, &out);
             printf("%lu %ld %lu %lu %u\n", (unsigned long)out.dac_code, (long)out.cooler_drive,
                    (unsigned long)out.faults_live, (unsigned long)out.faults_latched, (unsigned)out.state);
@@ -249,9 +258,26 @@ int main(void)
 """
 
 
+def _readback(rng, lim, level):
+    """A bias read-back code near what the level should read (the supply-fault limit straddled), or far off."""
+    if not lim.supply_fault_ticks or rng.random() < 0.05:
+        return ABSENT
+    if rng.random() < 0.02:
+        return rng.choice([0, (1 << 31) - 1, -(1 << 31) + 1, rng.randint(0, 1 << 24)])
+    expected = lim.expected_readback_code(level)
+    spread = lim.supply_fault_codes + 2 if rng.random() < 0.7 else 4 * lim.supply_fault_codes
+    return expected + rng.randint(-spread, spread)
+
+
 def _random_script(lim, board, seed, n):
-    """A long random walk with faults, clears, latches, wrapping clock and extreme values."""
+    """A long random walk with faults, clears, latches, wrapping clock and extreme values.
+
+    A Python reference runs alongside only to know the level the bias read-back should show; the script is
+    fixed input for both C and Python.
+    """
     rng = random.Random(seed)
+    shadow = Interlocks(lim)
+    stuck = None
     temp = 20_000
     now = (1 << 32) - 20_000  # the clock wraps within the run
     last_host = now
@@ -281,11 +307,18 @@ def _random_script(lim, board, seed, n):
         cold = rng.choice([ABSENT, temp])
         dew = rng.choice([ABSENT, rng.randint(-10_000, 25_000)])
         cool = rng.randint(-(1 << 31), (1 << 31) - 1) if rng.random() < 0.01 else rng.randint(-3000, 3000)
-        lines.append(("s", (now, code, temp_in, req, enabled, last_host, cur, hot, cold, dew, cool)))
+        if rng.random() < 0.003:  # the supply stops following its DAC for a while, or follows it again
+            stuck = None if stuck is not None else shadow.limits.level(shadow.dac_code)
+        level = shadow.limits.level(shadow.dac_code) if stuck is None else stuck
+        args = (now, code, temp_in, req, enabled, last_host, cur, hot, cold, dew, cool, _readback(rng, lim, level))
+        lines.append(("s", args))
+        shadow.step(InterlockInputs(*args))
         if rng.random() < 0.03:
             lines.append(("c", (rng.choice([0xFFFFFFFF, 1 << rng.randint(0, 9), rng.getrandbits(32)]),)))
+            shadow.clear(lines[-1][1][0])
         if rng.random() < 0.005:
             lines.append(("l", (1 << rng.randint(0, 12), now, rng.randint(-(1 << 40), 1 << 40))))
+            shadow.latch(*lines[-1][1])
         if rng.random() < 0.01:
             lines.append(("r", ()))
         if rng.random() < 0.01:
@@ -313,13 +346,13 @@ def _python_answers(lim, script):
 
 
 @needs_cc
-@pytest.mark.parametrize("which", ["falling", "rising"])
+@pytest.mark.parametrize("which", ["falling", "rising", "rising_readback"])
 def test_c_is_bit_exact_over_long_random_sequences(which, request, tmp_path, board_ntc, board_pt1000):
     lim = request.getfixturevalue(which)
     board = board_ntc if which == "falling" else board_pt1000
     files = render_interlocks_c(lim, name="ilk")
     exe = build(tmp_path, {**files, "main.c": HARNESS}, STRICT)
-    script = _random_script(lim, board, seed=3 if which == "falling" else 5, n=12_000)
+    script = _random_script(lim, board, seed={"falling": 3, "rising": 5, "rising_readback": 7}[which], n=12_000)
     text = "\n".join(f"{op} {' '.join(str(a) for a in args)}" for op, args in script) + "\n"
     result = subprocess.run([str(exe)], input=text, capture_output=True, text=True, check=True)
     c_lines = result.stdout.splitlines()
@@ -330,6 +363,9 @@ def test_c_is_bit_exact_over_long_random_sequences(which, request, tmp_path, boa
     # the walk visited every kind of outcome
     states = {int(line.split()[4]) for op_line, line in zip(script, py_lines) if op_line[0] == "s"}
     assert states == {STATE_RUN, STATE_OFF, STATE_TRIPPED}
+    supply_trips = sum(int(line.split()[2]) & FaultFlag.SUPPLY_FAULT != 0
+                       for op_line, line in zip(script, py_lines) if op_line[0] == "s")
+    assert (supply_trips > 20) == (which != "rising"), supply_trips   # without a read-back channel: never
 
 
 def test_render_is_deterministic_and_carries_the_caution(falling, sipm_a, board_ntc, tmp_path):
@@ -420,3 +456,95 @@ def test_bits_beyond_the_records_latch_and_clear(falling):
     assert ilk.faults_latched == 1 << 16 | FaultFlag.REQUEST_REFUSED
     assert ilk.trip_record(8) == (5, 7)
     assert ilk.clear(1 << 16) == FaultFlag.REQUEST_REFUSED
+
+
+# ---------------------------------------------------------------- supply fault (bias read-back)
+
+def test_expected_readback_follows_the_supply_and_readback_models(falling, board_ntc):
+    # Independently: the supply's nominal output at each DAC code, read through the read-back's own transfer.
+    codes = np.arange(0, falling.dac_full_scale + 1, 97)
+    truth = board_ntc.bias_readback.adc_code(board_ntc.supply.output_v(codes))
+    ours = np.array([falling.expected_readback_code(falling.level(int(c))) for c in codes])
+    assert np.max(np.abs(ours - truth)) <= 1
+
+
+def test_a_healthy_board_at_any_tolerance_corner_stays_inside_the_limit(falling, board_ntc):
+    # Every tolerance of the supply and the read-back at random values within its bounds (uniform), at every
+    # tenth DAC code: the reading never strays further from the expected code than the limit.
+    from compensator.physics.supply import network_output_v
+
+    rng = np.random.default_rng(11)
+    supply, rb = board_ntc.supply, board_ntc.bias_readback
+    codes = np.arange(0, falling.dac_full_scale + 1, 10)
+    worst = 0
+    for _ in range(200):
+        r = rng.uniform(-1, 1, 8)
+        out = network_output_v(supply, codes, dac_error=r[0] * 1e-2 * (supply.dac.reference_tolerance_pct
+                                                                     + supply.dac.gain_error_pct),
+                               dac_offset_lsb=r[1] * (supply.dac.offset_lsb + supply.dac.inl_lsb),
+                               resistor_errors=tuple(r[2:5] * 1e-2 * supply.resistor_tolerance_pct),
+                               feedback_error=r[5] * 1e-2 * supply.feedback_tolerance_pct)
+        read = rb.adc_code(out, divider_error=r[6] * 1e-2 * rb.divider_tolerance_pct,
+                           reference_error=r[7] * 1e-2 * rb.reference_tolerance_pct, offset_v=r[7] * rb.offset_v)
+        expected = np.array([falling.expected_readback_code(falling.level(int(c))) for c in codes])
+        worst = max(worst, int(np.max(np.abs(read - expected))))
+    assert 0 < worst <= falling.supply_fault_codes
+
+
+def _steady(lim, board, level, *, readback, now_ms):
+    return _inputs(lim, board, 20.0, lim.code(level), now_ms=now_ms, bias_readback_code=readback)
+
+
+def test_a_slew_over_the_whole_range_never_trips(falling, board_ntc):
+    ilk = Interlocks(falling)
+    top = falling.limit_level(20_000)
+    for k in range(2 * (top // falling.slew_levels_per_tick) + 10):
+        # the read-back shows the level applied over the last tick, as a healthy supply does
+        rb = falling.expected_readback_code(falling.level(ilk.dac_code))
+        out = ilk.step(_steady(falling, board_ntc, top if k < top // falling.slew_levels_per_tick + 5 else 0,
+                               readback=rb, now_ms=k * falling.tick_ms))
+        assert not out.faults_latched & FaultFlag.SUPPLY_FAULT
+    assert out.state == STATE_RUN
+
+
+def test_a_supply_that_stops_following_latches_after_the_stated_ticks(falling, board_ntc):
+    ilk = Interlocks(falling)
+    stuck = falling.expected_readback_code(falling.level(ilk.dac_code))   # frozen at the safe output
+    target = falling.limit_level(20_000)
+    k = 0
+    while True:  # ramp up with a read-back that no longer moves
+        out = ilk.step(_steady(falling, board_ntc, target, readback=stuck, now_ms=k * falling.tick_ms))
+        k += 1
+        if out.faults_latched & FaultFlag.SUPPLY_FAULT:
+            break
+        assert k < 1000
+    # the first tick beyond the limit is the first whose applied level (before the step) reads too far away
+    levels = [falling.level(falling.safe_dac_code) + falling.slew_levels_per_tick * j for j in range(k)]
+    beyond = [abs(stuck - falling.expected_readback_code(v)) > falling.supply_fault_codes for v in levels]
+    first = beyond.index(True)
+    assert k == first + falling.supply_fault_ticks and out.state == STATE_TRIPPED
+    # the recorded value is the read-back minus the expected code (the supply reads low: the bias rose no further)
+    assert out.dac_code == falling.safe_dac_code and ilk.trip_record(9)[1] < -falling.supply_fault_codes
+    assert falling.supply_fault_ticks == 3 and falling.supply_fault_codes == 84
+    # stuck at the safe output, the supply agrees with the safe state again: the cause is gone, the fault clears
+    out = ilk.step(_steady(falling, board_ntc, target, readback=stuck, now_ms=k * falling.tick_ms))
+    assert not out.faults_live & FaultFlag.SUPPLY_FAULT and ilk.clear(int(FaultFlag.SUPPLY_FAULT)) == 0
+
+
+def test_a_supply_failed_high_stays_latched(falling, board_ntc):
+    ilk = Interlocks(falling)
+    high = falling.readback_max_code + 200  # beyond the highest output the regulator should ever give
+    for k in range(falling.supply_fault_ticks - 1):
+        out = ilk.step(_steady(falling, board_ntc, 0, readback=high, now_ms=k * falling.tick_ms))
+        assert not out.faults_live & FaultFlag.SUPPLY_FAULT   # not yet: fewer ticks than the count
+    out = ilk.step(_steady(falling, board_ntc, 0, readback=high, now_ms=10 * falling.tick_ms))
+    assert out.faults_latched & FaultFlag.SUPPLY_FAULT and out.state == STATE_TRIPPED
+    assert ilk.clear(int(FaultFlag.SUPPLY_FAULT)) & FaultFlag.SUPPLY_FAULT   # the cause holds: it stays
+
+
+def test_without_a_readback_channel_nothing_is_checked(rising, board_pt1000):
+    ilk = Interlocks(rising)
+    for k in range(50):
+        out = ilk.step(_inputs(rising, board_pt1000, 20.0, rising.bias_limit_level, now_ms=k * rising.tick_ms,
+                               bias_readback_code=0))
+    assert rising.supply_fault_ticks == 0 and not out.faults_latched & FaultFlag.SUPPLY_FAULT

@@ -169,3 +169,20 @@ def test_simulate_bad_arguments_exit_2(tmp_path, profiles_dir, cli, argv, needle
 def test_simulate_missing_scenario_file(cli, tmp_path):
     res = cli("simulate", tmp_path / "nothing.yaml")
     assert res.status == 2 and "nothing.yaml" in res.stderr and "cannot read" in res.stderr
+
+
+def test_optional_sections_left_out_take_their_documented_defaults(tmp_path, profiles_dir):
+    # No strategies, light, gain_trim, unit or monte_carlo section: the defaults of hardware_profiles/README.md
+    # (uncompensated and compensated on, no light, no Monte Carlo) and a run of 0.05 days at 0.2 Hz = 864 ticks.
+    from compensator.sim.run import simulate_scenario
+
+    sc = load_scenario(write(tmp_path, profiles_dir))
+    assert sc.strategies == ("uncompensated", "compensated")
+    assert sc.section("light") == {"day_photon_rate_hz": 0.0, "night_photon_rate_hz": 0.0}
+    assert sc.section("monte_carlo")["units"] == 0 and sc.section("unit")["breakdown_error_v"] == 0.0
+    assert sc.section("gain_trim")["window_s"] == 600.0
+    report = simulate_scenario(sc)
+    assert [r.name for r in report.runs] == ["uncompensated", "compensated"] and report.ticks == 864
+    assert report.yield_ is None
+    # uncompensated at fixed bias drifts far more than the table (hut-sipm-a: 21.5 mV/K over 3 V)
+    assert report.uncompensated_over_compensated > 20

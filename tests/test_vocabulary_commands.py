@@ -18,8 +18,16 @@ sys.path.pop(0)
 
 
 @pytest.fixture(scope="module")
-def runs(tmp_path_factory):
-    return update_json_docs.collect(tmp_path_factory.mktemp("json"))
+def runs(tmp_path_factory, demo_run):
+    # The demo's document is the suite's one demo run (--out and the print step change no name); the other
+    # commands run here.
+    import json
+
+    demo = next(inv for inv in update_json_docs.INVOCATIONS if inv.command == "demo")
+    others = tuple(inv for inv in update_json_docs.INVOCATIONS if inv is not demo)
+    shared = update_json_docs.Run(invocation=demo, argv=("demo", "--json"), status=demo_run.result.status,
+                                  document=json.loads(demo_run.result.stdout), stderr=demo_run.result.stderr)
+    return [shared, *update_json_docs.collect(tmp_path_factory.mktemp("json"), others)]
 
 
 def _json_commands(parser: argparse.ArgumentParser, prefix: str = "") -> set[str]:

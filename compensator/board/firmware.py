@@ -66,6 +66,8 @@ class BoardConfig:
         Cooler current per PID output count, ampere.
     dew_point_c : float or None
         Dew point of the enclosure air when the humidity is known, degree Celsius.
+    readback : BiasReadback or None
+        The bias read-back channel (``None`` without one: no supply-fault check).
     """
 
     board_name: str
@@ -80,6 +82,7 @@ class BoardConfig:
     cooler_setpoint_code: int = 0
     cooler_amps_per_count: float = 1e-3
     dew_point_c: float | None = None
+    readback: object | None = None
 
 
 class BoardFirmware:
@@ -385,12 +388,14 @@ class BoardFirmware:
         if self._pid is not None and self.enabled:
             cooler_request = self._pid.step(cfg.cooler_setpoint_code, reading.sensor_adc_code)
         dew = ABSENT if cfg.dew_point_c is None else int(round(cfg.dew_point_c * 1000.0))
+        # the read-back channel's ADC reads the supply output held over the last tick
+        readback = ABSENT if cfg.readback is None else int(cfg.readback.adc_code(reading.supply_v))
         out = self.interlocks.step(InterlockInputs(
             now_ms=self.now_ms & 0xFFFFFFFF, adc_code=reading.sensor_adc_code, temp_mdegc=self._temp_mdegc,
             request_dac_code=self._request_code(reading.sensor_adc_code), outputs_enabled=int(self.enabled),
             last_host_ms=self.last_host_ms & 0xFFFFFFFF, sipm_current_na=current_na, hot_side_mdegc=hot,
             cold_side_mdegc=self._temp_mdegc if hot != ABSENT else ABSENT, dew_point_mdegc=dew,
-            cooler_request=cooler_request))
+            cooler_request=cooler_request, bias_readback_code=readback))
         if out.state != 0 and self._pid is not None:
             self._pid.reset(0)
         self._out = out

@@ -96,13 +96,25 @@ class PlantFaults:
         Temperature sensor fault.
     hot_side : bool
         The cooler's hot side reads above its limit.
+    supply : {"stuck", "high"} or None
+        The bias supply stops following its DAC: ``"stuck"`` holds the
+        output it had when the fault began, ``"high"`` goes to its highest
+        output (a regulator failed high). Only a board with a bias read-back
+        channel can notice (``SUPPLY_FAULT``).
     at_s : float
         Board time from which they hold, second.
     """
 
     sensor: str | None = None
     hot_side: bool = False
+    supply: str | None = None
     at_s: float = 0.0
+
+    def __post_init__(self):
+        if self.sensor not in (None, "open", "short"):
+            raise ModelError(f"must be open or short, got {self.sensor!r}", key="sensor")
+        if self.supply not in (None, "stuck", "high"):
+            raise ModelError(f"must be stuck or high, got {self.supply!r}", key="supply")
 
 
 def build_board(sipm, board, thermal=None, *, scenario=None, overvoltage_v: float | None = None,
@@ -173,7 +185,8 @@ def build_board(sipm, board, thermal=None, *, scenario=None, overvoltage_v: floa
         temperature=setup.board.temperature, current_lsb_a=None if sense is None else float(sense.lsb_a),
         min_overvoltage_v=setup.sipm.min_overvoltage_v, max_overvoltage_v=setup.sipm.max_overvoltage_v,
         table_overvoltage_v=float(setup.law.overvoltage_v), cooler_setpoint_code=int(setup.cooler_setpoint_code),
-        cooler_amps_per_count=float(setup.pid.output_per_count) if setup.pid is not None else 1e-3, dew_point_c=dew)
+        cooler_amps_per_count=float(setup.pid.output_per_count) if setup.pid is not None else 1e-3, dew_point_c=dew,
+        readback=setup.board.bias_readback)
     firmware = BoardFirmware(config, table=setup.table, pid=setup.pid if plant.cooled else None,
                              table_image=table_image(setup.table),
                              pid_image=pid_image(setup.pid) if setup.pid is not None and plant.cooled else b"")
@@ -219,6 +232,7 @@ class SimulatedBoard:
         self.time_scale = float(time_scale)
         self.line = line or LineFaults()
         self.plant_faults = plant_faults or PlantFaults()
+        self._stuck_code = None
         self._clock = clock
         self._rng = random.Random(self.line.seed)
         self._dir = tempfile.mkdtemp(prefix="compensator-board-")
@@ -350,10 +364,20 @@ class SimulatedBoard:
             if faults.sensor is not None:
                 self.plant.inject_sensor_fault(faults.sensor if active else None)
             dac, cooler_a, telemetry = self.firmware.tick(reading, hot_side_fault=faults.hot_side and active)
-            self.plant.step(dac, cooler_current_a=cooler_a)
+            self.plant.step(self._supply_code(dac, active), cooler_current_a=cooler_a)
             self.ticks += 1
             if telemetry:
                 self._send(telemetry, now, reply=False)
+
+    def _supply_code(self, dac_code: int, active: bool) -> int:
+        """The DAC code the supply acts on: the firmware's, unless an injected supply fault ignores it."""
+        kind = self.plant_faults.supply
+        if kind is None or not active:
+            return dac_code
+        if self._stuck_code is None:
+            lim = self.firmware.config.limits
+            self._stuck_code = self.plant.reading.dac_code if kind == "stuck" else lim.code(lim.dac_full_scale)
+        return self._stuck_code
 
     def run(self, *, duration_s: float | None = None) -> None:
         """Serve the host until :meth:`stop` (or ``duration_s`` of wall-clock time).

@@ -15,6 +15,7 @@ import re
 import sys
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
+from enum import IntEnum
 from pathlib import Path
 
 import numpy as np
@@ -22,6 +23,9 @@ import numpy as np
 from compensator.calibration.iv import DEFAULT_METHOD, DEFINITIONS, find_breakdown
 from compensator.calibration.measurements import read_iv, read_spectrum
 from compensator.errors import CompensatorError, InputError, Problem
+
+__all__ = ["Progress", "IvRecord", "BatchStatus", "batch_status", "SpectrumRecord", "analyse_iv_files",
+           "analyse_spectrum_files", "channel_from_name", "default_jobs"]
 
 
 class Progress:
@@ -75,8 +79,10 @@ class IvRecord:
     """Outcome for one I-V file.
 
     ``reason`` is empty for an analysed curve; ``error_line`` is the one-line
-    message for a failed one (``FILE[:LINE]: [column: ]reason``). Arrays are
-    kept for plots.
+    message for a failed one (``FILE[:LINE]: [column: ]reason``);
+    ``failed_on_input`` tells a file that could not be read (the user's
+    mistake: not a CSV, a bad cell, a missing column) from a curve that was
+    read but could not be analysed. Arrays are kept for plots.
     """
 
     file: str
@@ -101,6 +107,7 @@ class IvRecord:
     notes: tuple = ()
     reason: str = ""
     error_line: str = ""
+    failed_on_input: bool = False
     bias_v: np.ndarray = field(default=None, repr=False)
     current_a: np.ndarray = field(default=None, repr=False)
     grid_v: np.ndarray = field(default=None, repr=False)
@@ -123,6 +130,49 @@ class IvRecord:
             "leakage_fraction": self.leakage_fraction, "leakage_limited": bool(self.leakage_limited),
             "joint_fit": bool(self.joint_fit), "decimation": self.decimation, "notes": list(self.notes),
         }
+
+
+class BatchStatus(IntEnum):
+    """What a batch of files gave, as a whole (the command maps it to its exit status)."""
+
+    #: At least one file was analysed (failures among them are reported per file).
+    ANALYSED = 0
+    #: Nothing was analysed and at least one file failed on input (the user's mistake).
+    BAD_INPUT = 1
+    #: Every file was read, but no analysis succeeded.
+    NOTHING_ANALYSED = 2
+
+
+def batch_status(records) -> BatchStatus:
+    """Classify a batch: analysed, bad input, or read but not analysable.
+
+    Parameters
+    ----------
+    records : iterable
+        Records with ``ok`` and ``failed_on_input`` attributes
+        (:class:`IvRecord`, :class:`SpectrumRecord`, or any such record).
+
+    Returns
+    -------
+    BatchStatus
+        ``ANALYSED`` when any record is ``ok``; otherwise ``NOTHING_ANALYSED``
+        only when every input was valid (each record failed in the analysis),
+        and ``BAD_INPUT`` when any file failed on input (or there were none).
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace as R
+    >>> batch_status([R(ok=False, failed_on_input=True), R(ok=True, failed_on_input=False)]).name
+    'ANALYSED'
+    >>> batch_status([R(ok=False, failed_on_input=False)]).name
+    'NOTHING_ANALYSED'
+    """
+    records = list(records)
+    if any(r.ok for r in records):
+        return BatchStatus.ANALYSED
+    if records and not any(r.failed_on_input for r in records):
+        return BatchStatus.NOTHING_ANALYSED
+    return BatchStatus.BAD_INPUT
 
 
 def channel_from_name(path, pattern) -> str | None:
@@ -164,7 +214,7 @@ def _iv_chunk(paths, method, temp_c, keep_arrays, channel_pattern=None, columns=
                                                          f"{channel_pattern!r}"))
         except CompensatorError as exc:
             msg = str(exc).splitlines()[0]
-            records[i] = IvRecord(path, None, method, reason=msg, error_line=msg)
+            records[i] = IvRecord(path, None, method, reason=msg, error_line=msg, failed_on_input=True)
             continue
         bias = data.bias_v
         key = (bias.size, bias.tobytes())
@@ -260,13 +310,18 @@ def analyse_iv_files(paths, *, method=DEFAULT_METHOD, temp_c=None, jobs=1, keep_
 
 @dataclass(frozen=True)
 class SpectrumRecord:
-    """Outcome for one spectrum file: the ``SpectrumFit`` or a reason."""
+    """Outcome for one spectrum file: the ``SpectrumFit`` or a reason.
+
+    ``failed_on_input`` is true when the file could not be read (as for
+    :class:`IvRecord`), false when a readable spectrum could not be fitted.
+    """
 
     file: str
     charge_unit: str
     fit: object = None
     reason: str = ""
     error_line: str = ""
+    failed_on_input: bool = False
 
     @property
     def ok(self) -> bool:
@@ -296,7 +351,7 @@ def _spectrum_one(path, amplitudes, fit_range=None):
         data = read_spectrum(path)
     except CompensatorError as exc:
         msg = str(exc).splitlines()[0]
-        return SpectrumRecord(path, "", None, msg, msg)
+        return SpectrumRecord(path, "", None, msg, msg, failed_on_input=True)
     try:
         fit = fit_spectrum(data.charge, data.counts, amplitudes=amplitudes, fit_range=fit_range)
     except CompensatorError as exc:

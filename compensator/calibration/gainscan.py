@@ -16,6 +16,9 @@ import numpy as np
 from compensator.constants import ELEMENTARY_CHARGE_C
 from compensator.errors import CompensatorError, ModelError
 
+__all__ = ["MAX_ERROR_RATIO", "GainScanFit", "PolyFit", "SpectraScan", "fit_gain_scan", "fit_polynomial",
+    "gain_scan_from_fits", "gain_scan_from_spectra"]
+
 #: Largest ratio between the biggest and the smallest error of one weighted fit.
 MAX_ERROR_RATIO = 1e6
 

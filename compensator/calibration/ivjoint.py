@@ -52,9 +52,6 @@ JOINT_BELOW_V = 3.0
 JOINT_SPAN_V = 2.0
 #: Most Levenberg-Marquardt iterations per curve.
 JOINT_MAX_ITERATIONS = 40
-#: Parameters: breakdown, ln A, exponent k, bending g, leakage ln I at breakdown, leakage slope
-#: (and the second-order bending h of the model for the systematic part).
-_N_PARAMS = 6
 #: A fitted breakdown further than this from its start value is not trusted, volt.
 _MAX_SHIFT_V = 0.25
 
@@ -118,95 +115,23 @@ def _window(grid, ln_i, start_v, below_v, above_v) -> _Window:
     return _Window(np.take_along_axis(grid, index, axis=1), np.take_along_axis(ln_i, index, axis=1), mask)
 
 
-def _residuals(win: _Window, params, jacobian):
-    """Residuals of ln I, their sum of squares per curve and (optionally) the Jacobian columns."""
-    vb, c, k, g, la, b = params.T[:_N_PARAMS]
-    h = params[:, _N_PARAMS] if params.shape[1] > _N_PARAMS else None
-    xr = win.bias_v - vb[:, None]
-    above = xr > 0
-    x = np.where(above, xr, 1.0)
-    lx = np.log(x)
-    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        leak = np.exp(la[:, None] + b[:, None] * xr)
-        bend = g[:, None] if h is None else g[:, None] + h[:, None] * x
-        aval = np.exp(c[:, None] + k[:, None] * lx + bend * x) * above
-        total = leak + aval
-        r = (win.ln_current - np.log(total)) * win.mask
-    cost = np.einsum("ij,ij->i", r, r)
-    if not jacobian:
-        return r, cost, None
-    with np.errstate(invalid="ignore", divide="ignore"):
-        fa = aval / total * win.mask
-        fl = leak / total * win.mask
-    # d ln I / d(Vbd, c, k, g, a, b); the residual's derivative is minus these.
-    slope = k[:, None] / x + (g[:, None] if h is None else g[:, None] + 2.0 * h[:, None] * x)
-    cols = (-fa * slope, fa, fa * lx, fa * x, fl, fl * xr) + (() if h is None else (fa * x * x,))
-    return r, cost, cols
-
-
-def _normal(cols, r):
-    """Normal matrix J^T J and gradient J^T r of every curve."""
-    m, p = r.shape[0], len(cols)
-    a = np.empty((m, p, p))
-    g = np.empty((m, p))
-    for i in range(p):
-        g[:, i] = np.einsum("ij,ij->i", cols[i], r)
-        for j in range(i, p):
-            a[:, i, j] = a[:, j, i] = np.einsum("ij,ij->i", cols[i], cols[j])
-    return a, g
-
-
 def _solve(win: _Window, params, max_iterations) -> _Solution:
-    """Levenberg-Marquardt iterations over the curves still moving.
+    """Levenberg-Marquardt iterations of every curve, compiled (numba).
 
-    The residuals and Jacobian of every trial are kept when the trial is
-    accepted, so each iteration evaluates the model once.
+    Each curve starts with damping 1e-3 (relative to the diagonal of J^T J),
+    divides it by 5 after a step that lowers the cost and multiplies it by 10
+    after one that does not; it has converged after an accepted step in the
+    breakdown below ten microvolts, or when the damping passes 1e8. A curve
+    that converged keeps the normal matrix of its last iteration (its final
+    step moved it by less than ten microvolts). The residuals and normal
+    equations of every trial are kept when the trial is accepted, so each
+    iteration evaluates the model once.
     """
-    m, p = params.shape
-    params = params.copy()
-    damping = np.full(m, 1e-3)
-    eye = np.eye(p)
-    active = np.arange(m)
-    converged = np.zeros(m, dtype=bool)
-    normal = np.full((m, p, p), np.nan)
-    final_cost = np.full(m, np.nan)
-    sub = win
-    r, cost, cols = _residuals(win, params, True)
-    for _ in range(max_iterations):
-        if not active.size:
-            break
-        a, g = _normal(cols, r)
-        normal[active] = a
-        diag = np.einsum("mii->mi", a)
-        lhs = a + (damping[active, None] * np.maximum(diag, 1e-12))[:, :, None] * eye
-        bad = ~(np.all(np.isfinite(lhs), axis=(1, 2)) & np.all(np.isfinite(g), axis=1))
-        lhs[bad] = eye
-        g[bad] = 0.0
-        step = np.linalg.solve(lhs, g[:, :, None])[:, :, 0]
-        trial = params[active] + step
-        r_t, cost_t, cols_t = _residuals(sub, trial, True)
-        better = np.isfinite(cost_t) & (cost_t < cost)
-        params[active[better]] = trial[better]
-        r[better] = r_t[better]
-        cost[better] = cost_t[better]
-        for c, c_t in zip(cols, cols_t):
-            c[better] = c_t[better]
-        damping[active] = np.where(better, damping[active] * 0.2, damping[active] * 10.0)
-        # Converged: an accepted step below ten microvolts, or no step that lowers the cost any more.
-        done = (better & (np.abs(step[:, 0]) < 1e-5)) | (damping[active] > 1e8)
-        converged[active[done]] = True
-        keep = ~(done | bad)
-        final_cost[active] = cost
-        if not keep.all():
-            active = active[keep]
-            sub = _Window(sub.bias_v[keep], sub.ln_current[keep], sub.mask[keep])
-            r, cost, cols = r[keep], cost[keep], tuple(c[keep] for c in cols)
-    if active.size:  # out of iterations: the normal matrix where they stopped
-        normal[active] = _normal(cols, r)[0]
-        final_cost[active] = cost
-    # A curve that converged keeps the normal matrix of its last iteration
-    # (its final step moved it by less than ten microvolts).
-    return _Solution(params, normal, final_cost, converged)
+    from compensator.calibration.ivkernel import levenberg_marquardt  # numba: compiled on first use, then cached
+
+    count = np.asarray(win.mask.sum(axis=1), dtype=np.int64)
+    return _Solution(*levenberg_marquardt(np.ascontiguousarray(win.bias_v), np.ascontiguousarray(win.ln_current),
+                                           count, np.ascontiguousarray(params, dtype=float), int(max_iterations)))
 
 
 def _variance(sol: _Solution, mask):

@@ -22,7 +22,9 @@ from compensator.csvio import fail as _fail
 from compensator.csvio import read_text as _read_text
 from compensator.errors import ModelError
 
-
+__all__ = ["MAX_PLAUSIBLE_BIAS_V", "PLAUSIBLE_TEMP_C", "BreakdownScan", "GainScanData", "IvData", "ManifestEntry",
+           "SpectrumData", "check_bias", "check_temperatures", "read_breakdown_scan", "read_gain_scan", "read_iv",
+           "read_manifest", "read_spectrum"]
 
 #: Temperatures (degree Celsius) outside this range are refused as implausible for a SiPM bench.
 PLAUSIBLE_TEMP_C = (-200.0, 150.0)

@@ -12,6 +12,8 @@ import numpy as np
 from compensator.fileio import output_dir
 from compensator.plotting import plt, save_figure
 
+__all__ = ["plot_dir", "plot_iv", "plot_spectrum", "plot_tempco", "unique_names"]
+
 
 def plot_dir(path) -> Path:
     """Create (if needed) and return the plot directory."""

@@ -21,15 +21,14 @@ the breakdown tempco when the cell capacitance drifts with temperature.
 from __future__ import annotations
 
 import copy
-import tempfile
 from dataclasses import dataclass, field
-from pathlib import Path, PurePath
+from pathlib import PurePath
 
 import numpy as np
 from scipy import stats
 
 from compensator.calibration.gainscan import PolyFit, fit_polynomial
-from compensator.errors import InputError, ModelError, Problem, ProfileError
+from compensator.errors import ModelError
 
 __all__ = ["ALPHA", "IMPROBABLE_P", "ChannelTempco", "ConstantGainSlope", "TempcoCalibration", "TempcoFit",
            "calibrate_tempco", "calibrated_values", "chi2_p_value", "constant_gain_slope", "fit_tempco",
@@ -319,34 +318,14 @@ def write_calibrated_profile(path, base_profile, fit: TempcoFit, *, data_file=""
         The destination exists (without ``force``) or the fitted values fall
         outside the profile schema (e.g. a negative tempco); nothing is written.
     """
-    from compensator.fileio import write_file_atomic
-    from compensator.provenance import banner_lines
-    from compensator.profiles import load_sipm, render_profile
+    from compensator.calibration.profilefile import write_sipm_profile
 
-    path = Path(path)
-    if path.is_dir():
-        raise InputError(Problem(str(path), 0, "", "is a directory; give a file name for the profile"))
-    if not path.parent.is_dir():
-        raise InputError(Problem(str(path), 0, "", f"folder {path.parent} does not exist"))
-    if path.exists() and not force:
-        raise InputError(Problem(str(path), 0, "", "already exists; not overwriting (use --force to replace it)"))
     values = calibrated_values(base_profile.values, fit, name=name, capacitance_f=capacitance_f,
                                capacitance_tempco_ppm_per_k=capacitance_tempco_ppm_per_k, definition=definition)
     settings = {"breakdown data": PurePath(data_file).name if data_file else "(arrays)",
                 "model": fit.model, "points": fit.n_points, "test": fit.test}
-    header = "\n".join(["calibrated sipm profile"] + banner_lines("", [base_profile], settings)[1:])
-    text = render_profile("sipm", values, header)
-    with tempfile.TemporaryDirectory() as tmp:
-        probe = Path(tmp) / path.name
-        probe.write_text(text, encoding="utf-8")
-        try:
-            load_sipm(probe)
-        except ProfileError as exc:
-            problems = [Problem(str(path), 0, p.key, f"fitted value rejected by the sipm schema: {p.reason}")
-                        for p in exc.problems if isinstance(p, Problem)] or [str(exc)]
-            raise InputError(problems) from None
-    write_file_atomic(path, text, overwrite=force)
-    return load_sipm(path)
+    return write_sipm_profile(path, base_profile, values, title="calibrated sipm profile", settings=settings,
+                              force=force)
 
 
 #: chi2/ndf is improbable (a warning) below this p-value.

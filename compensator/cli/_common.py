@@ -17,7 +17,7 @@ __all__ = [
     "JSON_FIELDS_DOC", "MAX_MAGNITUDE", "MAX_TEMPERATURE_C", "usage_error", "caution", "flush_cautions",
     "numerical_warning_lines", "print_json", "jsonable", "format_number", "format_table", "add_json_flag",
     "bounded_float", "bounded_int", "finite_float", "positive_float", "non_negative_float", "temperature_c",
-    "percent", "positive_int", "non_negative_int", "seed", "code", "is_checked_number",
+    "percent", "significance_level", "positive_int", "non_negative_int", "seed", "code", "is_checked_number",
     "LAW_FLAGS", "add_law_arguments", "drop_correction_from_args", "law_from_args", "locate_law_error",
 ]
 
@@ -213,7 +213,7 @@ def _shown(text: str) -> str:
 
 
 def bounded_float(minimum: float | None = None, maximum: float | None = None, *, above: bool = False,
-                  unit: str = ""):
+                  below: bool = False, unit: str = ""):
     """An argparse type: a finite number within bounds.
 
     Every number is also finite and within +-:data:`MAX_MAGNITUDE`.
@@ -226,6 +226,8 @@ def bounded_float(minimum: float | None = None, maximum: float | None = None, *,
         Largest value allowed (``None``: no upper bound).
     above : bool, optional
         When true, the value must be strictly greater than ``minimum``.
+    below : bool, optional
+        When true, the value must be strictly less than ``maximum``.
     unit : str, optional
         Unit shown in the message, e.g. ``"V"``.
 
@@ -241,8 +243,9 @@ def bounded_float(minimum: float | None = None, maximum: float | None = None, *,
         if minimum is not None and (value <= minimum if above else value < minimum):
             word = "greater than" if above else "at least"
             raise argparse.ArgumentTypeError(f"must be {word} {minimum:g}{tail}, got {_shown(text)}")
-        if maximum is not None and value > maximum:
-            raise argparse.ArgumentTypeError(f"must be at most {maximum:g}{tail}, got {_shown(text)}")
+        if maximum is not None and (value >= maximum if below else value > maximum):
+            word = "less than" if below else "at most"
+            raise argparse.ArgumentTypeError(f"must be {word} {maximum:g}{tail}, got {_shown(text)}")
         return value
 
     parse.__name__ = "number"
@@ -296,6 +299,8 @@ non_negative_float = bounded_float(0.0)
 temperature_c = bounded_float(-273.15, MAX_TEMPERATURE_C, above=True, unit="C")
 #: argparse type: a percentage from 0 to 100.
 percent = bounded_float(0.0, 100.0, unit="%")
+#: argparse type: a significance level or probability strictly between 0 and 1.
+significance_level = bounded_float(0.0, 1.0, above=True, below=True)
 #: argparse type: a count of at least 1 (samples, points, files).
 positive_int = bounded_int(1)
 #: argparse type: a count of at least 0.

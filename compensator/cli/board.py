@@ -21,7 +21,9 @@ COMMAND_RETRIES = 10
 CAUTION = ("caution: a controller board drives a SiPM bias of tens of volts (above 60 V dc is hazardous live, "
            "IEC 61010-1) and possibly a cooler (an unsinked hot side runs away; a cold plate below the dew point "
            "wets the electronics); a simulation is no evidence that hardware is safe. Keep limits in hardware that "
-           "does not depend on software and follow local codes and licensed practice.")
+           "does not depend on software (a bias supply that stops following its DAC is seen only through a bias "
+           "read-back, and only a hardware enable line or load switch then removes the bias) and follow local "
+           "codes and licensed practice.")
 
 
 def register(subparsers) -> None:

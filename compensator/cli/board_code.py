@@ -85,6 +85,11 @@ def run(args) -> int:
         print(f"interlocks: safe DAC code {limits.safe_dac_code} ({limits.safe_margin_v:+.3f} V below breakdown at "
               f"the coldest plausible temperature), slew {limits.slew_levels_per_tick} codes per tick, "
               f"sensor band {limits.adc_fault_lo}..{limits.adc_fault_hi}")
+        if limits.supply_fault_ticks:
+            print(f"supply check: bias read-back within {limits.supply_fault_codes} codes of the set value, else "
+                  f"supply_fault after {limits.supply_fault_ticks} ticks")
+        else:
+            print("supply check: none (the board has no bias read-back channel: a supply fault cannot be detected)")
     for p in paths:
         print(f"wrote {p}")
     return EXIT_OK

@@ -49,6 +49,9 @@ def register(subparsers) -> None:
                         help="how long each unplug lasts, second (default 0.5)")
     parser.add_argument("--sensor-fault", choices=("open", "short"), help="temperature sensor fault to inject")
     parser.add_argument("--hot-side-fault", action="store_true", help="the cooler's hot side reads over its limit")
+    parser.add_argument("--supply-fault", choices=("stuck", "high"),
+                        help="the bias supply stops following its DAC: stuck at its output, or failed high (a "
+                             "board with a bias read-back latches supply_fault; one without cannot tell)")
     parser.add_argument("--fault-at-s", type=non_negative_float, default=0.0, metavar="S",
                         help="board time from which injected plant faults hold, second")
     parser.add_argument("--time-scale", type=bounded_float(0.0, 1e6, above=True), default=1.0, metavar="X",
@@ -93,9 +96,12 @@ def run(args) -> int:
         raise exc.at("<command line>", key=f"--{exc.key.replace('_', '-')}" if exc.key else None) from None
     for finding in findings:
         print(f"{finding.severity.value}: {finding.message}", file=sys.stderr)
+    if args.supply_fault and firmware.config.readback is None:
+        print(f"warning: {firmware.config.board_name} has no bias read-back channel: the injected supply fault "
+              "cannot be detected, and the SiPM sees whatever the supply gives", file=sys.stderr)
     sim = SimulatedBoard(firmware, plant, time_scale=args.time_scale, line=line,
                          plant_faults=PlantFaults(sensor=args.sensor_fault, hot_side=args.hot_side_fault,
-                                                  at_s=args.fault_at_s))
+                                                  supply=args.supply_fault, at_s=args.fault_at_s))
     previous = {sig: signal.signal(sig, lambda *_: sim.stop()) for sig in (signal.SIGINT, signal.SIGTERM)}
     try:
         print(sim.path, flush=True)

@@ -5,19 +5,30 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 
 from compensator.cli._common import (
+    COMMAND_LINE,
+    EXIT_FAILURE,
     EXIT_NOTHING_ANALYSED,
     EXIT_OK,
+    EXIT_USAGE,
     add_json_flag,
     caution,
+    finite_float,
     format_table,
+    non_negative_int,
+    positive_float,
     print_json,
+    significance_level,
     temperature_c,
     usage_error,
 )
+
+__all__ = ["CAUTION", "COMMAND", "EXIT_NONE_ANALYSED", "HELP", "ORDER", "PLAUSIBLE_BREAKDOWN_V", "register",
+           "run_gain_scan", "run_iv", "run_spectrum", "run_tempco"]
 
 ORDER = 30
 COMMAND = "calibrate"
@@ -60,14 +71,29 @@ def register(subparsers) -> None:
 
     sp = sub.add_parser("spectrum", help="gain, pedestal, mean photoelectrons and crosstalk from charge spectra",
                         description="Fit charge spectra: histogram charge,counts or an event list with one charge column "
-                                    "(any charge unit; results come back in the same unit).")
+                                    "(any charge unit; results come back in the same unit).", epilog=CAUTION)
     sp.add_argument("files", nargs="+", metavar="FILE", help="spectra: CSV with charge[_UNIT],counts or charge[_UNIT]")
     sp.add_argument("--amplitudes", choices=AMPLITUDE_MODELS, default="gpoisson",
                     help="peak amplitudes: generalised Poisson with crosstalk (default), free, or borel for "
                          "self-triggered dark-count spectra without a pedestal")
-    sp.add_argument("--fit-range", type=float, nargs=2, metavar=("LO", "HI"),
+    sp.add_argument("--fit-range", type=finite_float, nargs=2, metavar=("LO", "HI"),
                     help="fit only charges in [LO, HI] (in the file's charge unit), e.g. to leave out an overflow bin")
-    _batch_flags(sp)
+    sp.add_argument("--write-profile", metavar="NEW.yaml",
+                    help="write a sipm profile with the measured crosstalk (needs --base and the overvoltage): "
+                         "crosstalk.probability = 1 - exp(-lambda) at the profile's reference overvoltage, "
+                         "model branching_poisson")
+    sp.add_argument("--base", metavar="BASE.yaml", help="sipm profile whose other sections the new profile keeps")
+    sp.add_argument("--name", help="name of the new profile (default: BASE name + '-calibrated')")
+    sp.add_argument("--overvoltage-v", type=positive_float, nargs="+", metavar="V",
+                    help="overvoltage of the spectra, volt: one for all or one per file (with --write-profile)")
+    sp.add_argument("--bias-v", type=positive_float, nargs="+", metavar="V",
+                    help="bias of the spectra, volt, one for all or one per file, with --temp-c: the overvoltage "
+                         "is the bias minus BASE's breakdown at that temperature")
+    sp.add_argument("--temp-c", type=temperature_c, metavar="T", help="temperature of the spectra, degree Celsius "
+                                                                       "(with --bias-v)")
+    sp.add_argument("--ref-overvoltage-v", type=positive_float, metavar="V",
+                    help="overvoltage the profile states the crosstalk at (default: BASE's crosstalk.ref_overvoltage_v)")
+    _batch_flags(sp, force_help="replace existing plots in DIR and an existing --write-profile file")
     sp.set_defaults(handler=run_spectrum)
 
     gs = sub.add_parser("gain-scan", help="breakdown voltage and cell capacitance from gain against bias",
@@ -76,13 +102,13 @@ def register(subparsers) -> None:
                                     "spectra with --spectra and one --bias-v per file, or a --manifest.")
     gs.add_argument("files", nargs="*", metavar="FILE", help="gain tables, or spectra with --spectra")
     gs.add_argument("--spectra", action="store_true", help="FILEs are charge spectra taken at the biases given by --bias-v")
-    gs.add_argument("--bias-v", type=float, nargs="+", metavar="V", help="bias of each spectrum, volt (with --spectra)")
+    gs.add_argument("--bias-v", type=positive_float, nargs="+", metavar="V", help="bias of each spectrum, volt (with --spectra)")
     gs.add_argument("--manifest", metavar="FILE", help="CSV file,bias_v[,temp_c] listing spectra (one scan per temperature)")
-    gs.add_argument("--charge-per-unit-c", type=float, metavar="C",
+    gs.add_argument("--charge-per-unit-c", type=positive_float, metavar="C",
                     help="coulomb per charge unit of the spectra (e.g. 1e-12 for pC), for the capacitance")
-    gs.add_argument("--temp-c", type=float, metavar="T", help="temperature of scans without one, degree Celsius")
+    gs.add_argument("--temp-c", type=temperature_c, metavar="T", help="temperature of scans without one, degree Celsius")
     add_json_flag(gs)
-    gs.add_argument("--jobs", type=int, default=1, metavar="N", help="worker processes for spectrum fits (default 1)")
+    gs.add_argument("--jobs", type=non_negative_int, default=1, metavar="N", help="worker processes for spectrum fits (default 1)")
     gs.add_argument("--plot", metavar="DIR", help="write spectrum plots into DIR")
     gs.add_argument("--force", action="store_true", help="replace existing plots in DIR")
     gs.set_defaults(handler=run_gain_scan)
@@ -93,11 +119,11 @@ def register(subparsers) -> None:
                                     "'calibrate gain-scan'.",
                         epilog=CAUTION)
     tc.add_argument("file", metavar="FILE", help="breakdown scan (CSV or calibrate JSON)")
-    tc.add_argument("--ref-temp-c", type=float, metavar="T",
+    tc.add_argument("--ref-temp-c", type=temperature_c, metavar="T",
                     help="reference temperature, degree Celsius (default: the base profile's, else 25)")
-    tc.add_argument("--overvoltage-v", type=float, default=3.0, metavar="V",
+    tc.add_argument("--overvoltage-v", type=positive_float, default=3.0, metavar="V",
                     help="overvoltage that sets the gain held for the constant-gain bias slope (default 3)")
-    tc.add_argument("--alpha", type=float, default=0.05, metavar="P",
+    tc.add_argument("--alpha", type=significance_level, default=0.05, metavar="P",
                     help="significance level for keeping the quadratic term (default 0.05)")
     tc.add_argument("--write-profile", metavar="NEW.yaml", help="write a calibrated sipm profile (needs --base)")
     tc.add_argument("--base", metavar="BASE.yaml", help="sipm profile whose other sections the new profile keeps")
@@ -116,11 +142,11 @@ def register(subparsers) -> None:
     tc.set_defaults(handler=run_tempco)
 
 
-def _batch_flags(parser) -> None:
+def _batch_flags(parser, force_help="replace existing plots in DIR") -> None:
     add_json_flag(parser)
     parser.add_argument("--plot", metavar="DIR", help="write one plot per file into DIR (created if missing)")
-    parser.add_argument("--force", action="store_true", help="replace existing plots in DIR")
-    parser.add_argument("--jobs", type=int, default=1, metavar="N",
+    parser.add_argument("--force", action="store_true", help=force_help)
+    parser.add_argument("--jobs", type=non_negative_int, default=1, metavar="N",
                         help="worker processes (default 1; 0 = one per CPU)")
     parser.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
                         help="progress bar on stderr (default: on a terminal, for more than one file)")
@@ -138,6 +164,14 @@ def _report_errors(records) -> None:
     for rec in records:
         if not rec.ok:
             print(f"compensator: {rec.error_line}", file=sys.stderr)
+
+
+def _exit_status(records) -> int:
+    """0 when anything was analysed; 2 when nothing was and a file failed on input; 3 when every input was valid."""
+    from compensator.calibration.batch import BatchStatus, batch_status
+
+    return {BatchStatus.ANALYSED: EXIT_OK, BatchStatus.BAD_INPUT: EXIT_USAGE,
+            BatchStatus.NOTHING_ANALYSED: EXIT_NOTHING_ANALYSED}[batch_status(records)]
 
 
 def _fmt(x, spec):
@@ -202,13 +236,100 @@ def run_iv(args) -> int:
             ["", "", "", ".4f", ".1f", ".1f", "", "", ""]))
         print(f"{len(ok)} of {len(records)} curves analysed ({args.method}: breakdown definition "
               f"{DEFINITIONS[args.method]})")
-    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
+    return _exit_status(records)
+
+
+class _CrosstalkTarget(NamedTuple):
+    """What ``calibrate spectrum --write-profile`` needs, checked before any fit."""
+
+    path: Path
+    base: object
+    overvoltage_v: np.ndarray
+    ref_overvoltage_v: float
+
+
+def _crosstalk_target(args) -> _CrosstalkTarget | None:
+    """Check the --write-profile options of ``calibrate spectrum`` (before any work); None without it."""
+    given = [flag for flag, value in (("--base", args.base), ("--name", args.name),
+                                      ("--overvoltage-v", args.overvoltage_v), ("--bias-v", args.bias_v),
+                                      ("--temp-c", args.temp_c), ("--ref-overvoltage-v", args.ref_overvoltage_v))
+             if value is not None]
+    if not args.write_profile:
+        if given:
+            raise usage_error(given[0], "applies only with --write-profile")
+        return None
+    if not args.base:
+        raise usage_error("--write-profile", "needs --base BASE.yaml (the sipm profile to calibrate)")
+    if args.amplitudes == "free":
+        raise usage_error("--write-profile", "free peak amplitudes measure no crosstalk; use --amplitudes gpoisson "
+                                             "or borel")
+    if (args.overvoltage_v is None) == (args.bias_v is None):
+        raise usage_error("--write-profile", "give the overvoltage of the spectra: --overvoltage-v V..., or "
+                                             "--bias-v V... with --temp-c T")
+    if (args.bias_v is None) != (args.temp_c is None):
+        raise usage_error("--bias-v" if args.bias_v is not None else "--temp-c", "--bias-v and --temp-c go together")
+    values = args.overvoltage_v if args.overvoltage_v is not None else args.bias_v
+    flag = "--overvoltage-v" if args.overvoltage_v is not None else "--bias-v"
+    if len(values) not in (1, len(args.files)):
+        raise usage_error(flag, f"give one value for all spectra or one per file ({len(args.files)} files, "
+                                f"{len(values)} values)")
+    from compensator.calibration.profilefile import check_profile_target
+    from compensator.physics.sipm import breakdown_v
+    from compensator.profiles import load_sipm
+
+    path = check_profile_target(args.write_profile, force=args.force)
+    base = load_sipm(args.base)
+    values = np.broadcast_to(np.asarray(values, dtype=float), (len(args.files),))
+    overvoltage = values if args.bias_v is None else values - float(breakdown_v(base.device, args.temp_c))
+    if not np.all(np.isfinite(overvoltage) & (overvoltage > 0)):
+        bad = float(overvoltage[~(np.isfinite(overvoltage) & (overvoltage > 0))][0])
+        where = "" if args.bias_v is None else f" ({args.base} puts the breakdown at " \
+                                               f"{float(breakdown_v(base.device, args.temp_c)):.3f} V at {args.temp_c:g} C)"
+        raise usage_error(flag, f"an overvoltage of {bad:.3f} V is not above breakdown{where}")
+    ref = args.ref_overvoltage_v if args.ref_overvoltage_v is not None else base.device.crosstalk_ref_overvoltage_v
+    if not (np.isfinite(ref) and ref > 0):
+        raise usage_error("--ref-overvoltage-v", f"must be positive, got {ref:g}")
+    return _CrosstalkTarget(path, base, overvoltage.copy(), float(ref))
+
+
+def _write_crosstalk_profile(args, target: _CrosstalkTarget, records):
+    """Convert the fitted branching ratios and write the profile; (calibration, written profile)."""
+    from compensator.calibration.crosstalk import calibrate_crosstalk, crosstalk_values
+    from compensator.calibration.profilefile import write_sipm_profile
+    from compensator.errors import ModelError
+
+    fits = [r.fit for r in records]
+    try:
+        cal = calibrate_crosstalk([f.crosstalk_branching_ratio for f in fits], target.overvoltage_v,
+                                  branching_ratio_err=[f.crosstalk_branching_ratio_err for f in fits],
+                                  ref_overvoltage_v=target.ref_overvoltage_v,
+                                  overvoltage_exponent=target.base.device.crosstalk_overvoltage_exponent)
+    except ModelError as exc:
+        raise exc.at(records[0].file if len(records) == 1 else COMMAND_LINE,
+                     key=None if len(records) == 1 else "--write-profile") from None
+    values = crosstalk_values(target.base.values, cal, name=args.name)
+    exponent = (f"{cal.overvoltage_exponent:.3f} +- {cal.overvoltage_exponent_err:.3f} fitted over the spectra"
+                if cal.exponent_fitted else f"{cal.overvoltage_exponent:g} kept from the base profile")
+    settings = {
+        "charge spectra": ", ".join(Path(r.file).name for r in records), "amplitudes": args.amplitudes,
+        "branching ratio lambda at the reference": f"{cal.branching_ratio_at_ref:.5f} +- "
+                                                   f"{cal.branching_ratio_err_at_ref:.5f} (1 sigma)",
+        "crosstalk.probability": f"1 - exp(-lambda) = {cal.probability_at_ref:.5f} +- {cal.probability_err_at_ref:.5f} "
+                                 "(1 sigma; Vinogradov, NIM A 695, 247, 2012)",
+        "reference overvoltage": f"{cal.ref_overvoltage_v:g} V", "overvoltage exponent": exponent,
+        "crosstalk.model": f"{cal.model} (the model of the spectrum fit)",
+    }
+    profile = write_sipm_profile(target.path, target.base, values, title="sipm profile with crosstalk calibrated "
+                                 "from charge spectra", settings=settings, force=args.force)
+    caution(CAUTION)
+    return cal, profile
 
 
 def run_spectrum(args) -> int:
     from compensator.calibration.batch import Progress, analyse_spectrum_files
 
     jobs = _jobs(args.jobs)
+    target = _crosstalk_target(args)
     plot_dir = _plot_targets(args.plot, args.files, "-spectrum.png", args.force)[0] if args.plot else None
     with Progress(len(args.files), "calibrate spectrum", enabled=args.progress) as bar:
         records = analyse_spectrum_files(args.files, amplitudes=args.amplitudes, fit_range=args.fit_range,
@@ -217,8 +338,25 @@ def run_spectrum(args) -> int:
     if plot_dir is not None:
         _plot_spectra(records, plot_dir)
     ok = [r for r in records if r.ok]
+    cal = profile = None
+    if target is not None and ok:
+        if len(ok) < len(records):  # a profile from part of the data would hide the failures
+            print(f"compensator: {target.path}: not written: {len(records) - len(ok)} of {len(records)} spectra "
+                  "could not be fitted", file=sys.stderr)
+        else:
+            cal, profile = _write_crosstalk_profile(args, target, records)
     if args.json:
-        print_json({"spectra": [r.summary() for r in records]})
+        doc = {"spectra": [r.summary() for r in records]}
+        if target is not None:
+            doc["profile_crosstalk"] = None if cal is None else {
+                "overvoltage_v": cal.ref_overvoltage_v, "crosstalk_branching_ratio": cal.branching_ratio_at_ref,
+                "crosstalk_branching_ratio_err": cal.branching_ratio_err_at_ref,
+                "crosstalk_fraction": cal.probability_at_ref, "crosstalk_fraction_err": cal.probability_err_at_ref,
+                "crosstalk_overvoltage_exponent": cal.overvoltage_exponent,
+                "crosstalk_overvoltage_exponent_err": cal.overvoltage_exponent_err if cal.exponent_fitted else None,
+                "model": cal.model, "n_points": cal.points, "chi2": cal.chi2, "ndf": cal.ndf}
+            doc["written_profile"] = None if profile is None else {"file": str(target.path), "name": profile.name}
+        print_json(doc)
     elif ok:
         print(format_table(
             [(r.file, r.charge_unit or "-", r.fit.gain, r.fit.gain_err, r.fit.pedestal, r.fit.mean_pe,
@@ -228,7 +366,16 @@ def run_spectrum(args) -> int:
             ["", "", ".5g", ".2g", ".4g", ".4f", ".4f", ".4f", ""]))
         print(f"{len(ok)} of {len(records)} spectra fitted (xt_lambda: crosstalk branching ratio; xt_fraction: "
               "probability of at least one crosstalk avalanche, 1 - exp(-xt_lambda), the profile's crosstalk.probability)")
-    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
+        if cal is not None:
+            how = (f"exponent {cal.overvoltage_exponent:.3f} +- {cal.overvoltage_exponent_err:.3f} fitted"
+                   if cal.exponent_fitted else f"exponent {cal.overvoltage_exponent:g} of the base profile")
+            print(f"crosstalk at {cal.ref_overvoltage_v:g} V overvoltage: lambda {cal.branching_ratio_at_ref:.4f} +- "
+                  f"{cal.branching_ratio_err_at_ref:.4f}, crosstalk.probability = 1 - exp(-lambda) = "
+                  f"{cal.probability_at_ref:.4f} +- {cal.probability_err_at_ref:.4f} ({how}; model {cal.model})")
+            print(f"wrote {target.path} (profile {profile.name})")
+    if target is not None and ok and profile is None:
+        return EXIT_FAILURE
+    return _exit_status(records)
 
 
 def _plot_spectra(records, plot_dir):
@@ -249,36 +396,51 @@ def _scan_summary(file, fit, extra=None) -> dict:
     return out
 
 
+class _ScanOutcome(NamedTuple):
+    """Whether one gain scan was analysed, and if not, whether its input was at fault."""
+
+    ok: bool
+    failed_on_input: bool
+
+
 def run_gain_scan(args) -> int:
     from compensator.calibration.gainscan import fit_gain_scan
     from compensator.calibration.measurements import read_gain_scan
     from compensator.errors import CompensatorError, InputError
 
-    scans, errors = [], []
+    scans, outcomes, errors = [], [], []
     if args.manifest or args.spectra:
         if args.manifest and (args.files or args.spectra):
             raise InputError("--manifest: give either a manifest or spectrum files with --spectra, not both")
         groups = _spectrum_groups(args)
         for label, temp_c, entries in groups:
+            records = _fit_spectra(args, [f for f, _ in entries], errors)
             try:
-                scans.append(_scan_from_spectra(args, label, temp_c, entries, errors))
+                scans.append(_scan_from_spectra(args, temp_c, entries, records, label))
+                outcomes.append(_ScanOutcome(True, False))
             except CompensatorError as exc:
                 msg = str(exc).splitlines()[0]
                 errors.append(f"{label}: {msg}")
                 scans.append({"file": label, "ok": False, "reason": msg, "temp_c": temp_c})
+                # A scan is the user's mistake only when every one of its spectra failed on input.
+                outcomes.append(_ScanOutcome(False, all(r.failed_on_input for r in records)))
     else:
         if not args.files:
             raise InputError("gain-scan: give gain tables (FILE...), spectra with --spectra --bias-v, or --manifest")
         for path in args.files:
+            on_input = True
             try:
                 data = read_gain_scan(path, args.temp_c)
+                on_input = False
                 fit = fit_gain_scan(data.bias_v, data.gain, data.gain_err, temp_c=data.temp_c)
                 scans.append(_scan_summary(path, fit))
+                outcomes.append(_ScanOutcome(True, False))
             except CompensatorError as exc:
                 msg = str(exc).splitlines()[0]
                 line = msg if msg.startswith(str(path)) else f"{path}: {msg}"
                 errors.append(line)
                 scans.append({"file": path, "ok": False, "reason": line, "temp_c": None})
+                outcomes.append(_ScanOutcome(False, on_input))
     for line in errors:
         print(f"compensator: {line}", file=sys.stderr)
     ok = [s for s in scans if s["ok"]]
@@ -291,7 +453,7 @@ def run_gain_scan(args) -> int:
               f"{s['chi2']:.1f}/{s['ndf']}") for s in ok],
             ["file", "temp_c", "breakdown_v", "err_mv", "capacitance_ff", "err_ff", "chi2/ndf"],
             ["", "", ".4f", ".1f", "", "", ""]))
-    return EXIT_OK if ok else EXIT_NOTHING_ANALYSED
+    return _exit_status(outcomes)
 
 
 def _spectrum_groups(args):
@@ -316,17 +478,22 @@ def _spectrum_groups(args):
     return [(args.files[0], args.temp_c, list(zip(args.files, args.bias_v)))]
 
 
-def _scan_from_spectra(args, label, temp_c, entries, errors):
+def _fit_spectra(args, files, errors):
+    """Fit the spectra of one scan (their failures go to ``errors``; plots when asked)."""
     from compensator.calibration.batch import Progress, analyse_spectrum_files
-    from compensator.calibration.gainscan import gain_scan_from_fits
 
-    files = [f for f, _ in entries]
     with Progress(len(files), "spectra", enabled=None) as bar:
         records = analyse_spectrum_files(files, jobs=_jobs(args.jobs), progress=bar)
     errors.extend(rec.error_line for rec in records if not rec.ok)
     if args.plot:
         from compensator.calibration.plots import plot_dir
         _plot_spectra(records, plot_dir(args.plot))
+    return records
+
+
+def _scan_from_spectra(args, temp_c, entries, records, label):
+    from compensator.calibration.gainscan import gain_scan_from_fits
+
     units = {rec.charge_unit for rec in records if rec.ok}
     result = gain_scan_from_fits([b for _, b in entries], [rec.fit if rec.ok else None for rec in records],
                                  [rec.reason or "" for rec in records], temp_c=temp_c,
@@ -404,7 +571,9 @@ def run_tempco(args) -> int:
                                   definition=scan.definition, common_err_v=scan.breakdown_sys_err_v,
                                   definition_offset=offset)
     except ModelError as exc:
-        raise exc.at(args.file) from None
+        # The file was read: a fit it cannot carry is "nothing analysed" (3), as for the batch subcommands.
+        print(f"compensator: {exc.at(args.file)}", file=sys.stderr)
+        return EXIT_NOTHING_ANALYSED
     fit, cg, cap_at_ref = result.fit, result.constant_gain, result.capacitance_f_at_ref
     for finding in result.findings:
         print(f"compensator: warning: {args.file}: {finding.message}", file=sys.stderr)

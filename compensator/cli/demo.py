@@ -35,7 +35,7 @@ from compensator.cli._common import (
 from compensator.errors import InputError, Problem
 from compensator.profiles import load_board, load_sipm, load_thermal
 
-__all__ = ["register", "run", "DEMO_INSTRUMENTS", "DEMO_COOLER", "DEMO_SEED", "SAFETY"]
+__all__ = ["register", "run", "characterisation_line", "DEMO_INSTRUMENTS", "DEMO_COOLER", "DEMO_SEED", "SAFETY"]
 
 ORDER = 1
 
@@ -60,6 +60,8 @@ SAFETY = (
 
 
 def register(subparsers) -> None:
+    from compensator.cli.simulate import simulated_days
+
     parser = subparsers.add_parser("demo", help="run the main job end to end on the bundled demo profiles")
     parser.add_argument("--profiles", default=None, metavar="DIR",
                         help="directory holding the demo profiles and scenario (default: the bundled ones)")
@@ -71,6 +73,9 @@ def register(subparsers) -> None:
                              "simulated week's figures and report (DIR/simulation/); every target is checked before "
                              "anything is written")
     parser.add_argument("--force", action="store_true", help="replace existing files under --out")
+    parser.add_argument("--days", type=simulated_days(), default=None, metavar="D",
+                        help="length of the simulated stretch of weather, days (default: the scenario's "
+                             "run.duration_days, a week)")
     add_json_flag(parser)
     parser.set_defaults(handler=run)
 
@@ -81,6 +86,24 @@ def _require(root: Path, name: str) -> Path:
         raise InputError(Problem(str(path), 0, "", "demo profile not found (run from the project's top folder "
                                                   "or pass --profiles DIR)"))
     return path
+
+
+def _refuse_existing(out: Path, root: Path, sipm_names, *, overwrite: bool) -> None:
+    """Refuse the run before its long work when a file it will write is in the way (checked again at writing)."""
+    from compensator.fileio import check_targets
+    from compensator.firmware.table_c import DEFAULT_FUNCTION_NAME
+    from compensator.profiles import load_scenario
+    from compensator.profiles.bundled import DEMO_SCENARIO
+    from compensator.sim.report import FIGURES
+
+    scenario = load_scenario(_require(root, DEMO_SCENARIO))
+    figures = FIGURES if scenario.section("monte_carlo")["units"] else FIGURES[:3]
+    targets = [out / name / f for name in sipm_names
+               for f in (f"{DEFAULT_FUNCTION_NAME}.h", f"{DEFAULT_FUNCTION_NAME}.c", "sweep.csv")]
+    targets += [out / "simulation" / f for f in (*figures, "report.html")]
+    problems = check_targets(targets, overwrite=overwrite)
+    if problems:
+        raise InputError(problems)
 
 
 def _pct(value: float, spec: str = ".3f") -> str:
@@ -99,16 +122,15 @@ def run(args) -> int:
     temps_c = np.arange(lo_c, hi_c + 1e-9, args.step_c)
     loaded = [(load_sipm(_require(root, s)), load_board(_require(root, b)), ov) for s, b, ov in DEMO_INSTRUMENTS]
     cooler = load_thermal(_require(root, DEMO_COOLER))
+    if args.out:
+        _refuse_existing(Path(args.out), root, [sipm.name for sipm, _, _ in loaded], overwrite=args.force)
     caution(SAFETY)
 
     # 1. Characterise
     char = characterise_breakdown(loaded[0][0], seed=DEMO_SEED)
     say(f"== 1. characterise {char.sipm} from {char.curve_count} synthetic bench I-V curves (-20..40 C, seed "
         f"{char.seed})")
-    say(f"breakdown at {char.ref_temp_c:g} C: {char.breakdown_v_at_ref:.4f} +- {char.breakdown_err_v_at_ref:.4f} V "
-        f"(truth {char.true_breakdown_v_at_ref:g}); tempco {char.tempco_mv_per_k:.2f} +- "
-        f"{char.tempco_err_mv_per_k:.2f} mV/K (truth {char.true_tempco_mv_per_k:g}); one sigma, the breakdown's "
-        f"with the method's systematic part (common to all curves)")
+    say(characterisation_line(char))
 
     # 2. and 3. Each instrument: drift, law, firmware path, budget, table, light
     instruments, files = [], {}
@@ -146,7 +168,7 @@ def run(args) -> int:
     from compensator.cli.simulate import simulated_week
 
     say("\n== 5. a simulated week in the hut's weather, firmware in the loop, strategies side by side")
-    week, week_files = simulated_week(root, Path(args.out) / "simulation" if args.out else None, say)
+    week, week_files = simulated_week(root, Path(args.out) / "simulation" if args.out else None, say, days=args.days)
     files.update(week_files)
 
     if files:
@@ -170,6 +192,21 @@ def run(args) -> int:
     return EXIT_OK if all(lp.stable for lp in loops) else EXIT_FAILURE
 
 
+def characterisation_line(char) -> str:
+    """The characterisation's figures with their one-sigma errors, the breakdown's in its two parts.
+
+    Parameters
+    ----------
+    char : Characterisation
+        From :func:`compensator.instrument.characterise_breakdown`.
+    """
+    return (f"breakdown at {char.ref_temp_c:g} C: {char.breakdown_v_at_ref:.4f} +- {char.breakdown_err_v_at_ref:.4f} V "
+            f"(truth {char.true_breakdown_v_at_ref:g}; {char.breakdown_stat_err_v_at_ref:.4f} V statistical and "
+            f"{char.breakdown_sys_err_v_at_ref:.4f} V the method's systematic part, common to all curves, in "
+            f"quadrature); tempco {char.tempco_mv_per_k:.2f} +- {char.tempco_err_mv_per_k:.2f} mV/K (truth "
+            f"{char.true_tempco_mv_per_k:g}; statistical: the common part does not move the slope); one sigma")
+
+
 def _with_files(inst, paths):
     from dataclasses import replace
 
@@ -189,8 +226,9 @@ def _print_instrument(say, inst, sipm_profile, range_c) -> None:
         ["temp_c", "breakdown_v", "fixed_bias_gain_%", "law_supply_v", "series_drop_mv", "law_gain_%",
          "adc_code", "table_dac_code", "firmware_gain_%", "dark_khz"],
         [".1f", ".3f", "+.2f", ".4f", ".2f", "+.3f", "d", "d", "+.3f", ".1f"]))
-    say(f"gain error against 25 C over every one of the {d.codes_evaluated} ADC codes of {lo_c:g}..{hi_c:g} C "
-        f"(whatever the rows printed): at fixed bias {d.fixed_bias_v:.3f} V {_pct(d.fixed_gain_error_ptp_pct, '.1f')} "
+    say(f"gain error against 25 C over every one of the {d.codes_evaluated} ADC codes of {lo_c:g}..{hi_c:g} C, "
+        f"at both edges of each code (whatever the rows printed): at fixed bias {d.fixed_bias_v:.3f} V "
+        f"{_pct(d.fixed_gain_error_ptp_pct, '.1f')} "
         f"peak-to-peak; with the law {_pct(d.law_gain_error_ptp_pct)} peak-to-peak (largest absolute "
         f"{_pct(d.law_gain_error_max_abs_pct)}); through the firmware's integer path "
         f"{_pct(d.firmware_gain_error_ptp_pct)} peak-to-peak (largest absolute "

@@ -66,8 +66,11 @@ def run(args) -> int:
     from compensator.drift.files import analyse_logbooks
     from compensator.drift.report import write_report
 
+    from compensator.cli.export import refuse_repeated_logbooks
+
     if not 0.5 <= args.confidence <= 0.999:
         raise usage_error("--confidence", f"must be between 0.5 and 0.999, got {args.confidence}")
+    refuse_repeated_logbooks(args.logbooks)
     sipm = None
     if args.sipm:
         from compensator.profiles import load_sipm

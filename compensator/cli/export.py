@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import os
+
 from compensator.cli._common import add_json_flag, print_json
 
-__all__ = ["register", "run"]
+__all__ = ["register", "run", "refuse_repeated_logbooks"]
 
 ORDER = 84
 COMMAND = "export"
@@ -25,9 +27,37 @@ def register(subparsers) -> None:
     parser.set_defaults(handler=run)
 
 
+def refuse_repeated_logbooks(paths, output=None) -> None:
+    """Refuse a logbook named twice (its rows would count twice), or given as the output too.
+
+    Parameters
+    ----------
+    paths : sequence of str
+        The logbooks, as given.
+    output : str, optional
+        The output file or folder, which must be none of them.
+
+    Raises
+    ------
+    InputError
+        Naming the second mention of a file.
+    """
+    from compensator.errors import InputError, Problem
+
+    seen = {}
+    for path in paths:
+        key = os.path.realpath(path)
+        if key in seen:
+            raise InputError(Problem(path, 0, "", f"named twice (also as {seen[key]}); each logbook counts once"))
+        seen[key] = path
+    if output is not None and os.path.realpath(output) in seen:
+        raise InputError(Problem(output, 0, "", "is one of the logbooks read; choose another output"))
+
+
 def run(args) -> int:
     from compensator.logbook.export import export_csv, export_parquet
 
+    refuse_repeated_logbooks(args.logbooks, args.csv or args.parquet)
     if args.csv:
         summary = export_csv(args.logbooks, args.csv, overwrite=args.force)
     else:

@@ -10,12 +10,15 @@ from compensator.cli._common import (
     EXIT_INTERRUPTED,
     EXIT_OK,
     add_json_flag,
+    bounded_float,
     caution,
     non_negative_float,
     positive_float,
     print_json,
     usage_error,
 )
+
+from compensator.link.protocol import MAX_TELEMETRY_PERIOD_S, MIN_TELEMETRY_PERIOD_S
 
 __all__ = ["register", "run"]
 
@@ -38,7 +41,9 @@ def register(subparsers) -> None:
     parser.add_argument("--db", required=True, metavar="RUN.sqlite", help="logbook file (created or appended to)")
     parser.add_argument("--duration-s", type=positive_float, metavar="S", help="stop after S seconds "
                         "(default: run until Ctrl-C or SIGTERM)")
-    parser.add_argument("--rate-hz", type=positive_float, metavar="R", help="telemetry rate to ask the board for")
+    parser.add_argument("--rate-hz", type=bounded_float(1.0 / MAX_TELEMETRY_PERIOD_S, 1.0 / MIN_TELEMETRY_PERIOD_S,
+                                                         unit="Hz"), metavar="R",
+                        help="telemetry rate to ask the board for, 1/3600 to 1000 Hz")
     parser.add_argument("--unit", default="", metavar="NAME", help="instrument name for fleet views "
                         "(default: the board's serial number)")
     parser.add_argument("--connect-window-s", type=non_negative_float, default=CONNECT_WINDOW_S, metavar="S",

@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
-from compensator.cli._common import add_json_flag, format_table, print_json, usage_error
+from compensator.cli._common import add_json_flag, caution, format_table, print_json, usage_error
 
-__all__ = ["ORDER", "COMMAND", "HELP", "register", "run", "render_json", "render_text", "simulated_week"]
+__all__ = ["ORDER", "COMMAND", "HELP", "register", "run", "render_json", "render_text", "simulated_week",
+           "simulated_days"]
 
 ORDER = 70
 COMMAND = "simulate"
@@ -30,7 +30,8 @@ def register(subparsers) -> None:
             "compensated, compensated_cooled and gain_trimmed on the same weather, then a Monte Carlo over units "
             "with tolerances drawn from the profiles. " + CAUTION))
     p.add_argument("scenario", metavar="SCENARIO", help="scenario YAML file")
-    p.add_argument("--days", type=_days, metavar="D", help="simulated days (default: the scenario's run.duration_days)")
+    p.add_argument("--days", type=simulated_days(), metavar="D",
+                   help="simulated days (default: the scenario's run.duration_days)")
     p.add_argument("--units", type=_units, metavar="N",
                    help="Monte Carlo units (default: the scenario's monte_carlo.units; 0: none)")
     p.add_argument("--strategy", action="append", choices=STRATEGIES, metavar="NAME",
@@ -48,16 +49,12 @@ def register(subparsers) -> None:
     p.set_defaults(handler=run)
 
 
-def _days(text):
-    import argparse
-
-    from compensator.cli._common import positive_float
+def simulated_days():
+    """The argparse type of ``--days``: positive, at most the longest run a scenario may ask for (a year and a day)."""
+    from compensator.cli._common import bounded_float
     from compensator.profiles.scenario import MAX_DURATION_DAYS
 
-    value = positive_float(text)
-    if value > MAX_DURATION_DAYS:
-        raise argparse.ArgumentTypeError(f"must be at most {MAX_DURATION_DAYS:g}, got {text!r}")
-    return value
+    return bounded_float(0.0, MAX_DURATION_DAYS, above=True, unit="days")
 
 
 def _units(text):
@@ -111,7 +108,7 @@ def run(args) -> int:
         raise usage_error("--workers", "give either --scheduler (a Dask cluster) or --workers (local processes)")
     _refuse_existing(args)
     scenario = load_scenario(args.scenario)
-    print(CAUTION, file=sys.stderr)
+    caution(CAUTION)  # printed when the command ends, never with a usage error
     days = args.days if args.days is not None else scenario.section("run")["duration_days"]
     rate = scenario.section("run")["control_rate_hz"] or scenario.board.control_rate_hz
     ticks = int(round(days * 86400.0 * rate))
@@ -222,7 +219,7 @@ def render_text(report, files=()) -> str:
     return "\n".join(lines)
 
 
-def simulated_week(profiles_dir, out_dir=None, say=print):
+def simulated_week(profiles_dir, out_dir=None, say=print, *, days=None):
     """The last step of ``compensator demo``: the bundled scenario's week, printed, with its figures and report.
 
     Nothing is written here: the files come back so the demo writes them with
@@ -236,6 +233,8 @@ def simulated_week(profiles_dir, out_dir=None, say=print):
         Where the figures and ``report.html`` are to go (``None``: no files).
     say : callable
         Prints a line for people (a no-op under ``--json``).
+    days : float, optional
+        Simulated days (default: the scenario's ``run.duration_days``).
 
     Returns
     -------
@@ -253,7 +252,7 @@ def simulated_week(profiles_dir, out_dir=None, say=print):
     path = Path(profiles_dir) / DEMO_SCENARIO
     if not path.is_file():
         raise InputError(Problem(str(path), 0, "", "demo scenario not found (pass --profiles DIR)"))
-    report = simulate_scenario(load_scenario(path))
+    report = simulate_scenario(load_scenario(path), days=days)
     files = {}
     if out_dir is not None:
         figures = render_figures(report)

@@ -32,6 +32,8 @@ from compensator.firmware.table_c import (
 from compensator.firmware.table_files import SWEEP_FILE, prepare_table_files
 from compensator.firmware.tables import DEFAULT_FAULT_MARGIN_K
 
+__all__ = ["CAUTION", "ORDER", "register", "run"]
+
 ORDER = 45
 
 CAUTION = (

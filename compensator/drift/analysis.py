@@ -438,6 +438,11 @@ def analyse_run(run: RunSeries, *, bin_s: float | None = None, confidence: float
     bins = lag = 0
     rms = p2p = float("nan")
     width = _default_bin_s(duration_s, interval_s) if bin_s is None else float(bin_s)
+    most_bins = max(2 * run.samples, 100_000)  # beyond it the bins are mostly empty, and memory is unbounded
+    if duration_s / width > most_bins:
+        raise ModelError(f"a bin width of {width:g} s makes {duration_s / width:.3g} bins, more than {most_bins} "
+                         f"(twice the {run.samples} samples, at least 100000); use at least the sample interval "
+                         f"({interval_s:g} s)", key="bin_s")
     temp_min = float(np.min(run.temp_c[used])) if used.any() else float("nan")
     temp_max = float(np.max(run.temp_c[used])) if used.any() else float("nan")
     binned = _bin_series(run, width, samples)

@@ -6,7 +6,7 @@ The public names of the submodules are re-exported here, loaded on first use
 
 from __future__ import annotations
 
-import importlib
+from compensator._lazy import lazy_exports
 
 _EXPORTS = {
     "tables": ("LookupTable", "TableStatus", "TableSweep", "TableError", "LayoutCandidate", "LayoutReport",
@@ -19,9 +19,11 @@ _EXPORTS = {
                 "default_sweep_mode", "SWEEP_MODES"),
     "c_names": ("check_function_name", "check_prefix"),
     "table_files": ("TableFiles", "prepare_table_files"),
-    "integer_path": ("IntegerPathGainError", "integer_path_gain_error"),
+    "integer_path": ("IntegerPathGainError", "PathPoints", "WITHIN_CODE", "integer_path_gain_error",
+                     "integer_path_points"),
     "pid": ("PidSettings", "DiscretePid", "discretise_pid", "FloatPid", "PidRun", "ANTI_WINDUP_MODES"),
-    "pid_fixed": ("FixedPidCoefficients", "FixedPidState", "FixedPid", "quantise_pid", "agreement_bound_count"),
+    "pid_coefficients": ("FixedPidCoefficients", "quantise_pid"),
+    "pid_fixed": ("FixedPidState", "FixedPid", "agreement_bound_count"),
     "pid_c": ("render_pid_c",),
     "fixed_point": ("floor_shift", "rshift_round", "saturate"),
 }
@@ -31,13 +33,7 @@ _WHERE = {name: module for module, names in _EXPORTS.items() for name in names}
 __all__ = sorted(_WHERE)
 
 
-def __getattr__(name: str):
-    module = _WHERE.get(name)
-    if module is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    value = getattr(importlib.import_module(f"{__name__}.{module}"), name)
-    globals()[name] = value
-    return value
+__getattr__ = lazy_exports(globals(), {name: f"{__name__}.{module}" for name, module in _WHERE.items()})
 
 
 def __dir__():

@@ -22,13 +22,24 @@ The rules, in the order the step applies them:
 4. **Hot side over temperature**: the cooler's hot side above ``hot_side_max_mdegc``.
 5. **Heartbeat lost**: outputs enabled and no valid host frame for more than
    ``heartbeat_timeout_ms`` (0 disables the watchdog).
+5a. **Supply fault** (only with a bias read-back channel): the read-back
+   code differs from the code expected for the level applied over the last
+   tick by more than ``supply_fault_codes`` for ``supply_fault_ticks``
+   consecutive ticks (a supply that stopped following its DAC, failed high
+   or lost its regulation). The limit is the worst case of what a healthy
+   board can show (:func:`build_interlock_limits` states the rule); the
+   count of ticks lets the output and the read-back filter settle after a
+   jump to the safe state. Without a read-back channel this cannot be
+   detected: the firmware sees only the code it wrote, so a supply that
+   ignores it goes unnoticed, and only hardware (an independent
+   over-voltage clamp, a load switch) can catch it.
 6. **Dew point**: the cold side below the dew point plus ``dew_margin_mdegc``
    (only when the humidity, hence the dew point, is known): the cooler may
    not cool (a positive drive is held at zero; heating, which moves the
    plate away from condensation, is allowed) while it lasts; the bias is not
    touched.
 7. Any latched *trip* (:data:`~compensator.firmware.faults.TRIP_FLAGS`,
-   rules 1-5) puts the outputs in the safe state at once: the bias at
+   rules 1-5a) puts the outputs in the safe state at once: the bias at
    ``safe_dac_code`` (below breakdown at the coldest temperature of the
    range) and the cooler off, until the host clears the fault and its cause
    has gone.
@@ -45,7 +56,11 @@ The overvoltage limit is a straight line in temperature that lies below
 *Caution:* these interlocks are a second line of defence in firmware. Keep
 current, voltage and temperature limits in hardware that does not depend on
 software, and follow local codes and licensed practice for supplies of tens
-of volts (above 60 V dc is hazardous live, IEC 61010-1) and for coolers.
+of volts (above 60 V dc is hazardous live, IEC 61010-1) and for coolers. A
+supply fault in particular means the firmware's DAC no longer controls the
+bias: the safe state it commands may not reach the SiPM, so the board needs
+a hardware path (an enable or shutdown line on the regulator, a load switch)
+that removes the bias whatever the supply does.
 """
 
 from __future__ import annotations
@@ -63,7 +78,8 @@ from compensator.physics.sipm import breakdown_v
 __all__ = [
     "ABSENT", "InterlockLimits", "InterlockInputs", "InterlockOutputs", "Interlocks", "build_interlock_limits",
     "DEFAULT_SLEW_V_PER_S", "DEFAULT_MAX_RATE_K_PER_S", "DEFAULT_FAULT_MARGIN_K", "DEFAULT_HEARTBEAT_TIMEOUT_S",
-    "OV_LIMIT_SHIFT", "STATE_RUN", "STATE_OFF", "STATE_TRIPPED", "floor_div_pow2",
+    "OV_LIMIT_SHIFT", "READBACK_SHIFT", "MIN_SUPPLY_FAULT_TICKS", "STATE_RUN", "STATE_OFF", "STATE_TRIPPED",
+    "floor_div_pow2", "supply_fault_tolerance_v",
 ]
 
 #: Input value meaning "this board has no such channel" (INT32_MIN).
@@ -80,6 +96,11 @@ DEFAULT_FAULT_MARGIN_K = 20.0
 DEFAULT_HEARTBEAT_TIMEOUT_S = 10.0
 #: Fractional bits of the overvoltage limit's slope (levels per milli-kelvin).
 OV_LIMIT_SHIFT = 24
+
+#: Fractional bits of the expected bias read-back code (read-back codes per bias level).
+READBACK_SHIFT = 16
+#: Fewest consecutive ticks of disagreement before a supply fault latches.
+MIN_SUPPLY_FAULT_TICKS = 3
 
 #: Temperature differences are limited to this in the limit line (keeps the 64-bit product exact), milli-kelvin.
 DT_CLAMP_MDEGC = 1 << 30
@@ -142,6 +163,16 @@ class InterlockLimits:
         Margin above the dew point for the cold side, milli-kelvin.
     heartbeat_timeout_ms : int
         Host silence that trips ``HEARTBEAT_LOST`` (0: no watchdog).
+    readback_at_level0_q : int
+        Bias read-back code expected at level 0, times ``2^READBACK_SHIFT``.
+    readback_per_level_q : int
+        Read-back codes per bias level, times ``2^READBACK_SHIFT`` (0: no read-back channel).
+    readback_min_code, readback_max_code : int
+        Read-back codes of the supply's lowest and highest output (the expected code is clamped to them).
+    supply_fault_codes : int
+        Largest disagreement a healthy board shows, read-back codes.
+    supply_fault_ticks : int
+        Consecutive ticks beyond it that latch ``SUPPLY_FAULT`` (0: no read-back channel, no check).
     bias_v_at_level0 : float
         Supply output at level 0 (information for people and the board model), volt.
     volts_per_level : float
@@ -169,6 +200,12 @@ class InterlockLimits:
     hot_side_max_mdegc: int = INT32_MAX
     dew_margin_mdegc: int = 0
     heartbeat_timeout_ms: int = 0
+    readback_at_level0_q: int = 0
+    readback_per_level_q: int = 0
+    readback_min_code: int = 0
+    readback_max_code: int = 0
+    supply_fault_codes: int = 0
+    supply_fault_ticks: int = 0
     bias_v_at_level0: float = 0.0
     volts_per_level: float = 1.0
     safe_margin_v: float = float("inf")
@@ -197,6 +234,11 @@ class InterlockLimits:
             "ov_limit_slope_q": abs(self.ov_limit_slope_q) <= INT32_MAX,
             "ov_limit_level_at_ref": abs(self.ov_limit_level_at_ref) <= INT32_MAX,
             "dew_margin_mdegc": 0 <= self.dew_margin_mdegc <= 100_000,
+            "readback_at_level0_q": abs(self.readback_at_level0_q) <= 1 << 50,
+            "readback_per_level_q": 0 <= self.readback_per_level_q <= INT32_MAX,
+            "readback_min_code": 0 <= self.readback_min_code <= self.readback_max_code <= INT32_MAX,
+            "supply_fault_codes": 0 <= self.supply_fault_codes <= INT32_MAX,
+            "supply_fault_ticks": 0 <= self.supply_fault_ticks <= 65_535,
         }
         for key, ok in checks.items():
             if not ok:
@@ -232,6 +274,17 @@ class InterlockLimits:
         ov = self.ov_limit_level_at_ref + floor_div_pow2(self.ov_limit_slope_q * dt, OV_LIMIT_SHIFT)
         return max(0, min(self.bias_limit_level, ov))
 
+    def expected_readback_code(self, level: int) -> int:
+        """Bias read-back code expected at a level (nominal supply and read-back, clamped to the output range).
+
+        Parameters
+        ----------
+        level : int
+        """
+        q = self.readback_at_level0_q + self.readback_per_level_q * level
+        code = floor_div_pow2(q + (1 << (READBACK_SHIFT - 1)), READBACK_SHIFT)
+        return max(self.readback_min_code, min(self.readback_max_code, code))
+
     def level_bias_v(self, level) -> float:
         """Nominal supply output at a level, volt.
 
@@ -256,6 +309,7 @@ class InterlockInputs(NamedTuple):
     cold_side_mdegc: int = ABSENT
     dew_point_mdegc: int = ABSENT
     cooler_request: int = 0
+    bias_readback_code: int = ABSENT
 
 
 class InterlockOutputs(NamedTuple):
@@ -273,6 +327,7 @@ class _State:
     level: int
     prev_temp_mdegc: int = 0
     have_prev: bool = False
+    supply_count: int = 0
     live: int = 0
     latched: int = 0
     trip_ms: list = field(default_factory=lambda: [0] * 16)
@@ -400,6 +455,15 @@ class Interlocks:
         silence_ms = (i.now_ms - i.last_host_ms) & U32_MASK
         if lim.heartbeat_timeout_ms and i.outputs_enabled and silence_ms > lim.heartbeat_timeout_ms:
             raise_flag(FaultFlag.HEARTBEAT_LOST, silence_ms)
+        if lim.supply_fault_ticks and i.bias_readback_code != ABSENT:
+            # against the level applied over the last tick, which the supply has been told to hold
+            off = i.bias_readback_code - lim.expected_readback_code(s.level)
+            if abs(off) > lim.supply_fault_codes:
+                s.supply_count = min(s.supply_count + 1, lim.supply_fault_ticks)
+                if s.supply_count >= lim.supply_fault_ticks:
+                    raise_flag(FaultFlag.SUPPLY_FAULT, off)
+            else:
+                s.supply_count = 0
         dew = (i.dew_point_mdegc != ABSENT and i.cold_side_mdegc != ABSENT
                and i.cold_side_mdegc < i.dew_point_mdegc + lim.dew_margin_mdegc)
         if dew:
@@ -439,6 +503,77 @@ def _level_of_v(supply, volts, full: int, rises: bool) -> float:
     return code if rises else full - code
 
 
+def supply_fault_tolerance_v(board, *, slew_step_v: float = 0.0) -> float:
+    """Largest disagreement between the bias read-back and the set bias that a healthy board can show, volt.
+
+    The rule (a worst case, every term at its limit with the same sign, so
+    that a board within its tolerances never trips):
+
+    - the supply's set-point error: the largest deviation of its output from
+      the nominal at either end of the DAC range with every tolerance and
+      drift of the DAC, the resistors and the feedback reference at its worst
+      corner over the electronics' temperature range
+      (:func:`compensator.law.safety.highest_output_v`, taken as symmetric);
+    - the read-back's gain error at the supply's highest output (divider and
+      ADC reference tolerances) and its offset;
+    - one read-back code (the reading's and the expected value's rounding);
+    - one slew step, for a reading taken while the output moves.
+
+    Parameters
+    ----------
+    board : BoardProfile
+        With a ``bias_readback`` channel.
+    slew_step_v : float
+        Largest change of the set bias in one tick, volt.
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    ModelError
+        The board has no read-back channel.
+    """
+    from types import SimpleNamespace
+
+    from compensator.law.safety import highest_output_v
+
+    readback = getattr(board, "bias_readback", None)
+    if readback is None:
+        raise ModelError("the board has no bias read-back channel: a supply fault cannot be detected",
+                         key="bias_readback")
+    supply = board.supply
+    span = SimpleNamespace(supply=supply, min_temp_c=board.min_temp_c, max_temp_c=board.max_temp_c)
+    ends = (0, supply.dac.full_scale_code)
+    setpoint_v = max(highest_output_v(span, board, code) - float(supply.output_v(code)) for code in ends)
+    top_v = float(supply.output_range_v()[1])
+    gain_v = top_v * 1e-2 * (readback.divider_tolerance_pct + readback.reference_tolerance_pct)
+    return float(max(setpoint_v, 0.0) + gain_v + readback.offset_v + readback.lsb_v + slew_step_v)
+
+
+def _readback_limits(board, volts_per_level: float, v_at_level0: float, slew_levels: int, tick_s: float) -> dict:
+    """The integer read-back constants of :class:`InterlockLimits` (empty without a read-back channel)."""
+    readback = getattr(board, "bias_readback", None)
+    if readback is None:
+        return {}
+    lsb_v = readback.lsb_v
+    lo_v, hi_v = board.supply.output_range_v()
+    tol_v = supply_fault_tolerance_v(board, slew_step_v=slew_levels * volts_per_level)
+    # settling after a jump to the safe state: five time constants of the read-back filter and the bias filter
+    tau_s = readback.filter_time_constant_s + (getattr(board.supply, "series_resistor_ohm", 0.0)
+                                               * (getattr(board.supply, "filter_capacitance_f", 0.0) or 0.0))
+    full = readback.full_scale_code
+    return dict(
+        readback_at_level0_q=int(round(v_at_level0 / lsb_v * (1 << READBACK_SHIFT))),
+        readback_per_level_q=int(round(volts_per_level / lsb_v * (1 << READBACK_SHIFT))),
+        readback_min_code=max(0, min(full, int(round(lo_v / lsb_v)))),
+        readback_max_code=max(0, min(full, int(round(hi_v / lsb_v)))),
+        supply_fault_codes=int(np.ceil(tol_v / lsb_v)),
+        supply_fault_ticks=max(MIN_SUPPLY_FAULT_TICKS, 1 + int(np.ceil(5.0 * tau_s / tick_s))),
+    )
+
+
 def build_interlock_limits(sipm, board, thermal=None, *, slew_v_per_s: float = DEFAULT_SLEW_V_PER_S,
                            max_rate_k_per_s: float | None = None,
                            fault_margin_k: float = DEFAULT_FAULT_MARGIN_K,
@@ -451,7 +586,11 @@ def build_interlock_limits(sipm, board, thermal=None, *, slew_v_per_s: float = D
     sipm : SipmProfile or Sipm
         The sensor (its breakdown curve, ``max_overvoltage_v`` and ``max_current_a``).
     board : BoardProfile
-        Supply, temperature channel, operating range, ``max_bias_v``, ``safe_dac_code`` and control rate.
+        Supply, temperature channel, operating range, ``max_bias_v``, ``safe_dac_code``, control rate and
+        the bias read-back channel, if any (it enables the supply-fault check:
+        :func:`supply_fault_tolerance_v` gives the limit, the count of ticks
+        is five time constants of the read-back and bias filters, at least
+        :data:`MIN_SUPPLY_FAULT_TICKS`).
     thermal : ThermalProfile or CoolerParams, optional
         The cooler (``max_hot_temp_c`` and ``dew_margin_k``); ``None`` for a board without one.
     slew_v_per_s : float
@@ -530,19 +669,22 @@ def build_interlock_limits(sipm, board, thermal=None, *, slew_v_per_s: float = D
     over_a = device.max_current_a if over_current_a is None else over_current_a
     if not np.isfinite(over_a) or over_a <= 0:
         raise ModelError(f"must be a positive current, got {over_a!r}", key="over_current_a")
+    slew_levels = max(1, int(np.floor(slew_v_per_s * tick_s / volts_per_level)))
+    v_at_level0 = float(supply.intercept_v + (0.0 if rises else supply.volts_per_code * full))
     return InterlockLimits(
         tick_ms=max(1, int(round(1000.0 * tick_s))),
         dac_full_scale=full, bias_rises_with_code=bool(rises), safe_dac_code=safe,
         bias_limit_level=bias_limit_level, ov_limit_ref_mdegc=ref_mdegc, ov_limit_level_at_ref=level_at_ref,
         ov_limit_slope_q=slope_q,
-        slew_levels_per_tick=max(1, int(np.floor(slew_v_per_s * tick_s / volts_per_level))),
+        slew_levels_per_tick=slew_levels,
         adc_fault_lo=fault_lo, adc_fault_hi=fault_hi, adc_low_is_open=bool(adc_low_is_open),
         max_step_mdegc=int(np.ceil(max_rate_k_per_s * tick_s * 1000.0)),
         over_current_na=min(INT32_MAX, int(np.floor(over_a * 1e9))),
         hot_side_max_mdegc=INT32_MAX if cooler is None else int(np.floor(cooler.max_hot_temp_c * 1000.0)),
         dew_margin_mdegc=0 if cooler is None else int(np.ceil(cooler.dew_margin_k * 1000.0)),
         heartbeat_timeout_ms=int(round(heartbeat_timeout_s * 1000.0)),
-        bias_v_at_level0=float(supply.intercept_v + (0.0 if rises else supply.volts_per_code * full)),
+        **_readback_limits(board, float(volts_per_level), v_at_level0, slew_levels, tick_s),
+        bias_v_at_level0=v_at_level0,
         volts_per_level=float(volts_per_level),
         safe_margin_v=safe_margin_v,
     )

@@ -13,7 +13,7 @@ from __future__ import annotations
 from compensator.errors import ModelError
 from compensator.fileio import write_files_atomic
 from compensator.firmware.faults import TRIP_FLAGS, FaultFlag
-from compensator.firmware.interlocks import DT_CLAMP_MDEGC, OV_LIMIT_SHIFT, InterlockLimits
+from compensator.firmware.interlocks import DT_CLAMP_MDEGC, OV_LIMIT_SHIFT, READBACK_SHIFT, InterlockLimits
 from compensator.firmware.pid_c import _check_name
 from compensator.provenance import c_banner
 
@@ -27,6 +27,8 @@ def _i64(value: int) -> str:
 def _header(lim: InterlockLimits, name: str, banner: str) -> str:
     up = name.upper()
     flags = "\n".join(f"#define {up}_FAULT_{f.name} UINT32_C(0x{int(f):04X})" for f in FaultFlag if f)
+    no_readback = "" if lim.supply_fault_ticks else (
+        "\n * This board has no bias read-back channel: a supply fault cannot be detected.")
     return f"""{banner}
 #ifndef {up}_H
 #define {up}_H
@@ -38,7 +40,9 @@ def _header(lim: InterlockLimits, name: str, banner: str) -> str:
  * CAUTION: a second line of defence in firmware only. Keep current, voltage
  * and temperature limits in hardware that does not depend on software, and
  * follow local codes and licensed practice (above 60 V dc is hazardous live,
- * IEC 61010-1; an unsinked cooler hot side runs away).
+ * IEC 61010-1; an unsinked cooler hot side runs away). A supply fault means
+ * the DAC no longer controls the bias: the board needs a hardware path (an
+ * enable line on the regulator, a load switch) that removes the bias.{no_readback}
  */
 
 /* input value for a channel the board does not have */
@@ -67,6 +71,7 @@ typedef struct {{
     int32_t cold_side_mdegc;    /* or {up}_ABSENT */
     int32_t dew_point_mdegc;    /* or {up}_ABSENT (humidity unknown) */
     int32_t cooler_request;     /* cooler drive the loop asks for (positive cools) */
+    int32_t bias_readback_code; /* bias read-back ADC code, or {up}_ABSENT (no channel: no supply check) */
 }} {name}_inputs;
 
 typedef struct {{
@@ -81,6 +86,7 @@ typedef struct {{
     int64_t level;
     int32_t prev_temp_mdegc;
     uint8_t have_prev;
+    uint16_t supply_count;      /* consecutive ticks the bias read-back disagreed */
     uint32_t live;
     uint32_t latched;
     uint32_t trip_ms[16];
@@ -97,8 +103,31 @@ uint32_t {name}_clear({name}_state *s, uint32_t mask);
 int64_t {name}_limit_level(int32_t temp_mdegc);
 int64_t {name}_level_of_code(uint32_t dac_code);
 uint32_t {name}_code_of_level(int64_t level);
+/* bias read-back code expected at a level (nominal supply and read-back) */
+int64_t {name}_expected_readback(int64_t level);
 
 #endif /* {up}_H */
+"""
+
+
+def _supply_check(lim: InterlockLimits, name: str, up: str) -> str:
+    """The supply-fault rule of the step (nothing without a read-back channel)."""
+    if not lim.supply_fault_ticks:
+        return "    /* no bias read-back channel: a supply fault cannot be detected */\n"
+    bit = int(FaultFlag.SUPPLY_FAULT).bit_length() - 1
+    return f"""    if (in->bias_readback_code != {up}_ABSENT) {{
+        /* against the level applied over the last tick, which the supply has been told to hold */
+        int64_t off = (int64_t)in->bias_readback_code - {name}_expected_readback(s->level);
+        if (off > SUPPLY_FAULT_CODES || -off > SUPPLY_FAULT_CODES) {{
+            if (s->supply_count < SUPPLY_FAULT_TICKS) s->supply_count++;
+            if (s->supply_count >= SUPPLY_FAULT_TICKS) {{
+                live |= {up}_FAULT_SUPPLY_FAULT;
+                value[{bit}] = off;
+            }}
+        }} else {{
+            s->supply_count = 0u;
+        }}
+    }}
 """
 
 
@@ -127,6 +156,13 @@ def _source(lim: InterlockLimits, name: str, banner: str) -> str:
 #define HOT_SIDE_MAX_MDEGC INT32_C({lim.hot_side_max_mdegc})
 #define DEW_MARGIN_MDEGC {_i64(lim.dew_margin_mdegc)}
 #define HEARTBEAT_TIMEOUT_MS UINT32_C({lim.heartbeat_timeout_ms})
+#define RB_AT_LEVEL0_Q {_i64(lim.readback_at_level0_q)}
+#define RB_PER_LEVEL_Q {_i64(lim.readback_per_level_q)}
+#define RB_SHIFT {READBACK_SHIFT}
+#define RB_MIN_CODE {_i64(lim.readback_min_code)}
+#define RB_MAX_CODE {_i64(lim.readback_max_code)}
+#define SUPPLY_FAULT_CODES {_i64(lim.supply_fault_codes)}
+#define SUPPLY_FAULT_TICKS {lim.supply_fault_ticks}u
 
 static int64_t floor_shift(int64_t p, int k)
 {{
@@ -138,6 +174,13 @@ static int64_t floor_shift(int64_t p, int k)
 static int32_t sat32(int64_t v)
 {{
     return v > INT32_MAX ? INT32_MAX : (v < INT32_MIN ? INT32_MIN : (int32_t)v);
+}}
+
+int64_t {name}_expected_readback(int64_t level)
+{{
+    int64_t code = floor_shift(RB_AT_LEVEL0_Q + RB_PER_LEVEL_Q * level + (INT64_C(1) << (RB_SHIFT - 1)), RB_SHIFT);
+    if (code < RB_MIN_CODE) code = RB_MIN_CODE;
+    return code > RB_MAX_CODE ? RB_MAX_CODE : code;
 }}
 
 int64_t {name}_level_of_code(uint32_t dac_code)
@@ -167,6 +210,7 @@ void {name}_init({name}_state *s)
     s->level = {name}_level_of_code({up}_SAFE_DAC_CODE);
     s->prev_temp_mdegc = 0;
     s->have_prev = 0u;
+    s->supply_count = 0u;
     s->live = 0u;
     s->latched = 0u;
     for (b = 0; b < 16; ++b) {{
@@ -242,7 +286,7 @@ void {name}_step({name}_state *s, const {name}_inputs *in, {name}_outputs *out)
         live |= {up}_FAULT_HEARTBEAT_LOST;
         value[{int(f.HEARTBEAT_LOST).bit_length() - 1}] = (int64_t)silence;
     }}
-    dew = in->dew_point_mdegc != {up}_ABSENT && in->cold_side_mdegc != {up}_ABSENT
+{_supply_check(lim, name, up)}    dew = in->dew_point_mdegc != {up}_ABSENT && in->cold_side_mdegc != {up}_ABSENT
           && (int64_t)in->cold_side_mdegc < (int64_t)in->dew_point_mdegc + DEW_MARGIN_MDEGC;
     if (dew) {{
         live |= {up}_FAULT_DEW_POINT;

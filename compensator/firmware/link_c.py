@@ -26,6 +26,15 @@ import re
 
 from compensator.errors import ModelError
 from compensator.fileio import write_files_atomic
+from compensator.firmware.link_c_framing import c_framing_source, c_receiver_source
+from compensator.firmware.link_c_messages import (
+    COMMANDS,
+    MESSAGES,
+    c_message_pack,
+    c_message_struct,
+    c_message_unpack,
+    c_struct_name,
+)
 from compensator.link import protocol as p
 from compensator.provenance import c_banner
 
@@ -35,110 +44,6 @@ __all__ = ["render_link_c", "write_link_c", "c_struct_name", "DEFAULT_LINK_NAME"
 DEFAULT_LINK_NAME = "board_link"
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_]{0,23}$")
 
-_CTYPE = {"u8": "uint8_t", "u16": "uint16_t", "u32": "uint32_t", "u64": "uint64_t", "i32": "int32_t"}
-_SIZE = {"u8": 1, "u16": 2, "u32": 4, "u64": 8, "i32": 4}
-
-
-def c_struct_name(message_class) -> str:
-    """Snake-case stem of a message class for C (``SetBias`` -> ``set_bias``).
-
-    Parameters
-    ----------
-    message_class : type
-        A message class of :mod:`compensator.link.protocol`.
-    """
-    return p.message_name(message_class)
-
-
-_ALL = (*p.MESSAGE_TYPES, p.Reply)
-#: Requests answered by a Reply (commands), and the requests answered by reports.
-_COMMANDS = [c for c in p.REQUEST_TYPES if p.message_type(p.reply_kind(c.KIND)) is p.Reply]
-
-
-def _fields(cls, name: str) -> str:
-    lines = []
-    for field, t in cls.LAYOUT:
-        if t in _CTYPE:
-            lines.append(f"    {_CTYPE[t]} {field};")
-        elif t == "hash":
-            lines.append(f"    uint8_t {field}[32];")
-        elif t == "text":
-            lines.append(f"    uint8_t {field}_len;\n    char {field}[{p.MAX_TEXT_BYTES}];")
-        elif t == "data":
-            lines.append(f"    uint8_t {field}_len;\n    uint8_t {field}[{p.MAX_CHUNK_BYTES}];")
-        else:
-            base = t.split("[")[0]
-            lines.append(f"    {_CTYPE[base]} {field}[{p.FAULT_SLOTS}];")
-    if not lines:
-        lines.append("    uint8_t unused_;  /* no payload */")
-    return f"typedef struct {{\n" + "\n".join(lines) + f"\n}} {name}_{c_struct_name(cls)};\n"
-
-
-def _pack(cls, name: str) -> str:
-    stem = c_struct_name(cls)
-    body = []
-    for field, t in cls.LAYOUT:
-        if t in _CTYPE:
-            body.append(f"    n += put_{t}(out + n, m->{field});")
-        elif t == "hash":
-            body.append(f"    memcpy(out + n, m->{field}, 32u);\n    n += 32u;")
-        elif t in ("text", "data"):
-            limit = p.MAX_TEXT_BYTES if t == "text" else p.MAX_CHUNK_BYTES
-            body.append(f"    {{\n        uint8_t k = m->{field}_len;\n        if (k > {limit}u) k = {limit}u;\n"
-                        f"        out[n++] = k;\n        memcpy(out + n, m->{field}, k);\n        n += k;\n    }}")
-        else:
-            base = t.split("[")[0]
-            body.append(f"    for (i = 0; i < {p.FAULT_SLOTS}; ++i) n += put_{base}(out + n, m->{field}[i]);")
-    uses_i = any("[" in t for _, t in cls.LAYOUT)
-    head = f"size_t {name}_pack_{stem}(const {name}_{stem} *m, uint8_t *out)\n{{\n    size_t n = 0;\n"
-    if uses_i:
-        head += "    int i;\n"
-    if not cls.LAYOUT:
-        head += "    (void)m;\n    (void)out;\n"
-    return head + "\n".join(body) + ("\n" if body else "") + "    return n;\n}\n"
-
-
-def _unpack(cls, name: str) -> str:
-    stem = c_struct_name(cls)
-    fixed = all(t not in ("text", "data") for _, t in cls.LAYOUT)
-    head = f"int {name}_unpack_{stem}(const uint8_t *in, size_t len, {name}_{stem} *m)\n{{\n"
-    if not cls.LAYOUT:
-        return head + "    (void)in;\n    memset(m, 0, sizeof *m);\n    return len == 0u ? 0 : -1;\n}\n"
-    body = ["    size_t n = 0;"]
-    if any("[" in t for _, t in cls.LAYOUT):
-        body.append("    int i;")
-    if fixed:
-        size = sum(p.fixed_size(t) for _, t in cls.LAYOUT)
-        body.append(f"    if (len != {size}u) return -1;")
-    for field, t in cls.LAYOUT:
-        if t in _CTYPE:
-            if not fixed:
-                body.append(f"    if (len - n < {_SIZE[t]}u) return -1;")
-            body.append(f"    m->{field} = get_{t}(in + n);\n    n += {_SIZE[t]}u;")
-        elif t == "hash":
-            if not fixed:
-                body.append("    if (len - n < 32u) return -1;")
-            body.append(f"    memcpy(m->{field}, in + n, 32u);\n    n += 32u;")
-        elif t in ("text", "data"):
-            limit = p.MAX_TEXT_BYTES if t == "text" else p.MAX_CHUNK_BYTES
-            body.append(f"    if (n >= len) return -1;\n    m->{field}_len = in[n++];\n"
-                        f"    if (m->{field}_len > {limit}u || len - n < m->{field}_len) return -1;")
-            if t == "text":
-                body.append(f"    for (i = 0; i < (int)m->{field}_len; ++i) {{\n"
-                            f"        if (in[n + (size_t)i] < 0x20u || in[n + (size_t)i] > 0x7Eu) return -1;\n"
-                            f"        m->{field}[i] = (char)in[n + (size_t)i];\n    }}")
-            else:
-                body.append(f"    memcpy(m->{field}, in + n, m->{field}_len);")
-            body.append(f"    n += m->{field}_len;")
-        else:
-            base = t.split("[")[0]
-            body.append(f"    for (i = 0; i < {p.FAULT_SLOTS}; ++i) {{\n        m->{field}[i] = get_{base}(in + n);\n"
-                        f"        n += {_SIZE[base]}u;\n    }}")
-    if any(t == "text" for _, t in cls.LAYOUT) and not any("[" in t for _, t in cls.LAYOUT):
-        body.insert(1, "    int i;")
-    body.append("    return n == len ? 0 : -1;")
-    return head + "\n".join(body) + "\n}\n"
-
 
 def _header(name: str, banner: str) -> str:
     up = name.upper()
@@ -146,15 +51,15 @@ def _header(name: str, banner: str) -> str:
     results = "\n".join(f"#define {up}_RESULT_{r.name} {int(r)}u" for r in p.Result)
     modes = "\n".join(f"#define {up}_MODE_{m.name} {int(m)}u" for m in p.Mode)
     targets = "\n".join(f"#define {up}_TARGET_{t.name} {int(t)}u" for t in p.UploadTarget)
-    structs = "\n".join(_fields(c, name) for c in _ALL)
-    members = "\n".join(f"    {name}_{c_struct_name(c)} {c_struct_name(c)};" for c in _ALL)
+    structs = "\n".join(c_message_struct(c, name) for c in MESSAGES)
+    members = "\n".join(f"    {name}_{c_struct_name(c)} {c_struct_name(c)};" for c in MESSAGES)
     protos = "\n".join(
         f"size_t {name}_pack_{c_struct_name(c)}(const {name}_{c_struct_name(c)} *m, uint8_t *out);\n"
         f"int {name}_unpack_{c_struct_name(c)}(const uint8_t *in, size_t len, {name}_{c_struct_name(c)} *m);"
-        for c in _ALL)
+        for c in MESSAGES)
     handlers = "\n".join(
         f"    uint8_t (*{c_struct_name(c)})(void *ctx, const {name}_{c_struct_name(c)} *req, {name}_reply *reply);"
-        for c in _COMMANDS if c not in (p.Heartbeat, p.UploadBegin, p.UploadChunk, p.UploadCommit))
+        for c in COMMANDS if c not in (p.Heartbeat, p.UploadBegin, p.UploadChunk, p.UploadCommit))
     return f"""{banner}
 #ifndef {up}_H
 #define {up}_H
@@ -289,16 +194,16 @@ void {name}_send_telemetry({name}_link *link, const {name}_telemetry_report *t);
 
 def _source(name: str, banner: str) -> str:
     up = name.upper()
-    packs = "\n".join(_pack(c, name) + "\n" + _unpack(c, name) for c in _ALL)
+    packs = "\n".join(c_message_pack(c, name) + "\n" + c_message_unpack(c, name) for c in MESSAGES)
     unpack_cases, pack_cases = [], []
     for c in p.MESSAGE_TYPES:
         stem = c_struct_name(c)
         unpack_cases.append(f"    case 0x{int(c.KIND):02X}u: return {name}_unpack_{stem}(in, len, &m->{stem});")
         pack_cases.append(f"    case 0x{int(c.KIND):02X}u: return {name}_pack_{stem}(&m->{stem}, out);")
-    reply_kinds = [p.reply_kind(c.KIND) for c in _COMMANDS]
+    reply_kinds = [p.reply_kind(c.KIND) for c in COMMANDS]
     reply_cases = "\n".join(f"    case 0x{k:02X}u:" for k in reply_kinds)
     commands = []
-    for c in _COMMANDS:
+    for c in COMMANDS:
         if c in (p.Heartbeat, p.UploadBegin, p.UploadChunk, p.UploadCommit):
             continue
         stem = c_struct_name(c)
@@ -306,125 +211,12 @@ def _source(name: str, banner: str) -> str:
                         f"        reply.result = link->h->{stem}(link->h->ctx, &req.{stem}, &reply);\n"
                         f"        break;")
     command_cases = "\n".join(commands)
+    framing, receiver = c_framing_source(name), c_receiver_source(name)
     return f"""{banner}
 #include <string.h>
 #include "{name}.h"
 
-static size_t put_u8(uint8_t *p, uint8_t v) {{ p[0] = v; return 1u; }}
-static size_t put_u16(uint8_t *p, uint16_t v) {{ p[0] = (uint8_t)v; p[1] = (uint8_t)(v >> 8); return 2u; }}
-static size_t put_u32(uint8_t *p, uint32_t v)
-{{
-    p[0] = (uint8_t)v; p[1] = (uint8_t)(v >> 8); p[2] = (uint8_t)(v >> 16); p[3] = (uint8_t)(v >> 24);
-    return 4u;
-}}
-static size_t put_u64(uint8_t *p, uint64_t v)
-{{
-    put_u32(p, (uint32_t)v);
-    put_u32(p + 4, (uint32_t)(v >> 32));
-    return 8u;
-}}
-static size_t put_i32(uint8_t *p, int32_t v) {{ return put_u32(p, (uint32_t)v); }}
-static uint8_t get_u8(const uint8_t *p) {{ return p[0]; }}
-static uint16_t get_u16(const uint8_t *p) {{ return (uint16_t)(p[0] | (uint16_t)(p[1] << 8)); }}
-static uint32_t get_u32(const uint8_t *p)
-{{
-    return (uint32_t)p[0] | ((uint32_t)p[1] << 8) | ((uint32_t)p[2] << 16) | ((uint32_t)p[3] << 24);
-}}
-static uint64_t get_u64(const uint8_t *p) {{ return (uint64_t)get_u32(p) | ((uint64_t)get_u32(p + 4) << 32); }}
-static int32_t get_i32(const uint8_t *p)
-{{
-    uint32_t u = get_u32(p);
-    /* two's complement without implementation-defined conversion */
-    return u <= (uint32_t)INT32_MAX ? (int32_t)u : -(int32_t)(~u) - 1;
-}}
-
-uint16_t {name}_crc16(const uint8_t *data, size_t n)
-{{
-    uint16_t crc = 0xFFFFu;
-    size_t i;
-    int b;
-    for (i = 0; i < n; ++i) {{
-        crc = (uint16_t)(crc ^ (uint16_t)(data[i] << 8));
-        for (b = 0; b < 8; ++b) {{
-            crc = (crc & 0x8000u) ? (uint16_t)((uint16_t)(crc << 1) ^ 0x1021u) : (uint16_t)(crc << 1);
-        }}
-    }}
-    return crc;
-}}
-
-uint32_t {name}_crc32(const uint8_t *data, size_t n)
-{{
-    uint32_t crc = 0xFFFFFFFFu;
-    size_t i;
-    int b;
-    for (i = 0; i < n; ++i) {{
-        crc ^= data[i];
-        for (b = 0; b < 8; ++b) {{
-            crc = (crc & 1u) ? (crc >> 1) ^ 0xEDB88320u : crc >> 1;
-        }}
-    }}
-    return ~crc;
-}}
-
-size_t {name}_cobs_encode(const uint8_t *in, size_t n, uint8_t *out)
-{{
-    size_t r = 0, w = 1, code_pos = 0;
-    uint8_t code = 1;
-    while (r < n) {{
-        if (in[r] == 0u) {{
-            out[code_pos] = code;
-            code = 1;
-            code_pos = w++;
-            ++r;
-        }} else {{
-            out[w++] = in[r++];
-            ++code;
-            if (code == 0xFFu && r < n) {{
-                out[code_pos] = code;
-                code = 1;
-                code_pos = w++;
-            }}
-        }}
-    }}
-    out[code_pos] = code;
-    return w;
-}}
-
-int {name}_cobs_decode(const uint8_t *in, size_t n, uint8_t *out, size_t cap, size_t *out_n)
-{{
-    size_t r = 0, w = 0, i;
-    while (r < n) {{
-        uint8_t code = in[r++];
-        if (code == 0u || (size_t)code - 1u > n - r) return -1;
-        for (i = 1; i < code; ++i) {{
-            if (in[r] == 0u || w >= cap) return -1;
-            out[w++] = in[r++];
-        }}
-        if (r < n && code < 0xFFu) {{
-            if (w >= cap) return -1;
-            out[w++] = 0u;
-        }}
-    }}
-    *out_n = w;
-    return 0;
-}}
-
-size_t {name}_frame(uint8_t kind, uint16_t seq, const uint8_t *payload, size_t len, uint8_t *out)
-{{
-    uint8_t body[{up}_MAX_FRAME_BYTES];
-    uint16_t crc;
-    size_t n;
-    if (len > {up}_MAX_PAYLOAD_BYTES) len = {up}_MAX_PAYLOAD_BYTES;
-    body[0] = {up}_PROTOCOL_VERSION;
-    body[1] = kind;
-    put_u16(body + 2, seq);
-    if (len) memcpy(body + 4, payload, len);
-    crc = {name}_crc16(body, len + 4u);
-    put_u16(body + 4 + len, crc);
-    n = {name}_cobs_encode(body, len + 6u, out);
-    out[n++] = 0u;
-    return n;
-}}
+{framing}
 
 {packs}
 int {name}_unpack(uint8_t kind, const uint8_t *in, size_t len, {name}_message *m)
@@ -456,46 +248,7 @@ int {name}_known_kind(uint8_t kind)
     return {name}_unpack(kind, NULL, 0u, &m) != -2;
 }}
 
-void {name}_rx_init({name}_rx *rx)
-{{
-    rx->count = 0u;
-    rx->skipping = 0u;
-    rx->payload_len = 0u;
-}}
-
-int {name}_rx_byte({name}_rx *rx, uint8_t byte)
-{{
-    uint8_t body[{up}_MAX_ENCODED_BYTES];
-    size_t n;
-    if (byte != 0u) {{
-        if (rx->skipping) return {up}_RX_NONE;
-        if (rx->count >= {up}_MAX_ENCODED_BYTES - 1u) {{
-            rx->count = 0u;
-            rx->skipping = 1u;
-            return {up}_RX_ERR_TOO_LONG;
-        }}
-        rx->enc[rx->count++] = byte;
-        return {up}_RX_NONE;
-    }}
-    if (rx->skipping) {{
-        rx->skipping = 0u;
-        rx->count = 0u;
-        return {up}_RX_NONE;
-    }}
-    if (rx->count == 0u) return {up}_RX_NONE;
-    n = rx->count;
-    rx->count = 0u;
-    if ({name}_cobs_decode(rx->enc, n, body, sizeof body, &n) != 0) return {up}_RX_ERR_COBS;
-    if (n < 6u) return {up}_RX_ERR_SHORT;
-    if ({name}_crc16(body, n - 2u) != get_u16(body + n - 2u)) return {up}_RX_ERR_CRC;
-    rx->version = body[0];
-    rx->kind = body[1];
-    rx->seq = get_u16(body + 2);
-    rx->crc = get_u16(body + n - 2u);
-    rx->payload_len = n - 6u;
-    memcpy(rx->payload, body + 4, rx->payload_len);
-    return {up}_RX_FRAME;
-}}
+{receiver}
 
 void {name}_init({name}_link *link, const {name}_handlers *h)
 {{

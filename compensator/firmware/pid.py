@@ -89,6 +89,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from compensator._lazy import lazy_exports
 from compensator.errors import ModelError
 from compensator.firmware.fixed_point import INT32_MAX, INT32_MIN, rshift_round  # noqa: F401 (old import path)
 
@@ -597,11 +598,12 @@ class FloatPid:
         return _run_steps(self, r, y, m, mo, float)
 
 
-# The fixed-point half lives in its own module; its names stay importable from here.
-from compensator.firmware.pid_fixed import (  # noqa: E402
-    FixedPid,
-    FixedPidCoefficients,
-    FixedPidState,
-    agreement_bound_count,
-    quantise_pid,
-)
+# The fixed-point half lives in its own modules (which import this one); its names stay importable from here,
+# loaded on first use so that any of the three modules can be imported first.
+__getattr__ = lazy_exports(globals(), {
+    "FixedPidCoefficients": "compensator.firmware.pid_coefficients",
+    "quantise_pid": "compensator.firmware.pid_coefficients",
+    "FixedPidState": "compensator.firmware.pid_fixed",
+    "FixedPid": "compensator.firmware.pid_fixed",
+    "agreement_bound_count": "compensator.firmware.pid_fixed",
+})

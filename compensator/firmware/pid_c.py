@@ -21,7 +21,7 @@ from compensator.errors import ModelError
 from compensator.firmware.c_names import check_function_name
 from compensator.firmware.fixed_point import c_floor_shift_function, c_int_literal
 from compensator.provenance import c_banner
-from compensator.firmware.pid_fixed import MANTISSA_LIMIT_32, MAX_SHIFT_32, STATE_LIMIT_32
+from compensator.firmware.pid_coefficients import MANTISSA_LIMIT_32, MAX_SHIFT_32, STATE_LIMIT_32
 from compensator.firmware.pid import (
     MANTISSA_LIMIT,
     MAX_SHIFT,

@@ -8,6 +8,7 @@ from compensator.law.budget import (
     gain_error_at_light_pct,
     gain_error_budget,
 )
+from compensator.law.error_chain import ErrorSource, chain_gain_error_pct, error_sources, sensor_lag_k
 from compensator.law.laws import (
     DROP_CORRECTIONS,
     LAW_KINDS,
@@ -25,5 +26,5 @@ __all__ = [
     "BudgetTerm", "GainBudget", "MonteCarloSummary", "electronics_terms", "gain_error_at_light_pct", "gain_error_budget",
     "DROP_CORRECTIONS", "LAW_KINDS", "LIMIT_NAMES", "CompensationLaw", "build_law", "check_law_in_range",
     "constant_gain_law", "constant_overvoltage_law", "constant_response_law", "SafeBias", "lowest_breakdown_v",
-    "safe_bias",
+    "safe_bias", "ErrorSource", "chain_gain_error_pct", "error_sources", "sensor_lag_k",
 ]

@@ -490,8 +490,10 @@ class BoardClient:
         period_s : float
             Second.
         """
-        if not period_s == period_s or not 0 <= period_s <= 3600:
-            raise LinkError(f"period_s: needs 0 to 3600 s, got {period_s!r}")
+        lo_s, hi_s = p.MIN_TELEMETRY_PERIOD_S, p.MAX_TELEMETRY_PERIOD_S
+        if not period_s == period_s or not (period_s == 0 or lo_s <= period_s <= hi_s):
+            raise LinkError(f"period_s: needs 0 (stop) or {lo_s:g} to {hi_s:g} s (the protocol counts whole "
+                            f"milliseconds), got {period_s!r}")
         self.command(p.SetTelemetryPeriod(period_ms=int(round(period_s * 1000))))
 
     def upload(self, target: p.UploadTarget, image: bytes) -> int:

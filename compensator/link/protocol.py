@@ -40,6 +40,7 @@ __all__ = [
     "Heartbeat", "SetTelemetryPeriod", "UploadBegin", "UploadChunk", "UploadCommit",
     "IdentityReport", "StatusReport", "FaultReport", "Reply", "Refusal", "TelemetryReport",
     "MESSAGE_TYPES", "REQUEST_TYPES", "message_type", "message_name", "reply_kind", "fixed_size", "RESULT_REASONS",
+    "MIN_TELEMETRY_PERIOD_S", "MAX_TELEMETRY_PERIOD_S",
 ]
 
 #: Version byte at the start of every frame; a board answers another version with ``Result.BAD_VERSION``.
@@ -52,6 +53,10 @@ MAX_CHUNK_BYTES = 192
 MAX_TEXT_BYTES = 32
 #: Largest image (table or coefficients) a board accepts, bytes.
 MAX_IMAGE_BYTES = 16384
+#: Shortest telemetry period a host may ask for, second (``SetTelemetryPeriod`` counts whole milliseconds).
+MIN_TELEMETRY_PERIOD_S = 0.001
+#: Longest telemetry period a host may ask for, second.
+MAX_TELEMETRY_PERIOD_S = 3600.0
 #: Fault bits with a trip record each (bits 0..15 of the fault word).
 FAULT_SLOTS = 16
 #: ``i32`` value meaning "not measured / not fitted" (the board has no such channel).

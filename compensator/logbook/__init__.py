@@ -1,7 +1,7 @@
 """Append-only, crash-safe telemetry logbook on SQLite.
 
 ``schema`` (tables, units in every column, schema version), ``records``
-(what readers get back), ``store`` (the writer and the reader), ``logger``
+(what readers get back), ``store`` (the writer), ``reader`` (read-only access), ``logger``
 (telemetry source -> logbook, with faults, gaps and reconnects),
 ``export`` (CSV and Parquet).
 """

@@ -10,7 +10,7 @@ build its help) does not load python-control and scipy.
 
 from __future__ import annotations
 
-import importlib
+from compensator._lazy import lazy_exports
 
 #: Public name -> the module that defines it.
 _HOME = {
@@ -19,8 +19,10 @@ _HOME = {
     **dict.fromkeys(("METHODS", "DEFAULT_MS"), "choices"),
     **dict.fromkeys(("TuningResult", "tune", "robust", "simc", "amigo", "imc", "ziegler_nichols_step",
                      "ziegler_nichols_ultimate", "ms_point_ultimate", "fopdt_from_ultimate"), "tuning"),
-    **dict.fromkeys(("PidGains", "Margins", "StepData", "LoopReport", "LoopFigures", "verify_loop", "loop_figures",
-                     "closed_loop_stable", "max_sensitivity", "ultimate_point"), "verify"),
+    **dict.fromkeys(("Margins", "StepData", "LoopReport", "LoopFigures", "verify_loop", "loop_figures",
+                     "closed_loop_stable"), "verify"),
+    **dict.fromkeys(("PidGains", "controller_tf", "controller_frequency_response"), "controller"),
+    **dict.fromkeys(("frequency_grid", "loop_frequency_grid", "max_sensitivity", "ultimate_point"), "frequency"),
     **dict.fromkeys(("Plant", "FopdtModel", "SopdtModel", "fopdt_plant", "sopdt_plant", "model_plant",
                      "linearise_cooler", "linearise_cooler_over_ambient", "bias_supply_plant"), "plants"),
     **dict.fromkeys(("AmbientCheck", "AmbientRangeReport", "ambient_grid_c", "check_cooler_ambient_range"),
@@ -33,13 +35,7 @@ _HOME = {
 __all__ = sorted(_HOME)
 
 
-def __getattr__(name):
-    home = _HOME.get(name)
-    if home is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    value = getattr(importlib.import_module(f"{__name__}.{home}"), name)
-    globals()[name] = value
-    return value
+__getattr__ = lazy_exports(globals(), {name: f"{__name__}.{home}" for name, home in _HOME.items()})
 
 
 def __dir__():

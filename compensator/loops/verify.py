@@ -3,19 +3,17 @@
 The plant is discretised at the firmware rate with a zero-order hold, its dead
 time exact, plus one sample of computation delay
 (:func:`compensator.loops.plants.discretise`). The controller is the discrete
-PID of the firmware reference (:mod:`compensator.firmware.pid`): parallel
-form, forward-Euler integrator (the integral used at sample k holds the errors
-up to k-1), derivative on the measurement through a first-order filter
-(``Tf = kd / (kp N)``, backward difference), setpoint weight ``b`` on the
-proportional term. With ``q = z^-1``, and away from the output limits::
-
-    C(z)  = kp + ki T q / (1 - q) + kd (1 - q) / (T + Tf (1 - q))    (measurement to actuator)
-    Cr(z) = b kp + ki T q / (1 - q)                                  (setpoint to actuator)
+PID of the firmware reference, ``u = Cr r - C y``
+(:mod:`compensator.loops.controller`, which gives ``C`` and ``Cr``).
 
 Margins come from python-control ``stability_margins`` on ``L = C P``; Ms
 is ``1 / min |1 + L|`` on a dense frequency grid up to the Nyquist
-frequency; the closed-loop step (setpoint to output, and to the actuator)
-from ``forced_response`` and ``step_info``.
+frequency (:mod:`compensator.loops.frequency`); the closed-loop step
+(setpoint to output, and to the actuator) from ``forced_response`` and
+``step_info``.
+
+The controller, the frequency grids, Ms and the ultimate point are
+re-exported here under their old import paths.
 """
 
 from __future__ import annotations
@@ -27,18 +25,19 @@ from dataclasses import dataclass, field
 import control
 import numpy as np
 
+from compensator._lazy import lazy_exports
 from compensator.errors import ModelError
 from compensator.findings import Finding, Severity
 from compensator.loops._blas import one_blas_thread
-from compensator.loops.plants import Plant
-from compensator.loops.sampled import (
-    analysis_plant,
-    continuous_frequency_response,
-    discrete_frequency_evaluator,
-    discrete_frequency_response,
-    discretise,
-    state_space_arrays,
+from compensator.loops.controller import (
+    PidGains,
+    _controller_realisation,
+    controller_frequency_response,
+    controller_tf,
 )
+from compensator.loops.frequency import frequency_grid, loop_frequency_grid, max_sensitivity, ultimate_point
+from compensator.loops.plants import Plant
+from compensator.loops.sampled import analysis_plant, discrete_frequency_response, discretise, state_space_arrays
 
 __all__ = [
     "POOR_GAIN_MARGIN", "POOR_PHASE_MARGIN_DEG", "POOR_MS", "PidGains", "Margins", "StepData", "LoopReport",
@@ -52,38 +51,6 @@ __all__ = [
 POOR_GAIN_MARGIN = 2.0
 POOR_PHASE_MARGIN_DEG = 30.0
 POOR_MS = 2.0
-
-
-@dataclass(frozen=True)
-class PidGains:
-    """PID gains in parallel form: ``u = kp e + ki integral(e) + kd de/dt``.
-
-    Attributes
-    ----------
-    kp : float
-        Proportional gain, actuator units per output unit.
-    ki_per_s : float
-        Integral gain, actuator units per output unit per second.
-    kd_s : float
-        Derivative gain, actuator units per output unit times second.
-    derivative_filter_n : float
-        N: the derivative filter time constant is ``kd / (kp N)`` (one sample when kp is 0).
-    setpoint_weight : float
-        b: the proportional term acts on ``b r - y``.
-    """
-
-    kp: float
-    ki_per_s: float
-    kd_s: float = 0.0
-    derivative_filter_n: float = 10.0
-    setpoint_weight: float = 1.0
-
-    @property
-    def derivative_filter_s(self) -> float:
-        """Derivative filter time constant Tf = Td / N, second (0 without derivative)."""
-        if self.kd_s == 0 or self.kp == 0:
-            return 0.0
-        return abs(self.kd_s / self.kp) / self.derivative_filter_n
 
 
 @dataclass(frozen=True)
@@ -190,227 +157,6 @@ class LoopReport:
         return tuple(f.message for f in self.findings)
 
 
-# ---------------------------------------------------------------- controller
-def _controller_parts(gains: PidGains, T: float):
-    """Numerator and denominator of C(z) and Cr(z) in powers of z^-1 (lowest first)."""
-    kp, ki, kd = gains.kp, gains.ki_per_s, gains.kd_s
-    tf_ = gains.derivative_filter_s if kp != 0 else T
-    one_minus_q = np.array([1.0, -1.0])
-    b = gains.setpoint_weight
-    i_num = np.array([0.0, ki * T])  # ki T q over (1 - q)
-    if kd != 0:
-        dden = np.array([T + tf_, -tf_])
-        den = np.convolve(one_minus_q, dden)
-        integral = np.convolve(i_num, dden)[:3]
-        num = kp * den + integral + kd * np.convolve(one_minus_q, one_minus_q)
-        rnum = b * kp * den + integral
-    else:
-        den = one_minus_q
-        num = kp * den + i_num
-        rnum = b * kp * den + i_num
-    return num, den, rnum
-
-
-def _q_to_tf(num_q, den_q, T):
-    """Polynomials in z^-1 (lowest power first) -> python-control transfer function in z."""
-    n = max(len(num_q), len(den_q))
-    num = np.pad(np.asarray(num_q, float), (0, n - len(num_q)))
-    den = np.pad(np.asarray(den_q, float), (0, n - len(den_q)))
-    return control.tf(num, den, T)
-
-
-def controller_tf(gains: PidGains, sample_time_s: float, setpoint_path: bool = False) -> control.TransferFunction:
-    """The discrete PID as a transfer function (see the module docstring).
-
-    Parameters
-    ----------
-    gains : PidGains
-    sample_time_s : float
-        Firmware period, second.
-    setpoint_path : bool
-        Return ``Cr`` (setpoint to actuator) instead of ``C`` (measurement to actuator).
-
-    Returns
-    -------
-    control.TransferFunction
-        Discrete, ``dt = sample_time_s``.
-    """
-    num, den, rnum = _controller_parts(gains, sample_time_s)
-    return _q_to_tf(rnum if setpoint_path else num, den, sample_time_s)
-
-
-def controller_frequency_response(gains: PidGains, sample_time_s: float, omega_rad_s):
-    """``C(exp(j omega T))`` for one or many controllers.
-
-    Parameters
-    ----------
-    gains : PidGains
-        Fields may be arrays of one shape (many controllers at once).
-    sample_time_s : float
-        Firmware period, second.
-    omega_rad_s : array_like
-        Angular frequencies, rad/s (last axis of the result).
-
-    Returns
-    -------
-    ndarray of complex
-        Shape ``gains.kp.shape + omega.shape``.
-    """
-    T = sample_time_s
-    q = np.exp(-1j * np.asarray(omega_rad_s, dtype=float) * T)
-    kp = np.asarray(gains.kp, dtype=float)
-    ki = np.asarray(gains.ki_per_s, dtype=float)
-    kd = np.asarray(gains.kd_s, dtype=float)
-    c = kp[..., None] + (ki[..., None] * T) * q / (1.0 - q)
-    if np.any(kd != 0):
-        with np.errstate(divide="ignore", invalid="ignore"):
-            tf_ = np.where(kp == 0, T, np.abs(kd / np.where(kp == 0, 1.0, kp)) / gains.derivative_filter_n)
-            tf_ = np.where(kd != 0, tf_, 0.0)
-        c = c + kd[..., None] * (1.0 - q) / (T + tf_[..., None] * (1.0 - q))
-    return c
-
-
-def frequency_grid(sample_time_s: float, points: int = 4000, decades: float = 6.0):
-    """Log-spaced angular frequencies up to just below the Nyquist frequency.
-
-    Parameters
-    ----------
-    sample_time_s : float
-        Period T, second (Nyquist frequency pi/T).
-    points : int
-    decades : float
-        Span below the Nyquist frequency.
-
-    Returns
-    -------
-    ndarray
-        Angular frequencies, rad/s.
-    """
-    nyq = math.pi / sample_time_s
-    return np.logspace(math.log10(nyq) - decades, math.log10(nyq * 0.9999), points)
-
-
-def loop_frequency_grid(plant: Plant, sample_time_s: float, points: int = 6000, decades: float = 7.0):
-    """Like :func:`frequency_grid`, extended downwards to cover the plant's slowest dynamics.
-
-    The grid reaches at least a hundredth of ``1 / (dead time + time constants)``
-    so that slow plants sampled fast keep their crossover on the grid; the
-    density per decade stays that of ``points`` over ``decades``.
-
-    Parameters
-    ----------
-    plant : Plant
-    sample_time_s : float
-        Period T, second.
-    points : int
-        Points over ``decades`` decades.
-    decades : float
-        Least span below the Nyquist frequency.
-
-    Returns
-    -------
-    ndarray
-        Angular frequencies, rad/s.
-    """
-    a = state_space_arrays(plant.system)[0]
-    poles = np.linalg.eigvals(a) if a.size else np.array([])
-    slow = plant.dead_time_s + float(np.sum(1.0 / np.abs(poles[np.abs(poles) > 0]))) if poles.size else \
-        plant.dead_time_s
-    nyq = math.pi / sample_time_s
-    span = decades
-    if slow > 0:
-        span = max(decades, math.log10(nyq * slow / 0.01))
-    span = min(span, 3.0 * decades)
-    return frequency_grid(sample_time_s, int(points * span / decades), span)
-
-
-def max_sensitivity(plant: Plant, gains: PidGains, sample_time_s: float, computation_delay_samples: int = 1,
-                    omega_rad_s=None):
-    """Ms = 1 / min |1 + L| over a dense grid, and the frequency of the peak.
-
-    Parameters
-    ----------
-    plant : Plant
-    gains : PidGains
-    sample_time_s : float
-    computation_delay_samples : int
-    omega_rad_s : array_like, optional
-        Grid (default: :func:`loop_frequency_grid` with 4000 points per 6 decades).
-
-    Returns
-    -------
-    ms : float
-    omega_peak_rad_s : float
-    """
-    w = loop_frequency_grid(plant, sample_time_s, 4000, 6.0) if omega_rad_s is None else np.asarray(omega_rad_s, dtype=float)
-    p = discrete_frequency_response(plant, sample_time_s, w, computation_delay_samples)
-    dist = np.abs(1.0 + controller_frequency_response(gains, sample_time_s, w) * p)
-    k = int(np.argmin(dist))
-    return float(1.0 / dist[k]), float(w[k])
-
-
-# ---------------------------------------------------------------- ultimate point
-def ultimate_point(plant: Plant, sample_time_s: float | None = None, computation_delay_samples: int = 1):
-    """Ultimate gain and period: where the plant's phase reaches -180 degrees.
-
-    Parameters
-    ----------
-    plant : Plant
-    sample_time_s : float or None
-        With a period, the discretised plant (ZOH, exact delay, computation
-        delay); with None, the continuous plant with its exact dead time.
-    computation_delay_samples : int
-
-    Returns
-    -------
-    ultimate_gain : float
-        Ku, signed like the plant gain (proportional gain that puts the loop
-        at the stability limit).
-    ultimate_period_s : float
-        Pu, second.
-    """
-    sign = 1.0 if plant.dc_gain >= 0 else -1.0
-    if sample_time_s is None:
-        def resp(w):
-            return sign * continuous_frequency_response(plant, w)
-        poles = np.linalg.eigvals(np.atleast_2d(np.asarray(plant.system.A, float)))
-        fast = float(np.max(np.abs(poles))) if poles.size else 1.0
-        hi = max(100.0 * fast, 100.0 / plant.dead_time_s if plant.dead_time_s else 100.0 * fast)
-        w = np.logspace(math.log10(hi) - 8, math.log10(hi), 20000)
-    else:
-        w = frequency_grid(sample_time_s, 20000, 8.0)
-        raw = discrete_frequency_evaluator(plant, sample_time_s, computation_delay_samples)
-
-        def resp(w):
-            return sign * raw(w)
-    ph = np.unwrap(np.angle(resp(w)))
-    below = np.flatnonzero(ph <= -math.pi)
-    if below.size == 0 and sample_time_s is not None:
-        # A sampled loop may reach -180 degrees exactly at the Nyquist frequency (e.g. a static gain behind
-        # one sample of delay), where the response is real.
-        at_nyquist = resp(np.array([math.pi / sample_time_s]))[0]
-        if at_nyquist.real < 0 and abs(at_nyquist.imag) <= 1e-9 * abs(at_nyquist):
-            return sign / abs(at_nyquist), 2.0 * sample_time_s
-    if below.size == 0:
-        raise ModelError("the plant's phase never reaches -180 degrees: no ultimate gain (any proportional gain is "
-                         "stable)")
-    k = below[0]
-    if k == 0:
-        raise ModelError("the plant's phase is below -180 degrees at the lowest frequency: no ultimate gain")
-    lo, hi_ = w[k - 1], w[k]
-    ph_lo = ph[k - 1]
-    for _ in range(60):  # bisection on the unwrapped phase between two grid points
-        mid = math.sqrt(lo * hi_)
-        p_mid = ph_lo + np.angle(resp(np.array([mid]))[0] / resp(np.array([lo]))[0])
-        if p_mid <= -math.pi:
-            hi_ = mid
-        else:
-            lo, ph_lo = mid, p_mid
-    wu = math.sqrt(lo * hi_)
-    ku = 1.0 / abs(resp(np.array([wu]))[0])
-    return sign * ku, 2.0 * math.pi / wu
-
-
 # ---------------------------------------------------------------- verification
 def _settle_horizon(poles, T):
     mags = np.abs(poles)
@@ -419,24 +165,6 @@ def _settle_horizon(poles, T):
         return 200
     slow = -T / math.log(float(np.max(mags)))
     return int(np.clip(10.0 * slow / T, 200, 30000))
-
-
-def _controller_realisation(gains: PidGains, T: float):
-    """One observable-canonical realisation of ``u = Cr r - C y`` (shared states, two inputs)."""
-    num, den, rnum = _controller_parts(gains, T)
-    m = len(den) - 1
-    d0 = den[0]
-    a = np.asarray(den, float) / d0
-    br = np.pad(np.asarray(rnum, float), (0, m + 1 - len(rnum))) / d0
-    by = -np.pad(np.asarray(num, float), (0, m + 1 - len(num))) / d0
-    ak = np.zeros((m, m))
-    ak[:, 0] = -a[1:]
-    ak[: m - 1, 1:] = np.eye(m - 1)
-    bkr = (br[1:] - a[1:] * br[0]).reshape(m, 1)
-    bky = (by[1:] - a[1:] * by[0]).reshape(m, 1)
-    ck = np.zeros((1, m))
-    ck[0, 0] = 1.0
-    return ak, bkr, bky, ck, float(br[0]), float(by[0])
 
 
 def _closed_loop(plant: Plant, gains: PidGains, T: float, delay: int):
@@ -737,11 +465,7 @@ def cooler_operating_warnings(params, point) -> list[str]:
     return [f.message for f in cooler_safety_findings(params, point)]
 
 
-def __getattr__(name):
-    # AmbientCheck and check_cooler_ambient_range moved to compensator.loops.cooler (imported lazily: cooler
-    # uses this module).
-    if name in ("AmbientCheck", "check_cooler_ambient_range"):
-        from compensator.loops import cooler
-
-        return getattr(cooler, name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+# AmbientCheck and check_cooler_ambient_range moved to compensator.loops.cooler (imported lazily: cooler uses
+# this module).
+__getattr__ = lazy_exports(globals(), dict.fromkeys(("AmbientCheck", "check_cooler_ambient_range"),
+                                                    "compensator.loops.cooler"))

@@ -7,7 +7,10 @@
 * :mod:`~compensator.sim.cooler`: the cooler's nonlinear heat balance, one tick at a time;
 * :mod:`~compensator.sim.firmware`: the firmware's integer path by its Python references or the compiled C;
 * :mod:`~compensator.sim.setup`: from a scenario to a :class:`SimSetup` (law, table, cooler controller);
-* :mod:`~compensator.sim.engine`: the strategies over the whole run, with metrics and traces;
+* :mod:`~compensator.sim.engine`: the strategies over the whole run, block after block;
+* :mod:`~compensator.sim.metrics`: per-unit metrics accumulated as the run goes, and the decimated traces;
+* :mod:`~compensator.sim.blocks`: supply lags, the measured drop correction and the dark-peak measurement per block;
+* :mod:`~compensator.sim.cooled`: the compensated_cooled strategy, tick by tick;
 * :mod:`~compensator.sim.plant`: :class:`FieldPlant`, one unit one tick at a time, for a simulated board.
 """
 

@@ -31,6 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from compensator.errors import ModelError
+from compensator.sim.blocks import measure_dark_peak, supply_lags
 from compensator.sim.chain import (
     UnitDraws,
     bias_at_sipm_v,
@@ -43,7 +44,6 @@ from compensator.sim.chain import (
     unit_breakdown_v,
 )
 from compensator.sim.cooler import cooler_substeps, cooler_tick
-from compensator.sim.engine import _lags, measure_dark_peak
 from compensator.sim.environment import AmbientStream, ThermalPath, Weather
 from compensator.sim.setup import SimSetup, TrimSettings, prepare, setup_from_profiles
 
@@ -166,7 +166,7 @@ class FieldPlant:
         self._rng = np.random.default_rng([int(seed), 0x9A17])
         self._stream = AmbientStream(setup.weather, setup.path, setup.tick_s)
         self._supply = supply_units(setup.law.supply, self.unit)
-        self._lags = _lags(setup)
+        self._lags = supply_lags(setup)
         self._lag_state = [None] * len(self._lags)
         self._block = None
         self._pos = 0
@@ -286,9 +286,9 @@ class FieldPlant:
         vbd = unit_breakdown_v(factors, self.unit, s.breakdown_error_v + s.ageing_v_per_s * time_s)
         v_out = network_output_v(self._supply, np.array([[dac_code]]))
         if self._lags:
-            from compensator.sim.engine import _apply_lags
+            from compensator.sim.blocks import apply_lags
 
-            v_out = _apply_lags(v_out, self._lags, self._lag_state)
+            v_out = apply_lags(v_out, self._lags, self._lag_state)
         bias, current = bias_at_sipm_v(s.sipm, factors, vbd, v_out, self._supply.series_resistor_ohm, rate)
         ov = float((bias - vbd)[0, 0])
         gain = float(factors.gain_per_v[0, 0]) * max(ov, 0.0)
