@@ -43,3 +43,9 @@ def test_c_literals():
     assert fp.c_int_literal(2 ** 40, 64) == "INT64_C(1099511627776)"
     text = fp.c_floor_shift_function("t_fs", "int32_t")
     assert "static int32_t t_fs(int32_t p, unsigned k)" in text and "-((-p + (((int32_t)1 << k) - 1)) >> k)" in text
+
+
+def test_saturate_defaults_to_32_bits():
+    # int32_t runs from -2^31 to 2^31 - 1 (C99 7.18.2.1).
+    assert fp.saturate(2 ** 31) == 2 ** 31 - 1 and fp.saturate(2 ** 31 - 1) == 2 ** 31 - 1
+    assert fp.saturate(-(2 ** 31) - 1) == -(2 ** 31)

@@ -67,6 +67,34 @@ def test_the_figure_does_not_depend_on_a_print_step(result_of, board_ntc):
     assert np.all(np.isfinite(result.temp_c)) and np.all(result.sipm_bias_v > 25.0)
 
 
+def test_a_code_by_hand_under_light(path, sipm_a, board_ntc):
+    # As test_a_code_by_hand, with 1e8 photons/s on the SiPM: its current (tens of microamperes through the
+    # 10 kohm resistor) drops the bias by tens of millivolts, which this table (no drop correction) leaves.
+    from compensator.physics.sipm import breakdown_v, steady_current_a
+
+    law, table, _ = path
+    result = integer_path_gain_error(table, law, board_ntc, photon_rate_hz=1e8)
+    k = 1234
+    code = int(result.adc_code[k])
+    t = float(board_ntc.temperature.temp_at(code + 0.5))
+    out_v = board_ntc.supply.intercept_v + board_ntc.supply.volts_per_code * int(table.lookup([code])[0][0])
+    v = out_v
+    for _ in range(50):
+        v = out_v - 1e4 * float(steady_current_a(sipm_a.device, v, t, 1e8))
+    assert out_v - v > 0.01  # the light matters
+    assert result.gain_error_pct[k] == pytest.approx(100 * ((v - float(breakdown_v(sipm_a.device, t))) / 3.0 - 1),
+                                                     abs=1e-6)
+
+
+def test_the_default_is_a_dark_sipm(path, result_of, board_ntc):
+    # photon_rate_hz defaults to 0 Hz: the same figures as an explicit 0, not those of any light at all.
+    law, table, _ = path
+    dark = integer_path_gain_error(table, law, board_ntc, photon_rate_hz=0.0)
+    assert np.array_equal(result_of.sipm_bias_v, dark.sipm_bias_v)
+    assert not np.array_equal(result_of.sipm_bias_v,
+                              integer_path_gain_error(table, law, board_ntc, photon_rate_hz=1.0).sipm_bias_v)
+
+
 def _by_hand_pct(sipm_a, board_ntc, table, temps_c, codes):
     """The path with plain steps: table DAC code, supply line, dark-current drop across 10 kohm solved by fixed
     point, and G = C (V - Vbd) / q with C constant (hut-sipm-a.yaml), against 3 V over breakdown at 25 C."""

@@ -252,3 +252,20 @@ def test_firmware_correction_holds_the_sipm_bias_under_light(case, request, sipm
     corrected_pct = 100 * np.abs(v - target).max() / law.overvoltage_v
     assert uncorrected_pct > 1.0  # 20-30 uA through several kOhm
     assert corrected_pct < 0.1
+
+
+def test_current_codes_of_any_integer_type(sipm_a, board_ntc):
+    # Current codes read from a 16-bit ADC buffer (uint16) give the corrections worked out by hand in
+    # test_feedback_injection_correction_by_hand: floor((-346030 c + 2^16) / 2^17) with c held at 4095.
+    _, table = measured_table(sipm_a, board_ntc, 3.0)
+    raw = np.array([0, 1, 100, 1000, 4095, 65535], dtype=np.uint16)
+    assert table.current.delta(raw).tolist() == [(-346030 * min(c, 4095) + 2 ** 16) // 2 ** 17 for c in raw.tolist()]
+    assert table.current.delta(raw).tolist() == [0, -3, -264, -2640, -10811, -10811]
+
+
+def test_no_correction_says_how_to_get_one(sipm_a, board_ntc):
+    plain = build_table(build_law(sipm_a, board_ntc, 3.0, kind="constant_gain"), board_ntc, 0.05, "optimised")
+    with pytest.raises(ModelError) as exc:
+        plain.lookup_with_current([2000], [0])
+    assert exc.value.reason == ("this table has no measured drop correction (build it from a law with "
+                                "drop_correction='measured')")

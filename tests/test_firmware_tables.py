@@ -349,3 +349,97 @@ def test_target_extrapolates_linearly_beyond_the_range(sipm_b, board_pt1000):
     # the extrapolation slope is the law's own slope there: DAC codes per ADC code from the law one code outside
     f = T.ideal_dac_code(law, board_pt1000.temperature.temp_at(np.array([hi - 0.5, hi + 1.5])))
     assert target.ext_hi == pytest.approx((f[1] - f[0]) / 2, rel=1e-9)
+
+
+def small_target(exact, *, ext, dac_full, bound_lsb):
+    """A hand-made target over ADC codes 100 .. 100 + len(exact) - 1, extrapolated with slope ``ext``."""
+    exact = np.asarray(exact, dtype=float)
+    n = exact.size
+    return T.Target(codes=np.arange(100, 100 + n, dtype=np.int64), temp_c=np.zeros(n), exact=exact,
+                    bound_lsb=np.full(n, bound_lsb), gain_pct_per_lsb=np.ones(n), ext_lo=ext, ext_hi=ext,
+                    dac_full=dac_full)
+
+
+@pytest.mark.parametrize("frac", [0, 2])
+def test_uniform_nodes_are_clipped_to_the_dac_range(frac):
+    # The line 10 (n - 100) - 20.25 DAC codes runs from below code 0 to above full scale (50). Nodes every 2 codes
+    # from 100 to 110 (the last one beyond the range, on the same line), rounded half to even (Python's round,
+    # like numpy's rint) at 2^frac steps, then held inside 0 .. 50 x 2^frac: plain Python.
+    target = small_target([10 * k - 20.25 for k in range(9)], ext=10.0, dac_full=50, bound_lsb=100.0)
+    nodes, _, _ = T.uniform_candidate(target, 1, frac)
+    scale = 2 ** frac
+    expected = [min(max(round((10 * (n - 100) - 20.25) * scale), 0), 50 * scale) for n in range(100, 111, 2)]
+    assert expected[:2] == [0, 0] and expected[-2:] == [50 * scale] * 2  # both ends are clipped
+    assert nodes.tolist() == expected and nodes.dtype == np.int64
+
+
+def test_uniform_error_equal_to_the_bound_meets_it():
+    # Exact values 0, 0.5, 1 at codes 100 .. 102; nodes at 100, 102 (and 104, extrapolated) hold 0, 1 (and 2) as
+    # plain DAC codes by default. At code 101 the firmware gives 0 + floor((1 x 1 + 1) / 2) = 1 (half rounds up):
+    # an error of exactly 0.5 LSB, which meets a bound of 0.5 LSB.
+    target = small_target([0.0, 0.5, 1.0], ext=0.5, dac_full=4095, bound_lsb=0.5)
+    nodes, ok, worst = T.uniform_candidate(target, 1)
+    assert nodes.tolist() == [0, 1, 2] and worst == 0.5 and ok is True
+    nodes, ok, worst = T.uniform_candidate(replace(target, bound_lsb=np.full(3, 0.49)), 1)
+    assert worst == 0.5 and ok is False
+
+
+def test_target_takes_codes_of_any_integer_type(sipm_b, board_pt1000):
+    # Codes read from a 16-bit ADC buffer (uint16) extrapolate as Python integers do, also below the range.
+    target = T._target(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
+    lo, hi = int(target.codes[0]), int(target.codes[-1])
+    got = target.at(np.array([lo - 3, lo, hi, hi + 5], dtype=np.uint16))
+    expected = [target.exact[0] - 3 * target.ext_lo, target.exact[0], target.exact[-1],
+                target.exact[-1] + 5 * target.ext_hi]
+    assert got == pytest.approx(expected, abs=1e-9)
+    # Further below the range than the range is wide, too.
+    far = lo - target.codes.size - 5
+    assert target.at([far])[0] == pytest.approx(target.exact[0] - (target.codes.size + 5) * target.ext_lo, abs=1e-9)
+
+
+def test_layout_bytes_refuses_an_unknown_layout():
+    from compensator.firmware.layouts import _fit
+
+    with pytest.raises(ModelError) as exc:
+        T.layout_bytes(_fit("bogus"), 12)
+    assert exc.value.reason == "unknown layout 'bogus'"
+
+
+def test_segmented_value_with_fractional_nodes_by_hand():
+    # Nodes 0, 5, 15 DAC codes held with one fractional bit (0, 10, 30); segments 2 and 4 codes wide. Offsets
+    # 0 .. 5 lie on 0, 2.5, 5, 7.5, 10, 12.5 DAC codes; the firmware rounds each half up: plain floor division.
+    y, shifts = np.array([0, 10, 30], dtype=np.int64), np.array([1, 2], dtype=np.int64)
+    expected = []
+    for d in range(6):
+        i, start = (0, 0) if d < 2 else (1, 2)
+        k = int(shifts[i])
+        v = int(y[i]) + ((int(y[i + 1] - y[i])) * (d - start) + (2 ** k) // 2) // 2 ** k
+        expected.append((v + 1) // 2)
+    assert expected == [0, 3, 5, 8, 10, 13]
+    assert T.segmented_value(y, shifts, np.arange(6), 1).tolist() == expected
+
+
+def test_every_layout_after_a_failed_one_is_still_built(sipm_b, board_pt1000, monkeypatch):
+    import compensator.firmware.tables as tables_module
+
+    def refuse(*args, **kwargs):
+        raise TableError("DAC quantisation", "no segmented table meets the bound")
+
+    monkeypatch.setattr(tables_module, "size_segmented", refuse)
+    report = T.compare_layouts(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
+    assert [c.layout for c in report.candidates] == list(T.LAYOUTS)
+    assert sorted(report.tables) == sorted(set(T.LAYOUTS) - {"segmented"})
+    assert report.candidates[1].table_bytes is None and report.candidates[2].table_bytes == 36
+
+
+def test_without_a_uniform_table_there_is_no_baseline(sipm_b, board_pt1000, monkeypatch):
+    # The half-of-uniform finding needs the uniform table: without one there is no baseline and no finding.
+    import compensator.firmware.tables as tables_module
+
+    def refuse(*args, **kwargs):
+        raise TableError("DAC quantisation", "no uniform table meets the bound")
+
+    monkeypatch.setattr(tables_module, "size_uniform", refuse)
+    report = T.compare_layouts(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
+    assert report.uniform_bytes == 0 and report.findings == ()
+    assert report.table.layout == "polynomial" and report.table.table_bytes == 10

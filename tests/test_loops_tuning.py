@@ -416,3 +416,39 @@ def test_rules_accept_dead_times_below_a_second():
     assert (z.kp, z.ki_per_s) == pytest.approx((0.9 * t_ / (k_ * l_), 0.9 * t_ / (k_ * l_) / (3.0 * l_)), rel=1e-12)
     m = tuning.fopdt_from_ultimate(2.0, 3.0, 0.5)
     assert tuning.ultimate_point(plants.model_plant(m), None)[1] == pytest.approx(0.5, rel=1e-6)
+
+
+def test_rules_reduce_a_second_order_model_by_the_half_rule():
+    # Skogestad's half rule (J. Process Control 13, 291, 2003): half of tau2 = 4 s goes to tau1 and half to the
+    # dead time, so SOPDT(K 2, 30 s, 4 s, 5 s) -> FOPDT(2, 32 s, 7 s); then each rule's formula by hand.
+    m = SopdtModel(2.0, 30.0, 4.0, 5.0)
+    g, tc = tuning.simc(m)  # Skogestad 2003 PI: Kc = 32 / (2 (7 + 7)), Ti = min(32, 4 x 14) = 32
+    assert tc == 7.0 and (g.kp, g.ki_per_s) == pytest.approx((32 / 28, 32 / 28 / 32), rel=1e-12)
+    z = tuning.ziegler_nichols_step(m)  # Ziegler and Nichols 1942: a = 2 x 7 / 32, kp = 0.9 / a, Ti = 3 x 7
+    assert (z.kp, z.ki_per_s) == pytest.approx((0.9 * 32 / 14, 0.9 * 32 / 14 / 21), rel=1e-12)
+    i, _ = tuning.imc(m, lambda_s=8.0)  # Rivera, Morari and Skogestad 1986: (64 + 7) / (2 x 2 x 8), Ti = 35.5
+    assert (i.kp, i.ki_per_s) == pytest.approx((71 / 32, 71 / 32 / 35.5), rel=1e-12)
+    a = tuning.amigo(m)  # Astrom and Hagglund 2004 PI with T = 32 s, L = 7 s
+    kp = 0.15 / 2 + (0.35 - 7 * 32 / 39 ** 2) * 32 / (2 * 7)
+    ti = 0.35 * 7 + 13 * 7 * 32 ** 2 / (32 ** 2 + 12 * 7 * 32 + 7 * 7 ** 2)
+    assert (a.kp, a.ki_per_s) == pytest.approx((kp, kp / ti), rel=1e-12)
+
+
+def test_rules_accept_time_constants_below_a_second():
+    # Skogestad 2003 SIMC PI on K = 2, tau = 0.5 s, theta = 0.1 s: Kc = 0.5 / (2 x 0.2) = 1.25, Ti = min(0.5, 0.8).
+    g, _ = tuning.simc(FopdtModel(2.0, 0.5, 0.1))
+    assert (g.kp, g.ki_per_s) == pytest.approx((1.25, 2.5), rel=1e-12)
+
+
+@pytest.mark.parametrize("ku, pu, ms", [(2.0, 7.0, 1.4), (-0.8, 40.0, 2.0)])
+def test_ms_point_pi_from_ku_and_pu_against_a_root_search(ku, pu, ms):
+    # At omega_u the loop is L = -x (1 - j r), x = kp / Ku, r = 1 / (omega_u Ti), Ti = Pu / 1.2 (the
+    # Ziegler-Nichols PI integral time, kept). The smaller x with |1 + L| = 1 / Ms, found by scipy's brentq on
+    # [0, 1 / (1 + r^2)] (where |1 + L| falls from 1 to its minimum), gives kp; ki = kp / Ti.
+    from scipy.optimize import brentq
+
+    r = 1.2 / (2.0 * math.pi)
+    x = brentq(lambda x: abs(1.0 - x * (1.0 - 1j * r)) - 1.0 / ms, 0.0, 1.0 / (1.0 + r * r), xtol=1e-15)
+    g = tuning.ms_point_ultimate(ku, pu, ms)
+    assert g.kp == pytest.approx(x * ku, rel=1e-9)
+    assert g.ki_per_s == pytest.approx(x * ku / (pu / 1.2), rel=1e-9)
