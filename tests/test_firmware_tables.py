@@ -398,10 +398,10 @@ def test_target_takes_codes_of_any_integer_type(sipm_b, board_pt1000):
 
 
 def test_layout_bytes_refuses_an_unknown_layout():
-    from compensator.firmware.layouts import _fit
+    from compensator.firmware.layouts import _fit, layout_bytes
 
     with pytest.raises(ModelError) as exc:
-        T.layout_bytes(_fit("bogus"), 12)
+        layout_bytes(_fit("bogus"), 12)
     assert exc.value.reason == "unknown layout 'bogus'"
 
 
@@ -416,7 +416,9 @@ def test_segmented_value_with_fractional_nodes_by_hand():
         v = int(y[i]) + ((int(y[i + 1] - y[i])) * (d - start) + (2 ** k) // 2) // 2 ** k
         expected.append((v + 1) // 2)
     assert expected == [0, 3, 5, 8, 10, 13]
-    assert T.segmented_value(y, shifts, np.arange(6), 1).tolist() == expected
+    from compensator.firmware.layouts import segmented_value
+
+    assert segmented_value(y, shifts, np.arange(6), 1).tolist() == expected
 
 
 def test_every_layout_after_a_failed_one_is_still_built(sipm_b, board_pt1000, monkeypatch):
