@@ -63,6 +63,11 @@ def _image(kind: str, record) -> bytes:
     return data
 
 
+#: Modules whose records and enums an image may hold, below ``compensator``.
+_RECORD_MODULES = ("findings", "firmware.safe_state", "firmware.layouts", "firmware.lookup_table", "firmware.tables",
+                   "firmware.pid", "firmware.pid_settings", "firmware.pid_coefficients")
+
+
 def table_image(table) -> bytes:
     """The image of a :class:`~compensator.firmware.tables.LookupTable`.
 
@@ -139,9 +144,11 @@ def read_image(data: bytes):
     cls = {"lookup_table": tables_module.LookupTable, "pid_coefficients": pid_module.FixedPidCoefficients}.get(kind)
     if cls is None:
         raise ImageError(f"unknown image kind {kind!r}")
-    from compensator import findings as findings_module
+    import importlib
 
-    types = {name: obj for module in (findings_module, pid_module, tables_module) for name, obj in vars(module).items()
+    # Every module whose records an image may hold (the table's and the PID's records live in several modules).
+    modules = [importlib.import_module(f"compensator.{name}") for name in _RECORD_MODULES]
+    types = {name: obj for module in modules for name, obj in vars(module).items()
              if isinstance(obj, type) and (dataclasses.is_dataclass(obj) or issubclass(obj, enum.Enum))}
     try:
         return kind, cls(**{k: _revive(v, types) for k, v in fields.items()})
