@@ -172,7 +172,7 @@ def test_every_example_in_the_package_runs():
 SPLIT_MODULES = ("compensator.firmware.pid_fixed", "compensator.firmware.pid_coefficients",
                  "compensator.logbook.reader", "compensator.law.error_chain", "compensator.firmware.lookup_table",
                  "compensator.loops.robust_search", "compensator.firmware.layout_sizing",
-                 "compensator.firmware.pid_settings")
+                 "compensator.firmware.pid_settings", "compensator.firmware.interlock_limits")
 
 
 @pytest.mark.parametrize("name", SPLIT_MODULES)
@@ -182,6 +182,8 @@ def test_split_modules_import_first_and_keep_the_old_paths(name):
 
     code = (f"import {name}; from compensator.firmware.pid import quantise_pid, FixedPid; "
             "from compensator.logbook.store import read_run, LogbookError; "
-            "from compensator.law.budget import gain_error_at_light_pct; print('ok')")
+            "from compensator.law.budget import gain_error_at_light_pct; "
+            "from compensator.firmware.interlocks import build_interlock_limits, supply_fault_tolerance_v; "
+            "print('ok')")
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert result.returncode == 0 and result.stdout == "ok\n", result.stderr[-500:]

@@ -40,7 +40,8 @@ from dataclasses import dataclass, replace
 
 from compensator.board.firmware import BoardConfig, BoardFirmware
 from compensator.errors import ModelError
-from compensator.firmware.interlocks import DEFAULT_HEARTBEAT_TIMEOUT_S, build_interlock_limits
+from compensator.firmware.interlock_limits import build_interlock_limits
+from compensator.firmware.interlocks import DEFAULT_HEARTBEAT_TIMEOUT_S
 from compensator.link.images import pid_image, table_image
 
 __all__ = ["LineFaults", "PlantFaults", "SimulatedBoard", "build_board", "MAX_CATCH_UP_TICKS"]

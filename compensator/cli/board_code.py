@@ -38,7 +38,7 @@ def run(args) -> int:
     from compensator.cli._common import usage_error
     from compensator.errors import ModelError
     from compensator.fileio import write_files_atomic
-    from compensator.firmware.interlocks import build_interlock_limits
+    from compensator.firmware.interlock_limits import build_interlock_limits
     from compensator.firmware.interlocks_c import render_interlocks_c
     from compensator.firmware.link_c import render_link_c
     from compensator.link import protocol
