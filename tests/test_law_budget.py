@@ -157,3 +157,32 @@ def test_bad_arguments(sipm_a, board_ntc):
         gain_error_budget(law, board_ntc, samples=-1)
     with pytest.raises(ModelError, match="current_uncertainty_pct"):
         gain_error_budget(law, board_ntc, samples=0, current_uncertainty_pct=float("nan"))
+
+
+def test_monte_carlo_summary_statistics(budget_b_mc):
+    # Each headline is the largest over the range of its per-temperature statistic, and the spread is a sum
+    # of rectangular and normal sources: the 99th percentile of |x| lies between the rectangular 0.99 x sqrt(3)
+    # = 1.71 sigma and the normal 2.576 sigma (scipy.stats.norm.ppf(0.995)), here within the Monte Carlo's
+    # sampling error of the percentile (2000 samples: about 0.08 sigma at one sigma).
+    law, budget = budget_b_mc
+    mc = budget.monte_carlo
+    assert mc.std_pct_by_temp.shape == mc.mean_pct_by_temp.shape == budget.temp_c.shape
+    assert mc.std_pct == np.max(mc.std_pct_by_temp)
+    assert mc.mean_abs_pct == np.max(np.abs(mc.mean_pct_by_temp))
+    assert 1.71 < mc.p99_abs_pct / mc.std_pct < 2.576 + 0.25
+    assert 1.71 < mc.calibrated_p99_abs_pct / mc.calibrated_std_pct < 2.576 + 0.25
+    assert mc.p99_abs_pct < mc.max_abs_pct < 5.0 * mc.std_pct
+    assert 0.0 < mc.calibrated_std_pct < mc.std_pct
+
+
+def test_two_sample_monte_carlo_by_hand(sipm_b, board_pt1000):
+    # Two samples x1, x2 at each temperature: mean m = (x1 + x2) / 2, sample standard deviation (n - 1)
+    # s = |x1 - x2| / sqrt(2), so max |x| = |m| + s / sqrt(2) and min |x| = ||m| - s / sqrt(2)|, and the 99th
+    # percentile of |x| (numpy's linear interpolation) is min + 0.99 (max - min) (hand algebra).
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_gain")
+    mc = gain_error_budget(law, board_pt1000, samples=2, seed=7).monte_carlo
+    m, s = np.abs(mc.mean_pct_by_temp), mc.std_pct_by_temp
+    hi, lo = m + s / np.sqrt(2), np.abs(m - s / np.sqrt(2))
+    assert mc.samples == 2 and np.all(np.isfinite(s)) and np.all(s > 0)
+    assert mc.max_abs_pct == pytest.approx(hi.max(), rel=1e-9)
+    assert mc.p99_abs_pct == pytest.approx(np.max(lo + 0.99 * (hi - lo)), rel=1e-9)
