@@ -46,6 +46,7 @@ def test_sensor_to_die_offset_by_hand(budget_b_flat, sipm_b):
     assert term.limit_pct_by_temp[_at(budget, 25.0)] == pytest.approx(0.17, rel=2e-3)
     assert term.limit_pct_by_temp[_at(budget, 45.0)] == pytest.approx(0.174 * scale, rel=2e-3)
     assert term.std_pct_by_temp[_at(budget, 25.0)] == pytest.approx(0.17 / np.sqrt(3), rel=1e-3)  # rectangular
+    assert term.worst_temp_c == 45.0  # dVbd/dT and C(T) both rise with temperature: the hottest end
 
 
 def test_dac_reference_by_hand(budget_b_flat):
@@ -89,7 +90,7 @@ def test_excitation_counts_only_without_a_ratiometric_adc(budget_a_mc, budget_b_
     assert not fe.ratiometric and fe.excitation_tolerance_pct == fe.adc_reference_tolerance_pct
     budget_b, budget_a = budget_b_mc[1], budget_a_mc[1]
     assert budget_b.term("excitation").limit_pct == pytest.approx(budget_b.term("adc_reference").limit_pct, rel=0.02)
-    with pytest.raises(KeyError):
+    with pytest.raises(KeyError, match="excitation"):
         budget_a.term("excitation")  # ratiometric: the excitation cancels
 
 
