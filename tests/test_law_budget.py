@@ -49,6 +49,19 @@ def test_sensor_to_die_offset_by_hand(budget_b_flat, sipm_b):
     assert term.worst_temp_c == 45.0  # dVbd/dT and C(T) both rise with temperature: the hottest end
 
 
+def test_rtd_class_tolerance_by_hand(budget_b_flat, sipm_b):
+    # IEC 60751 class A: +-(0.15 K + 0.002 |t|), an offset and a slope, each rectangular. At 25 C that is
+    # 0.2 K, 0.034 * 0.2 / 4 = 0.17 %; at 45 C 0.24 K, 0.0348 * 0.24 / 4 = 0.2088 % times C(45 C)/C(25 C)
+    # (hand calculation, as for the sensor-to-die offset); one sigma at 25 C: hypot(0.15, 0.05) / sqrt(3) K.
+    law, budget = budget_b_flat
+    term = budget.term("sensor_tolerance")
+    scale = float(cell_capacitance_f(sipm_b.device, 45.0) / cell_capacitance_f(sipm_b.device, 25.0))
+    assert term.limit_pct_by_temp[_at(budget, 25.0)] == pytest.approx(0.17, rel=2e-3)
+    assert term.limit_pct_by_temp[_at(budget, 45.0)] == pytest.approx(0.2088 * scale, rel=2e-3)
+    assert term.std_pct_by_temp[_at(budget, 25.0)] == pytest.approx(
+        100 * 0.034 * np.hypot(0.15, 0.05) / np.sqrt(3) / 4.0, rel=2e-3)
+
+
 def test_dac_reference_by_hand(budget_b_flat):
     # Direct supply: Vout = 30 V + 14 Vdac. A 0.05 % DAC reference error moves the output by
     # (Vout - 30 V) * 0.0005; at 25 C Vout = 38.2 + 4 V, so dV = 6.10 mV and dG/G = dV / 4 V = 0.1525 %.
