@@ -3,6 +3,8 @@
 The propagation formula is dG/G = (dV - (dVbd/dT) dT) / Vov (common practice).
 """
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
@@ -60,6 +62,59 @@ def test_rtd_class_tolerance_by_hand(budget_b_flat, sipm_b):
     assert term.limit_pct_by_temp[_at(budget, 45.0)] == pytest.approx(0.2088 * scale, rel=2e-3)
     assert term.std_pct_by_temp[_at(budget, 25.0)] == pytest.approx(
         100 * 0.034 * np.hypot(0.15, 0.05) / np.sqrt(3) / 4.0, rel=2e-3)
+
+
+def test_ntc_tolerances_by_hand(sipm_a, board_ntc):
+    # Beta model (common practice): ln R = ln R25 + B (1/T - 1/T25), B = 3435 K. An R25 error of 1 % reads
+    # dT = 0.01 / (B / T^2); a B error of 1 % changes ln R by 0.01 B (1/T - 1/T25), zero at 25 C, so reads
+    # dT = 0.01 T (1 - T / T25). Both rectangular. At 25 C: 0.01 x 298.15^2 / 3435 = 0.25879 K alone; at 45 C
+    # 0.29468 K and 0.21340 K (hand calculation); x 21.5 mV/K / 3 V, and C(45 C)/C(25 C) at 45 C. No series
+    # resistor, so that no current feeds back.
+    board = replace(board_ntc, supply=replace(board_ntc.supply, series_resistor_ohm=0.0))
+    law = build_law(sipm_a, board, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board, samples=0)
+    term = budget.term("sensor_tolerance")
+    k = 100 * 0.0215 / 3.0
+    scale = float(cell_capacitance_f(sipm_a.device, 45.0) / cell_capacitance_f(sipm_a.device, 25.0))
+    i25, i45 = _at(budget, 25.0), _at(budget, 45.0)
+    assert term.limit_pct_by_temp[i25] == pytest.approx(0.25879 * k, rel=1e-4)
+    assert term.std_pct_by_temp[i25] == pytest.approx(0.25879 * k / np.sqrt(3), rel=1e-4)
+    assert term.limit_pct_by_temp[i45] == pytest.approx((0.29468 + 0.21340) * k * scale, rel=1e-4)
+    assert term.std_pct_by_temp[i45] == pytest.approx(np.hypot(0.29468, 0.21340) * k * scale / np.sqrt(3), rel=1e-4)
+
+
+@pytest.mark.parametrize("which", ["budget_a_mc", "budget_b_mc"])
+def test_every_source_has_its_term_and_distribution(which, request):
+    # The bundled boards' sources, listed by hand from their profiles: hut-board-ntc is ratiometric (no
+    # excitation, its ADC reference error cancels), feedback injection with a regulator reference; hut-board-pt1000
+    # has an absolute ADC reference and excitation, a direct supply. Each rectangular source of limit a has
+    # u = a / sqrt(3); the breakdown and tempco calibrations are normal, limit 3 sigma.
+    law, budget = request.getfixturevalue(which)
+    common = ["sensor_tolerance", "self_heating", "sensor_to_die", "sensor_lag", "adc_quantisation", "adc_reference"]
+    if which == "budget_a_mc":
+        keys = common + ["adc_offset", "adc_gain_error", "adc_inl", "divider_resistor", "divider_resistor_drift",
+                         "dac_quantisation", "dac_reference", "dac_reference_drift", "dac_offset", "dac_gain_error",
+                         "dac_inl", "supply_network", "supply_network_drift", "regulator_reference",
+                         "regulator_reference_drift", "breakdown_calibration", "tempco_calibration",
+                         "series_resistor_drop", "law_residual"]
+        single = ["regulator_reference", "regulator_reference_drift"]
+    else:
+        keys = common + ["adc_reference_drift", "adc_offset", "adc_gain_error", "adc_inl", "excitation",
+                         "excitation_drift", "divider_resistor", "divider_resistor_drift", "dac_quantisation",
+                         "dac_reference", "dac_reference_drift", "dac_offset", "dac_gain_error", "dac_inl",
+                         "supply_network", "supply_network_drift", "breakdown_calibration", "tempco_calibration",
+                         "series_resistor_drop", "law_residual"]
+        single = ["adc_reference", "adc_reference_drift", "excitation", "excitation_drift", "supply_network",
+                  "supply_network_drift"]
+    assert [t.key for t in budget.terms] == keys
+    single += ["self_heating", "sensor_to_die", "sensor_lag", "adc_offset", "adc_gain_error", "divider_resistor",
+               "divider_resistor_drift", "dac_reference", "dac_reference_drift", "dac_offset", "dac_gain_error"]
+    for key in single:
+        term = budget.term(key)
+        assert term.limit_pct > 0 and term.std_pct == pytest.approx(term.limit_pct / np.sqrt(3), rel=1e-9), key
+    for key in ("breakdown_calibration", "tempco_calibration"):
+        term = budget.term(key)
+        assert term.limit_pct > 0 and term.std_pct == pytest.approx(term.limit_pct / 3, rel=1e-9), key
 
 
 def test_dac_reference_by_hand(budget_b_flat):
