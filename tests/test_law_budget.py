@@ -83,6 +83,26 @@ def test_ntc_tolerances_by_hand(sipm_a, board_ntc):
     assert term.std_pct_by_temp[i45] == pytest.approx(np.hypot(0.29468, 0.21340) * k * scale / np.sqrt(3), rel=1e-4)
 
 
+def test_feedback_injection_network_by_hand(sipm_a, board_ntc):
+    # Vout = Vfb (1 + R1/R2 + R1/R3) - Vdac R1/R3 (hut-board-ntc: 1.25 V, 1 Mohm, 43.2 kohm, 250 kohm, each
+    # resistor 0.1 %, the regulator reference 0.5 %). Relative errors e1, e2, e3 move it by dV/de1 = Vout - Vfb,
+    # dV/de2 = -Vfb R1/R2, dV/de3 = (Vdac - Vfb) R1/R3, and the reference by Vfb (1 + R1/R2 + R1/R3) de (hand
+    # algebra); dG/G = dV / 3 V at 25 C. No series resistor, so that no current feeds back.
+    board = replace(board_ntc, supply=replace(board_ntc.supply, series_resistor_ohm=0.0))
+    law = build_law(sipm_a, board, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board, samples=0)
+    i = _at(budget, 25.0)
+    v_out = float(law.output_v(25.0))
+    v_dac = (1.25 * (1 + 1e6 / 43.2e3 + 4.0) - v_out) / 4.0
+    slopes = np.array([v_out - 1.25, -1.25 * 1e6 / 43.2e3, (v_dac - 1.25) * 4.0])
+    network = budget.term("supply_network")
+    assert network.limit_pct_by_temp[i] == pytest.approx(100 * 1e-3 * np.abs(slopes).sum() / 3.0, rel=1e-4)
+    assert network.std_pct_by_temp[i] == pytest.approx(100 * 1e-3 * np.sqrt((slopes ** 2).sum() / 3) / 3.0, rel=1e-4)
+    reference = budget.term("regulator_reference")
+    assert reference.limit_pct_by_temp[i] == pytest.approx(100 * 5e-3 * 1.25 * (1 + 1e6 / 43.2e3 + 4.0) / 3.0,
+                                                           rel=1e-4)
+
+
 @pytest.mark.parametrize("which", ["budget_a_mc", "budget_b_mc"])
 def test_every_source_has_its_term_and_distribution(which, request):
     # The bundled boards' sources, listed by hand from their profiles: hut-board-ntc is ratiometric (no

@@ -180,7 +180,12 @@ def test_monte_carlo_of_quantisation_alone(sipm_a, board_ntc):
     law = build_law(sipm, board, 3.0, kind="constant_gain", drop_correction="none")
     budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
     assert {t.key for t in budget.terms if t.limit_pct > 0} == {"adc_quantisation", "dac_quantisation"}
-    assert not [t.key for t in budget.terms if t.key.endswith("_drift")]  # no drift coefficient: no drift term
+    # No drift coefficient, offset, gain error, lag or regulator reference: no such term (the tolerances set to
+    # zero above still have theirs, at zero).
+    assert [t.key for t in budget.terms] == [
+        "sensor_tolerance", "self_heating", "sensor_to_die", "adc_quantisation", "adc_reference", "divider_resistor",
+        "dac_quantisation", "dac_reference", "supply_network", "breakdown_calibration", "tempco_calibration",
+        "law_residual"]
     adc = budget.term("adc_quantisation").std_pct_by_temp
     mc = budget.monte_carlo.std_pct_by_temp
     assert np.sqrt(np.mean(mc ** 2) / np.mean(adc ** 2)) == pytest.approx(1.0, abs=0.05)
