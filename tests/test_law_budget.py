@@ -127,6 +127,7 @@ def test_every_source_has_its_term_and_distribution(which, request):
         single = ["adc_reference", "adc_reference_drift", "excitation", "excitation_drift", "supply_network",
                   "supply_network_drift"]
     assert [t.key for t in budget.terms] == keys
+    assert budget.term("sensor_to_die").name == "sensor-to-die offset"
     single += ["self_heating", "sensor_to_die", "sensor_lag", "adc_offset", "adc_gain_error", "divider_resistor",
                "divider_resistor_drift", "dac_reference", "dac_reference_drift", "dac_offset", "dac_gain_error"]
     for key in single:
