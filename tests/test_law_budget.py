@@ -3,6 +3,7 @@
 The propagation formula is dG/G = (dV - (dVbd/dT) dT) / Vov (common practice).
 """
 
+import os
 from dataclasses import replace
 
 import numpy as np
@@ -15,19 +16,24 @@ from compensator.physics.sipm import cell_capacitance_f
 from compensator.physics.supply import sipm_bias_v
 
 
-@pytest.fixture(scope="module")
+# Budgets are built once per module so that the suite stays fast; under mutation testing (MUTANT_UNDER_TEST set)
+# every test builds its own, or mutmut would map the chain only to the first test that happened to build them.
+_SCOPE = "function" if os.environ.get("MUTANT_UNDER_TEST") else "module"
+
+
+@pytest.fixture(scope=_SCOPE)
 def budget_b_flat(sipm_b, board_pt1000):
     law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_overvoltage", drop_correction="none")
     return law, gain_error_budget(law, board_pt1000, samples=0)
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope=_SCOPE)
 def budget_b_mc(sipm_b, board_pt1000):
     law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_gain")
     return law, gain_error_budget(law, board_pt1000, samples=2000, seed=7)
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope=_SCOPE)
 def budget_a_mc(sipm_a, board_ntc):
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
     return law, gain_error_budget(law, board_ntc, samples=2000, seed=11)
