@@ -169,13 +169,13 @@ def test_messages_of_refused_targets(sipm_a, board_ntc):
     for field, value, reason in (
             ("kind", "x", "must be one of constant_overvoltage, constant_gain, constant_response, got 'x'"),
             ("drop_correction", "x", "must be one of none, modelled, measured, got 'x'"),
-            ("drop_correction", "measured", None), ("kind", "constant_response", None)):
-        bare = replace(law, current_sense=None, scintillator=None) if reason is None else law
+            ("drop_correction", "measured", "'measured' needs a current_sense channel"),
+            ("kind", "constant_response", "the constant_response law needs a scintillator")):
+        bare = replace(law, current_sense=None, scintillator=None) if value in ("measured", "constant_response") else law
         with pytest.raises(ModelError) as info:
             replace(bare, **{field: value})
         assert info.value.key == ("scintillator" if value == "constant_response" else field)
-        if reason:
-            assert info.value.reason == reason
+        assert info.value.reason == reason
 
 
 def test_clamp_message_names_where_by_hand(sipm_a, board_ntc):
