@@ -155,9 +155,38 @@ def test_monte_carlo_of_converter_non_linearity(sipm_a, board_ntc):
     budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
     assert {t.key for t in budget.terms if t.limit_pct > 0} == {"adc_quantisation", "adc_inl", "dac_quantisation",
                                                                  "dac_inl"}
+    # The INL bounds against half an LSB of quantisation: 2 / 0.5 for the ADC, 8 / 0.5 for the DAC (hand).
+    assert budget.term("adc_inl").limit_pct == pytest.approx(4.0 * budget.term("adc_quantisation").limit_pct, rel=1e-9)
+    assert budget.term("dac_inl").limit_pct == pytest.approx(16.0 * budget.term("dac_quantisation").limit_pct, rel=1e-9)
     rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in budget.terms if t.kind == "random"))
     mc = budget.monte_carlo
     ratio = mc.std_pct_by_temp / rss
     assert np.all((ratio > 0.92) & (ratio < 1.08)), ratio
     assert np.all(np.abs(mc.mean_pct_by_temp) < 0.15 * rss)
     assert mc.calibrated_std_pct / budget.calibrated_rss_pct == pytest.approx(1.0, abs=0.08)
+
+
+def test_monte_carlo_of_quantisation_alone(sipm_a, board_ntc):
+    # No INL either: only the two quantisations are left, each rectangular within half an LSB (u = a / sqrt(3)).
+    # The Monte Carlo dithers the true temperature across exactly one ADC code, so the ADC's error is drawn
+    # uniformly; the DAC code follows the code the ADC reads, so within one ADC code it hardly changes and the
+    # spread is the ADC's: over the range (RMS over the temperatures) within 5 % of the ADC term, the 2000
+    # samples' sampling error being 1.6 % at one sigma; at any one temperature the fixed DAC rounding moves it
+    # by up to about a third.
+    board = _converters_only(board_ntc, adc_inl_lsb=0.0, dac_inl_lsb=0.0)
+    bd = sipm_a.device.breakdown
+    sipm = replace(sipm_a, device=replace(sipm_a.device, breakdown=replace(bd, breakdown_err_v=0.0,
+                                                                          tempco_err_mv_per_k=0.0)))
+    law = build_law(sipm, board, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
+    assert {t.key for t in budget.terms if t.limit_pct > 0} == {"adc_quantisation", "dac_quantisation"}
+    # No drift coefficient, offset, gain error, lag or regulator reference: no such term (the tolerances set to
+    # zero above still have theirs, at zero).
+    assert [t.key for t in budget.terms] == [
+        "sensor_tolerance", "self_heating", "sensor_to_die", "adc_quantisation", "adc_reference", "divider_resistor",
+        "dac_quantisation", "dac_reference", "supply_network", "breakdown_calibration", "tempco_calibration",
+        "law_residual"]
+    adc = budget.term("adc_quantisation").std_pct_by_temp
+    mc = budget.monte_carlo.std_pct_by_temp
+    assert np.sqrt(np.mean(mc ** 2) / np.mean(adc ** 2)) == pytest.approx(1.0, abs=0.05)
+    assert np.all((mc / adc > 0.6) & (mc / adc < 1.4)), mc / adc

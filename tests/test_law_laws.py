@@ -169,10 +169,38 @@ def test_messages_of_refused_targets(sipm_a, board_ntc):
     for field, value, reason in (
             ("kind", "x", "must be one of constant_overvoltage, constant_gain, constant_response, got 'x'"),
             ("drop_correction", "x", "must be one of none, modelled, measured, got 'x'"),
-            ("drop_correction", "measured", None), ("kind", "constant_response", None)):
-        bare = replace(law, current_sense=None, scintillator=None) if reason is None else law
+            ("drop_correction", "measured", "'measured' needs a current_sense channel"),
+            ("kind", "constant_response", "the constant_response law needs a scintillator")):
+        bare = replace(law, current_sense=None, scintillator=None) if value in ("measured", "constant_response") else law
         with pytest.raises(ModelError) as info:
             replace(bare, **{field: value})
         assert info.value.key == ("scintillator" if value == "constant_response" else field)
-        if reason:
-            assert info.value.reason == reason
+        assert info.value.reason == reason
+
+
+def test_clamp_message_names_where_by_hand(sipm_a, board_ntc):
+    # Constant overvoltage without drop correction: Vbd + 3 V = 27.5 + 0.0215 (T - 25) V passes the board's
+    # 27 V above T = 25 - 0.5 / 0.0215 = 1.744 C, so on the 0.1 K grid from 1.8 C (27.5 - 0.0215 x 23.2 =
+    # 27.001 V) to 45 C (27.930 V) (hand calculation).
+    law = build_law(sipm_a, replace(board_ntc, max_bias_v=27.0), 3.0, drop_correction="none")
+    with pytest.raises(ModelError) as info:
+        check_law_in_range(law)
+    assert info.value.key == "overvoltage_v"
+    assert info.value.reason.startswith("the law needs 27.001 to 27.930 V from 1.8 to 45 C, beyond the board max_bias_v")
+
+
+def test_drop_follows_the_light_and_the_shape(sipm_a, board_ntc):
+    temps = np.array([[-25.0, 0.0], [25.0, 45.0]])
+    none = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    assert none.drop_v(temps).shape == (2, 2) and not np.any(none.drop_v(temps))
+    dark = build_law(sipm_a, board_ntc, 3.0, drop_correction="modelled")
+    lit = build_law(sipm_a, board_ntc, 3.0, drop_correction="modelled", photon_rate_hz=3e7)
+    # 3e7 photons per second add at least 3e7 x PDE x gain x e of current through the 10 kohm resistor.
+    assert np.all(lit.drop_v(temps) > dark.drop_v(temps) + 1e-3)
+
+
+def test_response_defaults_to_the_nominal_light_yield(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_response", drop_correction="none")
+    bias = law.target_bias_v(TEMPS_C)
+    assert np.array_equal(law.response(law.sipm, bias, TEMPS_C), law.response(law.sipm, bias, TEMPS_C, 0.0))
+    assert not np.array_equal(law.response(law.sipm, bias, TEMPS_C), law.response(law.sipm, bias, TEMPS_C, 1.0))

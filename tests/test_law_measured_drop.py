@@ -85,6 +85,8 @@ def test_budget_drop_term_by_hand(sipm_a, board_ntc):
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_overvoltage", photon_rate_hz=rate, drop_correction="measured")
     term = drop_term(law, board_ntc)
     assert term.kind == "random" and "measured" in term.note
+    # hut-board-ntc's channel: 20 nA offset; 3.3 V / 4096 codes / 20000 V/A = 40.28 nA per code (hand calculation).
+    assert term.note.endswith("offset +-20 nA, 40.28 nA/code")
     sense, supply = board_ntc.current_sense, board_ntc.supply
     r = supply.series_resistor_ohm
     temps = _grid(law)

@@ -144,6 +144,7 @@ def test_constant_response_law_shorthand(sipm_a, board_ntc):
     law = constant_response_law(sipm_a, board_ntc, 3.0, drop_correction="none")
     assert law.kind == "constant_response" and law.overvoltage_v == 3.0 and law.scintillator == sipm_a.scintillator
     assert law.board_name == "hut-board-ntc" and law.sipm_name == "hut-sipm-a"
+    assert law.drop_correction == "none"  # the options reach build_law (default "modelled")
 
 
 def test_light_yield_error_and_zero_light():

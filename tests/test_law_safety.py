@@ -8,6 +8,7 @@ import pytest
 from compensator.errors import ModelError
 from compensator.findings import Severity
 from compensator.law import build_law, lowest_breakdown_v, safe_bias
+from compensator.law.safety import highest_output_v
 from compensator.physics.supply import Dac
 
 
@@ -109,6 +110,9 @@ def test_direct_supply_worst_corner_by_hand(sipm_b, board_pt1000):
     safe = safe_bias(law, board_pt1000)
     assert safe.dac_code == 0 and safe.nominal_output_v == 30.0
     assert safe.highest_output_v == pytest.approx(by_hand, abs=1e-12)
+    # The public worst corner at any code, here mid-scale (same hand calculation, 32768 + 2 codes):
+    mid = 30.0 + 14.0 * 1.0011 * 32770 * 2.5 / 65536 * 1.00095
+    assert highest_output_v(law, board_pt1000, np.int64(32768)) == pytest.approx(mid, abs=1e-12)
 
 
 def test_a_small_positive_margin_is_safe(sipm_b, board_pt1000):
