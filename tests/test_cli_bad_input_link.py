@@ -63,9 +63,12 @@ def test_export_never_writes_over_a_logbook_it_reads(cli, logbook):
     assert logbook.read_bytes() == before
 
 
-def test_simulate_prints_no_caution_with_a_usage_error(cli, tmp_path):
-    # A scheduler nobody runs: the error alone, not the planning caution before it.
+def test_simulate_prints_no_caution_with_a_usage_error(cli, tmp_path, monkeypatch):
+    # A scheduler nobody runs: the error alone, not the planning caution before it (a short connect timeout).
     from compensator.cli.simulate import CAUTION
+    from compensator.sim import montecarlo
+
+    monkeypatch.setattr(montecarlo, "CONNECT_TIMEOUT_S", 1.0)
 
     scenario = Path(__file__).resolve().parent.parent / "hardware_profiles" / "hut-week-scenario.yaml"
     result = cli("simulate", scenario, "--days", "0.1", "--units", "2", "--scheduler", "tcp://127.0.0.1:1")
