@@ -608,8 +608,6 @@ SECTIONS: tuple[tuple[str, tuple[Field, ...]], ...] = (
         ("modelled_max_gain_error_pct", "%",
          "largest absolute gain error over the range, drop corrected from the modelled dark current"),
         ("monte_carlo_std_pct", "%", "Monte Carlo standard deviation of the gain error (1 sigma)"),
-        ("optimised_entries", "count", "entries of the optimised table"),
-        ("optimised_table_bytes", "B", "bytes of the optimised table"),
         ("scenario", "text", "the demo's scenario"),
         ("series_drop_mv", "mV", "drop across the series filter resistor"),
         ("table", "record", "the instrument's lookup table and its verification"),

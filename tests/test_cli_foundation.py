@@ -124,6 +124,8 @@ def test_demo_runs_the_chain_end_to_end(cli, profiles_dir, demo_run):
         assert drift["firmware_gain_error_max_abs_pct"] >= max(abs(x) for x in drift["firmware_gain_error_pct"])
         assert drift["firmware_gain_error_max_abs_pct"] < 0.1 and drift["codes_evaluated"] > 2000
         assert inst["table"]["max_gain_error_pct"] <= inst["table"]["bound_pct"]
+        # The smallest layout is kept: at most half the smallest uniform table on every bundled pair at 0.05 %.
+        assert 2 * inst["table"]["table_bytes"] <= inst["table"]["uniform_table_bytes"]
         assert inst["budget"]["calibrated_rss_pct"] < inst["budget"]["rss_pct"]
         assert len(inst["table"]["files"]) == 3
     # hut-sipm-a: linear breakdown (21.5 mV/K), constant cell capacitance, 3 V: at fixed bias the gain moves by

@@ -239,8 +239,9 @@ def _print_instrument(say, inst, sipm_profile, range_c) -> None:
     if b.electronics_terms:
         say("electronics drift and lag after calibration (limit, largest over the range): " + "; ".join(
             f"{t.name} {_pct(t.calibrated_limit_pct)}" for t in b.electronics_terms[:4]))
-    say(f"== 3. lookup table at {t.bound_pct:g} %: optimised {t.optimised_entries} entries "
-        f"({t.optimised_table_bytes} B), smallest uniform {t.uniform_entries} entries ({t.uniform_table_bytes} B); "
+    say(f"== 3. lookup table at {t.bound_pct:g} %: the smallest layout that meets it is {t.layout}, {t.entries} entries "
+        f"({t.table_bytes} B), against {t.uniform_table_bytes} B for the smallest uniform table ({t.uniform_entries} "
+        f"entries); "
         f"{t.codes_verified} ADC codes verified, largest absolute gain error {_pct(t.max_gain_error_pct, '.4f')}")
     if inst.light:
         say("under light, largest absolute gain error over the range through the integer path, drop corrected from "

@@ -168,7 +168,7 @@ def evaluate_instrument(sipm_profile, board_profile, *, overvoltage_v: float, te
     """
     from compensator.errors import ModelError
     from compensator.findings import Severity
-    from compensator.firmware.tables import build_table, sweep_table
+    from compensator.firmware.tables import compare_layouts, sweep_table
     from compensator.law import build_law, check_law_in_range
 
     law = build_law(sipm_profile, board_profile, overvoltage_v, kind="constant_gain")
@@ -177,11 +177,11 @@ def evaluate_instrument(sipm_profile, board_profile, *, overvoltage_v: float, te
         check_law_in_range(law)
     except ModelError as exc:
         findings.append(Finding(code="law_out_of_reach", severity=Severity.WARNING, message=exc.reason))
-    table = build_table(law, board_profile, bound_pct, layout="optimised")
-    uniform = build_table(law, board_profile, bound_pct, layout="uniform")
+    layouts = compare_layouts(law, board_profile, bound_pct)
+    table, uniform = layouts.table, layouts.tables["uniform"]
     sweep = sweep_table(table, law, board_profile)
     summary = TableSummary(
-        bound_pct=bound_pct, optimised_entries=table.entries, optimised_table_bytes=table.table_bytes,
+        bound_pct=bound_pct, layout=table.layout, entries=table.entries, table_bytes=table.table_bytes,
         uniform_entries=uniform.entries, uniform_table_bytes=uniform.table_bytes,
         codes_verified=int(sweep.adc_code.size), max_gain_error_pct=sweep.max_gain_error_pct)
     temps_c = np.asarray(temps_c, dtype=float)

@@ -195,8 +195,11 @@ class TableSummary:
     ----------
     bound_pct : float
         Gain-error bound the table was sized for, percent.
-    optimised_entries, optimised_table_bytes : int
-        Size of the optimised table.
+    layout : str
+        The layout chosen: the smallest of every layout built and checked at
+        every ADC code (:func:`compensator.firmware.tables.compare_layouts`).
+    entries, table_bytes : int
+        Size of the chosen table.
     uniform_entries, uniform_table_bytes : int
         Size of the smallest uniform table meeting the bound (the baseline).
     codes_verified : int
@@ -209,8 +212,9 @@ class TableSummary:
     """
 
     bound_pct: float
-    optimised_entries: int
-    optimised_table_bytes: int
+    layout: str
+    entries: int
+    table_bytes: int
     uniform_entries: int
     uniform_table_bytes: int
     codes_verified: int
