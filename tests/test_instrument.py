@@ -102,3 +102,29 @@ def test_characterisation_states_both_parts_of_its_error(sipm_a):
                            f"{stat_v:.4f} V statistical and {sys_v:.4f} V the method's systematic part")
     assert f"tempco {1e3 * coef[1]:.2f} +- {1e3 * np.sqrt(cov[1, 1]):.2f} mV/K (truth 21.5;" in line
     assert line.endswith("one sigma")
+
+
+def test_table_keeps_the_smallest_layout_and_copes_without_a_uniform_one(sipm_a, board_ntc, monkeypatch):
+    # The demo's table is the smallest layout that meets the bound; when no uniform table meets it, the baseline
+    # reads 0 (and says so) instead of failing.
+    from dataclasses import replace
+
+    import compensator.firmware.tables as tables
+    from compensator.instrument import evaluate_instrument
+
+    report = evaluate_instrument(sipm_a, board_ntc, overvoltage_v=3.0, temps_c=[25.0], budget_samples=200,
+                                 photon_rates_hz=())
+    smallest = min(build_table(report.compensation_law, board_ntc, 0.05, layout=name).table_bytes
+                   for name in ("uniform", "segmented", "optimised", "polynomial"))
+    assert report.table.table_bytes == smallest == 14 and report.table.uniform_table_bytes == 78
+
+    real = tables.compare_layouts
+
+    def without_uniform(*args, **kwargs):
+        out = real(*args, **kwargs)
+        return replace(out, tables={k: v for k, v in out.tables.items() if k != "uniform"}, uniform_bytes=0)
+
+    monkeypatch.setattr(tables, "compare_layouts", without_uniform)
+    report = evaluate_instrument(sipm_a, board_ntc, overvoltage_v=3.0, temps_c=[25.0], budget_samples=200,
+                                 photon_rates_hz=())
+    assert (report.table.table_bytes, report.table.uniform_table_bytes, report.table.uniform_entries) == (14, 0, 0)

@@ -15,8 +15,6 @@ __all__: list[str] = []  # internal to the calibrate command
 def _jobs(n: int) -> int:
     from compensator.calibration.batch import default_jobs
 
-    if n < 0:
-        raise usage_error("--jobs", f"must be 0 (one per CPU) or a positive number, got {n}")
     return default_jobs() if n == 0 else min(n, default_jobs())
 
 

@@ -240,9 +240,10 @@ def _print_instrument(say, inst, sipm_profile, range_c) -> None:
         say("electronics drift and lag after calibration (limit, largest over the range): " + "; ".join(
             f"{t.name} {_pct(t.calibrated_limit_pct)}" for t in b.electronics_terms[:4]))
     say(f"== 3. lookup table at {t.bound_pct:g} %: the smallest layout that meets it is {t.layout}, {t.entries} entries "
-        f"({t.table_bytes} B), against {t.uniform_table_bytes} B for the smallest uniform table ({t.uniform_entries} "
-        f"entries); "
-        f"{t.codes_verified} ADC codes verified, largest absolute gain error {_pct(t.max_gain_error_pct, '.4f')}")
+        f"({t.table_bytes} B), "
+        + (f"against {t.uniform_table_bytes} B for the smallest uniform table ({t.uniform_entries} entries); "
+           if t.uniform_table_bytes else "no uniform table meets the bound; ")
+        + f"{t.codes_verified} ADC codes verified, largest absolute gain error {_pct(t.max_gain_error_pct, '.4f')}")
     if inst.light:
         say("under light, largest absolute gain error over the range through the integer path, drop corrected from "
             "the modelled dark current vs from the measured current:")

@@ -178,11 +178,12 @@ def evaluate_instrument(sipm_profile, board_profile, *, overvoltage_v: float, te
     except ModelError as exc:
         findings.append(Finding(code="law_out_of_reach", severity=Severity.WARNING, message=exc.reason))
     layouts = compare_layouts(law, board_profile, bound_pct)
-    table, uniform = layouts.table, layouts.tables["uniform"]
+    table, uniform = layouts.table, layouts.tables.get("uniform")
+    findings.extend(layouts.findings)
     sweep = sweep_table(table, law, board_profile)
     summary = TableSummary(
         bound_pct=bound_pct, layout=table.layout, entries=table.entries, table_bytes=table.table_bytes,
-        uniform_entries=uniform.entries, uniform_table_bytes=uniform.table_bytes,
+        uniform_entries=0 if uniform is None else uniform.entries, uniform_table_bytes=layouts.uniform_bytes,
         codes_verified=int(sweep.adc_code.size), max_gain_error_pct=sweep.max_gain_error_pct)
     temps_c = np.asarray(temps_c, dtype=float)
     return InstrumentReport(

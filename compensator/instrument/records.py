@@ -201,7 +201,8 @@ class TableSummary:
     entries, table_bytes : int
         Size of the chosen table.
     uniform_entries, uniform_table_bytes : int
-        Size of the smallest uniform table meeting the bound (the baseline).
+        Size of the smallest uniform table meeting the bound (the baseline;
+        0 when no uniform table meets it).
     codes_verified : int
         ADC codes checked.
     max_gain_error_pct : float
