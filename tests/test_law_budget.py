@@ -16,9 +16,10 @@ from compensator.physics.sipm import cell_capacitance_f
 from compensator.physics.supply import sipm_bias_v
 
 
-# Budgets are built once per module so that the suite stays fast; under mutation testing (MUTANT_UNDER_TEST set)
-# every test builds its own, or mutmut would map the chain only to the first test that happened to build them.
-_SCOPE = "function" if os.environ.get("MUTANT_UNDER_TEST") else "module"
+# Budgets are built once per module so that the suite stays fast; while mutmut collects its statistics
+# (MUTANT_UNDER_TEST is "stats") every test builds its own, or mutmut would map the chain only to the first test
+# that happened to build them. A mutant's own run shares them again: every test it runs sees the same mutant.
+_SCOPE = "function" if os.environ.get("MUTANT_UNDER_TEST") == "stats" else "module"
 
 
 @pytest.fixture(scope=_SCOPE)
