@@ -1,0 +1,75 @@
+"""Building a law: the breakdown definition it shifts to, the records it keeps, the refusals in full.
+
+Pinned where mutation testing (tools/mutation.md) found these facts unchecked: every figure below is
+worked by hand from the profile's own numbers, every refusal names its file, key and reason.
+"""
+
+from dataclasses import replace
+
+import pytest
+
+from compensator.errors import ModelError, Problem, ProfileError
+from compensator.law import build_law
+
+IV = "iv_inverse_log_derivative"
+
+
+def _iv_profile(sipm, offset_v=None, err_v=0.0):
+    bd = replace(sipm.device.breakdown, definition=IV, definition_offset_v=offset_v, definition_offset_err_v=err_v)
+    return replace(sipm, device=replace(sipm.device, breakdown=bd))
+
+
+def test_iv_breakdown_from_the_profile_is_moved_to_the_gain_intercept(sipm_a, board_ntc):
+    # hut-sipm-a: 24.5 V at 25 C; an I-V breakdown 120 mV above the gain intercept (offset -0.12 V, 20 mV 1 sigma).
+    law = build_law(_iv_profile(sipm_a, -0.12, 0.02), board_ntc, 3.0)
+    bd = law.sipm.breakdown
+    assert bd.breakdown_v_at_ref == pytest.approx(24.5 - 0.12, abs=1e-12)
+    # The law's device is on the gain intercept now, with no offset left to apply twice.
+    assert bd.definition == "gain_intercept" and bd.definition_offset_v is None and bd.definition_offset_err_v == 0.0
+    assert law.breakdown_offset_v == -0.12 and law.breakdown_offset_err_v == 0.02
+    (finding,) = law.findings
+    assert finding.code == "breakdown_definitions_mixed"
+    assert finding.message == (f"hut-sipm-a holds the {IV} breakdown; the law adds -120.0 mV (+-20.0 mV, from the "
+                               "profile) to reach the gain-intercept breakdown")
+
+
+def test_given_offset_on_an_iv_breakdown(sipm_a, board_ntc):
+    # A given offset wins over the profile's and carries no uncertainty of its own: +50 mV, +-0.0 mV.
+    law = build_law(_iv_profile(sipm_a, -0.12, 0.02), board_ntc, 3.0, breakdown_offset_v=0.05)
+    assert law.sipm.breakdown.breakdown_v_at_ref == pytest.approx(24.55, abs=1e-12)
+    assert law.breakdown_offset_err_v == 0.0
+    (finding,) = law.findings
+    assert finding.message == (f"hut-sipm-a holds the {IV} breakdown; the law adds +50.0 mV (+-0.0 mV, given) "
+                               "to reach the gain-intercept breakdown")
+
+
+def test_iv_breakdown_without_an_offset_is_refused_in_full(sipm_a, board_ntc):
+    with pytest.raises(ModelError) as info:
+        build_law(_iv_profile(sipm_a), board_ntc, 3.0)
+    assert info.value.key == "breakdown.definition"
+    assert info.value.reason == (
+        f"hut-sipm-a holds the {IV} breakdown, but a gain law needs the gain-intercept breakdown (they differ by "
+        "tens to hundreds of millivolts); give breakdown.definition_offset_v in the profile (or the law's "
+        "breakdown_offset_v), or recalibrate from gain scans")
+
+
+def test_law_records_what_it_was_built_from(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain")
+    assert law.photon_rate_hz == 0.0  # dark by default
+    assert law.sipm_name == "hut-sipm-a" and law.board_name == "hut-board-ntc"
+    # hut-sipm-a reads a crystal, but only the response law keeps it.
+    assert sipm_a.scintillator is not None and law.scintillator is None
+    assert build_law(sipm_a, board_ntc, 3.0, kind="constant_response").scintillator == sipm_a.scintillator
+
+
+def test_missing_sections_are_refused_with_file_key_and_reason(sipm_a, sipm_b, board_pt1000, board_ntc):
+    with pytest.raises(ProfileError) as info:
+        build_law(sipm_b, board_pt1000, 4.0, drop_correction="measured")
+    assert info.value.problems == [Problem(str(board_pt1000.source), 0, "current_sense",
+                                           "missing section: the measured drop correction needs the board's SiPM "
+                                           "current channel (or use the modelled correction)")]
+    with pytest.raises(ProfileError) as info:
+        build_law(sipm_b, board_ntc, 4.0, kind="constant_response")
+    assert info.value.problems == [Problem(str(sipm_b.source), 0, "scintillator",
+                                           "missing section: the constant_response law needs the crystal's "
+                                           "light-yield coefficient")]
