@@ -6,6 +6,7 @@ worked by hand from the profile's own numbers, every refusal names its file, key
 
 from dataclasses import replace
 
+import numpy as np
 import pytest
 
 from compensator.errors import ModelError, Problem, ProfileError
@@ -20,16 +21,16 @@ def _iv_profile(sipm, offset_v=None, err_v=0.0):
 
 
 def test_iv_breakdown_from_the_profile_is_moved_to_the_gain_intercept(sipm_a, board_ntc):
-    # hut-sipm-a: 24.5 V at 25 C; an I-V breakdown 120 mV above the gain intercept (offset -0.12 V, 20 mV 1 sigma).
-    law = build_law(_iv_profile(sipm_a, -0.12, 0.02), board_ntc, 3.0)
+    # hut-sipm-a: 24.5 V at 25 C; an I-V breakdown 120 mV above the gain intercept (offset -0.12 V, 150 mV 1 sigma).
+    law = build_law(_iv_profile(sipm_a, -0.12, 0.15), board_ntc, 3.0)
     bd = law.sipm.breakdown
     assert bd.breakdown_v_at_ref == pytest.approx(24.5 - 0.12, abs=1e-12)
     # The law's device is on the gain intercept now, with no offset left to apply twice.
     assert bd.definition == "gain_intercept" and bd.definition_offset_v is None and bd.definition_offset_err_v == 0.0
-    assert law.breakdown_offset_v == -0.12 and law.breakdown_offset_err_v == 0.02
+    assert law.breakdown_offset_v == -0.12 and law.breakdown_offset_err_v == 0.15
     (finding,) = law.findings
     assert finding.code == "breakdown_definitions_mixed"
-    assert finding.message == (f"hut-sipm-a holds the {IV} breakdown; the law adds -120.0 mV (+-20.0 mV, from the "
+    assert finding.message == (f"hut-sipm-a holds the {IV} breakdown; the law adds -120.0 mV (+-150.0 mV, from the "
                                "profile) to reach the gain-intercept breakdown")
 
 
@@ -73,3 +74,20 @@ def test_missing_sections_are_refused_with_file_key_and_reason(sipm_a, sipm_b, b
     assert info.value.problems == [Problem(str(sipm_b.source), 0, "scintillator",
                                            "missing section: the constant_response law needs the crystal's "
                                            "light-yield coefficient")]
+
+
+def test_slope_against_richardson_extrapolation(sipm_a, board_ntc):
+    # The modelled drop bends the output (the dark current doubles every few kelvin), so the slope is not
+    # constant. Reference: Richardson extrapolation of two central differences (steps 0.1 and 0.05 K), whose
+    # error is O(h^4) (common practice); the slope's own 0.01 K central difference is within 1.1e-8 of it
+    # (h^2 f''' / 6 at 45 C), a 1 K step would be 1e-4 off.
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="modelled")
+    temps_c = np.array([-25.0, 25.0, 45.0])
+    f = law.unclamped_output_v
+
+    def central(h):
+        return (f(temps_c + h) - f(temps_c - h)) / (2.0 * h)
+
+    reference = (4.0 * central(0.05) - central(0.1)) / 3.0
+    assert law.slope_v_per_k(temps_c) == pytest.approx(reference, rel=3e-8)
+    assert 0.0215 < reference[0] < reference[1] < reference[2]  # above the 21.5 mV/K tempco, rising with the drop
