@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from compensator.errors import ModelError, Problem, ProfileError
-from compensator.law import build_law
+from compensator.law import build_law, check_law_in_range
 
 IV = "iv_inverse_log_derivative"
 
@@ -91,3 +91,31 @@ def test_slope_against_richardson_extrapolation(sipm_a, board_ntc):
     reference = (4.0 * central(0.05) - central(0.1)) / 3.0
     assert law.slope_v_per_k(temps_c) == pytest.approx(reference, rel=3e-8)
     assert 0.0215 < reference[0] < reference[1] < reference[2]  # above the 21.5 mV/K tempco, rising with the drop
+
+
+def test_a_limit_reached_exactly_does_not_clamp(sipm_a, board_ntc):
+    # hut-sipm-a: Vbd = 24.5 V + 21.5 mV/K (T - 25 C), no curvature. At the device's 7 V maximum the law asks
+    # for exactly Vbd + 7 V: reached, not exceeded, so nothing is named and the law is in range.
+    at_max = build_law(sipm_a, board_ntc, 7.0, drop_correction="none")
+    temps_c = np.linspace(-25.0, 45.0, 8)
+    assert list(at_max.limiting(temps_c)) == [""] * 8
+    check_law_in_range(at_max)
+    # A board limit equal to what the 3 V law needs at 45 C (24.5 + 0.43 + 3 = 27.93 V, by hand).
+    want_45 = float(build_law(sipm_a, board_ntc, 3.0, drop_correction="none").unclamped_output_v(45.0))
+    assert want_45 == pytest.approx(27.93, abs=1e-12)
+    equal = build_law(sipm_a, replace(board_ntc, max_bias_v=want_45), 3.0, drop_correction="none")
+    assert list(equal.limiting([25.0, 45.0])) == ["", ""]
+    check_law_in_range(equal)
+
+
+def test_a_law_clamped_at_one_point_of_the_scan(sipm_a, board_ntc):
+    # A limit between what the law needs at 44.9 C (27.92785 V) and at 45 C (27.93 V): only the last point
+    # of the 0.1 K scan is clamped, and the refusal names it.
+    board = replace(board_ntc, max_bias_v=27.929)
+    law = build_law(sipm_a, board, 3.0, drop_correction="none")
+    assert list(law.limiting([44.9, 45.0])) == ["", "board max_bias_v"]
+    with pytest.raises(ModelError) as info:
+        check_law_in_range(law)
+    assert info.value.key == "overvoltage_v"
+    assert info.value.reason == ("the law needs 27.930 to 27.930 V from 45 to 45 C, beyond the board max_bias_v; "
+                                 "lower --overvoltage-v or use another board")
