@@ -6,6 +6,7 @@ scipy.signal), a hand calculation or the scatter of repeated seeded curves.
 
 import numpy as np
 import pytest
+from scipy.signal import savgol_filter
 
 from compensator.calibration import iv
 
@@ -64,3 +65,97 @@ def test_ild_root_and_its_error_against_numpy_polyfit():
         assert r.var[i] == pytest.approx(grad @ cov @ grad * scale, rel=1e-5), i
         assert r.slope[i] == pytest.approx(c[-2], rel=1e-9), i
     assert scales[0] > 1.5 and scales[5] > 1.5 and scales[1] == scales[3] == 1.0
+
+
+GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)  # 221 points
+
+
+def _curves_for_the_window_rules():
+    """ln I of four curves that reach each rule of the derivative method's fit window (noise seeded)."""
+    from compensator.calibration.synthetic import iv_current_a, leakage_at_crossing_a
+
+    rng = np.random.default_rng(8)
+    power = [iv_current_a(GRID_V, vbd, geiger_scale_v=1.0, leakage_a=1e-30) for vbd in (24.5, 24.6, 30.0, 24.9)]
+    # 0: a leakage that stops growing near 22.5 V: the line through ln I below the knee overstates it above, so
+    # more than 80 % of the current at the knee is counted as leakage and the window moves up (leakage-limited);
+    # the short window's root and the leakage's error both move its root
+    leak0 = 1e-10 * np.exp(2.0 * (GRID_V - 20.0)) / (1.0 + np.exp(2.0 * (GRID_V - 22.5)))
+    # 3: exponential leakage equal to the avalanche current 0.3 V above breakdown
+    leak3 = leakage_at_crossing_a(0.3, exponent=2.0, geiger_scale_v=1.0, leakage_slope_per_v=0.5)
+    leak = [leak0, 2e-10 * np.exp(0.05 * (GRID_V - 24.6)), 2e-10 * np.exp(0.05 * (GRID_V - 30.0)),
+            leak3 * np.exp(0.5 * (GRID_V - 24.9))]
+    # 1: noise of 0.5 in ln I asks for a 25-point window: two windows' worth of points exceed 2 V;
+    # 2: breakdown 1 V before the end of the sweep: the window ends half a filter window before it
+    sigma = np.array([0.005, 0.5, 0.002, 0.01])
+    return np.log(np.array(power) + np.array(leak)) + sigma[:, None] * rng.standard_normal((4, GRID_V.size))
+
+
+def test_ild_fit_window_weights_and_errors_follow_the_documented_rules(monkeypatch):
+    # The derivative method's fit, rebuilt here from the module docstring with scipy.signal.savgol_filter: the
+    # leakage fraction f = I_leak / I (I from the smoothing filter of the same window), the avalanche derivative
+    # D = (d ln I/dV - b f) / (1 - f), the window from half a filter window above the knee (or the first point
+    # above it with f <= 0.8), spanning max(2 V, two windows) and ending half a window before the end of the
+    # sweep; 1/D weighted by D^4 (1 - f)^2 / sigma_d^2 (the error of 1/D is sigma_d / D^2, amplified by the
+    # leakage subtraction by 1 / (1 - f)); the short window spans max(half the span, a window + 3 points);
+    # the leakage shifted by its one-sigma error (f exp(err)). The result: breakdown and statistical error from
+    # the full window; systematic part sqrt(max(dr^2 - (var_short - var_full), 0) + shift^2), dr the difference
+    # of the short and full roots (nested fits: the variance of the difference is the difference of the
+    # variances); exponent 1 / slope; the fit range; the leakage fraction at the start; the leakage-limited flag.
+    # The knee and the leakage line come from ivknee (pinned against scipy and numpy.polyfit there).
+    from compensator.calibration.ivknee import _fit_leakage, _knee
+
+    calls = []
+    real = iv._ild_root
+
+    def spy(x, inv, weights, mask):
+        r = real(x, inv, weights, mask)
+        calls.append((x, inv, weights, mask, r))
+        return r
+
+    monkeypatch.setattr(iv, "_ild_root", spy)
+    ln_i = _curves_for_the_window_rules()
+    res = iv.find_breakdown(GRID_V, np.exp(ln_i), joint_fit=False)
+    assert res.reason == ("",) * 4 and len(calls) == 3
+    knee = _knee(ln_i, 0.05)
+    leak = _fit_leakage(np.broadcast_to(GRID_V, ln_i.shape), ln_i, knee, 0.05)
+    n = GRID_V.size
+    spans = []
+    for i in range(4):
+        w, p, sigma_d = knee.windows[i], knee.peak_index[i], knee.sigma_d[i]
+        h = w // 2
+        smooth = savgol_filter(ln_i[i], w, 3, mode="nearest")
+        dx = GRID_V - leak.v0[i]
+        frac = np.exp(leak.a[i] + leak.b[i] * dx - smooth)
+        d_av = (knee.deriv[i] - leak.b[i] * frac) / (1.0 - frac)
+        start = next(j for j in range(p + h, n) if frac[j] <= 0.8)
+        span = max(40, 2 * w)
+        stop = min(start + span, n - h)
+        short_stop = min(start + max(span // 2, w + 3), stop)
+        spans.append((start - (p + h), stop - start, short_stop - start, n - h - stop))
+        err = np.sqrt(leak.cov[i, 0, 0] + 2 * dx * leak.cov[i, 0, 1] + dx * dx * leak.cov[i, 1, 1])
+        d_hi = (knee.deriv[i] - leak.b[i] * frac * np.exp(err)) / (1.0 - frac * np.exp(err))
+        for (x, inv, weights, mask, _), d, end in zip(calls, (d_av, d_av, d_hi), (stop, short_stop, stop)):
+            cols = np.arange(start, end)
+            use = d[cols] > 0
+            assert mask[i].tolist() == use.tolist() + [False] * (mask.shape[1] - cols.size), i
+            np.testing.assert_allclose(x[i, :cols.size], GRID_V[cols] - GRID_V[start], atol=1e-12)
+            np.testing.assert_allclose(inv[i, :cols.size][use], 1.0 / d[cols][use], rtol=1e-9)
+            expected_w = d[cols] ** 4 * (1.0 - np.clip(frac[cols], 0.0, 0.99)) ** 2 / sigma_d ** 2
+            np.testing.assert_allclose(weights[i, :cols.size][use], expected_w[use], rtol=1e-9)
+        full, short, shifted = (c[4] for c in calls)
+        assert res.breakdown_v[i] == pytest.approx(GRID_V[start] + full.root[i], abs=1e-12)
+        assert res.breakdown_stat_err_v[i] == pytest.approx(np.sqrt(full.var[i]), rel=1e-12)
+        window2 = max((short.root[i] - full.root[i]) ** 2 - max(short.var[i] - full.var[i], 0.0), 0.0)
+        assert res.breakdown_sys_err_v[i] == pytest.approx(
+            np.sqrt(window2 + (shifted.root[i] - full.root[i]) ** 2), rel=1e-9)
+        assert res.exponent[i] == pytest.approx(1.0 / full.slope[i], rel=1e-12)
+        assert (res.fit_lo_v[i], res.fit_hi_v[i]) == (GRID_V[start], GRID_V[stop - 1])
+        assert res.leakage_fraction[i] == pytest.approx(frac[start], rel=1e-9)
+        assert res.leakage_limited[i] == (start > p + h)
+        if i == 0:  # both parts of the systematic error act
+            assert window2 > 1e-5 and abs(shifted.root[i] - full.root[i]) > 0.01  # 11 mV and 41 mV here
+    # each rule acts on some curve (points moved up by leakage, full and short span, points left before the end
+    # of the sweep less half a window): 0 moved up; 1 two 25-point windows and a window + 3; 2 cut by the end
+    assert knee.windows.tolist() == [5, 25, 5, 5]
+    assert spans[0][0] > 0 and spans[1][:3] == (0, 50, 28) and spans[2][3] == 0 and spans[3][:3] == (0, 40, 20)
+    assert res.leakage_limited.tolist() == [True, False, False, False]
