@@ -6,7 +6,7 @@ scipy.signal), a hand calculation or the scatter of repeated seeded curves.
 
 import numpy as np
 import pytest
-from scipy.signal import savgol_filter
+from scipy.signal import savgol_coeffs, savgol_filter
 
 from compensator.calibration import iv
 
@@ -177,3 +177,53 @@ def test_ild_statistical_error_covers_the_scatter_of_repeated_curves():
     assert r.ok.all() and not r.joint_fit.any()
     ratio = np.std(r.breakdown_v) / np.median(r.breakdown_stat_err_v)
     assert 0.65 <= ratio <= 0.95
+
+
+def _ln_i_from_slope(slope_per_v):
+    """ln I whose derivative is the given slope on GRID_V (trapezoidal integral, from 1 nA)."""
+    steps = 0.5 * (slope_per_v[1:] + slope_per_v[:-1]) * 0.05
+    return np.log(1e-9) + np.concatenate(([0.0], np.cumsum(steps)))
+
+
+def _bump(centre, height_per_v, base_per_v=0.2):
+    """d ln I/dV: a base plus a Gaussian knee of 10 points' width centred on a grid point."""
+    j = np.arange(GRID_V.size)
+    return base_per_v + height_per_v * np.exp(-0.5 * ((j - centre) / 10.0) ** 2)
+
+
+def test_curves_on_each_refusal_boundary():
+    # Curves built from their d ln I/dV, a Gaussian knee centred on a chosen point, whose smoothed derivative
+    # (symmetric filter, symmetric knee) peaks on that point p; noise-free, so the window is 5 points (half 2)
+    # on the 221-point grid. The rules: "peaks at the start" for p <= half + 1 = 3; "still rising at the end"
+    # for p >= n - half - 2 = 217; the fit needs 4 points between p + half and n - half (exclusive): p = 214
+    # leaves 3, p = 213 four. Each point on and beside its boundary, with the bias the reason names.
+    rows = {3: "no breakdown in range: d ln I/dV peaks at the start of the sweep (20 V)",
+            4: "",
+            217: "no breakdown in range: d ln I/dV is still rising at the end of the sweep (31 V)",
+            216: "no breakdown in range: too few points above the knee at 30.8 V for the fit (1; need 4) before "
+                 "the end of the sweep at 31 V",
+            214: "no breakdown in range: too few points above the knee at 30.7 V for the fit (3; need 4) before "
+                 "the end of the sweep at 31 V",
+            213: ""}
+    ln_i = np.array([_ln_i_from_slope(_bump(p, 20.0)) for p in rows])
+    r = iv.find_breakdown(GRID_V, np.exp(ln_i), joint_fit=False)
+    assert r.reason == tuple(rows.values())
+    assert r.window_points.tolist() == [5] * len(rows)
+    # The knee must stand 5 sigma above the noise of the smoothed derivative: the same seeded noise of 0.3 in
+    # ln I on a weak knee (0.345 and 0.37 per volt above a base of 0.3 per volt) asks for the widest window,
+    # 55 points, where the peak is 4.93 and 5.11 times sigma_d = noise ||savgol_coeffs(55, 3, deriv=1)|| / dV
+    # (scipy.signal), the noise from 1.4826 MAD of the second differences / sqrt(6).
+    noise = 0.3 * np.random.default_rng(1).standard_normal(GRID_V.size)
+    weak = np.array([_ln_i_from_slope(_bump(110, h, 0.3)) + noise for h in (0.345, 0.37)])
+    r = iv.find_breakdown(GRID_V, np.exp(weak), joint_fit=False)
+    assert r.reason == ("no breakdown in range: no significant knee in d ln I/dV above the noise", "")
+    assert r.window_points.tolist() == [55, 55]
+    gain = np.linalg.norm(savgol_coeffs(55, 3, deriv=1, delta=0.05))
+    ratios = []
+    for row in weak:
+        d2 = np.diff(row, 2)
+        sigma_d = 1.4826 * np.median(np.abs(d2 - np.median(d2))) / np.sqrt(6.0) * gain
+        deriv = savgol_filter(row, 55, 3, deriv=1, delta=0.05)
+        assert 27 + np.argmax(deriv[27:194]) == 111
+        ratios.append(deriv[111] / sigma_d)
+    assert 4.85 < ratios[0] < 5.0 < ratios[1] < 5.15
