@@ -150,3 +150,49 @@ def test_within_code_must_be_known(path, board_ntc):
     with pytest.raises(ModelError) as caught:
         integer_path_gain_error(table, law, board_ntc, within_code="middle")
     assert caught.value.key == "within_code"
+
+
+def test_within_code_refusal_names_the_choices(path, board_ntc):
+    from compensator.errors import ModelError
+
+    law, table, _ = path
+    with pytest.raises(ModelError) as caught:
+        integer_path_gain_error(table, law, board_ntc, within_code="middle")
+    assert caught.value.reason == "must be one of centre, edges, not 'middle'"
+
+
+def test_the_reference_temperature_sets_the_reference_gain(path, sipm_a, board_ntc):
+    # With a capacitance tempco alpha the cell capacitance is C25 (1 + alpha (T - 25)) (hut-sipm-a.yaml's
+    # reference temperature is 25 C), so against the gain at 3 V over breakdown at T_ref the ratio is
+    # (1 + alpha (T - 25)) (V - Vbd(T)) / ((1 + alpha (T_ref - 25)) 3 V); by hand at three codes, for T_ref = 25 C
+    # (the default) and 0 C, with the drop of the dark current solved by fixed point as above.
+    from dataclasses import replace
+
+    from compensator.firmware.integer_path import integer_path_points
+    from compensator.physics.sipm import breakdown_v, steady_current_a
+
+    _, table, _ = path
+    alpha = 800e-6
+    device = replace(sipm_a.device, capacitance_tempco_ppm_per_k=800.0)
+    law = replace(path[0], sipm=device)
+    k = np.array([0, 1234, 2392])
+    codes = table.code_lo + k
+    temps = board_ntc.temperature.temp_at(codes + 0.5)
+    out_v = board_ntc.supply.intercept_v + board_ntc.supply.volts_per_code * table.lookup(codes)[0]
+    v = out_v
+    for _ in range(50):
+        v = out_v - 1e4 * steady_current_a(device, v, temps)
+    cap = 1 + alpha * (temps - 25.0)
+    for ref_c in (25.0, 0.0):
+        expected = 100 * (cap * (v - breakdown_v(device, temps)) / ((1 + alpha * (ref_c - 25.0)) * 3.0) - 1)
+        kw = {} if ref_c == 25.0 else {"reference_temp_c": ref_c}
+        points = integer_path_points(table, law, board_ntc, temps, codes, **kw)
+        assert points.gain_error_pct == pytest.approx(expected, abs=1e-6)
+        whole = integer_path_gain_error(table, law, board_ntc, **kw)
+        assert whole.gain_error_pct[k] == pytest.approx(expected, abs=1e-6) and whole.reference_temp_c == ref_c
+    # The points are dark by default, as the whole-range figure is.
+    dark = integer_path_points(table, law, board_ntc, temps, codes)
+    assert np.array_equal(dark.sipm_bias_v, integer_path_points(table, law, board_ntc, temps, codes,
+                                                                photon_rate_hz=0.0).sipm_bias_v)
+    assert not np.array_equal(dark.sipm_bias_v, integer_path_points(table, law, board_ntc, temps, codes,
+                                                                    photon_rate_hz=1.0).sipm_bias_v)

@@ -62,3 +62,35 @@ def test_an_unsafe_profile_code_is_replaced_by_the_lowest_output(sipm_b, board_p
     assert finding.severity == Severity.WARNING and "40000" in finding.message
     dac, status = table.lookup([0, 65535])
     assert np.all(status == STATUS_SENSOR_FAULT) and np.all(dac == 0)
+
+
+def test_a_safe_profile_code_is_kept_even_when_another_is_lower(sipm_b, board_pt1000):
+    # Code 100 of the direct supply is 30 V + 100 x 14 x 2.5 V / 2^16 = 30.053 V nominal: above the lowest
+    # output (code 0) but well below the 36.325 V breakdown, so the profile's code stays, with its own output.
+    board = replace(board_pt1000, safe_dac_code=100)
+    law = build_law(sipm_b, board, 4.0)
+    state = safe_state(law, board)
+    assert (state.dac_code, state.profile_dac_code, state.lowest_output_dac_code) == (100, 100, 0)
+    assert state.max_output_v == highest_output_v(law, board, 100) and state.findings == ()
+    assert state.max_output_v == pytest.approx(30.0 + 100 * 14 * 2.5 / 65536, abs=0.01)
+    assert state.margin_v == pytest.approx(36.325 - state.max_output_v, abs=1e-9) and state.below_breakdown
+
+
+def test_the_findings_word_for_word(sipm_a, sipm_b, board_ntc, board_pt1000):
+    # The messages carry the numbers of the decision: the profile's code and its output, the breakdown and the
+    # coldest temperature, the replacement code and its output; or how far above breakdown the lowest output is.
+    board = replace(board_pt1000, safe_dac_code=40000)
+    law = build_law(sipm_b, board, 4.0)
+    state, bias = safe_state(law, board), safe_bias(law, board)
+    profile_v = highest_output_v(law, board, 40000)
+    (finding,) = state.findings
+    assert finding.code == "safe_dac_code_replaced" and finding.message == (
+        f"the board's safe_dac_code 40000 gives up to {profile_v:.3f} V, not below the SiPM breakdown of "
+        f"36.325 V at -25 C (with tolerances); the table uses code 0 instead ({bias.highest_output_v:.3f} V at most)")
+    law = build_law(sipm_a, board_ntc, 3.0)
+    state = safe_state(law, board_ntc)
+    (finding,) = state.findings
+    assert finding.message.startswith(
+        f"NO SAFE DAC CODE: the supply's lowest output is up to {state.max_output_v:.3f} V (code 65535), "
+        f"{state.max_output_v - 23.29:.3f} V above the SiPM breakdown of 23.290 V at -25 C (with tolerances), so a "
+        "sensor fault leaves the SiPM biased above breakdown; the board needs a hardware enable (shutdown) input")

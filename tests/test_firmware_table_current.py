@@ -269,3 +269,46 @@ def test_no_correction_says_how_to_get_one(sipm_a, board_ntc):
         plain.lookup_with_current([2000], [0])
     assert exc.value.reason == ("this table has no measured drop correction (build it from a law with "
                                 "drop_correction='measured')")
+
+
+def test_headroom_by_hand_with_and_without_the_fault_margin(sipm_a, board_ntc):
+    # current_code_max = floor((Vov_max - max(highest overvoltage over the range, overvoltage held at the coldest
+    # reading while the die is the margin colder)) / (R x one current code)), one current code being 3.3 V / 2^12
+    # / 20 kohm (test_feedback_injection_correction_by_hand). A capacitance tempco of -800 ppm/K makes the
+    # constant-gain law's overvoltage highest at the warm end (6 / (1 - 0.016) V at 45 C), so the range's
+    # maximum and the cold-end margin each decide once. The margin defaults to 0 K.
+    from compensator.physics.sipm import breakdown_v as vbd
+
+    device = replace(sipm_a.device, capacitance_tempco_ppm_per_k=-800.0)
+    law = build_law(replace(sipm_a, device=device), board_ntc, 6.0, kind="constant_gain", drop_correction="measured")
+    temps = np.linspace(law.min_temp_c, law.max_temp_c, 2801)
+    ov_range = float(np.max(law.output_v(temps) - vbd(device, temps)))
+    assert ov_range == pytest.approx(6.0 / (1 - 800e-6 * 20.0), abs=1e-6)
+    per_code_v = 1e4 * 3.3 / 4096 / 20e3
+
+    def by_hand(margin_k):
+        t_lo = law.min_temp_c
+        held = float(law.output_v(t_lo) - vbd(device, t_lo - margin_k))
+        return int(np.floor((device.max_overvoltage_v - max(ov_range, held)) / per_code_v))
+
+    assert by_hand(0.0) != by_hand(30.0)
+    for kw, margin in (({}, 0.0), ({"fault_margin_k": 30.0}, 30.0)):
+        cur = build_current_correction(law, **kw)
+        assert cur.current_code_max == by_hand(margin) and cur.limit_reason == "sipm max_overvoltage_v headroom"
+
+
+def test_without_a_series_resistor_there_is_nothing_to_correct(sipm_a, board_ntc):
+    # R = 0: no drop, a zero factor, and no headroom limit: the smaller of the ADC's full scale (4095) and the code
+    # of max_current_a, floor(I / (3.3 V / 2^12 / 20 kohm) + 1/2).
+    board = replace(board_ntc, supply=replace(board_ntc.supply, series_resistor_ohm=0.0))
+    law = build_law(sipm_a, board, 3.0, kind="constant_gain", drop_correction="measured")
+    cur = build_current_correction(law)
+    i_code = int(np.floor(sipm_a.device.max_current_a / (3.3 / 4096 / 20e3) + 0.5))
+    assert (cur.factor, cur.dac_codes_per_current_code) == (0, 0.0)
+    assert cur.current_code_max == min(4095, i_code) and cur.delta([0, 4095]).tolist() == [0, 0]
+
+
+def test_a_board_without_a_current_channel_is_refused(sipm_b, board_pt1000):
+    with pytest.raises(ModelError) as exc:
+        build_current_correction(build_law(sipm_b, board_pt1000, 4.0))
+    assert exc.value.reason == "the measured drop correction needs the board's current_sense channel"

@@ -445,3 +445,20 @@ def test_without_a_uniform_table_there_is_no_baseline(sipm_b, board_pt1000, monk
     report = T.compare_layouts(build_law(sipm_b, board_pt1000, 4.0), board_pt1000, 0.05)
     assert report.uniform_bytes == 0 and report.findings == ()
     assert report.table.layout == "polynomial" and report.table.table_bytes == 10
+
+
+def test_a_hand_made_uniform_table():
+    # Nodes 10, 90, 170 every 8 codes from code 100 (the range 100 .. 108); plausible codes 90 .. 120. At code 104:
+    # 10 + floor((80 x 4 + 4) / 8) = 50; at 103: 10 + floor((240 + 4) / 8) = 40. Below the range the stored end
+    # value 5 (colder by default), above it 500 (hotter), outside 90 .. 120 the safe code 7 (a sensor fault);
+    # everything within the output clamp 0 .. 4095. Arrays a layout does not use are empty int64 arrays.
+    table = T.LookupTable(layout="uniform", adc_bits=12, dac_bits=12, code_lo=100, code_hi=108, fault_lo=90,
+                          fault_hi=120, dac_min=0, dac_max=4095, safe_dac_code=7, below_dac_code=5,
+                          above_dac_code=500, shift=3, y=np.array([10, 90, 170], dtype=np.int64))
+    dac, status = table.lookup([89, 90, 99, 100, 103, 104, 108, 109, 120, 121])
+    assert dac.tolist() == [7, 5, 5, 10, 40, 50, 90, 500, 500, 7]
+    assert status.tolist() == [3, 1, 1, 0, 0, 0, 0, 2, 2, 3]
+    for name in ("x", "slope", "segment_shift", "coeff_shift"):
+        empty = getattr(table, name)
+        assert empty.size == 0 and empty.dtype == np.int64
+    assert table.table_bytes == 6 and table.entries == 3 and table.entry_bytes == 2

@@ -16,9 +16,10 @@ from compensator.physics.sipm import cell_capacitance_f
 from compensator.physics.supply import sipm_bias_v
 
 
-# Budgets are built once per module so that the suite stays fast; under mutation testing (MUTANT_UNDER_TEST set)
-# every test builds its own, or mutmut would map the chain only to the first test that happened to build them.
-_SCOPE = "function" if os.environ.get("MUTANT_UNDER_TEST") else "module"
+# Budgets are built once per module so that the suite stays fast; while mutmut collects its statistics
+# (MUTANT_UNDER_TEST is "stats") every test builds its own, or mutmut would map the chain only to the first test
+# that happened to build them. A mutant's own run shares them again: every test it runs sees the same mutant.
+_SCOPE = "function" if os.environ.get("MUTANT_UNDER_TEST") == "stats" else "module"
 
 
 @pytest.fixture(scope=_SCOPE)
@@ -37,6 +38,19 @@ def budget_b_mc(sipm_b, board_pt1000):
 def budget_a_mc(sipm_a, board_ntc):
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
     return law, gain_error_budget(law, board_ntc, samples=2000, seed=11)
+
+
+# The same two laws without the Monte Carlo, for the tests of the first-order terms alone (they are quick to build).
+@pytest.fixture(scope=_SCOPE)
+def budget_b_first(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_gain")
+    return law, gain_error_budget(law, board_pt1000, samples=0)
+
+
+@pytest.fixture(scope=_SCOPE)
+def budget_a_first(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
+    return law, gain_error_budget(law, board_ntc, samples=0)
 
 
 def _at(budget, temp_c):
@@ -109,7 +123,7 @@ def test_feedback_injection_network_by_hand(sipm_a, board_ntc):
                                                            rel=1e-4)
 
 
-@pytest.mark.parametrize("which", ["budget_a_mc", "budget_b_mc"])
+@pytest.mark.parametrize("which", ["budget_a_first", "budget_b_first"])
 def test_every_source_has_its_term_and_distribution(which, request):
     # The bundled boards' sources, listed by hand from their profiles: hut-board-ntc is ratiometric (no
     # excitation, its ADC reference error cancels), feedback injection with a regulator reference; hut-board-pt1000
@@ -117,7 +131,7 @@ def test_every_source_has_its_term_and_distribution(which, request):
     # u = a / sqrt(3); the breakdown and tempco calibrations are normal, limit 3 sigma.
     law, budget = request.getfixturevalue(which)
     common = ["sensor_tolerance", "self_heating", "sensor_to_die", "sensor_lag", "adc_quantisation", "adc_reference"]
-    if which == "budget_a_mc":
+    if which == "budget_a_first":
         keys = common + ["adc_offset", "adc_gain_error", "adc_inl", "divider_resistor", "divider_resistor_drift",
                          "dac_quantisation", "dac_reference", "dac_reference_drift", "dac_offset", "dac_gain_error",
                          "dac_inl", "supply_network", "supply_network_drift", "regulator_reference",
@@ -154,8 +168,8 @@ def test_dac_reference_by_hand(budget_b_flat):
     assert budget.term("dac_reference").limit_pct_by_temp[_at(budget, 25.0)] == pytest.approx(expected, rel=1e-3)
 
 
-def test_breakdown_and_tempco_calibration(budget_b_mc, sipm_b):
-    law, budget = budget_b_mc
+def test_breakdown_and_tempco_calibration(budget_b_first, sipm_b):
+    law, budget = budget_b_first
     bd = budget.term("breakdown_calibration")
     # A breakdown offset of 0.05 V (1 sigma) is 0.05 / 4 = 1.25 % of gain; the limit is 3 sigma.
     assert bd.std_pct_by_temp[_at(budget, 25.0)] == pytest.approx(1.25, rel=1e-3)
@@ -173,24 +187,24 @@ def test_breakdown_and_tempco_calibration(budget_b_mc, sipm_b):
     assert budget.calibrated_dominant == "tempco_calibration"
 
 
-def test_ratiometric_reference_cancels(budget_a_mc, budget_b_mc):
-    assert budget_a_mc[1].term("adc_reference").limit_pct < 1e-9
-    assert budget_b_mc[1].term("adc_reference").limit_pct > 0.1
+def test_ratiometric_reference_cancels(budget_a_first, budget_b_first):
+    assert budget_a_first[1].term("adc_reference").limit_pct < 1e-9
+    assert budget_b_first[1].term("adc_reference").limit_pct > 0.1
 
 
-def test_excitation_counts_only_without_a_ratiometric_adc(budget_a_mc, budget_b_mc, board_pt1000):
+def test_excitation_counts_only_without_a_ratiometric_adc(budget_a_first, budget_b_first, board_pt1000):
     # The absolute-reference ADC reads V_exc * fraction / V_ref: to first order a relative excitation error
     # weighs exactly like a relative reference error (same tolerance here, 0.1 %), with the opposite sign.
     fe = board_pt1000.temperature.front_end
     assert not fe.ratiometric and fe.excitation_tolerance_pct == fe.adc_reference_tolerance_pct
-    budget_b, budget_a = budget_b_mc[1], budget_a_mc[1]
+    budget_b, budget_a = budget_b_first[1], budget_a_first[1]
     assert budget_b.term("excitation").limit_pct == pytest.approx(budget_b.term("adc_reference").limit_pct, rel=0.02)
     with pytest.raises(KeyError, match="excitation"):
         budget_a.term("excitation")  # ratiometric: the excitation cancels
 
 
-def test_uncorrected_drop_is_systematic(budget_a_mc, sipm_a, board_ntc):
-    law, budget = budget_a_mc
+def test_uncorrected_drop_is_systematic(budget_a_first, sipm_a, board_ntc):
+    law, budget = budget_a_first
     term = budget.term("series_resistor_drop")
     assert term.kind == "systematic"
     i = _at(budget, 45.0)
@@ -202,8 +216,8 @@ def test_uncorrected_drop_is_systematic(budget_a_mc, sipm_a, board_ntc):
     assert budget.systematic_pct == pytest.approx(abs(term.signed_pct_by_temp).max(), rel=1e-6)
 
 
-def test_aggregates(budget_b_mc):
-    _, budget = budget_b_mc
+def test_aggregates(budget_b_first):
+    _, budget = budget_b_first
     random_terms = [t for t in budget.terms if t.kind == "random"]
     rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in random_terms))
     assert budget.rss_pct == pytest.approx(rss.max(), rel=1e-12)

@@ -149,9 +149,12 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, *, pi
     """
     _check_ms(ms_max)
     T = float(sample_time_s)
-    sign = 1.0 if plant.dc_gain >= 0 else -1.0
     every = (plant, *also_plants)
-    if any((p.dc_gain >= 0) != (sign > 0) for p in every):
+    dc_gains = [p.dc_gain for p in every]
+    if not all(dc_gains):
+        raise ModelError("a plant has zero static gain: integral action cannot hold a setpoint on it")
+    sign = 1.0 if dc_gains[0] > 0 else -1.0
+    if any((g > 0) != (sign > 0) for g in dc_gains):
         raise ModelError("the plants disagree in the sign of their gain: no single controller suits them all")
     w = np.append(loop_frequency_grid(plant, T, 700, 6.0), math.pi / T)  # include Nyquist, where sampled loops often cross
     p_resp = np.array([discrete_frequency_response(p, T, w, computation_delay_samples) for p in every])

@@ -1,0 +1,62 @@
+"""calibration.ivpeaks: the second-derivative method's pilot, window and search region.
+
+Checks added for mutation testing, against scipy.signal (Savitzky-Golay filters and their coefficients).
+"""
+
+import numpy as np
+import pytest
+from scipy.signal import savgol_coeffs, savgol_filter
+
+from compensator.calibration.synthetic import simulate_iv
+
+GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)  # 221 points
+
+
+def test_second_derivative_window_and_peak_follow_the_documented_rule_with_scipy(monkeypatch):
+    # The rule of calibration.iv's docstring for the second derivative, rebuilt here with scipy.signal: a pilot
+    # cubic Savitzky-Golay d2 ln I/dV2 over the widest window (the odd number at most n / 4: 55 points) gives the
+    # peak height over the knee's interior points up to half a (first-derivative) window above the knee; the
+    # window is the narrowest odd width >= 5 whose noise gain noise ||savgol_coeffs(w, 3, deriv=2)|| / dV^2 is
+    # at most 50 % of that height; the peak is the maximum of d2 with that window at least half of it from both
+    # ends and not above the same upper end; the parabola is weighted by that noise gain. The knee (its window,
+    # peak, noise and interior) is ivknee's, pinned against scipy in tests/test_calibration_ivknee_mutation.py.
+    import compensator.calibration.iv as iv_module
+    import compensator.calibration.ivpeaks as peaks
+
+    seen = {}
+    real_fit, real_d2 = peaks._fit_peak, peaks._second_derivative
+
+    def spy_fit(grid, values, p, half, sigma, corr, out):
+        seen.update(p=p.copy(), half=half.copy(), sigma=sigma.copy())
+        return real_fit(grid, values, p, half, sigma, corr, out)
+
+    def spy_d2(grid, ln_i, knee, step_v, out, reasons):
+        seen.update(ln_i=ln_i.copy(), knee=knee)
+        return real_d2(grid, ln_i, knee, step_v, out, reasons)
+
+    monkeypatch.setattr(peaks, "_fit_peak", spy_fit)
+    monkeypatch.setattr(iv_module, "_second_derivative", spy_d2)
+    rng = np.random.default_rng(21)
+    truth = np.array([24.2, 24.5, 24.8, 25.1, 24.4, 24.7])
+    noise = np.array([0.001, 0.005, 0.01, 0.02, 0.05, 0.1])
+    current = simulate_iv(rng, GRID_V, truth, relative_noise=noise[:, None], geiger_scale_v=1.0)
+    current[0, 150] *= np.exp(2.0)  # a spike at 27.5 V: d2 ln I/dV2 beside it exceeds its maximum below the knee
+    iv_module.find_breakdown(GRID_V, current, "second-derivative")
+    ln_i, knee = seen["ln_i"], seen["knee"]
+    n, w_max = GRID_V.size, 55
+    cut = 0
+    for i in range(truth.size):
+        hi = min(knee.peak_index[i] + knee.windows[i] // 2, n - 1)
+        region = knee.interior[i] & (np.arange(n) <= hi)
+        pilot2 = savgol_filter(ln_i[i], w_max, 3, deriv=2, delta=0.05, mode="nearest")
+        height = max(np.max(pilot2[region]), 1e-12)
+        gain = {w: np.linalg.norm(savgol_coeffs(w, 3, deriv=2, delta=0.05)) for w in range(5, w_max + 1, 2)}
+        window = min([w for w in gain if knee.noise[i] * gain[w] <= 0.5 * height] or [w_max])
+        assert 2 * seen["half"][i] + 1 == window, i
+        h2 = window // 2
+        d2 = savgol_filter(ln_i[i], window, 3, deriv=2, delta=0.05, mode="nearest")
+        lo2, hi2 = h2, min(hi, n - h2 - 1)
+        assert seen["p"][i] == lo2 + int(np.argmax(d2[lo2:hi2 + 1])), i
+        assert seen["sigma"][i] == pytest.approx(knee.noise[i] * gain[window], rel=1e-12)
+        cut += int(np.argmax(d2[h2:n - h2]) + h2 > hi2)
+    assert len(set(seen["half"].tolist())) >= 3 and cut >= 1

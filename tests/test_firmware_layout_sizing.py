@@ -1,0 +1,304 @@
+"""The table sizing searches on small hand-made targets, against plain-Python greedy searches and hand calculations.
+
+Each reference below is written again with Python integers, ``round`` (half to even, as numpy's ``rint``) and
+floor division, not with the tool's numpy shifts; the targets are a few dozen codes, so every test takes
+milliseconds.
+"""
+
+import numpy as np
+import pytest
+
+from compensator.firmware import layout_sizing as S
+from compensator.firmware.layouts import Target, TableError, polynomial_value
+
+LO = 100  # first ADC code of every hand-made target
+
+
+def target(exact, *, bound, dac_full=4095, ext=None):
+    """A target over codes LO .. LO + len(exact) - 1, extrapolated with the end slopes of ``exact``."""
+    exact = np.asarray(exact, dtype=float)
+    n = exact.size
+    ext_lo = float(exact[1] - exact[0]) if ext is None else ext
+    ext_hi = float(exact[-1] - exact[-2]) if ext is None else ext
+    bound = np.broadcast_to(np.asarray(bound, dtype=float), (n,)).copy()
+    return Target(codes=np.arange(LO, LO + n, dtype=np.int64), temp_c=np.zeros(n), exact=exact, bound_lsb=bound,
+                  gain_pct_per_lsb=np.ones(n), ext_lo=ext_lo, ext_hi=ext_hi, dac_full=dac_full)
+
+
+def exact_at(t, code):
+    """The target's value at any integer code, extrapolated linearly beyond its ends (plain Python)."""
+    lo, hi = LO, LO + t.exact.size - 1
+    if code < lo:
+        return float(t.exact[0]) + (code - lo) * t.ext_lo
+    if code > hi:
+        return float(t.exact[-1]) + (code - hi) * t.ext_hi
+    return float(t.exact[code - lo])
+
+
+def node(t, code, frac):
+    return min(max(round(exact_at(t, code) * 2 ** frac), 0), t.dac_full * 2 ** frac)
+
+
+def rnd(p, k):
+    """floor((p + 2^(k-1)) / 2^k), and p for k = 0."""
+    return (p + (2 ** k) // 2) // 2 ** k
+
+
+def c_bits(v):
+    return next(b for b in (8, 16, 32, 64) if v < 2 ** b)
+
+
+def meets(t, got, start=0):
+    return all(abs(g - float(t.exact[start + j])) <= float(t.bound_lsb[start + j]) for j, g in enumerate(got))
+
+
+def uniform_reference(t, value_bits):
+    """Widest power-of-two spacing that meets the bound, for nodes with 0 and 8 fractional bits; fewer bytes."""
+    n = t.exact.size
+    best = None
+    for frac in (0, 8):
+        node_bits = max(value_bits, c_bits((t.dac_full + 1) * 2 ** frac - 1))
+        for shift in range(max(1, (n - 1).bit_length()), -1, -1):
+            y = [node(t, LO + j * 2 ** shift, frac) for j in range(((n - 1) >> shift) + 2)]
+            got = []
+            for d in range(n):
+                i, r = d // 2 ** shift, d % 2 ** shift
+                got.append(rnd(y[i] + rnd((y[i + 1] - y[i]) * r, shift), frac))
+            if meets(t, got):
+                if best is None or len(y) * node_bits // 8 < best[0]:
+                    best = (len(y) * node_bits // 8, shift, frac, node_bits, y)
+                break
+    return best
+
+
+def segmented_reference(t, frac):
+    """Greedy power-of-two segments: from each node the widest width (but not twice what is left) that meets."""
+    n = t.exact.size
+    top = max(1, (n - 1).bit_length())
+    start, y_start = 0, node(t, LO, frac)
+    ys, ks = [y_start], []
+    while start < n:
+        for k in range(top, -1, -1):
+            if k and 2 ** k >= 2 * (n - start):
+                continue
+            y_end = node(t, LO + start + 2 ** k, frac)
+            got = [rnd(y_start + rnd((y_end - y_start) * r, k), frac) for r in range(min(2 ** k, n - start))]
+            if meets(t, got, start):
+                break
+        ys.append(y_end)
+        ks.append(k)
+        start, y_start = start + 2 ** k, y_end
+    return ys, ks
+
+
+# A parabola over 33 codes: f(d) = 200 + 3 d + d^2 / 16 DAC codes (f'' = 1/8 per code^2).
+PARABOLA = [200 + 3 * d + d * d / 16 for d in range(33)]
+
+
+@pytest.mark.parametrize("bound", [0.5, 0.75, 1.0, 2.0, 4.0, 40.0])
+def test_uniform_sizing_is_the_plain_python_search(bound):
+    t = target(PARABOLA, bound=bound)
+    fit = S.size_uniform(t, 16)
+    nbytes, shift, frac, node_bits, y = uniform_reference(t, 16)
+    assert (fit.shift, fit.node_frac_bits, fit.node_type_bits) == (shift, frac, node_bits)
+    assert fit.y.tolist() == y and fit.y.size * fit.node_type_bits // 8 == nbytes
+    # The accumulator: the largest |Y[i+1] - Y[i]| (2^s - 1) + 2^s, or the largest node plus 2^G; these fit 32 bits.
+    assert fit.acc_type_bits == 32
+
+
+def test_uniform_sizing_by_hand_on_a_line():
+    # f(d) = 7 + 2 d over 17 codes (d = 0 .. 16): the widest spacing tried is 2^5 = 32 (16 has 5 bits), so two
+    # plain DAC nodes, at d = 0 and 32 (extrapolated): 7 and 71, interpolate it exactly (7 + floor((64 r + 16) / 32)
+    # = 7 + 2 r): 2 nodes of 16 bits.
+    t = target([7 + 2 * d for d in range(17)], bound=0.5)
+    fit = S.size_uniform(t, 16)
+    assert (fit.shift, fit.node_frac_bits, fit.node_type_bits, fit.y.tolist()) == (5, 0, 16, [7, 71])
+
+
+def test_uniform_sizing_takes_fractional_nodes_when_they_are_smaller():
+    # f = d / 3 + 0.25: plain DAC nodes round by up to half an LSB, so at a bound of 0.55 LSB only a node at every
+    # code works (34 nodes, 68 bytes); nodes with 8 fractional bits (32-bit) meet it 8 codes apart (6 nodes,
+    # 24 bytes). The plain-Python search finds the same.
+    t = target([d / 3 + 0.25 for d in range(33)], bound=0.55)
+    fit = S.size_uniform(t, 16)
+    assert uniform_reference(t, 16)[1:4] == (fit.shift, fit.node_frac_bits, fit.node_type_bits)
+    assert fit.node_frac_bits == 8 and fit.node_type_bits == 32 and fit.y.size * 4 < 2 * 34
+
+
+def test_uniform_sizing_refuses_an_impossible_bound():
+    # Exact values half-way between DAC codes, with a bound below half an LSB: even a node at every code misses.
+    # (the firmware's output is a whole DAC code, 0.5 LSB from 10.5 whatever the nodes hold).
+    t = target([10.5] * 9, bound=0.4, ext=0.0)
+    with pytest.raises(TableError, match="no uniform table meets the bound even with one node per ADC code"):
+        S.size_uniform(t, 16)
+    assert S.size_uniform(target([10.5] * 9, bound=0.5, ext=0.0), 16).shift == 4  # at 0.5 LSB one spacing does
+
+
+@pytest.mark.parametrize("bound", [0.5, 0.75, 1.0, 3.0])
+@pytest.mark.parametrize("frac", [0, 8])
+def test_segmented_placement_is_the_plain_python_greedy(bound, frac):
+    t = target(PARABOLA, bound=bound)
+    y, k = S._place_segmented(t, frac)
+    ys, ks = segmented_reference(t, frac)
+    assert y.tolist() == ys and k.tolist() == ks
+
+
+def test_segmented_sizing_keeps_the_format_with_fewer_bytes():
+    # Bytes: 16-bit nodes (or 32-bit with 8 fractional bits) plus one byte per segment width.
+    for exact, bound in ((PARABOLA, 0.75), ([d / 3 + 0.25 for d in range(33)], 0.55)):
+        t = target(exact, bound=bound)
+        fit = S.size_segmented(t, 16)
+        sizes = {}
+        for frac, node_bits in ((0, 16), (8, 32)):
+            ys, ks = segmented_reference(t, frac)
+            sizes[frac] = (len(ys) * node_bits // 8 + len(ks), ys, ks, node_bits)
+        frac = min(sizes, key=lambda f: (sizes[f][0], f))
+        assert fit.node_frac_bits == frac and fit.y.tolist() == sizes[frac][1]
+        assert fit.segment_shift.tolist() == sizes[frac][2] and fit.node_type_bits == sizes[frac][3]
+        assert fit.acc_type_bits == 32
+
+
+def test_a_wide_dac_needs_a_64_bit_accumulator():
+    # A 24-bit DAC, f = (2^20 + 1/3) d over d = 0 .. 8, bound 0.34 LSB: plain nodes need one per code (their
+    # rounding alone is up to 1/3 LSB), nodes with 8 fractional bits meet it 8 codes apart. Those reach
+    # (2^23 + 8/3) 2^8 > 2^31, so the accumulator is 64 bits.
+    full = (1 << 24) - 1
+    t = target([((1 << 20) + 1 / 3) * d for d in range(9)], bound=0.34, dac_full=full)
+    uni = S.size_uniform(t, 32)
+    assert (uni.node_frac_bits, uni.node_type_bits, uni.shift, uni.acc_type_bits) == (8, 32, 3, 64)
+    seg = S.size_segmented(t, 32)
+    assert seg.node_frac_bits == 8 and seg.acc_type_bits == 64
+    # With plain 16-bit nodes of a 12-bit DAC, 32 bits hold everything.
+    assert S.size_uniform(target(PARABOLA, bound=1.0), 16).acc_type_bits == 32
+
+
+def segment_line(t, start, stop, frac_bits):
+    """The minimax line of ``exact[start:stop]`` rounded as the firmware stores it (chord slope, centred offset)."""
+    f = [float(v) for v in t.exact[start:stop]]
+    m = len(f) - 1
+    chord = (f[-1] - f[0]) / m if m else 0.0
+    resid = [f[j] - (f[0] + chord * j) for j in range(len(f))]
+    y0 = min(max(round(f[0] + 0.5 * (max(resid) + min(resid))), 0), t.dac_full)
+    s = round(chord * 2 ** frac_bits)
+    return y0, s, [y0 + rnd(s * j, frac_bits) for j in range(len(f))]
+
+
+def test_segment_line_by_hand():
+    # f(d) = 10 + d^2 / 8 at d = 0 .. 4 (the last segment: both ends included): 10, 10.125, 10.5, 11.125, 12. The
+    # chord's slope is 2 / 4 = 0.5; residuals from the chord 0, -0.375, -0.5, -0.375, 0, so the line is moved by
+    # half of (0 + -0.5): y0 = rint(9.75) = 10; slope 0.5 x 2^4 = 8. The firmware gives 10 + floor((8 d + 8) / 16)
+    # = 10, 11, 11, 12, 12: errors 0, 0.875, 0.5, 0.875, 0 LSB.
+    t = target([10 + d * d / 8 for d in range(9)], bound=0.875)
+    assert S._segment_ok(t, 0, 4, True, 4, 1000) == (True, 10, 8)
+    assert S._segment_ok(target([10 + d * d / 8 for d in range(9)], bound=0.87), 0, 4, True, 4, 1000)[0] is False
+    # Not the last segment: codes 0 .. 3 only, chord from f(0) to f(3) = 11.125: slope 0.375, residuals 0, -0.25,
+    # -0.25, 0, y0 = rint(9.875) = 10, slope 6.
+    assert S._segment_ok(t, 0, 4, False, 4, 1000) == (True, 10, 6)
+    assert segment_line(t, 0, 4, 4)[:2] == (10, 6)
+    # A slope beyond its C type is refused (8 > 7), and a line below code 0 is held at 0.
+    assert S._segment_ok(t, 0, 4, True, 4, 7)[0] is False
+    low = target([-3 + d for d in range(9)], bound=5.0)
+    assert S._segment_ok(low, 0, 4, True, 4, 1000)[1] == 0
+
+
+@pytest.mark.parametrize("bound", [0.6, 1.0, 2.5])
+def test_optimised_breakpoints_are_greedy_and_maximal(bound):
+    # Every segment (but the last) meets the bound with the line the firmware stores, and one code more would not:
+    # the greedy search gives each segment the most codes it can have. Checked with the plain-Python line.
+    t = target([200 + d * d / 16 + (d * d * d) / 2000 for d in range(64)], bound=bound)
+    frac_bits, slope_max = 8, (1 << 15) - 1
+    x, y, s = S._place_optimised(t, frac_bits, slope_max)
+    starts = (x - LO).tolist()
+    ends = starts[1:] + [t.exact.size]
+    assert starts[0] == 0 and all(b > a for a, b in zip(starts, starts[1:]))
+    for j, (a, b) in enumerate(zip(starts, ends)):
+        last = j == len(starts) - 1
+        y0, s0, got = segment_line(t, a, b + 1 if last else b, frac_bits)
+        assert meets(t, got[:b - a], a) and (int(y[j]), int(s[j])) == (y0, s0)
+        if not last:
+            assert not meets(t, segment_line(t, a, b + 1, frac_bits)[2], a)  # one code more misses
+
+
+def test_optimised_sizing_bytes_and_types():
+    # Breakpoint (16 bits) + value (16 bits) + slope (16 or 32 bits): both slope widths give the same breakpoints
+    # here, so the 16-bit slopes (6 bytes a row) are kept.
+    t = target([200 + d * d / 16 for d in range(64)], bound=1.0)
+    fit = S.size_optimised(t, 16, 16)
+    assert fit.slope_type_bits == 16 and fit.node_type_bits == 16 and fit.acc_type_bits == 32
+    # F: as many bits as the steepest chord leaves in the slope type, at most bit_length(span) + 2 = 8.
+    assert fit.slope_frac_bits == 8
+    x, y, s = S._place_optimised(t, 8, (1 << 15) - 1)
+    assert fit.x.tolist() == x.tolist() and fit.slope.tolist() == s.tolist()
+
+
+def test_optimised_single_code_and_flat_end():
+    # One code: a flat segment at its rounded value.
+    t = target([5.2], bound=0.5, ext=0.0)
+    x, y, s = S._place_optimised(t, 4, 1000)
+    assert (x.tolist(), y.tolist(), s.tolist()) == ([LO], [5], [0])
+    with pytest.raises(TableError, match="a single code cannot meet the bound"):
+        S._place_optimised(target([5.5], bound=0.4, ext=0.0), 4, 1000)
+
+
+def test_minimax_line_of_a_parabola_by_hand():
+    # The best uniform line to x^2 on [-1, 1] is 1/2 with error 1/2 (Chebyshev equioscillation at -1, 0, 1).
+    u = np.linspace(-1.0, 1.0, 201)
+    c, err = S._minimax(np.vander(u, 2, increasing=True), u * u, np.ones(u.size))
+    assert c == pytest.approx([0.5, 0.0], abs=1e-9) and err == pytest.approx(0.5, abs=1e-9)
+    # Weights scale the error; a held part is subtracted first (x^2 - x^2 leaves zero to fit).
+    c, err = S._minimax(np.vander(u, 2, increasing=True), u * u, np.full(u.size, 4.0))
+    assert err == pytest.approx(2.0, abs=1e-9)
+    c, err = S._minimax(np.vander(u, 2, increasing=True), u * u, np.ones(u.size), fixed=u * u)
+    assert c == pytest.approx([0.0, 0.0], abs=1e-9) and err == pytest.approx(0.0, abs=1e-9)
+
+
+def test_horner_bound_against_every_intermediate():
+    # The bound must be at least every |acc x| the Horner evaluation forms, over every x within +-x_max.
+    rng = np.random.default_rng(7)
+    for _ in range(20):
+        coeff = [int(v) for v in rng.integers(-30000, 30000, size=4)]
+        shifts = [int(v) for v in rng.integers(0, 6, size=3)]
+        x_max = int(rng.integers(1, 200))
+        worst = 0
+        for x in range(-x_max, x_max + 1):
+            acc = coeff[-1]
+            for j in range(len(coeff) - 2, -1, -1):
+                worst = max(worst, abs(acc * x))
+                acc = coeff[j] + (acc * x) // 2 ** shifts[j]
+            worst = max(worst, abs(acc))
+        bound = S._horner_bound(coeff, shifts, x_max)
+        assert worst <= bound
+    # By hand: C = (1, 2), shift 0, x_max 3: |2 x| <= 6, acc <= 1 + 6 + 1 = 8.
+    assert S._horner_bound([1, 2], [0], 3) == 8
+
+
+def test_polynomial_sizing_by_hand():
+    # f(x) = 1000 + x / 2 + x^2 / 64 at x = -32 .. 32 (around the centre code). A line misses by its minimax
+    # error (32^2 / 64) / 2 = 8 LSB, far above the bound of 1 LSB. The constant term is always held in 32 bits
+    # (it carries the DAC code and its fraction bits); the quadratic's other coefficients are exact binary
+    # fractions that 16 bits hold, so the smallest layout is 32 + 16 + 16 bits: 8 bytes, degree 2. Its shifts:
+    # Q_2 = 20 (1/64 x 2^20 = 16384, the most a 16-bit word allows for 64 = (1/64) 2^12 in x / 2^6), Q_1 = 15
+    # (0.5 x 2^15 = 16384) and Q_0 = min(21, Q_1) = 15 (1000 x 2^15 = 32768000).
+    t = target([1000 + x / 2 + x * x / 64 for x in range(-32, 33)], bound=1.0)
+    fit = S.size_polynomial(t, 16)
+    assert fit.y.size == 3 and tuple(fit.coeff_type_bits) == (32, 16, 16) and fit.center_code == LO + 32
+    assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([32768000, 16384, 16384], [0, 5], 15)
+    got = polynomial_value(fit.y, fit.coeff_shift, t.codes - fit.center_code, fit.node_frac_bits)
+    assert meets(t, got.tolist())
+    # Each coefficient stands for the exact one: C_j 2^-Q_j (Q_0 = G, Q_(j+1) = Q_j + shift_j).
+    q = [fit.node_frac_bits]
+    for sh in fit.coeff_shift.tolist():
+        q.append(q[-1] + sh)
+    assert [int(c) / 2 ** qj for c, qj in zip(fit.y.tolist(), q)] == pytest.approx([1000, 0.5, 1 / 64], rel=2e-4)
+    # A degree cap of 1 leaves no polynomial.
+    with pytest.raises(TableError, match="no polynomial up to degree 1 meets the bound"):
+        S.size_polynomial(t, 16, max_degree=1)
+
+
+def test_polynomial_sizing_needs_room_for_rounding():
+    # The fit aims 0.6 LSB inside the bound; a bound of 0.6 LSB leaves nothing.
+    t = target([1000 + x / 2 for x in range(-8, 9)], bound=0.6)
+    with pytest.raises(TableError, match="no room for a polynomial's rounding"):
+        S.size_polynomial(t, 16)
+    fit = S.size_polynomial(target([1000 + x / 2 for x in range(-8, 9)], bound=0.61), 16)
+    assert fit.y.size == 2  # a line fits a line
