@@ -62,3 +62,22 @@ def test_ntc_channel_continuous_code_and_code_step_by_hand():
         slope = 10_000.0 * (3435.0 * r / t_k ** 2) / (r + 10_000.0) ** 2
         # The module's central difference (0.05 K) is off by at most 3e-7 (relative) here.
         assert float(ch.temp_per_code_k(t_c)) == pytest.approx(1 / 4096 / slope, rel=1e-6)
+
+
+@pytest.mark.parametrize("position", ["low", "high"])
+def test_divider_positions_without_a_solution_are_nan_and_quiet(position):
+    # x = p / 4096 of the excitation: a positive resistance needs 0 < x < 1 (R = Rf x/(1-x) low, Rf (1-x)/x high).
+    import warnings
+    fe = S.FrontEnd(position, 1000.0, 3.3, True, 12, 3.3)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        r = fe.resistance_at([-1.0, 0.0, 1024.0, 4096.0, 6144.0, np.inf])
+    assert np.isnan(r[[0, 1, 3, 4, 5]]).all()
+    assert r[2] == pytest.approx(1000.0 / 3 if position == "low" else 3000.0, rel=1e-14)
+
+
+def test_ntc_channel_reads_sub_ohm_resistances():
+    # Every positive resistance is a reading: a 0.1 ohm NTC (Beta 3435 K) against 0.1 ohm reads 25 C at the
+    # divider's midpoint, x = 1/2 (position 2048 of 4096): R = R25, so T = 298.15 K exactly.
+    ch = S.TemperatureChannel(S.NtcSensor(0.1, beta_k=3435.0), S.FrontEnd("low", 0.1, 3.3, True, 12, 3.3))
+    assert float(ch.temp_at(2048.0)) == pytest.approx(25.0, abs=1e-9)

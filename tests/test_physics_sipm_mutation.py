@@ -134,3 +134,14 @@ def test_fired_cells_by_hand():
     assert float(M.fired_cells(1000, 2000, 0.25)) == pytest.approx(1000 * (1 - exp(-0.5)), rel=1e-14)
     np.testing.assert_allclose(M.fired_cells([100, 1000], [400, 400], [0.5, 0.5]),
                                [100 * (1 - exp(-2.0)), 1000 * (1 - exp(-0.2))], rtol=1e-14)
+
+
+def test_branching_mean_diverges_at_lambda_one():
+    # p = 0.5 at 1 V, linear in overvoltage: lambda = ln(2) Vov, exactly 1 at Vov = 1/ln 2 = 1.4426950408889634 V,
+    # where the Borel mean 1/(1 - lambda) is infinite (Vinogradov 2012); just below, it is large but finite.
+    dev = make(crosstalk_probability=0.5, crosstalk_ref_overvoltage_v=1.0, crosstalk_overvoltage_exponent=1.0,
+               crosstalk_model="branching_poisson")
+    at_one = 1.4426950408889634
+    assert float(M.crosstalk_branching_ratio(M.crosstalk_probability(dev, at_one))) == 1.0
+    means = M.crosstalk_mean_multiplier(dev, [at_one, 1.4])
+    assert means[0] == np.inf and means[1] == pytest.approx(1 / (1 - 1.4 * log(2.0)), rel=1e-12)

@@ -95,3 +95,10 @@ def test_operating_point_with_a_current_dependent_output():
     supply = BiasSupply(Dac(16, 2.5), series_resistor_ohm=1e4, r1_ohm=1e6, r2_ohm=43.2e3, r3_ohm=250e3)
     assert float(sipm_bias_v(supply, dev, 27.5, 45.0)) == pytest.approx(
         float(solve_operating_point_v(lambda i: 27.5, 27.5, 1e4, dev, 45.0)), abs=1e-12)
+
+
+def test_output_range_spans_both_end_codes():
+    # Unclipped, the feedback network's outputs run from code 4095 (32.5 - 4095 x 2.5/4096 x 5 = 20.0031 V)
+    # to code 0 (32.5 V), the highest: a higher code lowers the output.
+    wide = BiasSupply(Dac(12, 2.5), "feedback_injection", feedback_v=1.25, r1_ohm=1e6, r2_ohm=50e3, r3_ohm=200e3)
+    assert wide.output_range_v() == pytest.approx((32.5 - 4095 * 2.5 / 4096 * 5, 32.5), rel=1e-14)
