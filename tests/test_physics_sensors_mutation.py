@@ -22,8 +22,8 @@ def _rtd_inverse_above_zero(r_ohm, r0_ohm):
 
 def test_rtd_tolerance_defaults_to_class_a():
     # IEC 60751 class A at 100 C: 0.15 + 0.002 x 100 = 0.35 K.
-    assert float(S.rtd_tolerance_k(100.0)) == pytest.approx(0.35, rel=1e-14)
-    assert float(S.RtdSensor().tolerance_k(-100.0)) == pytest.approx(0.35, rel=1e-14)
+    assert float(S.rtd_tolerance_k(100.0)) == pytest.approx(0.35, rel=1e-14, abs=0)
+    assert float(S.RtdSensor().tolerance_k(-100.0)) == pytest.approx(0.35, rel=1e-14, abs=0)
 
 
 def test_rtd_range_keeps_its_rounding_slack():
@@ -57,11 +57,11 @@ def test_ntc_channel_continuous_code_and_code_step_by_hand():
     for t_c in (-25.0, 0.0, 25.0, 45.0):
         t_k = t_c + 273.15
         r = 10_000.0 * exp(3435.0 * (1 / t_k - 1 / 298.15))
-        assert float(ch.continuous_code(t_c)) == pytest.approx(4096 * r / (r + 10_000.0), rel=1e-12)
+        assert float(ch.continuous_code(t_c)) == pytest.approx(4096 * r / (r + 10_000.0), rel=1e-12, abs=0)
         assert int(ch.adc_code(t_c)) == floor(4096 * r / (r + 10_000.0))
         slope = 10_000.0 * (3435.0 * r / t_k ** 2) / (r + 10_000.0) ** 2
         # The module's central difference (0.05 K) is off by at most 3e-7 (relative) here.
-        assert float(ch.temp_per_code_k(t_c)) == pytest.approx(1 / 4096 / slope, rel=1e-6)
+        assert float(ch.temp_per_code_k(t_c)) == pytest.approx(1 / 4096 / slope, rel=1e-6, abs=0)
 
 
 @pytest.mark.parametrize("position", ["low", "high"])
@@ -73,7 +73,7 @@ def test_divider_positions_without_a_solution_are_nan_and_quiet(position):
         warnings.simplefilter("error")
         r = fe.resistance_at([-1.0, 0.0, 1024.0, 4096.0, 6144.0, np.inf])
     assert np.isnan(r[[0, 1, 3, 4, 5]]).all()
-    assert r[2] == pytest.approx(1000.0 / 3 if position == "low" else 3000.0, rel=1e-14)
+    assert r[2] == pytest.approx(1000.0 / 3 if position == "low" else 3000.0, rel=1e-14, abs=0)
 
 
 def test_ntc_channel_reads_sub_ohm_resistances():

@@ -28,7 +28,7 @@ def test_feedback_injection_with_every_part_error_by_kcl():
     expected = _kcl_vout(1.25 * 1.005, 1.01e6, 49e3, 206e3, vdac)
     out = network_output_v(FEEDBACK, 1000, dac_error=0.01, dac_offset_lsb=2.0, resistor_errors=(0.01, -0.02, 0.03),
                            feedback_error=0.005, clip=False)
-    assert float(out) == pytest.approx(expected, rel=1e-13)
+    assert float(out) == pytest.approx(expected, rel=1e-13, abs=0)
     assert float(out) == pytest.approx(30.2812, abs=1e-4)  # the same, worked through once by hand
     # Each error alone moves the output in its own direction (one at a time, the others zero).
     base = _kcl_vout(1.25, 1e6, 50e3, 200e3, 1000 * 2.5 / 4096)
@@ -39,8 +39,8 @@ def test_feedback_injection_with_every_part_error_by_kcl():
                              (dict(resistor_errors=(0.0, 0.0, -0.02)), 1000 * 2.5 / 4096, 1.25, (1e6, 50e3, 196e3)),
                              (dict(feedback_error=-0.01), 1000 * 2.5 / 4096, 1.2375, (1e6, 50e3, 200e3))):
         got = float(network_output_v(FEEDBACK, 1000, clip=False, **kw))
-        assert got == pytest.approx(_kcl_vout(vfb, *r, vdac), rel=1e-13), kw
-        assert got != pytest.approx(base, rel=1e-6), kw
+        assert got == pytest.approx(_kcl_vout(vfb, *r, vdac), rel=1e-13, abs=0), kw
+        assert got != pytest.approx(base, rel=1e-6, abs=0), kw
 
 
 def test_network_output_defaults_and_limits():
@@ -49,16 +49,16 @@ def test_network_output_defaults_and_limits():
     codes = np.array([0, 2048, 4095])
     np.testing.assert_allclose(network_output_v(FEEDBACK, codes), [30.0, 26.25, 21.0], rtol=1e-14)
     np.testing.assert_allclose(network_output_v(FEEDBACK, codes), FEEDBACK.output_v(codes), rtol=1e-14)
-    np.testing.assert_allclose(network_output_v(FEEDBACK, codes, clip=False), [32.5, 26.25, 32.5 - 4095 * 2.5 / 4096 * 5],
-                               rtol=1e-14)
+    unclipped = [32.5, 26.25, 32.5 - 4095 * 2.5 / 4096 * 5]
+    np.testing.assert_allclose(network_output_v(FEEDBACK, codes, clip=False), unclipped, rtol=1e-14)
 
 
 def test_direct_network_with_gain_error_by_hand():
     # Vout = offset + gain (1 + e) Vdac: 5 V + 10 x 1.02 x (1000 + 1) x 4.096/4096 V = 15.2102 V.
     s = BiasSupply(Dac(12, 4.096), "direct", gain_v_per_v=10.0, offset_v=5.0, min_output_v=0.0, max_output_v=60.0)
     out = network_output_v(s, 1000, dac_offset_lsb=1.0, resistor_errors=(0.02, 0.5, 0.5))  # R2, R3 unused
-    assert float(out) == pytest.approx(5.0 + 10.0 * 1.02 * 1001 * 0.001, rel=1e-14)
-    assert float(network_output_v(s, 1000)) == pytest.approx(15.0, rel=1e-14)
+    assert float(out) == pytest.approx(5.0 + 10.0 * 1.02 * 1001 * 0.001, rel=1e-14, abs=0)
+    assert float(network_output_v(s, 1000)) == pytest.approx(15.0, rel=1e-14, abs=0)
 
 
 DARKLESS = Sipm(Breakdown(25.0), 100e-15, 10_000, dark_rate_hz=0.0, pde_max_fraction=0.4,
@@ -101,4 +101,4 @@ def test_output_range_spans_both_end_codes():
     # Unclipped, the feedback network's outputs run from code 4095 (32.5 - 4095 x 2.5/4096 x 5 = 20.0031 V)
     # to code 0 (32.5 V), the highest: a higher code lowers the output.
     wide = BiasSupply(Dac(12, 2.5), "feedback_injection", feedback_v=1.25, r1_ohm=1e6, r2_ohm=50e3, r3_ohm=200e3)
-    assert wide.output_range_v() == pytest.approx((32.5 - 4095 * 2.5 / 4096 * 5, 32.5), rel=1e-14)
+    assert wide.output_range_v() == pytest.approx((32.5 - 4095 * 2.5 / 4096 * 5, 32.5), rel=1e-14, abs=0)
