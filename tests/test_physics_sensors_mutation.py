@@ -81,3 +81,12 @@ def test_ntc_channel_reads_sub_ohm_resistances():
     # divider's midpoint, x = 1/2 (position 2048 of 4096): R = R25, so T = 298.15 K exactly.
     ch = S.TemperatureChannel(S.NtcSensor(0.1, beta_k=3435.0), S.FrontEnd("low", 0.1, 3.3, True, 12, 3.3))
     assert float(ch.temp_at(2048.0)) == pytest.approx(25.0, abs=1e-9)
+
+
+def test_absolute_adc_clips_an_open_sensor_to_full_scale():
+    # Absolute 2.5 V reference, 3.3 V excitation: an open sensor (1e12 ohm, low side) puts almost all of 3.3 V on
+    # the ADC, 4096 x 3.3 / 2.5 = 5406.7 codes: the converter saturates at its full-scale code 4095. A shorted
+    # sensor reads 0; 10 kohm against 10 kohm reads floor(4096 x 1.65 / 2.5) = 2703.
+    fe = S.FrontEnd("low", 10_000.0, 3.3, False, 12, 2.5)
+    assert float(fe.continuous_code(1e12)) == pytest.approx(4096 * 3.3 / 2.5, rel=1e-7, abs=0)
+    assert fe.adc_code([1e12, 0.0, 10_000.0]).tolist() == [4095, 0, 2703]
