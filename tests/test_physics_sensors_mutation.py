@@ -90,3 +90,12 @@ def test_absolute_adc_clips_an_open_sensor_to_full_scale():
     fe = S.FrontEnd("low", 10_000.0, 3.3, False, 12, 2.5)
     assert float(fe.continuous_code(1e12)) == pytest.approx(4096 * 3.3 / 2.5, rel=1e-7, abs=0)
     assert fe.adc_code([1e12, 0.0, 10_000.0]).tolist() == [4095, 0, 2703]
+
+
+def test_rtd_channel_reads_the_ends_of_the_standard_range():
+    # Mid-scale of a low-side divider (x = 1/2) reads R = Rf exactly: with Rf = R(-200 C) or R(850 C) of a Pt100
+    # (IEC 60751 table: 18.5201 and 390.4811 ohm) the channel reads the ends of the range, not NaN.
+    for t_end in (-200.0, 850.0):
+        r_end = float(S.rtd_resistance_ohm(t_end))
+        ch = S.TemperatureChannel(S.RtdSensor(), S.FrontEnd("low", r_end, 3.3, True, 12, 3.3))
+        assert float(ch.temp_at(2048.0)) == pytest.approx(t_end, abs=1e-9)
