@@ -39,25 +39,39 @@ def test_current_channel_by_hand():
     assert cs.current_a([0, 164, 4095]).tolist() == pytest.approx([0.0, 164 * lsb, 4095 * lsb], rel=1e-15, abs=0)
 
 
-@pytest.mark.parametrize("field, value, reason", [
-    ("adc_bits", 0, "must be a whole number from 1 to 24, got 0"),
-    ("adc_bits", 25, "must be a whole number from 1 to 24, got 25"),
-    ("adc_bits", 12.0, "must be a whole number from 1 to 24, got 12.0"),
-    ("reference_v", 0.0, "must be a positive number, got 0.0"),
-    ("reference_v", float("nan"), "must be a positive number, got nan"),
-    ("sense_gain_v_per_a", -1.0, "must be a positive number, got -1.0"),
-    ("sense_gain_v_per_a", float("inf"), "must be a positive number, got inf"),
-    ("reference_tolerance_pct", -0.1, "must be a non-negative number, got -0.1"),
-    ("gain_tolerance_pct", float("nan"), "must be a non-negative number, got nan"),
-    ("offset_a", -1e-9, "must be a non-negative number, got -1e-09"),
-    ("gain_tempco_ppm_per_k", float("inf"), "must be a non-negative number, got inf"),
-    ("offset_drift_a_per_k", -1e-12, "must be a non-negative number, got -1e-12"),
+CURRENT_KW = dict(adc_bits=12, reference_v=2.5, sense_gain_v_per_a=1e4)
+READBACK_KW = dict(adc_bits=12, reference_v=3.3, divider_ratio_v_per_v=0.08)
+
+
+@pytest.mark.parametrize("model, field, value, reason", [
+    (CurrentSense, "adc_bits", 0, "must be a whole number from 1 to 24, got 0"),
+    (CurrentSense, "adc_bits", 25, "must be a whole number from 1 to 24, got 25"),
+    (CurrentSense, "adc_bits", 12.0, "must be a whole number from 1 to 24, got 12.0"),
+    (CurrentSense, "reference_v", 0.0, "must be a positive number, got 0.0"),
+    (CurrentSense, "reference_v", float("nan"), "must be a positive number, got nan"),
+    (CurrentSense, "sense_gain_v_per_a", -1.0, "must be a positive number, got -1.0"),
+    (CurrentSense, "sense_gain_v_per_a", float("inf"), "must be a positive number, got inf"),
+    (CurrentSense, "reference_tolerance_pct", -0.1, "must be a non-negative number, got -0.1"),
+    (CurrentSense, "gain_tolerance_pct", float("nan"), "must be a non-negative number, got nan"),
+    (CurrentSense, "offset_a", -1e-9, "must be a non-negative number, got -1e-09"),
+    (CurrentSense, "gain_tempco_ppm_per_k", float("inf"), "must be a non-negative number, got inf"),
+    (CurrentSense, "offset_drift_a_per_k", -1e-12, "must be a non-negative number, got -1e-12"),
+    (BiasReadback, "adc_bits", 25, "must be a whole number from 1 to 24, got 25"),
+    (BiasReadback, "adc_bits", 8.0, "must be a whole number from 1 to 24, got 8.0"),
+    (BiasReadback, "reference_v", 0.0, "must be a positive number, got 0.0"),
+    (BiasReadback, "reference_v", float("inf"), "must be a positive number, got inf"),
+    (BiasReadback, "divider_ratio_v_per_v", 0.0, "must be above 0 and at most 1, got 0.0"),
+    (BiasReadback, "divider_ratio_v_per_v", float("nan"), "must be above 0 and at most 1, got nan"),
+    (BiasReadback, "reference_tolerance_pct", -0.1, "must be a non-negative number, got -0.1"),
+    (BiasReadback, "divider_tolerance_pct", float("inf"), "must be a non-negative number, got inf"),
+    (BiasReadback, "offset_v", -0.01, "must be a non-negative number, got -0.01"),
+    (BiasReadback, "filter_time_constant_s", -1e-3, "must be a non-negative number, got -0.001"),
 ])
-def test_current_channel_refusals(field, value, reason):
-    kw = dict(adc_bits=12, reference_v=2.5, sense_gain_v_per_a=1e4)
+def test_channel_refusals(model, field, value, reason):
+    kw = dict(CURRENT_KW if model is CurrentSense else READBACK_KW)
     kw[field] = value
     with pytest.raises(ModelError) as info:
-        CurrentSense(**kw)
+        model(**kw)
     assert info.value.key == field and info.value.reason == reason
 
 
@@ -68,26 +82,6 @@ def test_current_channel_edges_are_accepted():
     zero = CurrentSense(adc_bits=12, reference_v=2.5, sense_gain_v_per_a=1e4, reference_tolerance_pct=0.0,
                         gain_tolerance_pct=0.0, offset_a=0.0, gain_tempco_ppm_per_k=0.0, offset_drift_a_per_k=0.0)
     assert zero.gain_tolerance_pct == 0.0
-
-
-@pytest.mark.parametrize("field, value, reason", [
-    ("adc_bits", 25, "must be a whole number from 1 to 24, got 25"),
-    ("adc_bits", 8.0, "must be a whole number from 1 to 24, got 8.0"),
-    ("reference_v", 0.0, "must be a positive number, got 0.0"),
-    ("reference_v", float("inf"), "must be a positive number, got inf"),
-    ("divider_ratio_v_per_v", 0.0, "must be above 0 and at most 1, got 0.0"),
-    ("divider_ratio_v_per_v", float("nan"), "must be above 0 and at most 1, got nan"),
-    ("reference_tolerance_pct", -0.1, "must be a non-negative number, got -0.1"),
-    ("divider_tolerance_pct", float("inf"), "must be a non-negative number, got inf"),
-    ("offset_v", -0.01, "must be a non-negative number, got -0.01"),
-    ("filter_time_constant_s", -1e-3, "must be a non-negative number, got -0.001"),
-])
-def test_readback_refusals(field, value, reason):
-    kw = dict(adc_bits=12, reference_v=3.3, divider_ratio_v_per_v=0.08)
-    kw[field] = value
-    with pytest.raises(ModelError) as info:
-        BiasReadback(**kw)
-    assert info.value.key == field and info.value.reason == reason
 
 
 def test_readback_edges_and_errors_by_hand():
