@@ -190,3 +190,38 @@ def test_monte_carlo_of_quantisation_alone(sipm_a, board_ntc):
     mc = budget.monte_carlo.std_pct_by_temp
     assert np.sqrt(np.mean(mc ** 2) / np.mean(adc ** 2)) == pytest.approx(1.0, abs=0.05)
     assert np.all((mc / adc > 0.6) & (mc / adc < 1.4)), mc / adc
+
+
+def test_monte_carlo_draws_an_inl_of_exactly_one_lsb(sipm_a, board_ntc):
+    # An ADC INL bound of 1 LSB is drawn like any other (rectangular, u = 1 / sqrt(3) LSB against the
+    # quantisation's 0.29 LSB): without it the spread would be 0.44 of the first-order figure. Over the range
+    # (RMS over the temperatures) within 5 %, the sampling error of 2000 samples being 1.6 % at one sigma.
+    board = _converters_only(board_ntc, adc_inl_lsb=1.0, dac_inl_lsb=0.0)
+    bd = sipm_a.device.breakdown
+    sipm = replace(sipm_a, device=replace(sipm_a.device, breakdown=replace(bd, breakdown_err_v=0.0,
+                                                                          tempco_err_mv_per_k=0.0)))
+    law = build_law(sipm, board, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
+    assert budget.term("adc_inl").limit_pct == pytest.approx(2.0 * budget.term("adc_quantisation").limit_pct, rel=1e-9)
+    rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in budget.terms if t.kind == "random"))
+    mc = budget.monte_carlo.std_pct_by_temp
+    assert np.sqrt(np.mean(mc ** 2) / np.mean(rss ** 2)) == pytest.approx(1.0, abs=0.05)
+
+
+def test_monte_carlo_percentiles_of_a_normal_source(sipm_a, board_ntc):
+    # Only the tempco calibration error (normal, 0.3 mV/K one sigma) is left beside the small quantisation: at
+    # every temperature the error is normal, so the 99th percentile of |x| is 2.576 sigma
+    # (scipy.stats.norm.ppf(0.995)) at the temperature of the largest spread, before and after calibration. The
+    # sampling error of that percentile at 2000 samples is about 0.08 sigma: allowed 0.25 (three of them). Pooling
+    # all temperatures into one percentile would give about 1.75 sigma.
+    board = _converters_only(board_ntc, adc_inl_lsb=0.0, dac_inl_lsb=0.0)
+    bd = sipm_a.device.breakdown
+    sipm = replace(sipm_a, device=replace(sipm_a.device, breakdown=replace(bd, breakdown_err_v=0.0)))
+    law = build_law(sipm, board, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
+    mc = budget.monte_carlo
+    assert mc.p99_abs_pct / mc.std_pct == pytest.approx(2.576, abs=0.25)
+    assert mc.calibrated_p99_abs_pct / mc.calibrated_std_pct == pytest.approx(2.576, abs=0.25)
+    # The spread itself against first order: 0.3 mV/K x 50 K / 3 V = 0.5 % at -25 C (hand), sampling error 1.6 %.
+    assert budget.rss_pct == pytest.approx(0.5, rel=0.01)
+    assert mc.std_pct / budget.rss_pct == pytest.approx(1.0, abs=0.05)
