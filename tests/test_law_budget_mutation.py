@@ -1,0 +1,105 @@
+"""Gain-error budget: what each term says about itself, the default calibration point, the options' refusals.
+
+Pinned where mutation testing (tools/mutation.md) found these facts unchecked. The budgets here are
+first-order only, on a 5 K grid, so that they build in a fraction of a second.
+"""
+
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from compensator.errors import ModelError
+from compensator.law import build_law, gain_error_budget
+from compensator.law.budget import _check_options
+
+CODE_TO_CODE = "changes from code to code: not removed by calibration"
+
+
+def _notes(budget):
+    return {t.key: (t.kind, t.note) for t in budget.terms}
+
+
+def test_notes_on_the_ntc_board_without_drop_correction(sipm_a, board_ntc):
+    # hut-board-ntc: NTC with R25 and Beta both +-1 %, ratiometric ADC; sensor lag 0.5 K/min x (5 s + 20 s)
+    # / 60 = 0.208 K (hand); no drop correction, so the whole drop is a systematic term.
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
+    notes = _notes(gain_error_budget(law, board_ntc, samples=0, step_k=5.0))
+    assert notes["sensor_tolerance"] == ("random", "R25 +-1 %, Beta +-1 %")
+    assert notes["sensor_to_die"] == ("random", "constant temperature offset: mostly removed by calibration")
+    assert notes["sensor_lag"] == ("random", "+-0.208 K at 0.5 K/min; not removed by calibration")
+    assert notes["adc_reference"] == ("random", "cancels: the ADC is ratiometric")
+    for key in ("adc_quantisation", "adc_inl", "dac_quantisation", "dac_inl"):
+        assert notes[key] == ("random", CODE_TO_CODE), key
+    assert notes["supply_network_drift"] == ("random", "drift from the calibration temperature is left")
+    assert notes["breakdown_calibration"] == ("random", "constant voltage offset: removed by calibration")
+    assert notes["series_resistor_drop"] == ("systematic", "not corrected: the whole drop")
+    assert notes["law_residual"] == ("systematic", "what the ideal law leaves")
+    for key in ("self_heating", "divider_resistor", "dac_reference", "tempco_calibration", "regulator_reference"):
+        assert notes[key] == ("random", ""), key
+
+
+def test_notes_on_the_rtd_board_with_the_modelled_drop(sipm_b, board_pt1000):
+    # hut-board-pt1000: IEC 60751 class A, absolute ADC reference (no note); lag 0.5 x (3 + 15) / 60 = 0.15 K.
+    # The constant-overvoltage law leaves hut-sipm-b's 150 ppm/K capacitance coefficient.
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_overvoltage")
+    notes = _notes(gain_error_budget(law, board_pt1000, samples=0, step_k=5.0, current_uncertainty_pct=25.0))
+    assert notes["sensor_tolerance"] == ("random", "IEC 60751 class A")
+    assert notes["sensor_lag"] == ("random", "+-0.15 K at 0.5 K/min; not removed by calibration")
+    assert notes["adc_reference"] == ("random", "")
+    assert notes["series_resistor_drop"] == ("random", "corrected; modelled current good to +-25 %")
+    assert notes["law_residual"] == ("systematic", "uncompensated cell-capacitance coefficient")
+
+
+def test_note_of_a_breakdown_moved_between_definitions(sipm_a, board_ntc):
+    bd = replace(sipm_a.device.breakdown, definition="iv_second_derivative", definition_offset_v=-0.12,
+                 definition_offset_err_v=0.02)
+    law = build_law(replace(sipm_a, device=replace(sipm_a.device, breakdown=bd)), board_ntc, 3.0,
+                    drop_correction="none")
+    notes = _notes(gain_error_budget(law, board_ntc, samples=0, step_k=5.0, ramp_k_per_min=0.0))
+    assert notes["breakdown_definition"] == ("random", "-120.0 mV added to reach the gain-intercept breakdown")
+    assert "sensor_lag" not in notes  # no ramp, no lag term
+
+
+def test_default_calibration_point_is_the_reference_within_the_range(sipm_a, board_ntc):
+    # The breakdown reference is 25 C; a range that ends below it calibrates at its top, one that starts above it
+    # at its bottom.
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    assert _check_options(law, None, 0, 30.0, 0.5, 1.0) == 25.0
+    assert _check_options(replace(law, max_temp_c=20.0), None, 0, 30.0, 0.5, 1.0) == 20.0
+    assert _check_options(replace(law, min_temp_c=30.0), None, 0, 30.0, 0.5, 1.0) == 30.0
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0, calibration_temp_c=-25)
+    assert budget.calibration_temp_c == -25.0 and isinstance(budget.calibration_temp_c, float)
+    # After a calibration at -25 C the breakdown-calibration error is gone there.
+    assert budget.term("breakdown_calibration").calibrated_std_pct_by_temp[0] < 1e-9
+
+
+def test_options_at_their_limits_are_accepted(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    assert _check_options(law, 45.0, 1_000_000, 100.0, 60.0, 70.0 / 10_000) == 45.0
+    assert _check_options(law, -25.0, np.int64(0), 0.0, 0.0, 70.0) == -25.0
+
+
+@pytest.mark.parametrize("option, value, reason", [
+    ("calibration_temp_c", 45.5, "45.5 C is outside the operating range -25 to 45 C"),
+    ("calibration_temp_c", -25.5, "-25.5 C is outside the operating range -25 to 45 C"),
+    ("samples", 1_000_001, "must be a whole number from 0 to 1000000, got 1000001"),
+    ("samples", -1, "must be a whole number from 0 to 1000000, got -1"),
+    ("samples", 10.0, "must be a whole number from 0 to 1000000, got 10.0"),
+    ("current_uncertainty_pct", 100.5, "must be within 0 to 100, got 100.5"),
+    ("current_uncertainty_pct", -0.5, "must be within 0 to 100, got -0.5"),
+    ("current_uncertainty_pct", float("inf"), "must be within 0 to 100, got inf"),
+    ("ramp_k_per_min", 60.5, "must be within 0 to 60, got 60.5"),
+    ("ramp_k_per_min", -0.5, "must be within 0 to 60, got -0.5"),
+    ("ramp_k_per_min", float("nan"), "must be within 0 to 60, got nan"),
+    ("step_k", 0.0, "must be positive and leave at most 10000 steps over the range, got 0.0"),
+    ("step_k", -1.0, "must be positive and leave at most 10000 steps over the range, got -1.0"),
+    ("step_k", float("nan"), "must be positive and leave at most 10000 steps over the range, got nan"),
+    ("step_k", 0.00699, "must be positive and leave at most 10000 steps over the range, got 0.00699"),
+])
+def test_options_out_of_range_are_refused_in_full(sipm_a, board_ntc, option, value, reason):
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    with pytest.raises(ModelError) as info:
+        gain_error_budget(law, board_ntc, **{"samples": 0, option: value})
+    assert info.value.key == option
+    assert info.value.reason == reason
