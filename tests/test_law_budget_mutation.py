@@ -103,3 +103,32 @@ def test_options_out_of_range_are_refused_in_full(sipm_a, board_ntc, option, val
         gain_error_budget(law, board_ntc, **{"samples": 0, option: value})
     assert info.value.key == option
     assert info.value.reason == reason
+
+
+def test_modelled_drop_term_is_the_current_uncertainty_times_the_drop(sipm_a, board_ntc):
+    # With the modelled correction what is left is the current model's error, rectangular within +-30 %: the
+    # limit is 0.3 times the whole drop of the uncorrected law (-100 R I / Vov, checked by hand in test_law_budget),
+    # to within the drop's own feedback through R dI/dV (2e-4 of it at 45 C); u = limit / sqrt(3).
+    none = gain_error_budget(build_law(sipm_a, board_ntc, 3.0, drop_correction="none"), board_ntc, samples=0,
+                             step_k=5.0).term("series_resistor_drop")
+    modelled = gain_error_budget(build_law(sipm_a, board_ntc, 3.0), board_ntc, samples=0, step_k=5.0,
+                                 current_uncertainty_pct=30.0).term("series_resistor_drop")
+    assert none.signed_pct_by_temp[-1] < -1.0  # over 1 % of gain at 45 C
+    assert modelled.limit_pct_by_temp == pytest.approx(0.3 * np.abs(none.signed_pct_by_temp), rel=1e-3)
+    assert modelled.std_pct == pytest.approx(modelled.limit_pct / np.sqrt(3), rel=1e-12)
+
+
+@pytest.mark.parametrize("drop_correction", ["modelled", "measured"])
+def test_drop_terms_follow_the_series_resistor(sipm_a, board_ntc, drop_correction):
+    # No series resistor, no drop and no drop term; a 1 ohm resistor has one (however small), and the measured
+    # correction adds the current channel's drift; every other source stays.
+    terms = {}
+    for r_ohm in (0.0, 1.0):
+        board = replace(board_ntc, supply=replace(board_ntc.supply, series_resistor_ohm=r_ohm))
+        budget = gain_error_budget(build_law(sipm_a, board, 3.0, drop_correction=drop_correction), board,
+                                   samples=0, step_k=5.0)
+        terms[r_ohm] = [t.key for t in budget.terms]
+    drop_keys = ["series_resistor_drop"] + (["current_sense_drift"] if drop_correction == "measured" else [])
+    assert [k for k in terms[1.0] if k not in drop_keys] == terms[0.0]
+    assert set(terms[1.0]) - set(terms[0.0]) == set(drop_keys)
+    assert terms[0.0][:3] == ["sensor_tolerance", "self_heating", "sensor_to_die"] and len(terms[0.0]) == 24
