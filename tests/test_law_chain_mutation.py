@@ -13,7 +13,7 @@ import pytest
 
 from compensator.constants import ZERO_C_IN_K
 from compensator.law import build_law
-from compensator.law.error_chain import chain_gain_error_pct
+from compensator.law.error_chain import chain_gain_error_pct, gain_error_at_light_pct
 
 T25_K = 25.0 + ZERO_C_IN_K
 
@@ -119,3 +119,32 @@ def test_reading_and_converter_directions_on_the_rtd_board(rtd_law):
     for key, dev in (("reference_resistor", 1e-3), ("adc_reference_drift", 20.0),
                      ("reference_resistor_drift", 20.0)):
         assert _err(rtd_law, {key: dev}, 45.0) < -1e-4, key
+
+
+def test_drop_correction_errors_by_hand(sipm_a, board_ntc):
+    # hut-board-ntc: 10 kohm series resistor; the modelled law's drop at 45 C is R I at the target bias (about
+    # 34 mV, 1.136 % of the 3 V). With the measured correction a current channel reading 1 % high over-corrects
+    # by 1 % of it, an ADC reference 1 % high reads 1/1.01 of it, a sense-gain drift of 100 ppm/K with the
+    # electronics 30 K from their reference adds 0.3 %; an input offset of 1 nA adds R x 1 nA = 10 uV exactly,
+    # an offset drift of 0.1 nA/K 3 nA. With the modelled correction a current 1 % above the model leaves 1 %
+    # of the drop. Within the drop's own feedback through R dI/dV (3e-4 of these), no quantisation.
+    drop_pct = 100.0 * float(build_law(sipm_a, board_ntc, 3.0).drop_v(45.0)) / 3.0
+    assert drop_pct == pytest.approx(1.136, abs=1e-3)
+    measured = build_law(sipm_a, board_ntc, 3.0, drop_correction="measured")
+
+    def err(law, deviations):
+        return float(gain_error_at_light_pct(law, board_ntc, 0.0, 45.0, deviations=deviations, quantise=False))
+
+    assert err(measured, {}) == pytest.approx(0.0, abs=1e-9)
+    assert err(measured, {"isense_gain": 0.01}) == pytest.approx(0.01 * drop_pct, rel=1e-3)
+    assert err(measured, {"isense_reference": 0.01}) == pytest.approx(-0.01 / 1.01 * drop_pct, rel=1e-3)
+    assert err(measured, {"isense_gain_drift": 100.0}) == pytest.approx(0.003 * drop_pct, rel=1e-3)
+    assert err(measured, {"isense_offset_a": 1e-9}) == pytest.approx(100.0 * 1e4 * 1e-9 / 3.0, rel=1e-6)
+    assert err(measured, {"isense_offset_drift": 1e-10}) == pytest.approx(100.0 * 1e4 * 3e-9 / 3.0, rel=1e-6)
+    modelled = build_law(sipm_a, board_ntc, 3.0)
+    assert err(modelled, {}) == pytest.approx(0.0, abs=1e-6)
+    # The lower bias lowers the current in turn (R dI/dV, 3 %), as it does for the uncorrected law's whole drop
+    # (checked against the supply's operating point in test_law_budget): 1 % of that, to 6e-4.
+    whole = err(build_law(sipm_a, board_ntc, 3.0, drop_correction="none"), {})
+    assert whole == pytest.approx(-1.103, abs=1e-3)
+    assert err(modelled, {"current": 0.01}) == pytest.approx(0.01 * whole, rel=2e-3)
