@@ -83,15 +83,16 @@ def test_dac_reference_drift_by_hand(sipm_b, board_pt1000):
 
 
 def test_direct_supply_gain_drift_by_hand(sipm_b, board_pt1000):
-    # Direct supply Vout = 30 V + 14 Vdac, its gain a ratio of two resistors that track to 2 ppm/K: each departs
-    # from the other by up to half of that, so the ratio by up to 2 x 1 ppm/K and the output by
-    # (Vout - 30 V) 2e-6 dT; dT = 50 K at -25 C, and C(-25 C)/C(25 C) = 0.9925 as above (hand calculation).
-    board = replace(board_pt1000, supply=replace(board_pt1000.supply, series_resistor_ohm=0.0))
+    # Direct supply Vout = 30 V + 14 Vdac, its gain a ratio of two resistors, here tracking to 4 ppm/K: each departs
+    # from the other by up to half of that, so the ratio by up to 2 x 2 ppm/K and the output by
+    # (Vout - 30 V) 4e-6 dT; dT = 50 K at -25 C, and C(-25 C)/C(25 C) = 0.9925 as above (hand calculation).
+    board = replace(board_pt1000, supply=replace(board_pt1000.supply, series_resistor_ohm=0.0,
+                                                 resistor_tracking_ppm_per_k=4.0))
     law = build_law(sipm_b, board, 4.0, kind="constant_overvoltage", drop_correction="none")
     budget = gain_error_budget(law, board, samples=0, step_k=5.0)
     v_out = float(law.output_v(-25.0))
     assert budget.term("supply_network_drift").limit_pct_by_temp[_at(budget, -25.0)] == pytest.approx(
-        (v_out - 30.0) * 2e-6 * 50.0 / 4.0 * 100.0 * (1 - 150e-6 * 50.0), rel=1e-4)
+        (v_out - 30.0) * 4e-6 * 50.0 / 4.0 * 100.0 * (1 - 150e-6 * 50.0), rel=1e-4)
 
 
 def test_static_converter_errors_by_hand(sipm_b, board_pt1000):
