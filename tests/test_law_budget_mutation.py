@@ -132,3 +132,28 @@ def test_drop_terms_follow_the_series_resistor(sipm_a, board_ntc, drop_correctio
     assert [k for k in terms[1.0] if k not in drop_keys] == terms[0.0]
     assert set(terms[1.0]) - set(terms[0.0]) == set(drop_keys)
     assert terms[0.0][:3] == ["sensor_tolerance", "self_heating", "sensor_to_die"] and len(terms[0.0]) == 24
+
+
+def test_current_sense_drift_by_hand(sipm_a, board_ntc):
+    # hut-board-ntc's current channel: sense gain 25 ppm/K, input offset 0.2 nA/K; at 45 C the electronics are
+    # 30 K from their reference. The gain drift moves the correction by 7.5e-4 of the drop (R I = 1.136 % of the
+    # 3 V at 45 C, test_law_chain_mutation), the offset drift by 10 kohm x 6 nA = 60 uV, 0.002 %; both
+    # rectangular, the limits add, the one-sigma values in quadrature (hand calculation; within the drop's own
+    # feedback, 3e-4 of it).
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="measured")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    term = budget.term("current_sense_drift")
+    gain_part, offset_part = 7.5e-4 * 1.1361, 100.0 * 1e4 * 6e-9 / 3.0
+    assert term.limit_pct_by_temp[-1] == pytest.approx(gain_part + offset_part, rel=1e-3)
+    assert term.std_pct_by_temp[-1] == pytest.approx(np.hypot(gain_part, offset_part) / np.sqrt(3), rel=1e-3)
+
+
+def test_no_light_yield_term_without_its_uncertainty(sipm_a, board_ntc):
+    crystal = replace(sipm_a.scintillator, light_yield_tempco_err_pct_per_k=0.0)
+    law = build_law(replace(sipm_a, scintillator=crystal), board_ntc, 3.0, kind="constant_response",
+                    drop_correction="none")
+    keys = [t.key for t in gain_error_budget(law, board_ntc, samples=0, step_k=5.0).terms]
+    assert "light_yield_tempco" not in keys and "tempco_calibration" in keys
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_response", drop_correction="none")
+    term = gain_error_budget(law, board_ntc, samples=0, step_k=5.0).term("light_yield_tempco")
+    assert term.limit_pct == pytest.approx(3.0 * term.std_pct, rel=1e-12)  # normal, limit 3 sigma
