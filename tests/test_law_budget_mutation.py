@@ -157,3 +157,20 @@ def test_no_light_yield_term_without_its_uncertainty(sipm_a, board_ntc):
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_response", drop_correction="none")
     term = gain_error_budget(law, board_ntc, samples=0, step_k=5.0).term("light_yield_tempco")
     assert term.limit_pct == pytest.approx(3.0 * term.std_pct, rel=1e-12)  # normal, limit 3 sigma
+
+
+def test_light_yield_term_by_hand(sipm_a, board_ntc):
+    # hut-sipm-a's crystal: light yield 1 - 0.25 %/K dT - 0.002 %/K^2 dT^2 from 25 C, its coefficient known to
+    # 0.03 %/K (1 sigma). At -25 C that is 0.03 x 50 = 1.5 % of the 25 C yield on a yield of 1.075 of it:
+    # 1.3953 % of the response (hand calculation).
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_response", drop_correction="none")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    assert budget.term("light_yield_tempco").std_pct_by_temp[0] == pytest.approx(1.5 / 1.075, rel=1e-3)
+
+
+def test_no_current_sense_drift_term_without_drifts(sipm_a, board_ntc):
+    sense = replace(board_ntc.current_sense, gain_tempco_ppm_per_k=0.0, offset_drift_a_per_k=0.0)
+    board = replace(board_ntc, current_sense=sense)
+    law = build_law(sipm_a, board, 3.0, drop_correction="measured")
+    keys = [t.key for t in gain_error_budget(law, board, samples=0, step_k=5.0).terms]
+    assert "current_sense_drift" not in keys and "series_resistor_drop" in keys

@@ -148,3 +148,33 @@ def test_drop_correction_errors_by_hand(sipm_a, board_ntc):
     whole = err(build_law(sipm_a, board_ntc, 3.0, drop_correction="none"), {})
     assert whole == pytest.approx(-1.103, abs=1e-3)
     assert err(modelled, {"current": 0.01}) == pytest.approx(0.01 * whole, rel=2e-3)
+
+
+def test_sensor_in_the_high_position_reads_the_same_ratio(sipm_a, board_ntc):
+    # With the NTC on the high side of the divider the ADC reads Rref / (R + Rref): the nominal chain still reads
+    # the die exactly, and a reference resistor 1 % high still reads R / 1.01 (the divider depends on R / Rref
+    # alone), so the same 0.185 % at 25 C as in the low position (hand formula above).
+    fe = replace(board_ntc.temperature.front_end, sensor_position="high")
+    board = replace(_no_resistor(board_ntc), temperature=replace(board_ntc.temperature, front_end=fe))
+    law = build_law(sipm_a, board, 3.0, kind="constant_gain", drop_correction="none")
+    assert _err((law, board), {}, 45.0) == 0.0
+    assert float(chain_gain_error_pct(law, board, {}, np.array([25.0, 45.0]), False).max()) == pytest.approx(0.0,
+                                                                                                          abs=1e-9)
+    t_k = 25.0 + ZERO_C_IN_K
+    warmer = 1.0 / (1.0 / t_k - np.log(1.01) / 3435.0) - t_k
+    assert _err((law, board), {"reference_resistor": 0.01}, 25.0) == pytest.approx(warmer * 100 * 0.0215 / 3.0,
+                                                                                  rel=1e-4)
+
+
+def test_measured_correction_through_the_integer_path(sipm_a, board_ntc):
+    # Quantised: the firmware reads the current once at the operating point and adds floor(per_code x code + 0.5)
+    # DAC codes. Over 701 temperatures the rounding errors average out (mean within 0.001 %; one DAC code is
+    # 0.15 mV, 0.005 % of gain), and a sense gain 10 % high over-corrects by 10 % of the drop, here averaged over
+    # 40 to 45 C against the modelled law's drop R I (a current code is 40 nA x 10 kohm = 0.4 mV, 0.013 %).
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="measured")
+    temps_c = np.linspace(-25.0, 45.0, 701)
+    assert abs(float(np.mean(gain_error_at_light_pct(law, board_ntc, 0.0, temps_c)))) < 1e-3
+    hot = temps_c[temps_c >= 40.0]
+    over = gain_error_at_light_pct(law, board_ntc, 0.0, hot, deviations={"isense_gain": 0.1})
+    drop_pct = 100.0 * build_law(sipm_a, board_ntc, 3.0).drop_v(hot) / 3.0
+    assert float(np.mean(over)) == pytest.approx(float(np.mean(0.1 * drop_pct)), abs=3e-3)
