@@ -178,3 +178,30 @@ def test_measured_correction_through_the_integer_path(sipm_a, board_ntc):
     over = gain_error_at_light_pct(law, board_ntc, 0.0, hot, deviations={"isense_gain": 0.1})
     drop_pct = 100.0 * build_law(sipm_a, board_ntc, 3.0).drop_v(hot) / 3.0
     assert float(np.mean(over)) == pytest.approx(float(np.mean(0.1 * drop_pct)), abs=3e-3)
+
+
+def test_steinhart_hart_ntc_beta_error_by_hand(sipm_a, board_ntc):
+    # A Steinhart-Hart NTC (1/T = a + b x + c x^3, x = ln R; the common 10 kohm coefficients) has no Beta of its
+    # own: its Beta tolerance acts through the local Beta at 25 C, B = 1 / (b + 3 c x25^2) (implicit
+    # differentiation). A Beta 1 % high at 45 C: x' = x + 0.01 B (1/T - 1/T25), read back through the same
+    # formula (hand algebra; R at 45 C from the formula by scipy's brentq).
+    from scipy.optimize import brentq
+
+    from compensator.physics.sensors import NtcSensor, SteinhartHart
+
+    a, b, c = 1.129148e-3, 2.34125e-4, 8.76741e-8
+    sensor = replace(board_ntc.temperature.sensor, beta_k=None, steinhart_hart=SteinhartHart(a, b, c))
+    assert isinstance(sensor, NtcSensor)
+    board = replace(_no_resistor(board_ntc), temperature=replace(board_ntc.temperature, sensor=sensor))
+    law = build_law(sipm_a, board, 3.0, kind="constant_gain", drop_correction="none")
+
+    def ln_r(t_k):
+        return brentq(lambda x: a + b * x + c * x ** 3 - 1.0 / t_k, 0.0, 20.0, xtol=1e-14)
+
+    beta_25 = 1.0 / (b + 3.0 * c * ln_r(T25_K) ** 2)
+    t_k = 45.0 + ZERO_C_IN_K
+    x = ln_r(t_k) + 0.01 * beta_25 * (1.0 / t_k - 1.0 / T25_K)
+    read_k = 1.0 / (a + b * x + c * x ** 3)
+    assert float(chain_gain_error_pct(law, board, {}, 45.0, False)) == pytest.approx(0.0, abs=1e-9)
+    assert _err((law, board), {"ntc_beta": 0.01}, 45.0) == pytest.approx((read_k - t_k) * 100 * 0.0215 / 3.0,
+                                                                         rel=1e-5)
