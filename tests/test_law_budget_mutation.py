@@ -24,7 +24,9 @@ def test_notes_on_the_ntc_board_without_drop_correction(sipm_a, board_ntc):
     # hut-board-ntc: NTC with R25 and Beta both +-1 %, ratiometric ADC; sensor lag 0.5 K/min x (5 s + 20 s)
     # / 60 = 0.208 K (hand); no drop correction, so the whole drop is a systematic term.
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
-    notes = _notes(gain_error_budget(law, board_ntc, samples=0, step_k=5.0))
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    assert np.array_equal(budget.temp_c, np.arange(-25.0, 46.0, 5.0))  # the grid: 15 points 5 K apart
+    notes = _notes(budget)
     assert notes["sensor_tolerance"] == ("random", "R25 +-1 %, Beta +-1 %")
     assert notes["sensor_to_die"] == ("random", "constant temperature offset: mostly removed by calibration")
     assert notes["sensor_lag"] == ("random", "+-0.208 K at 0.5 K/min; not removed by calibration")
