@@ -176,3 +176,20 @@ def test_no_current_sense_drift_term_without_drifts(sipm_a, board_ntc):
     law = build_law(sipm_a, board, 3.0, drop_correction="measured")
     keys = [t.key for t in gain_error_budget(law, board, samples=0, step_k=5.0).terms]
     assert "current_sense_drift" not in keys and "series_resistor_drop" in keys
+
+
+def test_every_term_by_temperature_and_the_quantisation_after_calibration(sipm_a, board_ntc):
+    # Every per-temperature array of every term is on the budget's grid. Quantisation is not removed by a
+    # calibration: the calibration sees its own, so after it the bound is the bound at T plus the bound at the
+    # calibration point (25 C), times C(T)/C(25 C) = 1 for hut-sipm-a (no capacitance coefficient).
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    for term in budget.terms:
+        for name in ("limit_pct_by_temp", "std_pct_by_temp", "signed_pct_by_temp", "calibrated_limit_pct_by_temp",
+                     "calibrated_std_pct_by_temp", "calibrated_signed_pct_by_temp"):
+            assert np.shape(getattr(term, name)) == budget.temp_c.shape, (term.key, name)
+    i25 = int(np.flatnonzero(budget.temp_c == 25.0)[0])
+    for key in ("adc_quantisation", "dac_quantisation", "adc_inl", "dac_inl"):
+        term = budget.term(key)
+        assert term.calibrated_limit_pct_by_temp == pytest.approx(
+            term.limit_pct_by_temp + term.limit_pct_by_temp[i25], rel=1e-12), key
