@@ -209,6 +209,19 @@ def test_curves_on_each_refusal_boundary():
     r = iv.find_breakdown(GRID_V, np.exp(ln_i), joint_fit=False)
     assert r.reason == tuple(rows.values())
     assert r.window_points.tolist() == [5] * len(rows)
+    # Leakage that stops growing (as in _curves_for_the_window_rules) while the line through ln I below the knee
+    # does not: where that line exceeds 80 % of the current everywhere above the knee no point is left for the
+    # fit; where it bends 1/D down above the knee the fit falls. Analysed beside a plain curve.
+    from compensator.calibration.synthetic import iv_current_a
+
+    power = iv_current_a(GRID_V, 24.5, geiger_scale_v=1.0, leakage_a=1e-30)
+    leaks = [level * np.exp(b * (GRID_V - 20.0)) / (1.0 + np.exp(b * (GRID_V - stop)))
+             for level, b, stop in ((3e-10, 2.0, 23.0), (1e-9, 2.5, 22.0))]
+    r = iv.find_breakdown(GRID_V, np.vstack([power + leaks[0], power + leaks[1], iv_current_a(GRID_V, 24.5)]),
+                          joint_fit=False)
+    assert r.reason == ("no breakdown in range: too few points above the knee at 25.05 V for the fit (0; need 4) "
+                        "before the end of the sweep at 31 V",
+                        "no breakdown in range: 1/(d ln I/dV) does not rise above the knee", "")
     # The knee must stand 5 sigma above the noise of the smoothed derivative: the same seeded noise of 0.3 in
     # ln I on a weak knee (0.345 and 0.37 per volt above a base of 0.3 per volt) asks for the widest window,
     # 55 points, where the peak is 4.93 and 5.11 times sigma_d = noise ||savgol_coeffs(55, 3, deriv=1)|| / dV
