@@ -240,3 +240,24 @@ def test_curves_on_each_refusal_boundary():
         assert 27 + np.argmax(deriv[27:194]) == 111
         ratios.append(deriv[111] / sigma_d)
     assert 4.85 < ratios[0] < 5.0 < ratios[1] < 5.15
+
+
+@pytest.mark.parametrize("method", iv.METHODS)
+def test_rows_on_their_own_grids_give_what_each_gives_alone(method):
+    # A batch of curves each on its own bias row (two of one step, one shifted by 13 mV, one of another step,
+    # which is analysed in its own group) gives for every curve what the curve gives alone, for each method
+    # with the derivative method alone (joint_fit=False).
+    from compensator.calibration.synthetic import simulate_iv
+
+    rng = np.random.default_rng(5)
+    grids = [GRID_V, GRID_V + 0.013, np.round(np.arange(20.0, 31.0001, 0.04), 4)[:GRID_V.size], GRID_V]
+    truth = [24.4, 24.6, 24.5, 24.9]
+    current = np.vstack([simulate_iv(rng, g, [t], relative_noise=0.005, geiger_scale_v=1.0)[0]
+                         for g, t in zip(grids, truth)])
+    batch = iv.find_breakdown(np.vstack(grids), current, method, joint_fit=False)
+    assert batch.ok.all()
+    for i, g in enumerate(grids):
+        alone = iv.find_breakdown(g, current[i], method, joint_fit=False)
+        for name in ("breakdown_v", "breakdown_err_v", "fit_lo_v", "fit_hi_v", "leakage_current_a"):
+            assert getattr(batch, name)[i] == pytest.approx(getattr(alone, name)[0], rel=1e-12, abs=1e-15), name
+        assert batch.window_points[i] == alone.window_points[0]
