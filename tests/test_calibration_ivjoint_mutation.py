@@ -68,19 +68,23 @@ def test_joint_fit_errors_against_scipy_least_squares():
     assert np.all(fit.breakdown_sys_err_v > 0.01)  # the bend is resolved: 15 to 16 mV against 1.1 mV
 
 
-def test_joint_fit_acceptance_bounds():
+def test_joint_fit_acceptance_bounds_and_fit_range():
     # A fit is kept only within 0.25 V of its start value and with an exponent between 0.3 and 10: curves of the
     # model itself (iv_current_a, with a seeded 1e-4 noise in ln I so that the residual variance is not zero)
     # started 0.24 V and 0.26 V from their breakdown, and with exponents 0.32 and 0.28, each fitted back to
-    # within a millivolt where kept.
+    # within a millivolt where kept. A fifth curve, breakdown 21 V, has its window cut by the start of the
+    # sweep (20 V to 23 V, 61 points, padded to the others' 101): its fit range ends at 23 V, not at the last
+    # padded point.
     rng = np.random.default_rng(0)
-    cases = [(0.24, 2.0), (-0.26, 2.0), (0.02, 0.32), (0.02, 0.28)]
-    ln_i = np.array([np.log(iv_current_a(GRID_V, 24.5, exponent=k, leakage_a=1e-10, leakage_slope_per_v=0.4))
-                     for _, k in cases]) + 1e-4 * rng.standard_normal((len(cases), GRID_V.size))
-    start = 24.5 + np.array([off for off, _ in cases])
-    fit = fit_joint(np.broadcast_to(GRID_V, ln_i.shape), ln_i, start, exponent=np.array([k for _, k in cases]),
+    cases = [(24.5, 0.24, 2.0), (24.5, -0.26, 2.0), (24.5, 0.02, 0.32), (24.5, 0.02, 0.28), (21.0, 0.0, 2.0)]
+    ln_i = np.array([np.log(iv_current_a(GRID_V, vbd, exponent=k, leakage_a=1e-10, leakage_slope_per_v=0.4))
+                     for vbd, _, k in cases]) + 1e-4 * rng.standard_normal((len(cases), GRID_V.size))
+    start = np.array([vbd + off for vbd, off, _ in cases])
+    fit = fit_joint(np.broadcast_to(GRID_V, ln_i.shape), ln_i, start, exponent=np.array([k for *_, k in cases]),
                     leakage_current_a=np.full(len(cases), 1e-10), leakage_slope_per_v=np.full(len(cases), 0.4))
-    assert fit.ok.tolist() == [True, False, True, False]
-    assert fit.breakdown_v[[0, 2]] == pytest.approx([24.5, 24.5], abs=1e-3)
+    assert fit.ok.tolist() == [True, False, True, False, True]
+    assert fit.breakdown_v[[0, 2, 4]] == pytest.approx([24.5, 24.5, 21.0], abs=1e-3)
     assert fit.exponent[2] == pytest.approx(0.32, abs=0.01)
     assert np.isnan(fit.breakdown_v[[1, 3]]).all() and np.isnan(fit.exponent[[1, 3]]).all()
+    assert (fit.fit_lo_v[4], fit.fit_hi_v[4]) == (20.0, 23.0)
+    assert (fit.fit_lo_v[0], fit.fit_hi_v[0]) == pytest.approx((21.75, 26.7))
