@@ -79,3 +79,27 @@ def test_second_derivative_window_and_peak_follow_the_documented_rule_with_scipy
     soft_row, late_row = len(rows), len(rows) + 1
     assert res.reason[soft_row] == "" and 0.0 < seen["top"][soft_row] < 1.0
     assert seen["p"][late_row] == GRID_V.size - seen["half"][late_row] - 1
+
+
+def test_log_derivative_peak_weights_and_correlation_factor(monkeypatch):
+    # The log-derivative-peak method fits its parabola to the smoothed d ln I/dV of the knee's window and scales
+    # the vertex error by sqrt(window / 2) for the correlation of neighbouring smoothed points, as the second
+    # derivative does (calibration.iv's docstring); a noisy curve gets a wider window than a quiet one.
+    import compensator.calibration.iv as iv_module
+
+    seen = {}
+    real_fit = iv_module._fit_peak
+
+    def spy_fit(grid, values, p, half, sigma, corr, out):
+        seen.update(half=half.copy(), sigma=sigma.copy(), corr=corr.copy())
+        return real_fit(grid, values, p, half, sigma, corr, out)
+
+    monkeypatch.setattr(iv_module, "_fit_peak", spy_fit)
+    rng = np.random.default_rng(9)
+    current = simulate_iv(rng, GRID_V, np.array([24.2, 24.8]), relative_noise=np.array([[0.005], [0.2]]),
+                          geiger_scale_v=1.0)
+    r = iv_module.find_breakdown(GRID_V, current, "log-derivative-peak")
+    windows = 2 * seen["half"] + 1
+    assert windows.tolist() == r.window_points.tolist() and windows[1] > windows[0]
+    for i, w in enumerate(windows):
+        assert seen["corr"][i] == pytest.approx(np.sqrt(w / 2.0), rel=1e-12)
