@@ -7,7 +7,7 @@ import math
 import control
 import numpy as np
 import pytest
-from scipy.optimize import minimize
+from scipy.optimize import brentq, minimize_scalar
 
 from compensator.errors import ModelError
 from compensator.loops import plants, tuning
@@ -15,51 +15,63 @@ from compensator.loops import plants, tuning
 T = 0.1
 
 
-def _fopdt_pi_optimum(k, tau_s, theta_s, ms_max):
-    """Largest ki of a PI with ``|1 + L| >= 1 / Ms`` on a FOPDT sampled at T, by scipy's SLSQP (independent).
+def _fopdt_pi_optimum(k, tau_s, theta_s, ms_max, delay_samples):
+    """Largest ki of a PI with ``|1 + L| >= 1 / Ms`` on a FOPDT sampled at T, by scipy (independent of the search).
 
     The plant is the zero-order-hold FOPDT written out by hand, ``K (1 - a) q / (1 - a q)`` with
-    ``a = exp(-T / tau)``, times ``q`` per sample of dead time and one more for the computation delay
-    (``q = exp(-j omega T)``); the PI is the firmware's forward-Euler ``kp + ki T q / (1 - q)``. The bound on
-    3000 log-spaced frequencies is one smooth constraint per frequency (the MIGO formulation, Astrom,
-    Panagopoulos and Hagglund, Automatica 34, 585, 1998); ``kp`` is kept below the ultimate gain.
+    ``a = exp(-T / tau)``, times ``q`` per sample of dead time and per sample of computation delay
+    (``q = exp(-j omega T)``); the PI is the firmware's forward-Euler ``kp + ki T q / (1 - q)``; the bound is
+    taken on 3000 log-spaced frequencies. For each kp below the largest P gain that meets the bound, scipy's brentq finds the first
+    ki where the bound fails (scanning up from ki = 0, so that the loop stays in the stable region); scipy's
+    bounded minimize_scalar maximises that over kp (the MIGO problem of Astrom, Panagopoulos and Hagglund,
+    Automatica 34, 585, 1998).
     """
     w = np.geomspace(1e-3, math.pi / T, 3000)
     q = np.exp(-1j * w * T)
     a = math.exp(-T / tau_s)
-    p = k * (1.0 - a) * q / (1.0 - a * q) * q ** round(theta_s / T) * q
+    p = k * (1.0 - a) * q / (1.0 - a * q) * q ** (round(theta_s / T) + delay_samples)
     i = T * q / (1.0 - q)
+    phase = np.unwrap(np.angle(p))
+    kp_max = 1.0 / abs(p[np.argmax(phase < -math.pi)])  # the ultimate gain, where the phase first passes -180 deg
 
-    def margin(x):
-        return np.abs(1.0 + (x[0] + x[1] * i) * p) ** 2 - 1.0 / ms_max ** 2
+    def margin(kp, ki):
+        return np.min(np.abs(1.0 + (kp + ki * i) * p)) - 1.0 / ms_max
 
-    def margin_jac(x):
-        a_ = np.conj(1.0 + (x[0] + x[1] * i) * p)
-        return np.stack([2.0 * np.real(a_ * p), 2.0 * np.real(a_ * i * p)], axis=1)
+    def largest_ki(kp):
+        kis = np.geomspace(1e-6 * kp_max, 10.0 * kp_max, 80)
+        bad = np.flatnonzero([margin(kp, ki) < 0 for ki in kis])
+        if margin(kp, 0.0) < 0 or bad.size == 0 or bad[0] == 0:
+            return 0.0
+        return brentq(lambda ki: margin(kp, ki), kis[bad[0] - 1], kis[bad[0]], xtol=1e-12 * kp_max, rtol=1e-12)
 
-    res = minimize(lambda x: -x[1], [0.3 / k, 0.01 / k], jac=lambda x: np.array([0.0, -1.0]), method="SLSQP",
-                   bounds=[(0.0, 20.0 / k), (0.0, 20.0 / k)], options={"ftol": 1e-12, "maxiter": 200},
-                   constraints=[{"type": "ineq", "fun": margin, "jac": margin_jac}])
-    assert res.success
-    return res.x
+    kp_top = brentq(lambda kp: margin(kp, 0.0), 0.0, kp_max)  # the largest P gain that meets the bound
+    res = minimize_scalar(lambda kp: -largest_ki(kp), bounds=(0.0, kp_top), method="bounded",
+                          options={"xatol": 1e-9 * kp_max})
+    return res.x, -res.fun
 
 
-def test_robust_pi_reaches_the_optimum_of_scipy_on_a_plant_of_gain_below_one():
-    # K = 0.5 (a positive gain below one), tau = 10 s, theta = 1 s at 10 Hz, Ms <= 1.4.
-    kp_opt, ki_opt = _fopdt_pi_optimum(0.5, 10.0, 1.0, 1.4)
-    g = tuning.robust(plants.fopdt_plant(0.5, 10.0, 1.0), T, 1.4)
+@pytest.mark.parametrize("k, tau_s, theta_s, ms_max, delay_samples", [
+    (0.5, 10.0, 1.0, 1.4, 1),  # a positive gain below one
+    (-2.0, 30.0, 2.0, 1.6, 2),  # reverse acting, two samples of computation delay, a looser bound
+])
+def test_robust_pi_reaches_the_optimum_of_scipy(k, tau_s, theta_s, ms_max, delay_samples):
+    kp_opt, ki_opt = _fopdt_pi_optimum(abs(k), tau_s, theta_s, ms_max, delay_samples)
+    g = tuning.robust(plants.fopdt_plant(k, tau_s, theta_s), T, ms_max, computation_delay_samples=delay_samples)
+    sign = math.copysign(1.0, k)
     # The search confirms Ms on a dense grid and shrinks ki by 0.5 % steps until it holds there: within two
     # steps (1 %) of the optimum, never above it.
-    assert 0.99 * ki_opt <= g.ki_per_s <= ki_opt * (1.0 + 1e-4)
-    assert g.kp == pytest.approx(kp_opt, rel=0.02) and g.kd_s == 0.0
+    assert 0.99 * ki_opt <= sign * g.ki_per_s <= ki_opt * (1.0 + 1e-4)
+    assert sign * g.kp == pytest.approx(kp_opt, rel=0.02) and g.kd_s == 0.0
 
 
 def test_a_plant_without_static_gain_is_refused():
     # s / (s + 1): integral action cannot hold a setpoint through a zero at s = 0 (the search used to return
     # gains for it).
     plant = plants.Plant(control.ss(control.tf([1.0, 0.0], [1.0, 1.0])), 0.2)
+    reason = "a plant has zero static gain: integral action cannot hold a setpoint on it"
     for others in ((), (plants.fopdt_plant(1.0, 10.0, 1.0),)):
-        with pytest.raises(ModelError, match="zero static gain"):
-            tuning.robust(plants.fopdt_plant(1.0, 10.0, 1.0), T, 1.4, also_plants=(plant, *others))
-        with pytest.raises(ModelError, match="zero static gain"):
-            tuning.robust(plant, T, 1.4, also_plants=others)
+        for call in (lambda: tuning.robust(plants.fopdt_plant(1.0, 10.0, 1.0), T, 1.4, also_plants=(plant, *others)),
+                     lambda: tuning.robust(plant, T, 1.4, also_plants=others)):
+            with pytest.raises(ModelError) as info:
+                call()
+            assert info.value.reason == reason
