@@ -51,6 +51,7 @@ def _fopdt_pi_optimum(k, tau_s, theta_s, ms_max, delay_samples):
 
 
 @pytest.mark.parametrize("k, tau_s, theta_s, ms_max, delay_samples", [
+    (4.0, 20.0, 2.0, 1.4, 1),
     (0.5, 10.0, 1.0, 1.4, 1),  # a positive gain below one
     (-2.0, 30.0, 2.0, 1.6, 2),  # reverse acting, two samples of computation delay, a looser bound
 ])
