@@ -78,35 +78,69 @@ def test_a_plant_without_static_gain_is_refused():
             assert info.value.reason == reason
 
 
+def _largest_ki(p, q, kp, kd, ms_max, n=10.0):
+    """First ki where ``|1 + C P| >= 1 / Ms`` fails, for the firmware PID written out (independent of the search).
+
+    ``C = kp + ki T q / (1 - q) + kd (1 - q) / (T + Tf (1 - q))`` with ``Tf = |kd / kp| / N`` (the controller's
+    documented discrete form), ``p`` the plant's response at ``q = exp(-j omega T)``; the first failure above
+    ki = 1e-6 (staying in the stable region that starts at ki = 0).
+    """
+    def margin(ki):
+        c = kp + ki * T * q / (1.0 - q) + kd * (1.0 - q) / (T + abs(kd / kp) / n * (1.0 - q))
+        return np.min(np.abs(1.0 + c * p)) - 1.0 / ms_max
+
+    if kp <= 0 or kd < 0 or margin(0.0) < 0:
+        return 0.0
+    return _first_failure(margin, 1e-6)
+
+
+def _first_failure(f, start):
+    """The first root of ``f`` above ``start`` where it turns negative: doubling, then scipy's brentq."""
+    lo = start
+    while f(2.0 * lo) >= 0:
+        lo *= 2.0
+    return brentq(f, lo, 2.0 * lo, xtol=1e-12, rtol=1e-12)
+
+
+def _pid_optimum(p, q, start, ms_max):
+    """(kp, kd, ki) maximising ki by scipy's Nelder-Mead over (kp, kd) from a feasible start chosen by hand."""
+    res = minimize(lambda x: -_largest_ki(p, q, x[0], x[1], ms_max), start, method="Nelder-Mead",
+                   options={"xatol": 1e-6, "fatol": 1e-9})
+    assert res.success
+    return res.x[0], res.x[1], -res.fun
+
+
 def test_robust_pid_reaches_the_optimum_of_scipy():
-    # PID on K = 1, tau = 10 s, theta = 1 s at 10 Hz, Ms <= 1.4, derivative filter N = 10. The reference: the
-    # firmware PID written out, kp + ki T q / (1 - q) + kd (1 - q) / (T + Tf (1 - q)) with Tf = |kd / kp| / N
-    # (the controller's documented discrete form), on the hand-written ZOH FOPDT; for each (kp, kd) the first ki
-    # where the bound fails (doubling from 1e-6, then scipy's brentq), maximised by scipy's Nelder-Mead from
-    # kp = 3, kd = 2 (chosen by hand).
+    # PID on K = 1, tau = 10 s, theta = 1 s at 10 Hz, Ms <= 1.4, derivative filter N = 10, against the optimum
+    # of the hand-written ZOH FOPDT (10 samples of dead time, one of computation delay) from kp = 3, kd = 2.
     w = np.geomspace(1e-2, math.pi / T, 1000)
     q = np.exp(-1j * w * T)
     a = math.exp(-T / 10.0)
-    p = (1.0 - a) * q / (1.0 - a * q) * q ** 11
-
-    def margin(kp, kd, ki):
-        c = kp + ki * T * q / (1.0 - q) + kd * (1.0 - q) / (T + abs(kd / kp) / 10.0 * (1.0 - q))
-        return np.min(np.abs(1.0 + c * p)) - 1.0 / 1.4
-
-    def largest_ki(x):
-        kp, kd = x
-        if kp <= 0 or kd < 0 or margin(kp, kd, 0.0) < 0:
-            return 0.0
-        lo = 1e-6
-        while margin(kp, kd, 2.0 * lo) >= 0:
-            lo *= 2.0
-        return brentq(lambda ki: margin(kp, kd, ki), lo, 2.0 * lo, xtol=1e-12, rtol=1e-12)
-
-    res = minimize(lambda x: -largest_ki(x), [3.0, 2.0], method="Nelder-Mead", options={"xatol": 1e-6, "fatol": 1e-9})
-    kp_opt, kd_opt = res.x
-    ki_opt = -res.fun
+    kp_opt, kd_opt, ki_opt = _pid_optimum((1.0 - a) * q / (1.0 - a * q) * q ** 11, q, [3.0, 2.0], 1.4)
     g = tuning.robust(plants.fopdt_plant(1.0, 10.0, 1.0), T, 1.4, pid=True)
     # The search's PID grid (25 kp by 17 kd, refined on 15 by 9 around the best) leaves 1.0 % on this plant:
     # within 2 % of the optimum, never above it.
     assert 0.98 * ki_opt <= g.ki_per_s <= ki_opt * (1.0 + 1e-4)
     assert (g.kp, g.kd_s) == pytest.approx((kp_opt, kd_opt), rel=0.05) and g.derivative_filter_n == 10.0
+
+
+def test_robust_on_the_cooler_reaches_the_optimum_of_scipy(cooler):
+    # The bundled cooler linearised at its operating point (reverse acting: the reference works with -P and
+    # positive gains), sampled by python-control's c2d (zero-order hold), its 0.5 s dead time and one sample of
+    # computation delay as q^6; PI and PID with Ms <= 1.4 against scipy (PID from kp = 0.5, kd = 1 by hand).
+    c = cooler.cooler
+    plant = plants.linearise_cooler(c, plants.cooler_operating_point(c))
+    w = np.geomspace(1e-4, math.pi / T, 1000)
+    q = np.exp(-1j * w * T)
+    resp = control.frequency_response(control.c2d(plant.system, T, "zoh"), w)
+    p = -np.squeeze(resp.complex) * q ** (round(plant.dead_time_s / T) + 1)
+    kp_top = _first_failure(lambda kp: np.min(np.abs(1.0 + kp * p)) - 1.0 / 1.4, 1e-6)  # the largest P gain allowed
+    pi_opt = minimize_scalar(lambda kp: -_largest_ki(p, q, kp, 0.0, 1.4), bounds=(0.0, kp_top), method="bounded",
+                             options={"xatol": 1e-9})
+    kp_opt, kd_opt, ki_opt = _pid_optimum(p, q, [0.5, 1.0], 1.4)
+    pi = tuning.robust(plant, T, 1.4)
+    pid = tuning.robust(plant, T, 1.4, pid=True)
+    # Within the search's resolution (1 % for a PI, 2 % for a PID) of the optimum, never above it.
+    assert 0.99 * -pi_opt.fun <= -pi.ki_per_s <= -pi_opt.fun * (1.0 + 1e-4)
+    assert 0.98 * ki_opt <= -pid.ki_per_s <= ki_opt * (1.0 + 1e-4)
+    assert (-pid.kp, -pid.kd_s) == pytest.approx((kp_opt, kd_opt), rel=0.05)
