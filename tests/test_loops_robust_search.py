@@ -144,3 +144,12 @@ def test_robust_on_the_cooler_reaches_the_optimum_of_scipy(cooler):
     assert 0.99 * -pi_opt.fun <= -pi.ki_per_s <= -pi_opt.fun * (1.0 + 1e-4)
     assert 0.98 * ki_opt <= -pid.ki_per_s <= ki_opt * (1.0 + 1e-4)
     assert (-pid.kp, -pid.kd_s) == pytest.approx((kp_opt, kd_opt), rel=0.05)
+
+
+@pytest.mark.parametrize("pid, kind", [(False, "PI"), (True, "PID")])
+def test_a_bound_no_controller_meets_is_refused_with_its_reason(pid, kind):
+    # Ms <= 1.001 asks |1 + L| >= 0.999 at every frequency: no loop with integral action and a dead time gets it.
+    with pytest.raises(ModelError) as info:
+        tuning.robust(plants.fopdt_plant(1.0, 10.0, 1.0), T, 1.001, pid=pid)
+    assert info.value.reason == (f"no {kind} gains reach Ms <= 1.001 on this loop (the sampling and dead time may "
+                                 "leave too little phase; raise --ms or the rate)")
