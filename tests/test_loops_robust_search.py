@@ -102,9 +102,9 @@ def _first_failure(f, start):
     return brentq(f, lo, 2.0 * lo, xtol=1e-12, rtol=1e-12)
 
 
-def _pid_optimum(p, q, start, ms_max):
+def _pid_optimum(p, q, start, ms_max, n=10.0):
     """(kp, kd, ki) maximising ki by scipy's Nelder-Mead over (kp, kd) from a feasible start chosen by hand."""
-    res = minimize(lambda x: -_largest_ki(p, q, x[0], x[1], ms_max), start, method="Nelder-Mead",
+    res = minimize(lambda x: -_largest_ki(p, q, x[0], x[1], ms_max, n), start, method="Nelder-Mead",
                    options={"xatol": 1e-6, "fatol": 1e-9})
     assert res.success
     return res.x[0], res.x[1], -res.fun
@@ -122,6 +122,13 @@ def test_robust_pid_reaches_the_optimum_of_scipy():
     # within 2 % of the optimum, never above it.
     assert 0.98 * ki_opt <= g.ki_per_s <= ki_opt * (1.0 + 1e-4)
     assert (g.kp, g.kd_s) == pytest.approx((kp_opt, kd_opt), rel=0.05) and g.derivative_filter_n == 10.0
+    # A rule's gains given as the search's scale (here the AMIGO PID of Astrom and Hagglund on the plant with the
+    # sampling delay) and a derivative filter N = 8: the optimum of that problem, to the same 2 %.
+    _, _, ki8 = _pid_optimum((1.0 - a) * q / (1.0 - a * q) * q ** 11, q, [3.0, 2.0], 1.4, n=8.0)
+    ref = tuning.amigo(plants.FopdtModel(1.0, 10.0, 1.15), pid=True)
+    g8 = tuning.robust(plants.fopdt_plant(1.0, 10.0, 1.0), T, 1.4, pid=True, reference=ref, derivative_filter_n=8.0)
+    assert 0.98 * ki8 <= g8.ki_per_s <= ki8 * (1.0 + 1e-4) and g8.derivative_filter_n == 8.0
+    assert g8.kp > 0 and g8.kd_s > 0  # (the ridge of the optimum is flat along kp and kd: the objective is ki)
 
 
 def test_robust_on_the_cooler_reaches_the_optimum_of_scipy(cooler):
