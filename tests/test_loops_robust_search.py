@@ -160,3 +160,20 @@ def test_a_bound_no_controller_meets_is_refused_with_its_reason(pid, kind):
         tuning.robust(plants.fopdt_plant(1.0, 10.0, 1.0), T, 1.001, pid=pid)
     assert info.value.reason == (f"no {kind} gains reach Ms <= 1.001 on this loop (the sampling and dead time may "
                                  "leave too little phase; raise --ms or the rate)")
+
+
+@pytest.mark.parametrize("points, feasible", [
+    # Points of a = 1 + L; each verdict by hand: a crossing of the real axis at Re a < 0 (L left of -1) is out,
+    # anywhere else (or along the axis on the right) is in; every |a| here is above 1 / 1.4, and each curve ends
+    # with Re a > 0, so only the crossing decides.
+    ([(2, -1), (2, 1), (-1, 1), (-1, -1), (2, -1)], False),  # crosses at Re a = -1 after starting below the axis
+    ([(2, 1), (-1, 0), (2, -1)], False),  # touches the axis at Re a = -1 on a grid point
+    ([(2, 1), (2, 0), (3, 0), (3, -1)], True),  # runs along the axis at Re a = 2 to 3
+    ([(3, 1), (-0.5, -1), (2, -1)], True),  # chord crosses at Re a = (1 x -0.5 + 1 x 3) / 2 = 1.25
+    ([(0.5, 1), (-3, -1), (2, -1)], False),  # chord crosses at Re a = (1 x -3 - 1 x 0.5) / 2 = -1.25
+])
+def test_the_feasibility_test_on_curves_worked_by_hand(points, feasible):
+    a = np.array([complex(re, im) for re, im in points])
+    parts = tuning._LoopParts(a.real[None, None, :], a.imag[None, None, :], np.zeros((1, a.size)),
+                              np.zeros((1, a.size)))
+    assert list(tuning._feasible_batch(parts, np.array([0.0]), 1.4)) == [feasible]
