@@ -235,6 +235,9 @@ def test_robust_search_returns_the_same_gains_without_the_shortcut():
         ok = tuning._feasible_batch(parts, np.exp(mid), 1.4)
         lo, hi = np.where(ok, mid, lo), np.where(ok, hi, mid)
     assert np.array_equal(ours, np.where(ok_lo, np.exp(lo), 0.0))
+    # A grid of controllers keeps its shape (one largest ki per (kp, kd) pair).
+    grid = tuning._max_ki(p_resp, w, T, kp.reshape(3, 4), np.zeros((3, 4)), 10.0, 1.0, 1.4, 100.0)
+    assert grid.shape == (3, 4) and np.array_equal(grid.ravel(), ours)
     assert np.count_nonzero(ours == 0) >= 1 and np.count_nonzero(ours) >= 4
 
 
