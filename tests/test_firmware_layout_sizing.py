@@ -302,3 +302,32 @@ def test_polynomial_sizing_needs_room_for_rounding():
         S.size_polynomial(t, 16)
     fit = S.size_polynomial(target([1000 + x / 2 for x in range(-8, 9)], bound=0.61), 16)
     assert fit.y.size == 2  # a line fits a line
+
+
+def test_optimised_slope_formats_by_hand():
+    # The fraction bits F of a slope type of w bits: floor(log2((2^(w-1) - 1) / (2 max|f'| + 1))), at most
+    # bit_length(span) + 2. A line of 5000 DAC codes per code over 9 codes (span 8: at most 6): 16 bits leave
+    # floor(log2(32767 / 10001)) = 1 bit, and the line is one row, slope 10000 (6 bytes); 32 bits would give F = 6
+    # and 8 bytes, so the 16-bit slope is kept. At 10000 codes per code 16 bits leave no fraction bit
+    # (log2(32767 / 20001) < 1) and 32-bit slopes are used: F = min(16, 6) = 6, slope 10000 x 64.
+    wide = (1 << 24) - 1
+    fit = S.size_optimised(target([5000 * d + 100 for d in range(9)], bound=0.5, dac_full=wide), 16, 32)
+    assert (fit.slope_type_bits, fit.slope_frac_bits, fit.x.tolist(), fit.y.tolist(), fit.slope.tolist()) == (
+        16, 1, [LO], [100], [10000])
+    assert fit.acc_type_bits == 32  # 10000 x 9 + 2^1 < 2^31
+    fit = S.size_optimised(target([10000 * d + 100 for d in range(9)], bound=0.5, dac_full=wide), 16, 32)
+    assert (fit.slope_type_bits, fit.slope_frac_bits, fit.slope.tolist()) == (32, 6, [640000])
+    # One and two codes: F = min(room, bit_length(max(span, 1)) + 2) = 3.
+    one = S.size_optimised(target([5.2], bound=0.5, ext=0.0), 16, 16)
+    assert (one.slope_type_bits, one.slope_frac_bits, one.x.tolist(), one.y.tolist(), one.slope.tolist()) == (
+        16, 3, [LO], [5], [0])
+    two = S.size_optimised(target([5.0, 6.0], bound=0.5), 16, 16)
+    assert (two.slope_frac_bits, two.slope.tolist()) == (3, [8])
+
+
+def test_optimised_sizing_refusal_names_the_term():
+    # Values half-way between DAC codes and a bound below half an LSB: no breakpoint layout of either slope width.
+    with pytest.raises(TableError) as exc:
+        S.size_optimised(target([10.5] * 5, bound=0.4, ext=0.0), 16, 16)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: no breakpoint layout meets the bound"
