@@ -101,7 +101,7 @@ def test_uniform_sizing_is_the_plain_python_search(bound):
     fit = S.size_uniform(t, 16)
     nbytes, shift, frac, node_bits, y = uniform_reference(t, 16)
     assert (fit.shift, fit.node_frac_bits, fit.node_type_bits) == (shift, frac, node_bits)
-    assert fit.y.tolist() == y and fit.y.size * fit.node_type_bits // 8 == nbytes
+    assert fit.y.tolist() == y and fit.y.size * fit.node_type_bits // 8 == nbytes and fit.layout == "uniform"
     # The accumulator: the largest |Y[i+1] - Y[i]| (2^s - 1) + 2^s, or the largest node plus 2^G; these fit 32 bits.
     assert fit.acc_type_bits == 32
 
@@ -145,7 +145,12 @@ def test_segmented_placement_is_the_plain_python_greedy(bound, frac):
 
 def test_segmented_sizing_keeps_the_format_with_fewer_bytes():
     # Bytes: 16-bit nodes (or 32-bit with 8 fractional bits) plus one byte per segment width.
-    for exact, bound in ((PARABOLA, 0.75), ([d / 3 + 0.25 for d in range(33)], 0.55)):
+    # (The last three are close calls: 8 fractional bits win by 14 to 9 bytes; plain nodes by 11 to 14; a tie
+    # at 29 bytes, which goes to plain nodes, the first format tried.)
+    line = [d / 3 + 0.25 for d in range(17)]
+    for exact, bound in ((PARABOLA, 0.75), ([d / 3 + 0.25 for d in range(33)], 0.55), (line, 0.55),
+                         ([d / 3 + d * d / 64 + 0.25 for d in range(17)], 1.0),
+                         ([d / 3 + d * d / 256 + 0.25 for d in range(33)], 0.52)):
         t = target(exact, bound=bound)
         fit = S.size_segmented(t, 16)
         sizes = {}
@@ -153,7 +158,7 @@ def test_segmented_sizing_keeps_the_format_with_fewer_bytes():
             ys, ks = segmented_reference(t, frac)
             sizes[frac] = (len(ys) * node_bits // 8 + len(ks), ys, ks, node_bits)
         frac = min(sizes, key=lambda f: (sizes[f][0], f))
-        assert fit.node_frac_bits == frac and fit.y.tolist() == sizes[frac][1]
+        assert fit.layout == "segmented" and fit.node_frac_bits == frac and fit.y.tolist() == sizes[frac][1]
         assert fit.segment_shift.tolist() == sizes[frac][2] and fit.node_type_bits == sizes[frac][3]
         assert fit.acc_type_bits == 32
 
@@ -225,6 +230,7 @@ def test_optimised_sizing_bytes_and_types():
     t = target([200 + d * d / 16 for d in range(64)], bound=1.0)
     fit = S.size_optimised(t, 16, 16)
     assert fit.slope_type_bits == 16 and fit.node_type_bits == 16 and fit.acc_type_bits == 32
+    assert fit.layout == "optimised"
     # F: as many bits as the steepest chord leaves in the slope type, at most bit_length(span) + 2 = 8.
     assert fit.slope_frac_bits == 8
     x, y, s = S._place_optimised(t, 8, (1 << 15) - 1)
@@ -282,6 +288,7 @@ def test_polynomial_sizing_by_hand():
     t = target([1000 + x / 2 + x * x / 64 for x in range(-32, 33)], bound=1.0)
     fit = S.size_polynomial(t, 16)
     assert fit.y.size == 3 and tuple(fit.coeff_type_bits) == (32, 16, 16) and fit.center_code == LO + 32
+    assert fit.layout == "polynomial" and fit.acc_type_bits == 64 and fit.node_type_bits == 0
     assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([32768000, 16384, 16384], [0, 5], 15)
     got = polynomial_value(fit.y, fit.coeff_shift, t.codes - fit.center_code, fit.node_frac_bits)
     assert meets(t, got.tolist())
@@ -331,3 +338,15 @@ def test_optimised_sizing_refusal_names_the_term():
         S.size_optimised(target([10.5] * 5, bound=0.4, ext=0.0), 16, 16)
     assert exc.value.term == "DAC quantisation"
     assert exc.value.reason == "DAC quantisation: no breakpoint layout meets the bound"
+
+
+@pytest.mark.parametrize("top, acc_bits", [((1 << 23) - 1, 64), ((1 << 23) - 2, 32)])
+def test_accumulator_width_at_the_node_limit(top, acc_bits):
+    # A slow line just below 2^23 DAC codes (a 24-bit DAC), f = top - d / 3, d = 0 .. 8, at 0.34 LSB: nodes with 8
+    # fractional bits 8 codes apart (12 bytes; plain ones would need one per code). The accumulator holds a node
+    # plus the rounding term 2^8: (2^23 - 1) 2^8 + 2^8 = 2^31 does not fit int32, (2^23 - 2) 2^8 + 2^8 does; the
+    # interpolation term (8/3 x 2^8 per node, 7 steps) is far smaller.
+    t = target([top - d / 3 for d in range(9)], bound=0.34, dac_full=(1 << 24) - 1)
+    for fit in (S.size_uniform(t, 32), S.size_segmented(t, 32)):
+        assert fit.node_frac_bits == 8 and int(fit.y.max()) == top << 8
+        assert fit.acc_type_bits == acc_bits
