@@ -242,8 +242,14 @@ def test_optimised_single_code_and_flat_end():
     t = target([5.2], bound=0.5, ext=0.0)
     x, y, s = S._place_optimised(t, 4, 1000)
     assert (x.tolist(), y.tolist(), s.tolist()) == ([LO], [5], [0])
-    with pytest.raises(TableError, match="a single code cannot meet the bound"):
+    with pytest.raises(TableError) as exc:
         S._place_optimised(target([5.5], bound=0.4, ext=0.0), 4, 1000)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: a single code cannot meet the bound"
+    # Rounded half to even (5.5 -> 6: an error of exactly the bound 0.5 meets it) and held within 0 .. full scale.
+    for exact, full, want in ((5.5, 4095, 6), (-0.3, 4095, 0), (0.2, 4095, 0), (4095.4, 4095, 4095), (9.6, 9, 9)):
+        assert S._place_optimised(target([exact], bound=0.6, ext=0.0, dac_full=full), 4, 1000)[1].tolist() == [want]
+    assert S._place_optimised(target([5.5], bound=0.5, ext=0.0), 4, 1000)[1].tolist() == [6]
 
 
 def test_minimax_line_of_a_parabola_by_hand():
