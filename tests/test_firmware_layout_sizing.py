@@ -356,3 +356,41 @@ def test_accumulator_width_at_the_node_limit(top, acc_bits):
     for fit in (S.size_uniform(t, 32), S.size_segmented(t, 32)):
         assert fit.node_frac_bits == 8 and int(fit.y.max()) == top << 8
         assert fit.acc_type_bits == acc_bits
+
+
+def optimised_reference(t, frac_bits):
+    """The greedy breakpoints by linear scan: the whole rest as the last segment when it meets the bound, else the
+    furthest next breakpoint ``end <= n - 2`` with codes ``start .. end - 1`` within the bound (never a lone last
+    code), with the plain-Python line."""
+    n, start, rows = t.exact.size, 0, []
+    while True:
+        if start == n - 1:
+            rows.append((start, min(max(round(float(t.exact[start])), 0), t.dac_full), 0))
+            return rows
+        y0, s, got = segment_line(t, start, n, frac_bits)
+        if meets(t, got, start):
+            rows.append((start, y0, s))
+            return rows
+        end = max(e for e in range(start + 1, n - 1) if e == start + 1 or meets(t, segment_line(t, start, e,
+                                                                                                  frac_bits)[2], start))
+        rows.append((start,) + segment_line(t, start, end, frac_bits)[:2])
+        start = end
+
+
+@pytest.mark.parametrize("n", [6, 9, 10, 17, 18, 21])
+@pytest.mark.parametrize("bound", [0.55, 0.8, 1.5])
+def test_optimised_placement_is_the_linear_scan(n, bound):
+    # Gallop-and-bisect finds what a scan over every end finds where a segment's feasibility is monotonic in its
+    # length, as on these parabolas (rounding can break that: on 33 codes at 1.5 LSB, codes 15 .. 22 meet the
+    # bound, 15 .. 23 not, 15 .. 24 again, and the search stops at the first miss).
+    t = target([30 + 2.5 * d + d * d / 5 for d in range(n)], bound=bound)
+    x, y, s = S._place_optimised(t, 6, (1 << 15) - 1)
+    rows = optimised_reference(t, 6)
+    assert list(zip((x - LO).tolist(), y.tolist(), s.tolist())) == rows
+
+
+def test_a_one_code_segment_that_cannot_meet_the_bound():
+    with pytest.raises(TableError) as exc:
+        S._place_optimised(target([10.5, 11.5, 12.5], bound=0.4), 4, 1000)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: a one-code segment cannot meet the bound"
