@@ -465,3 +465,43 @@ def test_old_names_and_settings_from_gains():
     assert (s.sample_time_s, s.out_min, s.out_max, s.rate_limit_per_s) == (0.1, -1.0, 2.0, 3.0)
     # the same Tf by both names: kd / (kp N) = 0.4 / 16
     assert discretise_pid(s).derivative_filter_s == pytest.approx(g.derivative_filter_s) == pytest.approx(0.025)
+
+
+def test_32_bit_ranges_by_hand():
+    # The 32-bit variant needs P, the integrator increment and D within +-2^28 (Q.F) for inputs within +-x counts:
+    # P <= ((|kp m| + |kp b m|) x >> s) + 1, increment <= (|ki m| 2 x >> s) + 1, D <= ((|bd m| 2 x >> s) + 2) / (1 - ad).
+    # 2^28 - 2 = 1022 x 262657, so with mantissas summing to 1022 and no shift P and the increment reach exactly
+    # 2^28 - 1 at x = 262657 (accepted) and pass 2^28 one count later (refused); D reaches 2^28 already there.
+    from compensator.firmware.pid_coefficients import _check_32_bit_ranges, quantise_pid
+
+    base = quantise_pid(PidSettings(kp=0.5, ki_per_s=0.05, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=4095.0),
+                        input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=4096)
+    assert base.state_frac_bits == 15
+    zero = dict(kp_mant=0, kpb_mant=0, p_shift=0, ki_mant=0, ki_shift=0, ad_mant=0, ad_shift=0, bd_mant=0, bd_shift=0)
+
+    def coeffs(x, **kw):
+        return dataclasses.replace(base, input_limit_count=x, **{**zero, **kw})
+
+    cases = [(dict(kp_mant=511, kpb_mant=511), 262657, "P (kp times the input range)"),
+             (dict(kp_mant=-511, kpb_mant=-511), 262657, "P (kp times the input range)"),
+             (dict(kp_mant=16384, kpb_mant=16384, p_shift=1), 16383, "P (kp times the input range)"),
+             (dict(ki_mant=511), 262657, "the integrator increment"),
+             (dict(ki_mant=-16384, ki_shift=1), 16383, "the integrator increment"),
+             (dict(bd_mant=511), 262656, "D (the derivative term)"),
+             (dict(bd_mant=-16384, bd_shift=1), 16383, "D (the derivative term)"),
+             (dict(bd_mant=511, ad_mant=16384, ad_shift=15), 131328, "D (the derivative term)")]  # ad = 1/2
+    for kw, x_ok, what in cases:
+        _check_32_bit_ranges(coeffs(x_ok, **kw))
+        with pytest.raises(ModelError) as exc:
+            _check_32_bit_ranges(coeffs(x_ok + 1, **kw))
+        assert exc.value.key == "word_bits" and exc.value.reason.startswith(f"the 32-bit variant: {what} can reach ")
+    with pytest.raises(ModelError) as exc:
+        _check_32_bit_ranges(coeffs(4096, kp_mant=511, kpb_mant=-511))
+    assert exc.value.reason == ("the 32-bit variant: the setpoint weight must not be negative (kp and kp b of one "
+                                "sign)") and exc.value.key == "word_bits"
+    with pytest.raises(ModelError) as exc:
+        _check_32_bit_ranges(coeffs(262658, kp_mant=511, kpb_mant=511))
+    assert exc.value.reason == (
+        "the 32-bit variant: P (kp times the input range) can reach 2.684e+08 state units (Q16.15) for inputs within "
+        "+-262658 counts, beyond 2^28; the 32-bit variant needs a smaller input range (input_limit_count) or gain, "
+        "otherwise use the 64-bit code")
