@@ -560,3 +560,10 @@ def test_level_bias_is_the_supply_output(which, request, board_ntc, board_pt1000
     expected = board.supply.output_v(np.array([lim.code(int(v)) for v in levels]))
     assert lim.level_bias_v(levels) == pytest.approx(expected, rel=1e-12, abs=1e-9)
     assert lim.level_bias_v(7) == pytest.approx(float(board.supply.output_v(lim.code(7))), abs=1e-9)
+
+
+def test_fault_words_are_32_bits():
+    from compensator.firmware.faults import fault_names
+
+    assert fault_names(1 << 31) == ["bit_31"] and fault_names(1 << 32) == [] and fault_names((1 << 33) | 1) == [
+        "sensor_open"]

@@ -505,3 +505,42 @@ def test_32_bit_ranges_by_hand():
         "the 32-bit variant: P (kp times the input range) can reach 2.684e+08 state units (Q16.15) for inputs within "
         "+-262658 counts, beyond 2^28; the 32-bit variant needs a smaller input range (input_limit_count) or gain, "
         "otherwise use the 64-bit code")
+
+
+def test_modes_refusals_and_the_run_record():
+    pid = FloatPid(settings())
+    pid.set_manual(1.0)
+    assert pid.manual is True
+    pid.set_auto()
+    assert pid.manual is False
+    for r, y in ((math.nan, 0.0), (0.0, math.inf)):  # either input alone
+        with pytest.raises(ModelError) as exc:
+            pid.step(r, y)
+        assert exc.value.reason == f"setpoint/measurement: must be finite, got {r!r}, {y!r}"
+    run = FloatPid(settings()).run(np.zeros(3), np.ones(3))
+    output, integrator, derivative = run
+    assert output is run.output and integrator is run.integrator and derivative is run.derivative
+
+
+def test_agreement_bound_in_manual_mode_and_from_the_start():
+    # In manual mode the output is the clipped target for both controllers: without a rate limit and with limits
+    # on whole counts (L = 0) the error is only the final rounding to a whole count, 1/2. With no step at all the
+    # bound is the same 1/2. Automatic mode accumulates the integrator's error on top.
+    s = settings(out_min=-1000.0, out_max=1000.0)
+    c = quantise_pid(s, input_per_count=1.0, output_per_count=1.0)
+    assert agreement_bound_count(c, 200, max_input_count=500, manual=True) == 0.5
+    assert agreement_bound_count(c, 200, max_input_count=500, manual=[True] * 200) == 0.5
+    assert agreement_bound_count(c, 0, max_input_count=500) == 0.5
+    assert agreement_bound_count(c, 200, max_input_count=500) > 0.5
+
+
+def test_settings_from_gains_keep_how_the_firmware_runs_them():
+    from compensator.loops.verify import PidGains
+
+    s = PidSettings.from_gains(PidGains(2.0, 0.5, 0.4, 8.0, 0.7), sample_time_s=0.1, out_min=-1.0, out_max=2.0,
+                               anti_windup="clamping", tracking_time_s=2.5)
+    assert (s.anti_windup, s.tracking_time_s, s.rate_limit_per_s) == ("clamping", 2.5, None)
+    s = PidSettings.from_gains(PidGains(2.0, 0.5, 0.4, 8.0, 0.7), sample_time_s=0.1, out_min=-1.0, out_max=2.0,
+                               tracking_time_s=2.5)
+    assert (s.anti_windup, s.tracking_time_s) == ("back_calculation", 2.5)
+    assert discretise_pid(s).tracking_time_s == 2.5
