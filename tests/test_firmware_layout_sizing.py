@@ -200,8 +200,10 @@ def test_segment_line_by_hand():
     # -0.25, 0, y0 = rint(9.875) = 10, slope 6.
     assert S._segment_ok(t, 0, 4, False, 4, 1000) == (True, 10, 6)
     assert segment_line(t, 0, 4, 4)[:2] == (10, 6)
-    # A slope beyond its C type is refused (8 > 7), and a line below code 0 is held at 0.
-    assert S._segment_ok(t, 0, 4, True, 4, 7)[0] is False
+    # A slope beyond its C type is refused (8 > 7; 8 itself is allowed), a line below code 0 is held at 0 and one
+    # above full scale at full scale.
+    assert S._segment_ok(t, 0, 4, True, 4, 7)[0] is False and S._segment_ok(t, 0, 4, True, 4, 8)[0] is True
+    assert S._segment_ok(target([4095.7] * 5, bound=1.0, ext=0.0), 0, 4, True, 4, 1000)[:2] == (True, 4095)
     low = target([-3 + d for d in range(9)], bound=5.0)
     assert S._segment_ok(low, 0, 4, True, 4, 1000)[1] == 0
 
@@ -394,3 +396,10 @@ def test_a_one_code_segment_that_cannot_meet_the_bound():
         S._place_optimised(target([10.5, 11.5, 12.5], bound=0.4), 4, 1000)
     assert exc.value.term == "DAC quantisation"
     assert exc.value.reason == "DAC quantisation: a one-code segment cannot meet the bound"
+
+
+def test_uniform_candidate_nodes_are_plain_codes_by_default():
+    t = target(PARABOLA, bound=1.0)
+    nodes, ok, worst = S.uniform_candidate(t, 3)
+    assert nodes.tolist() == [node(t, LO + 8 * j, 0) for j in range(6)]
+    assert (nodes.tolist(), ok, worst) == (S.uniform_candidate(t, 3, 0)[0].tolist(),) + S.uniform_candidate(t, 3, 0)[1:]

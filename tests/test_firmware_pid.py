@@ -544,3 +544,17 @@ def test_settings_from_gains_keep_how_the_firmware_runs_them():
                                tracking_time_s=2.5)
     assert (s.anti_windup, s.tracking_time_s) == ("back_calculation", 2.5)
     assert discretise_pid(s).tracking_time_s == 2.5
+
+
+def test_agreement_bound_of_a_p_controller_by_hand():
+    # kp = 0.5 is exact in Q.15 (64-bit mantissa 2^30, shift 16): P errs only by its rounding, eta / 2 with one state
+    # LSB eta = 2^-15. Without integral or derivative action the integrator's error starts at P's plus eta and grows
+    # by eta / 2 a step (its rounding), so after n automatic steps the output is within
+    # eta / 2 + eta (3/2 + (n - 1) / 2) + 1/2 (the final rounding) counts.
+    c = quantise_pid(PidSettings(kp=0.5, ki_per_s=0.0, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=4095.0),
+                     input_per_count=1.0, output_per_count=1.0)
+    assert (c.state_frac_bits, c.kp_mant, c.p_shift) == (15, 1 << 30, 16)
+    eta = 2.0 ** -15
+    for n in (1, 2, 5):
+        assert agreement_bound_count(c, n, max_input_count=4095) == pytest.approx(
+            0.5 + eta * (2 + (n - 1) / 2), rel=1e-15)
