@@ -129,8 +129,10 @@ def test_uniform_sizing_refuses_an_impossible_bound():
     # Exact values half-way between DAC codes, with a bound below half an LSB: even a node at every code misses.
     # (the firmware's output is a whole DAC code, 0.5 LSB from 10.5 whatever the nodes hold).
     t = target([10.5] * 9, bound=0.4, ext=0.0)
-    with pytest.raises(TableError, match="no uniform table meets the bound even with one node per ADC code"):
+    with pytest.raises(TableError) as exc:
         S.size_uniform(t, 16)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: no uniform table meets the bound even with one node per ADC code"
     assert S.size_uniform(target([10.5] * 9, bound=0.5, ext=0.0), 16).shift == 4  # at 0.5 LSB one spacing does
 
 
@@ -403,3 +405,15 @@ def test_uniform_candidate_nodes_are_plain_codes_by_default():
     nodes, ok, worst = S.uniform_candidate(t, 3)
     assert nodes.tolist() == [node(t, LO + 8 * j, 0) for j in range(6)]
     assert (nodes.tolist(), ok, worst) == (S.uniform_candidate(t, 3, 0)[0].tolist(),) + S.uniform_candidate(t, 3, 0)[1:]
+
+
+def test_uniform_sizing_ties_and_two_codes():
+    # f = d / 7 + 0.25 over 9 codes at 0.51 LSB: 4 plain nodes (8 bytes) or 2 nodes with 8 fractional bits
+    # (8 bytes): a tie goes to plain nodes, the first format tried.
+    t = target([d / 7 + 0.25 for d in range(9)], bound=0.51)
+    assert uniform_reference(t, 16)[0] == 8
+    fit = S.size_uniform(t, 16)
+    assert (fit.node_frac_bits, fit.y.size) == (0, 4)
+    # Two codes on a line: the widest spacing tried is 2^1 (a span of 1 has one bit), nodes at d = 0 and 2.
+    fit = S.size_uniform(target([3.0, 5.0], bound=0.5), 16)
+    assert (fit.shift, fit.y.tolist()) == (1, [3, 7])
