@@ -558,3 +558,52 @@ def test_agreement_bound_of_a_p_controller_by_hand():
     for n in (1, 2, 5):
         assert agreement_bound_count(c, n, max_input_count=4095) == pytest.approx(
             0.5 + eta * (2 + (n - 1) / 2), rel=1e-15)
+
+
+def _bound_from_the_derivation(c, n, x, manual, max_output_count=None):
+    """agreement_bound_count's recurrence written again from its docstring's derivation (plain Python floats)."""
+    q = c.represented()
+    eta = 2.0 ** -c.state_frac_bits
+    x = min(x, c.input_limit_count)
+    d = {k: abs(q[k] - getattr(c, k)) for k in q}
+    e_p = (d["kp_count"] + d["kpb_count"]) * x + (eta / 2 if c.p_shift else 0.0)
+    e_d = 0.0
+    if c.bd_mant:
+        d_max = abs(c.bd_count) * 2 * x / (1 - c.ad)
+        e_d = (d["ad"] * d_max + d["bd_count"] * 2 * x + eta) / (1 - c.ad)
+    lim = max(abs(c.out_min_count - c.out_min_exact_count), abs(c.out_max_count - c.out_max_exact_count))
+    uv = 2.0 ** (32 - c.state_frac_bits) if max_output_count is None else 2.0 * max_output_count
+    rate = d["rate_step_count"]
+    e_i, e_u = e_p + e_d + eta, 0.0
+    for k in range(n):
+        if manual[k]:
+            e_u = max(lim, e_u + rate) if c.rate_step_q else lim
+            e_i = e_u + e_p + e_d + eta
+            continue
+        e_u = max(e_p + e_i + e_d, lim, *((e_u + rate,) if c.rate_step_q else ()))
+        if c.anti_windup == "back_calculation" and c.track_mant:
+            e_i = (1 - c.track) * e_i + c.track * (e_u + e_p + e_d) + d["track"] * uv + d["ki_count"] * 2 * x + eta
+        else:
+            e_i = e_i + d["ki_count"] * 2 * x + eta / 2
+    return e_u + 0.5
+
+
+@pytest.mark.parametrize("overrides, opc", [
+    (dict(), 0.013),
+    (dict(rate_limit_per_s=7.3, out_min=-3.3, out_max=9.1), 0.011),
+    (dict(anti_windup="clamping", kd_s=0.0), 0.007),
+    (dict(anti_windup="none", kp=0.0), 0.017),
+    (dict(ki_per_s=0.0, rate_limit_per_s=2.9), 0.019)])
+def test_agreement_bound_is_its_derivation(overrides, opc):
+    # Coefficients that do not quantise exactly (output_per_count not a power of two) and limits off whole counts, so
+    # that every term of the derivation is non-zero somewhere; automatic and manual steps mixed.
+    # With limits on whole counts (700 counts each way) the limit term L vanishes and the other terms show.
+    manual = [k % 7 in (3, 4) for k in range(40)]
+    for whole in (False, True):
+        limits = dict(out_min=-700 * opc, out_max=700 * opc) if whole else {}
+        c = quantise_pid(settings(**{**overrides, **limits}), input_per_count=0.003, output_per_count=opc)
+        for mode in (manual, [False] * 40, [True] * 40):
+            assert agreement_bound_count(c, 40, max_input_count=900, manual=mode) == pytest.approx(
+                _bound_from_the_derivation(c, 40, 900, mode), rel=1e-13, abs=0)
+        assert agreement_bound_count(c, 40, max_input_count=900, manual=manual, max_output_count=1000) == \
+            pytest.approx(_bound_from_the_derivation(c, 40, 900, manual, 1000), rel=1e-13, abs=0)
