@@ -417,3 +417,10 @@ def test_uniform_sizing_ties_and_two_codes():
     # Two codes on a line: the widest spacing tried is 2^1 (a span of 1 has one bit), nodes at d = 0 and 2.
     fit = S.size_uniform(target([3.0, 5.0], bound=0.5), 16)
     assert (fit.shift, fit.y.tolist()) == (1, [3, 7])
+
+
+def test_segmented_refuses_an_impossible_bound():
+    # Values half-way between DAC codes, bound below half an LSB: not even one-code segments (k = 0) meet it.
+    with pytest.raises(TableError) as exc:
+        S._place_segmented(target([10.5] * 5, bound=0.4, ext=0.0), 0)
+    assert exc.value.reason == "DAC quantisation: no segmented table meets the bound"
