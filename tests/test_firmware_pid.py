@@ -607,3 +607,14 @@ def test_agreement_bound_is_its_derivation(overrides, opc):
                 _bound_from_the_derivation(c, 40, 900, mode), rel=1e-13, abs=0)
         assert agreement_bound_count(c, 40, max_input_count=900, manual=manual, max_output_count=1000) == \
             pytest.approx(_bound_from_the_derivation(c, 40, 900, manual, 1000), rel=1e-13, abs=0)
+
+
+def test_fixed_pid_refuses_non_integer_and_out_of_range_counts():
+    pid = FixedPid(quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01))
+    cases = [(lambda: pid.step(1.5, 0), "setpoint_count: need an integer count, got 1.5"),
+             (lambda: pid.step(0, 2 ** 31), "measurement_count: 2147483648 is outside the int32 range"),
+             (lambda: pid.set_manual(-(2 ** 31) - 1), "output_count: -2147483649 is outside the int32 range")]
+    for call, reason in cases:
+        with pytest.raises(ModelError) as exc:
+            call()
+        assert exc.value.reason == reason
