@@ -424,3 +424,36 @@ def test_segmented_refuses_an_impossible_bound():
     with pytest.raises(TableError) as exc:
         S._place_segmented(target([10.5] * 5, bound=0.4, ext=0.0), 0)
     assert exc.value.reason == "DAC quantisation: no segmented table meets the bound"
+
+
+def test_nodes_are_int64_codes_clipped_at_zero():
+    # A line from below code 0: the nodes are held at 0 there, and stored as int64.
+    t = target([-3.4 + d for d in range(9)], bound=5.0)
+    nodes, _, _ = S.uniform_candidate(t, 2)
+    assert nodes.dtype == np.int64 and nodes.tolist() == [0, 1, 5, 9]  # -3.4, 0.6, 4.6, 8.6 rounded
+    y, k = S._place_segmented(t, 0)
+    assert y.dtype == np.int64 and k.dtype == np.int64 and int(y[0]) == 0
+
+
+def test_polynomial_degree_2_minimax_of_a_quartic_by_hand():
+    # f(x) = 1000 + x / 2 + x^2 / 64 + x^4 / 2^20 at x = -32 .. 32. The x^4 term is at most 1 LSB; its best
+    # quadratic on [-32, 32] is 32^2 x^2 / 2^20 - 32^4 / (8 x 2^20) (Chebyshev: x^4 - x^2 + 1/8 = T_4 / 8 on
+    # [-1, 1]), 1/8 LSB off. A line misses by 8 LSB, so the polynomial is of degree 2 with coefficients
+    # 1000 - 1/8, 1/2 and 1/64 + 1/1024 = 17/1024 (the last one held exactly; the others as well as 32 and 16 bits
+    # allow after each refit).
+    t = target([1000 + x / 2 + x * x / 64 + x ** 4 / 2 ** 20 for x in range(-32, 33)], bound=1.0)
+    fit = S.size_polynomial(t, 16)
+    assert fit.y.size == 3
+    q = [fit.node_frac_bits]
+    for sh in fit.coeff_shift.tolist():
+        q.append(q[-1] + sh)
+    got = [int(c) / 2 ** qj for c, qj in zip(fit.y.tolist(), q)]
+    assert got == pytest.approx([1000 - 1 / 8, 0.5, 17 / 1024], rel=1e-4)
+
+
+def test_polynomial_fit_keeps_the_margin_for_rounding():
+    # f = 1000 + x / 2 + x^2 / 1024 at x = -32 .. 32: the best line misses by (32^2 / 1024) / 2 = 0.5 LSB, more than
+    # the 1 - 0.6 = 0.4 LSB the fit may use at a bound of 1 LSB, so a line is not taken although its rounded values
+    # might meet the bound: the polynomial is of degree 2.
+    t = target([1000 + x / 2 + x * x / 1024 for x in range(-32, 33)], bound=1.0)
+    assert S.size_polynomial(t, 16).y.size == 3
