@@ -618,3 +618,24 @@ def test_fixed_pid_refuses_non_integer_and_out_of_range_counts():
         with pytest.raises(ModelError) as exc:
             call()
         assert exc.value.reason == reason
+
+
+def test_fixed_pid_run_refusals_and_input_saturation():
+    c = quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01, input_limit_count=100)
+    n = 3
+    for kw, name in ((dict(setpoint_count=[-(2 ** 31) - 1] * n), "setpoint_count"),
+                     (dict(measurement_count=[0, 2 ** 31, 0]), "measurement_count"),
+                     (dict(manual=[True] * n, manual_output_count=[2 ** 31] * n), "manual_output_count")):
+        args = dict(setpoint_count=[0] * n, measurement_count=[0] * n)
+        args.update(kw)
+        with pytest.raises(ModelError) as exc:
+            FixedPid(c).run(args.pop("setpoint_count"), args.pop("measurement_count"), **args)
+        assert exc.value.reason == f"{name}: values outside the int32 range"
+    ok = FixedPid(c).run([-(2 ** 31)] * n, [2 ** 31 - 1] * n)  # the ends of int32 are accepted
+    assert ok.output.dtype == np.int64 and ok.integrator.dtype == np.int64
+    # Inputs are saturated to +-input_limit_count (100 counts) before anything else: -500 acts as -100 and 700 as 100.
+    for r, y, r_sat, y_sat in ((-500, 700, -100, 100), (300, -900, 100, -100)):
+        a, b = FixedPid(c), FixedPid(c)
+        assert [a.step(r, y) for _ in range(3)] == [b.step(r_sat, y_sat) for _ in range(3)]
+        assert a.state == b.state
+    assert FixedPid(c).step(-99, 99) != FixedPid(c).step(-100, 100)  # and nothing inside the limit is touched
