@@ -457,3 +457,14 @@ def test_polynomial_fit_keeps_the_margin_for_rounding():
     # might meet the bound: the polynomial is of degree 2.
     t = target([1000 + x / 2 + x * x / 1024 for x in range(-32, 33)], bound=1.0)
     assert S.size_polynomial(t, 16).y.size == 3
+
+
+@pytest.mark.parametrize("a1, c1", [(2.0 ** -12, 256), (0.0, 0)])
+def test_polynomial_shifts_capped_by_the_next_coefficient(a1, c1):
+    # f = 1000 + a1 x + x^2 / 64 at x = -32 .. 32 (three coefficients, the constant in 32 bits, 8 bytes; a line
+    # misses by 8 LSB). Q_2 = 20 as in test_polynomial_sizing_by_hand. A 16-bit word could hold 2^-12 (or 0) with
+    # far more than 20 fraction bits, but Q_1 may not pass Q_2 (every Horner shift >= 0): Q_1 = 20, C_1 = a1 2^20.
+    # The constant could take 21 bits in 32 (1000 x 2^21 < 2^31) but Q_0 <= Q_1: Q_0 = 20, C_0 = 1000 x 2^20.
+    t = target([1000 + a1 * x + x * x / 64 for x in range(-32, 33)], bound=1.0)
+    fit = S.size_polynomial(t, 16)
+    assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([1000 << 20, c1, 16384], [0, 0], 20)
