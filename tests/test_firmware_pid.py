@@ -639,3 +639,27 @@ def test_fixed_pid_run_refusals_and_input_saturation():
         assert [a.step(r, y) for _ in range(3)] == [b.step(r_sat, y_sat) for _ in range(3)]
         assert a.state == b.state
     assert FixedPid(c).step(-99, 99) != FixedPid(c).step(-100, 100)  # and nothing inside the limit is touched
+
+
+def test_fixed_state_saturates_at_the_int32_range():
+    # Output limits of +-1000 counts give F = 27 - 10 = 17 fraction bits: the int32 state holds +-16384 counts. A
+    # measurement step of 2^24 - 1 counts makes the derivative term (kd / (Tf + h) = 3.3 counts per count) far
+    # larger: it saturates at the int32 ends, negative for a rising measurement. An error of 2^24 - 1 counts drives
+    # the integrator to the ends in one step (0.05 x 2^24 counts), and the bumpless start from reset(0) sets it
+    # to -P there (beyond the ends too).
+    big = (1 << 24) - 1
+    for sign in (1, -1):
+        c = quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01)
+        assert c.state_frac_bits == 17
+        pid = FixedPid(c)
+        pid.step(0, 0)
+        pid.step(0, sign * big)
+        assert pid.state.derivative_q == (INT32_MIN if sign > 0 else INT32_MAX)
+        for mode in ("none", "back_calculation"):
+            pid = FixedPid(quantise_pid(settings(anti_windup=mode), input_per_count=0.01, output_per_count=0.01))
+            pid.step(sign * big, 0)
+            assert pid.state.integrator_q == (INT32_MAX if sign > 0 else INT32_MIN)
+        pid = FixedPid(quantise_pid(settings(ki_per_s=0.0, kd_s=0.0), input_per_count=0.01, output_per_count=0.01))
+        pid.reset(0)
+        pid.step(sign * big, 0)
+        assert pid.state.integrator_q == (INT32_MIN if sign > 0 else INT32_MAX)
