@@ -315,8 +315,10 @@ def test_polynomial_sizing_by_hand():
 def test_polynomial_sizing_needs_room_for_rounding():
     # The fit aims 0.6 LSB inside the bound; a bound of 0.6 LSB leaves nothing.
     t = target([1000 + x / 2 for x in range(-8, 9)], bound=0.6)
-    with pytest.raises(TableError, match="no room for a polynomial's rounding"):
+    with pytest.raises(TableError) as exc:
         S.size_polynomial(t, 16)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: the bound leaves no room for a polynomial's rounding"
     fit = S.size_polynomial(target([1000 + x / 2 for x in range(-8, 9)], bound=0.61), 16)
     assert fit.y.size == 2  # a line fits a line
 
@@ -468,3 +470,30 @@ def test_polynomial_shifts_capped_by_the_next_coefficient(a1, c1):
     t = target([1000 + a1 * x + x * x / 64 for x in range(-32, 33)], bound=1.0)
     fit = S.size_polynomial(t, 16)
     assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([1000 << 20, c1, 16384], [0, 0], 20)
+
+
+def test_polynomial_layout_details_by_hand():
+    quad = [1000 + x / 2 + x * x / 64 for x in range(-32, 33)]
+    # Degrees up to 2 are enough for a quadratic.
+    assert S.size_polynomial(target(quad, bound=1.0), 16, max_degree=2).y.size == 3
+    # A constant needs a degree-1 polynomial (no degree 0 is offered): 32 + 16 bits, the slope 0.
+    fit = S.size_polynomial(target([1000.0] * 17, bound=1.0, ext=0.0), 16)
+    assert tuple(fit.coeff_type_bits) == (32, 16) and int(fit.y[1]) == 0 and fit.y[0] == 1000 << fit.node_frac_bits
+    # 64 codes (100 .. 163): the centre is the whole code floor(263 / 2) = 131.
+    fit = S.size_polynomial(target([1000 + (x - 31) / 2 for x in range(64)], bound=1.0), 16)
+    assert fit.center_code == 131 and isinstance(fit.center_code, int)
+    # A large constant (10^6 DAC codes, a 24-bit DAC) takes Q_0 = floor(log2((2^31 - 1) / 10^6)) = 11 bits, fewer
+    # than Q_1 = 15 and Q_2 = 20 (test_polynomial_sizing_by_hand): shifts 4 and 5.
+    fit = S.size_polynomial(target([10 ** 6 + x / 2 + x * x / 64 for x in range(-32, 33)], bound=1.0,
+                                   dac_full=(1 << 24) - 1), 24)
+    assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([10 ** 6 << 11, 16384, 16384], [4, 5], 11)
+
+
+def test_polynomial_fit_samples_long_ranges():
+    # More than 6000 codes: the fit uses 6000 of them (both ends included) and every code is checked afterwards;
+    # a quadratic over 6401 codes is still held by three coefficients within the bound at every code.
+    n = 6401
+    t = target([500 + 0.3 * d + (d - 3200) ** 2 / 40000 for d in range(n)], bound=1.0, dac_full=(1 << 16) - 1)
+    fit = S.size_polynomial(t, 16)
+    got = polynomial_value(fit.y, fit.coeff_shift, t.codes - fit.center_code, fit.node_frac_bits)
+    assert fit.y.size == 3 and meets(t, got.tolist())
