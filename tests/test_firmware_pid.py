@@ -663,3 +663,26 @@ def test_fixed_state_saturates_at_the_int32_range():
         pid.reset(0)
         pid.step(sign * big, 0)
         assert pid.state.integrator_q == (INT32_MIN if sign > 0 else INT32_MAX)
+
+
+def test_reset_clears_every_field_and_the_32_bit_integrator_floor():
+    from compensator.firmware.pid_fixed import FixedPidState
+
+    c = quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01)
+    pid = FixedPid(c)
+    pid.set_manual(300)
+    pid.run([100, -200, 400], [5, 60, -70], manual=[False, True, False], manual_output_count=[0, 300, 0])
+    pid.reset()
+    zero = FixedPidState(integrator_q=0, derivative_q=0, output_q=0, manual_target_q=0, last_measurement_count=0,
+                         manual=False, primed=False, have_output=False)
+    assert pid.state == zero == FixedPid(c).state
+    with pytest.raises(ModelError) as exc:
+        FixedPid(s := settings())
+    assert exc.value.reason == f"coeffs: need FixedPidCoefficients, got {type(s).__name__}"
+    # The 32-bit variant's integrator stops at -2^28 (Q.F) as it does at +2^28 (test_firmware_pid_c32.py).
+    from compensator.firmware.pid_coefficients import STATE_LIMIT_32
+
+    c32 = quantise_pid(settings(kp=0.0, kd_s=0.0, anti_windup="none", out_min=-4095.0, out_max=4095.0),
+                       input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=4096)
+    run = FixedPid(c32).run(np.full(3000, -4096), np.zeros(3000, dtype=np.int64))
+    assert run.integrator.min() == -STATE_LIMIT_32 == -(1 << 28)
