@@ -497,3 +497,13 @@ def test_polynomial_fit_samples_long_ranges():
     fit = S.size_polynomial(t, 16)
     got = polynomial_value(fit.y, fit.coeff_shift, t.codes - fit.center_code, fit.node_frac_bits)
     assert fit.y.size == 3 and meets(t, got.tolist())
+
+
+def test_optimised_wide_accumulator_by_hand():
+    # A line of 10000 DAC codes per code over 300 codes (a 24-bit DAC): 16-bit slopes leave no fraction bit, so
+    # 32-bit ones with F = min(floor(log2((2^31 - 1) / 20001)), bit_length(299) + 2) = min(16, 11) = 11: one row,
+    # slope 10000 x 2^11 = 20480000. The accumulator holds |S| x 300 + 2^11 = 6 144 002 048 > 2^31: 64 bits. The
+    # values are 32-bit DAC codes.
+    fit = S.size_optimised(target([10000 * d + 100 for d in range(300)], bound=0.5, dac_full=(1 << 24) - 1), 16, 32)
+    assert (fit.slope_type_bits, fit.slope_frac_bits, fit.slope.tolist()) == (32, 11, [20480000])
+    assert (fit.acc_type_bits, fit.node_type_bits) == (64, 32)
