@@ -254,6 +254,7 @@ def test_optimised_single_code_and_flat_end():
     for exact, full, want in ((5.5, 4095, 6), (-0.3, 4095, 0), (0.2, 4095, 0), (4095.4, 4095, 4095), (9.6, 9, 9)):
         assert S._place_optimised(target([exact], bound=0.6, ext=0.0, dac_full=full), 4, 1000)[1].tolist() == [want]
     assert S._place_optimised(target([5.5], bound=0.5, ext=0.0), 4, 1000)[1].tolist() == [6]
+    assert S._place_optimised(target([-0.7], bound=1.0, ext=0.0), 4, 1000)[1].tolist() == [0]  # not -1
 
 
 def test_minimax_line_of_a_parabola_by_hand():
