@@ -209,6 +209,19 @@ def test_curves_on_each_refusal_boundary():
     r = iv.find_breakdown(GRID_V, np.exp(ln_i), joint_fit=False)
     assert r.reason == tuple(rows.values())
     assert r.window_points.tolist() == [5] * len(rows)
+    # Leakage that stops growing (as in _curves_for_the_window_rules) while the line through ln I below the knee
+    # does not: where that line exceeds 80 % of the current everywhere above the knee no point is left for the
+    # fit; where it bends 1/D down above the knee the fit falls. Analysed beside a plain curve.
+    from compensator.calibration.synthetic import iv_current_a
+
+    power = iv_current_a(GRID_V, 24.5, geiger_scale_v=1.0, leakage_a=1e-30)
+    leaks = [level * np.exp(b * (GRID_V - 20.0)) / (1.0 + np.exp(b * (GRID_V - stop)))
+             for level, b, stop in ((3e-10, 2.0, 23.0), (1e-9, 2.5, 22.0))]
+    r = iv.find_breakdown(GRID_V, np.vstack([power + leaks[0], power + leaks[1], iv_current_a(GRID_V, 24.5)]),
+                          joint_fit=False)
+    assert r.reason == ("no breakdown in range: too few points above the knee at 25.05 V for the fit (0; need 4) "
+                        "before the end of the sweep at 31 V",
+                        "no breakdown in range: 1/(d ln I/dV) does not rise above the knee", "")
     # The knee must stand 5 sigma above the noise of the smoothed derivative: the same seeded noise of 0.3 in
     # ln I on a weak knee (0.345 and 0.37 per volt above a base of 0.3 per volt) asks for the widest window,
     # 55 points, where the peak is 4.93 and 5.11 times sigma_d = noise ||savgol_coeffs(55, 3, deriv=1)|| / dV
@@ -227,3 +240,24 @@ def test_curves_on_each_refusal_boundary():
         assert 27 + np.argmax(deriv[27:194]) == 111
         ratios.append(deriv[111] / sigma_d)
     assert 4.85 < ratios[0] < 5.0 < ratios[1] < 5.15
+
+
+@pytest.mark.parametrize("method", iv.METHODS)
+def test_rows_on_their_own_grids_give_what_each_gives_alone(method):
+    # A batch of curves each on its own bias row (two of one step, one shifted by 13 mV, one of another step,
+    # which is analysed in its own group) gives for every curve what the curve gives alone, for each method
+    # with the derivative method alone (joint_fit=False).
+    from compensator.calibration.synthetic import simulate_iv
+
+    rng = np.random.default_rng(5)
+    grids = [GRID_V, GRID_V + 0.013, np.round(np.arange(20.0, 31.0001, 0.04), 4)[:GRID_V.size], GRID_V]
+    truth = [24.4, 24.6, 24.5, 24.9]
+    current = np.vstack([simulate_iv(rng, g, [t], relative_noise=0.005, geiger_scale_v=1.0)[0]
+                         for g, t in zip(grids, truth)])
+    batch = iv.find_breakdown(np.vstack(grids), current, method, joint_fit=False)
+    assert batch.ok.all()
+    for i, g in enumerate(grids):
+        alone = iv.find_breakdown(g, current[i], method, joint_fit=False)
+        for name in ("breakdown_v", "breakdown_err_v", "fit_lo_v", "fit_hi_v", "leakage_current_a"):
+            assert getattr(batch, name)[i] == pytest.approx(getattr(alone, name)[0], rel=1e-12, abs=1e-15), name
+        assert batch.window_points[i] == alone.window_points[0]

@@ -147,3 +147,22 @@ def test_a_curve_without_a_breakdown_is_refused_with_its_rise():
     assert r.reason[1] == "no breakdown in range: the current rises only 1.5-fold between 20 V and 29.95 V"
     assert r.joint_fit.tolist() == [True, False] and not r.leakage_limited[1]
     assert all(np.isnan(getattr(r, name)[1]) for name in iv._FLOAT_FIELDS)
+
+
+@pytest.mark.parametrize("slope_per_v", [0.5, 1.0])
+def test_peak_method_keeps_the_leakage_level_at_the_knee_and_removes_its_growth(slope_per_v):
+    # For I = I0 + A x^k the maximum of d ln I/dV lies at x* = ((k - 1) I0 / A)^(1/k) above breakdown (set the
+    # derivative of A k x^(k-1) / (I0 + A x^k) to zero; derived here). With an exponential leakage the peak
+    # method removes its growth and keeps its level at the knee (the peak of the smoothed d ln I/dV, here from
+    # ivknee, pinned against scipy in tests/test_calibration_ivknee_mutation.py), so the peak is x* with
+    # I0 = I_leak(V_knee); within the method's 2 mV on a 10 mV grid (tests/test_calibration_iv.py).
+    from compensator.calibration.ivknee import _knee
+    from compensator.calibration.synthetic import iv_current_a
+
+    grid = np.round(np.arange(22.0, 28.0001, 0.01), 4)
+    current = iv_current_a(grid, 24.5, exponent=2.0, avalanche_a=1e-6, leakage_a=1e-8,
+                           leakage_slope_per_v=slope_per_v)
+    r = iv.find_breakdown(grid, current, "log-derivative-peak")
+    knee_v = grid[_knee(np.log(current)[None, :], 0.01).peak_index[0]]
+    i0 = 1e-8 * np.exp(slope_per_v * (knee_v - 24.5))
+    assert r.breakdown_v[0] == pytest.approx(24.5 + np.sqrt(i0 / 1e-6), abs=0.002)

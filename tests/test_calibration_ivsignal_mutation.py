@@ -36,9 +36,9 @@ def test_window_is_the_narrowest_whose_noise_gain_meets_the_fraction(deriv, frac
     height = np.where(np.arange(25) % 2, 10.0, -10.0)
     got = ivsignal.choose_window(noise, height, 0.05, 97, deriv=deriv, fraction=fraction)
     limit = (fraction if fraction is not None else (0.1 if deriv == 1 else 0.5)) * np.abs(height)
+    gain = {w: np.linalg.norm(savgol_coeffs(w, 3, deriv=deriv, delta=0.05)) for w in range(5, 24, 2)}
     for i in range(noise.size):
-        fits = [w for w in range(5, 24, 2)
-                if noise[i] * np.linalg.norm(savgol_coeffs(w, 3, deriv=deriv, delta=0.05)) <= limit[i]]
+        fits = [w for w in gain if noise[i] * gain[w] <= limit[i]]
         assert got[i] == (fits[0] if fits else 23), i
     assert got[0] == 5 and got[-1] == 23 and len(set(got.tolist())) >= 4
 

@@ -6,6 +6,7 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
+from cbuild import PEDANTIC, build, needs_cc
 from compensator.firmware import fixed_point as fp
 
 
@@ -49,3 +50,19 @@ def test_saturate_defaults_to_32_bits():
     # int32_t runs from -2^31 to 2^31 - 1 (C99 7.18.2.1).
     assert fp.saturate(2 ** 31) == 2 ** 31 - 1 and fp.saturate(2 ** 31 - 1) == 2 ** 31 - 1
     assert fp.saturate(-(2 ** 31) - 1) == -(2 ** 31)
+
+
+@needs_cc
+def test_c_floor_shift_compiles_and_floors(tmp_path):
+    # The rendered helper, compiled with the real compiler, against floor division of exact rationals for
+    # negative and positive values (C leaves >> of a negative value to the implementation; the helper must not).
+    import subprocess
+
+    text = fp.c_floor_shift_function("t_fs", "int32_t")
+    main = ("#include <stdint.h>\n#include <stdio.h>\n" + text +
+            "int main(void)\n{\n    for (int32_t p = -300; p <= 300; ++p) {\n"
+            "        for (unsigned k = 0; k < 9; ++k) {\n            printf(\"%ld\\n\", (long)t_fs(p, k));\n"
+            "        }\n    }\n    return 0;\n}\n")
+    exe = build(tmp_path, {"fs.c": main}, PEDANTIC)
+    got = [int(v) for v in subprocess.run([str(exe)], capture_output=True, text=True, check=True).stdout.split()]
+    assert got == [math.floor(Fraction(p, 2 ** k)) for p in range(-300, 301) for k in range(9)]

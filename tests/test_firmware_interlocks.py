@@ -548,3 +548,22 @@ def test_without_a_readback_channel_nothing_is_checked(rising, board_pt1000):
         out = ilk.step(_inputs(rising, board_pt1000, 20.0, rising.bias_limit_level, now_ms=k * rising.tick_ms,
                                bias_readback_code=0))
     assert rising.supply_fault_ticks == 0 and not out.faults_latched & FaultFlag.SUPPLY_FAULT
+
+
+@pytest.mark.parametrize("which", ["falling", "rising"])
+def test_level_bias_is_the_supply_output(which, request, board_ntc, board_pt1000):
+    # A bias level is a DAC code counted in the direction of rising bias; its nominal output is the supply formula
+    # at that code (compensator.physics.supply), linear in the level.
+    lim = request.getfixturevalue(which)
+    board = board_ntc if which == "falling" else board_pt1000
+    levels = np.array([0, 1, 1000, lim.dac_full_scale])
+    expected = board.supply.output_v(np.array([lim.code(int(v)) for v in levels]))
+    assert lim.level_bias_v(levels) == pytest.approx(expected, rel=1e-12, abs=1e-9)
+    assert lim.level_bias_v(7) == pytest.approx(float(board.supply.output_v(lim.code(7))), abs=1e-9)
+
+
+def test_fault_words_are_32_bits():
+    from compensator.firmware.faults import fault_names
+
+    assert fault_names(1 << 31) == ["bit_31"] and fault_names(1 << 32) == [] and fault_names((1 << 33) | 1) == [
+        "sensor_open"]

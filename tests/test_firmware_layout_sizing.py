@@ -101,7 +101,7 @@ def test_uniform_sizing_is_the_plain_python_search(bound):
     fit = S.size_uniform(t, 16)
     nbytes, shift, frac, node_bits, y = uniform_reference(t, 16)
     assert (fit.shift, fit.node_frac_bits, fit.node_type_bits) == (shift, frac, node_bits)
-    assert fit.y.tolist() == y and fit.y.size * fit.node_type_bits // 8 == nbytes
+    assert fit.y.tolist() == y and fit.y.size * fit.node_type_bits // 8 == nbytes and fit.layout == "uniform"
     # The accumulator: the largest |Y[i+1] - Y[i]| (2^s - 1) + 2^s, or the largest node plus 2^G; these fit 32 bits.
     assert fit.acc_type_bits == 32
 
@@ -129,8 +129,10 @@ def test_uniform_sizing_refuses_an_impossible_bound():
     # Exact values half-way between DAC codes, with a bound below half an LSB: even a node at every code misses.
     # (the firmware's output is a whole DAC code, 0.5 LSB from 10.5 whatever the nodes hold).
     t = target([10.5] * 9, bound=0.4, ext=0.0)
-    with pytest.raises(TableError, match="no uniform table meets the bound even with one node per ADC code"):
+    with pytest.raises(TableError) as exc:
         S.size_uniform(t, 16)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: no uniform table meets the bound even with one node per ADC code"
     assert S.size_uniform(target([10.5] * 9, bound=0.5, ext=0.0), 16).shift == 4  # at 0.5 LSB one spacing does
 
 
@@ -145,7 +147,12 @@ def test_segmented_placement_is_the_plain_python_greedy(bound, frac):
 
 def test_segmented_sizing_keeps_the_format_with_fewer_bytes():
     # Bytes: 16-bit nodes (or 32-bit with 8 fractional bits) plus one byte per segment width.
-    for exact, bound in ((PARABOLA, 0.75), ([d / 3 + 0.25 for d in range(33)], 0.55)):
+    # (The last three are close calls: 8 fractional bits win by 14 to 9 bytes; plain nodes by 11 to 14; a tie
+    # at 29 bytes, which goes to plain nodes, the first format tried.)
+    line = [d / 3 + 0.25 for d in range(17)]
+    for exact, bound in ((PARABOLA, 0.75), ([d / 3 + 0.25 for d in range(33)], 0.55), (line, 0.55),
+                         ([d / 3 + d * d / 64 + 0.25 for d in range(17)], 1.0),
+                         ([d / 3 + d * d / 256 + 0.25 for d in range(33)], 0.52)):
         t = target(exact, bound=bound)
         fit = S.size_segmented(t, 16)
         sizes = {}
@@ -153,7 +160,7 @@ def test_segmented_sizing_keeps_the_format_with_fewer_bytes():
             ys, ks = segmented_reference(t, frac)
             sizes[frac] = (len(ys) * node_bits // 8 + len(ks), ys, ks, node_bits)
         frac = min(sizes, key=lambda f: (sizes[f][0], f))
-        assert fit.node_frac_bits == frac and fit.y.tolist() == sizes[frac][1]
+        assert fit.layout == "segmented" and fit.node_frac_bits == frac and fit.y.tolist() == sizes[frac][1]
         assert fit.segment_shift.tolist() == sizes[frac][2] and fit.node_type_bits == sizes[frac][3]
         assert fit.acc_type_bits == 32
 
@@ -195,8 +202,10 @@ def test_segment_line_by_hand():
     # -0.25, 0, y0 = rint(9.875) = 10, slope 6.
     assert S._segment_ok(t, 0, 4, False, 4, 1000) == (True, 10, 6)
     assert segment_line(t, 0, 4, 4)[:2] == (10, 6)
-    # A slope beyond its C type is refused (8 > 7), and a line below code 0 is held at 0.
-    assert S._segment_ok(t, 0, 4, True, 4, 7)[0] is False
+    # A slope beyond its C type is refused (8 > 7; 8 itself is allowed), a line below code 0 is held at 0 and one
+    # above full scale at full scale.
+    assert S._segment_ok(t, 0, 4, True, 4, 7)[0] is False and S._segment_ok(t, 0, 4, True, 4, 8)[0] is True
+    assert S._segment_ok(target([4095.7] * 5, bound=1.0, ext=0.0), 0, 4, True, 4, 1000)[:2] == (True, 4095)
     low = target([-3 + d for d in range(9)], bound=5.0)
     assert S._segment_ok(low, 0, 4, True, 4, 1000)[1] == 0
 
@@ -225,6 +234,7 @@ def test_optimised_sizing_bytes_and_types():
     t = target([200 + d * d / 16 for d in range(64)], bound=1.0)
     fit = S.size_optimised(t, 16, 16)
     assert fit.slope_type_bits == 16 and fit.node_type_bits == 16 and fit.acc_type_bits == 32
+    assert fit.layout == "optimised"
     # F: as many bits as the steepest chord leaves in the slope type, at most bit_length(span) + 2 = 8.
     assert fit.slope_frac_bits == 8
     x, y, s = S._place_optimised(t, 8, (1 << 15) - 1)
@@ -236,8 +246,15 @@ def test_optimised_single_code_and_flat_end():
     t = target([5.2], bound=0.5, ext=0.0)
     x, y, s = S._place_optimised(t, 4, 1000)
     assert (x.tolist(), y.tolist(), s.tolist()) == ([LO], [5], [0])
-    with pytest.raises(TableError, match="a single code cannot meet the bound"):
+    with pytest.raises(TableError) as exc:
         S._place_optimised(target([5.5], bound=0.4, ext=0.0), 4, 1000)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: a single code cannot meet the bound"
+    # Rounded half to even (5.5 -> 6: an error of exactly the bound 0.5 meets it) and held within 0 .. full scale.
+    for exact, full, want in ((5.5, 4095, 6), (-0.3, 4095, 0), (0.2, 4095, 0), (4095.4, 4095, 4095), (9.6, 9, 9)):
+        assert S._place_optimised(target([exact], bound=0.6, ext=0.0, dac_full=full), 4, 1000)[1].tolist() == [want]
+    assert S._place_optimised(target([5.5], bound=0.5, ext=0.0), 4, 1000)[1].tolist() == [6]
+    assert S._place_optimised(target([-0.7], bound=1.0, ext=0.0), 4, 1000)[1].tolist() == [0]  # not -1
 
 
 def test_minimax_line_of_a_parabola_by_hand():
@@ -282,6 +299,7 @@ def test_polynomial_sizing_by_hand():
     t = target([1000 + x / 2 + x * x / 64 for x in range(-32, 33)], bound=1.0)
     fit = S.size_polynomial(t, 16)
     assert fit.y.size == 3 and tuple(fit.coeff_type_bits) == (32, 16, 16) and fit.center_code == LO + 32
+    assert fit.layout == "polynomial" and fit.acc_type_bits == 64 and fit.node_type_bits == 0
     assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([32768000, 16384, 16384], [0, 5], 15)
     got = polynomial_value(fit.y, fit.coeff_shift, t.codes - fit.center_code, fit.node_frac_bits)
     assert meets(t, got.tolist())
@@ -298,7 +316,195 @@ def test_polynomial_sizing_by_hand():
 def test_polynomial_sizing_needs_room_for_rounding():
     # The fit aims 0.6 LSB inside the bound; a bound of 0.6 LSB leaves nothing.
     t = target([1000 + x / 2 for x in range(-8, 9)], bound=0.6)
-    with pytest.raises(TableError, match="no room for a polynomial's rounding"):
+    with pytest.raises(TableError) as exc:
         S.size_polynomial(t, 16)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: the bound leaves no room for a polynomial's rounding"
     fit = S.size_polynomial(target([1000 + x / 2 for x in range(-8, 9)], bound=0.61), 16)
     assert fit.y.size == 2  # a line fits a line
+
+
+def test_optimised_slope_formats_by_hand():
+    # The fraction bits F of a slope type of w bits: floor(log2((2^(w-1) - 1) / (2 max|f'| + 1))), at most
+    # bit_length(span) + 2. A line of 5000 DAC codes per code over 9 codes (span 8: at most 6): 16 bits leave
+    # floor(log2(32767 / 10001)) = 1 bit, and the line is one row, slope 10000 (6 bytes); 32 bits would give F = 6
+    # and 8 bytes, so the 16-bit slope is kept. At 10000 codes per code 16 bits leave no fraction bit
+    # (log2(32767 / 20001) < 1) and 32-bit slopes are used: F = min(16, 6) = 6, slope 10000 x 64.
+    wide = (1 << 24) - 1
+    fit = S.size_optimised(target([5000 * d + 100 for d in range(9)], bound=0.5, dac_full=wide), 16, 32)
+    assert (fit.slope_type_bits, fit.slope_frac_bits, fit.x.tolist(), fit.y.tolist(), fit.slope.tolist()) == (
+        16, 1, [LO], [100], [10000])
+    assert fit.acc_type_bits == 32  # 10000 x 9 + 2^1 < 2^31
+    fit = S.size_optimised(target([10000 * d + 100 for d in range(9)], bound=0.5, dac_full=wide), 16, 32)
+    assert (fit.slope_type_bits, fit.slope_frac_bits, fit.slope.tolist()) == (32, 6, [640000])
+    # One and two codes: F = min(room, bit_length(max(span, 1)) + 2) = 3.
+    one = S.size_optimised(target([5.2], bound=0.5, ext=0.0), 16, 16)
+    assert (one.slope_type_bits, one.slope_frac_bits, one.x.tolist(), one.y.tolist(), one.slope.tolist()) == (
+        16, 3, [LO], [5], [0])
+    two = S.size_optimised(target([5.0, 6.0], bound=0.5), 16, 16)
+    assert (two.slope_frac_bits, two.slope.tolist()) == (3, [8])
+
+
+def test_optimised_sizing_refusal_names_the_term():
+    # Values half-way between DAC codes and a bound below half an LSB: no breakpoint layout of either slope width.
+    with pytest.raises(TableError) as exc:
+        S.size_optimised(target([10.5] * 5, bound=0.4, ext=0.0), 16, 16)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: no breakpoint layout meets the bound"
+
+
+@pytest.mark.parametrize("top, acc_bits", [((1 << 23) - 1, 64), ((1 << 23) - 2, 32)])
+def test_accumulator_width_at_the_node_limit(top, acc_bits):
+    # A slow line just below 2^23 DAC codes (a 24-bit DAC), f = top - d / 3, d = 0 .. 8, at 0.34 LSB: nodes with 8
+    # fractional bits 8 codes apart (12 bytes; plain ones would need one per code). The accumulator holds a node
+    # plus the rounding term 2^8: (2^23 - 1) 2^8 + 2^8 = 2^31 does not fit int32, (2^23 - 2) 2^8 + 2^8 does; the
+    # interpolation term (8/3 x 2^8 per node, 7 steps) is far smaller.
+    t = target([top - d / 3 for d in range(9)], bound=0.34, dac_full=(1 << 24) - 1)
+    for fit in (S.size_uniform(t, 32), S.size_segmented(t, 32)):
+        assert fit.node_frac_bits == 8 and int(fit.y.max()) == top << 8
+        assert fit.acc_type_bits == acc_bits
+
+
+def optimised_reference(t, frac_bits):
+    """The greedy breakpoints by linear scan: the whole rest as the last segment when it meets the bound, else the
+    furthest next breakpoint ``end <= n - 2`` with codes ``start .. end - 1`` within the bound (never a lone last
+    code), with the plain-Python line."""
+    n, start, rows = t.exact.size, 0, []
+    while True:
+        if start == n - 1:
+            rows.append((start, min(max(round(float(t.exact[start])), 0), t.dac_full), 0))
+            return rows
+        y0, s, got = segment_line(t, start, n, frac_bits)
+        if meets(t, got, start):
+            rows.append((start, y0, s))
+            return rows
+        end = max(e for e in range(start + 1, n - 1) if e == start + 1 or meets(t, segment_line(t, start, e,
+                                                                                                  frac_bits)[2], start))
+        rows.append((start,) + segment_line(t, start, end, frac_bits)[:2])
+        start = end
+
+
+@pytest.mark.parametrize("n", [6, 9, 10, 17, 18, 21])
+@pytest.mark.parametrize("bound", [0.55, 0.8, 1.5])
+def test_optimised_placement_is_the_linear_scan(n, bound):
+    # Gallop-and-bisect finds what a scan over every end finds where a segment's feasibility is monotonic in its
+    # length, as on these parabolas (rounding can break that: on 33 codes at 1.5 LSB, codes 15 .. 22 meet the
+    # bound, 15 .. 23 not, 15 .. 24 again, and the search stops at the first miss).
+    t = target([30 + 2.5 * d + d * d / 5 for d in range(n)], bound=bound)
+    x, y, s = S._place_optimised(t, 6, (1 << 15) - 1)
+    rows = optimised_reference(t, 6)
+    assert list(zip((x - LO).tolist(), y.tolist(), s.tolist())) == rows
+
+
+def test_a_one_code_segment_that_cannot_meet_the_bound():
+    with pytest.raises(TableError) as exc:
+        S._place_optimised(target([10.5, 11.5, 12.5], bound=0.4), 4, 1000)
+    assert exc.value.term == "DAC quantisation"
+    assert exc.value.reason == "DAC quantisation: a one-code segment cannot meet the bound"
+
+
+def test_uniform_candidate_nodes_are_plain_codes_by_default():
+    t = target(PARABOLA, bound=1.0)
+    nodes, ok, worst = S.uniform_candidate(t, 3)
+    assert nodes.tolist() == [node(t, LO + 8 * j, 0) for j in range(6)]
+    assert (nodes.tolist(), ok, worst) == (S.uniform_candidate(t, 3, 0)[0].tolist(),) + S.uniform_candidate(t, 3, 0)[1:]
+
+
+def test_uniform_sizing_ties_and_two_codes():
+    # f = d / 7 + 0.25 over 9 codes at 0.51 LSB: 4 plain nodes (8 bytes) or 2 nodes with 8 fractional bits
+    # (8 bytes): a tie goes to plain nodes, the first format tried.
+    t = target([d / 7 + 0.25 for d in range(9)], bound=0.51)
+    assert uniform_reference(t, 16)[0] == 8
+    fit = S.size_uniform(t, 16)
+    assert (fit.node_frac_bits, fit.y.size) == (0, 4)
+    # Two codes on a line: the widest spacing tried is 2^1 (a span of 1 has one bit), nodes at d = 0 and 2.
+    fit = S.size_uniform(target([3.0, 5.0], bound=0.5), 16)
+    assert (fit.shift, fit.y.tolist()) == (1, [3, 7])
+
+
+def test_segmented_refuses_an_impossible_bound():
+    # Values half-way between DAC codes, bound below half an LSB: not even one-code segments (k = 0) meet it.
+    with pytest.raises(TableError) as exc:
+        S._place_segmented(target([10.5] * 5, bound=0.4, ext=0.0), 0)
+    assert exc.value.reason == "DAC quantisation: no segmented table meets the bound"
+
+
+def test_nodes_are_int64_codes_clipped_at_zero():
+    # A line from below code 0: the nodes are held at 0 there, and stored as int64.
+    t = target([-3.4 + d for d in range(9)], bound=5.0)
+    nodes, _, _ = S.uniform_candidate(t, 2)
+    assert nodes.dtype == np.int64 and nodes.tolist() == [0, 1, 5, 9]  # -3.4, 0.6, 4.6, 8.6 rounded
+    y, k = S._place_segmented(t, 0)
+    assert y.dtype == np.int64 and k.dtype == np.int64 and int(y[0]) == 0
+
+
+def test_polynomial_degree_2_minimax_of_a_quartic_by_hand():
+    # f(x) = 1000 + x / 2 + x^2 / 64 + x^4 / 2^20 at x = -32 .. 32. The x^4 term is at most 1 LSB; its best
+    # quadratic on [-32, 32] is 32^2 x^2 / 2^20 - 32^4 / (8 x 2^20) (Chebyshev: x^4 - x^2 + 1/8 = T_4 / 8 on
+    # [-1, 1]), 1/8 LSB off. A line misses by 8 LSB, so the polynomial is of degree 2 with coefficients
+    # 1000 - 1/8, 1/2 and 1/64 + 1/1024 = 17/1024 (the last one held exactly; the others as well as 32 and 16 bits
+    # allow after each refit).
+    t = target([1000 + x / 2 + x * x / 64 + x ** 4 / 2 ** 20 for x in range(-32, 33)], bound=1.0)
+    fit = S.size_polynomial(t, 16)
+    assert fit.y.size == 3
+    q = [fit.node_frac_bits]
+    for sh in fit.coeff_shift.tolist():
+        q.append(q[-1] + sh)
+    got = [int(c) / 2 ** qj for c, qj in zip(fit.y.tolist(), q)]
+    assert got == pytest.approx([1000 - 1 / 8, 0.5, 17 / 1024], rel=1e-4)
+
+
+def test_polynomial_fit_keeps_the_margin_for_rounding():
+    # f = 1000 + x / 2 + x^2 / 1024 at x = -32 .. 32: the best line misses by (32^2 / 1024) / 2 = 0.5 LSB, more than
+    # the 1 - 0.6 = 0.4 LSB the fit may use at a bound of 1 LSB, so a line is not taken although its rounded values
+    # might meet the bound: the polynomial is of degree 2.
+    t = target([1000 + x / 2 + x * x / 1024 for x in range(-32, 33)], bound=1.0)
+    assert S.size_polynomial(t, 16).y.size == 3
+
+
+@pytest.mark.parametrize("a1, c1", [(2.0 ** -12, 256), (0.0, 0)])
+def test_polynomial_shifts_capped_by_the_next_coefficient(a1, c1):
+    # f = 1000 + a1 x + x^2 / 64 at x = -32 .. 32 (three coefficients, the constant in 32 bits, 8 bytes; a line
+    # misses by 8 LSB). Q_2 = 20 as in test_polynomial_sizing_by_hand. A 16-bit word could hold 2^-12 (or 0) with
+    # far more than 20 fraction bits, but Q_1 may not pass Q_2 (every Horner shift >= 0): Q_1 = 20, C_1 = a1 2^20.
+    # The constant could take 21 bits in 32 (1000 x 2^21 < 2^31) but Q_0 <= Q_1: Q_0 = 20, C_0 = 1000 x 2^20.
+    t = target([1000 + a1 * x + x * x / 64 for x in range(-32, 33)], bound=1.0)
+    fit = S.size_polynomial(t, 16)
+    assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([1000 << 20, c1, 16384], [0, 0], 20)
+
+
+def test_polynomial_layout_details_by_hand():
+    quad = [1000 + x / 2 + x * x / 64 for x in range(-32, 33)]
+    # Degrees up to 2 are enough for a quadratic.
+    assert S.size_polynomial(target(quad, bound=1.0), 16, max_degree=2).y.size == 3
+    # A constant needs a degree-1 polynomial (no degree 0 is offered): 32 + 16 bits, the slope 0.
+    fit = S.size_polynomial(target([1000.0] * 17, bound=1.0, ext=0.0), 16)
+    assert tuple(fit.coeff_type_bits) == (32, 16) and int(fit.y[1]) == 0 and fit.y[0] == 1000 << fit.node_frac_bits
+    # 64 codes (100 .. 163): the centre is the whole code floor(263 / 2) = 131.
+    fit = S.size_polynomial(target([1000 + (x - 31) / 2 for x in range(64)], bound=1.0), 16)
+    assert fit.center_code == 131 and isinstance(fit.center_code, int)
+    # A large constant (10^6 DAC codes, a 24-bit DAC) takes Q_0 = floor(log2((2^31 - 1) / 10^6)) = 11 bits, fewer
+    # than Q_1 = 15 and Q_2 = 20 (test_polynomial_sizing_by_hand): shifts 4 and 5.
+    fit = S.size_polynomial(target([10 ** 6 + x / 2 + x * x / 64 for x in range(-32, 33)], bound=1.0,
+                                   dac_full=(1 << 24) - 1), 24)
+    assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([10 ** 6 << 11, 16384, 16384], [4, 5], 11)
+
+
+def test_polynomial_fit_samples_long_ranges():
+    # More than 6000 codes: the fit uses 6000 of them (both ends included) and every code is checked afterwards;
+    # a quadratic over 6401 codes is still held by three coefficients within the bound at every code.
+    n = 6401
+    t = target([500 + 0.3 * d + (d - 3200) ** 2 / 40000 for d in range(n)], bound=1.0, dac_full=(1 << 16) - 1)
+    fit = S.size_polynomial(t, 16)
+    got = polynomial_value(fit.y, fit.coeff_shift, t.codes - fit.center_code, fit.node_frac_bits)
+    assert fit.y.size == 3 and meets(t, got.tolist())
+
+
+def test_optimised_wide_accumulator_by_hand():
+    # A line of 10000 DAC codes per code over 300 codes (a 24-bit DAC): 16-bit slopes leave no fraction bit, so
+    # 32-bit ones with F = min(floor(log2((2^31 - 1) / 20001)), bit_length(299) + 2) = min(16, 11) = 11: one row,
+    # slope 10000 x 2^11 = 20480000. The accumulator holds |S| x 300 + 2^11 = 6 144 002 048 > 2^31: 64 bits. The
+    # values are 32-bit DAC codes.
+    fit = S.size_optimised(target([10000 * d + 100 for d in range(300)], bound=0.5, dac_full=(1 << 24) - 1), 16, 32)
+    assert (fit.slope_type_bits, fit.slope_frac_bits, fit.slope.tolist()) == (32, 11, [20480000])
+    assert (fit.acc_type_bits, fit.node_type_bits) == (64, 32)

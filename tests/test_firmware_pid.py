@@ -465,3 +465,224 @@ def test_old_names_and_settings_from_gains():
     assert (s.sample_time_s, s.out_min, s.out_max, s.rate_limit_per_s) == (0.1, -1.0, 2.0, 3.0)
     # the same Tf by both names: kd / (kp N) = 0.4 / 16
     assert discretise_pid(s).derivative_filter_s == pytest.approx(g.derivative_filter_s) == pytest.approx(0.025)
+
+
+def test_32_bit_ranges_by_hand():
+    # The 32-bit variant needs P, the integrator increment and D within +-2^28 (Q.F) for inputs within +-x counts:
+    # P <= ((|kp m| + |kp b m|) x >> s) + 1, increment <= (|ki m| 2 x >> s) + 1, D <= ((|bd m| 2 x >> s) + 2) / (1 - ad).
+    # 2^28 - 2 = 1022 x 262657, so with mantissas summing to 1022 and no shift P and the increment reach exactly
+    # 2^28 - 1 at x = 262657 (accepted) and pass 2^28 one count later (refused); D reaches 2^28 already there.
+    from compensator.firmware.pid_coefficients import _check_32_bit_ranges, quantise_pid
+
+    base = quantise_pid(PidSettings(kp=0.5, ki_per_s=0.05, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=4095.0),
+                        input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=4096)
+    assert base.state_frac_bits == 15
+    zero = dict(kp_mant=0, kpb_mant=0, p_shift=0, ki_mant=0, ki_shift=0, ad_mant=0, ad_shift=0, bd_mant=0, bd_shift=0)
+
+    def coeffs(x, **kw):
+        return dataclasses.replace(base, input_limit_count=x, **{**zero, **kw})
+
+    cases = [(dict(kp_mant=511, kpb_mant=511), 262657, "P (kp times the input range)"),
+             (dict(kp_mant=-511, kpb_mant=-511), 262657, "P (kp times the input range)"),
+             (dict(kp_mant=16384, kpb_mant=16384, p_shift=1), 16383, "P (kp times the input range)"),
+             (dict(ki_mant=511), 262657, "the integrator increment"),
+             (dict(ki_mant=-16384, ki_shift=1), 16383, "the integrator increment"),
+             (dict(bd_mant=511), 262656, "D (the derivative term)"),
+             (dict(bd_mant=-16384, bd_shift=1), 16383, "D (the derivative term)"),
+             (dict(bd_mant=511, ad_mant=16384, ad_shift=15), 131328, "D (the derivative term)")]  # ad = 1/2
+    for kw, x_ok, what in cases:
+        _check_32_bit_ranges(coeffs(x_ok, **kw))
+        with pytest.raises(ModelError) as exc:
+            _check_32_bit_ranges(coeffs(x_ok + 1, **kw))
+        assert exc.value.key == "word_bits" and exc.value.reason.startswith(f"the 32-bit variant: {what} can reach ")
+    with pytest.raises(ModelError) as exc:
+        _check_32_bit_ranges(coeffs(4096, kp_mant=511, kpb_mant=-511))
+    assert exc.value.reason == ("the 32-bit variant: the setpoint weight must not be negative (kp and kp b of one "
+                                "sign)") and exc.value.key == "word_bits"
+    with pytest.raises(ModelError) as exc:
+        _check_32_bit_ranges(coeffs(262658, kp_mant=511, kpb_mant=511))
+    assert exc.value.reason == (
+        "the 32-bit variant: P (kp times the input range) can reach 2.684e+08 state units (Q16.15) for inputs within "
+        "+-262658 counts, beyond 2^28; the 32-bit variant needs a smaller input range (input_limit_count) or gain, "
+        "otherwise use the 64-bit code")
+
+
+def test_modes_refusals_and_the_run_record():
+    pid = FloatPid(settings())
+    pid.set_manual(1.0)
+    assert pid.manual is True
+    pid.set_auto()
+    assert pid.manual is False
+    for r, y in ((math.nan, 0.0), (0.0, math.inf)):  # either input alone
+        with pytest.raises(ModelError) as exc:
+            pid.step(r, y)
+        assert exc.value.reason == f"setpoint/measurement: must be finite, got {r!r}, {y!r}"
+    run = FloatPid(settings()).run(np.zeros(3), np.ones(3))
+    output, integrator, derivative = run
+    assert output is run.output and integrator is run.integrator and derivative is run.derivative
+
+
+def test_agreement_bound_in_manual_mode_and_from_the_start():
+    # In manual mode the output is the clipped target for both controllers: without a rate limit and with limits
+    # on whole counts (L = 0) the error is only the final rounding to a whole count, 1/2. With no step at all the
+    # bound is the same 1/2. Automatic mode accumulates the integrator's error on top.
+    s = settings(out_min=-1000.0, out_max=1000.0)
+    c = quantise_pid(s, input_per_count=1.0, output_per_count=1.0)
+    assert agreement_bound_count(c, 200, max_input_count=500, manual=True) == 0.5
+    assert agreement_bound_count(c, 200, max_input_count=500, manual=[True] * 200) == 0.5
+    assert agreement_bound_count(c, 0, max_input_count=500) == 0.5
+    assert agreement_bound_count(c, 200, max_input_count=500) > 0.5
+
+
+def test_settings_from_gains_keep_how_the_firmware_runs_them():
+    from compensator.loops.verify import PidGains
+
+    s = PidSettings.from_gains(PidGains(2.0, 0.5, 0.4, 8.0, 0.7), sample_time_s=0.1, out_min=-1.0, out_max=2.0,
+                               anti_windup="clamping", tracking_time_s=2.5)
+    assert (s.anti_windup, s.tracking_time_s, s.rate_limit_per_s) == ("clamping", 2.5, None)
+    s = PidSettings.from_gains(PidGains(2.0, 0.5, 0.4, 8.0, 0.7), sample_time_s=0.1, out_min=-1.0, out_max=2.0,
+                               tracking_time_s=2.5)
+    assert (s.anti_windup, s.tracking_time_s) == ("back_calculation", 2.5)
+    assert discretise_pid(s).tracking_time_s == 2.5
+
+
+def test_agreement_bound_of_a_p_controller_by_hand():
+    # kp = 0.5 is exact in Q.15 (64-bit mantissa 2^30, shift 16): P errs only by its rounding, eta / 2 with one state
+    # LSB eta = 2^-15. Without integral or derivative action the integrator's error starts at P's plus eta and grows
+    # by eta / 2 a step (its rounding), so after n automatic steps the output is within
+    # eta / 2 + eta (3/2 + (n - 1) / 2) + 1/2 (the final rounding) counts.
+    c = quantise_pid(PidSettings(kp=0.5, ki_per_s=0.0, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=4095.0),
+                     input_per_count=1.0, output_per_count=1.0)
+    assert (c.state_frac_bits, c.kp_mant, c.p_shift) == (15, 1 << 30, 16)
+    eta = 2.0 ** -15
+    for n in (1, 2, 5):
+        assert agreement_bound_count(c, n, max_input_count=4095) == pytest.approx(
+            0.5 + eta * (2 + (n - 1) / 2), rel=1e-15)
+
+
+def _bound_from_the_derivation(c, n, x, manual, max_output_count=None):
+    """agreement_bound_count's recurrence written again from its docstring's derivation (plain Python floats)."""
+    q = c.represented()
+    eta = 2.0 ** -c.state_frac_bits
+    x = min(x, c.input_limit_count)
+    d = {k: abs(q[k] - getattr(c, k)) for k in q}
+    e_p = (d["kp_count"] + d["kpb_count"]) * x + (eta / 2 if c.p_shift else 0.0)
+    e_d = 0.0
+    if c.bd_mant:
+        d_max = abs(c.bd_count) * 2 * x / (1 - c.ad)
+        e_d = (d["ad"] * d_max + d["bd_count"] * 2 * x + eta) / (1 - c.ad)
+    lim = max(abs(c.out_min_count - c.out_min_exact_count), abs(c.out_max_count - c.out_max_exact_count))
+    uv = 2.0 ** (32 - c.state_frac_bits) if max_output_count is None else 2.0 * max_output_count
+    rate = d["rate_step_count"]
+    e_i, e_u = e_p + e_d + eta, 0.0
+    for k in range(n):
+        if manual[k]:
+            e_u = max(lim, e_u + rate) if c.rate_step_q else lim
+            e_i = e_u + e_p + e_d + eta
+            continue
+        e_u = max(e_p + e_i + e_d, lim, *((e_u + rate,) if c.rate_step_q else ()))
+        if c.anti_windup == "back_calculation" and c.track_mant:
+            e_i = (1 - c.track) * e_i + c.track * (e_u + e_p + e_d) + d["track"] * uv + d["ki_count"] * 2 * x + eta
+        else:
+            e_i = e_i + d["ki_count"] * 2 * x + eta / 2
+    return e_u + 0.5
+
+
+@pytest.mark.parametrize("overrides, opc", [
+    (dict(), 0.013),
+    (dict(rate_limit_per_s=7.3, out_min=-3.3, out_max=9.1), 0.011),
+    (dict(anti_windup="clamping", kd_s=0.0), 0.007),
+    (dict(anti_windup="none", kp=0.0), 0.017),
+    (dict(ki_per_s=0.0, rate_limit_per_s=2.9), 0.019)])
+def test_agreement_bound_is_its_derivation(overrides, opc):
+    # Coefficients that do not quantise exactly (output_per_count not a power of two) and limits off whole counts, so
+    # that every term of the derivation is non-zero somewhere; automatic and manual steps mixed.
+    # With limits on whole counts (700 counts each way) the limit term L vanishes and the other terms show.
+    manual = [k % 7 in (3, 4) for k in range(40)]
+    for whole in (False, True):
+        limits = dict(out_min=-700 * opc, out_max=700 * opc) if whole else {}
+        c = quantise_pid(settings(**{**overrides, **limits}), input_per_count=0.003, output_per_count=opc)
+        for mode in (manual, [False] * 40, [True] * 40):
+            assert agreement_bound_count(c, 40, max_input_count=900, manual=mode) == pytest.approx(
+                _bound_from_the_derivation(c, 40, 900, mode), rel=1e-13, abs=0)
+        assert agreement_bound_count(c, 40, max_input_count=900, manual=manual, max_output_count=1000) == \
+            pytest.approx(_bound_from_the_derivation(c, 40, 900, manual, 1000), rel=1e-13, abs=0)
+
+
+def test_fixed_pid_refuses_non_integer_and_out_of_range_counts():
+    pid = FixedPid(quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01))
+    cases = [(lambda: pid.step(1.5, 0), "setpoint_count: need an integer count, got 1.5"),
+             (lambda: pid.step(0, 2 ** 31), "measurement_count: 2147483648 is outside the int32 range"),
+             (lambda: pid.set_manual(-(2 ** 31) - 1), "output_count: -2147483649 is outside the int32 range")]
+    for call, reason in cases:
+        with pytest.raises(ModelError) as exc:
+            call()
+        assert exc.value.reason == reason
+
+
+def test_fixed_pid_run_refusals_and_input_saturation():
+    c = quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01, input_limit_count=100)
+    n = 3
+    for kw, name in ((dict(setpoint_count=[-(2 ** 31) - 1] * n), "setpoint_count"),
+                     (dict(measurement_count=[0, 2 ** 31, 0]), "measurement_count"),
+                     (dict(manual=[True] * n, manual_output_count=[2 ** 31] * n), "manual_output_count")):
+        args = dict(setpoint_count=[0] * n, measurement_count=[0] * n)
+        args.update(kw)
+        with pytest.raises(ModelError) as exc:
+            FixedPid(c).run(args.pop("setpoint_count"), args.pop("measurement_count"), **args)
+        assert exc.value.reason == f"{name}: values outside the int32 range"
+    ok = FixedPid(c).run([-(2 ** 31)] * n, [2 ** 31 - 1] * n)  # the ends of int32 are accepted
+    assert ok.output.dtype == np.int64 and ok.integrator.dtype == np.int64
+    # Inputs are saturated to +-input_limit_count (100 counts) before anything else: -500 acts as -100 and 700 as 100.
+    for r, y, r_sat, y_sat in ((-500, 700, -100, 100), (300, -900, 100, -100)):
+        a, b = FixedPid(c), FixedPid(c)
+        assert [a.step(r, y) for _ in range(3)] == [b.step(r_sat, y_sat) for _ in range(3)]
+        assert a.state == b.state
+    assert FixedPid(c).step(-99, 99) != FixedPid(c).step(-100, 100)  # and nothing inside the limit is touched
+
+
+def test_fixed_state_saturates_at_the_int32_range():
+    # Output limits of +-1000 counts give F = 27 - 10 = 17 fraction bits: the int32 state holds +-16384 counts. A
+    # measurement step of 2^24 - 1 counts makes the derivative term (kd / (Tf + h) = 3.3 counts per count) far
+    # larger: it saturates at the int32 ends, negative for a rising measurement. An error of 2^24 - 1 counts drives
+    # the integrator to the ends in one step (0.05 x 2^24 counts), and the bumpless start from reset(0) sets it
+    # to -P there (beyond the ends too).
+    big = (1 << 24) - 1
+    for sign in (1, -1):
+        c = quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01)
+        assert c.state_frac_bits == 17
+        pid = FixedPid(c)
+        pid.step(0, 0)
+        pid.step(0, sign * big)
+        assert pid.state.derivative_q == (INT32_MIN if sign > 0 else INT32_MAX)
+        for mode in ("none", "back_calculation"):
+            pid = FixedPid(quantise_pid(settings(anti_windup=mode), input_per_count=0.01, output_per_count=0.01))
+            pid.step(sign * big, 0)
+            assert pid.state.integrator_q == (INT32_MAX if sign > 0 else INT32_MIN)
+        pid = FixedPid(quantise_pid(settings(ki_per_s=0.0, kd_s=0.0), input_per_count=0.01, output_per_count=0.01))
+        pid.reset(0)
+        pid.step(sign * big, 0)
+        assert pid.state.integrator_q == (INT32_MIN if sign > 0 else INT32_MAX)
+
+
+def test_reset_clears_every_field_and_the_32_bit_integrator_floor():
+    from compensator.firmware.pid_fixed import FixedPidState
+
+    c = quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01)
+    pid = FixedPid(c)
+    pid.set_manual(300)
+    pid.run([100, -200, 400], [5, 60, -70], manual=[False, True, False], manual_output_count=[0, 300, 0])
+    pid.reset()
+    zero = FixedPidState(integrator_q=0, derivative_q=0, output_q=0, manual_target_q=0, last_measurement_count=0,
+                         manual=False, primed=False, have_output=False)
+    assert pid.state == zero == FixedPid(c).state
+    with pytest.raises(ModelError) as exc:
+        FixedPid(s := settings())
+    assert exc.value.reason == f"coeffs: need FixedPidCoefficients, got {type(s).__name__}"
+    # The 32-bit variant's integrator stops at -2^28 (Q.F) as it does at +2^28 (test_firmware_pid_c32.py).
+    from compensator.firmware.pid_coefficients import STATE_LIMIT_32
+
+    c32 = quantise_pid(settings(kp=0.0, kd_s=0.0, anti_windup="none", out_min=-4095.0, out_max=4095.0),
+                       input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=4096)
+    run = FixedPid(c32).run(np.full(3000, -4096), np.zeros(3000, dtype=np.int64))
+    assert run.integrator.min() == -STATE_LIMIT_32 == -(1 << 28)

@@ -312,3 +312,25 @@ def test_a_board_without_a_current_channel_is_refused(sipm_b, board_pt1000):
     with pytest.raises(ModelError) as exc:
         build_current_correction(build_law(sipm_b, board_pt1000, 4.0))
     assert exc.value.reason == "the measured drop correction needs the board's current_sense channel"
+
+
+def test_accumulator_width_by_hand(sipm_a, board_ntc):
+    # K c + 2^(Q-1) is formed in the accumulator; its width must hold |K| c_max + 2^Q. With the bundled 10 kohm:
+    # 346030 x 4095 + 2^17 = 1 417 123 922 < 2^31: 32 bits. With 20 kohm one current code is -5.28 DAC codes,
+    # K = round(-5.28 x 2^17) = -692060 and 692060 x 4095 + 2^17 = 2 834 116 772 > 2^31: 64 bits (the headroom,
+    # 4 V / (20 kohm x 40.283203125 nA) = 4964 codes, does not limit the 4095 of the ADC).
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="measured")
+    assert build_current_correction(law).acc_type_bits == 32
+    board = replace(board_ntc, supply=replace(board_ntc.supply, series_resistor_ohm=2e4))
+    cur = build_current_correction(build_law(sipm_a, board, 3.0, kind="constant_gain", drop_correction="measured"))
+    assert cur.dac_codes_per_current_code == pytest.approx(-5.28, rel=1e-12)
+    assert (cur.current_code_max, cur.shift, cur.factor, cur.acc_type_bits) == (4095, 17, -692060, 64)
+
+
+def test_less_headroom_than_one_current_code(sipm_a, board_ntc):
+    # 6.9999 V of the 7 V maximum leaves 0.1 mV, less than one current code's drop (402.8 uV): no code may be
+    # corrected (current_code_max 0), and the shift is the one of a single code, 2^5 >= 32 x 1.
+    law = build_law(sipm_a, board_ntc, 6.9999, kind="constant_gain", drop_correction="measured")
+    cur = build_current_correction(law)
+    assert (cur.current_code_max, cur.shift, cur.factor) == (0, 5, round(-2.64 * 32))
+    assert cur.delta([0, 1, 4095]).tolist() == [0, 0, 0]

@@ -23,10 +23,11 @@ PAIRS = [("sipm_a", "board_ntc", 3.0), ("sipm_b", "board_pt1000", 4.0), ("sipm_c
 
 @pytest.fixture(scope="module")
 def built(request):
-    """Tables built once per module; under mutation testing every test builds its own, so that each test is
-    known to exercise the code it checks."""
+    """Tables built once per module; while mutmut collects which tests reach which functions (its "stats" run)
+    every test builds its own, so that each test is mapped to the code it checks. With a mutant active the cache
+    is fine again: every table in it was built with that mutant."""
     cache = {}
-    fresh = bool(os.environ.get("MUTANT_UNDER_TEST"))
+    fresh = os.environ.get("MUTANT_UNDER_TEST") == "stats"
 
     def get(sipm_name, board_name, ov, layout, bound):
         key = (sipm_name, board_name, ov, layout, bound)
@@ -462,3 +463,58 @@ def test_a_hand_made_uniform_table():
         empty = getattr(table, name)
         assert empty.size == 0 and empty.dtype == np.int64
     assert table.table_bytes == 6 and table.entries == 3 and table.entry_bytes == 2
+
+
+def test_refusals_word_for_word(sipm_a, sipm_b, board_ntc, board_pt1000):
+    import re
+
+    from compensator.physics.sipm import breakdown_v
+
+    # Half an LSB of the direct supply's DAC: 14 x 2.5 V / 2^16 / 2 = 0.267 mV, over 4 V of overvoltage
+    # 100 x 0.267 mV / 4 V = 0.006676 % of gain, above a bound of 0.005 %.
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    with pytest.raises(TableError) as exc:
+        build_table(law, board_pt1000, 0.005, "optimised")
+    assert exc.value.reason == (
+        "DAC quantisation: half an LSB of hut-board-pt1000's DAC (0.267 mV at the output) is already 0.006676 % gain "
+        "at 4 V overvoltage, above the bound 0.005 %; use a finer DAC, a higher overvoltage or a looser bound")
+    law = build_law(sipm_a, board_ntc, 3.0)
+    with pytest.raises(TableError) as exc:
+        build_table(law, board_ntc, 0.01, "optimised")
+    assert re.fullmatch(r"ADC quantisation: half an ADC code of hut-board-ntc's temperature channel is 0\.0\d+ % gain "
+                        r"at -25\.0 C, above the bound 0\.01 %; use a finer ADC or a looser bound", exc.value.reason)
+    for bad in (0.0, -0.05, float("nan"), float("inf")):
+        with pytest.raises(ModelError) as exc:
+            build_table(law, board_ntc, bad, "uniform")
+        assert exc.value.key == "max_gain_error_pct"
+        assert exc.value.reason == f"max_gain_error_pct must be a positive number, got {bad!r}"
+    for bad in (-1.0, float("nan")):
+        with pytest.raises(ModelError) as exc:
+            build_table(law, board_ntc, 0.05, "uniform", fault_margin_k=bad)
+        assert (exc.value.key, exc.value.reason) == ("fault_margin_k",
+                                                     f"fault_margin_k must be a non-negative number, got {bad!r}")
+    # 40 K below -25 C the breakdown is 40 x 21.5 mV = 0.86 V lower (hut-sipm-a, no curvature), so the value held
+    # for the coldest reading gives the overvoltage at -25 C plus 0.86 V.
+    hot = build_law(sipm_a, board_ntc, 6.5)
+    held = float(hot.output_v(-25.0) - breakdown_v(sipm_a.device, -25.0)) + 0.86
+    with pytest.raises(ModelError) as exc:
+        build_table(hot, board_ntc, 0.05, "uniform", fault_margin_k=40.0)
+    assert exc.value.key == "fault_margin_k" and exc.value.reason == (
+        f"fault_margin_k: a reading 40 K below the range would hold {held:.3f} V overvoltage, above "
+        "max_overvoltage_v 7 V; use a smaller margin")
+    with pytest.raises(ModelError) as exc:
+        build_table(law, board_ntc, 0.05, "zigzag")
+    assert exc.value.key == "layout" and exc.value.reason == (
+        "layout must be one of smallest, uniform, segmented, optimised, polynomial, got 'zigzag'")
+
+
+def test_rising_sensor_statuses(sipm_b, board_pt1000):
+    # A Pt1000 code rises with temperature: below the range is colder, above it hotter (the NTC board is the
+    # other way round: test_lookup_statuses_and_safe_code).
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    table = build_table(law, board_pt1000, 0.05, "uniform")
+    assert (table.below_status, table.above_status) == (TableStatus.COLDER_THAN_RANGE, TableStatus.HOTTER_THAN_RANGE)
+    dac, status = table.lookup([table.code_lo - 1, table.code_hi + 1])
+    assert status.tolist() == [1, 2] and dac.tolist() == [table.below_dac_code, table.above_dac_code]
+    assert (table.below_dac_code, table.above_dac_code) == tuple(int(v) for v in table.interpolate(
+        [table.code_lo, table.code_hi]))

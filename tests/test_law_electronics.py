@@ -82,6 +82,19 @@ def test_dac_reference_drift_by_hand(sipm_b, board_pt1000):
         (v_out - 30.0) * 5e-6 * 50.0 / 4.0 * 100.0 * (1 - 150e-6 * 50.0), rel=1e-4)
 
 
+def test_direct_supply_gain_drift_by_hand(sipm_b, board_pt1000):
+    # Direct supply Vout = 30 V + 14 Vdac, its gain a ratio of two resistors, here tracking to 4 ppm/K: each departs
+    # from the other by up to half of that, so the ratio by up to 2 x 2 ppm/K and the output by
+    # (Vout - 30 V) 4e-6 dT; dT = 50 K at -25 C, and C(-25 C)/C(25 C) = 0.9925 as above (hand calculation).
+    board = replace(board_pt1000, supply=replace(board_pt1000.supply, series_resistor_ohm=0.0,
+                                                 resistor_tracking_ppm_per_k=4.0))
+    law = build_law(sipm_b, board, 4.0, kind="constant_overvoltage", drop_correction="none")
+    budget = gain_error_budget(law, board, samples=0, step_k=5.0)
+    v_out = float(law.output_v(-25.0))
+    assert budget.term("supply_network_drift").limit_pct_by_temp[_at(budget, -25.0)] == pytest.approx(
+        (v_out - 30.0) * 4e-6 * 50.0 / 4.0 * 100.0 * (1 - 150e-6 * 50.0), rel=1e-4)
+
+
 def test_static_converter_errors_by_hand(sipm_b, board_pt1000):
     board = replace(board_pt1000, supply=replace(board_pt1000.supply, series_resistor_ohm=0.0))
     law = build_law(sipm_b, board, 4.0, kind="constant_overvoltage", drop_correction="none")
@@ -143,16 +156,21 @@ def _converters_only(board, *, adc_inl_lsb, dac_inl_lsb):
     return replace(board, temperature=replace(ch, sensor=sensor, front_end=fe), supply=supply)
 
 
+def _converters_budget(sipm_a, board_ntc, *, adc_inl_lsb, dac_inl_lsb, tempco_err=False):
+    """The converters-only board, hut-sipm-a without breakdown (and tempco) error: its 2000-sample budget."""
+    board = _converters_only(board_ntc, adc_inl_lsb=adc_inl_lsb, dac_inl_lsb=dac_inl_lsb)
+    bd = sipm_a.device.breakdown
+    bd = replace(bd, breakdown_err_v=0.0, tempco_err_mv_per_k=bd.tempco_err_mv_per_k if tempco_err else 0.0)
+    law = build_law(replace(sipm_a, device=replace(sipm_a.device, breakdown=bd)), board, 3.0, kind="constant_gain",
+                    drop_correction="none")
+    return gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
+
+
 def test_monte_carlo_of_converter_non_linearity(sipm_a, board_ntc):
     # Only the converters' INL (2 LSB ADC, 8 LSB DAC, drawn anew at every code) and quantisation are left: the
     # Monte Carlo's spread must match the analytic first-order terms (rectangular, u = a / sqrt(3)) at every
     # temperature, before and after calibration, and its mean stay near zero (the draws are centred).
-    board = _converters_only(board_ntc, adc_inl_lsb=2.0, dac_inl_lsb=8.0)
-    bd = sipm_a.device.breakdown
-    sipm = replace(sipm_a, device=replace(sipm_a.device, breakdown=replace(bd, breakdown_err_v=0.0,
-                                                                          tempco_err_mv_per_k=0.0)))
-    law = build_law(sipm, board, 3.0, kind="constant_gain", drop_correction="none")
-    budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
+    budget = _converters_budget(sipm_a, board_ntc, adc_inl_lsb=2.0, dac_inl_lsb=8.0)
     assert {t.key for t in budget.terms if t.limit_pct > 0} == {"adc_quantisation", "adc_inl", "dac_quantisation",
                                                                  "dac_inl"}
     # The INL bounds against half an LSB of quantisation: 2 / 0.5 for the ADC, 8 / 0.5 for the DAC (hand).
@@ -173,12 +191,7 @@ def test_monte_carlo_of_quantisation_alone(sipm_a, board_ntc):
     # spread is the ADC's: over the range (RMS over the temperatures) within 5 % of the ADC term, the 2000
     # samples' sampling error being 1.6 % at one sigma; at any one temperature the fixed DAC rounding moves it
     # by up to about a third.
-    board = _converters_only(board_ntc, adc_inl_lsb=0.0, dac_inl_lsb=0.0)
-    bd = sipm_a.device.breakdown
-    sipm = replace(sipm_a, device=replace(sipm_a.device, breakdown=replace(bd, breakdown_err_v=0.0,
-                                                                          tempco_err_mv_per_k=0.0)))
-    law = build_law(sipm, board, 3.0, kind="constant_gain", drop_correction="none")
-    budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0)
+    budget = _converters_budget(sipm_a, board_ntc, adc_inl_lsb=0.0, dac_inl_lsb=0.0)
     assert {t.key for t in budget.terms if t.limit_pct > 0} == {"adc_quantisation", "dac_quantisation"}
     # No drift coefficient, offset, gain error, lag or regulator reference: no such term (the tolerances set to
     # zero above still have theirs, at zero).
@@ -190,3 +203,29 @@ def test_monte_carlo_of_quantisation_alone(sipm_a, board_ntc):
     mc = budget.monte_carlo.std_pct_by_temp
     assert np.sqrt(np.mean(mc ** 2) / np.mean(adc ** 2)) == pytest.approx(1.0, abs=0.05)
     assert np.all((mc / adc > 0.6) & (mc / adc < 1.4)), mc / adc
+
+
+def test_monte_carlo_draws_an_inl_of_exactly_one_lsb(sipm_a, board_ntc):
+    # An ADC INL bound of 1 LSB is drawn like any other (rectangular, u = 1 / sqrt(3) LSB against the
+    # quantisation's 0.29 LSB): without it the spread would be 0.44 of the first-order figure. Over the range
+    # (RMS over the temperatures) within 5 %, the sampling error of 2000 samples being 1.6 % at one sigma.
+    budget = _converters_budget(sipm_a, board_ntc, adc_inl_lsb=1.0, dac_inl_lsb=0.0)
+    assert budget.term("adc_inl").limit_pct == pytest.approx(2.0 * budget.term("adc_quantisation").limit_pct, rel=1e-9)
+    rss = np.sqrt(sum(t.std_pct_by_temp ** 2 for t in budget.terms if t.kind == "random"))
+    mc = budget.monte_carlo.std_pct_by_temp
+    assert np.sqrt(np.mean(mc ** 2) / np.mean(rss ** 2)) == pytest.approx(1.0, abs=0.05)
+
+
+def test_monte_carlo_percentiles_of_a_normal_source(sipm_a, board_ntc):
+    # Only the tempco calibration error (normal, 0.3 mV/K one sigma) is left beside the small quantisation: at
+    # every temperature the error is normal, so the 99th percentile of |x| is 2.576 sigma
+    # (scipy.stats.norm.ppf(0.995)) at the temperature of the largest spread, before and after calibration. The
+    # sampling error of that percentile at 2000 samples is about 0.08 sigma: allowed 0.25 (three of them). Pooling
+    # all temperatures into one percentile would give about 1.75 sigma.
+    budget = _converters_budget(sipm_a, board_ntc, adc_inl_lsb=0.0, dac_inl_lsb=0.0, tempco_err=True)
+    mc = budget.monte_carlo
+    assert mc.p99_abs_pct / mc.std_pct == pytest.approx(2.576, abs=0.25)
+    assert mc.calibrated_p99_abs_pct / mc.calibrated_std_pct == pytest.approx(2.576, abs=0.25)
+    # The spread itself against first order: 0.3 mV/K x 50 K / 3 V = 0.5 % at -25 C (hand), sampling error 1.6 %.
+    assert budget.rss_pct == pytest.approx(0.5, rel=0.01)
+    assert mc.std_pct / budget.rss_pct == pytest.approx(1.0, abs=0.05)

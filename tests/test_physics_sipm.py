@@ -87,7 +87,7 @@ def test_steady_current_formula():
     # I = q G (DCR + R_ph PDE) / (1 - p): mean avalanches per primary with branching crosstalk is 1/(1 - p)
     # (Vinogradov, NIM A 695, 247, 2012).
     expected = ELEMENTARY_CHARGE_C * g * (1e6 + 2e6 * 0.5) / 0.8
-    assert M.steady_current_a(dev, 28.0, 25.0, photon_rate_hz=2e6) == pytest.approx(expected, rel=1e-9)
+    assert M.steady_current_a(dev, 28.0, 25.0, photon_rate_hz=2e6) == pytest.approx(expected, rel=1e-9, abs=0)
 
 
 def test_evaluate_broadcasts_and_needs_one_mode(sipm_a):

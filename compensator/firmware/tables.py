@@ -261,13 +261,14 @@ def _fault_band(law, board, fault_margin_k: float) -> tuple[int, int]:
     channel = board.temperature
     full = channel.front_end.full_scale_code
     if not np.isfinite(fault_margin_k) or fault_margin_k < 0:
-        raise ModelError(f"fault_margin_k must be a non-negative number, got {fault_margin_k!r}")
+        raise ModelError(f"fault_margin_k must be a non-negative number, got {fault_margin_k!r}", key="fault_margin_k")
     temps = np.array([law.min_temp_c - fault_margin_k, law.max_temp_c + fault_margin_k])
     with np.errstate(all="ignore"):
         try:
             x = channel.continuous_code(temps)
         except ModelError as exc:
-            raise ModelError(f"fault_margin_k: {fault_margin_k:g} K takes the range outside the sensor model: {exc}") from None
+            raise ModelError(f"fault_margin_k: {fault_margin_k:g} K takes the range outside the sensor model: {exc}",
+                             key="fault_margin_k") from None
     x = np.where(np.isfinite(x), x, np.where(np.arange(2) == 0, 1.0, float(full)))
     lo, hi = int(np.floor(x.min())), int(np.floor(x.max()))
     # Rails are always faults.
@@ -282,7 +283,7 @@ def _check_margin_overvoltage(law, fault_margin_k: float) -> None:
     if ov > law.sipm.max_overvoltage_v:
         raise ModelError(f"fault_margin_k: a reading {fault_margin_k:g} K below the range would hold "
                          f"{ov:.3f} V overvoltage, above max_overvoltage_v {law.sipm.max_overvoltage_v:g} V; "
-                         f"use a smaller margin")
+                         f"use a smaller margin", key="fault_margin_k")
 
 
 def _dac_clamp(law, board) -> tuple[int, int]:

@@ -1,0 +1,195 @@
+"""Gain-error budget: what each term says about itself, the default calibration point, the options' refusals.
+
+Pinned where mutation testing (tools/mutation.md) found these facts unchecked. The budgets here are
+first-order only, on a 5 K grid, so that they build in a fraction of a second.
+"""
+
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from compensator.errors import ModelError
+from compensator.law import build_law, gain_error_budget
+from compensator.law.budget import _check_options
+
+CODE_TO_CODE = "changes from code to code: not removed by calibration"
+
+
+def _notes(budget):
+    return {t.key: (t.kind, t.note) for t in budget.terms}
+
+
+def test_notes_on_the_ntc_board_without_drop_correction(sipm_a, board_ntc):
+    # hut-board-ntc: NTC with R25 and Beta both +-1 %, ratiometric ADC; sensor lag 0.5 K/min x (5 s + 20 s)
+    # / 60 = 0.208 K (hand); no drop correction, so the whole drop is a systematic term.
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    assert np.array_equal(budget.temp_c, np.arange(-25.0, 46.0, 5.0))  # the grid: 15 points 5 K apart
+    notes = _notes(budget)
+    assert notes["sensor_tolerance"] == ("random", "R25 +-1 %, Beta +-1 %")
+    assert notes["sensor_to_die"] == ("random", "constant temperature offset: mostly removed by calibration")
+    assert notes["sensor_lag"] == ("random", "+-0.208 K at 0.5 K/min; not removed by calibration")
+    assert notes["adc_reference"] == ("random", "cancels: the ADC is ratiometric")
+    for key in ("adc_quantisation", "adc_inl", "dac_quantisation", "dac_inl"):
+        assert notes[key] == ("random", CODE_TO_CODE), key
+    assert notes["supply_network_drift"] == ("random", "drift from the calibration temperature is left")
+    assert notes["breakdown_calibration"] == ("random", "constant voltage offset: removed by calibration")
+    assert notes["series_resistor_drop"] == ("systematic", "not corrected: the whole drop")
+    assert notes["law_residual"] == ("systematic", "what the ideal law leaves")
+    for key in ("self_heating", "divider_resistor", "dac_reference", "tempco_calibration", "regulator_reference"):
+        assert notes[key] == ("random", ""), key
+
+
+def test_notes_on_the_rtd_board_with_the_modelled_drop(sipm_b, board_pt1000):
+    # hut-board-pt1000: IEC 60751 class A, absolute ADC reference (no note); lag 0.5 x (3 + 15) / 60 = 0.15 K.
+    # The constant-overvoltage law leaves hut-sipm-b's 150 ppm/K capacitance coefficient.
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_overvoltage")
+    notes = _notes(gain_error_budget(law, board_pt1000, samples=0, step_k=5.0, current_uncertainty_pct=25.0))
+    assert notes["sensor_tolerance"] == ("random", "IEC 60751 class A")
+    assert notes["sensor_lag"] == ("random", "+-0.15 K at 0.5 K/min; not removed by calibration")
+    assert notes["adc_reference"] == ("random", "")
+    assert notes["series_resistor_drop"] == ("random", "corrected; modelled current good to +-25 %")
+    assert notes["law_residual"] == ("systematic", "uncompensated cell-capacitance coefficient")
+
+
+def test_note_of_a_breakdown_moved_between_definitions(sipm_a, board_ntc):
+    bd = replace(sipm_a.device.breakdown, definition="iv_second_derivative", definition_offset_v=-0.12,
+                 definition_offset_err_v=0.02)
+    law = build_law(replace(sipm_a, device=replace(sipm_a.device, breakdown=bd)), board_ntc, 3.0,
+                    drop_correction="none")
+    notes = _notes(gain_error_budget(law, board_ntc, samples=0, step_k=5.0, ramp_k_per_min=0.0))
+    assert notes["breakdown_definition"] == ("random", "-120.0 mV added to reach the gain-intercept breakdown")
+    assert "sensor_lag" not in notes  # no ramp, no lag term
+
+
+def test_default_calibration_point_is_the_reference_within_the_range(sipm_a, board_ntc):
+    # The breakdown reference is 25 C; a range that ends below it calibrates at its top, one that starts above it
+    # at its bottom.
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    assert _check_options(law, None, 0, 30.0, 0.5, 1.0) == 25.0
+    assert _check_options(replace(law, max_temp_c=20.0), None, 0, 30.0, 0.5, 1.0) == 20.0
+    assert _check_options(replace(law, min_temp_c=30.0), None, 0, 30.0, 0.5, 1.0) == 30.0
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0, calibration_temp_c=-25)
+    assert budget.calibration_temp_c == -25.0 and isinstance(budget.calibration_temp_c, float)
+    # After a calibration at -25 C the breakdown-calibration error is gone there.
+    assert budget.term("breakdown_calibration").calibrated_std_pct_by_temp[0] < 1e-9
+
+
+def test_options_at_their_limits_are_accepted(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    assert _check_options(law, 45.0, 1_000_000, 100.0, 60.0, 70.0 / 10_000) == 45.0
+    assert _check_options(law, -25.0, np.int64(0), 0.0, 0.0, 70.0) == -25.0
+
+
+@pytest.mark.parametrize("option, value, reason", [
+    ("calibration_temp_c", 45.5, "45.5 C is outside the operating range -25 to 45 C"),
+    ("calibration_temp_c", -25.5, "-25.5 C is outside the operating range -25 to 45 C"),
+    ("samples", 1_000_001, "must be a whole number from 0 to 1000000, got 1000001"),
+    ("samples", -1, "must be a whole number from 0 to 1000000, got -1"),
+    ("samples", 10.0, "must be a whole number from 0 to 1000000, got 10.0"),
+    ("current_uncertainty_pct", 100.5, "must be within 0 to 100, got 100.5"),
+    ("current_uncertainty_pct", -0.5, "must be within 0 to 100, got -0.5"),
+    ("current_uncertainty_pct", float("inf"), "must be within 0 to 100, got inf"),
+    ("ramp_k_per_min", 60.5, "must be within 0 to 60, got 60.5"),
+    ("ramp_k_per_min", -0.5, "must be within 0 to 60, got -0.5"),
+    ("ramp_k_per_min", float("nan"), "must be within 0 to 60, got nan"),
+    ("step_k", 0.0, "must be positive and leave at most 10000 steps over the range, got 0.0"),
+    ("step_k", -1.0, "must be positive and leave at most 10000 steps over the range, got -1.0"),
+    ("step_k", float("nan"), "must be positive and leave at most 10000 steps over the range, got nan"),
+    ("step_k", 0.00699, "must be positive and leave at most 10000 steps over the range, got 0.00699"),
+])
+def test_options_out_of_range_are_refused_in_full(sipm_a, board_ntc, option, value, reason):
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
+    with pytest.raises(ModelError) as info:
+        gain_error_budget(law, board_ntc, **{"samples": 0, option: value})
+    assert info.value.key == option
+    assert info.value.reason == reason
+
+
+def test_modelled_drop_term_is_the_current_uncertainty_times_the_drop(sipm_a, board_ntc):
+    # With the modelled correction what is left is the current model's error, rectangular within +-30 %: the
+    # limit is 0.3 times the whole drop of the uncorrected law (-100 R I / Vov, checked by hand in test_law_budget),
+    # to within the drop's own feedback through R dI/dV (2e-4 of it at 45 C); u = limit / sqrt(3).
+    none = gain_error_budget(build_law(sipm_a, board_ntc, 3.0, drop_correction="none"), board_ntc, samples=0,
+                             step_k=5.0).term("series_resistor_drop")
+    modelled = gain_error_budget(build_law(sipm_a, board_ntc, 3.0), board_ntc, samples=0, step_k=5.0,
+                                 current_uncertainty_pct=30.0).term("series_resistor_drop")
+    assert none.signed_pct_by_temp[-1] < -1.0  # over 1 % of gain at 45 C
+    assert modelled.limit_pct_by_temp == pytest.approx(0.3 * np.abs(none.signed_pct_by_temp), rel=1e-3)
+    assert modelled.std_pct == pytest.approx(modelled.limit_pct / np.sqrt(3), rel=1e-12)
+
+
+@pytest.mark.parametrize("drop_correction", ["modelled", "measured"])
+def test_drop_terms_follow_the_series_resistor(sipm_a, board_ntc, drop_correction):
+    # No series resistor, no drop and no drop term; a 1 ohm resistor has one (however small), and the measured
+    # correction adds the current channel's drift; every other source stays.
+    terms = {}
+    for r_ohm in (0.0, 1.0):
+        board = replace(board_ntc, supply=replace(board_ntc.supply, series_resistor_ohm=r_ohm))
+        budget = gain_error_budget(build_law(sipm_a, board, 3.0, drop_correction=drop_correction), board,
+                                   samples=0, step_k=5.0)
+        terms[r_ohm] = [t.key for t in budget.terms]
+    drop_keys = ["series_resistor_drop"] + (["current_sense_drift"] if drop_correction == "measured" else [])
+    assert [k for k in terms[1.0] if k not in drop_keys] == terms[0.0]
+    assert set(terms[1.0]) - set(terms[0.0]) == set(drop_keys)
+    assert terms[0.0][:3] == ["sensor_tolerance", "self_heating", "sensor_to_die"] and len(terms[0.0]) == 24
+
+
+def test_current_sense_drift_by_hand(sipm_a, board_ntc):
+    # hut-board-ntc's current channel: sense gain 25 ppm/K, input offset 0.2 nA/K; at 45 C the electronics are
+    # 30 K from their reference. The gain drift moves the correction by 7.5e-4 of the drop (R I = 1.136 % of the
+    # 3 V at 45 C, test_law_chain_mutation), the offset drift by 10 kohm x 6 nA = 60 uV, 0.002 %; both
+    # rectangular, the limits add, the one-sigma values in quadrature (hand calculation; within the drop's own
+    # feedback, 3e-4 of it).
+    law = build_law(sipm_a, board_ntc, 3.0, drop_correction="measured")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    term = budget.term("current_sense_drift")
+    gain_part, offset_part = 7.5e-4 * 1.1361, 100.0 * 1e4 * 6e-9 / 3.0
+    assert term.limit_pct_by_temp[-1] == pytest.approx(gain_part + offset_part, rel=1e-3)
+    assert term.std_pct_by_temp[-1] == pytest.approx(np.hypot(gain_part, offset_part) / np.sqrt(3), rel=1e-3)
+
+
+def test_no_light_yield_term_without_its_uncertainty(sipm_a, board_ntc):
+    crystal = replace(sipm_a.scintillator, light_yield_tempco_err_pct_per_k=0.0)
+    law = build_law(replace(sipm_a, scintillator=crystal), board_ntc, 3.0, kind="constant_response",
+                    drop_correction="none")
+    keys = [t.key for t in gain_error_budget(law, board_ntc, samples=0, step_k=5.0).terms]
+    assert "light_yield_tempco" not in keys and "tempco_calibration" in keys
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_response", drop_correction="none")
+    term = gain_error_budget(law, board_ntc, samples=0, step_k=5.0).term("light_yield_tempco")
+    assert term.limit_pct == pytest.approx(3.0 * term.std_pct, rel=1e-12)  # normal, limit 3 sigma
+
+
+def test_light_yield_term_by_hand(sipm_a, board_ntc):
+    # hut-sipm-a's crystal: light yield 1 - 0.25 %/K dT - 0.002 %/K^2 dT^2 from 25 C, its coefficient known to
+    # 0.03 %/K (1 sigma). At -25 C that is 0.03 x 50 = 1.5 % of the 25 C yield on a yield of 1.075 of it:
+    # 1.3953 % of the response (hand calculation).
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_response", drop_correction="none")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    assert budget.term("light_yield_tempco").std_pct_by_temp[0] == pytest.approx(1.5 / 1.075, rel=1e-3)
+
+
+def test_no_current_sense_drift_term_without_drifts(sipm_a, board_ntc):
+    sense = replace(board_ntc.current_sense, gain_tempco_ppm_per_k=0.0, offset_drift_a_per_k=0.0)
+    board = replace(board_ntc, current_sense=sense)
+    law = build_law(sipm_a, board, 3.0, drop_correction="measured")
+    keys = [t.key for t in gain_error_budget(law, board, samples=0, step_k=5.0).terms]
+    assert "current_sense_drift" not in keys and "series_resistor_drop" in keys
+
+
+def test_every_term_by_temperature_and_the_quantisation_after_calibration(sipm_a, board_ntc):
+    # Every per-temperature array of every term is on the budget's grid. Quantisation is not removed by a
+    # calibration: the calibration sees its own, so after it the bound is the bound at T plus the bound at the
+    # calibration point (25 C), times C(T)/C(25 C) = 1 for hut-sipm-a (no capacitance coefficient).
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    for term in budget.terms:
+        for name in ("limit_pct_by_temp", "std_pct_by_temp", "signed_pct_by_temp", "calibrated_limit_pct_by_temp",
+                     "calibrated_std_pct_by_temp", "calibrated_signed_pct_by_temp"):
+            assert np.shape(getattr(term, name)) == budget.temp_c.shape, (term.key, name)
+    i25 = int(np.flatnonzero(budget.temp_c == 25.0)[0])
+    for key in ("adc_quantisation", "dac_quantisation", "adc_inl", "dac_inl"):
+        term = budget.term(key)
+        assert term.calibrated_limit_pct_by_temp == pytest.approx(
+            term.limit_pct_by_temp + term.limit_pct_by_temp[i25], rel=1e-12), key
