@@ -686,3 +686,25 @@ def test_reset_clears_every_field_and_the_32_bit_integrator_floor():
                        input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=4096)
     run = FixedPid(c32).run(np.full(3000, -4096), np.zeros(3000, dtype=np.int64))
     assert run.integrator.min() == -STATE_LIMIT_32 == -(1 << 28)
+
+
+def test_quantise_mantissas_and_refusals_by_hand():
+    from compensator.firmware.pid_coefficients import _quantise
+
+    # m 2^-s ~= v with |m| <= limit and the largest s (at most max_shift): 0.005 x 2^22 = 20971.52 -> 20972, s = 22
+    # with a 15-bit limit (32767); 1000 in 31 bits: 1000 x 2^21 = 2097152000 (2^22 would pass 2^31 - 1).
+    assert _quantise(0.0, "x") == (0, 0)
+    assert _quantise(0.005, "x", (1 << 15) - 1, 46) == (20972, 22)
+    assert _quantise(-1000.0, "x", (1 << 31) - 1, 62) == (-2097152000, 21)
+    # Capped at the largest shift, 3 keeps the mantissa 12: fewer than 10 significant bits, refused.
+    with pytest.raises(ModelError) as exc:
+        _quantise(3.0, "x", (1 << 15) - 1, 2)
+    assert exc.value.reason == "x: 3 is too small for the fixed-point format (would keep fewer than 10 significant bits)"
+    assert _quantise(3.0, "x", (1 << 15) - 1, 9) == (1536, 9)  # 3 x 2^9, at least 2^10
+    for kw, key, reason in ((dict(word_bits=16), "word_bits", "word_bits: must be 64 or 32, got 16"),
+                            (dict(input_limit_count=0), "input_limit_count",
+                             "input_limit_count: must be within 1..2^24, got 0")):
+        with pytest.raises(ModelError) as exc:
+            quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01, **kw)
+        assert (exc.value.key, exc.value.reason) == (key, reason)
+    assert quantise_pid(settings(), input_per_count=0.01, output_per_count=0.01, input_limit_count=1).input_limit_count == 1
