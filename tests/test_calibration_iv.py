@@ -152,13 +152,7 @@ def test_joint_fit_finds_the_least_squares_optimum_of_scipy():
     start = np.column_stack([truth + 0.01, np.full(4, np.log(1e-6)), np.full(4, 2.0), np.zeros(4),
                              np.full(4, np.log(leak)), np.full(4, 0.5)])
 
-    def residuals(theta, bias, ln_i):
-        vb, c, k, g, la, b = theta[:6]
-        h = theta[6] if theta.size > 6 else 0.0
-        xr = bias - vb
-        x = np.where(xr > 0, xr, 1.0)
-        aval = np.where(xr > 0, np.exp(c + k * np.log(x) + (g + h * x) * x), 0.0)
-        return ln_i - np.log(np.exp(la + b * xr) + aval)
+    from iv_model import joint_model_residuals as residuals
 
     # The second-order model's optimum lies in a long flat valley, where a step below ten microvolts may stop
     # short of it by a few tenths of a millivolt (at a cost a few parts per million above the optimum).

@@ -6,21 +6,13 @@ the covariance from its Jacobian, or the generating model (compensator.calibrati
 
 import numpy as np
 import pytest
+from iv_model import joint_model_residuals as _residuals
 from scipy.optimize import least_squares
 
 from compensator.calibration.ivjoint import fit_joint
 from compensator.calibration.synthetic import iv_current_a, leakage_at_crossing_a, simulate_iv
 
 GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)
-
-
-def _residuals(theta, bias, ln_i):
-    vb, c, k, g, la, b = theta[:6]
-    h = theta[6] if theta.size > 6 else 0.0
-    xr = bias - vb
-    x = np.where(xr > 0, xr, 1.0)
-    aval = np.where(xr > 0, np.exp(c + k * np.log(x) + (g + h * x) * x), 0.0)
-    return ln_i - np.log(np.exp(la + b * xr) + aval)
 
 
 def _scipy_fit(theta, bias, ln_i):
