@@ -82,7 +82,7 @@ def test_readback_code_with_every_error_and_the_current_channel_by_hand():
     assert rb.adc_code(20.0, 0.0, 0.0, 0.1).tolist() == 503
     assert rb.adc_code(20.0, 0.02, 0.02, 0.1).tolist() == 503
     sense = CurrentSense(adc_bits=12, reference_v=4.096, sense_gain_v_per_a=1e4)  # 0.1 uA per code
-    assert sense.current_a([0, 250]).tolist() == pytest.approx([0.0, 25e-6], rel=1e-12)
+    assert sense.current_a([0, 250]).tolist() == pytest.approx([0.0, 25e-6], rel=1e-12, abs=0)
 
 
 def test_current_sense_reading_with_every_error_by_hand():
