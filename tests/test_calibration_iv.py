@@ -426,25 +426,12 @@ def test_second_derivative_point_errors_are_the_filter_noise_gain(monkeypatch):
     # ln I times the norm of the Savitzky-Golay coefficients of the chosen window (scipy.signal.savgol_coeffs,
     # cubic, second derivative, step dV), and scales the vertex error by sqrt(window / 2) for the correlation
     # of neighbouring smoothed points.
+    from iv_model import spy_on_the_peak_fit
     from scipy.signal import savgol_coeffs
 
-    import compensator.calibration.ivpeaks as peaks
     from compensator.calibration.ivsignal import estimate_log_noise
 
-    seen = {}
-    real_fit, real_d2 = peaks._fit_peak, peaks._second_derivative
-
-    def spy_fit(grid, values, p, half, sigma, corr, out):
-        seen.update(half=half.copy(), sigma=sigma.copy(), corr=corr.copy())
-        return real_fit(grid, values, p, half, sigma, corr, out)
-
-    def spy_d2(grid, ln_i, knee, step_v, out, reasons):
-        seen.update(ln_i=ln_i.copy(), step_v=step_v)
-        return real_d2(grid, ln_i, knee, step_v, out, reasons)
-
-    monkeypatch.setattr(peaks, "_fit_peak", spy_fit)
-    import compensator.calibration.iv as iv_module
-    monkeypatch.setattr(iv_module, "_second_derivative", spy_d2)
+    seen = spy_on_the_peak_fit(monkeypatch)
     rng = np.random.default_rng(9)
     current = simulate_iv(rng, GRID_V, np.array([24.2, 24.8]), relative_noise=0.01, geiger_scale_v=1.0)
     find_breakdown(GRID_V, current, "second-derivative")

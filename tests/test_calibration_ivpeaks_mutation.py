@@ -8,6 +8,7 @@ import pytest
 from scipy.signal import savgol_coeffs, savgol_filter
 
 from compensator.calibration.synthetic import simulate_iv
+from iv_model import spy_on_the_peak_fit
 
 GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)  # 221 points
 
@@ -21,21 +22,8 @@ def test_second_derivative_window_and_peak_follow_the_documented_rule_with_scipy
     # ends and not above the same upper end; the parabola is weighted by that noise gain. The knee (its window,
     # peak, noise and interior) is ivknee's, pinned against scipy in tests/test_calibration_ivknee_mutation.py.
     import compensator.calibration.iv as iv_module
-    import compensator.calibration.ivpeaks as peaks
 
-    seen = {}
-    real_fit, real_d2 = peaks._fit_peak, peaks._second_derivative
-
-    def spy_fit(grid, values, p, half, sigma, corr, out):
-        seen.update(p=p.copy(), half=half.copy(), sigma=sigma.copy(), top=values[np.arange(len(p)), p])
-        return real_fit(grid, values, p, half, sigma, corr, out)
-
-    def spy_d2(grid, ln_i, knee, step_v, out, reasons):
-        seen.update(ln_i=ln_i.copy(), knee=knee)
-        return real_d2(grid, ln_i, knee, step_v, out, reasons)
-
-    monkeypatch.setattr(peaks, "_fit_peak", spy_fit)
-    monkeypatch.setattr(iv_module, "_second_derivative", spy_d2)
+    seen = spy_on_the_peak_fit(monkeypatch)
     rng = np.random.default_rng(21)
     rows = [(24.2, 0.001, 2e-10), (24.5, 0.005, 2e-10), (24.8, 0.01, 2e-10), (25.1, 0.02, 2e-10),
             (24.4, 0.05, 2e-10), (24.7, 0.1, 2e-10), (24.5, 0.01, 2e-12), (24.6, 0.01, 2e-8)]
