@@ -57,6 +57,11 @@ def _at(budget, temp_c):
     return int(np.flatnonzero(np.isclose(budget.temp_c, temp_c))[0])
 
 
+def _capacitance_ratio_45_to_25(sipm):
+    """C(45 C) / C(25 C): the gain is referred to its value at 25 C."""
+    return float(cell_capacitance_f(sipm.device, 45.0) / cell_capacitance_f(sipm.device, 25.0))
+
+
 def test_sensor_to_die_offset_by_hand(budget_b_flat, sipm_b):
     # Hand-worked (common practice formula): 0.2 K offset, dVbd/dT = 34 mV/K + 2 * 0.02 mV/K^2 (T - 25 C),
     # Vov = 4 V: dG/G = 0.034 * 0.2 / 4 = 0.17 % at 25 C and 0.0348 * 0.2 / 4 = 0.174 % at 45 C, there
@@ -64,7 +69,7 @@ def test_sensor_to_die_offset_by_hand(budget_b_flat, sipm_b):
     # feedback through the 4.7 kohm resistor (R dI/dV) takes off about 0.1 %.
     law, budget = budget_b_flat
     term = budget.term("sensor_to_die")
-    scale = float(cell_capacitance_f(sipm_b.device, 45.0) / cell_capacitance_f(sipm_b.device, 25.0))
+    scale = _capacitance_ratio_45_to_25(sipm_b)
     assert term.limit_pct_by_temp[_at(budget, 25.0)] == pytest.approx(0.17, rel=2e-3)
     assert term.limit_pct_by_temp[_at(budget, 45.0)] == pytest.approx(0.174 * scale, rel=2e-3)
     assert term.std_pct_by_temp[_at(budget, 25.0)] == pytest.approx(0.17 / np.sqrt(3), rel=1e-3)  # rectangular
@@ -77,7 +82,7 @@ def test_rtd_class_tolerance_by_hand(budget_b_flat, sipm_b):
     # (hand calculation, as for the sensor-to-die offset); one sigma at 25 C: hypot(0.15, 0.05) / sqrt(3) K.
     law, budget = budget_b_flat
     term = budget.term("sensor_tolerance")
-    scale = float(cell_capacitance_f(sipm_b.device, 45.0) / cell_capacitance_f(sipm_b.device, 25.0))
+    scale = _capacitance_ratio_45_to_25(sipm_b)
     assert term.limit_pct_by_temp[_at(budget, 25.0)] == pytest.approx(0.17, rel=2e-3)
     assert term.limit_pct_by_temp[_at(budget, 45.0)] == pytest.approx(0.2088 * scale, rel=2e-3)
     assert term.std_pct_by_temp[_at(budget, 25.0)] == pytest.approx(
