@@ -162,19 +162,26 @@ def test_board_code_states_the_supply_check(cli, tmp_path):
     assert "cannot be detected" in (tmp_path / "b" / "interlocks.h").read_text()
 
 
+def test_board_code_refuses_in_a_fresh_process(tmp_path):
+    # A fresh process loads the interlocks' C renderer before anything else of the firmware package; that once
+    # met the PID modules' import cycle and ended in a traceback.
+    proc = subprocess.run([sys.executable, "-m", "compensator", "board-code", "--out", str(tmp_path / "c"), "--name",
+                           "my link;"], capture_output=True, text=True, timeout=120)
+    lines = proc.stderr.strip().splitlines()
+    assert proc.returncode == 2 and len(lines) == 1 and lines[0].startswith(
+        "compensator: <command line>: --name: 'my link;' must be a C identifier of at most 24"), proc.stderr
+    assert list(tmp_path.iterdir()) == []
+
+
 @pytest.mark.parametrize("argv, needle", [
-    (["--name", "my link;"], "--name: 'my link;' must be a C identifier of at most 24"),
     (["--name", ""], "--name: '' must be a C identifier of at most 24"),
     (["--sipm", str(PROFILES / "hut-sipm-a.yaml")], "--board: the interlocks need both --sipm and --board"),
 ])
-def test_board_code_refuses_in_a_fresh_process(argv, needle, tmp_path):
-    # A fresh process loads the interlocks' C renderer before anything else of the firmware package; that once
-    # met the PID modules' import cycle and ended in a traceback.
-    proc = subprocess.run([sys.executable, "-m", "compensator", "board-code", "--out", str(tmp_path / "c"), *argv],
-                          capture_output=True, text=True, timeout=120)
-    lines = proc.stderr.strip().splitlines()
-    assert proc.returncode == 2 and len(lines) == 1 and lines[0].startswith(f"compensator: <command line>: {needle}"
-                                                                            ), proc.stderr
+def test_board_code_refusals(cli, argv, needle, tmp_path):
+    result = cli("board-code", "--out", tmp_path / "c", *argv)
+    lines = result.stderr.strip().splitlines()
+    assert result.status == 2 and len(lines) == 1 and lines[0].startswith(f"compensator: <command line>: {needle}"
+                                                                          ), result.stderr
     assert list(tmp_path.iterdir()) == []
 
 

@@ -23,7 +23,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import brentq, minimize_scalar
 
 from compensator.constants import ZERO_C_IN_K
 from compensator.errors import ModelError
@@ -325,6 +324,8 @@ def cooler_optimum_current_a(params, ambient_temp_c=None) -> float:
     lo_b, hi_b = grid[max(j - 1, 0)], grid[min(j + 1, grid.size - 1)]
     if j == grid.size - 1:
         return float(hi)
+    from scipy.optimize import minimize_scalar  # here, not at the top: every command loads this module
+
     res = minimize_scalar(lambda x: float(cooler_steady_state(params, x, ambient_temp_c)[0]),
                           bounds=(lo_b, hi_b), method="bounded", options={"xatol": 1e-9})
     return float(res.x)
@@ -375,6 +376,8 @@ def cooler_operating_point(params, setpoint_temp_c=None, current_a=None, ambient
         if sp == t_cold:
             current = i_opt
         else:
+            from scipy.optimize import brentq
+
             current = brentq(lambda x: float(cooler_steady_state(p, x, ta)[0]) - sp, i_warm, i_opt, xtol=1e-12)
     else:
         current = float(current_a)
