@@ -18,6 +18,27 @@ settings.load_profile("deterministic")
 REPO = Path(__file__).resolve().parent.parent
 PROFILES = REPO / "hardware_profiles"
 
+# The files whose tests read the suite's one demo run (the ``demo_run`` fixture); test_demo_files_are_listed checks
+# the list.
+DEMO_FILES = ("tests/test_cli_foundation.py", "tests/test_vocabulary_commands.py")
+
+
+@pytest.hookimpl(optionalhook=True)
+def pytest_xdist_make_scheduler(config, log):
+    """Schedule the suite for pytest-xdist (the README runs it with ``-n auto``, on every core).
+
+    Each test file stays on one worker, so that its module-scoped fixtures (built tables, compiled C) are built
+    once, and the files that read the one demo run share a worker, so that the demo runs once.
+    """
+    from xdist.scheduler import LoadScopeScheduling
+
+    class FileScheduling(LoadScopeScheduling):
+        def _split_scope(self, nodeid: str) -> str:
+            path = nodeid.split("::", 1)[0]
+            return "demo" if path in DEMO_FILES else path
+
+    return FileScheduling(config, log)
+
 
 @dataclass
 class CliResult:

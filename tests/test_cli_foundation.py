@@ -234,3 +234,19 @@ def test_sensor_rejects_codes_beyond_the_adc_in_one_line(cli, profiles_dir):
         assert result.status == 2 and result.stderr.count("\n") == 1 and "--adc-code" in result.stderr
     result = cli("sensor", "--board", profiles_dir / "hut-board-ntc.yaml", "--adc-code", "4096")
     assert result.status == 2 and "outside the 12-bit ADC range 0..4095" in result.stderr
+
+
+def test_demo_files_are_listed():
+    # The xdist scheduler of tests/conftest.py keeps these files on one worker so that the demo runs once per suite.
+    import ast
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent
+    demo_files = next(ast.literal_eval(node.value) for node in ast.parse((root / "conftest.py").read_text()).body
+                      if isinstance(node, ast.Assign) and node.targets[0].id == "DEMO_FILES")
+    users = set()
+    for path in root.glob("test_*.py"):
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.arg) and node.arg == "demo_run":
+                users.add(f"tests/{path.name}")
+    assert users == set(demo_files) == {"tests/test_cli_foundation.py", "tests/test_vocabulary_commands.py"}
