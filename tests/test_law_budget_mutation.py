@@ -168,6 +168,7 @@ def test_light_yield_term_by_hand(sipm_a, board_ntc):
     # 1.3953 % of the response (hand calculation).
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_response", drop_correction="none")
     budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    assert budget.quantity == "response"  # the figures are of gain x PDE x crosstalk x light yield
     assert budget.term("light_yield_tempco").std_pct_by_temp[0] == pytest.approx(1.5 / 1.075, rel=1e-3)
 
 
@@ -185,6 +186,7 @@ def test_every_term_by_temperature_and_the_quantisation_after_calibration(sipm_a
     # calibration point (25 C), times C(T)/C(25 C) = 1 for hut-sipm-a (no capacitance coefficient).
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
     budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    assert budget.monte_carlo is None  # no samples, no Monte Carlo
     for term in budget.terms:
         for name in ("limit_pct_by_temp", "std_pct_by_temp", "signed_pct_by_temp", "calibrated_limit_pct_by_temp",
                      "calibrated_std_pct_by_temp", "calibrated_signed_pct_by_temp"):
@@ -267,3 +269,14 @@ def test_the_constant_gain_law_names_its_residual_as_the_ideal_law(sipm_b, board
     term = gain_error_budget(law, board_pt1000, samples=0, step_k=5.0).term("law_residual")
     assert term.note == "what the ideal law leaves"
     assert np.abs(term.signed_pct_by_temp).max() < 1e-9
+
+
+def test_the_budget_records_its_law_and_options(sipm_a, board_ntc):
+    # The record says what it is the budget of: the law's kind, the quantity held, its overvoltage, and the
+    # options as given, as floats (the response law's quantity: test_light_yield_term_by_hand).
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_overvoltage", drop_correction="none")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0, current_uncertainty_pct=25,
+                               ramp_k_per_min=1)
+    assert (budget.law_kind, budget.quantity, budget.overvoltage_v) == ("constant_overvoltage", "gain", 3.0)
+    assert (budget.current_uncertainty_pct, budget.ramp_k_per_min) == (25.0, 1.0)
+    assert isinstance(budget.current_uncertainty_pct, float) and isinstance(budget.ramp_k_per_min, float)
