@@ -280,3 +280,26 @@ def test_the_budget_records_its_law_and_options(sipm_a, board_ntc):
     assert (budget.law_kind, budget.quantity, budget.overvoltage_v) == ("constant_overvoltage", "gain", 3.0)
     assert (budget.current_uncertainty_pct, budget.ramp_k_per_min) == (25.0, 1.0)
     assert isinstance(budget.current_uncertainty_pct, float) and isinstance(budget.ramp_k_per_min, float)
+
+
+def test_monte_carlo_dithers_over_exactly_one_code(sipm_a, board_ntc):
+    # Only the temperature ADC's quantisation left (the DAC at 24 bits: its half LSB is 1e-5 % of gain). A true
+    # temperature drawn uniformly over exactly one ADC code makes the reading error uniform within +-half a code:
+    # zero mean and u = a / sqrt(3), whatever the temperature (common practice). So at every temperature of the
+    # grid the Monte Carlo's mean is within 4 of its standard errors (std / sqrt(2000)) of zero and its spread
+    # within 5 % of the first-order term (the sampling error of a uniform's standard deviation over 2000 samples
+    # is sqrt(0.8) / 2 / sqrt(2000) = 1.0 %). A window of 1.5 codes would bias the mean by up to a twelfth of a
+    # code (13 standard errors) and move the spread by up to 14 %.
+    from test_law_electronics import _converters_only
+
+    board = _converters_only(board_ntc, adc_inl_lsb=0.0, dac_inl_lsb=0.0)
+    board = replace(board, supply=replace(board.supply, dac=replace(board.supply.dac, bits=24)))
+    bd = replace(sipm_a.device.breakdown, breakdown_err_v=0.0, tempco_err_mv_per_k=0.0)
+    law = build_law(replace(sipm_a, device=replace(sipm_a.device, breakdown=bd)), board, 3.0, kind="constant_gain",
+                    drop_correction="none")
+    budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0, step_k=5.0)
+    mc = budget.monte_carlo
+    assert budget.term("dac_quantisation").limit_pct < 1e-4
+    assert np.all(np.abs(mc.mean_pct_by_temp) < 4.0 * mc.std_pct_by_temp / np.sqrt(2000))
+    ratio = mc.std_pct_by_temp / budget.term("adc_quantisation").std_pct_by_temp
+    assert np.all(np.abs(ratio - 1.0) < 0.05), ratio
