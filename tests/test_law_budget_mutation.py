@@ -81,6 +81,10 @@ def test_options_at_their_limits_are_accepted(sipm_a, board_ntc):
     law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
     assert _check_options(law, 45.0, 1_000_000, 100.0, 60.0, 70.0 / 10_000) == 45.0
     assert _check_options(law, -25.0, np.int64(0), 0.0, 0.0, 70.0) == -25.0
+    # Half a step more than 10000 over the 70 K range is refused.
+    with pytest.raises(ModelError) as info:
+        _check_options(law, 25.0, 0, 30.0, 0.5, 70.0 / 10_000.5)
+    assert info.value.key == "step_k"
 
 
 @pytest.mark.parametrize("option, value, reason", [
