@@ -12,6 +12,7 @@ import pytest
 from compensator.errors import ModelError
 from compensator.law import build_law, gain_error_budget
 from compensator.law.budget import _check_options
+from compensator.physics.supply import sipm_bias_v
 
 CODE_TO_CODE = "changes from code to code: not removed by calibration"
 
@@ -80,6 +81,10 @@ def test_options_at_their_limits_are_accepted(sipm_a, board_ntc):
     law = build_law(sipm_a, board_ntc, 3.0, drop_correction="none")
     assert _check_options(law, 45.0, 1_000_000, 100.0, 60.0, 70.0 / 10_000) == 45.0
     assert _check_options(law, -25.0, np.int64(0), 0.0, 0.0, 70.0) == -25.0
+    # Half a step more than 10000 over the 70 K range is refused.
+    with pytest.raises(ModelError) as info:
+        _check_options(law, 25.0, 0, 30.0, 0.5, 70.0 / 10_000.5)
+    assert info.value.key == "step_k"
 
 
 @pytest.mark.parametrize("option, value, reason", [
@@ -167,6 +172,7 @@ def test_light_yield_term_by_hand(sipm_a, board_ntc):
     # 1.3953 % of the response (hand calculation).
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_response", drop_correction="none")
     budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    assert budget.quantity == "response"  # the figures are of gain x PDE x crosstalk x light yield
     assert budget.term("light_yield_tempco").std_pct_by_temp[0] == pytest.approx(1.5 / 1.075, rel=1e-3)
 
 
@@ -184,6 +190,7 @@ def test_every_term_by_temperature_and_the_quantisation_after_calibration(sipm_a
     # calibration point (25 C), times C(T)/C(25 C) = 1 for hut-sipm-a (no capacitance coefficient).
     law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="none")
     budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0)
+    assert budget.monte_carlo is None  # no samples, no Monte Carlo
     for term in budget.terms:
         for name in ("limit_pct_by_temp", "std_pct_by_temp", "signed_pct_by_temp", "calibrated_limit_pct_by_temp",
                      "calibrated_std_pct_by_temp", "calibrated_signed_pct_by_temp"):
@@ -193,3 +200,110 @@ def test_every_term_by_temperature_and_the_quantisation_after_calibration(sipm_a
         term = budget.term(key)
         assert term.calibrated_limit_pct_by_temp == pytest.approx(
             term.limit_pct_by_temp + term.limit_pct_by_temp[i25], rel=1e-12), key
+        # Both rectangular and independent: the one-sigma values add in quadrature.
+        assert term.calibrated_std_pct_by_temp == pytest.approx(
+            np.hypot(term.std_pct_by_temp, term.std_pct_by_temp[i25]), rel=1e-12), key
+
+
+def test_measured_correction_rounding_alone_by_hand(sipm_a, board_ntc):
+    # An ideal current channel (no gain, reference or offset error): what is left of the measured correction is
+    # its rounding, half a code of the current ADC through R and half a DAC LSB, each rectangular and not removed
+    # by a calibration (which sees its own rounding). hut-sipm-a given a cell capacitance rising 150 ppm/K (as
+    # hut-sipm-b's): the constant-gain law holds Vov(T) = 3 V / f(T), f(T) = 1 + 150e-6 (T - 25 C), and a bias
+    # error dV moves the gain by 100 dV f(T) / 3 V percent; the calibration at 0 C acts through C(T)/C(0 C) = f(T) / f(0 C), so the
+    # calibration's own rounding counts f(T) / f(0 C) x f(0 C) = f(T) as much as at T (hand calculation).
+    sense = replace(board_ntc.current_sense, gain_tolerance_pct=0.0, reference_tolerance_pct=0.0, offset_a=0.0)
+    board = replace(board_ntc, current_sense=sense)
+    sipm = replace(sipm_a, device=replace(sipm_a.device, capacitance_tempco_ppm_per_k=150.0))
+    law = build_law(sipm, board, 3.0, kind="constant_gain", drop_correction="measured")
+    budget = gain_error_budget(law, board, samples=0, step_k=5.0, calibration_temp_c=0.0)
+    term = budget.term("series_resistor_drop")
+    f = 1.0 + 150e-6 * (budget.temp_c - 25.0)
+    half_r_v = 0.5 * board.supply.series_resistor_ohm * 3.3 / 4096 / 20e3  # 3.3 V / 4096 codes / 20 kV/A
+    half_dac_v = 0.5 * board.supply.lsb_v
+    per_v = 100.0 * f / 3.0
+    assert term.limit_pct_by_temp == pytest.approx((half_r_v + half_dac_v) * per_v, rel=1e-9)
+    assert term.std_pct_by_temp == pytest.approx(np.hypot(half_r_v, half_dac_v) / np.sqrt(3) * per_v, rel=1e-9)
+    assert term.calibrated_limit_pct_by_temp == pytest.approx(2.0 * (half_r_v + half_dac_v) * per_v, rel=1e-9)
+    assert term.calibrated_std_pct_by_temp == pytest.approx(
+        np.sqrt(2.0) * np.hypot(half_r_v, half_dac_v) / np.sqrt(3) * per_v, rel=1e-9)
+    for name in ("signed_pct_by_temp", "calibrated_signed_pct_by_temp"):  # the ideal channel's errors: none
+        assert np.array_equal(getattr(term, name), np.zeros(budget.temp_c.size)), name
+
+
+def test_systematic_terms_and_their_calibration_by_hand(sipm_b, board_pt1000):
+    # hut-sipm-b under the constant-overvoltage law, no drop correction. G = C(T) (V - Vbd) / q (common practice)
+    # with C(T) = C(25 C) f(T), f(T) = 1 + 150e-6 (T - 25 C): the law leaves 100 (f(T) - 1) % and the drop d(T)
+    # through the series resistor takes off 100 f(T) d(T) / 4 V more. A one-point calibration at 0 C trims the
+    # bias so the gain is right there: the law's residual becomes 100 (f(T) / f(0 C) - 1) %, the drop's
+    # -100 f(T) (d(T) - d(0 C)) / 4 V (hand algebra).
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_overvoltage", drop_correction="none")
+    budget = gain_error_budget(law, board_pt1000, samples=0, step_k=5.0, calibration_temp_c=0.0)
+    t = budget.temp_c
+    f = 1.0 + 150e-6 * (t - 25.0)
+    f0 = 1.0 + 150e-6 * (0.0 - 25.0)
+    grid = np.append(t, 0.0)
+    v_out = law.output_v(grid)
+    d = v_out - sipm_bias_v(board_pt1000.supply, sipm_b.device, v_out, grid)
+    residual, drop = budget.term("law_residual"), budget.term("series_resistor_drop")
+    assert residual.note == "uncompensated cell-capacitance coefficient"
+    assert residual.signed_pct_by_temp == pytest.approx(100.0 * (f - 1.0), rel=1e-6, abs=1e-9)
+    assert residual.calibrated_signed_pct_by_temp == pytest.approx(100.0 * (f / f0 - 1.0), rel=1e-6, abs=1e-9)
+    assert drop.signed_pct_by_temp == pytest.approx(-100.0 * f * d[:-1] / 4.0, rel=1e-6)
+    assert drop.calibrated_signed_pct_by_temp == pytest.approx(-100.0 * f * (d[:-1] - d[-1]) / 4.0, rel=1e-6)
+    for term in (residual, drop):
+        assert term.kind == "systematic" and term.std_pct == term.calibrated_std_pct == 0.0
+        assert np.array_equal(term.limit_pct_by_temp, np.abs(term.signed_pct_by_temp))
+        assert np.array_equal(term.calibrated_limit_pct_by_temp, np.abs(term.calibrated_signed_pct_by_temp))
+    # The systematic terms add with their signs; the worst case adds every random limit to their magnitude.
+    random_terms = [term for term in budget.terms if term.kind == "random"]
+    hand_sys = 100.0 * (f - 1.0) - 100.0 * f * d[:-1] / 4.0
+    hand_sys_cal = 100.0 * (f / f0 - 1.0) - 100.0 * f * (d[:-1] - d[-1]) / 4.0
+    assert budget.systematic_pct == pytest.approx(np.abs(hand_sys).max(), rel=1e-6)
+    assert budget.worst_case_pct == pytest.approx(
+        (np.abs(hand_sys) + sum(term.limit_pct_by_temp for term in random_terms)).max(), rel=1e-6)
+    assert budget.calibrated_worst_case_pct == pytest.approx(
+        (np.abs(hand_sys_cal) + sum(term.calibrated_limit_pct_by_temp for term in random_terms)).max(), rel=1e-6)
+
+
+def test_the_constant_gain_law_names_its_residual_as_the_ideal_law(sipm_b, board_pt1000):
+    # The capacitance coefficient is compensated by the constant-gain law: only the constant-overvoltage law
+    # leaves it.
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_gain", drop_correction="none")
+    term = gain_error_budget(law, board_pt1000, samples=0, step_k=5.0).term("law_residual")
+    assert term.note == "what the ideal law leaves"
+    assert np.abs(term.signed_pct_by_temp).max() < 1e-9
+
+
+def test_the_budget_records_its_law_and_options(sipm_a, board_ntc):
+    # The record says what it is the budget of: the law's kind, the quantity held, its overvoltage, and the
+    # options as given, as floats (the response law's quantity: test_light_yield_term_by_hand).
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_overvoltage", drop_correction="none")
+    budget = gain_error_budget(law, board_ntc, samples=0, step_k=5.0, current_uncertainty_pct=25,
+                               ramp_k_per_min=1)
+    assert (budget.law_kind, budget.quantity, budget.overvoltage_v) == ("constant_overvoltage", "gain", 3.0)
+    assert (budget.current_uncertainty_pct, budget.ramp_k_per_min) == (25.0, 1.0)
+    assert isinstance(budget.current_uncertainty_pct, float) and isinstance(budget.ramp_k_per_min, float)
+
+
+def test_monte_carlo_dithers_over_exactly_one_code(sipm_a, board_ntc):
+    # Only the temperature ADC's quantisation left (the DAC at 24 bits: its half LSB is 1e-5 % of gain). A true
+    # temperature drawn uniformly over exactly one ADC code makes the reading error uniform within +-half a code:
+    # zero mean and u = a / sqrt(3), whatever the temperature (common practice). So at every temperature of the
+    # grid the Monte Carlo's mean is within 4 of its standard errors (std / sqrt(2000)) of zero and its spread
+    # within 5 % of the first-order term (the sampling error of a uniform's standard deviation over 2000 samples
+    # is sqrt(0.8) / 2 / sqrt(2000) = 1.0 %). A window of 1.5 codes would bias the mean by up to a twelfth of a
+    # code (13 standard errors) and move the spread by up to 14 %.
+    from test_law_electronics import _converters_only
+
+    board = _converters_only(board_ntc, adc_inl_lsb=0.0, dac_inl_lsb=0.0)
+    board = replace(board, supply=replace(board.supply, dac=replace(board.supply.dac, bits=24)))
+    bd = replace(sipm_a.device.breakdown, breakdown_err_v=0.0, tempco_err_mv_per_k=0.0)
+    law = build_law(replace(sipm_a, device=replace(sipm_a.device, breakdown=bd)), board, 3.0, kind="constant_gain",
+                    drop_correction="none")
+    budget = gain_error_budget(law, board, samples=2000, seed=1, ramp_k_per_min=0.0, step_k=5.0)
+    mc = budget.monte_carlo
+    assert budget.term("dac_quantisation").limit_pct < 1e-4
+    assert np.all(np.abs(mc.mean_pct_by_temp) < 4.0 * mc.std_pct_by_temp / np.sqrt(2000))
+    ratio = mc.std_pct_by_temp / budget.term("adc_quantisation").std_pct_by_temp
+    assert np.all(np.abs(ratio - 1.0) < 0.05), ratio
