@@ -11,6 +11,9 @@ from scipy.signal import savgol_coeffs, savgol_filter
 from compensator.calibration.ivknee import _fit_leakage, _Knee, _knee
 from compensator.calibration.synthetic import iv_current_a
 
+# No numpy RuntimeWarning may reach the user (see tests/test_calibration_iv_mutation.py).
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)  # 221 points
 
 
