@@ -183,7 +183,8 @@ def test_variance_of_the_breakdown_by_hand():
 
 def test_fit_window_rows_padded_to_the_longest():
     # The window of each curve: the grid points from below_v under to above_v over its start, rows padded to
-    # the longest (with the next points of the grid, or its last, masked out); a window of one point stays one column wide.
+    # the longest (with the next points of the grid, or its last, masked out); a window of one point stays one
+    # column wide.
     from compensator.calibration.ivjoint import _window
 
     grid = np.tile(np.round(np.arange(0.0, 1.0001, 0.1), 4), (2, 1))

@@ -55,17 +55,21 @@ def test_knee_window_and_peak_follow_the_documented_rule_with_scipy():
     # below the knee, taller in the narrow derivative than the knee itself, which the pilot ignores; rows 4 and 6
     # a steep rise in the last 8 points, where the pilot has no full support (row 6 with a noise that asks for a
     # wider window, which a higher peak there would narrow); row 5 a soft knee (a leakage of 1e-8 A, 50 times the
-    # others': a lower peak) whose window its own peak sets, not the others'.
+    # others': a lower peak) whose window its own peak sets, not the others'; row 7 a spike just above a pilot
+    # half-window (27 points) over the pilot's peak, so that the largest narrow derivative within reach lies at
+    # its very end.
     rng = np.random.default_rng(4)
-    truth = np.array([24.3, 24.6, 25.0, 24.8, 24.4, 24.7, 24.5])
-    sigma = np.array([0.001, 0.1, 0.3, 0.02, 0.02, 0.05, 0.15])
+    truth = np.array([24.3, 24.6, 25.0, 24.8, 24.4, 24.7, 24.5, 24.5])
+    sigma = np.array([0.001, 0.1, 0.3, 0.02, 0.02, 0.05, 0.15, 0.001])
     ln_i = np.log(iv_current_a(GRID_V[None, :], truth[:, None], geiger_scale_v=1.0))
     ln_i[5] = np.log(iv_current_a(GRID_V, truth[5], leakage_a=1e-8, geiger_scale_v=1.0))
     ln_i = ln_i + sigma[:, None] * rng.standard_normal(ln_i.shape)
     ln_i[3, 30] += 3.0  # a spike at 21.5 V: the narrow derivative peaks a point before it
     ln_i[[4, 6], -8:] += 2.0 * np.arange(1, 9)  # a steep rise in the last 8 points
-    k = _knee(ln_i, 0.05)
     n, h_max = 221, 27
+    p7 = h_max + int(np.argmax(savgol_filter(ln_i[7], 55, 3, deriv=1, delta=0.05, mode="nearest")[h_max:n - h_max]))
+    ln_i[7, p7 + h_max + 1] += 3.0  # the narrow derivative peaks a pilot half-window above the pilot's peak
+    k = _knee(ln_i, 0.05)
     peaks = _check_knee_rule(k, ln_i, 0.05)
     assert k.windows[0] < k.windows[1] < k.windows[2] and k.windows[5] > k.windows[3] and k.windows[6] > 5
     assert peaks[5][1] < 0.8 * min(p[1] for p in peaks[:5])
@@ -74,6 +78,7 @@ def test_knee_window_and_peak_follow_the_documented_rule_with_scipy():
         edge = savgol_filter(ln_i[i], 55, 3, deriv=1, delta=0.05, mode="nearest")
         assert np.argmax(edge) >= n - h_max and edge.max() > 2 * peaks[i][1]
         assert abs(GRID_V[k.peak_index[i]] - truth[i]) < 0.3
+    assert peaks[7][0] == p7 and k.peak_index[7] == p7 + h_max  # the search reaches that far, not farther
 
 
 def test_knee_of_a_short_curve_uses_the_smallest_pilot_window():
