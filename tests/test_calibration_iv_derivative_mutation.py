@@ -10,6 +10,9 @@ from scipy.signal import savgol_coeffs, savgol_filter
 
 from compensator.calibration import iv
 
+# No numpy RuntimeWarning may reach the user (see tests/test_calibration_iv_mutation.py).
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 
 def _nearest_root_and_jacobian(coef):
     """Real root of the polynomial (numpy.roots, highest power first) nearest x = 0 and its gradient

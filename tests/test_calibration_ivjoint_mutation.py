@@ -12,6 +12,9 @@ from scipy.optimize import least_squares
 from compensator.calibration.ivjoint import fit_joint
 from compensator.calibration.synthetic import iv_current_a, leakage_at_crossing_a, simulate_iv
 
+# No numpy RuntimeWarning may reach the user (see tests/test_calibration_iv_mutation.py).
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)
 
 
@@ -52,7 +55,7 @@ def test_joint_fit_errors_against_scipy_least_squares():
         assert fit.breakdown_v[i] == pytest.approx(x_full[0], abs=2e-5)
         assert fit.breakdown_stat_err_v[i] == pytest.approx(np.sqrt(var_full), rel=0.01)
         assert (fit.exponent[i], fit.leakage_slope_per_v[i]) == pytest.approx((x_full[2], x_full[5]), abs=1e-3)
-        assert fit.leakage_current_a[i] == pytest.approx(np.exp(x_full[4]), rel=1e-3)
+        assert fit.leakage_current_a[i] == pytest.approx(np.exp(x_full[4]), rel=1e-3, abs=0)
         x_bent, var_bent = _scipy_fit(np.append(x_full, 0.0), bias, ln_i)
         d = x_bent[0] - x_full[0]
         sys = np.sqrt(max(d * d - max(var_bent - var_full, 0.0), 0.0))
@@ -80,3 +83,116 @@ def test_joint_fit_acceptance_bounds_and_fit_range():
     assert np.isnan(fit.breakdown_v[[1, 3]]).all() and np.isnan(fit.exponent[[1, 3]]).all()
     assert (fit.fit_lo_v[4], fit.fit_hi_v[4]) == (20.0, 23.0)
     assert (fit.fit_lo_v[0], fit.fit_hi_v[0]) == pytest.approx((21.75, 26.7))
+
+
+def _start_curves():
+    """Bias rows, ln I and start values of seven curves that reach each rule of the joint fit's start (seeded)."""
+    rng = np.random.default_rng(21)
+    grid = np.tile(GRID_V, (7, 1))
+    grid[4] = np.round(GRID_V - 24.0, 4)  # -4 V to 7 V: a point lies exactly 0.6 V above a start of 0 V
+    truth = np.array([24.5, 24.5, 24.5, 21.0, 0.0, 24.5, 24.5])
+    ln_i = np.log(iv_current_a(grid, truth[:, None], leakage_a=1e-10, leakage_slope_per_v=0.4))
+    ln_i += 1e-3 * rng.standard_normal(ln_i.shape)
+    start = truth + np.array([0.02, -0.02, 0.01, 0.0, 0.0, 0.01, 6.2])  # the last: nothing 0.6 V above 30.7 V
+    exponent = np.array([0.5, 7.0, np.nan, 2.0, 2.0, 2.0, 2.0])
+    leak_a, slope = np.full(7, 1.1e-10), np.full(7, 0.35)
+    # row 5: one reading drops to the leakage start exactly (its avalanche part is 0, not used) 1.5 V above it
+    j = int(np.argmin(np.abs(grid[5] - start[5] - 1.5)))
+    ln_i[5, j] = np.log(leak_a[5]) + slope[5] * (grid[5, j] - start[5])
+    return grid, ln_i, start, exponent, leak_a, slope
+
+
+def test_joint_fit_start_values_by_hand(monkeypatch):
+    # The start values the module docstring and fit_joint state: Vbd from the derivative method, the exponent
+    # clipped to [0.8, 6] (2 where not given), the leakage's a and b as given, the bending term 0, and ln A the
+    # median, over the window's points more than 0.3 x JOINT_SPAN_V = 0.6 V above the start whose avalanche
+    # current I - exp(a + b x) is positive, of ln(I - exp(a + b x)) - k ln x (x = V - Vbd). Rebuilt here with
+    # numpy per row: row 3's window is cut by the start of the sweep (its padding is not used), row 4 has a
+    # point exactly 0.6 V above its start (not used), row 5 a reading equal to the leakage (not used), row 6 no
+    # point 0.6 V above its start (no ln A: NaN, and its fit fails without a warning).
+    import compensator.calibration.ivjoint as ivjoint
+
+    starts = []
+    real = ivjoint._solve
+
+    def spy(win, params, max_iterations):
+        starts.append(params.copy())
+        return real(win, params, max_iterations)
+
+    monkeypatch.setattr(ivjoint, "_solve", spy)
+    grid, ln_i, start, exponent, leak_a, slope = _start_curves()
+    fit = fit_joint(grid, ln_i, start, exponent=exponent, leakage_current_a=leak_a, leakage_slope_per_v=slope)
+    assert fit.ok.dtype == np.bool_ and fit.ok.tolist() == [True] * 6 + [False]
+    params = starts[0]
+    assert params.shape == (7, 6)
+    np.testing.assert_array_equal(params[:, 2], [0.8, 6.0, 2.0, 2.0, 2.0, 2.0, 2.0])
+    np.testing.assert_array_equal(params[:, [0, 3, 4, 5]], np.column_stack([start, np.zeros(7), np.log(leak_a),
+                                                                              slope]))
+    for i in range(7):
+        inside = (grid[i] >= start[i] - 3.0) & (grid[i] <= start[i] + 2.0)
+        x = grid[i, inside] - start[i]
+        aval = np.exp(ln_i[i, inside]) - np.exp(np.log(leak_a[i]) + slope[i] * x)
+        pick = (x > 0.6) & (aval > 0)
+        assert np.sum(x == 0.6) == (i == 4) and np.sum(aval[x > 0.6] == 0.0) == (i == 5), i
+        if i == 6:
+            assert not pick.any() and np.isnan(params[i, 1])
+            continue
+        expected = np.median(np.log(aval[pick]) - params[i, 2] * np.log(x[pick]))
+        assert params[i, 1] == pytest.approx(expected, rel=1e-12, abs=0), i
+
+
+def test_joint_fit_refuses_starts_without_a_positive_leakage():
+    # A curve is fitted only with a finite start breakdown and a finite, positive leakage current and slope
+    # (fit_joint's docstring: NaN is not fitted); the others are returned NaN with ok False, without a numpy
+    # warning (the log of a zero or negative current is never taken), while the good curve beside them is fitted.
+    grid, ln_i, start, _, _, _ = _start_curves()
+    rows = [0] * 6
+    fit = fit_joint(grid[rows], ln_i[rows], [24.52, np.nan, 24.52, 24.52, 24.52, 24.52],
+                    exponent=np.full(6, 2.0), leakage_current_a=np.array([1e-10, 1e-10, 0.0, -1e-12, np.nan, 1e-10]),
+                    leakage_slope_per_v=np.array([0.4, 0.4, 0.4, 0.4, 0.4, np.nan]))
+    assert fit.ok.dtype == np.bool_ and fit.ok.tolist() == [True, False, False, False, False, False]
+    assert fit.breakdown_v[0] == pytest.approx(24.5, abs=2e-3)
+    for name in fit._fields[:-1]:
+        assert np.isnan(getattr(fit, name)[1:]).all(), name
+
+
+def test_variance_of_the_breakdown_by_hand():
+    # The statistical variance: element (0, 0) of the inverse normal matrix (numpy.linalg.inv) times the residual
+    # sum of squares over points - parameters (at least 1); NaN where the normal matrix is not finite or is
+    # singular. Row 1 has 7 points for 6 parameters (1 degree of freedom) and a normal matrix of determinant
+    # below 1; row 2 a NaN entry; row 3 an exactly singular matrix.
+    from compensator.calibration.ivjoint import _Solution, _variance
+
+    rng = np.random.default_rng(1)
+    jac = rng.standard_normal((2, 12, 6))
+    normal = np.concatenate([np.einsum("mki,mkj->mij", jac, jac), np.zeros((2, 6, 6))])
+    normal[1] *= 0.01
+    normal[2] = np.eye(6)
+    normal[2, 3, 3] = np.nan
+    normal[3] = np.diag([1.0, 2.0, 3.0, 4.0, 5.0, 0.0])
+    assert 0 < np.linalg.det(normal[1]) < 1
+    mask = np.zeros((4, 30))
+    mask[0, :20] = mask[1, :7] = mask[2, :20] = mask[3, :20] = 1.0
+    cost = np.array([2.0, 0.5, 1.0, 1.0])
+    sol = _Solution(params=np.zeros((4, 6)), normal=normal.copy(), cost=cost, converged=np.ones(4, dtype=bool))
+    var = _variance(sol, mask)
+    assert var[0] == pytest.approx(np.linalg.inv(normal[0])[0, 0] * 2.0 / 14, rel=1e-12)
+    assert var[1] == pytest.approx(np.linalg.inv(normal[1])[0, 0] * 0.5 / 1, rel=1e-9)
+    assert np.isnan(var[2:]).all()
+
+
+def test_fit_window_rows_padded_to_the_longest():
+    # The window of each curve: the grid points from below_v under to above_v over its start, rows padded to
+    # the longest (with the next points of the grid, or its last, masked out); a window of one point stays one
+    # column wide.
+    from compensator.calibration.ivjoint import _window
+
+    grid = np.tile(np.round(np.arange(0.0, 1.0001, 0.1), 4), (2, 1))
+    ln_i = grid * 10.0
+    win = _window(grid, ln_i, np.array([0.3, 0.9]), 0.15, 0.2)
+    np.testing.assert_array_equal(win.mask, [[1, 1, 1, 1], [1, 1, 1, 0]])
+    np.testing.assert_array_equal(win.bias_v, [[0.2, 0.3, 0.4, 0.5], [0.8, 0.9, 1.0, 1.0]])
+    np.testing.assert_array_equal(win.ln_current, win.bias_v * 10.0)
+    one = _window(grid, ln_i, np.array([0.3, 0.5]), 0.05, 0.05)
+    np.testing.assert_array_equal(one.mask, [[1], [1]])
+    np.testing.assert_array_equal(one.bias_v, [[0.3], [0.5]])

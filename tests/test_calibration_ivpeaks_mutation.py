@@ -10,6 +10,9 @@ from scipy.signal import savgol_coeffs, savgol_filter
 from compensator.calibration.synthetic import simulate_iv
 from iv_model import spy_on_the_peak_fit
 
+# No numpy RuntimeWarning may reach the user (see tests/test_calibration_iv_mutation.py).
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 GRID_V = np.round(np.arange(20.0, 31.0001, 0.05), 4)  # 221 points
 
 

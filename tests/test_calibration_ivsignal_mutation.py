@@ -10,6 +10,9 @@ from scipy.signal import savgol_coeffs, savgol_filter
 
 from compensator.calibration import ivsignal
 
+# No numpy RuntimeWarning may reach the user (see tests/test_calibration_iv_mutation.py).
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
+
 
 def test_noise_is_the_mad_of_second_differences_over_sqrt_6():
     # For white noise of standard deviation s the second differences have standard deviation sqrt(6) s, and

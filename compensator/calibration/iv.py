@@ -185,8 +185,10 @@ class IvBreakdown:
     bias_v : ndarray, shape (n_curves, n_points)
         Uniform bias grid each curve was analysed on, volt (for plots).
     log_derivative_per_v : ndarray, shape (n_curves, n_points)
-        Smoothed d ln I / dV of the total current, 1/volt (NaN within half a
-        window of the ends, and NaN rows where the curve failed early).
+        Smoothed d ln I / dV of the total current, 1/volt (for the peak methods,
+        of the current with the growth of the leakage removed, see above; NaN
+        within half a window of the ends, and NaN rows where the curve failed
+        early).
     """
 
     breakdown_v: np.ndarray

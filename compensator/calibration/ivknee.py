@@ -52,8 +52,11 @@ def _knee(ln_i, step_v) -> _Knee:
     w_max = max(5, _odd(n // 4))
     pilot = savgol_filter(ln_i, w_max, POLYORDER, deriv=1, delta=step_v, axis=-1, mode="nearest")
     h_max = w_max // 2
-    pilot_peak = np.max(pilot[:, h_max:n - h_max], axis=1) if n > 2 * h_max else np.max(pilot, axis=1)
-    windows = choose_window(noise, pilot_peak, step_v, n, deriv=1)
+    # The pilot's peak over the points where its filter has full support (find_breakdown passes curves of
+    # at least MIN_POINTS = 15 points, more than the pilot window w_max: there is always such a point).
+    inner = pilot[:, h_max:n - h_max]
+    p_pilot = h_max + np.argmax(inner, axis=1)
+    windows = choose_window(noise, np.max(inner, axis=1), step_v, n, deriv=1)
     deriv = _savgol_grouped(ln_i, windows, step_v, 1)
     half = windows // 2
     cols = np.arange(n)[None, :]
@@ -61,9 +64,6 @@ def _knee(ln_i, step_v) -> _Knee:
     deriv[~interior] = np.nan  # within half a window of the ends the filter has no full support
     # The knee: the peak of the pilot derivative (robust against noise spikes where
     # the current is small), refined with the chosen window within a pilot window of it.
-    cols_all = np.arange(n)
-    pilot_inside = (cols_all >= h_max) & (cols_all < n - h_max) if n > 2 * h_max else np.ones(n, dtype=bool)
-    p_pilot = np.argmax(np.where(pilot_inside[None, :], pilot, -np.inf), axis=1)
     near = np.abs(cols - p_pilot[:, None]) <= h_max
     p = np.argmax(np.where(interior & near, deriv, -np.inf), axis=1)
     return _Knee(noise, windows, deriv, p, noise * _gains(windows, 1) / step_v, interior)
