@@ -1,0 +1,222 @@
+"""The fixed-point PID's raw state (Q.F integrator, derivative and output) step by step: by hand, and against the
+algorithm of ``compensator.firmware.pid``'s docstring evaluated with exact rationals.
+
+``FixedPid`` writes each rounding as ``(m x + 2^(s-1)) >> s``; the checks here round the exact rational ``m x / 2^s``
+half up with ``fractions.Fraction`` (``floor(q + 1/2)``), so that a wrong rounding term moves the state by one LSB of
+Q.F, which the output counts alone rarely show.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from fractions import Fraction
+
+import numpy as np
+import pytest
+
+from compensator.firmware.fixed_point import INT32_MAX, INT32_MIN
+from compensator.firmware.pid import FixedPid, PidSettings, quantise_pid
+
+
+def rhu(m: int, x: int, s: int) -> int:
+    """``m x / 2^s`` rounded half up (ties toward +infinity), from the exact rational."""
+    return math.floor(Fraction(m * x, 2 ** s) + Fraction(1, 2))
+
+
+def clip(x, lo, hi):
+    return max(lo, min(hi, x))
+
+
+class ExactPid:
+    """The algorithm of the ``compensator.firmware.pid`` docstring, written again with exact rational rounding."""
+
+    def __init__(self, c):
+        self.c = c
+        self.i_lim = (INT32_MIN, INT32_MAX) if c.word_bits == 64 else (-c.integrator_limit_q, c.integrator_limit_q)
+        self.reset()
+
+    def reset(self, output_count=None):
+        self.i = self.d = self.y_prev = self.target = 0
+        self.manual = self.primed = False
+        self.have_output = output_count is not None
+        self.u = 0 if output_count is None else self.q(output_count)
+
+    def q(self, count):
+        c = self.c
+        return clip(count, c.out_min_count, c.out_max_count) * 2 ** c.state_frac_bits
+
+    def step(self, r, y):
+        c, lim = self.c, self.c.input_limit_count
+        r, y = clip(r, -lim, lim), clip(y, -lim, lim)
+        y_prev = self.y_prev if self.primed else y
+        p = rhu(1, c.kpb_mant * r - c.kp_mant * y, c.p_shift)
+        d = clip(rhu(c.ad_mant, self.d, c.ad_shift) - rhu(c.bd_mant, y - y_prev, c.bd_shift), INT32_MIN, INT32_MAX)
+        if not self.primed and self.have_output and not self.manual:
+            self.i = clip(self.u - p - d, *self.i_lim)
+        v = clip(p + self.i + d, INT32_MIN, INT32_MAX)
+        f = c.state_frac_bits
+        u = self.target if self.manual else clip(v, c.out_min_count * 2 ** f, c.out_max_count * 2 ** f)
+        if c.rate_step_q and self.have_output:
+            u = clip(u, self.u - c.rate_step_q, self.u + c.rate_step_q)
+        if self.manual:
+            self.i = clip(u - p - d, *self.i_lim)
+        else:
+            inc = rhu(c.ki_mant, r - y, c.ki_shift)
+            if c.anti_windup == "back_calculation":
+                self.i = clip(self.i + inc + rhu(c.track_mant, u - v, c.track_shift), *self.i_lim)
+            elif c.anti_windup == "none" or not ((v > u and inc > 0) or (v < u and inc < 0)):
+                self.i = clip(self.i + inc, *self.i_lim)
+        self.d, self.u, self.y_prev, self.primed, self.have_output = d, u, y, True, True
+        return rhu(1, u, f)
+
+
+def hand_coefficients(**kw):
+    """Small mantissas set directly: F = 4, output limits +-20 counts (+-320 in Q.4)."""
+    base = quantise_pid(PidSettings(kp=1.0, ki_per_s=1.0, kd_s=0.1, sample_time_s=0.1, out_min=-20.0, out_max=20.0),
+                        input_per_count=1.0, output_per_count=1.0)
+    fields = dict(state_frac_bits=4, kp_mant=3, kpb_mant=3, p_shift=1, ki_mant=5, ki_shift=2, ad_mant=3, ad_shift=2,
+                  bd_mant=7, bd_shift=1, track_mant=1, track_shift=1, rate_step_q=0, anti_windup="back_calculation")
+    fields.update(kw)
+    return dataclasses.replace(base, **fields)
+
+
+def test_fixed_state_step_by_hand():
+    # kp = kp b = 3 2^-1, ki h = 5 2^-2, ad = 3 2^-2, bd = 7 2^-1, track = 1 2^-1 (Q.4 state, limits +-320).
+    # Step 1 (r 5, y 0, y_prev = y): P = 15/2 -> 8 (a tie, up); D = 0/4 - 0/2 -> 0; v = u = 8;
+    #   I = 0 + 25/4 -> 6 + track (0 + 1/2 -> 0) = 6; output 8/16 -> 1 (a tie, up).
+    # Step 2 (r 5, y 3): P = 6/2 -> 3; D = 0 - 21/2 -> -(11) (10.5 rounds to 11) = -11; v = u = 3 + 6 - 11 = -2;
+    #   I = 6 + 10/4 -> 3 = 9; output -2/16 -> 0.
+    # Step 3 (r 5, y 3): P = 3; D = -33/4 = -8.25 -> -8 minus 0 = -8; v = u = 3 + 9 - 8 = 4; I = 9 + 3 = 12; output 0.
+    # Step 4 (r 400, y 3): P = 1191/2 -> 596; D = -24/4 -> -6; v = 596 + 12 - 6 = 602, u = 320 (the limit);
+    #   I = 12 + 1985/4 -> 496 + (320 - 602)/2 = -141 -> -141 (a tie, up) = 367; output 20.
+    pid = FixedPid(hand_coefficients())
+    rows = [(pid.step(r, y), pid.state.integrator_q, pid.state.derivative_q, pid.state.output_q)
+            for r, y in ((5, 0), (5, 3), (5, 3), (400, 3))]
+    assert rows == [(1, 6, 0, 8), (0, 9, -11, -2), (0, 12, -8, 4), (20, 367, -6, 320)]
+    # Bumpless start from reset(2): u_prev = 32; the first step sets I = 32 - P - D = 32 - 8 - 0 = 24, so v = u = 32.
+    pid = FixedPid(hand_coefficients())
+    pid.reset(2)
+    assert pid.step(5, 0) == 2 and pid.state.integrator_q == 24 + 6
+    # Now from a measurement that moved: D = 0 in the first step, so a derivative with the wrong sign cannot hide:
+    # with D = -11 (primed, r 5, y 3 after y 0) the manual tracking sets I = u - P - D = 160 - 3 + 11 = 168.
+    pid = FixedPid(hand_coefficients())
+    pid.step(5, 0)
+    pid.set_manual(10)
+    pid.step(5, 3)
+    assert (pid.state.integrator_q, pid.state.derivative_q, pid.state.output_q) == (168, -11, 160)
+
+
+def test_bumpless_start_with_a_derivative_by_hand():
+    # reset(2) after a run: the first step after a reset never kicks D (y_prev = y), but D's filter state is cleared
+    # too; with ad = 3/4 and a primed controller the bumpless start is not taken. So reset, then one step with
+    # the filter state set: the integrator is u_prev - P - D exactly. D = -(7 (y - y_prev) / 2) needs a primed
+    # step; the bumpless start only happens unprimed, where D = ad 0 - bd 0 = 0: the - D term is checked with a
+    # hand-set derivative state instead.
+    pid = FixedPid(hand_coefficients())
+    pid.reset(2)
+    pid._d = -40  # a filter state left over: D = 3 (-40) / 4 = -30 in the first step
+    assert pid.step(5, 0) == 2
+    # I = 32 - 8 - (-30) = 54, then + 6 (the increment) + 0 (no tracking: v = u) = 60
+    assert (pid.state.integrator_q, pid.state.derivative_q) == (60, -30)
+
+
+def schedule(rng, n, lim):
+    """Seeded random walks with jumps to and beyond the input limit, manual spells and resets."""
+    r = np.repeat(rng.integers(-lim // 2, lim // 2 + 1, n // 40 + 1), 40)[:n]
+    y = np.cumsum(rng.integers(-lim // 50, lim // 50 + 1, n))
+    pick = rng.random(n)
+    y = np.where(pick < 0.05, rng.choice([-2 * lim, 2 * lim, -lim, lim], n), y)
+    r = np.where(rng.random(n) < 0.03, rng.choice([-2 * lim, 2 * lim], n), r)
+    events = []
+    manual = False
+    for k in range(n):
+        e = rng.random()
+        if e < 0.04:
+            events.append(("m", int(rng.integers(-3000, 3000))))
+            manual = True
+        elif e < 0.08 and manual:
+            events.append(("a",))
+            manual = False
+        elif e < 0.10:
+            events.append(("reset", None if rng.random() < 0.5 else int(rng.integers(-3000, 3000))))
+            manual = False
+        events.append(("s", int(r[k]), int(y[k])))
+    return events
+
+
+CASES = {
+    # 64 bits: a PID with a setpoint weight and a rate limit, back-calculation (P far beyond int32 at the limits)
+    "pid64": (dict(kp=0.8, ki_per_s=0.5, kd_s=2.0, sample_time_s=0.1, out_min=-2.0, out_max=2.0, setpoint_weight=0.6,
+                   rate_limit_per_s=5.0), 0.001, 0.001, 64, 1 << 16),
+    # 64 bits: clamping through a reversing DAC, no rate limit
+    "clamp64": (dict(kp=0.02, ki_per_s=5.0, kd_s=0.001, sample_time_s=0.001, out_min=25.0, out_max=35.0,
+                     anti_windup="clamping"), 1e-3, -2.5e-4, 64, 1 << 16),
+    # 64 bits: reverse acting, no anti-windup, unfiltered derivative
+    "none64": (dict(kp=-0.15, ki_per_s=-0.2, kd_s=-0.02, sample_time_s=0.05, out_min=-1.5, out_max=1.5,
+                    derivative_filter_n=math.inf, anti_windup="none", rate_limit_per_s=20.0), 0.01, 3.0 / 4095, 64,
+               1 << 16),
+    # 32 bits: P, D and the increment close to +-2^28, so that the integrator's +-2^28 clamp acts in every branch
+    "pid32": (dict(kp=0.8, ki_per_s=4.0, kd_s=0.002, sample_time_s=0.01, out_min=0.0, out_max=4095.0,
+                   setpoint_weight=0.7, rate_limit_per_s=2e4), 1.0, 1.0, 32, 1 << 16),
+    "clamp32": (dict(kp=0.5, ki_per_s=40.0, kd_s=0.0, sample_time_s=0.01, out_min=-2000.0, out_max=4095.0,
+                     anti_windup="clamping"), 1.0, 1.0, 32, 1 << 16),
+}
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_fixed_state_equals_the_exact_algorithm(case):
+    settings, ipc, opc, word_bits, limit = CASES[case]
+    c = quantise_pid(PidSettings(**settings), input_per_count=ipc, output_per_count=opc, word_bits=word_bits,
+                     input_limit_count=limit)
+    pid, ref = FixedPid(c), ExactPid(c)
+    for event in schedule(np.random.default_rng(11), 600, limit):
+        if event[0] == "m":
+            pid.set_manual(event[1])
+            ref.manual, ref.target = True, ref.q(event[1])
+        elif event[0] == "a":
+            pid.set_auto()
+            ref.manual = False
+        elif event[0] == "reset":
+            pid.reset(event[1])
+            ref.reset(event[1])
+        else:
+            out = pid.step(event[1], event[2])
+            assert out == ref.step(event[1], event[2]), event
+            s = pid.state
+            assert (s.integrator_q, s.derivative_q, s.output_q) == (ref.i, ref.d, ref.u), event
+
+
+def test_integrator_clamps_in_the_bumpless_start_and_in_manual_tracking():
+    from compensator.firmware.pid_coefficients import STATE_LIMIT_32, _check_32_bit_ranges
+
+    # 64 bits, kp = kp b = 2^30 (no shift, Q.4): P = 2^30 (r - y) = 200 2^30 for r = 100, y = -100, far beyond int32.
+    # Bumpless start from reset(2) (u_prev = 32): I = 32 - P is clipped to INT32_MIN, so v = P + INT32_MIN saturates
+    # high and the output goes to its limit, 20 counts (the start cannot be bumpless); mirrored, -20 and INT32_MAX.
+    c = hand_coefficients(kp_mant=1 << 30, kpb_mant=1 << 30, p_shift=0, ki_mant=0, ki_shift=0, track_mant=0,
+                          track_shift=0)
+    for sign, out, i_end in ((1, 20, INT32_MIN), (-1, -20, INT32_MAX)):
+        pid = FixedPid(c)
+        pid.reset(2)
+        assert pid.step(sign * 100, -sign * 100) == out and pid.state.integrator_q == i_end
+        # manual tracking, target 10 counts (160 in Q.4): I = 160 - P - D, clipped to the same end
+        pid = FixedPid(c)
+        pid.set_manual(10)
+        assert pid.step(sign * 100, -sign * 100) == 10 and pid.state.integrator_q == i_end
+    # 32 bits, Q.4, limits +-2^23 counts (+-2^27 in Q.4, the most the 32-bit format allows), inputs within +-2^16:
+    # kp = kp b = 16383 2^-3 keeps P = 16383 2^17 / 8 = 268419072 = 2^28 - 16384 inside 2^28 (accepted by the range
+    # check), but u - P reaches -2^27 - 268419072 = -402636800: the integrator stops at -2^28 = -268435456.
+    c32 = dataclasses.replace(c, word_bits=32, integrator_limit_q=STATE_LIMIT_32, input_limit_count=1 << 16,
+                              out_min_count=-(1 << 23), out_max_count=1 << 23, kp_mant=16383, kpb_mant=16383,
+                              p_shift=3, bd_mant=0, bd_shift=0, ad_mant=0, ad_shift=0)
+    _check_32_bit_ranges(c32)
+    for sign in (1, -1):
+        pid = FixedPid(c32)
+        pid.reset(-sign * (1 << 23))
+        # I = -2^28 (clipped), v = 268419072 - 268435456 = -16384 (Q.4): the output is -1024 counts
+        assert pid.step(sign * (1 << 16), -sign * (1 << 16)) == -sign * 1024
+        assert pid.state.integrator_q == -sign * (1 << 28)
+        pid = FixedPid(c32)
+        pid.set_manual(sign * (1 << 23))
+        pid.step(-sign * (1 << 16), sign * (1 << 16))
+        assert pid.state.integrator_q == sign * (1 << 28)  # 2^27 + 268419072, clipped
