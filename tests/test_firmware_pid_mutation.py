@@ -220,3 +220,51 @@ def test_integrator_clamps_in_the_bumpless_start_and_in_manual_tracking():
         pid.set_manual(sign * (1 << 23))
         pid.step(-sign * (1 << 16), sign * (1 << 16))
         assert pid.state.integrator_q == sign * (1 << 28)  # 2^27 + 268419072, clipped
+
+
+def test_coefficient_invariants_at_their_exact_ends():
+    # Each invariant of FixedPidCoefficients (the ones the overflow-free arithmetic relies on, pid module docstring):
+    # the last accepted value and the first refused one, with the refusal's reason word for word.
+    from compensator.errors import ModelError
+
+    c = hand_coefficients(out_min_count=-127, out_max_count=127)  # 127 = INT32_MAX >> 24 fits every F up to 24
+    c32 = dataclasses.replace(c, word_bits=32, integrator_limit_q=1 << 28, input_limit_count=1 << 16)
+    accepted = [(c, dict(state_frac_bits=0)), (c, dict(state_frac_bits=24)),
+                (c, dict(kp_mant=1 << 30, kpb_mant=-(1 << 30), p_shift=62)), (c32, dict(ki_mant=-32767, ki_shift=46)),
+                (c, dict(input_limit_count=1)), (c, dict(input_limit_count=1 << 24)),
+                (c, dict(integrator_limit_q=1)), (c, dict(integrator_limit_q=INT32_MAX)),
+                (c, dict(out_min_count=5, out_max_count=5)),
+                (c, dict(state_frac_bits=20, out_min_count=-2047, out_max_count=2047)),  # INT32_MAX >> 20 = 2047
+                (c, dict(rate_step_q=0)), (c, dict(rate_step_q=INT32_MAX))]
+    for base, kw in accepted:
+        assert all(getattr(dataclasses.replace(base, **kw), k) == v for k, v in kw.items())
+    refused = [
+        (c, dict(state_frac_bits=-1), "state_frac_bits: -1 is outside 0..24"),
+        (c, dict(state_frac_bits=25), "state_frac_bits: 25 is outside 0..24"),
+        (c, dict(word_bits=16), "word_bits: must be 64 or 32, got 16"),
+        (c, dict(kp_mant=(1 << 30) + 1), "kp_mant: 1073741825 exceeds 1073741824 in magnitude"),
+        (c, dict(kpb_mant=-(1 << 30) - 1), "kpb_mant: -1073741825 exceeds 1073741824 in magnitude"),
+        (c32, dict(ki_mant=32768), "ki_mant: 32768 exceeds 32767 in magnitude"),
+        (c32, dict(ad_mant=-32768), "ad_mant: -32768 exceeds 32767 in magnitude"),
+        (c32, dict(bd_mant=40000), "bd_mant: 40000 exceeds 32767 in magnitude"),
+        (c32, dict(track_mant=32768), "track_mant: 32768 exceeds 32767 in magnitude"),
+        (c, dict(p_shift=63), "p_shift: 63 is outside 0..62"),
+        (c, dict(ki_shift=-1), "ki_shift: -1 is outside 0..62"),
+        (c32, dict(ad_shift=47), "ad_shift: 47 is outside 0..46"),
+        (c32, dict(bd_shift=47), "bd_shift: 47 is outside 0..46"),
+        (c32, dict(track_shift=47), "track_shift: 47 is outside 0..46"),
+        (c, dict(input_limit_count=0), "input_limit_count: 0 is outside 1..2^24"),
+        (c, dict(input_limit_count=(1 << 24) + 1), "input_limit_count: 16777217 is outside 1..2^24"),
+        (c, dict(integrator_limit_q=0), "integrator_limit_q: 0 is outside 1..2^31-1"),
+        (c, dict(integrator_limit_q=1 << 31), "integrator_limit_q: 2147483648 is outside 1..2^31-1"),
+        (c, dict(out_min_count=6, out_max_count=5), "out_min_count/out_max_count: 6 is above 5"),
+        (c, dict(state_frac_bits=20, out_max_count=2048), "out_min_count/out_max_count: the limits do not fit Q11.20"),
+        (c, dict(state_frac_bits=20, out_min_count=-2048), "out_min_count/out_max_count: the limits do not fit Q11.20"),
+        (c, dict(rate_step_q=-1), "rate_step_q: -1 is outside 0..2^31-1"),
+        (c, dict(rate_step_q=1 << 31), "rate_step_q: 2147483648 is outside 0..2^31-1"),
+        (c, dict(anti_windup="freeze"), "anti_windup: must be one of back_calculation, clamping, none, got 'freeze'"),
+    ]
+    for base, kw, reason in refused:
+        with pytest.raises(ModelError) as exc:
+            dataclasses.replace(base, **kw)
+        assert exc.value.reason == reason, kw
