@@ -268,3 +268,39 @@ def test_coefficient_invariants_at_their_exact_ends():
         with pytest.raises(ModelError) as exc:
             dataclasses.replace(base, **kw)
         assert exc.value.reason == reason, kw
+
+
+def test_clamping_holds_on_an_increment_of_one_and_clips_the_integrator():
+    # Clamping (conditional integration): hold while v is beyond the limit and the increment drives further, even by
+    # one state LSB. ki h = 4 2^-2 (the increment is the error itself), no derivative.
+    c = hand_coefficients(anti_windup="clamping", ki_mant=4, ki_shift=2, ad_mant=0, ad_shift=0, bd_mant=0, bd_shift=0)
+    pid = FixedPid(c)
+    pid.set_manual(20)  # u = 320 (Q.4); P = -300/2 -> -150; tracking sets I = 320 + 150 = 470
+    pid.step(0, 100)
+    assert pid.state.integrator_q == 470
+    pid.set_auto()
+    # P = 3/2 -> 2, v = 472 > 320: limited, and an increment of exactly 1 would drive further: I holds at 470
+    assert pid.step(101, 100) == 20 and pid.state.integrator_q == 470
+    # kp b = 0, kp = 2^30 (Q.4, no shift): P = -2^30 y. Manual at 0 with y = 2 puts I at 0 + 2^31, clipped to INT32_MAX;
+    # back in automatic, v = -2^31 + INT32_MAX = -1 is inside the limits, so the increment 5 x 98 / 4 -> 123 is
+    # integrated, and the sum is clipped to INT32_MAX (mirrored: -2^31, and -122 clipped to INT32_MIN).
+    c = hand_coefficients(anti_windup="clamping", kpb_mant=0, kp_mant=1 << 30, p_shift=0, ad_mant=0, ad_shift=0,
+                          bd_mant=0, bd_shift=0)
+    for sign, end in ((1, INT32_MAX), (-1, INT32_MIN)):
+        pid = FixedPid(c)
+        pid.set_manual(0)
+        pid.step(sign * 100, sign * 2)
+        assert pid.state.integrator_q == end
+        pid.set_auto()
+        assert pid.manual is False
+        assert pid.step(sign * 100, sign * 2) == 0
+        assert (pid.state.integrator_q, pid.state.output_q) == (end, -1 if sign > 0 else 0)
+
+
+def test_reset_refuses_an_output_count_outside_int32_by_name():
+    from compensator.errors import ModelError
+
+    pid = FixedPid(hand_coefficients())
+    with pytest.raises(ModelError) as exc:
+        pid.reset(1 << 31)
+    assert exc.value.reason == "output_count: 2147483648 is outside the int32 range"
