@@ -304,3 +304,71 @@ def test_reset_refuses_an_output_count_outside_int32_by_name():
     with pytest.raises(ModelError) as exc:
         pid.reset(1 << 31)
     assert exc.value.reason == "output_count: 2147483648 is outside the int32 range"
+
+
+def quantise_by_search(value, limit, max_shift):
+    """The definition written as a plain search with exact rationals: the largest shift s <= max_shift whose rounded
+    (half up) mantissa |value| 2^s still fits ``limit``; None where the value is refused (above the limit, or fewer
+    than 10 significant bits left)."""
+    v = Fraction(value)
+    if v == 0:
+        return 0, 0
+    if abs(v) > limit:
+        return None
+    half = Fraction(1, 2)
+    s = next(k for k in range(max_shift, -1, -1) if math.floor(abs(v) * 2 ** k + half) <= limit)
+    mant = math.floor(abs(v) * 2 ** s + half)
+    return (int(math.copysign(mant, value)), s) if mant >= 1024 else None
+
+
+def test_quantise_is_the_largest_shift_that_fits():
+    from compensator.errors import ModelError
+    from compensator.firmware.pid_coefficients import _quantise
+
+    rng = np.random.default_rng(5)
+    for limit in ((1 << 15) - 1, 1 << 30):
+        # values whose scaled mantissa lands on the limit, half a count above it (rounds past it), and just below
+        ties = [(limit + d) * 2.0 ** -k for k in (0, 3, 20) for d in (0.0, 0.5, 0.4999, 0.6, -0.5, -0.4)]
+        values = ties + [float(x) for x in 10.0 ** rng.uniform(-12, 10, 40)] + [1024.0, 1023.5, 2.0, 1.999]
+        for value in values:
+            for sign in (1, -1):
+                for max_shift in (0, 9, 46, 62):
+                    expected = quantise_by_search(sign * value, limit, max_shift)
+                    if expected is None:
+                        with pytest.raises(ModelError):
+                            _quantise(sign * value, "x", limit, max_shift)
+                    else:
+                        assert _quantise(sign * value, "x", limit, max_shift) == expected, (sign * value, limit,
+                                                                                             max_shift)
+    assert _quantise(32767.0, "x", 32767, 46) == (32767, 0)  # exactly the limit fits, without a shift
+    assert _quantise(2.0, "x", 32767, 9) == (1024, 9)  # exactly 10 significant bits are kept
+
+
+def test_limits_round_to_a_whole_count_only_within_their_floating_point_error():
+    from compensator.firmware.pid_coefficients import _limit_counts
+
+    # A limit within 1e-9 (relative, at least 1e-9 absolute) of a whole count is that count; otherwise the integer
+    # limits lie inside the exact ones (ceil below, floor above). 1.1 / 0.1 = 11.000000000000002 and
+    # 2.3 / 0.1 = 22.999999999999996 in binary floating point are 11 and 23.
+    assert _limit_counts(1.1 / 0.1, 2.3 / 0.1) == (11, 23)
+    assert _limit_counts(1e-9, -1e-9) == (0, 0)  # exactly at the tolerance: whole counts
+    assert _limit_counts(1.0000000015, 4.999999993) == (2, 4)  # 1.5e-9 and 7e-9 (1.4e-9 of 5) away: inside
+    assert _limit_counts(1.0000000005, 4.9999999995) == (1, 5)
+    assert _limit_counts(-2000.000001, 2000.000001) == (-2000, 2000)  # 5e-10 relative of 2000
+    assert _limit_counts(-2000.00001, 2000.00001) == (-2000, 2000)  # 5e-9 relative: ceil and floor, the same here
+    assert _limit_counts(1999.999999, 2.5) == (2000, 2)  # ceil and floor of values off whole counts
+    big = 123456.0
+    off = big * (1 + 5e-10)  # 6.2e-5 above: within 1e-9 of |x| but not within 1e-9 absolute
+    assert _limit_counts(off, off) == (123456, 123456)
+    c = quantise_pid(PidSettings(kp=1.0, ki_per_s=0.0, kd_s=0.0, sample_time_s=0.1, out_min=1.1, out_max=2.3),
+                     input_per_count=1.0, output_per_count=0.1)
+    assert (c.out_min_count, c.out_max_count) == (11, 23)
+
+
+def test_default_input_limits_per_word_width():
+    # 2^24 counts for the 64-bit code, 2^16 (a 16-bit ADC) for the 32-bit variant, unless told otherwise
+    s = PidSettings(kp=0.5, ki_per_s=0.05, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=4095.0)
+    assert quantise_pid(s, input_per_count=1.0, output_per_count=1.0).input_limit_count == 1 << 24
+    assert quantise_pid(s, input_per_count=1.0, output_per_count=1.0, word_bits=32).input_limit_count == 1 << 16
+    assert quantise_pid(s, input_per_count=1.0, output_per_count=1.0, word_bits=32,
+                        input_limit_count=1000).input_limit_count == 1000
