@@ -372,3 +372,84 @@ def test_default_input_limits_per_word_width():
     assert quantise_pid(s, input_per_count=1.0, output_per_count=1.0, word_bits=32).input_limit_count == 1 << 16
     assert quantise_pid(s, input_per_count=1.0, output_per_count=1.0, word_bits=32,
                         input_limit_count=1000).input_limit_count == 1000
+
+
+def refusal(call):
+    from compensator.errors import ModelError
+
+    with pytest.raises(ModelError) as exc:
+        call()
+    return exc.value
+
+
+def p_settings(**kw):
+    base = dict(kp=0.5, ki_per_s=0.0, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=4095.0)
+    base.update(kw)
+    return PidSettings(**base)
+
+
+def test_quantise_pid_refusals_word_for_word():
+    q = quantise_pid
+    assert refusal(lambda: q({"kp": 1.0}, input_per_count=1.0, output_per_count=1.0)).reason == (
+        "settings: need a PidSettings, got dict")
+    assert refusal(lambda: q(p_settings(), input_per_count=0.0, output_per_count=1.0)).reason == (
+        "input_per_count: must be a finite non-zero number, got 0.0")
+    assert refusal(lambda: q(p_settings(), input_per_count=1.0, output_per_count=math.inf)).reason == (
+        "output_per_count: must be a finite non-zero number, got inf")
+    assert refusal(lambda: q(p_settings(out_min=0.2, out_max=0.7), input_per_count=1.0, output_per_count=1.0)
+                   ).reason == "out_min/out_max: the limits 0.2..0.7 contain no whole output count at output_per_count 1.0"
+    # limits of 2^27 counts leave no fraction bit below the head room of 16: refused; 2^27 - 1 gives F = 0
+    assert refusal(lambda: q(p_settings(out_max=float(1 << 27)), input_per_count=1.0, output_per_count=1.0)
+                   ).reason == "out_min/out_max: limits of 134217728 counts exceed the fixed-point range (2^27 counts)"
+    # Each coefficient's refusal names its setting: kp too large (2^30 state units and more), the others too small.
+    assert refusal(lambda: q(p_settings(kp=1e6), input_per_count=1.0, output_per_count=1.0)).reason.startswith(
+        "kp: 3.2768e+10 is too large for the fixed-point format")  # 1e6 x 2^15
+    cases = [(dict(ki_per_s=1e-30), "ki_per_s: "), (dict(kd_s=1e-30), "kd_s: "),
+             (dict(kd_s=1.0, derivative_filter_n=1e30), "derivative filter: "),
+             (dict(ki_per_s=1.0, tracking_time_s=1e30), "tracking_time_s: ")]
+    for kw, start in cases:
+        reason = refusal(lambda: q(p_settings(**kw), input_per_count=1.0, output_per_count=1.0)).reason
+        assert reason.startswith(start) and reason.endswith("is too small for the fixed-point format (would keep "
+                                                            "fewer than 10 significant bits)"), reason
+
+
+def test_quantise_pid_state_format_by_hand():
+    q = quantise_pid
+    # F = min(24, 27 - bit_length(largest |limit| count)): the lower limit counts as much as the upper one
+    assert q(p_settings(out_min=-4095.0, out_max=10.0), input_per_count=1.0, output_per_count=1.0
+             ).state_frac_bits == 15
+    assert q(p_settings(out_min=0.0, out_max=float((1 << 27) - 1)), input_per_count=1.0, output_per_count=1.0
+             ).state_frac_bits == 0
+    c = q(p_settings(out_min=0.5, out_max=1.5), input_per_count=1.0, output_per_count=1.0)  # one whole count only
+    assert (c.out_min_count, c.out_max_count, c.state_frac_bits) == (1, 1, 24)
+    # kp = 1 count per count exactly (a power of two): P is formed, mantissa 2^30, shift 30 - 24 = 6
+    c = q(p_settings(kp=1.0, out_min=-1.0, out_max=1.0), input_per_count=1.0, output_per_count=1.0)
+    assert (c.kp_mant, c.kpb_mant, c.p_shift, c.state_frac_bits) == (1 << 30, 1 << 30, 6, 24)
+
+
+def test_32_bit_state_fraction_bits_follow_the_largest_gain():
+    # 15-bit mantissas: F is the largest with gain 2^F <= 32767, whichever gain is the largest (inputs within 16
+    # counts keep P, D and the increment far inside 2^28). 100 2^8 = 25600 fits, 100 2^9 = 51200 does not.
+    def frac(**kw):
+        return quantise_pid(p_settings(**kw), input_per_count=1.0, output_per_count=1.0, word_bits=32,
+                            input_limit_count=16).state_frac_bits
+
+    assert frac(kp=100.0, setpoint_weight=0.5) == 8  # kp = 100, kp b = 50
+    assert frac(kp=50.0, setpoint_weight=4.0) == 7  # kp b = 200: 200 2^7 = 25600
+    assert frac(kp=0.5, ki_per_s=1000.0) == 8  # ki h = 100
+    assert frac(kp=0.5, kd_s=10.0, derivative_filter_n=math.inf) == 8  # kd / h = 100 (no filter)
+    assert frac(kp=511.984375) == 6  # 32767 / 64: exactly the largest mantissa at F = 6
+    assert frac(kp=20000.0) == 0  # 20000 x 2 > 32767: no fraction bit
+    c = quantise_pid(p_settings(kp=32767.0), input_per_count=1.0, output_per_count=1.0, word_bits=32,
+                     input_limit_count=1)
+    assert (c.state_frac_bits, c.kp_mant, c.p_shift) == (0, 32767, 0)
+    e = refusal(lambda: quantise_pid(p_settings(kp=40000.0), input_per_count=1.0, output_per_count=1.0, word_bits=32,
+                                     input_limit_count=1))
+    assert (e.key, e.reason) == ("word_bits", "the 32-bit variant: a gain of 40000 output counts per input count does "
+                                              "not fit a 15-bit mantissa even without state fraction bits; use the "
+                                              "64-bit code")
+    # a tiny integral gain keeps the 32-bit variant's largest shift, 46 (not the 64-bit code's 62): ki h = 1e-15
+    # count per count at F = 15: 1e-15 2^15 2^46 = 2305.8 -> 2306, at least 2^10 (a shift of 49 would fit 15 bits)
+    c = quantise_pid(p_settings(ki_per_s=1e-14, anti_windup="clamping"), input_per_count=1.0, output_per_count=1.0,
+                     word_bits=32, input_limit_count=16)
+    assert (c.state_frac_bits, c.ki_shift, c.ki_mant) == (15, 46, 2306)
