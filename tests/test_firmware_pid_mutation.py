@@ -107,20 +107,6 @@ def test_fixed_state_step_by_hand():
     assert (pid.state.integrator_q, pid.state.derivative_q, pid.state.output_q) == (168, -11, 160)
 
 
-def test_bumpless_start_with_a_derivative_by_hand():
-    # reset(2) after a run: the first step after a reset never kicks D (y_prev = y), but D's filter state is cleared
-    # too; with ad = 3/4 and a primed controller the bumpless start is not taken. So reset, then one step with
-    # the filter state set: the integrator is u_prev - P - D exactly. D = -(7 (y - y_prev) / 2) needs a primed
-    # step; the bumpless start only happens unprimed, where D = ad 0 - bd 0 = 0: the - D term is checked with a
-    # hand-set derivative state instead.
-    pid = FixedPid(hand_coefficients())
-    pid.reset(2)
-    pid._d = -40  # a filter state left over: D = 3 (-40) / 4 = -30 in the first step
-    assert pid.step(5, 0) == 2
-    # I = 32 - 8 - (-30) = 54, then + 6 (the increment) + 0 (no tracking: v = u) = 60
-    assert (pid.state.integrator_q, pid.state.derivative_q) == (60, -30)
-
-
 def schedule(rng, n, lim):
     """Seeded random walks with jumps to and beyond the input limit, manual spells and resets."""
     r = np.repeat(rng.integers(-lim // 2, lim // 2 + 1, n // 40 + 1), 40)[:n]
@@ -453,3 +439,62 @@ def test_32_bit_state_fraction_bits_follow_the_largest_gain():
     c = quantise_pid(p_settings(ki_per_s=1e-14, anti_windup="clamping"), input_per_count=1.0, output_per_count=1.0,
                      word_bits=32, input_limit_count=16)
     assert (c.state_frac_bits, c.ki_shift, c.ki_mant) == (15, 46, 2306)
+
+
+def test_settings_refusals_and_edges_word_for_word():
+    from compensator.firmware.pid import FloatPid, discretise_pid
+
+    ok = dict(kp=1.0, ki_per_s=0.5, kd_s=0.0, sample_time_s=0.1, out_min=-1.0, out_max=1.0)
+    assert PidSettings(**{**ok, "derivative_filter_n": 1.0}).derivative_filter_n == 1.0  # N = 1 is a filter too
+    assert PidSettings(**{**ok, "kp": 0.0, "ki_per_s": -1.0}).ki_per_s == -1.0  # a zero gain has no sign
+    cases = [(dict(rate_limit_per_s=0.0), "PID setting rate_limit_per_s: must be positive and finite or None, got 0.0"),
+             (dict(anti_windup="freeze"),
+              "PID setting anti_windup: must be one of back_calculation, clamping, none, got 'freeze'"),
+             (dict(kp=1.0, ki_per_s=-0.5), "PID settings kp, ki_per_s, kd_s: non-zero gains must share one sign "
+                                           "(negative gains make a reverse-acting controller)"),
+             (dict(kp=0.0, ki_per_s=0.0), "PID settings kp, ki_per_s, kd_s: at least one gain must be non-zero")]
+    for kw, reason in cases:
+        assert refusal(lambda: PidSettings(**{**ok, **kw})).reason == reason
+    # without a derivative gain there is no filter: Tf = 0, ad = 0
+    d = discretise_pid(PidSettings(**ok))
+    assert (d.derivative_filter_s, d.ad, d.bd) == (0.0, 0.0, 0.0)
+    assert refusal(lambda: FloatPid({"kp": 1.0})).reason == "settings: need a PidSettings, got dict"
+
+
+def test_float_pid_fresh_state_and_refusals():
+    from compensator.firmware.pid import FloatPid
+
+    pid = FloatPid(PidSettings(kp=1.0, ki_per_s=0.5, kd_s=0.0, sample_time_s=0.1, out_min=-1.0, out_max=1.0))
+    assert pid.output == 0.0 and pid.manual is False  # documented: 0.0 before the first step, automatic
+    pid.set_manual(0.5)
+    pid.reset()
+    assert pid.manual is False and pid.output == 0.0
+    assert refusal(lambda: pid.reset(math.nan)).reason == "reset output: must be finite, got nan"
+    for r, y in (([math.nan, 0.0], [0.0, 0.0]), ([0.0, 0.0], [0.0, math.inf])):  # either sequence alone
+        assert refusal(lambda: pid.run(r, y)).reason == "setpoint/measurement: must be finite"
+    assert refusal(lambda: pid.run([0.0, 0.0, 0.0], [0.0] * 4)).reason == (
+        "setpoint and measurement: need one-dimensional sequences of equal length, got shapes (3,) and (4,)")
+    assert refusal(lambda: pid.run(np.zeros((2, 2)), np.zeros((2, 2)))).reason == (
+        "setpoint and measurement: need one-dimensional sequences of equal length, got shapes (2, 2) and (2, 2)")
+    assert refusal(lambda: pid.run([0.0], [0.0], manual=[True])).reason == (
+        "manual_output: required when a manual schedule is given")
+    fixed = FixedPid(hand_coefficients())
+    assert refusal(lambda: fixed.run([0.5], [0])).reason == "setpoint_count: need integer counts, got dtype float64"
+    assert refusal(lambda: fixed.run([0], [0.5])).reason == "measurement_count: need integer counts, got dtype float64"
+    assert refusal(lambda: fixed.run([0], [0], manual=[True], manual_output_count=[1.5])).reason == (
+        "manual_output_count: need integer counts, got dtype float64")
+    empty = fixed.run(np.array([], dtype=np.int64), np.array([], dtype=np.int64))  # keeps the record's integer type
+    assert [a.dtype for a in empty] == [np.dtype(np.int64)] * 3 and [a.size for a in empty] == [0, 0, 0]
+
+
+def test_float_clamping_integrates_a_small_increment_away_from_the_limit():
+    # Clamping holds only when the increment drives further into the limit. With the proportional term on -y only
+    # (setpoint weight 0), kp = 1, ki h = 0.25, limits 0..10: r = 2, y = 1 gives v = -1 below the lower limit (u = 0)
+    # while the error 1 and its increment 0.25 (less than one unit) point back inside: integrated, I = 0.25. Then
+    # r = 0, y = 1: v = -1 + 0.25 = -0.75 < 0 and the increment -0.25 drives further: held.
+    from compensator.firmware.pid import FloatPid
+
+    pid = FloatPid(PidSettings(kp=1.0, ki_per_s=2.5, kd_s=0.0, sample_time_s=0.1, out_min=0.0, out_max=10.0,
+                               anti_windup="clamping", setpoint_weight=0.0))
+    assert pid.step(2.0, 1.0) == 0.0 and pid.integrator == 0.25
+    assert pid.step(0.0, 1.0) == 0.0 and pid.integrator == 0.25
