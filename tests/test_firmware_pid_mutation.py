@@ -498,3 +498,32 @@ def test_float_clamping_integrates_a_small_increment_away_from_the_limit():
                                anti_windup="clamping", setpoint_weight=0.0))
     assert pid.step(2.0, 1.0) == 0.0 and pid.integrator == 0.25
     assert pid.step(0.0, 1.0) == 0.0 and pid.integrator == 0.25
+
+
+def test_quantise_pid_records_rate_step_and_absent_terms_by_hand():
+    q = quantise_pid
+    # no derivative, no tracking (clamping), no rate limit: zero mantissas with zero shifts, a zero exact rate step
+    c = q(p_settings(ki_per_s=0.5, anti_windup="clamping"), input_per_count=1.0, output_per_count=1.0)
+    assert (c.ad_mant, c.ad_shift, c.track_mant, c.track_shift, c.rate_step_q, c.rate_step_count) == (0, 0, 0, 0, 0,
+                                                                                                      0.0)
+    assert c.sample_time_s == 0.1
+    # rate 5 /s x 0.1 s / 0.001 per count = 500 counts a step, in Q.16 (limits +-2000 counts): 500 x 2^16 exactly
+    c = q(p_settings(out_min=-2.0, out_max=2.0, rate_limit_per_s=5.0), input_per_count=0.001, output_per_count=0.001)
+    assert (c.state_frac_bits, c.rate_step_q, c.rate_step_count) == (16, 500 << 16, 500.0)
+    # the smallest rate step, one state LSB: 2^-15 count a step at F = 15 (limits 0..4095, one count per unit)
+    c = q(p_settings(rate_limit_per_s=10 * 2.0 ** -15), input_per_count=1.0, output_per_count=1.0)
+    assert (c.state_frac_bits, c.rate_step_q) == (15, 1)
+    e = refusal(lambda: q(p_settings(rate_limit_per_s=10 * 2.0 ** -17), input_per_count=1.0, output_per_count=1.0))
+    assert e.reason == ("rate_limit_per_s: 7.62939453125e-05 per second is below the fixed-point resolution "
+                        "(2^-15 count per step)")
+    # a rate step beyond the state range is capped: at INT32_MAX (64 bits) or at 2^28 (32 bits)
+    fast = p_settings(rate_limit_per_s=1e12)
+    assert q(fast, input_per_count=1.0, output_per_count=1.0).rate_step_q == INT32_MAX
+    assert q(fast, input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=16).rate_step_q == 1 << 28
+
+
+def test_32_bit_variant_gives_up_one_fraction_bit_at_a_time():
+    # kp = kp b = 0.5 over +-8192 counts: P reaches (16384 + 16384) 8192 + 1 = 2^28 + 1 state units at F = 15 (refused)
+    # and (16384 + 16384) 8192 / 2 + 1 = 2^27 + 1 at F = 14 (mantissa 16384 with a shift of 1): F = 14.
+    c = quantise_pid(p_settings(), input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=8192)
+    assert (c.state_frac_bits, c.kp_mant, c.p_shift) == (14, 16384, 1)
