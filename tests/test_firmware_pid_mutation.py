@@ -527,3 +527,14 @@ def test_32_bit_variant_gives_up_one_fraction_bit_at_a_time():
     # and (16384 + 16384) 8192 / 2 + 1 = 2^27 + 1 at F = 14 (mantissa 16384 with a shift of 1): F = 14.
     c = quantise_pid(p_settings(), input_per_count=1.0, output_per_count=1.0, word_bits=32, input_limit_count=8192)
     assert (c.state_frac_bits, c.kp_mant, c.p_shift) == (14, 16384, 1)
+
+
+def test_render_pid_c_refusals_word_for_word():
+    from compensator.firmware.pid_c import render_pid_c
+
+    c = hand_coefficients()
+    e = refusal(lambda: render_pid_c(c, name="Cooler"))
+    assert (e.key, e.reason) == ("name", "name 'Cooler': must be a C identifier of at most 31 lower-case letters, "
+                                         "digits and underscores, starting with a letter")
+    e = refusal(lambda: render_pid_c({"kp_mant": 1}, name="cooler_pid"))
+    assert e.reason == "coeffs: need FixedPidCoefficients, got dict"
