@@ -35,6 +35,9 @@ GOLDEN_PID = {
     # proportional only (no integral action)
     "tiny_p": (dict(kp=1e-6, ki_per_s=0.0, kd_s=0.0, sample_time_s=1.0, out_min=-1.0, out_max=1.0), 1.0, 1e-3,
                64, None),
+    # a slow PI whose integral gain per step prints with an exponent (5e-05) in the header's comments
+    "slow_pi": (dict(kp=0.02, ki_per_s=1e-4, kd_s=0.0, sample_time_s=0.5, out_min=0.0, out_max=4095.0), 1.0, 1.0,
+                64, None),
     # the 32-bit variant: a bias loop into a 12-bit DAC, back-calculation and rate limit
     "bias_pid32": (dict(kp=0.8, ki_per_s=4.0, kd_s=0.002, sample_time_s=0.01, out_min=0.0, out_max=4095.0,
                         setpoint_weight=0.7, rate_limit_per_s=2e4), 1.0, 1.0, 32, 4096),
