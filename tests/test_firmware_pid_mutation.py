@@ -383,7 +383,8 @@ def test_quantise_pid_refusals_word_for_word():
     assert refusal(lambda: q(p_settings(), input_per_count=1.0, output_per_count=math.inf)).reason == (
         "output_per_count: must be a finite non-zero number, got inf")
     assert refusal(lambda: q(p_settings(out_min=0.2, out_max=0.7), input_per_count=1.0, output_per_count=1.0)
-                   ).reason == "out_min/out_max: the limits 0.2..0.7 contain no whole output count at output_per_count 1.0"
+                   ).reason == ("out_min/out_max: the limits 0.2..0.7 contain no whole output count at "
+                                "output_per_count 1.0")
     # limits of 2^27 counts leave no fraction bit below the head room of 16: refused; 2^27 - 1 gives F = 0
     assert refusal(lambda: q(p_settings(out_max=float(1 << 27)), input_per_count=1.0, output_per_count=1.0)
                    ).reason == "out_min/out_max: limits of 134217728 counts exceed the fixed-point range (2^27 counts)"
