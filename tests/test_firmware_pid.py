@@ -489,6 +489,8 @@ def test_32_bit_ranges_by_hand():
              (dict(ki_mant=-16384, ki_shift=1), 16383, "the integrator increment"),
              (dict(bd_mant=511), 262656, "D (the derivative term)"),
              (dict(bd_mant=-16384, bd_shift=1), 16383, "D (the derivative term)"),
+             # (6553 x 2 x 163855 >> 3) + 2 = 2^28 - 1 exactly: the + 2 of D's bound is pinned at its edge
+             (dict(bd_mant=6553, bd_shift=3), 163855, "D (the derivative term)"),
              (dict(bd_mant=511, ad_mant=16384, ad_shift=15), 131328, "D (the derivative term)")]  # ad = 1/2
     for kw, x_ok, what in cases:
         _check_32_bit_ranges(coeffs(x_ok, **kw))
