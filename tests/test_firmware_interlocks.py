@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import random
 import subprocess
 
@@ -25,21 +26,24 @@ from compensator.physics.sipm import breakdown_v
 
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion",
           "-Wshadow", "-Wstrict-prototypes", "-Wmissing-prototypes"]
+# The limits are built once per module, except while mutmut collects its statistics: then each test builds its
+# own, so that every test is mapped to the code that builds them (tools/mutation.md).
+LIMITS_SCOPE = "function" if os.environ.get("MUTANT_UNDER_TEST") == "stats" else "module"
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope=LIMITS_SCOPE)
 def falling(sipm_a, board_ntc, cooler):
     """Feedback-injection supply: the bias falls as the code rises."""
     return build_interlock_limits(sipm_a, board_ntc, cooler, heartbeat_timeout_s=5.0)
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope=LIMITS_SCOPE)
 def rising(sipm_b, board_pt1000):
     """Direct supply: the bias rises with the code; no cooler; no bias read-back (no supply check)."""
     return build_interlock_limits(sipm_b, board_pt1000)
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope=LIMITS_SCOPE)
 def rising_readback(sipm_b, board_pt1000, board_ntc):
     """The direct supply with the other board's bias read-back channel fitted."""
     import dataclasses
