@@ -71,6 +71,14 @@ def test_render_refuses_bad_names_and_limits():
     assert set(render_interlocks_c(FALLING)) == {"interlocks.h", "interlocks.c"}
 
 
+def test_write_defaults_and_the_profiles_in_the_banner(tmp_path, sipm_a, board_ntc):
+    paths = write_interlocks_c(FALLING, tmp_path, profiles=[sipm_a, board_ntc])
+    assert [p.name for p in paths] == ["interlocks.h", "interlocks.c"]
+    for path in paths:
+        assert f"profile hut-sipm-a (hut-sipm-a.yaml) sha256 {sipm_a.sha256[:16]}" in path.read_text()
+        assert f"profile hut-board-ntc (hut-board-ntc.yaml) sha256 {board_ntc.sha256[:16]}" in path.read_text()
+
+
 def test_write_is_all_or_nothing_and_refuses_to_overwrite(tmp_path):
     files = render_interlocks_c(RISING, name="hut_guard", profiles=(), settings={"case": "rising"})
     paths = write_interlocks_c(RISING, tmp_path, name="hut_guard", settings={"case": "rising"})

@@ -255,3 +255,32 @@ def test_board_maximum_exactly_at_a_code(sipm_b, board_pt1000):
     # a maximum below the supply's lowest output allows level 0 only
     low = dataclasses.replace(board_pt1000, max_bias_v=float(s.output_range_v()[0]) - 1.0)
     assert build_interlock_limits(sipm_b, low).bias_limit_level == 0
+
+
+def test_limits_of_the_rules_exactly_at_their_values():
+    ilk = Interlocks(SMALL)
+    # a hot side present and at its limit, or below it, does not trip (only above)
+    assert ilk.step(_in(temp_mdegc=0, hot_side_mdegc=60_000)).faults_live == 0
+    assert ilk.step(_in(temp_mdegc=0, hot_side_mdegc=25_000)).faults_live == 0
+    # a request above the limit line is clamped; the record is by how many levels (3000 asked, 2000 allowed at 0 C)
+    out = ilk.step(_in(now_ms=100, temp_mdegc=0, request_dac_code=3000))
+    assert out.faults_live == FaultFlag.BIAS_LIMIT and ilk.trip_record(4) == (100, 1000)
+    # a latch from outside the tick records the value 0 unless given one
+    ilk.latch(FaultFlag.REQUEST_REFUSED, 5)
+    assert ilk.trip_record(8) == (5, 0)
+    with pytest.raises(ModelError) as info:
+        Interlocks({"tick_ms": 100})
+    assert info.value.key == "limits" and info.value.reason == "need InterlockLimits, got dict"
+
+
+def test_a_readback_exactly_at_the_fault_limit_is_healthy():
+    # expected code 16 at level 0 (16 codes, one code per level); a disagreement of 4 codes is allowed, 5 is not
+    lim = dataclasses.replace(SMALL, readback_at_level0_q=16 << 16, readback_per_level_q=1 << 16,
+                              readback_min_code=0, readback_max_code=5000, supply_fault_codes=4, supply_fault_ticks=2)
+    ilk = Interlocks(lim)
+    for _ in range(5):
+        assert ilk.step(_in(temp_mdegc=0, bias_readback_code=20)).faults_live == 0
+        assert ilk.step(_in(temp_mdegc=0, bias_readback_code=12)).faults_live == 0
+    assert ilk.step(_in(temp_mdegc=0, bias_readback_code=21)).faults_live == 0         # one tick of two
+    out = ilk.step(_in(now_ms=7, temp_mdegc=0, bias_readback_code=11))
+    assert out.faults_live == FaultFlag.SUPPLY_FAULT and ilk.trip_record(9) == (7, -5)

@@ -64,6 +64,13 @@ def test_wire_types_and_their_sizes():
     assert C_SIZES == {"u8": 1, "u16": 2, "u32": 4, "u64": 8, "i32": 4}
 
 
+def test_write_defaults_and_the_profiles_in_the_banner(tmp_path, board_ntc):
+    paths = write_link_c(tmp_path, profiles=[board_ntc])
+    assert [x.name for x in paths] == ["board_link.h", "board_link.c"]
+    for path in paths:
+        assert f"profile hut-board-ntc (hut-board-ntc.yaml) sha256 {board_ntc.sha256[:16]}" in path.read_text()
+
+
 def test_write_is_all_or_nothing_and_refuses_to_overwrite(tmp_path):
     paths = write_link_c(tmp_path, name="uplink", settings={"golden": "yes"})
     assert [x.name for x in paths] == ["uplink.h", "uplink.c"]
