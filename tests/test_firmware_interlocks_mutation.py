@@ -284,3 +284,53 @@ def test_a_readback_exactly_at_the_fault_limit_is_healthy():
     assert ilk.step(_in(temp_mdegc=0, bias_readback_code=21)).faults_live == 0         # one tick of two
     out = ilk.step(_in(now_ms=7, temp_mdegc=0, bias_readback_code=11))
     assert out.faults_live == FaultFlag.SUPPLY_FAULT and ilk.trip_record(9) == (7, -5)
+
+
+def test_limit_line_level_at_its_reference_by_hand(sipm_a, board_ntc):
+    # hut-sipm-a: Vbd = 24.5 V + 21.5 mV/K (T - 25 C), straight; at most 7 V over it. hut-board-ntc: feedback
+    # injection, Vout = 1.25 V (1 + 1 M/43.2 k + 1 M/250 k) - code x 2.5 V/65536 x 1 M/250 k; level = 65535 - code.
+    intercept_v = 1.25 * (1 + 1e6 / 43.2e3 + 1e6 / 250e3)
+    v_per_code = 2.5 / 65536 * 1e6 / 250e3
+
+    def level_below(volts):     # the level just below a bias, one more level down for the rounding (docstring)
+        return int(np.floor(65535 - (intercept_v - volts) / v_per_code)) - 1
+
+    lim = build_interlock_limits(sipm_a, board_ntc)
+    assert lim.ov_limit_ref_mdegc == -45_000
+    assert lim.ov_limit_level_at_ref == level_below(24.5 + 0.0215 * (-45 - 25) + 7.0) == 31519
+    # a margin that puts the coldest temperature between two milli-kelvin: the line is taken at the whole
+    # milli-kelvin below it (-45.005 C for -45.0043 C)
+    lim = build_interlock_limits(sipm_a, board_ntc, fault_margin_k=20.0043)
+    assert lim.ov_limit_ref_mdegc == -45_005
+    assert lim.ov_limit_level_at_ref == level_below(24.5 + 0.0215 * (-45.005 - 25) + 7.0) == 31518
+    assert lim.adc_low_is_open is False and lim.bias_rises_with_code is False
+
+
+def test_a_sensor_on_the_high_side_reads_open_low(sipm_a, board_ntc):
+    fe = dataclasses.replace(board_ntc.temperature.front_end, sensor_position="high")
+    high = dataclasses.replace(board_ntc, temperature=dataclasses.replace(board_ntc.temperature, front_end=fe))
+    lim = build_interlock_limits(sipm_a, high)
+    assert lim.adc_low_is_open is True
+    # the NTC (10 k at 25 C, Beta 3435 K) above a 10 k resistor: code = 4096 x 10 k / (R + 10 k), ratiometric
+    r = [10e3 * np.exp(3435.0 * (1 / (t + 273.15) - 1 / 298.15)) for t in (-45.0, 65.0)]
+    codes = [4096 * 10e3 / (x + 10e3) for x in r]
+    assert (lim.adc_fault_lo, lim.adc_fault_hi) == (int(codes[0]), int(codes[1])) == (116, 3261)
+
+
+def test_a_fault_band_beyond_the_sensor_model_reaches_the_rail(sipm_a, board_ntc):
+    # -25 C less 248 K is -273 C, where the Beta model's reading is not finite: an NTC below its resistor reads
+    # full scale when cold, so the band reaches the top rail less one; the hot end by the Beta model at 293 C.
+    lim = build_interlock_limits(sipm_a, board_ntc, fault_margin_k=248.0)
+    r_hot = 10e3 * np.exp(3435.0 * (1 / (293.0 + 273.15) - 1 / 298.15))
+    assert (lim.adc_fault_lo, lim.adc_fault_hi) == (int(4096 * r_hot / (r_hot + 10e3)), 4094) == (17, 4094)
+
+
+def test_over_current_and_slew_options(sipm_a, board_ntc):
+    for bad in (0.0, -1.0, float("nan")):
+        with pytest.raises(ModelError) as info:
+            build_interlock_limits(sipm_a, board_ntc, over_current_a=bad)
+        assert info.value.key == "over_current_a" and info.value.reason == f"must be a positive current, got {bad!r}"
+    assert build_interlock_limits(sipm_a, board_ntc, over_current_a=1.5e-6).over_current_na == 1500
+    assert build_interlock_limits(sipm_a, board_ntc, over_current_a=5.0).over_current_na == INT32_MAX
+    # far below one level per tick the slew is still one level a tick
+    assert build_interlock_limits(sipm_a, board_ntc, slew_v_per_s=1e-6).slew_levels_per_tick == 1
