@@ -334,3 +334,49 @@ def test_over_current_and_slew_options(sipm_a, board_ntc):
     assert build_interlock_limits(sipm_a, board_ntc, over_current_a=5.0).over_current_na == INT32_MAX
     # far below one level per tick the slew is still one level a tick
     assert build_interlock_limits(sipm_a, board_ntc, slew_v_per_s=1e-6).slew_levels_per_tick == 1
+
+
+def test_a_high_side_sensor_beyond_its_model_reaches_the_low_rail(sipm_a, board_ntc):
+    import warnings
+
+    fe = dataclasses.replace(board_ntc.temperature.front_end, sensor_position="high")
+    high = dataclasses.replace(board_ntc, temperature=dataclasses.replace(board_ntc.temperature, front_end=fe))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")          # the non-finite reading at -273 C raises no numpy warning
+        lim = build_interlock_limits(sipm_a, high, fault_margin_k=248.0)
+    # cold, the NTC above its resistor reads 0: the band starts at code 1; hot (293 C) by the Beta model
+    r_hot = 10e3 * np.exp(3435.0 * (1 / (293.0 + 273.15) - 1 / 298.15))
+    assert (lim.adc_fault_lo, lim.adc_fault_hi) == (1, int(4096 * 10e3 / (r_hot + 10e3))) == (1, 4078)
+
+
+@pytest.mark.parametrize("rate_hz, tick_ms, step_mdegc, slew, ticks", [
+    # 1 kHz: 2 K/s x 1 ms = 2 mK; 2 V/s x 1 ms / 152.6 uV = 13.1 levels; 5 x (1 ms + 10 k x 100 nF) / 1 ms + 1 = 11
+    (1000.0, 1, 2, 13, 11),
+    # 1 Hz: 1000 ms, 2000 mK, 13107.2 levels, 5 x 2 ms / 1 s -> 1 + 1 = 2, at least 3
+    (1.0, 1000, 2000, 13107, 3),
+])
+def test_the_control_rate_by_hand(sipm_a, board_ntc, rate_hz, tick_ms, step_mdegc, slew, ticks):
+    lim = build_interlock_limits(sipm_a, dataclasses.replace(board_ntc, control_rate_hz=rate_hz))
+    assert (lim.tick_ms, lim.max_step_mdegc, lim.slew_levels_per_tick, lim.supply_fault_ticks) == (
+        tick_ms, step_mdegc, slew, ticks)
+
+
+def test_readback_codes_of_a_supply_from_zero_volts(sipm_b, board_pt1000, board_ntc):
+    # a direct supply from 0 V (14 x 2.5 V = 35 V at full scale) read through hut-board-ntc's read-back channel
+    supply = dataclasses.replace(board_pt1000.supply, offset_v=0.0, min_output_v=0.0)
+    board = dataclasses.replace(board_pt1000, supply=supply, bias_readback=board_ntc.bias_readback, max_bias_v=35.0)
+    lim = build_interlock_limits(sipm_b, board)
+    lsb = 3.3 / 4096 / 0.08
+    assert (lim.readback_min_code, lim.readback_max_code) == (0, round(14 * 2.5 * 65535 / 65536 / lsb)) == (0, 3475)
+    assert lim.readback_at_level0_q == 0
+
+
+def test_a_curved_breakdown_puts_the_line_below_the_whole_parabola(sipm_c, board_pt1000):
+    # hut-sipm-c: Vbd = 53.5 V + 55 mV/K (T - 25) + 0.05 mV/K^2 (T - 25)^2, at most 10 V over it; from -45 to 65 C
+    # (L = 110 K) the chord of a parabola lies above it by at most c (L/2)^2 = 0.05e-3 x 55^2 = 0.15125 V, at the
+    # middle: the line is the chord shifted down by that. hut-board-pt1000: direct, 30 V + code x 14 x 2.5 V / 65536.
+    top_at_lo_v = 53.5 + 0.055 * (-70) + 0.05e-3 * 70 ** 2 + 10.0
+    level = (top_at_lo_v - 0.05e-3 * 55 ** 2 - 30.0) / (14 * 2.5 / 65536)
+    assert level == pytest.approx(55693.897, abs=1e-3)
+    lim = build_interlock_limits(sipm_c, board_pt1000)
+    assert lim.ov_limit_level_at_ref == int(np.floor(level)) - 1 == 55692
