@@ -188,19 +188,14 @@ def build_interlock_limits(sipm, board, thermal=None, *, slew_v_per_s: float = D
 
     channel = board.temperature
     adc_full = channel.front_end.full_scale_code
-    with np.errstate(all="ignore"):
-        x, mid = np.split(channel.continuous_code(np.array([t_lo, t_hi, 0.5 * (board.min_temp_c + board.max_temp_c)])),
-                          [2])
-    finite = np.isfinite(x)
-    if finite.any() and not finite.all():
-        # an end beyond what the sensor model reads is at the rail away from the other end (the channel is monotonic)
-        x = np.where(finite, x, float(adc_full) if x[finite][0] < mid[0] else 1.0)
-    elif not finite.any():
-        x = np.array([1.0, float(adc_full)])
-    fault_lo, fault_hi = max(1, int(np.floor(x.min()))), min(adc_full - 1, int(np.floor(x.max())))
     # A code below the band reads as a temperature beyond one end: open if an infinite resistance lands there.
-    r_low_code = float(channel.front_end.continuous_code(1e12))
-    adc_low_is_open = r_low_code < adc_full / 2
+    open_code = float(channel.front_end.continuous_code(1e12))
+    adc_low_is_open = open_code < adc_full / 2
+    with np.errstate(all="ignore"):
+        x = channel.continuous_code(np.array([t_lo, t_hi]))
+    # an end where the sensor model's reading is not finite (its resistance overflowed) reads as an open sensor
+    x = np.where(np.isfinite(x), x, open_code)
+    fault_lo, fault_hi = max(1, int(np.floor(x.min()))), min(adc_full - 1, int(np.floor(x.max())))
 
     over_a = device.max_current_a if over_current_a is None else over_current_a
     if not np.isfinite(over_a) or over_a <= 0:
