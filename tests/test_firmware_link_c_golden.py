@@ -16,6 +16,7 @@ from compensator.errors import InputError, ModelError
 from compensator.firmware.link_c import DEFAULT_LINK_NAME, render_link_c, write_link_c
 from compensator.firmware.link_c_messages import C_SIZES, C_TYPES
 from compensator.link import protocol as p
+from test_firmware_interlocks_golden import assert_golden
 
 GOLDEN = Path(__file__).parent / "golden" / "link"
 
@@ -29,12 +30,7 @@ def golden_files(name: str) -> dict:
 
 @pytest.mark.parametrize("name", GOLDEN_NAMES)
 def test_golden_files(name):
-    files = golden_files(name)
-    directory = GOLDEN / name
-    assert sorted(files) == sorted(p.name for p in directory.iterdir())
-    for fname, text in files.items():
-        assert (directory / fname).read_bytes() == text.encode(), (
-            f"{fname} differs from the golden file; if the change is intended, run tests/golden/update.py")
+    assert_golden(golden_files(name), GOLDEN / name)
 
 
 def test_the_default_name_and_the_protocol_version_in_the_banner():
