@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import random
 import subprocess
 
@@ -25,26 +26,43 @@ from compensator.physics.sipm import breakdown_v
 
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion",
           "-Wshadow", "-Wstrict-prototypes", "-Wmissing-prototypes"]
+# The limits are built once per module, except while mutmut collects its statistics: then each test builds its
+# own, so that every test is mapped to the code that builds them (tools/mutation.md).
+LIMITS_SCOPE = "function" if os.environ.get("MUTANT_UNDER_TEST") == "stats" else "module"
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope=LIMITS_SCOPE)
 def falling(sipm_a, board_ntc, cooler):
     """Feedback-injection supply: the bias falls as the code rises."""
     return build_interlock_limits(sipm_a, board_ntc, cooler, heartbeat_timeout_s=5.0)
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope=LIMITS_SCOPE)
 def rising(sipm_b, board_pt1000):
     """Direct supply: the bias rises with the code; no cooler; no bias read-back (no supply check)."""
     return build_interlock_limits(sipm_b, board_pt1000)
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope=LIMITS_SCOPE)
 def rising_readback(sipm_b, board_pt1000, board_ntc):
     """The direct supply with the other board's bias read-back channel fitted."""
     import dataclasses
 
     return build_interlock_limits(sipm_b, dataclasses.replace(board_pt1000, bias_readback=board_ntc.bias_readback))
+
+
+@pytest.fixture(scope="module")
+def board_high_side(board_ntc):
+    """hut-board-ntc with its NTC above the resistor: a low code is an open sensor."""
+    import dataclasses
+
+    front_end = dataclasses.replace(board_ntc.temperature.front_end, sensor_position="high")
+    return dataclasses.replace(board_ntc, temperature=dataclasses.replace(board_ntc.temperature, front_end=front_end))
+
+
+@pytest.fixture(scope=LIMITS_SCOPE)
+def high_side(sipm_a, board_high_side, cooler):
+    return build_interlock_limits(sipm_a, board_high_side, cooler, heartbeat_timeout_s=5.0)
 
 
 def _inputs(lim, board, temp_c, request_code, *, now_ms=0, enabled=1, last_host_ms=None, **extra):
@@ -346,13 +364,19 @@ def _python_answers(lim, script):
 
 
 @needs_cc
-@pytest.mark.parametrize("which", ["falling", "rising", "rising_readback"])
+@pytest.mark.parametrize("which", ["falling", "rising", "rising_readback", "high_side"])
 def test_c_is_bit_exact_over_long_random_sequences(which, request, tmp_path, board_ntc, board_pt1000):
     lim = request.getfixturevalue(which)
-    board = board_ntc if which == "falling" else board_pt1000
+    board = {"falling": board_ntc, "high_side": request.getfixturevalue("board_high_side")}.get(which, board_pt1000)
+    assert lim.adc_low_is_open == (which == "high_side")
     files = render_interlocks_c(lim, name="ilk")
     exe = build(tmp_path, {**files, "main.c": HARNESS}, STRICT)
-    script = _random_script(lim, board, seed={"falling": 3, "rising": 5, "rising_readback": 7}[which], n=12_000)
+    script = _random_script(lim, board, seed={"falling": 3, "rising": 5, "rising_readback": 7, "high_side": 11}[which],
+                            n=4_000 if which == "high_side" else 12_000)
+    # and, at the end, one code below and one above the plausible band with their trip records read back
+    last = next(args for op, args in reversed(script) if op == "s")
+    for code in (lim.adc_fault_lo - 1, lim.adc_fault_hi + 1):
+        script += [("c", (0xFFFFFFFF,)), ("s", (last[0], code, *last[2:])), ("r", ())]
     text = "\n".join(f"{op} {' '.join(str(a) for a in args)}" for op, args in script) + "\n"
     result = subprocess.run([str(exe)], input=text, capture_output=True, text=True, check=True)
     c_lines = result.stdout.splitlines()

@@ -132,12 +132,14 @@ def test_c_unpack_refuses_what_python_refuses(harness):
         (p.Kind.UPLOAD_CHUNK, b"\x01" + bytes(4) + b"\xc1" + bytes(193)),   # data longer than a chunk
         (p.Kind.UPLOAD_CHUNK, b"\x01" + bytes(4) + b"\x05abc"),             # length beyond the payload
         (p.Kind.IDENTITY_REPORT, b"\x01\x02a\x01" + bytes(70)),             # non-printable text
+        (p.Kind.IDENTITY_REPORT, b"\x01" + bytes([p.MAX_TEXT_BYTES + 1]) + b"a" * (p.MAX_TEXT_BYTES + 1)
+         + b"\x00\x00" + bytes(64)),                                       # text longer than its limit
         (p.Kind.IDENTIFY, b"\x00"),                                         # payload on an empty request
         (0x3F, b""),                                                        # unknown kind
     ]
     data = b"".join(encode_frame(int(k), i, payload) for i, (k, payload) in enumerate(cases))
     c_lines = _run(harness, "echo", data)
-    assert c_lines == ["U -1"] * 6 + ["U -2"]
+    assert c_lines == ["U -1"] * 7 + ["U -2"]
     codec = LinkCodec()
     codec.receive_data(data)
     codes = []
@@ -145,7 +147,7 @@ def test_c_unpack_refuses_what_python_refuses(harness):
         with pytest.raises(RemoteProtocolError) as info:
             codec.next_message()
         codes.append(info.value.code)
-    assert codes == ["payload"] * 6 + ["unknown_kind"]
+    assert codes == ["payload"] * 7 + ["unknown_kind"]
 
 
 @needs_cc
