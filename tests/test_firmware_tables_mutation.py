@@ -1,0 +1,153 @@
+"""The frame of a table (code range, fault band, output clamp, C types, target, sweep) checked by hand.
+
+Uniform and optimised tables only (milliseconds each). Every expected value is computed here from the supply and
+sensor formulas directly (a set of DAC codes by their network output, a fault band by the code that holds a
+temperature), not from the helpers of :mod:`compensator.firmware.tables`.
+"""
+
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from compensator.errors import ModelError
+from compensator.firmware import tables as T
+from compensator.firmware.tables import build_table, sweep_table
+from compensator.law import build_law
+
+
+def codes_within(supply, lo_v, hi_v):
+    """Every DAC code whose network output lies in [lo_v, hi_v] (to 1e-9 of a code), as (first, last)."""
+    codes = np.arange(supply.dac.full_scale_code + 1)
+    v = supply.network_output_v(codes)
+    eps = 1e-9 * supply.lsb_v
+    inside = codes[(v >= lo_v - eps) & (v <= hi_v + eps)]
+    assert np.all(np.diff(inside) == 1)  # one run of codes
+    return int(inside[0]), int(inside[-1])
+
+
+@pytest.mark.parametrize("pair", [("sipm_a", "board_ntc", 3.0), ("sipm_b", "board_pt1000", 4.0)])
+def test_output_clamp_is_every_code_inside_the_supply_limits(pair, request):
+    sipm, board = request.getfixturevalue(pair[0]), request.getfixturevalue(pair[1])
+    s = board.supply
+    for max_bias_v in (board.max_bias_v, 44.0):
+        b = replace(board, max_bias_v=max_bias_v)
+        law = build_law(sipm, b, pair[2])
+        table = build_table(law, b, 0.05, "uniform")
+        # The regulator's own limits and the board's max_bias_v (feedback injection: the code runs downwards).
+        lo_v = max(s.min_output_v, float(s.network_output_v([0, s.dac.full_scale_code]).min()))
+        hi_v = min(s.max_output_v, float(s.network_output_v([0, s.dac.full_scale_code]).max()), max_bias_v)
+        assert (table.dac_min, table.dac_max) == codes_within(s, lo_v, hi_v)
+
+
+def test_fault_band_holds_the_margin_on_either_slope(sipm_a, sipm_b, board_ntc, board_pt1000):
+    for sipm, board, ov in ((sipm_a, board_ntc, 3.0), (sipm_b, board_pt1000, 4.0)):
+        law = build_law(sipm, board, ov)
+        channel = board.temperature
+        for margin in (0.0, 7.5):
+            table = build_table(law, board, 0.05, "uniform", fault_margin_k=margin)
+            # The plausible band is every code whose interval meets [min - margin, max + margin]: its end codes
+            # hold the two temperatures (the code n covers the positions [n, n + 1)).
+            ends = sorted([law.min_temp_c - margin, law.max_temp_c + margin], key=lambda t: channel.continuous_code(t))
+            for code, temp in zip((table.fault_lo, table.fault_hi), ends):
+                seen = channel.temp_at(np.array([code, code + 1.0]))
+                assert min(seen) <= temp <= max(seen), (board.name, margin, code, temp, seen)
+            if margin == 0.0:  # no margin: the band is the operating range itself
+                assert (table.fault_lo, table.fault_hi) == (table.code_lo, table.code_hi)
+
+
+def test_fault_band_never_takes_a_rail(sipm_a, board_ntc):
+    # 80 K below the NTC's range (-105 C) the divider reads beyond the top rail of the 12-bit ADC: code 4095 (an
+    # open or shorted sensor) is always a fault, so the band stops at 4094.
+    law = build_law(sipm_a, board_ntc, 3.0)
+    channel = board_ntc.temperature
+    x = channel.continuous_code(np.array([-25.0 - 80.0, 45.0 + 80.0]))
+    assert x.max() >= 4095 and x.min() < 400  # the cold end is beyond the top rail
+    table = build_table(law, board_ntc, 0.05, "uniform", fault_margin_k=80.0)
+    assert table.fault_hi == 4094 and table.fault_lo == int(np.floor(x.min())) >= 1
+    assert table.lookup([4094])[1][0] == T.TableStatus.COLDER_THAN_RANGE
+    assert table.lookup([4095])[1][0] == T.TableStatus.SENSOR_FAULT
+
+
+def test_margin_outside_the_sensor_model_is_refused(sipm_b, board_pt1000):
+    # The Pt1000 model (IEC 60751) stops at -200 C: a margin of 190 K below -25 C leaves it.
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    with pytest.raises(ModelError) as exc:
+        build_table(law, board_pt1000, 0.05, "uniform", fault_margin_k=190.0)
+    assert exc.value.key == "fault_margin_k"
+    assert exc.value.reason.startswith("fault_margin_k: 190 K takes the range outside the sensor model: ")
+
+
+def board_with(board, *, adc_bits=None, dac_bits=None):
+    if adc_bits is not None:
+        ch = board.temperature
+        board = replace(board, temperature=replace(ch, front_end=replace(ch.front_end, adc_bits=adc_bits)))
+    if dac_bits is not None:
+        board = replace(board, supply=replace(board.supply, dac=replace(board.supply.dac, bits=dac_bits)))
+    return board
+
+
+def test_c_types_follow_the_converters(sipm_b, board_pt1000):
+    # Unsigned C types of at least 16 bits that hold every code: 16 bits up to 16-bit converters, 32 above.
+    for adc_bits, dac_bits, code_t, value_t in ((16, 16, 16, 16), (17, 16, 32, 16), (16, 17, 16, 32),
+                                                 (10, 16, 16, 16)):
+        board = board_with(board_pt1000, adc_bits=adc_bits, dac_bits=dac_bits)
+        table = build_table(build_law(sipm_b, board, 4.0), board, 0.5, "uniform")
+        assert (table.adc_bits, table.dac_bits) == (adc_bits, dac_bits)
+        assert (table.code_type_bits, table.value_type_bits) == (code_t, value_t), (adc_bits, dac_bits)
+
+
+def test_target_by_hand(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    target = T._target(law, board_ntc, 0.05)
+    channel, s = board_ntc.temperature, board_ntc.supply
+    # The range: every code whose centre lies in -25 .. 45 C, plus the codes that hold the two ends.
+    t_all = channel.temp_at(np.arange(1, 4095) + 0.5)
+    inside = np.arange(1, 4095)[(t_all >= -25.0) & (t_all <= 45.0)]
+    assert target.codes[0] <= inside[0] <= inside[0] - 1 + 2 and target.codes[-1] in (inside[-1], inside[-1] + 1)
+    assert np.array_equal(target.codes, np.arange(target.codes[0], target.codes[-1] + 1))
+    assert np.allclose(target.temp_c, channel.temp_at(target.codes + 0.5), rtol=0, atol=0)
+    # The exact DAC code puts the law's output on the supply line: intercept + code x volts per code.
+    assert np.allclose(s.network_output_v(target.exact), law.output_v(target.temp_c), rtol=0, atol=1e-9)
+    # One DAC LSB is 100 x LSB / Vov percent of gain (constant overvoltage law, Vov = 3 V); the bound in LSB
+    # is the bound over that.
+    per_lsb = 100 * s.lsb_v / 3.0
+    assert np.allclose(target.gain_pct_per_lsb, per_lsb, rtol=1e-12)
+    assert np.allclose(target.bound_lsb, 0.05 / per_lsb, rtol=1e-12)
+    assert target.dac_full == 65535
+
+
+def test_sweep_by_hand(sipm_a, board_ntc):
+    law = build_law(sipm_a, board_ntc, 3.0)
+    table = build_table(law, board_ntc, 0.05, "optimised")
+    sweep = sweep_table(table, law, board_ntc)
+    codes = np.arange(table.code_lo, table.code_hi + 1)
+    t = board_ntc.temperature.temp_at(codes + 0.5)
+    s = board_ntc.supply
+    dac, _ = table.lookup(codes)
+    ideal_v = law.output_v(t)
+    gain = 100 * (s.output_v(dac) - ideal_v) / 3.0  # gain error of the output difference at 3 V overvoltage
+    exact = (ideal_v - s.intercept_v) / s.volts_per_code
+    assert np.array_equal(sweep.adc_code, codes) and np.array_equal(sweep.table_dac_code, dac)
+    assert np.allclose(sweep.temp_c, t, rtol=0, atol=0)
+    assert np.allclose(sweep.ideal_bias_v, ideal_v, rtol=0, atol=0)
+    assert np.allclose(sweep.ideal_dac_code, exact, rtol=1e-12)
+    assert np.allclose(sweep.table_bias_v, s.output_v(dac), rtol=0, atol=0)
+    assert np.allclose(sweep.gain_error_pct, gain, rtol=1e-9, atol=1e-15)
+    assert sweep.max_gain_error_pct == pytest.approx(np.abs(gain).max(), rel=1e-9)
+    assert sweep.worst_adc_code == int(codes[np.argmax(np.abs(gain))])
+    assert sweep.max_error_dac_lsb == pytest.approx(np.abs(dac - exact).max(), rel=1e-9)
+    assert sweep.within_bound is True
+    # Within the bound means at most the bound (to a relative 1e-9 of floating-point slack).
+    assert sweep_table(replace(table, max_gain_error_pct=sweep.max_gain_error_pct), law, board_ntc).within_bound
+    assert not sweep_table(replace(table, max_gain_error_pct=0.999 * sweep.max_gain_error_pct), law,
+                           board_ntc).within_bound
+
+
+def test_ideal_dac_code_by_hand(sipm_b, board_pt1000):
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    s = board_pt1000.supply
+    temps = np.array([-25.0, 0.0, 45.0])
+    # Direct supply: output = offset + gain x code x DAC LSB.
+    v = law.output_v(temps)
+    assert T.ideal_dac_code(law, temps) == pytest.approx((v - s.offset_v) / (s.gain_v_per_v * s.dac.lsb_v), rel=1e-12)
