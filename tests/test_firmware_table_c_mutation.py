@@ -122,3 +122,15 @@ def test_hand_made_uniform_table_text():
     assert "#define T_SAFE_STATE_NEEDS_SHUTDOWN_LINE 0u /* 1: no DAC code holds the SiPM below breakdown */\n" in h
     assert "#ifndef T_ROM_READ_U16\n#define T_ROM_READ_U16(address) (*(address))\n#endif\n" in h
     assert " *   codes 90..99 (colder than the range) and 109..120 (hotter) are\n" in h
+
+
+def test_rounding_constants_beyond_int_get_a_64_bit_literal():
+    # A rounding term 2^(k-1) of a 64-bit accumulator is a plain decimal while it fits a 32-bit int (C99: an
+    # unsuffixed decimal constant takes the first of int, long, long long that holds it, and int may be 16 or
+    # 32 bits wide on the targets; ISO C99 6.4.4.1); from 2^31 on it is spelled INT64_C(...).
+    from compensator.firmware.table_c import _lit
+
+    assert _lit(2 ** 30, 64) == "1073741824" and _lit(2 ** 31 - 1, 64) == "2147483647"
+    assert _lit(2 ** 31, 64) == "INT64_C(2147483648)" and _lit(-(2 ** 31), 64) == "INT64_C(-2147483648)"
+    assert _lit(2 ** 40, 64) == "INT64_C(1099511627776)"
+    assert _lit(2 ** 31, 32) == "2147483648"  # a 32-bit accumulator never holds it: no suffix asked for
