@@ -151,3 +151,45 @@ def test_ideal_dac_code_by_hand(sipm_b, board_pt1000):
     # Direct supply: output = offset + gain x code x DAC LSB.
     v = law.output_v(temps)
     assert T.ideal_dac_code(law, temps) == pytest.approx((v - s.offset_v) / (s.gain_v_per_v * s.dac.lsb_v), rel=1e-12)
+
+
+def test_within_bound_allows_one_part_in_a_billion(sipm_a, board_ntc):
+    # A table exactly at its bound meets it; the comparison allows a relative 1e-9 of floating-point slack and
+    # no more: a bound b with b (1 + 1e-9) equal to the largest error in floating point meets it, the next
+    # smaller double does not.
+    law = build_law(sipm_a, board_ntc, 3.0)
+    table = build_table(law, board_ntc, 0.05, "optimised")
+    worst = sweep_table(table, law, board_ntc).max_gain_error_pct
+    b = worst / (1 + 1e-9)
+    assert b * (1 + 1e-9) == worst  # holds for this table's figure (checked here, not assumed)
+    assert sweep_table(replace(table, max_gain_error_pct=b), law, board_ntc).within_bound
+    below = float(np.nextafter(b, 0.0))
+    assert not sweep_table(replace(table, max_gain_error_pct=below), law, board_ntc).within_bound
+
+
+def test_sweep_of_a_law_whose_sensitivity_varies(sipm_b, board_pt1000):
+    # hut-sipm-b's capacitance tempco (150 ppm/K) makes the constant-gain law's sensitivity (percent of gain per
+    # volt) change over the range: the sweep takes it at each code's own temperature.
+    law = build_law(sipm_b, board_pt1000, 4.0, kind="constant_gain")
+    table = build_table(law, board_pt1000, 0.05, "uniform")
+    sweep = sweep_table(table, law, board_pt1000)
+    per_v = law.error_pct_per_v(sweep.temp_c)
+    assert np.ptp(per_v) > 0.01 * per_v.mean()
+    expected = (board_pt1000.supply.output_v(sweep.table_dac_code) - law.output_v(sweep.temp_c)) * per_v
+    assert np.allclose(sweep.gain_error_pct, expected, rtol=1e-12, atol=1e-15)
+
+
+def test_smallest_is_the_default_layout(sipm_b, board_pt1000, monkeypatch):
+    # With the polynomial refused (it takes seconds), the default "smallest" keeps the uniform table (26 B, ties
+    # and all other layouts larger: test_firmware_tables' layout bytes); a fixed layout never falls back to it.
+    from compensator.firmware.tables import TableError
+
+    def refuse(*args, **kwargs):
+        raise TableError("DAC quantisation", "no polynomial table here")
+
+    monkeypatch.setattr(T, "size_polynomial", refuse)
+    law = build_law(sipm_b, board_pt1000, 4.0)
+    table = build_table(law, board_pt1000, 0.05)
+    assert (table.layout, table.table_bytes) == ("uniform", 26)
+    with pytest.raises(TableError, match="no polynomial table here"):
+        build_table(law, board_pt1000, 0.05, "polynomial")
