@@ -134,3 +134,19 @@ def test_rounding_constants_beyond_int_get_a_64_bit_literal():
     assert _lit(2 ** 31, 64) == "INT64_C(2147483648)" and _lit(-(2 ** 31), 64) == "INT64_C(-2147483648)"
     assert _lit(2 ** 40, 64) == "INT64_C(1099511627776)"
     assert _lit(2 ** 31, 32) == "2147483648"  # a 32-bit accumulator never holds it: no suffix asked for
+
+
+@pytest.mark.parametrize("layout, extra, line", [
+    ("optimised", dict(slope_frac_bits=32, x=np.array([100]), y=np.array([10]), slope=np.array([0])),
+     "+ INT64_C(2147483648), 32u);"),
+    ("uniform", dict(node_frac_bits=32, node_type_bits=64),
+     "        y = t_floor_shift(y + INT64_C(2147483648), 32u); /* to whole DAC codes */\n"),
+    ("polynomial", dict(node_frac_bits=32, y=np.array([5]), coeff_type_bits=(32,)),
+     "        y = t_floor_shift(a + INT64_C(2147483648), 32u);\n"),
+])
+def test_rounding_terms_of_32_fractional_bits(layout, extra, line):
+    # Hand-made tables with 32 fractional bits in a 64-bit accumulator: the rounding term 2^31 of each layout's
+    # last shift is written as a 64-bit literal (an int may be 32 bits wide).
+    files = render_table_c(hand_table(layout=layout, acc_type_bits=64, **extra), [], "t")
+    assert "typedef int64_t t_acc_t;" in files["t.c"]
+    assert line in files["t.c"]
