@@ -143,10 +143,31 @@ def test_rounding_constants_beyond_int_get_a_64_bit_literal():
      "        y = t_floor_shift(y + INT64_C(2147483648), 32u); /* to whole DAC codes */\n"),
     ("polynomial", dict(node_frac_bits=32, y=np.array([5]), coeff_type_bits=(32,)),
      "        y = t_floor_shift(a + INT64_C(2147483648), 32u);\n"),
-])
+    ("uniform", dict(shift=32), "        y = y0 + t_floor_shift(delta * r + INT64_C(2147483648), 32u);\n"),
+], ids=["optimised", "uniform-nodes", "polynomial", "uniform-shift"])
 def test_rounding_terms_of_32_fractional_bits(layout, extra, line):
     # Hand-made tables with 32 fractional bits in a 64-bit accumulator: the rounding term 2^31 of each layout's
     # last shift is written as a 64-bit literal (an int may be 32 bits wide).
     files = render_table_c(hand_table(layout=layout, acc_type_bits=64, **extra), [], "t")
     assert "typedef int64_t t_acc_t;" in files["t.c"]
     assert line in files["t.c"]
+
+
+def test_current_correction_text_by_hand(sipm_a, board_ntc):
+    # The measured drop correction's entry point and factor: negative on the feedback-injection board (one current
+    # code lowers the DAC code: test_firmware_table_current), and a positive factor written without a sign.
+    from dataclasses import replace
+
+    from compensator.firmware.tables import build_table
+    from compensator.law import build_law
+
+    law = build_law(sipm_a, board_ntc, 3.0, kind="constant_gain", drop_correction="measured")
+    table = build_table(law, board_ntc, 0.05, "uniform")
+    assert c_current_function_signature(table, "bias") == (
+        "uint16_t bias_with_current(uint16_t adc_code, uint16_t current_code)")
+    assert table.current.factor == -346030
+    h = render_table_c(table, [], "t")["t.h"]
+    assert "#define T_CURRENT_FACTOR                 (-INT32_C(346030)) /* DAC codes per current code" in h
+    positive = replace(table, current=replace(table.current, factor=346030))
+    h = render_table_c(positive, [], "t")["t.h"]
+    assert "#define T_CURRENT_FACTOR                 (INT32_C(346030)) /* DAC codes per current code" in h

@@ -65,6 +65,8 @@ def test_fault_margin_reaches_the_table(law_b, board_pt1000):
     lo = built.table.fault_lo
     assert channel.temp_at(lo) <= -30.0 < channel.temp_at(lo + 1)
     assert built.sweep_mode == "summary" and built.files[SWEEP_FILE].startswith("adc_code_first,adc_code_last,")
+    # The uniform baseline is built with the same margin.
+    assert (built.uniform_table.fault_lo, built.uniform_table.fault_hi) == (lo, built.table.fault_hi)
 
 
 @pytest.mark.parametrize("kw, key, reason", [
@@ -90,7 +92,10 @@ def test_smallest_reports_every_candidate(law_b, board_pt1000, monkeypatch):
         raise TableError("DAC quantisation", "no polynomial table here")
 
     monkeypatch.setattr(tables_module, "size_polynomial", refuse)
-    built = prepare_table_files(law_b, board_pt1000, profiles=[], max_gain_error_pct=0.05)
+    built = prepare_table_files(law_b, board_pt1000, profiles=[], max_gain_error_pct=0.05, fault_margin_k=5.0)
+    # The margin reaches every candidate (the fault band of test_fault_margin_reaches_the_table).
+    channel = board_pt1000.temperature
+    assert channel.temp_at(built.table.fault_lo) <= -30.0 < channel.temp_at(built.table.fault_lo + 1)
     # uniform 26 B, segmented 38 B, optimised 36 B (test_firmware_tables' layout bytes by hand): uniform is chosen
     # and, not being half of itself, gets the finding.
     assert [c.layout for c in built.candidates] == ["uniform", "segmented", "optimised", "polynomial"]
