@@ -193,3 +193,32 @@ def test_smallest_is_the_default_layout(sipm_b, board_pt1000, monkeypatch):
     assert (table.layout, table.table_bytes) == ("uniform", 26)
     with pytest.raises(TableError, match="no polynomial table here"):
         build_table(law, board_pt1000, 0.05, "polynomial")
+
+
+def hand_uniform(**kw):
+    """Nodes 10, 90, 170 every 8 codes from code 100 (test_firmware_tables' hand-made table)."""
+    base = dict(layout="uniform", adc_bits=12, dac_bits=12, code_lo=100, code_hi=108, fault_lo=90, fault_hi=120,
+                dac_min=0, dac_max=4095, safe_dac_code=7, below_dac_code=5, above_dac_code=500, shift=3,
+                y=np.array([10, 90, 170], dtype=np.int64))
+    base.update(kw)
+    return T.LookupTable(**base)
+
+
+def test_lookup_record_checks_and_clamps_by_hand():
+    with pytest.raises(ModelError) as exc:
+        hand_uniform(layout="zigzag")
+    assert exc.value.reason == "layout must be one of uniform, segmented, optimised, polynomial, got 'zigzag'"
+    # Statuses given as plain integers become TableStatus members.
+    table = hand_uniform(below_status=2, above_status=1)
+    assert table.below_status is T.TableStatus.HOTTER_THAN_RANGE and table.above_status is T.TableStatus.COLDER_THAN_RANGE
+    # Codes of the 16-bit argument only: 0 .. 65535 (beyond a 12-bit ADC they are faults).
+    for bad in (-1, 65536):
+        with pytest.raises(ModelError) as exc:
+            table.lookup([100, bad])
+        assert exc.value.reason == "adc_code outside the range of the 16-bit argument"
+    dac, status = table.lookup([0, 65535])
+    assert dac.tolist() == [7, 7] and status.tolist() == [3, 3]
+    assert dac.dtype == np.int64 and status.dtype == np.int64
+    # In range the interpolated value 10 .. 170 is held within the clamp 20 .. 80: 10 + floor((80 d + 4) / 8).
+    clamped = hand_uniform(dac_min=20, dac_max=80)
+    assert clamped.lookup(np.arange(100, 109))[0].tolist() == [20, 20, 30, 40, 50, 60, 70, 80, 80]
