@@ -222,3 +222,37 @@ def test_lookup_record_checks_and_clamps_by_hand():
     # In range the interpolated value 10 .. 170 is held within the clamp 20 .. 80: 10 + floor((80 d + 4) / 8).
     clamped = hand_uniform(dac_min=20, dac_max=80)
     assert clamped.lookup(np.arange(100, 109))[0].tolist() == [20, 20, 30, 40, 50, 60, 70, 80, 80]
+
+
+def test_fields_a_layout_does_not_use_are_zero_or_empty():
+    # LookupTable's documented values for the fields of other layouts: 0, or an empty int64 array, or ().
+    from compensator.firmware import layout_sizing as S
+    from compensator.firmware.layouts import Target
+
+    exact = np.array([200 + d * d / 16 for d in range(64)])
+    t = Target(codes=np.arange(100, 164, dtype=np.int64), temp_c=np.zeros(64), exact=exact, bound_lsb=np.full(64, 1.0),
+               gain_pct_per_lsb=np.ones(64), ext_lo=float(exact[1] - exact[0]), ext_hi=float(exact[-1] - exact[-2]),
+               dac_full=4095)
+    fits = {"uniform": S.size_uniform(t, 16), "segmented": S.size_segmented(t, 16),
+            "optimised": S.size_optimised(t, 16, 16), "polynomial": S.size_polynomial(t, 16)}
+    uses = {"x": {"optimised"}, "slope": {"optimised"}, "segment_shift": {"segmented"}, "coeff_shift": {"polynomial"},
+            "shift": {"uniform"}, "slope_frac_bits": {"optimised"}, "center_code": {"polynomial"},
+            "coeff_type_bits": {"polynomial"}, "slope_type_bits": {"optimised"}}
+    for layout, fit in fits.items():
+        assert fit.layout == layout
+        for name, users in uses.items():
+            if layout in users:
+                continue
+            value = getattr(fit, name)
+            if isinstance(value, np.ndarray):
+                assert value.size == 0 and value.dtype == np.int64, (layout, name)
+            else:
+                assert value in (0, ()), (layout, name, value)
+        if layout == "optimised":
+            assert fit.node_frac_bits == 0  # breakpoint values are whole DAC codes
+    # The defaults of a bare record: 16-bit nodes, a 32-bit accumulator, no slopes.
+    from compensator.firmware.layouts import _fit
+
+    bare = _fit("uniform")
+    assert (bare.node_type_bits, bare.acc_type_bits, bare.slope_type_bits, bare.node_frac_bits) == (16, 32, 0, 0)
+    assert bare.y.size == 0 and bare.y.dtype == np.int64 and bare.coeff_type_bits == ()
