@@ -129,28 +129,54 @@ def test_static_asserts_catch_a_tampered_table(sipm_a, board_ntc, tmp_path):
     assert proc.returncode != 0 and "count" in proc.stderr
 
 
-def golden_inputs():
+def golden_inputs(sipm="hut-sipm-a", board="hut-board-ntc"):
     inputs = GOLDEN / "inputs"
-    return load_sipm(inputs / "hut-sipm-a.yaml"), load_board(inputs / "hut-board-ntc.yaml")
+    return load_sipm(inputs / f"{sipm}.yaml"), load_board(inputs / f"{board}.yaml")
 
 
-def golden_files(layout):
+#: Golden cases: directory -> (sipm, board, overvoltage V, law options, layout, bound %, sensor on the high side,
+#: function name, prefix). The first four are the layouts on the NTC board; the last two reach the branches those
+#: do not: 32-bit nodes with fractional bits, a falling code (statuses swapped), a safe DAC code that holds the SiPM
+#: below breakdown, and the measured drop correction with its entry point under a prefix.
+GOLDEN_CASES = {
+    "uniform": ("hut-sipm-a", "hut-board-ntc", 3.0, {}, "uniform", 0.05, False, "bias_dac_from_adc", ""),
+    "optimised": ("hut-sipm-a", "hut-board-ntc", 3.0, {}, "optimised", 0.05, False, "bias_dac_from_adc", ""),
+    "segmented": ("hut-sipm-a", "hut-board-ntc", 3.0, {}, "segmented", 0.05, False, "bias_dac_from_adc", ""),
+    "polynomial": ("hut-sipm-a", "hut-board-ntc", 3.0, {}, "polynomial", 0.05, False, "bias_dac_from_adc", ""),
+    "uniform-fine-high-side": ("hut-sipm-b", "hut-board-pt1000", 4.0, {}, "uniform", 0.01, True,
+                               "bias_dac_from_adc", ""),
+    "optimised-measured-drop": ("hut-sipm-a", "hut-board-ntc-isense", 3.0,
+                                {"kind": "constant_gain", "drop_correction": "measured"}, "optimised", 0.05, False,
+                                "bias", "hut_"),
+}
+GOLDEN_LAYOUTS = list(GOLDEN_CASES)  # the old name, used by tests/golden/update.py
+
+
+def golden_table(case):
+    """The table of a golden case, its profiles and the banner's settings."""
+    sipm_name, board_name, ov, options, layout, bound, high_side, _, _ = GOLDEN_CASES[case]
+    sipm, board = golden_inputs(sipm_name, board_name)
+    if high_side:
+        board = reversed_board(board)
+    table = build_table(build_law(sipm, board, ov, **options), board, bound, layout)
+    settings = {"layout": layout, "max_gain_error_pct": f"{bound:g}", "overvoltage_v": f"{ov:g}"}
+    return table, [sipm, board], settings
+
+
+def golden_files(case, built=None):
     """The files the golden test compares (also what ``tests/golden/update.py`` writes)."""
-    sipm, board = golden_inputs()
-    law = build_law(sipm, board, 3.0)
-    table = build_table(law, board, 0.05, layout)
-    settings = {"layout": layout, "max_gain_error_pct": "0.05", "overvoltage_v": "3"}
-    return render_table_c(table, [sipm, board], settings=settings)
+    table, profiles, settings = built or golden_table(case)
+    name, prefix = GOLDEN_CASES[case][7:]
+    return render_table_c(table, profiles, name, settings, prefix=prefix)
 
 
-GOLDEN_LAYOUTS = ["uniform", "optimised", "segmented", "polynomial"]
-
-
-@pytest.mark.parametrize("layout", GOLDEN_LAYOUTS)
-def test_golden_files(layout):
-    files = golden_files(layout)
-    assert files == golden_files(layout)  # deterministic
-    directory = GOLDEN / layout
+@pytest.mark.parametrize("case", GOLDEN_LAYOUTS)
+def test_golden_files(case):
+    built = golden_table(case)
+    files = golden_files(case, built)
+    assert files == golden_files(case, built)  # deterministic
+    directory = GOLDEN / case
+    assert sorted(files) == sorted(p.name for p in directory.iterdir())
     for fname, text in files.items():
         assert (directory / fname).read_bytes() == text.encode(), (
             f"{fname} differs from the golden file; if the change is intended, run tests/golden/update.py")
