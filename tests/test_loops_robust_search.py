@@ -78,6 +78,19 @@ def test_a_plant_without_static_gain_is_refused():
             assert info.value.reason == reason
 
 
+def test_plants_of_opposite_sign_are_refused():
+    # Integral action of one sign drives a plant of the other sign away from its setpoint (a positive feedback
+    # loop): no single controller suits a gain of +1 and one of -2 (or -1 and +0.5), in either order, with or
+    # without a third plant of the first one's sign. The refusal comes before any search.
+    reason = "the plants disagree in the sign of their gain: no single controller suits them all"
+    for k1, k2 in ((1.0, -2.0), (-1.0, 0.5)):
+        first, second = plants.fopdt_plant(k1, 10.0, 1.0), plants.fopdt_plant(k2, 10.0, 1.0)
+        for plant, others in ((first, (second,)), (second, (first,)), (first, (first, second)), (first, (second, first))):
+            with pytest.raises(ModelError) as info:
+                tuning.robust(plant, T, 1.4, also_plants=others)
+            assert info.value.reason == reason
+
+
 def _largest_ki(p, q, kp, kd, ms_max, n=10.0):
     """First ki where ``|1 + C P| >= 1 / Ms`` fails, for the firmware PID written out (independent of the search).
 

@@ -44,9 +44,9 @@ def _loop_parts(p_resp, w, T, kp, kd, n) -> _LoopParts:
     derivative terms times the plant, shape ``kp.shape + p_resp.shape``) and
     ``per_ki`` (shape ``p_resp.shape``).
     """
-    gains = PidGains(kp, np.zeros_like(kp), kd, n)
+    gains = PidGains(kp, 0.0, kd, n)
     fixed = 1.0 + controller_frequency_response(gains, T, w)[..., None, :] * p_resp
-    q = np.exp(-1j * np.asarray(w, dtype=float) * T)
+    q = np.exp(-1j * w * T)
     per_ki = (T * q / (1.0 - q)) * p_resp
     return _LoopParts(np.ascontiguousarray(fixed.real), np.ascontiguousarray(fixed.imag),
                       np.ascontiguousarray(per_ki.real), np.ascontiguousarray(per_ki.imag))
@@ -67,7 +67,7 @@ def _feasible_batch(parts: _LoopParts, ki, ms_max):
     the ``L`` plane when that is negative: the sign of the product of
     numerator and denominator decides, without a division.
     """
-    k = np.asarray(ki, dtype=float)[..., None, None]
+    k = ki[..., None, None]
     re = parts.per_ki_re * k
     re += parts.fixed_re
     im = parts.per_ki_im * k
@@ -84,7 +84,7 @@ def _feasible_batch(parts: _LoopParts, ki, ms_max):
     outside = np.any(cross, axis=-1)
     # The Nyquist curve of a sampled loop meets the real axis again at the Nyquist frequency (the last point).
     outside |= re[..., -1] < 0.0
-    return np.all(ms_ok & ~outside, axis=-1)
+    return np.all(ms_ok & ~outside, axis=1)
 
 
 #: Bisection steps on ln(ki) over a span of 30: the largest ki is found to within 30 / 2**17, 0.023 %.
@@ -97,8 +97,6 @@ def _max_ki(p_resp, w, T, kp, kd, n, sign, ms_max, ki_hi):
     Controllers that miss the bound even at the smallest ki searched get 0 at
     once; only the others are bisected (on a PID grid most are out).
     """
-    kp = np.asarray(kp, float)
-    kd = np.asarray(kd, float)
     shape = kp.shape
     parts = _loop_parts(p_resp, w, T, kp.ravel(), kd.ravel(), n)
     top = math.log(ki_hi)
@@ -153,32 +151,32 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, *, pi
     dc_gains = [p.dc_gain for p in every]
     if not all(dc_gains):
         raise ModelError("a plant has zero static gain: integral action cannot hold a setpoint on it")
-    sign = 1.0 if dc_gains[0] > 0 else -1.0
-    if any((g > 0) != (sign > 0) for g in dc_gains):
+    signs = {math.copysign(1.0, g) for g in dc_gains}
+    if len(signs) > 1:
         raise ModelError("the plants disagree in the sign of their gain: no single controller suits them all")
+    (sign,) = signs
     w = np.append(loop_frequency_grid(plant, T, 700, 6.0), math.pi / T)  # include Nyquist, where sampled loops often cross
     p_resp = np.array([discrete_frequency_response(p, T, w, computation_delay_samples) for p in every])
     # The grid of proportional gains spans up to the smallest ultimate gain.
     kp_grid_max = min(abs(ultimate_point(p, T, computation_delay_samples)[0]) for p in every)
+    # Only the reference's magnitudes set the scale.
+    ref_model = None
     if reference is None:
         from compensator.loops.identify import approximate_plant
 
         try:
             ref_model = _with_dead_time(approximate_plant(plant), sampling_dead_time_s(T, computation_delay_samples))
-        except ModelError:  # a static plant: scale the search by its ultimate gain alone
-            reference = PidGains(0.2 * sign * kp_grid_max, 0.05 * sign * kp_grid_max / T)
-            ref_kd = 0.0
+        except ModelError:  # a static plant: scale the search by its ultimate gain alone (ki_hi needs no ki)
+            reference = PidGains(0.2 * kp_grid_max, 0.0)
         else:
             reference = simc(ref_model)[0]
-            ref_kd = abs(amigo(ref_model, pid=True).kd_s) if pid else 0.0
-    else:
-        ref_kd = abs(reference.kd_s)
-    ki_hi = 1e3 * max(abs(reference.ki_per_s), abs(kp_grid_max) / T)
+    ki_hi = 1e3 * max(abs(reference.ki_per_s), kp_grid_max / T)
     if pid:
+        ref_kd = abs((reference if ref_model is None else amigo(ref_model, pid=True)).kd_s)
         kd_max = 4.0 * max(ref_kd, abs(reference.kp) * T)
         kp_axis = np.linspace(0.0, 1.5 * kp_grid_max, 26)[1:]
         kd_axis = np.linspace(0.0, kd_max, 17)
-        KP, KD = np.meshgrid(kp_axis, kd_axis, indexing="ij")
+        KP, KD = np.broadcast_arrays(kp_axis[:, None], kd_axis)
     else:
         KP = np.linspace(0.0, kp_grid_max, 121)[1:]
         KD = np.zeros_like(KP)
@@ -186,16 +184,17 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, *, pi
     ki = _max_ki(p_resp, w, T, KP, KD, derivative_filter_n, sign, ms_max, ki_hi)
     # Refine around the best few points on a finer grid, then take the best that is closed-loop stable.
     order = np.argsort(ki, axis=None)[::-1]
+    dkp = (1.5 * kp_grid_max / 25.0 if pid else kp_grid_max / 120.0)  # one step of the coarse grid
+    dense = loop_frequency_grid(plant, T, 20000)  # the dense grid of the final check
     for flat in order[:12]:
         if ki.flat[flat] <= 0:
             break
         kp0, kd0 = KP.flat[flat], KD.flat[flat]
-        dkp = (1.5 * kp_grid_max / 25.0 if pid else kp_grid_max / 120.0)
         kps = sign * np.linspace(max(abs(kp0) - dkp, 1e-12 * kp_grid_max), abs(kp0) + dkp, 15 if pid else 21)
         if pid:
             dkd = kd_max / 16.0
             kds = sign * np.linspace(max(abs(kd0) - dkd, 0.0), abs(kd0) + dkd, 9)
-            kpf, kdf = np.meshgrid(kps, kds, indexing="ij")
+            kpf, kdf = np.broadcast_arrays(kps[:, None], kds)
         else:
             kpf, kdf = kps, np.zeros_like(kps)
         kif = _max_ki(p_resp, w, T, kpf, kdf, derivative_filter_n, sign, ms_max, ki_hi)
@@ -208,12 +207,10 @@ def robust(plant: Plant, sample_time_s: float, ms_max: float = DEFAULT_MS, *, pi
         if cand is None:
             continue
         # Confirm on the dense grid; shrink ki until the bound holds there too.
-        dense = loop_frequency_grid(plant, T, 20000, 7.0)
         for _ in range(60):
             ms = max(max_sensitivity(p, cand, T, computation_delay_samples, dense)[0] for p in every)
             if ms <= ms_max * (1 + 1e-6):
                 return cand
             cand = replace(cand, ki_per_s=cand.ki_per_s * 0.995)
-        continue
     raise ModelError(f"no PI{'D' if pid else ''} gains reach Ms <= {ms_max:g} on this loop (the sampling and "
                      "dead time may leave too little phase; raise --ms or the rate)")
