@@ -69,6 +69,15 @@ def test_fault_band_never_takes_a_rail(sipm_a, board_ntc):
     assert table.lookup([4095])[1][0] == T.TableStatus.SENSOR_FAULT
 
 
+def test_fault_band_end_beyond_the_sensor_model_reads_as_an_open_sensor(sipm_a, board_ntc):
+    # -25 C less 248 K is -273 C, where the Beta model's reading is not finite. The NTC sits below its 10 kohm
+    # resistor, so an open (cold) sensor reads full scale: the band reaches the top rail less one, and its low
+    # end is the hot end by the Beta model (B = 3435 K, 10 kohm at 25 C) at 45 + 248 = 293 C.
+    law = build_law(sipm_a, board_ntc, 3.0)
+    r_hot = 10e3 * np.exp(3435.0 * (1 / (293.0 + 273.15) - 1 / 298.15))
+    assert T._fault_band(law, board_ntc, 248.0) == (int(4096 * r_hot / (r_hot + 10e3)), 4094) == (17, 4094)
+
+
 def test_margin_outside_the_sensor_model_is_refused(sipm_b, board_pt1000):
     # The Pt1000 model (IEC 60751) stops at -200 C: a margin of 190 K below -25 C leaves it.
     law = build_law(sipm_b, board_pt1000, 4.0)

@@ -10,7 +10,9 @@ from __future__ import annotations
 
 from enum import IntFlag
 
-__all__ = ["FaultFlag", "TRIP_FLAGS", "fault_names"]
+import numpy as np
+
+__all__ = ["FaultFlag", "TRIP_FLAGS", "fault_names", "open_sensor_code", "sensor_fault_band"]
 
 
 class FaultFlag(IntFlag):
@@ -48,3 +50,44 @@ def fault_names(flags: int) -> list[str]:
             known = FaultFlag._value2member_map_.get(1 << bit)
             names.append(known.name.lower() if known is not None else f"bit_{bit}")
     return names
+
+
+#: A resistance standing for an open (disconnected) temperature sensor, ohm.
+OPEN_SENSOR_OHM = 1e12
+
+
+def open_sensor_code(channel) -> float:
+    """The continuous ADC position an open temperature sensor reads on ``channel``.
+
+    Parameters
+    ----------
+    channel : TemperatureChannel
+
+    Returns
+    -------
+    float
+    """
+    return float(channel.front_end.continuous_code(OPEN_SENSOR_OHM))
+
+
+def sensor_fault_band(channel, temps_c) -> tuple[int, int]:
+    """The ADC codes ``(lo, hi)`` of the plausible readings over ``temps_c``; codes outside are sensor faults.
+
+    An end where the sensor model's reading is not finite (its resistance overflowed, e.g. an NTC near
+    absolute zero) reads as an open sensor would; the rails 0 and full scale are always faults.
+
+    Parameters
+    ----------
+    channel : TemperatureChannel
+    temps_c : array_like
+        The temperatures that must read as plausible, degree Celsius.
+
+    Returns
+    -------
+    tuple of int
+    """
+    with np.errstate(all="ignore"):
+        x = channel.continuous_code(np.asarray(temps_c, dtype=float))
+    x = np.where(np.isfinite(x), x, open_sensor_code(channel))
+    full = channel.front_end.full_scale_code
+    return max(1, int(np.floor(x.min()))), min(full - 1, int(np.floor(x.max())))

@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from compensator.errors import ModelError
+from compensator.firmware.faults import open_sensor_code, sensor_fault_band
 from compensator.firmware.interlocks import (
     DEFAULT_FAULT_MARGIN_K,
     DEFAULT_HEARTBEAT_TIMEOUT_S,
@@ -189,13 +190,8 @@ def build_interlock_limits(sipm, board, thermal=None, *, slew_v_per_s: float = D
     channel = board.temperature
     adc_full = channel.front_end.full_scale_code
     # A code below the band reads as a temperature beyond one end: open if an infinite resistance lands there.
-    open_code = float(channel.front_end.continuous_code(1e12))
-    adc_low_is_open = open_code < adc_full / 2
-    with np.errstate(all="ignore"):
-        x = channel.continuous_code(np.array([t_lo, t_hi]))
-    # an end where the sensor model's reading is not finite (its resistance overflowed) reads as an open sensor
-    x = np.where(np.isfinite(x), x, open_code)
-    fault_lo, fault_hi = max(1, int(np.floor(x.min()))), min(adc_full - 1, int(np.floor(x.max())))
+    adc_low_is_open = open_sensor_code(channel) < adc_full / 2
+    fault_lo, fault_hi = sensor_fault_band(channel, [t_lo, t_hi])
 
     over_a = device.max_current_a if over_current_a is None else over_current_a
     if not np.isfinite(over_a) or over_a <= 0:

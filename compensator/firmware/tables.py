@@ -45,6 +45,7 @@ import numpy as np
 from compensator.errors import ModelError
 from compensator.findings import Finding, Severity
 from compensator.firmware.current import CURRENT_FACTOR_SLACK_BITS, CurrentCorrection, build_current_correction
+from compensator.firmware.faults import sensor_fault_band
 from compensator.firmware.fixed_point import floor_shift, uint_bits
 from compensator.firmware.layout_sizing import (
     size_optimised,
@@ -258,21 +259,13 @@ def adc_quantisation_gain_pct(law: CompensationLaw, channel, temp_c):
 
 
 def _fault_band(law, board, fault_margin_k: float) -> tuple[int, int]:
-    channel = board.temperature
-    full = channel.front_end.full_scale_code
     if not np.isfinite(fault_margin_k) or fault_margin_k < 0:
         raise ModelError(f"fault_margin_k must be a non-negative number, got {fault_margin_k!r}", key="fault_margin_k")
-    temps = np.array([law.min_temp_c - fault_margin_k, law.max_temp_c + fault_margin_k])
-    with np.errstate(all="ignore"):
-        try:
-            x = channel.continuous_code(temps)
-        except ModelError as exc:
-            raise ModelError(f"fault_margin_k: {fault_margin_k:g} K takes the range outside the sensor model: {exc}",
-                             key="fault_margin_k") from None
-    x = np.where(np.isfinite(x), x, np.where(np.arange(2) == 0, 1.0, float(full)))
-    lo, hi = int(np.floor(x.min())), int(np.floor(x.max()))
-    # Rails are always faults.
-    return max(lo, 1), min(hi, full - 1)
+    try:
+        return sensor_fault_band(board.temperature, [law.min_temp_c - fault_margin_k, law.max_temp_c + fault_margin_k])
+    except ModelError as exc:
+        raise ModelError(f"fault_margin_k: {fault_margin_k:g} K takes the range outside the sensor model: {exc}",
+                         key="fault_margin_k") from None
 
 
 def _check_margin_overvoltage(law, fault_margin_k: float) -> None:
