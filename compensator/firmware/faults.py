@@ -87,7 +87,7 @@ def sensor_fault_band(channel, temps_c) -> tuple[int, int]:
     tuple of int
     """
     with np.errstate(all="ignore"):
-        x = channel.continuous_code(np.asarray(temps_c, dtype=float))
+        x = channel.continuous_code(temps_c)
     x = np.where(np.isfinite(x), x, open_sensor_code(channel))
     full = channel.front_end.full_scale_code
     return max(1, int(np.floor(x.min()))), min(full - 1, int(np.floor(x.max())))
