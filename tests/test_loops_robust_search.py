@@ -11,6 +11,10 @@ from scipy.optimize import brentq, minimize, minimize_scalar
 
 from compensator.errors import ModelError
 from compensator.loops import plants, tuning
+from compensator.loops.verify import closed_loop_stable
+
+# The search works on finite numbers throughout: a numpy RuntimeWarning (a division by zero, an invalid value) fails.
+pytestmark = pytest.mark.filterwarnings("error::RuntimeWarning")
 
 T = 0.1
 
@@ -54,6 +58,9 @@ def _fopdt_pi_optimum(k, tau_s, theta_s, ms_max, delay_samples):
     (4.0, 20.0, 2.0, 1.4, 1),
     (0.5, 10.0, 1.0, 1.4, 1),  # a positive gain below one
     (-2.0, 30.0, 2.0, 1.6, 2),  # reverse acting, two samples of computation delay, a looser bound
+    # No computation delay and a loose bound (Ms <= 3): the optimum's loop would be unstable with one sample of
+    # delay (asserted below), so the search must use the delay it was given at every step.
+    (1.0, 2.0, 0.1, 3.0, 0),
 ])
 def test_robust_pi_reaches_the_optimum_of_scipy(k, tau_s, theta_s, ms_max, delay_samples):
     kp_opt, ki_opt = _fopdt_pi_optimum(abs(k), tau_s, theta_s, ms_max, delay_samples)
@@ -63,6 +70,8 @@ def test_robust_pi_reaches_the_optimum_of_scipy(k, tau_s, theta_s, ms_max, delay
     # steps (1 %) of the optimum, never above it.
     assert 0.99 * ki_opt <= sign * g.ki_per_s <= ki_opt * (1.0 + 1e-4)
     assert sign * g.kp == pytest.approx(kp_opt, rel=0.02) and g.kd_s == 0.0
+    if delay_samples == 0:
+        assert not closed_loop_stable(plants.fopdt_plant(k, tau_s, theta_s), g, T, computation_delay_samples=1)
 
 
 def test_a_plant_without_static_gain_is_refused():
@@ -190,6 +199,28 @@ def test_the_feasibility_test_on_curves_worked_by_hand(points, feasible):
     parts = tuning._LoopParts(a.real[None, None, :], a.imag[None, None, :], np.zeros((1, a.size)),
                               np.zeros((1, a.size)))
     assert list(tuning._feasible_batch(parts, np.array([0.0]), 1.4)) == [feasible]
+
+
+def test_the_bound_itself_is_feasible():
+    # Ms <= Ms_max includes the equality: min |1 + L| = 1 / Ms exactly (0.5 for Ms = 2, both exact in binary)
+    # is allowed, just below it is not.
+    for edge, feasible in ((0.5, True), (0.5 - 1e-12, False)):
+        a = np.array([2 + 1j, 1j * edge, 2 + 1j])
+        parts = tuning._LoopParts(a.real[None, None, :], a.imag[None, None, :], np.zeros((1, a.size)),
+                                  np.zeros((1, a.size)))
+        assert list(tuning._feasible_batch(parts, np.array([0.0]), 2.0)) == [feasible]
+
+
+def test_an_open_loop_unstable_plant_is_refused():
+    # 1 / (10 s - 1) behind 1 s of dead time: its pole at s = +0.1 / s (python-control) asks a Nyquist curve that
+    # encircles -1 once counter-clockwise (the Nyquist criterion), which the search's feasibility test excludes;
+    # the controllers it keeps all leave the loop unstable, so it must refuse rather than return one of them.
+    plant = plants.Plant(control.ss([[0.1]], [[0.1]], [[1.0]], [[0.0]]), 1.0, "unstable")
+    assert max(np.real(control.poles(plant.system))) == pytest.approx(0.1, abs=1e-12)
+    for pid, kind in ((False, "PI"), (True, "PID")):
+        with pytest.raises(ModelError) as info:
+            tuning.robust(plant, T, 1.4, pid=pid)
+        assert info.value.reason.startswith(f"no {kind} gains reach Ms <= 1.4 on this loop")
 
 
 def test_robust_on_a_static_plant_reaches_the_optimum_of_scipy():
