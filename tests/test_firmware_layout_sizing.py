@@ -5,6 +5,8 @@ floor division, not with the tool's numpy shifts; the targets are a few dozen co
 milliseconds.
 """
 
+import math
+
 import numpy as np
 import pytest
 
@@ -269,6 +271,77 @@ def test_minimax_line_of_a_parabola_by_hand():
     assert c == pytest.approx([0.0, 0.0], abs=1e-9) and err == pytest.approx(0.0, abs=1e-9)
 
 
+def test_minimax_line_of_a_falling_exponential_by_hand():
+    # The best uniform line to a convex f on [a, b] has the chord's slope m and errors of equal size at a, b and
+    # the point c where f'(c) = m (Chebyshev equioscillation). For f = exp(-x) on [0, 1]: m = 1/e - 1 < 0,
+    # c = -ln(-m), and the error is E = (f(0) - f(c) + m c) / 2 = 0.0593 (worked by hand from these formulas).
+    # The slope is negative: the fit must not hold its coefficients at or above zero.
+    m = math.exp(-1.0) - 1.0
+    c = -math.log(-m)
+    e = (1.0 - math.exp(-c) + m * c) / 2.0
+    u = np.linspace(0.0, 1.0, 4001)
+    coef, err = S._minimax(np.vander(u, 2, increasing=True), np.exp(-u), np.ones(u.size))
+    # on the grid the error is the continuous one less at most f'' h^2 / 8 (h = 1/4000)
+    assert err == pytest.approx(e, abs=1e-7) and err <= e + 1e-12
+    assert coef == pytest.approx([1.0 - e, m], abs=1e-6)
+
+
+@pytest.mark.parametrize("largest, bits", [(0, 32), ((1 << 31) - 1, 32), (1 << 31, 64), ((1 << 63) - 1, 64)])
+def test_accumulator_type_at_the_int32_limit(largest, bits):
+    # int32_t holds -2^31 + 1 .. 2^31 - 1 in magnitude (INT32_MAX, ISO C99 7.18.2.1); the accumulator is never
+    # narrower than 32 bits.
+    assert S._acc_type_bits(largest) == bits
+
+
+def _interpolation_intermediates(y, shifts, frac):
+    """Every value the C evaluation of a uniform or segmented table forms, in plain Python integers."""
+    seen = []
+    for i, k in enumerate(shifts):
+        y0, dy = y[i], y[i + 1] - y[i]
+        for r in range(2 ** k):
+            p = dy * r
+            v = y0 + (p + (2 ** k) // 2) // 2 ** k
+            seen += [y0, dy, p, p + (2 ** k) // 2, v, v + (2 ** frac) // 2]
+    return max(abs(v) for v in seen)
+
+
+@pytest.mark.parametrize("y, shifts, frac, over", [
+    # rising steps dominate: 5000 x (2^4 - 1) + 2^3 = 75008 exactly
+    ([1000, 5000, 2000, 7000], [3, 2, 4], 0, 0),
+    # the same at one spacing (uniform): 5000 x 7 + 4 = 35004
+    ([1000, 5000, 2000, 7000], [3, 3, 3], 0, 0),
+    # a falling step dominates: the product 6000 x 15 = 90000 is formed, the bound says 90000 + 2^3
+    ([7000, 1000, 1200], [4, 1], 0, 8),
+    # one-code segments (k = 0) with 8 fraction bits: the largest node (not the last) plus 2^7
+    ([256 * 900, 256 * 4000, 256 * 3000], [0, 0], 8, 0),
+])
+def test_interpolation_accumulator_against_every_intermediate(y, shifts, frac, over):
+    # The bound must hold every intermediate (brute force over every segment and remainder), and waste no more than
+    # the rounding term of a falling step.
+    y = np.array(y, dtype=np.int64)
+    k = shifts[0] if len(set(shifts)) == 1 else np.array(shifts, dtype=np.int64)
+    bound = S._interpolation_acc_max(y, k, frac)
+    assert bound == _interpolation_intermediates(y.tolist(), shifts, frac) + over
+
+
+@pytest.mark.parametrize("y, slope, lengths, frac_bits, over", [
+    # a rising row dominates: 700 x (15 - 1) + 2^3 = 9808 exactly
+    ([100, 3000, 2000], [300, 700, 50], [10, 15, 5], 4, 0),
+    # a falling row: the product 700 x 14 = 9800 is formed, the bound says 9800 + 2^3
+    ([100, 3000, 2000], [300, -700, 50], [10, 15, 5], 4, 8),
+    # flat rows under a large value: 60000 + floor((2 x 9 + 8) / 16) = 60001 reached, the bound allows one more
+    ([60000, 3000], [2, -1], [10, 5], 4, 1),
+])
+def test_breakpoint_accumulator_against_every_intermediate(y, slope, lengths, frac_bits, over):
+    seen = []
+    for y0, s0, n in zip(y, slope, lengths):
+        for d in range(n):
+            p = s0 * d
+            seen += [p, p + 2 ** frac_bits // 2, y0 + (p + 2 ** frac_bits // 2) // 2 ** frac_bits]
+    bound = S._breakpoint_acc_max(np.array(y), np.array(slope), np.array(lengths), frac_bits)
+    assert bound == max(abs(v) for v in seen) + over
+
+
 def test_horner_bound_against_every_intermediate():
     # The bound must be at least every |acc x| the Horner evaluation forms, over every x within +-x_max.
     rng = np.random.default_rng(7)
@@ -309,8 +382,10 @@ def test_polynomial_sizing_by_hand():
         q.append(q[-1] + sh)
     assert [int(c) / 2 ** qj for c, qj in zip(fit.y.tolist(), q)] == pytest.approx([1000, 0.5, 1 / 64], rel=2e-4)
     # A degree cap of 1 leaves no polynomial.
-    with pytest.raises(TableError, match="no polynomial up to degree 1 meets the bound"):
+    with pytest.raises(TableError) as exc:
         S.size_polynomial(t, 16, max_degree=1)
+    assert (exc.value.term, exc.value.reason) == ("DAC quantisation",
+                                                  "DAC quantisation: no polynomial up to degree 1 meets the bound")
 
 
 def test_polynomial_sizing_needs_room_for_rounding():
@@ -353,12 +428,13 @@ def test_optimised_sizing_refusal_names_the_term():
     assert exc.value.reason == "DAC quantisation: no breakpoint layout meets the bound"
 
 
-@pytest.mark.parametrize("top, acc_bits", [((1 << 23) - 1, 64), ((1 << 23) - 2, 32)])
+@pytest.mark.parametrize("top, acc_bits", [(1 << 23, 64), ((1 << 23) - 1, 32)])
 def test_accumulator_width_at_the_node_limit(top, acc_bits):
-    # A slow line just below 2^23 DAC codes (a 24-bit DAC), f = top - d / 3, d = 0 .. 8, at 0.34 LSB: nodes with 8
+    # A slow line from 2^23 DAC codes down (a 24-bit DAC), f = top - d / 3, d = 0 .. 8, at 0.34 LSB: nodes with 8
     # fractional bits 8 codes apart (12 bytes; plain ones would need one per code). The accumulator holds a node
-    # plus the rounding term 2^8: (2^23 - 1) 2^8 + 2^8 = 2^31 does not fit int32, (2^23 - 2) 2^8 + 2^8 does; the
-    # interpolation term (8/3 x 2^8 per node, 7 steps) is far smaller.
+    # plus the rounding term 2^7 (half of 2^8): 2^23 x 2^8 + 2^7 does not fit int32 (INT32_MAX = 2^31 - 1, ISO C99
+    # 7.18.2.1), (2^23 - 1) 2^8 + 2^7 = 2^31 - 2^7 does; the interpolation term (8/3 x 2^8 per node, 7 steps) is far
+    # smaller.
     t = target([top - d / 3 for d in range(9)], bound=0.34, dac_full=(1 << 24) - 1)
     for fit in (S.size_uniform(t, 32), S.size_segmented(t, 32)):
         assert fit.node_frac_bits == 8 and int(fit.y.max()) == top << 8
@@ -462,6 +538,15 @@ def test_polynomial_fit_keeps_the_margin_for_rounding():
     assert S.size_polynomial(t, 16).y.size == 3
 
 
+def test_polynomial_takes_a_line_that_leaves_room_for_rounding():
+    # f = 1000 + x / 2 + x^2 / 2048 at x = -32 .. 32: the best line misses by (32^2 / 2048) / 2 = 0.25 LSB, within
+    # the 1 - 0.6 = 0.4 LSB the fit may use at a bound of 1 LSB (the pair of the test above): a line it is.
+    t = target([1000 + x / 2 + x * x / 2048 for x in range(-32, 33)], bound=1.0)
+    fit = S.size_polynomial(t, 16)
+    got = polynomial_value(fit.y, fit.coeff_shift, t.codes - fit.center_code, fit.node_frac_bits)
+    assert fit.y.size == 2 and meets(t, got.tolist())
+
+
 @pytest.mark.parametrize("a1, c1", [(2.0 ** -12, 256), (0.0, 0)])
 def test_polynomial_shifts_capped_by_the_next_coefficient(a1, c1):
     # f = 1000 + a1 x + x^2 / 64 at x = -32 .. 32 (three coefficients, the constant in 32 bits, 8 bytes; a line
@@ -490,12 +575,23 @@ def test_polynomial_layout_details_by_hand():
     assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([10 ** 6 << 11, 16384, 16384], [4, 5], 11)
 
 
-def test_polynomial_fit_samples_long_ranges():
-    # More than 6000 codes: the fit uses 6000 of them (both ends included) and every code is checked afterwards;
-    # a quadratic over 6401 codes is still held by three coefficients within the bound at every code.
+def test_polynomial_fit_samples_long_ranges(monkeypatch):
+    # More than 6000 codes: the fit uses 6000 of them, spread evenly (gaps of at most ceil(6400 / 5999) = 2 codes)
+    # with both ends included, and every code is checked afterwards; a quadratic over 6401 codes is still held by
+    # three coefficients within the bound at every code.
     n = 6401
     t = target([500 + 0.3 * d + (d - 3200) ** 2 / 40000 for d in range(n)], bound=1.0, dac_full=(1 << 16) - 1)
+    samples, real_try = [], S._polynomial_try
+
+    def spy(target_, sample, *args):
+        samples.append(np.asarray(sample).tolist())
+        return real_try(target_, sample, *args)
+
+    monkeypatch.setattr(S, "_polynomial_try", spy)
     fit = S.size_polynomial(t, 16)
+    for sample in samples:
+        assert len(sample) == 6000 and (sample[0], sample[-1]) == (0, n - 1)
+        assert 1 <= min(np.diff(sample)) and max(np.diff(sample)) <= 2
     got = polynomial_value(fit.y, fit.coeff_shift, t.codes - fit.center_code, fit.node_frac_bits)
     assert fit.y.size == 3 and meets(t, got.tolist())
 

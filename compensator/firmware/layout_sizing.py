@@ -73,6 +73,35 @@ def _node_bits(target: Target, value_bits: int, frac: int) -> int:
     return max(value_bits, uint_bits(((target.dac_full + 1) << frac) - 1))
 
 
+def _acc_type_bits(largest: int) -> int:
+    """Width of the signed accumulator, 32 or 64 bits, that holds every value up to ``largest`` in magnitude."""
+    return max(32, int_bits(largest))
+
+
+def _interpolation_acc_max(y, segment_shift, frac: int) -> int:
+    """Largest magnitude the interpolation between nodes ``y`` forms (see :func:`uniform_value`).
+
+    Segment ``i`` (width ``2^k_i``) forms ``(y[i+1] - y[i]) r`` and that plus ``2^(k_i - 1)`` for every remainder
+    ``0 <= r < 2^k_i``, at most ``|dy| (2^k - 1) + 2^(k - 1)`` (exact for a rising step, ``2^(k - 1)`` above it for
+    a falling one); the value then lies between the nodes, so rounding away the ``frac`` bits forms at most the
+    largest node plus ``2^(frac - 1)``.
+    """
+    width = np.left_shift(np.int64(1), segment_shift)  # int64 throughout: |dy| < 2^40 and widths < 2^24
+    steps = np.abs(np.diff(y)) * (width - 1) + (width >> 1)
+    return max(int(steps.max()), int(y.max()) + half(frac))
+
+
+def _breakpoint_acc_max(y, slope, lengths, frac_bits: int) -> int:
+    """Largest magnitude the breakpoint interpolation forms (see :func:`optimised_value`).
+
+    Row ``i`` forms ``slope_i d`` and that plus ``2^(F - 1)`` for ``0 <= d < length_i``, at most
+    ``P = max |slope| (length - 1) + 2^(F - 1)`` (exact for a rising row); adding the row's value to that shifted
+    down by ``F`` forms at most ``max y + (P >> F) + 1``.
+    """
+    products = int(np.max(np.abs(slope) * (lengths - 1))) + half(frac_bits)
+    return max(products, int(y.max()) + (products >> frac_bits) + 1)
+
+
 def size_uniform(target: Target, value_bits: int) -> LayoutFit:
     """The widest power-of-two spacing for each node format; keep the one with fewer bytes.
 
@@ -89,17 +118,15 @@ def size_uniform(target: Target, value_bits: int) -> LayoutFit:
         for shift in range(top, -1, -1):
             y, ok, _ = uniform_candidate(target, shift, frac)
             if ok:
-                nbytes = y.size * node_bits // 8
-                if best is None or nbytes < best[0]:
-                    best = (nbytes, shift, frac, node_bits, y)
+                size_bits = y.size * node_bits
+                if best is None or size_bits < best[0]:
+                    best = (size_bits, shift, frac, node_bits, y)
                 break
     if best is None:
         raise TableError("DAC quantisation", "no uniform table meets the bound even with one node per ADC code")
     _, shift, frac, node_bits, y = best
-    max_delta = int(np.max(np.abs(np.diff(y)))) if y.size > 1 else 0
-    acc_max = max(max_delta * ((1 << shift) - 1) + (1 << shift), int(y.max()) + (1 << frac))
     return _fit("uniform", y=y, shift=shift, node_frac_bits=frac, node_type_bits=node_bits,
-                acc_type_bits=32 if int_bits(acc_max) <= 32 else 64)
+                acc_type_bits=_acc_type_bits(_interpolation_acc_max(y, shift, frac)))
 
 
 def _place_segmented(target: Target, frac: int):
@@ -142,14 +169,12 @@ def size_segmented(target: Target, value_bits: int) -> LayoutFit:
     for frac in UNIFORM_NODE_FRAC_BITS:
         node_bits = _node_bits(target, value_bits, frac)
         y, k = _place_segmented(target, frac)
-        nbytes = y.size * node_bits // 8 + k.size
-        if best is None or nbytes < best[0]:
-            best = (nbytes, frac, node_bits, y, k)
+        size_bits = y.size * node_bits + 8 * k.size
+        if best is None or size_bits < best[0]:
+            best = (size_bits, frac, node_bits, y, k)
     _, frac, node_bits, y, k = best
-    max_delta = int(np.max(np.abs(np.diff(y)))) if y.size > 1 else 0
-    acc_max = max(max_delta * ((1 << int(k.max())) - 1) + (1 << int(k.max())), int(y.max()) + (1 << frac))
     return _fit("segmented", y=y, segment_shift=k, node_frac_bits=frac, node_type_bits=node_bits,
-                acc_type_bits=32 if int_bits(acc_max) <= 32 else 64)
+                acc_type_bits=_acc_type_bits(_interpolation_acc_max(y, k, frac)))
 
 
 def _segment_ok(target: Target, start: int, end: int, last: bool, frac_bits: int, slope_max: int):
@@ -241,16 +266,15 @@ def size_optimised(target: Target, code_bits: int, value_bits: int) -> LayoutFit
             x, y, s = _place_optimised(target, frac_bits, slope_max)
         except TableError:
             continue
-        nbytes = x.size * (code_bits + value_bits + slope_bits) // 8
-        if best is None or nbytes < best[0]:
-            best = (nbytes, slope_bits, frac_bits, x, y, s)
+        size_bits = x.size * (code_bits + value_bits + slope_bits)
+        if best is None or size_bits < best[0]:
+            best = (size_bits, slope_bits, frac_bits, x, y, s)
     if best is None:
         raise TableError("DAC quantisation", "no breakpoint layout meets the bound")
     _, slope_bits, frac_bits, x, y, s = best
     lengths = np.diff(np.append(x, int(target.codes[-1]) + 1))
-    acc_max = int(np.max(np.abs(s) * lengths)) + (1 << frac_bits)
     return _fit("optimised", x=x, y=y, slope=s, slope_frac_bits=frac_bits, node_type_bits=value_bits,
-                slope_type_bits=slope_bits, acc_type_bits=32 if int_bits(acc_max) <= 32 else 64)
+                slope_type_bits=slope_bits, acc_type_bits=_acc_type_bits(_breakpoint_acc_max(y, s, lengths, frac_bits)))
 
 
 def _minimax(basis, f, w, fixed=None):
@@ -307,9 +331,8 @@ def _polynomial_try(target: Target, sample, u, w, degree: int, widths: tuple, lo
         if a[j] == 0:
             qj = 0 if cap is None else cap
         else:
+            # |a_j| 2^q_j <= limit (up to a relative 2^-52 from the float log2), so it rounds to at most limit
             qj = int(np.floor(np.log2(limit / abs(a[j]))))
-            while abs(np.rint(a[j] * 2.0 ** qj)) > limit:
-                qj -= 1
             if cap is not None:
                 qj = min(qj, cap)
         big_q[j] = qj + j * log2_scale
@@ -352,16 +375,11 @@ def size_polynomial(target: Target, value_bits: int, max_degree: int = MAX_POLYN
     for degree in range(1, max_degree + 1):
         for narrow in range(0, degree + 1):  # the `narrow` highest coefficients in 16 bits, the rest in 32
             widths = tuple(16 if j > degree - narrow else 32 for j in range(degree + 1))
-            options.append((sum(widths) // 8, degree, widths))
-    options.sort(key=lambda o: (o[0], o[1]))
-    failed_degrees = set()
-    for nbytes, degree, widths in options:
-        if degree in failed_degrees:
-            continue
+            options.append((sum(widths), degree, widths))
+    options.sort(key=lambda o: (o[0], o[1]))  # the fewest bits first, then the lower degree
+    for _, degree, widths in options:
         got = _polynomial_try(target, sample, u, w, degree, widths, log2_scale)
         if got is None:
-            if all(wd == 32 for wd in widths):
-                failed_degrees.add(degree)
             continue
         coeff, shifts, q0 = got
         if _horner_bound(coeff, shifts, x_max) >= _HORNER_LIMIT:
