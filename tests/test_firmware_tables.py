@@ -1,6 +1,7 @@
 """Integer lookup tables: sizing against the bound, the firmware path, faults and the error bound."""
 
 import os
+import re
 from dataclasses import replace
 
 import numpy as np
@@ -281,6 +282,10 @@ def test_clamped_law_names_the_supply(sipm_b, board_ntc):
     with pytest.raises(TableError) as exc:
         build_table(law, board_ntc, 0.05)
     assert exc.value.term == "output limit (supply maximum output)"
+    # the supply's own refusal follows the term: what the law needs over the range, and what to change
+    assert re.fullmatch(r"output limit \(supply maximum output\): overvoltage_v: the law needs \d+\.\d{3} to "
+                        r"\d+\.\d{3} V from -25 to 45 C, beyond the supply maximum output; lower --overvoltage-v or "
+                        r"use another board", exc.value.reason)
 
 
 def test_bad_arguments(sipm_a, board_ntc):

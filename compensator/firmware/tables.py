@@ -206,17 +206,15 @@ def _target(law, board, max_gain_error_pct) -> Target:
     per_lsb = _gain_pct_per_lsb(law, temps)
     bound = max_gain_error_pct / per_lsb
     ext = []
-    for end in (code_lo, code_hi):
-        t2 = channel.temp_at(np.array([end - 0.5, end + 1.5]))
-        e2 = (law.unclamped_output_v(t2) - law.supply.intercept_v) / law.supply.volts_per_code
-        ext.append(float((e2[1] - e2[0]) / 2.0))
+    for end in (code_lo, code_hi):  # DAC codes per ADC code across the end code, from its two neighbours' centres
+        v2 = law.unclamped_output_v(channel.temp_at(np.array([end - 0.5, end + 1.5])))
+        ext.append(float((v2[1] - v2[0]) / (2.0 * law.supply.volts_per_code)))
     return Target(codes=codes, temp_c=temps, exact=exact, bound_lsb=bound, gain_pct_per_lsb=per_lsb, ext_lo=ext[0],
                   ext_hi=ext[1], dac_full=law.supply.dac.full_scale_code)
 
 
 def _check_feasible(law, board, target: Target, max_gain_error_pct: float) -> None:
-    if not np.isfinite(max_gain_error_pct) or max_gain_error_pct <= 0:
-        raise ModelError(f"max_gain_error_pct must be a positive number, got {max_gain_error_pct!r}")
+    """Refuse a law the supply clamps, or a bound finer than half a DAC LSB or half an ADC code allows."""
     try:
         check_law_in_range(law)
     except ModelError as exc:
