@@ -563,8 +563,11 @@ def test_polynomial_layout_details_by_hand():
     # Degrees up to 2 are enough for a quadratic.
     assert S.size_polynomial(target(quad, bound=1.0), 16, max_degree=2).y.size == 3
     # A constant needs a degree-1 polynomial (no degree 0 is offered): 32 + 16 bits, the slope 0.
+    # A zero top coefficient keeps q = 0, so Q_1 = 1 x log2_scale = bit_length(8) = 4 over x = -8 .. 8, and the
+    # constant may not pass it: Q_0 = min(floor(log2((2^31 - 1) / 1000)), 4) = 4, C_0 = 1000 x 2^4.
     fit = S.size_polynomial(target([1000.0] * 17, bound=1.0, ext=0.0), 16)
     assert tuple(fit.coeff_type_bits) == (32, 16) and int(fit.y[1]) == 0 and fit.y[0] == 1000 << fit.node_frac_bits
+    assert (fit.y.tolist(), fit.coeff_shift.tolist(), fit.node_frac_bits) == ([16000, 0], [0], 4)
     # 64 codes (100 .. 163): the centre is the whole code floor(263 / 2) = 131.
     fit = S.size_polynomial(target([1000 + (x - 31) / 2 for x in range(64)], bound=1.0), 16)
     assert fit.center_code == 131 and isinstance(fit.center_code, int)
@@ -604,3 +607,20 @@ def test_optimised_wide_accumulator_by_hand():
     fit = S.size_optimised(target([10000 * d + 100 for d in range(300)], bound=0.5, dac_full=(1 << 24) - 1), 16, 32)
     assert (fit.slope_type_bits, fit.slope_frac_bits, fit.slope.tolist()) == (32, 11, [20480000])
     assert (fit.acc_type_bits, fit.node_type_bits) == (64, 32)
+
+
+@pytest.mark.parametrize("rate, acc_bits", [(3506 + 1 / 3, 32), (3507 + 1 / 3, 64)])
+def test_optimised_32_bit_slopes_win_and_their_accumulator_edge(rate, acc_bits):
+    # A line of 3506 1/3 (or 3507 1/3) DAC codes per code over 300 codes, a 24-bit DAC, 0.5 LSB. 16-bit slopes get
+    # F = floor(log2(32767 / (2 x 3507 + 1))) = 2 bits: the nearest slope is 1/12 code per code off, so the error
+    # drifts by (L - 1) / 12 LSB across a row of L codes, more than the 1 LSB between -0.5 and +0.5 once L > 13:
+    # at least 300 / 13, so 24 rows of 64 bits. 32-bit slopes get
+    # F = min(18, bit_length(299) + 2) = 11 and hold the whole line in one row, S = round(rate x 2^11): 80 bits.
+    # The accumulator forms S x 299 + 2^10 at the last code: 7180971 x 299 + 1024 = 2^31 - 372295 fits int32,
+    # 7183019 x 299 + 1024 = 2^31 + 240057 does not.
+    t = target([rate * d + 100 for d in range(300)], bound=0.5, dac_full=(1 << 24) - 1)
+    fit = S.size_optimised(t, 16, 32)
+    slope = round(rate * 2 ** 11)
+    assert (fit.slope_type_bits, fit.slope_frac_bits, fit.x.tolist(), fit.slope.tolist()) == (32, 11, [LO], [slope])
+    assert slope * 299 + 1024 - 2 ** 31 == (-372295 if acc_bits == 32 else 240057)
+    assert fit.acc_type_bits == acc_bits
