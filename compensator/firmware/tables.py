@@ -277,7 +277,7 @@ def _check_margin_overvoltage(law, fault_margin_k: float) -> None:
                          f"use a smaller margin", key="fault_margin_k")
 
 
-def _dac_clamp(law, board) -> tuple[int, int]:
+def _dac_clamp(law) -> tuple[int, int]:
     s = law.supply
     lo_v, hi_v = s.output_range_v()
     top_v = min(hi_v, law.max_bias_v)
@@ -321,7 +321,7 @@ class _Frame:
         _check_feasible(law, board, self.target, max_gain_error_pct)
         self.fault_lo, self.fault_hi = _fault_band(law, board, fault_margin_k)
         _check_margin_overvoltage(law, fault_margin_k)
-        self.dac_min, self.dac_max = _dac_clamp(law, board)
+        self.dac_min, self.dac_max = _dac_clamp(law)
         self.adc_bits = board.temperature.front_end.adc_bits
         self.dac_bits = law.supply.dac.bits
         self.code_bits = max(16, uint_bits((1 << self.adc_bits) - 1))
@@ -445,8 +445,7 @@ def compare_layouts(law: CompensationLaw, board, max_gain_error_pct: float, *,
         except TableError as exc:
             errors.append(exc)
             candidates.append(LayoutCandidate(layout=layout, table_bytes=None, entries=None, max_gain_error_pct=None,
-                                              within_bound=False, reason=exc.reason if hasattr(exc, "reason")
-                                              else str(exc)))
+                                              within_bound=False, reason=exc.reason))
             continue
         worst, ok = frame.verify(table)
         tables[layout] = table
