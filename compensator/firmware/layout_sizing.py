@@ -86,7 +86,8 @@ def _interpolation_acc_max(y, segment_shift, frac: int) -> int:
     a falling one); the value then lies between the nodes, so rounding away the ``frac`` bits forms at most the
     largest node plus ``2^(frac - 1)``.
     """
-    width = np.left_shift(np.int64(1), segment_shift)  # int64 throughout: |dy| < 2^40 and widths < 2^24
+    # int64 holds it: the profiles allow at most 24-bit DACs and ADCs, so |dy| < 2^32 (8 fraction bits) and widths <= 2^24
+    width = np.left_shift(np.int64(1), segment_shift)
     steps = np.abs(np.diff(y)) * (width - 1) + (width >> 1)
     return max(int(steps.max()), int(y.max()) + half(frac))
 
