@@ -274,11 +274,13 @@ def test_minimax_line_of_a_parabola_by_hand():
 def test_minimax_line_of_a_falling_exponential_by_hand():
     # The best uniform line to a convex f on [a, b] has the chord's slope m and errors of equal size at a, b and
     # the point c where f'(c) = m (Chebyshev equioscillation). For f = exp(-x) on [0, 1]: m = 1/e - 1 < 0,
-    # c = -ln(-m), and the error is E = (f(0) - f(c) + m c) / 2 = 0.0593 (worked by hand from these formulas).
+    # c = -ln(-m) = 0.458675, and the error is E = (f(0) - f(c) + m c) / 2 = 0.038971 (worked by hand from these
+    # formulas).
     # The slope is negative: the fit must not hold its coefficients at or above zero.
     m = math.exp(-1.0) - 1.0
     c = -math.log(-m)
     e = (1.0 - math.exp(-c) + m * c) / 2.0
+    assert (c, e) == pytest.approx((0.458675, 0.038971), abs=1e-6)
     u = np.linspace(0.0, 1.0, 4001)
     coef, err = S._minimax(np.vander(u, 2, increasing=True), np.exp(-u), np.ones(u.size))
     # on the grid the error is the continuous one less at most f'' h^2 / 8 (h = 1/4000)

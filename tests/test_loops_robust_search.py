@@ -212,7 +212,7 @@ def test_the_bound_itself_is_feasible():
 
 
 def test_an_open_loop_unstable_plant_is_refused():
-    # 1 / (10 s - 1) behind 1 s of dead time: its pole at s = +0.1 / s (python-control) asks a Nyquist curve that
+    # 1 / (10 s - 1) behind 1 s of dead time: its pole at s = +0.1 s^-1 (python-control) asks a Nyquist curve that
     # encircles -1 once counter-clockwise (the Nyquist criterion), which the search's feasibility test excludes;
     # the controllers it keeps all leave the loop unstable, so it must refuse rather than return one of them.
     plant = plants.Plant(control.ss([[0.1]], [[0.1]], [[1.0]], [[0.0]]), 1.0, "unstable")
