@@ -66,3 +66,10 @@ def test_c_floor_shift_compiles_and_floors(tmp_path):
     exe = build(tmp_path, {"fs.c": main}, PEDANTIC)
     got = [int(v) for v in subprocess.run([str(exe)], capture_output=True, text=True, check=True).stdout.split()]
     assert got == [math.floor(Fraction(p, 2 ** k)) for p in range(-300, 301) for k in range(9)]
+
+
+@pytest.mark.parametrize("largest, bits", [(0, 32), ((1 << 31) - 1, 32), (1 << 31, 64), ((1 << 63) - 1, 64)])
+def test_accumulator_type_at_the_int32_limit(largest, bits):
+    # int32_t holds -2^31 + 1 .. 2^31 - 1 in magnitude (INT32_MAX, ISO C99 7.18.2.1); the accumulator is never
+    # narrower than 32 bits.
+    assert fp.acc_bits(largest) == bits

@@ -288,13 +288,6 @@ def test_minimax_line_of_a_falling_exponential_by_hand():
     assert coef == pytest.approx([1.0 - e, m], abs=1e-6)
 
 
-@pytest.mark.parametrize("largest, bits", [(0, 32), ((1 << 31) - 1, 32), (1 << 31, 64), ((1 << 63) - 1, 64)])
-def test_accumulator_type_at_the_int32_limit(largest, bits):
-    # int32_t holds -2^31 + 1 .. 2^31 - 1 in magnitude (INT32_MAX, ISO C99 7.18.2.1); the accumulator is never
-    # narrower than 32 bits.
-    assert S._acc_type_bits(largest) == bits
-
-
 def _interpolation_intermediates(y, shifts, frac):
     """Every value the C evaluation of a uniform or segmented table forms, in plain Python integers."""
     seen = []

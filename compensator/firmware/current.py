@@ -25,7 +25,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from compensator.errors import ModelError
-from compensator.firmware.fixed_point import floor_shift, half, int_bits, uint_bits
+from compensator.firmware.fixed_point import acc_bits, floor_shift, half, uint_bits
 from compensator.law.laws import CompensationLaw
 from compensator.physics.sipm import breakdown_v
 
@@ -142,6 +142,6 @@ def build_current_correction(law: CompensationLaw, fault_margin_k: float = 0.0) 
     acc_max = abs(factor) * code_max + (1 << shift)
     return CurrentCorrection(
         current_bits=sense.adc_bits, current_type_bits=max(16, uint_bits(sense.full_scale_code)),
-        current_code_max=code_max, factor=factor, shift=shift, acc_type_bits=32 if int_bits(acc_max) <= 32 else 64,
+        current_code_max=code_max, factor=factor, shift=shift, acc_type_bits=acc_bits(acc_max),
         dac_codes_per_current_code=float(exact), lsb_a=float(sense.lsb_a), series_resistor_ohm=r_ohm,
         limit_reason=reason)

@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = [
-    "INT32_MIN", "INT32_MAX", "floor_shift", "rshift_round", "half", "saturate", "uint_bits", "int_bits",
+    "INT32_MIN", "INT32_MAX", "floor_shift", "rshift_round", "half", "saturate", "uint_bits", "int_bits", "acc_bits",
     "c_floor_shift_function", "c_int_literal",
 ]
 
@@ -107,6 +107,16 @@ def int_bits(max_abs: int) -> int:
         if max_abs < (1 << (bits - 1)):
             return bits
     return 64
+
+
+def acc_bits(max_abs: int) -> int:
+    """Width of a signed accumulator, 32 or 64 bits, that holds ``-max_abs .. max_abs`` (never narrower than 32).
+
+    Parameters
+    ----------
+    max_abs : int
+    """
+    return max(32, int_bits(max_abs))
 
 
 def c_floor_shift_function(name: str, ctype: str) -> str:

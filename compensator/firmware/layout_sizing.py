@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from compensator.firmware.fixed_point import floor_shift, half, int_bits, uint_bits
+from compensator.firmware.fixed_point import acc_bits, floor_shift, half, uint_bits
 from compensator.firmware.layouts import (
     MAX_POLYNOMIAL_DEGREE,
     UNIFORM_NODE_FRAC_BITS,
@@ -73,11 +73,6 @@ def _node_bits(target: Target, value_bits: int, frac: int) -> int:
     return max(value_bits, uint_bits(((target.dac_full + 1) << frac) - 1))
 
 
-def _acc_type_bits(largest: int) -> int:
-    """Width of the signed accumulator, 32 or 64 bits, that holds every value up to ``largest`` in magnitude."""
-    return max(32, int_bits(largest))
-
-
 def _interpolation_acc_max(y, segment_shift, frac: int) -> int:
     """Largest magnitude the interpolation between nodes ``y`` forms (see :func:`uniform_value`).
 
@@ -127,7 +122,7 @@ def size_uniform(target: Target, value_bits: int) -> LayoutFit:
         raise TableError("DAC quantisation", "no uniform table meets the bound even with one node per ADC code")
     _, shift, frac, node_bits, y = best
     return _fit("uniform", y=y, shift=shift, node_frac_bits=frac, node_type_bits=node_bits,
-                acc_type_bits=_acc_type_bits(_interpolation_acc_max(y, shift, frac)))
+                acc_type_bits=acc_bits(_interpolation_acc_max(y, shift, frac)))
 
 
 def _place_segmented(target: Target, frac: int):
@@ -175,7 +170,7 @@ def size_segmented(target: Target, value_bits: int) -> LayoutFit:
             best = (size_bits, frac, node_bits, y, k)
     _, frac, node_bits, y, k = best
     return _fit("segmented", y=y, segment_shift=k, node_frac_bits=frac, node_type_bits=node_bits,
-                acc_type_bits=_acc_type_bits(_interpolation_acc_max(y, k, frac)))
+                acc_type_bits=acc_bits(_interpolation_acc_max(y, k, frac)))
 
 
 def _segment_ok(target: Target, start: int, end: int, last: bool, frac_bits: int, slope_max: int):
@@ -275,7 +270,7 @@ def size_optimised(target: Target, code_bits: int, value_bits: int) -> LayoutFit
     _, slope_bits, frac_bits, x, y, s = best
     lengths = np.diff(np.append(x, int(target.codes[-1]) + 1))
     return _fit("optimised", x=x, y=y, slope=s, slope_frac_bits=frac_bits, node_type_bits=value_bits,
-                slope_type_bits=slope_bits, acc_type_bits=_acc_type_bits(_breakpoint_acc_max(y, s, lengths, frac_bits)))
+                slope_type_bits=slope_bits, acc_type_bits=acc_bits(_breakpoint_acc_max(y, s, lengths, frac_bits)))
 
 
 def _minimax(basis, f, w, fixed=None):
