@@ -17,6 +17,7 @@ import pytest
 from compensator.errors import InputError, ModelError
 from compensator.firmware.interlocks import InterlockLimits
 from compensator.firmware.interlocks_c import render_interlocks_c, write_interlocks_c
+from golden_check import assert_golden
 
 GOLDEN = Path(__file__).parent / "golden" / "interlocks"
 
@@ -46,14 +47,6 @@ def golden_files(case: str) -> dict:
     """The files the golden test compares (also what ``tests/golden/update.py`` writes)."""
     limits, name = GOLDEN_CASES[case]
     return render_interlocks_c(limits, name=name, settings={"case": case})
-
-
-def assert_golden(files: dict, directory: Path) -> None:
-    """The rendered files are exactly the reviewed ones in ``directory`` (no more, no fewer, byte for byte)."""
-    assert sorted(files) == sorted(p.name for p in directory.iterdir())
-    for fname, text in files.items():
-        assert (directory / fname).read_bytes() == text.encode(), (
-            f"{fname} differs from the golden file; if the change is intended, run tests/golden/update.py")
 
 
 @pytest.mark.parametrize("case", sorted(GOLDEN_CASES))

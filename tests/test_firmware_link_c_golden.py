@@ -16,7 +16,7 @@ from compensator.errors import InputError, ModelError
 from compensator.firmware.link_c import DEFAULT_LINK_NAME, render_link_c, write_link_c
 from compensator.firmware.link_c_messages import C_SIZES, C_TYPES
 from compensator.link import protocol as p
-from test_firmware_interlocks_golden import assert_golden
+from golden_check import assert_golden
 
 GOLDEN = Path(__file__).parent / "golden" / "link"
 

@@ -15,6 +15,7 @@ import pytest
 
 from compensator.firmware.pid import PidSettings, quantise_pid
 from compensator.firmware.pid_c import render_pid_c
+from golden_check import assert_golden
 
 GOLDEN = Path(__file__).parent / "golden" / "pid"
 
@@ -62,6 +63,4 @@ def golden_pid_files(case: str) -> dict:
 def test_pid_golden_files(case):
     files = golden_pid_files(case)
     assert sorted(files) == [f"{case}.c", f"{case}.h"]
-    for fname, text in files.items():
-        assert (GOLDEN / case / fname).read_bytes() == text.encode(), (
-            f"{fname} differs from the golden file; if the change is intended, run tests/golden/update.py")
+    assert_golden(files, GOLDEN / case)

@@ -19,6 +19,7 @@ from compensator.law import build_law
 from compensator.profiles import load_board, load_sipm
 
 from cbuild import CC, PEDANTIC, STRICT, build, needs_cc  # noqa: E402
+from golden_check import assert_golden  # noqa: E402
 
 GOLDEN = Path(__file__).parent / "golden" / "tables"
 
@@ -175,11 +176,7 @@ def test_golden_files(case):
     built = golden_table(case)
     files = golden_files(case, built)
     assert files == golden_files(case, built)  # deterministic
-    directory = GOLDEN / case
-    assert sorted(files) == sorted(p.name for p in directory.iterdir())
-    for fname, text in files.items():
-        assert (directory / fname).read_bytes() == text.encode(), (
-            f"{fname} differs from the golden file; if the change is intended, run tests/golden/update.py")
+    assert_golden(files, GOLDEN / case)
 
 
 def test_banner_and_contents(sipm_a, board_ntc):
